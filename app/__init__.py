@@ -1,0 +1,1 @@
+"""Hazel's shells: the Streamlit pages, the chart builders, the HTML report and the command line."""

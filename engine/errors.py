@@ -1,0 +1,44 @@
+"""Errors the engine raises for bad input.
+
+Every class subclasses ``ValueError`` so callers can catch input problems in one place, and every
+message names the column or file, the rule broken, the values seen and what to try next.
+"""
+
+from __future__ import annotations
+
+
+class HazelError(ValueError):
+    """Base class: the input cannot be used as given."""
+
+
+class FileReadError(HazelError):
+    """The file cannot be read as a table (empty, binary, no rows, duplicate headers...)."""
+
+
+class FileTooLargeError(FileReadError):
+    """The file is larger than the configured limit."""
+
+
+class RoleError(HazelError):
+    """A column role is missing, names an unknown column, or the column's values do not fit it."""
+
+    def __init__(self, message: str, column: str | None = None, values: list | None = None):
+        super().__init__(message)
+        self.column = column
+        self.values = list(values) if values is not None else []
+
+
+class EventCodingError(RoleError):
+    """The event column's values cannot be mapped to event / censored without the caller's help."""
+
+
+class AnalysisError(HazelError):
+    """An analysis cannot be computed on this data (too few rows, no events, a model that fails)."""
+
+
+def preview_values(values, limit: int = 5) -> str:
+    """Show a few offending values in a message, quoted, with a count of the rest."""
+    values = list(values)
+    shown = ", ".join(repr(v) for v in values[:limit])
+    rest = len(values) - limit
+    return shown + (f" and {rest} more" if rest > 0 else "")
