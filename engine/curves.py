@@ -256,7 +256,7 @@ class SurvivalAtTable:
         }
 
 
-def _check_times(times, what: str = "times") -> np.ndarray:
+def check_times(times, what: str = "times") -> np.ndarray:
     arr = np.atleast_1d(np.asarray(times, dtype=float))
     if arr.size and (~np.isfinite(arr) | (arr < 0)).any():
         raise AnalysisError(f"The {what} must be finite numbers >= 0; got {arr.tolist()}.")
@@ -266,7 +266,7 @@ def _check_times(times, what: str = "times") -> np.ndarray:
 def survival_at(curve: SurvivalCurve, times) -> SurvivalAtTable:
     """S(t) and its interval at each requested time; None beyond the last observed time
     unless the curve has already reached 0 (the estimate is undefined past follow-up)."""
-    t = _check_times(times)
+    t = check_times(times)
     last = np.searchsorted(curve.time, t, side="right") - 1  # last observed time <= t
     before = np.searchsorted(curve.time, t, side="left")  # first observed time >= t
     started = last >= 0

@@ -86,7 +86,7 @@ def group_codes(group, n: int) -> tuple[np.ndarray, tuple]:
     """
     if group is None:
         return np.zeros(n, dtype=np.intp), (None,)
-    series = group if isinstance(group, pd.Series) else pd.Series(np.asarray(group))
+    series = group if isinstance(group, pd.Series) else pd.Series(group)
     if len(series) != n:
         raise AnalysisError(f"Column '_group' has {len(series)} values but '_time' has {n}.")
     if isinstance(series.dtype, pd.CategoricalDtype):
