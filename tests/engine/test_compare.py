@@ -233,3 +233,18 @@ def test_comparison_json_keys_and_null_without_group(freireich):
     assert comparison_json(freireich.drop(columns="_group")) is None
     full = compare_frame(freireich, test="peto-peto").to_dict()
     assert full["test"] == "Peto–Peto" and len(full["groups"]) == 2
+
+
+def test_compare_frame_leaves_out_rows_without_group_or_stratum(simulated):
+    simulated.loc[[0, 1, 2], "_group"] = np.nan
+    simulated.loc[[2, 3], "_strata"] = np.nan
+    result = compare_frame(simulated)
+    kept = simulated.dropna(subset=["_group", "_strata"])
+    reference, _ = survdiff(
+        kept["_time"],
+        kept["_event"],
+        np.asarray(kept["_group"]),
+        strata=np.asarray(kept["_strata"]),
+    )
+    assert result.rows_excluded == 4 and result.to_dict()["rows_excluded"] == 4
+    assert_allclose(result.statistic, reference, rtol=1e-6)

@@ -107,3 +107,14 @@ def test_rmst_frame_puts_all_rows_first(freireich):
     table = rmst_frame(freireich, tau=20.0)
     assert [e.label for e in table.estimates] == [None, "6-MP", "placebo"]
     assert table.tau_rule == "tau = 20, given by the caller"
+
+
+def test_rmst_frame_keeps_rows_without_group_in_the_first_row_only(freireich):
+    freireich.loc[[0], "_group"] = np.nan
+    table = rmst_frame(freireich, tau=20.0)
+    everyone = rmst(freireich["_time"], freireich["_event"], tau=20.0)
+    assert_allclose(table.estimates[0].estimate, everyone.estimate)
+    rest = freireich.dropna(subset=["_group"])
+    six_mp = rmst(*_arrays(rest, "6-MP"), tau=20.0)
+    assert_allclose(table.estimates[1].estimate, six_mp.estimate)
+    assert table.contrast.group_a == "6-MP"
