@@ -214,7 +214,7 @@ def fit_cox(
             f"fewer than {EVENTS_PER_PARAMETER} (a common rule of thumb, after Peduzzi et al. "
             "1996); the estimates may be biased and the tests unreliable. Use fewer covariates."
         )
-    terms = _term_estimates(design.terms, beta, covariance, confidence)
+    terms = term_estimates(design.terms, beta, covariance, confidence)
     eta = scaled @ fit.beta
     concordance = harrell_c(layout.time, layout.event, eta, layout.stratum if strata else None)
     model = FittedModel(
@@ -255,7 +255,7 @@ def fit_cox(
     )
 
 
-def _term_estimates(terms: Sequence[Term], beta, covariance, confidence):
+def term_estimates(terms: Sequence[Term], beta, covariance, confidence):
     se = np.sqrt(np.diag(covariance))
     quantile = stats.norm.ppf(0.5 + confidence / 2)
     with np.errstate(over="ignore", divide="ignore", invalid="ignore"):

@@ -125,7 +125,7 @@ def _group_sums(layout: RiskSetLayout, values: np.ndarray) -> np.ndarray:
     return np.cumsum(np.column_stack(columns), axis=0)[:-1]
 
 
-def _row_totals(layout: RiskSetLayout, per_group: np.ndarray) -> np.ndarray:
+def row_totals(layout: RiskSetLayout, per_group: np.ndarray) -> np.ndarray:
     """For each sorted row, the sum of ``per_group`` over the groups the row is at risk in."""
     cumulative = np.concatenate([[0.0], np.cumsum(per_group)])
     return cumulative[layout.row_end_group] - cumulative[layout.row_first_group]
@@ -171,7 +171,7 @@ def partial_likelihood(layout: RiskSetLayout, x: np.ndarray, beta: np.ndarray, t
     inv = 1.0 / den
     per_group = np.bincount(g, inv, layout.n_groups)
     per_group_frac = np.bincount(g, frac * inv, layout.n_groups)
-    row_weight = weights * _row_totals(layout, per_group)
+    row_weight = weights * row_totals(layout, per_group)
     # Efron: the tied events' own share is removed with weight sum(l/d / den) in their group.
     row_weight[ev] -= weights[ev] * per_group_frac[g]
     information = (x * row_weight[:, None]).T @ x - mean.T @ mean
