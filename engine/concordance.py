@@ -87,7 +87,9 @@ def pair_counts(time, event, risk, strata=None) -> tuple[np.ndarray, np.ndarray,
         block_id = np.cumsum(new_block) - 1
         # The current order holds each half-block sorted by score: this stable sort is a merge.
         perm = np.argsort(block_id * n_scores + score, kind="stable")
-        full_key, score, event, conc, comp = (a[perm] for a in (full_key, score, event, conc, comp))
+        full_key, score, event, conc, comp, order = (
+            a[perm] for a in (full_key, score, event, conc, comp, order)
+        )
         later = ((full_key >> level) & 1).astype(bool)
         tied_pairs += _count_level(new_block, score, later, event, conc, comp)
     concordant[order] = conc
