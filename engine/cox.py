@@ -228,9 +228,7 @@ def fit_cox(
         used_index=frame.index.to_numpy()[used],
     )
     null_loglik = fit.null_loglik
-    drop_tests = tuple(
-        _drop_one(layout, scaled, design, fit.loglik, null_loglik, ties) if drop_one else ()
-    )
+    drop_tests = tuple(_drop_one(layout, scaled, design, fit, ties) if drop_one else ())
     return CoxResult(
         n=int(used.sum()),
         events=events,
@@ -287,17 +285,17 @@ def _variable_wald(design: Design, beta, covariance):
             yield chi_square(variable, statistic, len(cols))
 
 
-def _drop_one(layout, scaled, design: Design, loglik, null_loglik, ties):
-    """Likelihood-ratio test of each variable: refit without it on the same rows."""
+def _drop_one(layout, scaled, design: Design, fit, ties):
+    """Likelihood-ratio test of each variable: refit without it on the same rows (starting from
+    the full model's other coefficients, which saves iterations)."""
     for variable in design.variables:
         cols = design.columns_of(variable)
         keep = np.setdiff1d(np.arange(scaled.shape[1]), cols)
-        reduced = null_loglik if len(keep) == 0 else _loglik_of(layout, scaled[:, keep], ties)
-        yield chi_square(variable, 2 * (loglik - reduced), len(cols))
-
-
-def _loglik_of(layout, scaled, ties) -> float:
-    return newton_raphson(layout, scaled, ties).loglik
+        if len(keep) == 0:
+            reduced = fit.null_loglik
+        else:
+            reduced = newton_raphson(layout, scaled[:, keep], ties, start=fit.beta[keep]).loglik
+        yield chi_square(variable, 2 * (fit.loglik - reduced), len(cols))
 
 
 def cox_json(result: CoxResult | None, ph_check: Sequence[ChiSquareTest] | None = None):

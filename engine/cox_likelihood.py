@@ -24,8 +24,9 @@ class RiskSetLayout:
     time: np.ndarray  # sorted
     event: np.ndarray  # sorted, bool
     stratum: np.ndarray  # sorted stratum codes
-    group_start: np.ndarray  # first sorted row at the group's (stratum, time)
-    group_stratum_end: np.ndarray  # one past the last sorted row of the group's stratum
+    segment_bounds: np.ndarray  # sorted-row starts of the stretches between group boundaries
+    group_first_segment: np.ndarray  # the group's risk set is segments [first, end)
+    group_end_segment: np.ndarray
     group_time: np.ndarray
     group_stratum: np.ndarray
     group_size: np.ndarray  # events in the group
@@ -84,13 +85,18 @@ def build_layout(time, event, stratum=None, entry=None) -> RiskSetLayout:
         )
     # A row that enters at or after its exit is never at risk (the prepared frame excludes these).
     row_first_group = np.minimum(row_first_group, row_end_group)
+    # Risk sets without delayed entry are runs of sorted rows, [group_start, stratum end): sums
+    # over the stretches between these boundaries, then a reverse cumulative sum, give them all.
+    bounds = np.unique(np.concatenate([group_start, group_stratum_end]))
+    bounds = bounds[bounds < n]
     return RiskSetLayout(
         order=order,
         time=np.asarray(time[order]),
         event=event_sorted,
         stratum=stratum_sorted,
-        group_start=group_start,
-        group_stratum_end=group_stratum_end,
+        segment_bounds=bounds,
+        group_first_segment=np.searchsorted(bounds, group_start),
+        group_end_segment=np.searchsorted(bounds, group_stratum_end),
         group_time=grid[group_keys % width - 1],
         group_stratum=group_stratum,
         group_size=group_size,
@@ -107,9 +113,10 @@ def build_layout(time, event, stratum=None, entry=None) -> RiskSetLayout:
 def _group_sums(layout: RiskSetLayout, values: np.ndarray) -> np.ndarray:
     """Sum of ``values`` (sorted rows, 1-D or 2-D) over each group's risk set."""
     if not layout.has_entry:
-        tail = np.zeros((len(values) + 1, *values.shape[1:]))
-        tail[:-1] = np.cumsum(values[::-1], axis=0)[::-1]
-        return tail[layout.group_start] - tail[layout.group_stratum_end]
+        segments = np.add.reduceat(values, layout.segment_bounds, axis=0)
+        tail = np.zeros((len(segments) + 1, *values.shape[1:]))
+        tail[:-1] = np.cumsum(segments[::-1], axis=0)[::-1]
+        return tail[layout.group_first_segment] - tail[layout.group_end_segment]
     # With delayed entry a row adds to the groups in [row_first_group, row_end_group).
     size = layout.n_groups + 1
     if values.ndim == 1:
@@ -190,15 +197,24 @@ class NewtonResult:
     null_score_statistic: float  # score test of beta = 0: U(0)' I(0)^-1 U(0)
 
 
-def newton_raphson(layout, x, ties, *, max_iter=50, tol=1e-11, step_tol=1e-9) -> NewtonResult:
-    """Maximise the partial likelihood from beta = 0 with step halving."""
+def newton_raphson(
+    layout, x, ties, *, start=None, max_iter=50, tol=1e-11, step_tol=1e-9
+) -> NewtonResult:
+    """Maximise the partial likelihood with step halving, from ``start`` (default beta = 0).
+
+    The null log-likelihood and score statistic are filled in only when starting from 0.
+    """
     p = x.shape[1]
-    beta = np.zeros(p)
+    beta = np.zeros(p) if start is None else np.asarray(start, dtype=float)
     terms = partial_likelihood(layout, x, beta, ties)
-    null_loglik = terms.loglik
+    null_loglik = terms.loglik if start is None else float("nan")
     if p == 0:
-        return NewtonResult(beta, null_loglik, terms.information, 0, True, beta, null_loglik, 0.0)
-    null_score = float(terms.score @ _solve(terms.information, terms.score))
+        return NewtonResult(beta, terms.loglik, terms.information, 0, True, beta, null_loglik, 0.0)
+    null_score = (
+        float(terms.score @ _solve(terms.information, terms.score))
+        if start is None
+        else float("nan")
+    )
     converged = False
     step = np.zeros(p)
     iterations = 0
