@@ -16,7 +16,7 @@ from scipy import stats
 from engine.concordance import ConcordanceResult, harrell_c
 from engine.cox_design import Design, Term, build_design
 from engine.cox_likelihood import TIES, RiskSetLayout, build_layout, newton_raphson
-from engine.errors import AnalysisError
+from engine.errors import AnalysisError, preview_values
 
 EVENTS_PER_PARAMETER = 10  # common practice, after Peduzzi et al. (1996)
 RUNAWAY_STEP = 1e-4  # a Newton step still this large (scaled units) at the optimum: monotone
@@ -174,6 +174,13 @@ def fit_cox(
     event = frame[event_col].to_numpy(dtype=float)[used] == 1
     codes, strata_levels = _strata_codes(frame, used, strata)
     entry_values = None if entry is None else frame[entry].to_numpy(dtype=float)[used]
+    if entry_values is not None and np.any(entry_values >= time):
+        bad = np.flatnonzero(entry_values >= time)
+        raise AnalysisError(
+            f"Entry time '{entry}' is at or after the exit time in {len(bad)} row(s) (for "
+            f"example rows {preview_values(frame.index[used][bad])}); a subject must enter "
+            "before it leaves. Fix or remove those rows."
+        )
     if not event.any():
         raise AnalysisError(
             "None of the rows used by the Cox model has an event, so nothing can be estimated; "

@@ -321,13 +321,15 @@ def test_near_collinear_covariates_warn(rng):
         (lambda f: f.assign(word=["a", "b"] * 200), ["word"], "word"),
         (lambda f: f.assign(_event=0), ["x1"], "event"),
         (lambda f: f, ["missing_column"], "missing_column"),
+        (lambda f: f.assign(_entry=f["_time"]), ["x1"], "_entry"),
     ],
-    ids=["constant", "collinear", "not-numeric", "no-events", "unknown-column"],
+    ids=["constant", "collinear", "not-numeric", "no-events", "unknown-column", "late-entry"],
 )
 def test_unfittable_models_raise_naming_the_problem(rng, change, covariates, message):
     frame = change(simulated(rng))
+    entry = "_entry" if "_entry" in frame else None
     with pytest.raises(AnalysisError, match=message):
-        fit_cox(frame, covariates)
+        fit_cox(frame, covariates, entry=entry)
 
 
 def test_unknown_reference_level_raises(rng):
