@@ -271,6 +271,14 @@ def test_predicted_survival_per_stratum_and_levels(rng):
         assert np.all(np.diff(curve["survival"]) <= 0)
 
 
+def test_numeric_profiles_use_values_or_quartiles(rossi):
+    result = fit_cox(rossi, ROSSI_COVARIATES)
+    assert list(level_profiles(result, "fin")) == ["fin = 0", "fin = 1"]
+    ages = [p["age"] for p in level_profiles(result, "age").values()]
+    np.testing.assert_allclose(ages, np.quantile(rossi["age"], [0.25, 0.5, 0.75]))
+    assert level_profiles(result, "fin")["fin = 1"]["prio"] == pytest.approx(rossi["prio"].mean())
+
+
 def test_json_contract(rossi):
     result = fit_cox(rossi, ROSSI_COVARIATES)
     out = cox_json(result)
