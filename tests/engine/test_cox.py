@@ -314,6 +314,12 @@ def test_few_events_per_parameter_and_small_level_warn(rng):
     assert any("'tiny'" in w and "'rare' (3 rows)" in w for w in result.warnings)
 
 
+def test_non_convergence_warns(rossi):
+    result = fit_cox(rossi, ROSSI_COVARIATES, max_iterations=1)
+    assert not result.converged
+    assert any("did not converge" in w for w in result.warnings)
+
+
 def test_near_collinear_covariates_warn(rng):
     frame = simulated(rng)
     frame["x1_copy"] = frame["x1"] + rng.normal(scale=0.01, size=len(frame))
