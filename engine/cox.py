@@ -188,8 +188,7 @@ def fit_cox(
             "check the event coding."
         )
     layout = build_layout(time, event, codes, entry_values)
-    center = design.matrix.mean(axis=0)
-    scale = design.matrix.std(axis=0)
+    center, scale = design.center, design.scale
     scaled = (design.matrix[layout.order] - center) / scale
     fit = newton_raphson(layout, scaled, ties, max_iter=max_iterations)
     warnings = list(design.warnings)
