@@ -305,6 +305,9 @@ def _drop_one(layout, scaled, design: Design, fit, ties):
         yield chi_square(variable, 2 * (fit.loglik - reduced), len(cols))
 
 
-def cox_json(result: CoxResult | None, ph_check: Sequence[ChiSquareTest] | None = None):
-    """The command line's "cox" object: the fit with its proportional-hazards checks, or None."""
-    return None if result is None else result.to_dict(ph_check)
+def cox_json(result: CoxResult | None, ph_check=None):
+    """The command line's "cox" object, or None without a model. ``ph_check`` is a
+    ``cox_diagnostics.PHTest`` (its per-variable and GLOBAL rows are used) or those rows."""
+    if result is None:
+        return None
+    return result.to_dict(getattr(ph_check, "checks", ph_check))

@@ -177,7 +177,9 @@ def test_log_minus_log_matches_lifelines_kaplan_meier(rossi_fits):
 
 def test_json_ph_check_lists_variables_and_global(rossi_fits):
     _, ours, _ = rossi_fits
-    checks = cox_json(ours, proportional_hazards_test(ours).checks)["ph_check"]
+    ph = proportional_hazards_test(ours)
+    checks = cox_json(ours, ph)["ph_check"]
+    assert cox_json(ours, ph.checks)["ph_check"] == checks
     assert [c["variable"] for c in checks] == [*COVARIATES, "GLOBAL"]
     assert checks[-1]["df"] == 7
     assert all(set(c) == {"variable", "statistic", "df", "p_value"} for c in checks)
