@@ -113,6 +113,7 @@ class CoxResult:
             "concordance": _num(self.concordance.concordance),
             "concordance_se": _num(self.concordance.standard_error),
             "rows_dropped": {k: int(v) for k, v in self.dropped.items()},
+            "variable_wald": [t.to_dict() for t in self.variable_wald],
             "drop_one": [t.to_dict() for t in self.drop_one],
             "ph_check": None if ph_check is None else [t.to_dict() for t in ph_check],
             "warnings": list(self.warnings),
