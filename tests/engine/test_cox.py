@@ -162,9 +162,11 @@ def test_delayed_entry_matches_statsmodels(rng):
     # time as at risk then, the counting-process convention (used here) does not.
     frame["_entry"] = np.floor(frame["_time"] * rng.uniform(0, 0.9, len(frame))) + 0.5
     frame.loc[frame["_entry"] >= frame["_time"], "_entry"] = 0.0
-    for ties in ("efron", "breslow"):
-        result = fit_cox(frame, ["x1", "x2", "group"], ties=ties, entry="_entry")
-        _, fit = statsmodels_fit(frame, ["x1", "x2", "mid", "high"], ties, entry="_entry")
+    for ties, strata in [("efron", None), ("breslow", None), ("efron", "_strata")]:
+        result = fit_cox(frame, ["x1", "x2", "group"], ties=ties, entry="_entry", strata=strata)
+        _, fit = statsmodels_fit(
+            frame, ["x1", "x2", "mid", "high"], ties, entry="_entry", strata=strata
+        )
         np.testing.assert_allclose(result.to_frame()["coef"], fit.params, atol=1e-5)
         np.testing.assert_allclose(result.to_frame()["se"], fit.bse, atol=1e-5)
         assert result.loglik == pytest.approx(fit.llf, abs=1e-6)
