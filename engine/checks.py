@@ -387,7 +387,7 @@ def _event_codes(frame, roles: Roles, notes: list[str]):
 
 
 def _counts_text(coding: EventCoding) -> str:
-    shown = [f"{v!r} ({c} rows)" for v, c in coding.counts[:8]]
+    shown = [f"{v!r} ({c} row{'' if c == 1 else 's'})" for v, c in coding.counts[:8]]
     rest = len(coding.counts) - 8
     return ", ".join(shown) + (f" and {rest} more" if rest > 0 else "")
 
