@@ -208,7 +208,8 @@ def _read_text(path, data, options: ImportOptions, name: str):
     confident = sniffed.confident
     encoding = sniffed.encoding
     frame = _parse_text(path, data, sniffed.sep, sniffed.decimal, encoding, options, notes, name)
-    if options.encoding is None and encoding not in (FALLBACK_ENCODING, "latin-1") and _has_undecoded(frame):
+    guessed_utf8 = options.encoding is None and encoding not in (FALLBACK_ENCODING, "latin-1")
+    if guessed_utf8 and _has_undecoded(frame):
         # The sample was valid UTF-8 but a later part of the file is not.
         encoding = FALLBACK_ENCODING
         notes.append(
