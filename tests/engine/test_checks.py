@@ -147,7 +147,8 @@ def test_dates_from_a_real_world_export():
     assert report.rows_read == 8 and report.rows_used == 4
     assert report.rows_used + sum(n for _, n in report.excluded) == report.rows_read
     # 03/02/2021 -> 15/08/2021 day first is 193 days; 13/04/2021 -> same day is 0 and kept.
-    times = dict(zip(table.frame.loc[prepared.frame.index, "Patient ID"], prepared.frame["_time"]))
+    ids = table.frame.loc[prepared.frame.index, "Patient ID"]
+    times = dict(zip(ids, prepared.frame["_time"], strict=True))
     assert times["A-001"] == 193
     assert times["A-006"] == 0
     assert any("time 0" in w for w in report.warnings)
