@@ -135,20 +135,25 @@ def prepare(frame: pd.DataFrame, roles: Roles, *, require_covariates: bool = Fal
             )
 
     used = reason < 0
-    prepared = pd.DataFrame(index=frame.index[used])
-    prepared["_time"] = time[used]
-    prepared["_event"] = event[used].astype(np.int64)
+    everything = bool(used.all())
+
+    def kept(values):
+        return values if everything else values[used]
+
+    columns = {"_time": kept(time), "_event": kept(event).astype(np.int64)}
     if cause is not None:
-        prepared["_cause"] = cause[used]
+        columns["_cause"] = kept(cause)
     for role, column in (("_group", roles.group), ("_strata", roles.strata)):
         if column:
-            prepared[role] = _natural_categorical(frame[column])[used]
+            columns[role] = kept(_natural_categorical(frame[column]))
     if roles.entry:
-        prepared["_entry"] = out["_entry"][used]
+        columns["_entry"] = kept(out["_entry"])
     if roles.id:
-        prepared["_id"] = frame[roles.id].to_numpy()[used]
+        columns["_id"] = frame[roles.id].to_numpy(copy=True)[used]
     for column, values in covariates.items():
-        prepared[column] = values[used]
+        columns[column] = kept(values)
+    # Every array above is new (computed or masked), so the frame need not copy them again.
+    prepared = pd.DataFrame(columns, index=frame.index[used], copy=False)
 
     group_counts = _group_counts(prepared)
     notes.extend(_warnings_on_used(prepared, frame, roles, time[used], group_counts))
@@ -264,7 +269,7 @@ def _numbers(series: pd.Series, column: str, role: str) -> np.ndarray:
             f"The {role} column {column!r} holds true/false values, not numbers.", column=column
         )
     if pd.api.types.is_numeric_dtype(series):
-        return series.to_numpy(dtype=float, na_value=np.nan)
+        return series.to_numpy(dtype=float, na_value=np.nan, copy=True)
     if pd.api.types.is_datetime64_any_dtype(series):
         raise RoleError(
             f"The {role} column {column!r} holds dates ({preview_values(series.head(3))}). "
@@ -441,9 +446,17 @@ def _natural_categorical(series: pd.Series, reference=None, column: str | None =
 def _group_counts(prepared: pd.DataFrame) -> pd.DataFrame:
     event = prepared["_event"]
     if "_group" in prepared:
-        grouped = event.groupby(prepared["_group"], observed=False)
-        table = pd.DataFrame({"n": grouped.size(), "events": grouped.sum()})
-        table.index = table.index.astype(object)
+        groups = prepared["_group"].cat
+        codes = groups.codes.to_numpy()
+        has_group = codes >= 0
+        size = len(groups.categories)
+        table = pd.DataFrame(
+            {
+                "n": np.bincount(codes[has_group], minlength=size),
+                "events": np.bincount(codes[has_group], event.to_numpy()[has_group], size),
+            },
+            index=pd.Index(list(groups.categories), dtype=object),
+        )
     else:
         table = pd.DataFrame({"n": [len(event)], "events": [int(event.sum())]}, index=["all"])
     table["censored"] = table["n"] - table["events"]
@@ -479,7 +492,7 @@ def _warnings_on_used(prepared, frame, roles: Roles, time, group_counts) -> list
                 f"{no_group} row(s) have no value in the group column {roles.group!r}; they "
                 "appear in overall results but in no group."
             )
-    if roles.id:
+    if roles.id and _may_repeat(frame[roles.id]):
         ids = frame[roles.id]
         duplicated = ids[ids.duplicated(keep=False) & ids.notna()]
         if len(duplicated):
@@ -488,6 +501,18 @@ def _warnings_on_used(prepared, frame, roles: Roles, time, group_counts) -> list
                 f"({preview_values(duplicated.unique())}); each subject should appear once."
             )
     return notes
+
+
+def _may_repeat(ids: pd.Series) -> bool:
+    """Fast exit for numeric ids: a sort finds 'no repeats' quicker than hashing."""
+    if not pd.api.types.is_numeric_dtype(ids):
+        return not ids.is_unique
+    values = ids.to_numpy(dtype=float, na_value=np.nan)
+    values = values[~np.isnan(values)]
+    if bool((values[1:] > values[:-1]).all()):  # ids in increasing order: the usual export
+        return False
+    values = np.sort(values)
+    return bool((values[1:] == values[:-1]).any())
 
 
 def _unit_hints(time: np.ndarray, roles: Roles) -> list[str]:

@@ -320,3 +320,10 @@ def test_every_row_is_used_or_excluded_with_a_reason(rows, require_covariates):
     assert set(prepared.frame["_event"]) <= {0, 1}
     assert report.events + report.censored == report.rows_used
     assert (prepared.frame["_entry"] <= prepared.frame["_time"]).all()
+
+
+def test_prepared_frame_does_not_share_memory_with_the_raw_frame():
+    raw = pd.DataFrame({"t": [1.0, 2, 3], "e": [1, 0, 1], "x": [0.5, 1.5, 2.5], "id": [1, 2, 3]})
+    prepared = prepare(raw, Roles(time="t", event="e", covariates=("x",), id="id")).frame
+    prepared.loc[prepared.index[0], ["_time", "x", "_id"]] = 99
+    assert raw.loc[0, ["t", "x", "id"]].tolist() == [1.0, 0.5, 1]
