@@ -13,6 +13,7 @@ import io
 import re
 import zipfile
 from collections import Counter
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
@@ -111,13 +112,16 @@ def read_table(
     source_name = name or (path.name if path is not None else "uploaded file")
     head = data[:16] if data is not None else _read_head(path, 16)
     file_format = _detect_format(source_name, head)
-    sha256 = _sha256(path, data)
-    if file_format == "xlsx":
-        frame, used, notes, confident = _read_excel(path, data, options, source_name)
-    elif file_format == "parquet":
-        frame, used, notes, confident = _read_parquet(path, data, options, source_name)
-    else:
-        frame, used, notes, confident = _read_text(path, data, options, source_name)
+    # hashlib releases the GIL, so the fingerprint is computed while the file is parsed.
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        sha256 = pool.submit(_sha256, path, data)
+        if file_format == "xlsx":
+            frame, used, notes, confident = _read_excel(path, data, options, source_name)
+        elif file_format == "parquet":
+            frame, used, notes, confident = _read_parquet(path, data, options, source_name)
+        else:
+            frame, used, notes, confident = _read_text(path, data, options, source_name)
+        sha256 = sha256.result()
     frame, dropped_note = _drop_empty_unnamed_columns(frame)
     notes = notes + dropped_note
     _check_columns(frame, source_name)
@@ -414,8 +418,10 @@ def _has_undecoded(frame: pd.DataFrame) -> bool:
     for position in range(frame.shape[1]):
         series = frame.iloc[:, position]
         if series.dtype == object:
-            first = series.first_valid_index()
-            if first is not None and isinstance(series.loc[first], bytes):
+            present = series.iloc[:1000].dropna()
+            if present.empty:
+                present = series.dropna()
+            if len(present) and isinstance(present.iloc[0], bytes):
                 return True
     return False
 
