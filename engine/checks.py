@@ -6,6 +6,7 @@ categoricals whose first level is the reference. No row disappears without a rea
 
 from __future__ import annotations
 
+import datetime
 import warnings
 from dataclasses import dataclass, field
 
@@ -293,6 +294,8 @@ def _numbers(series: pd.Series, column: str, role: str) -> np.ndarray:
 def _dates(series: pd.Series, roles: Roles) -> np.ndarray:
     if pd.api.types.is_datetime64_any_dtype(series):
         parsed = series
+    elif _holds_date_objects(series):  # pyarrow reads ISO dates as datetime.date objects
+        parsed = pd.to_datetime(series, errors="coerce")
     else:
         text = series.where(series.isna(), series.astype(str).str.strip())
         with warnings.catch_warnings():
@@ -314,6 +317,11 @@ def _dates(series: pd.Series, roles: Roles) -> np.ndarray:
             values=list(series[present].unique()[:5]),
         )
     return values
+
+
+def _holds_date_objects(series: pd.Series) -> bool:
+    present = series.iloc[:1000].dropna()
+    return len(present) > 0 and all(isinstance(v, datetime.date) for v in present)
 
 
 def _ambiguous_date_notes(frame, roles: Roles) -> list[str]:

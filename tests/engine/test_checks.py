@@ -327,3 +327,9 @@ def test_prepared_frame_does_not_share_memory_with_the_raw_frame():
     prepared = prepare(raw, Roles(time="t", event="e", covariates=("x",), id="id")).frame
     prepared.loc[prepared.index[0], ["_time", "x", "_id"]] = 99
     assert raw.loc[0, ["t", "x", "id"]].tolist() == [1.0, 0.5, 1]
+
+
+def test_iso_dates_read_by_pyarrow_as_date_objects():
+    table = read_table(b"a,b,e\n2020-01-01,2020-03-01,1\n2021-06-30,2021-07-01,0\n")
+    prepared = prepare(table.frame, Roles(start="a", end="b", event="e"))
+    assert prepared.frame["_time"].tolist() == [60.0, 1.0]  # 2020 is a leap year
