@@ -120,6 +120,12 @@ def prepare(frame: pd.DataFrame, roles: Roles, *, require_covariates: bool = Fal
     kinds = classify_covariates(frame, roles)
     covariates = {}
     for column in roles.covariates:
+        if kinds[column] != "categorical" and roles.reference_for(column) is not None:
+            raise RoleError(
+                f"A reference level is given for {column!r}, which is treated as numeric; "
+                "add it to the categorical covariates or drop the reference.",
+                column=column,
+            )
         values, missing = _covariate(frame[column], column, kinds[column], roles)
         covariates[column] = values
         if require_covariates:
@@ -418,7 +424,11 @@ def _covariate(series: pd.Series, column: str, kind: str, roles: Roles):
 
 
 def _natural_categorical(series: pd.Series, reference=None, column: str | None = None):
-    """Categorical with levels in natural order, the reference level (if any) first."""
+    """Categorical with levels in natural order; for a covariate the reference level comes first.
+
+    The default reference follows ``roles.default_reference`` (most frequent, natural-order tie
+    break) but is counted from the codes already at hand rather than hashing the column again.
+    """
     codes, uniques = pd.factorize(series, use_na_sentinel=True, sort=False)
     levels = list(uniques)
     order = sorted(range(len(levels)), key=lambda i: natural_sort_key(levels[i]))

@@ -264,6 +264,11 @@ def test_group_counts_by_group(trial):
             RoleError,
             r"'x' does not occur in column 'sex'; its levels are 'f', 'm'",
         ),
+        (
+            Roles(time="days", covariates=("grade",), reference=(("grade", 1),)),
+            RoleError,
+            "'grade', which is treated as numeric",
+        ),
         (Roles(time="status"), RoleError, r"'status' holds no numbers \(values such as 'dead'"),
         (Roles(time="days", event="arm"), EventCodingError, "'dose 10' \\(\\d+ rows\\)"),
         (
