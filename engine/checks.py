@@ -165,7 +165,7 @@ def prepare(frame: pd.DataFrame, roles: Roles, *, require_covariates: bool = Fal
     notes.extend(warnings_on_used(prepared, frame, roles, time[used], counts_by_group))
     counts = np.bincount(reason[~used], minlength=len(REASONS)) if (~used).any() else []
     excluded = tuple((REASONS[i], int(c)) for i, c in enumerate(counts) if c)
-    excluded_rows = frame.loc[~used].copy()
+    excluded_rows = frame.iloc[:0].copy() if everything else frame.loc[~used].copy()
     excluded_rows.insert(0, REASON_COLUMN, [REASONS[i] for i in reason[~used]])
     events = int(prepared["_event"].sum())
     report = DataReport(

@@ -94,7 +94,8 @@ def _unit_hints(time: np.ndarray, roles: Roles) -> list[str]:
     unit = roles.duration_unit
     raw = convert_time(time, roles.unit, unit)
     top = float(np.nanmax(raw)) if len(raw) else 0.0
-    whole = bool(np.all(np.mod(raw, 1) == 0))
+    # The first rows usually settle it; the full column is scanned only when they are whole.
+    whole = bool(np.all(np.mod(raw[:10_000], 1) == 0)) and bool(np.all(np.mod(raw, 1) == 0))
     if unit == "days" and whole and top < 120:
         return [
             f"All times are whole numbers below 120 (largest {top:g}); if they are weeks or "
