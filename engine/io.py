@@ -19,6 +19,7 @@ from pathlib import Path
 
 import pandas as pd
 import pyarrow as pa
+import pyarrow.csv as pa_csv
 
 from engine.errors import FileReadError, FileTooLargeError, preview_values
 
@@ -376,9 +377,7 @@ def _parse_text(path, data, sep, decimal, encoding, options, notes, name) -> pd.
     arrow_encoding = "utf-8" if encoding in ("utf-8", "utf-8-sig") else encoding
     source = str(path) if path is not None else io.BytesIO(data)
     try:
-        frame = pd.read_csv(
-            source, engine="pyarrow", encoding=arrow_encoding, on_bad_lines=skip_malformed, **kwargs
-        )
+        frame = _parse_with_pyarrow(source, sep, decimal, arrow_encoding, kwargs, skip_malformed)
     except (pa.ArrowException, ValueError, OverflowError, TypeError):
         # pyarrow cannot cope with some quoting and line-ending mixes; the python parser can.
         malformed.clear()
@@ -392,6 +391,22 @@ def _parse_text(path, data, sep, decimal, encoding, options, notes, name) -> pd.
     frame.columns = [n if n else f"Unnamed: {i}" for i, n in enumerate(names)]
     _check_columns(frame, name)
     return frame
+
+
+def _parse_with_pyarrow(source, sep, decimal, encoding, kwargs, on_bad_line) -> pd.DataFrame:
+    """What ``pandas.read_csv(engine="pyarrow")`` does, but converting column by column
+    (``self_destruct``) so the Arrow table and the frame are not both held in full."""
+    table = pa_csv.read_csv(
+        source,
+        read_options=pa_csv.ReadOptions(encoding=encoding),
+        parse_options=pa_csv.ParseOptions(delimiter=sep, invalid_row_handler=on_bad_line),
+        convert_options=pa_csv.ConvertOptions(
+            null_values=kwargs["na_values"],
+            strings_can_be_null="" in kwargs["na_values"],
+            decimal_point=decimal,
+        ),
+    )
+    return table.to_pandas(self_destruct=True, split_blocks=True)
 
 
 def _parse_text_python(path, data, encoding, kwargs, malformed, name) -> pd.DataFrame:

@@ -48,6 +48,18 @@ def test_sniffs_separator_decimal_and_encoding(name, sep, decimal, encoding, row
     assert table.source_name == name
 
 
+@pytest.mark.parametrize("name", ["joint_trial.csv", "pump_bearings.csv", "dairy_herd.csv"])
+def test_same_frame_as_pandas_with_the_pyarrow_engine(name):
+    path = Path(__file__).parents[2] / "demo_data" / name
+    expected = pd.read_csv(
+        path,
+        engine="pyarrow",
+        na_values=missing_token_variants(DEFAULT_MISSING_TOKENS),
+        keep_default_na=False,
+    )
+    pd.testing.assert_frame_equal(read_table(path).frame, expected)
+
+
 def test_bom_semicolon_export_values():
     frame = read_table(DATA / "clinic_export_bom_semicolon.csv").frame
     assert frame.columns[0] == "Patient ID"  # the BOM is not part of the first name
