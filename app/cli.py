@@ -11,6 +11,8 @@ import json
 import sys
 from pathlib import Path
 
+from engine.analysis import ANALYSIS_DEFAULTS
+from engine.analysis import run_analysis as run_engine_analysis
 from engine.checks import PreparedData, prepare
 from engine.errors import HazelError
 from engine.io import ImportedTable, ImportOptions, read_table
@@ -36,7 +38,43 @@ def build_parser() -> argparse.ArgumentParser:
     check = commands.add_parser("check", help="read a file, apply roles and report the data checks")
     add_role_options(check)
     check.set_defaults(run=run_check)
+    analyze = commands.add_parser(
+        "analyze", help="curves, group comparison and Cox model, as text and JSON"
+    )
+    add_role_options(analyze)
+    add_analysis_options(analyze)
+    analyze.set_defaults(run=run_analyze)
     return parser
+
+
+TESTS = ("logrank", "gehan-breslow", "tarone-ware", "peto-peto", "fleming-harrington")
+
+
+def add_analysis_options(parser: argparse.ArgumentParser) -> None:
+    """Settings of the curves, the comparison and the Cox model (defaults as in a recipe)."""
+    curves = parser.add_argument_group("curves")
+    curves.add_argument("--times", metavar="T1,T2", help="times for survival estimates")
+    curves.add_argument(
+        "--ci-transform",
+        choices=("log-log", "log", "linear"),
+        help="scale of the pointwise interval (default log-log)",
+    )
+    curves.add_argument("--confidence", type=float, help="confidence level (default 0.95)")
+    compare = parser.add_argument_group("group comparison")
+    compare.add_argument(
+        "--test", choices=TESTS, help="test comparing the groups (default logrank)"
+    )
+    compare.add_argument("--rho", type=float, help="Fleming–Harrington rho (default 0)")
+    compare.add_argument("--gamma", type=float, help="Fleming–Harrington gamma (default 0)")
+    cox = parser.add_argument_group("Cox model (with --covariates)")
+    cox.add_argument(
+        "--ties", choices=("efron", "breslow"), help="tied event times (default efron)"
+    )
+    cox.add_argument(
+        "--ph-transform",
+        choices=("km", "rank", "identity", "log"),
+        help="time scale of the proportional-hazards test (default km)",
+    )
 
 
 def add_role_options(parser: argparse.ArgumentParser) -> None:
@@ -189,6 +227,91 @@ def run_check(args: argparse.Namespace) -> int:
         print(data_summary(table, prepared))
     if args.json:
         write_json({"data": prepared.report.to_dict()}, args.json)
+    return 0
+
+
+def _times(text: str) -> list[float]:
+    try:
+        return [float(part) for part in _names(text)]
+    except ValueError:
+        raise UsageError(f"--times expects numbers separated by commas, got {text!r}") from None
+
+
+def settings_from_args(args: argparse.Namespace) -> dict[str, dict]:
+    """The analysis settings (recipe layout) from the options given; defaults elsewhere."""
+    given = {
+        "curves": {
+            "times": _times(args.times) if args.times else None,
+            "ci_transform": args.ci_transform,
+            "confidence": args.confidence,
+        },
+        "comparison": {"test": args.test, "rho": args.rho, "gamma": args.gamma},
+        "cox": {"ties": args.ties, "ph_transform": args.ph_transform},
+    }
+    confidence = given["curves"]["confidence"]
+    if confidence is not None and not 0 < confidence < 1:
+        raise UsageError(f"--confidence must lie between 0 and 1, got {confidence}")
+    return {
+        name: {**ANALYSIS_DEFAULTS[name], **{k: v for k, v in values.items() if v is not None}}
+        for name, values in given.items()
+    }
+
+
+def run_analysis(imported: ImportedTable, prepared: PreparedData, settings: dict) -> dict:
+    """The JSON sections (without "schema") for one data set and its settings."""
+    return run_engine_analysis(prepared, settings)
+
+
+def _fmt(value, digits: int = 3) -> str:
+    return "n/a" if value is None else f"{value:.{digits}g}" if digits else str(value)
+
+
+def analysis_summary(sections: dict, unit: str) -> str:
+    """A readable summary of the curves, comparison and Cox sections."""
+    lines = ["", f"Survival ({unit}):"]
+    for curve in sections["curves"]:
+        label = "all rows" if curve["group"] is None else curve["group"]
+        median = curve["median"]
+        text = (
+            f"  {label!s:<20} n={curve['n']:<7} events={curve['events']:<7} "
+            f"median {_fmt(median['estimate'], 4)} "
+            f"({_fmt(median['lower'], 4)} to {_fmt(median['upper'], 4)})"
+        )
+        for point in curve["at_times"]:
+            text += f"; S({point['time']:g})={_fmt(point['survival'])}"
+        lines.append(text)
+    comparison = sections["comparison"]
+    if comparison is not None:
+        lines.append(
+            f"{comparison['test']}: chi-square {comparison['statistic']:.2f} on "
+            f"{comparison['df']} df, p = {comparison['p_value']:.3g}"
+        )
+    cox = sections["cox"]
+    if cox is not None:
+        lines.append(f"Cox model ({cox['ties']} ties): n={cox['n']}, events={cox['events']}")
+        for term in cox["terms"]:
+            name = term["variable"] + (f"={term['level']}" if term["level"] is not None else "")
+            lines.append(
+                f"  {name:<28} HR {_fmt(term['hazard_ratio'])} "
+                f"({_fmt(term['lower'])} to {_fmt(term['upper'])}), p = {_fmt(term['p_value'])}"
+            )
+        lr = cox["likelihood_ratio"]
+        lines.append(
+            f"  likelihood ratio {lr['statistic']:.2f} on {lr['df']} df, "
+            f"p = {lr['p_value']:.3g}; concordance {_fmt(cox['concordance'])}"
+        )
+        lines += [f"  Warning: {warning}" for warning in cox["warnings"]]
+    return "\n".join(lines)
+
+
+def run_analyze(args: argparse.Namespace) -> int:
+    table, prepared = load_prepared(args)
+    sections = run_analysis(table, prepared, settings_from_args(args))
+    if args.json != "-":
+        print(data_summary(table, prepared))
+        print(analysis_summary(sections, prepared.report.time_unit))
+    if args.json:
+        write_json(sections, args.json)
     return 0
 
 
