@@ -22,9 +22,9 @@ from lifelines import LogLogisticAFTFitter, LogNormalAFTFitter, WeibullAFTFitter
 from lifelines.exceptions import ConvergenceError
 from scipy.stats import norm
 
-from engine.competing import frame_records
 from engine.errors import AnalysisError, RoleError, preview_values
 from engine.parametric import DISTRIBUTIONS, log_cumulative_hazard, log_quantile
+from engine.records import frame_records
 
 # lifelines AFT fitter, its location parameter and its shape parameter (modelled on log scale)
 _LIFELINES_AFT = {

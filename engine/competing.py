@@ -14,6 +14,9 @@ Data in Medical Research, 3rd ed., section 12.2.3; also Marubini and Valsecchi 1
 10.2), the one lifelines' AalenJohansenFitter uses, computed here with cumulative sums in O(n).
 Pointwise intervals are built on the log(-log F) scale so they stay within (0, 1).
 
+Cause-specific Cox models treat the other causes as censored: each estimates the effect of the
+covariates on the hazard of one cause among those still free of every event (engine.cox.fit_cox).
+
 Risk set convention, as in the Kaplan–Meier code: a subject is at risk at time t when
 ``entry < t <= time`` (``time >= t`` without entry times). Tied times of different causes are
 handled as the estimator defines them (no jittering).
@@ -27,7 +30,9 @@ import numpy as np
 import pandas as pd
 from scipy.stats import norm
 
+from engine.cox import CoxResult, fit_cox
 from engine.errors import AnalysisError, preview_values
+from engine.records import frame_records
 
 VARIANCE_METHOD = (
     "delta method (Greenwood-type), Collett 2015 section 12.2.3; intervals on the log(-log) scale"
@@ -46,25 +51,6 @@ TABLE_COLUMNS = [
     "upper",
     "one_minus_km",
 ]
-
-
-def _json_value(value):
-    if value is None or (isinstance(value, float | np.floating) and not np.isfinite(value)):
-        return None
-    if isinstance(value, np.integer):
-        return int(value)
-    if isinstance(value, np.floating):
-        return float(value)
-    return value
-
-
-def frame_records(frame: pd.DataFrame) -> list[dict]:
-    """Rows of a frame as JSON-ready dicts (Python scalars, None for NaN / missing)."""
-    columns = list(frame.columns)
-    return [
-        {c: _json_value(v) for c, v in zip(columns, row, strict=True)}
-        for row in frame.itertuples(index=False, name=None)
-    ]
 
 
 @dataclass(frozen=True)
@@ -328,3 +314,59 @@ def cumulative_incidence(
         group=frame["_group"] if by_group and "_group" in frame.columns else None,
         confidence_level=confidence_level,
     )
+
+
+@dataclass(frozen=True)
+class CauseSpecificCox:
+    """One Cox model per cause, other causes censored; hazard ratios are cause-specific."""
+
+    models: tuple[tuple[str, CoxResult], ...]
+
+    def model(self, cause: str) -> CoxResult:
+        for name, result in self.models:
+            if name == cause:
+                return result
+        raise AnalysisError(f"No cause-specific model for {cause!r}; causes: {self.causes}.")
+
+    @property
+    def causes(self) -> tuple[str, ...]:
+        return tuple(name for name, _ in self.models)
+
+    def to_frame(self) -> pd.DataFrame:
+        return pd.concat(
+            [result.to_frame().assign(cause=name) for name, result in self.models],
+            ignore_index=True,
+        )
+
+    def to_dict(self) -> dict:
+        return {"models": [{"cause": name, **result.to_dict()} for name, result in self.models]}
+
+
+def cause_specific_cox(
+    frame: pd.DataFrame, covariates, *, causes=None, **cox_options
+) -> CauseSpecificCox:
+    """Fit engine.cox.fit_cox for each cause with the other causes as censored.
+
+    ``cox_options`` go to fit_cox unchanged (categorical, reference, strata, ties, confidence);
+    ``_entry`` is used for delayed entry when the frame has it.
+    """
+    if "_cause" not in frame.columns:
+        raise AnalysisError(
+            "Cause-specific models need a '_cause' column: map the event values to causes first."
+        )
+    _, found = _cause_codes(frame["_cause"], len(frame))
+    wanted = found if causes is None else tuple(causes)
+    unknown = [c for c in wanted if c not in found]
+    if unknown:
+        raise AnalysisError(
+            f"Cause(s) {preview_values(unknown)} do not occur in '_cause'; "
+            f"the causes are {preview_values(found)}."
+        )
+    if "_entry" in frame.columns:
+        cox_options.setdefault("entry", "_entry")
+    work = frame.copy()
+    models = []
+    for cause in wanted:
+        work["_event"] = (work["_cause"].astype(object) == cause).astype(int)
+        models.append((cause, fit_cox(work, covariates, **cox_options)))
+    return CauseSpecificCox(tuple(models))

@@ -21,8 +21,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from engine.competing import frame_records
 from engine.errors import AnalysisError
+from engine.records import frame_records
 
 COUNT_COLUMNS = [
     "group",

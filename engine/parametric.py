@@ -26,8 +26,8 @@ from lifelines import LogLogisticFitter, LogNormalFitter, WeibullFitter
 from lifelines.exceptions import ConvergenceError
 from scipy.stats import norm
 
-from engine.competing import frame_records
 from engine.errors import AnalysisError, preview_values
+from engine.records import frame_records
 
 DISTRIBUTIONS: tuple[str, ...] = ("exponential", "weibull", "lognormal", "loglogistic")
 LABELS = {

@@ -182,3 +182,34 @@ def test_prepared_frame_and_json(rng):
 def test_bad_input_raises_clear_error(time, cause, entry, match):
     with pytest.raises(AnalysisError, match=match):
         aalen_johansen(time, cause, entry=entry)
+
+
+def test_cause_specific_cox_matches_lifelines_with_other_causes_censored(rng):
+    # Reference: lifelines CoxPHFitter (Efron ties) on the event indicator of one cause.
+    from lifelines import CoxPHFitter
+
+    from engine.competing import cause_specific_cox
+
+    n = 400
+    age = rng.normal(60, 8, n)
+    t1 = rng.exponential(10 * np.exp(-0.03 * (age - 60)))
+    t2 = rng.exponential(12 * np.exp(0.02 * (age - 60)))
+    cens = rng.uniform(2, 30, n)
+    time = np.round(np.minimum.reduce([t1, t2, cens]), 1)  # ties on purpose
+    cause = np.where(time == np.round(t1, 1), "relapse", None)
+    cause = np.where((cause == None) & (time == np.round(t2, 1)), "death", cause)  # noqa: E711
+    frame = pd.DataFrame(
+        {"_time": time, "_event": (cause != None).astype(int), "_cause": cause, "age": age}  # noqa: E711
+    )
+    result = cause_specific_cox(frame, ["age"])
+    assert result.causes == ("death", "relapse")
+    for name in ("death", "relapse"):
+        ref = CoxPHFitter().fit(
+            pd.DataFrame({"t": time, "e": (cause == name).astype(int), "age": age}), "t", "e"
+        )
+        term = result.model(name).terms[0]
+        assert_allclose(term.coef, ref.params_["age"], rtol=1e-6)
+        assert_allclose(term.se, ref.standard_errors_["age"], rtol=1e-5)
+    frame_out = result.to_frame()
+    assert set(frame_out["cause"]) == {"death", "relapse"}
+    json.dumps(result.to_dict(), allow_nan=False)
