@@ -87,27 +87,31 @@ def landmark(frame: pd.DataFrame, at: float, *, time_from_landmark: bool = True)
         else np.zeros(len(frame), dtype=bool)
     )
     keep = ~ended_before & ~entered_after
-    reasons = pd.DataFrame(
-        {
-            "n_rows": 1,
-            "n_kept": keep.astype(int),
-            "n_events_before": (ended_before & had_event).astype(int),
-            "n_censored_before": (ended_before & ~had_event).astype(int),
-            "n_entered_after": (~ended_before & entered_after).astype(int),
-        }
+    reasons = np.column_stack(
+        [
+            np.ones(len(frame), dtype=bool),
+            keep,
+            ended_before & had_event,
+            ended_before & ~had_event,
+            ~ended_before & entered_after,
+        ]
     )
+    names = COUNT_COLUMNS[1:]
     rows = []
     if "_group" in frame.columns:
-        by_group = reasons.groupby(frame["_group"].to_numpy(), sort=False).sum()
-        levels = (
-            frame["_group"].cat.categories
-            if isinstance(frame["_group"].dtype, pd.CategoricalDtype)
-            else by_group.index
+        group = frame["_group"]
+        cat = group if isinstance(group.dtype, pd.CategoricalDtype) else group.astype("category")
+        codes = cat.cat.codes.to_numpy()
+        known = codes >= 0
+        k = len(cat.cat.categories)
+        counts = np.stack(
+            [np.bincount(codes[known], weights=reasons[known, j], minlength=k) for j in range(5)],
+            axis=1,
         )
-        for level in levels:
-            row = by_group.loc[level] if level in by_group.index else reasons.iloc[:0].sum() * 0
-            rows.append({"group": str(level), **{k: int(v) for k, v in row.items()}})
-    rows.append({"group": None, **{k: int(v) for k, v in reasons.sum().items()}})
+        for level, row in zip(cat.cat.categories, counts, strict=True):
+            rows.append({"group": str(level), **dict(zip(names, map(int, row), strict=True))})
+    totals = reasons.sum(axis=0)
+    rows.append({"group": None, **dict(zip(names, map(int, totals), strict=True))})
     kept = frame.loc[keep].copy()
     if time_from_landmark:
         kept["_time"] = kept["_time"] - at
