@@ -33,6 +33,7 @@ from scipy.stats import norm
 from engine.cox import CoxResult, fit_cox
 from engine.errors import AnalysisError, preview_values
 from engine.records import frame_records
+from engine.risk_table import as_float_array, group_codes
 
 VARIANCE_METHOD = (
     "delta method (Greenwood-type), Collett 2015 section 12.2.3; intervals on the log(-log) scale"
@@ -103,29 +104,21 @@ class CumulativeIncidence:
 
 
 def _cause_codes(cause, n: int) -> tuple[np.ndarray, tuple[str, ...]]:
-    """Codes 0..k-1 for the causes in order of first appearance when sorted, -1 for censored."""
+    """Codes 0..k-1 for the causes (category order if Categorical, else sorted), -1 censored."""
+    if isinstance(getattr(cause, "dtype", None), pd.CategoricalDtype):
+        order = [str(c) for c in cause.cat.categories]
+    else:
+        order = None
     values = pd.Series(np.asarray(cause, dtype=object).reshape(-1))
     if len(values) != n:
         raise AnalysisError(f"Column '_cause' has {len(values)} values but '_time' has {n}.")
     censored = values.isna()
     names = values[~censored].astype(str)
-    labels = tuple(sorted(names.unique()))
+    present = set(names.unique())
+    labels = tuple(c for c in order if c in present) if order else tuple(sorted(present))
     codes = np.full(n, -1, dtype=np.intp)
     codes[~censored.to_numpy()] = pd.Categorical(names, categories=labels).codes
     return codes, labels
-
-
-def _times(values, name: str, n: int | None = None) -> np.ndarray:
-    arr = np.asarray(values, dtype=np.float64).reshape(-1)
-    if n is not None and arr.shape[0] != n:
-        raise AnalysisError(f"Column {name!r} has {arr.shape[0]} values but '_time' has {n}.")
-    bad = ~np.isfinite(arr) | (arr < 0)
-    if bad.any():
-        raise AnalysisError(
-            f"Column {name!r} must hold finite times >= 0; found {preview_values(arr[bad])}. "
-            "Exclude or correct those rows before the analysis."
-        )
-    return arr
 
 
 def _aalen_johansen_table(time, codes, n_causes: int, entry, z: float) -> pd.DataFrame:
@@ -215,7 +208,7 @@ def aalen_johansen(
     """
     if not 0 < confidence_level < 1:
         raise AnalysisError(f"Confidence level must lie in (0, 1); got {confidence_level!r}.")
-    time = _times(time, "_time")
+    time = as_float_array(time, "_time")
     n = time.shape[0]
     if n == 0:
         raise AnalysisError(
@@ -228,7 +221,9 @@ def aalen_johansen(
             "at least one event. Check the event coding."
         )
     if entry is not None:
-        entry = _times(entry, "_entry", n)
+        entry = as_float_array(entry, "_entry")
+        if entry.shape[0] != n:
+            raise AnalysisError(f"Column '_entry' has {entry.shape[0]} values but '_time' has {n}.")
         late = entry >= time
         if late.any():
             raise AnalysisError(
@@ -240,23 +235,9 @@ def aalen_johansen(
         parts = [(None, np.ones(n, dtype=bool))]
     else:
         series = group if isinstance(group, pd.Series) else pd.Series(group)
-        if len(series) != n:
-            raise AnalysisError(f"Column '_group' has {len(series)} values but '_time' has {n}.")
-        cat = (
-            series.astype("category")
-            if not isinstance(series.dtype, pd.CategoricalDtype)
-            else series
-        )
-        if cat.isna().any():
-            raise AnalysisError(
-                f"Column '_group' has {int(cat.isna().sum())} missing values. Drop those rows or "
-                "give them a group before estimating by group."
-            )
-        group_codes = cat.cat.codes.to_numpy()
+        codes_g, labels = group_codes(series, n)
         parts = [
-            (str(label), group_codes == i)
-            for i, label in enumerate(cat.cat.categories)
-            if (group_codes == i).any()
+            (str(label), codes_g == i) for i, label in enumerate(labels) if (codes_g == i).any()
         ]
     tables = []
     for label, mask in parts:
