@@ -109,19 +109,19 @@ def _cause_codes(cause, n: int) -> tuple[np.ndarray, tuple[str, ...]]:
         order = [str(c) for c in cause.cat.categories]
     else:
         order = None
-    values = pd.Series(np.asarray(cause, dtype=object).reshape(-1))
-    if len(values) != n:
-        raise AnalysisError(f"Column '_cause' has {len(values)} values but '_time' has {n}.")
-    censored = values.isna()
-    names = values[~censored].astype(str)
-    present = set(names.unique())
+    values = np.asarray(cause, dtype=object).reshape(-1)
+    if values.shape[0] != n:
+        raise AnalysisError(f"Column '_cause' has {values.shape[0]} values but '_time' has {n}.")
+    raw_codes, uniques = pd.factorize(values, use_na_sentinel=True)  # None / NaN -> -1
+    names = [str(u) for u in uniques]
+    present = set(names)
     labels = tuple(c for c in order if c in present) if order else tuple(sorted(present))
-    codes = np.full(n, -1, dtype=np.intp)
-    codes[~censored.to_numpy()] = pd.Categorical(names, categories=labels).codes
-    return codes, labels
+    position = {name: i for i, name in enumerate(labels)}
+    lookup = np.array([position[name] for name in names] + [-1], dtype=np.intp)
+    return lookup[raw_codes], labels  # raw code -1 picks the trailing -1
 
 
-def _aalen_johansen_table(time, codes, n_causes: int, entry, z: float) -> pd.DataFrame:
+def _aalen_johansen_table(time, codes, n_causes: int, entry, z: float) -> dict[str, np.ndarray]:
     """Aalen–Johansen estimate for every cause over one set of subjects (arrays already valid)."""
     times, key = np.unique(time, return_inverse=True)
     m = times.shape[0]
@@ -144,7 +144,15 @@ def _aalen_johansen_table(time, codes, n_causes: int, entry, z: float) -> pd.Dat
         # Greenwood-type term; zero when everyone at risk has the event (its weight F(t) - F(t_i)
         # is then zero at every later time, the estimate being constant from there on).
         a = np.where(n > d_any, d_any / (n * (n - d_any)), 0.0)
-    frames = []
+    # Every cause's curve starts at time 0, before anything has happened (unless a time is 0).
+    pad = 1 if times[0] > 0 else 0
+    zero = np.zeros(pad)
+
+    def padded(values, first=0.0):
+        return np.r_[np.full(pad, first, dtype=np.asarray(values).dtype), values]
+
+    columns: dict[str, list] = {c: [] for c in TABLE_COLUMNS if c != "group"}
+    columns["cause_code"] = columns.pop("cause")
     for j in range(n_causes):
         d_j = by_cause[:, j].astype(np.float64)
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -171,31 +179,22 @@ def _aalen_johansen_table(time, codes, n_causes: int, entry, z: float) -> pd.Dat
         lower = np.where(cif <= 0, 0.0, lower)
         upper = np.where(cif <= 0, 0.0, upper)
         one_minus_km = 1.0 - np.cumprod(1.0 - h_j)
-        frames.append(
-            pd.DataFrame(
-                {
-                    "cause_code": j,
-                    "time": times,
-                    "n_at_risk": at_risk,
-                    "n_events_cause": by_cause[:, j],
-                    "n_events_any": d_any,
-                    "n_censored": removed - d_any,
-                    "cumulative_incidence": cif,
-                    "std_error": se,
-                    "lower": lower,
-                    "upper": upper,
-                    "one_minus_km": one_minus_km,
-                }
-            )
-        )
-    table = pd.concat(frames, ignore_index=True)
-    if times[0] > 0:  # start every curve at time 0, before anything has happened
-        start = table.groupby("cause_code", sort=False).head(1).copy()
-        start[["time", "cumulative_incidence", "std_error", "lower", "upper", "one_minus_km"]] = 0.0
-        start[["n_events_cause", "n_events_any", "n_censored"]] = 0
-        table = pd.concat([start, table]).sort_values(["cause_code", "time"], kind="stable")
-        table = table.reset_index(drop=True)
-    return table
+        values = {
+            "cause_code": np.full(m + pad, j, dtype=np.intp),
+            "time": np.r_[zero, times],
+            "n_at_risk": padded(at_risk, at_risk[0]),
+            "n_events_cause": padded(by_cause[:, j]),
+            "n_events_any": padded(d_any),
+            "n_censored": padded(removed - d_any),
+            "cumulative_incidence": padded(cif),
+            "std_error": padded(se),
+            "lower": padded(lower),
+            "upper": padded(upper),
+            "one_minus_km": padded(one_minus_km),
+        }
+        for key_, array in values.items():
+            columns[key_].append(array)
+    return {k: np.concatenate(v) for k, v in columns.items()}
 
 
 def aalen_johansen(
@@ -232,43 +231,49 @@ def aalen_johansen(
             )
     z = float(norm.ppf(0.5 + confidence_level / 2))
     if group is None:
-        parts = [(None, np.ones(n, dtype=bool))]
+        parts = [(None, None)]
     else:
         series = group if isinstance(group, pd.Series) else pd.Series(group)
         codes_g, labels = group_codes(series, n)
         parts = [
             (str(label), codes_g == i) for i, label in enumerate(labels) if (codes_g == i).any()
         ]
-    tables = []
+    pieces = []
     for label, mask in parts:
-        sub_entry = None if entry is None else entry[mask]
-        table = _aalen_johansen_table(time[mask], codes[mask], len(causes), sub_entry, z)
-        table.insert(0, "group", label)
-        tables.append(table)
-    table = pd.concat(tables, ignore_index=True)
-    table.insert(1, "cause", np.asarray(causes, dtype=object)[table.pop("cause_code").to_numpy()])
-    table["group"] = table["group"].astype(object)
+        if mask is None:
+            arrays = _aalen_johansen_table(time, codes, len(causes), entry, z)
+        else:
+            sub_entry = None if entry is None else entry[mask]
+            arrays = _aalen_johansen_table(time[mask], codes[mask], len(causes), sub_entry, z)
+        arrays["group"] = np.full(arrays["time"].shape[0], label, dtype=object)
+        pieces.append(arrays)
+    merged = {k: np.concatenate([p[k] for p in pieces]) for k in pieces[0]}
+    cause_code = merged.pop("cause_code")
+    gap = merged["one_minus_km"] - merged["cumulative_incidence"]
+    gaps = {c: float(gap[cause_code == j].max()) for j, c in enumerate(causes)}
+    merged["cause"] = np.asarray(causes, dtype=object)[cause_code]
+    table = pd.DataFrame({c: merged[c] for c in TABLE_COLUMNS})
     return CumulativeIncidence(
         causes=causes,
         groups=tuple(label for label, _ in parts if label is not None),
         confidence_level=float(confidence_level),
         variance_method=VARIANCE_METHOD,
-        table=table[TABLE_COLUMNS],
-        warning=_overstatement_warning(table, causes),
+        table=table,
+        warning=_overstatement_warning(gaps),
     )
 
 
-def _overstatement_warning(table: pd.DataFrame, causes: tuple[str, ...]) -> str | None:
-    if len(causes) < 2:
+def _overstatement_warning(gaps: dict[str, float]) -> str | None:
+    """Text shown when several causes exist; ``gaps`` = largest (1 - KM) - CIF per cause."""
+    if len(gaps) < 2:
         return None
-    gaps = (table["one_minus_km"] - table["cumulative_incidence"]).groupby(table["cause"]).max()
-    worst = str(gaps.idxmax())
+    worst = max(gaps, key=gaps.get)
     return (
-        "There are competing events (" + ", ".join(causes) + "). One minus the Kaplan–Meier "
+        "There are competing events (" + ", ".join(gaps) + "). One minus the Kaplan–Meier "
         "curve that treats the other causes as censored overstates the cumulative incidence: it "
         "estimates the risk in a world where the competing events could not happen. Read the "
         "cumulative incidence (Aalen–Johansen) curves instead; here 1 − KM exceeds them by up to "
-        f"{gaps.max():.3f} (cause {worst})."
+        f"{gaps[worst]:.3f} (cause {worst})."
     )
 
 
