@@ -330,7 +330,9 @@ def compare_distributions(
         parts = [(None, np.ones(time.shape[0], dtype=bool))]
     else:
         cat = pd.Series(group).astype("category")
-        parts = [(str(lv), np.asarray(cat == lv)) for lv in cat.cat.categories]
+        if len(cat) != time.shape[0]:
+            raise AnalysisError(f"'_group' has {len(cat)} values but '_time' has {time.shape[0]}.")
+        parts = [(str(lv), (cat == lv).to_numpy()) for lv in cat.cat.categories]
         parts = [(lv, m) for lv, m in parts if m.any()]
     end = float(np.nanmax(time)) if horizon is None else float(horizon)
     if not end > 0:
@@ -409,4 +411,37 @@ def compare_distributions(
         aic_table=aic.reset_index(drop=True),
         curves=pd.concat([f.survival(grid) for f in fits], ignore_index=True),
         estimates=est,
+    )
+
+
+def fit_parametric(
+    frame: pd.DataFrame,
+    *,
+    by_group: bool = False,
+    distributions: tuple[str, ...] = DISTRIBUTIONS,
+    times=(),
+    horizon: float | None = None,
+    grid_points: int = 200,
+    confidence_level: float = 0.95,
+) -> ParametricComparison:
+    """compare_distributions on a prepared frame (``_time``, ``_event``, optional ``_entry``).
+
+    With ``by_group`` each level of ``_group`` gets its own fits (rows with a missing group are
+    then left out), ready to overlay on that group's Kaplan–Meier curve.
+    """
+    group = None
+    if by_group and "_group" in frame.columns:
+        missing = frame["_group"].isna().to_numpy()
+        frame = frame.loc[~missing]
+        group = frame["_group"]
+    return compare_distributions(
+        frame["_time"].to_numpy(dtype=float),
+        frame["_event"].to_numpy(),
+        entry=frame["_entry"].to_numpy(dtype=float) if "_entry" in frame.columns else None,
+        group=group,
+        distributions=distributions,
+        times=times,
+        horizon=horizon,
+        grid_points=grid_points,
+        confidence_level=confidence_level,
     )

@@ -171,3 +171,22 @@ def test_comparison_by_group_extrapolation_and_json(rng):
 def test_bad_input_raises_clear_error(time, event, match):
     with pytest.raises(AnalysisError, match=match):
         fit_distribution(time, event, "weibull")
+
+
+def test_prepared_frame_wrapper_keeps_group_order(rng):
+    import pandas as pd
+
+    from engine.parametric import fit_parametric
+
+    time, event = _censored_weibull(rng, n=300)
+    frame = pd.DataFrame(
+        {
+            "_time": time,
+            "_event": event,
+            "_group": pd.Categorical(rng.choice(["low", "high"], 300), ["low", "high"]),
+        }
+    )
+    result = fit_parametric(frame, by_group=True, distributions=("weibull",))
+    assert [f.group for f in result.fits] == ["low", "high"]
+    overall = fit_parametric(frame, distributions=("weibull",))
+    assert overall.fits[0].group is None and overall.fits[0].n == 300
