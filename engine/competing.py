@@ -176,8 +176,9 @@ def _aalen_johansen_table(time, codes, n_causes: int, entry, z: float) -> dict[s
             centre = np.log(-log_f)
             lower = np.exp(-np.exp(centre + z * se_t))
             upper = np.exp(-np.exp(centre - z * se_t))
-        lower = np.where(cif <= 0, 0.0, lower)
-        upper = np.where(cif <= 0, 0.0, upper)
+        # At 0 (nothing yet) or 1 (every subject had this cause) the estimate is its own bound.
+        lower = np.where(cif <= 0, 0.0, np.where(cif >= 1, 1.0, lower))
+        upper = np.where(cif <= 0, 0.0, np.where(cif >= 1, 1.0, upper))
         one_minus_km = 1.0 - np.cumprod(1.0 - h_j)
         values = {
             "cause_code": np.full(m + pad, j, dtype=np.intp),

@@ -213,3 +213,12 @@ def test_cause_specific_cox_matches_lifelines_with_other_causes_censored(rng):
     frame_out = result.to_frame()
     assert set(frame_out["cause"]) == {"death", "relapse"}
     json.dumps(result.to_dict(), allow_nan=False)
+
+
+def test_bounds_stay_finite_when_every_subject_has_one_cause():
+    result = aalen_johansen([1.0, 2.0, 3.0], ["a", "a", "a"])
+    table = result.table
+    assert np.isfinite(table[["lower", "upper", "std_error"]].to_numpy()).all()
+    assert table["cumulative_incidence"].iloc[-1] == 1.0
+    assert (table["lower"] <= table["cumulative_incidence"]).all()
+    assert (table["cumulative_incidence"] <= table["upper"]).all()
