@@ -5,8 +5,9 @@ from time 0 favours the group whose members had to survive long enough to join i
 analysis starts the clock at a fixed time L instead and keeps only the subjects at risk then.
 
 Convention: a subject is kept when it is still at risk just after L, that is ``_time > L`` (and,
-with delayed entry, ``_entry <= L``). Subjects with their event or censoring at L itself, or
-before, are excluded and counted; so are subjects who enter only after L.
+with delayed entry, ``_entry <= L``). Subjects with their event (of any cause, when ``_cause`` is
+set) or censoring at L itself, or before, are excluded and counted; so are subjects who enter
+only after L.
 
 Time scale: by default ``_time`` is measured from the landmark (``_time - L``; ``_entry`` is
 then dropped, since everyone kept is at risk from the new time 0). With
@@ -79,7 +80,11 @@ def landmark(frame: pd.DataFrame, at: float, *, time_from_landmark: bool = True)
             f"The landmark {at:g} is at or after the last follow-up time ({np.nanmax(time):g}); "
             "no one is at risk then. Choose an earlier landmark."
         )
-    had_event = frame["_event"].to_numpy() == 1
+    # With competing causes, an event of any cause before L ends follow-up: count it as an event.
+    if "_cause" in frame.columns:
+        had_event = frame["_cause"].notna().to_numpy()
+    else:
+        had_event = frame["_event"].to_numpy() == 1
     ended_before = time <= at
     entered_after = (
         frame["_entry"].to_numpy(dtype=float) > at

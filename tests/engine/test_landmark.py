@@ -98,3 +98,15 @@ def test_km_after_landmark_is_conditional_km(data, at):
 def test_bad_landmark_raises_clear_error(small, at):
     with pytest.raises(AnalysisError, match="landmark"):
         landmark(small, at)
+
+
+def test_competing_cause_before_landmark_counts_as_event():
+    frame = pd.DataFrame(
+        {
+            "_time": [1.0, 2.0, 2.5, 5.0],
+            "_event": [1, 0, 0, 1],  # event of interest only
+            "_cause": ["relapse", "death", None, "relapse"],
+        }
+    )
+    counts = landmark(frame, 3.0).counts.iloc[-1]
+    assert (counts["n_events_before"], counts["n_censored_before"]) == (2, 1)
