@@ -23,8 +23,8 @@ from lifelines.exceptions import ConvergenceError
 from scipy.stats import norm
 
 from engine.errors import AnalysisError, RoleError, preview_values
+from engine.json_values import frame_records
 from engine.parametric import DISTRIBUTIONS, log_cumulative_hazard, log_quantile
-from engine.records import frame_records
 
 # lifelines AFT fitter, its location parameter and its shape parameter (modelled on log scale)
 _LIFELINES_AFT = {

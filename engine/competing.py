@@ -32,7 +32,7 @@ from scipy.stats import norm
 
 from engine.cox import CoxResult, fit_cox
 from engine.errors import AnalysisError, preview_values
-from engine.records import frame_records
+from engine.json_values import frame_records
 from engine.risk_table import as_float_array, group_codes
 
 VARIANCE_METHOD = (

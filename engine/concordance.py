@@ -23,6 +23,7 @@ import numpy as np
 import pandas as pd
 
 from engine.errors import AnalysisError
+from engine.json_values import json_float
 
 
 @dataclass(frozen=True)
@@ -36,8 +37,8 @@ class ConcordanceResult:
 
     def to_dict(self) -> dict:
         return {
-            "concordance": _float_or_none(self.concordance),
-            "standard_error": _float_or_none(self.standard_error),
+            "concordance": json_float(self.concordance),
+            "standard_error": json_float(self.standard_error),
             "concordant_pairs": float(self.concordant),
             "discordant_pairs": float(self.discordant),
             "tied_score_pairs": float(self.tied_score),
@@ -46,10 +47,6 @@ class ConcordanceResult:
 
     def to_frame(self) -> pd.DataFrame:
         return pd.DataFrame([self.to_dict()])
-
-
-def _float_or_none(value) -> float | None:
-    return float(value) if np.isfinite(value) else None
 
 
 def pair_counts(time, event, risk, strata=None) -> tuple[np.ndarray, np.ndarray, float]:

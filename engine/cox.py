@@ -17,6 +17,7 @@ from engine.concordance import ConcordanceResult, harrell_c
 from engine.cox_design import Design, Term, build_design
 from engine.cox_likelihood import TIES, RiskSetLayout, build_layout, newton_raphson
 from engine.errors import AnalysisError, preview_values
+from engine.json_values import json_float
 
 EVENTS_PER_PARAMETER = 10  # common practice, after Peduzzi et al. (1995) for Cox models
 RUNAWAY_STEP = 1e-4  # a Newton step still this large (scaled units) at the optimum: monotone
@@ -46,9 +47,9 @@ class ChiSquareTest:
     def to_dict(self) -> dict:
         return {
             "variable": self.variable,
-            "statistic": _num(self.statistic),
+            "statistic": json_float(self.statistic),
             "df": int(self.df),
-            "p_value": _num(self.p_value),
+            "p_value": json_float(self.p_value),
         }
 
 
@@ -102,16 +103,16 @@ class CoxResult:
                     "variable": t.variable,
                     "level": t.level,
                     "reference": t.reference,
-                    **{k: _num(getattr(t, k)) for k in _TERM_NUMBERS},
+                    **{k: json_float(getattr(t, k)) for k in _TERM_NUMBERS},
                 }
                 for t in self.terms
             ],
             "likelihood_ratio": _test_dict(self.likelihood_ratio),
             "wald": _test_dict(self.wald),
             "score": _test_dict(self.score),
-            "aic": _num(self.aic),
-            "concordance": _num(self.concordance.concordance),
-            "concordance_se": _num(self.concordance.standard_error),
+            "aic": json_float(self.aic),
+            "concordance": json_float(self.concordance.concordance),
+            "concordance_se": json_float(self.concordance.standard_error),
             "rows_dropped": {k: int(v) for k, v in self.dropped.items()},
             "variable_wald": [t.to_dict() for t in self.variable_wald],
             "drop_one": [t.to_dict() for t in self.drop_one],
@@ -121,10 +122,6 @@ class CoxResult:
 
 
 _TERM_NUMBERS = ("coef", "se", "hazard_ratio", "lower", "upper", "p_value")
-
-
-def _num(value) -> float | None:
-    return float(value) if value is not None and np.isfinite(value) else None
 
 
 def _test_dict(test: ChiSquareTest) -> dict:

@@ -23,7 +23,7 @@ import numpy as np
 import pandas as pd
 
 from engine.errors import AnalysisError
-from engine.records import frame_records
+from engine.json_values import frame_records
 
 COUNT_COLUMNS = [
     "group",

@@ -27,7 +27,7 @@ from lifelines.exceptions import ConvergenceError
 from scipy.stats import norm
 
 from engine.errors import AnalysisError, preview_values
-from engine.records import frame_records
+from engine.json_values import frame_records
 
 DISTRIBUTIONS: tuple[str, ...] = ("exponential", "weibull", "lognormal", "loglogistic")
 LABELS = {
