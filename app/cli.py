@@ -172,7 +172,12 @@ def load_prepared(
     args: argparse.Namespace, *, require_covariates: bool = False
 ) -> tuple[ImportedTable, PreparedData]:
     table = read_table(Path(args.data), import_options_from_args(args))
-    prepared = prepare(table.frame, roles_from_args(args), require_covariates=require_covariates)
+    prepared = prepare(
+        table.frame,
+        roles_from_args(args),
+        require_covariates=require_covariates,
+        malformed_lines=table.malformed_lines,
+    )
     return table, prepared
 
 

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import datetime
 import warnings
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -37,7 +38,9 @@ UNKNOWN_EVENT = "unknown event value"
 MISSING_ENTRY = "missing entry time"
 ENTRY_AFTER_EXIT = "entry after time"
 MISSING_COVARIATE = "missing covariate"
+MALFORMED_LINE = "malformed line"
 REASONS = (
+    MALFORMED_LINE,
     MISSING_TIME,
     NON_NUMERIC_TIME,
     UNPARSEABLE_DATE,
@@ -50,6 +53,7 @@ REASONS = (
     MISSING_COVARIATE,
 )
 REASON_COLUMN = "_reason"
+RAW_LINE_COLUMN = "_raw_line"  # the text of a malformed line, in ``excluded_rows``
 
 
 @dataclass(frozen=True, eq=False)
@@ -94,8 +98,18 @@ class PreparedData:
     excluded_rows: pd.DataFrame  # original columns of excluded rows plus ``_reason``
 
 
-def prepare(frame: pd.DataFrame, roles: Roles, *, require_covariates: bool = False) -> PreparedData:
-    """Validate ``roles`` against ``frame`` and build the prepared frame."""
+def prepare(
+    frame: pd.DataFrame,
+    roles: Roles,
+    *,
+    require_covariates: bool = False,
+    malformed_lines: Sequence[str] = (),
+) -> PreparedData:
+    """Validate ``roles`` against ``frame`` and build the prepared frame.
+
+    ``malformed_lines`` are the file's lines the reader skipped (``ImportedTable.malformed_lines``):
+    they count as rows read and excluded, so the report accounts for every line of the file.
+    """
     _validate_roles(frame, roles)
     n = len(frame)
     reason = np.full(n, -1, dtype=np.int8)
@@ -163,13 +177,17 @@ def prepare(frame: pd.DataFrame, roles: Roles, *, require_covariates: bool = Fal
 
     counts_by_group = group_counts(prepared)
     notes.extend(warnings_on_used(prepared, frame, roles, time[used], counts_by_group))
-    counts = np.bincount(reason[~used], minlength=len(REASONS)) if (~used).any() else []
+    counts = np.bincount(reason[~used], minlength=len(REASONS))
+    counts[REASONS.index(MALFORMED_LINE)] = len(malformed_lines)
     excluded = tuple((REASONS[i], int(c)) for i, c in enumerate(counts) if c)
     excluded_rows = frame.iloc[:0].copy() if everything else frame.loc[~used].copy()
     excluded_rows.insert(0, REASON_COLUMN, [REASONS[i] for i in reason[~used]])
+    if malformed_lines:
+        skipped = pd.DataFrame({REASON_COLUMN: MALFORMED_LINE, RAW_LINE_COLUMN: malformed_lines})
+        excluded_rows = pd.concat([skipped, excluded_rows], ignore_index=True)
     events = int(prepared["_event"].sum())
     report = DataReport(
-        rows_read=n,
+        rows_read=n + len(malformed_lines),
         rows_used=int(used.sum()),
         events=events,
         censored=int(used.sum()) - events,

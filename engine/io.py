@@ -75,6 +75,8 @@ class ImportedTable:
     sha256: str
     confident: bool = True
     notes: tuple[str, ...] = field(default_factory=tuple)
+    # Lines skipped for having the wrong number of fields; `prepare` counts them as excluded rows.
+    malformed_lines: tuple[str, ...] = field(default_factory=tuple)
 
     def fingerprint(self) -> dict:
         """Identify the data a result was computed from (for recipes and reports)."""
@@ -123,6 +125,7 @@ def read_table(
         else:
             frame, used, notes, confident = _read_text(path, data, options, source_name)
         sha256 = sha256.result()
+    malformed_lines = tuple(frame.attrs.pop("malformed_lines", ()))
     frame, dropped_note = _drop_empty_unnamed_columns(frame)
     notes = notes + dropped_note
     _check_columns(frame, source_name)
@@ -139,6 +142,7 @@ def read_table(
         sha256=sha256,
         confident=confident,
         notes=tuple(notes),
+        malformed_lines=malformed_lines,
     )
 
 
@@ -398,6 +402,7 @@ def _parse_text(path, data, sep, decimal, encoding, options, notes, name) -> pd.
     names = [str(c).strip() for c in frame.columns]
     frame.columns = [n if n else f"Unnamed: {i}" for i, n in enumerate(names)]
     _check_columns(frame, name)
+    frame.attrs["malformed_lines"] = tuple(malformed)
     return frame
 
 

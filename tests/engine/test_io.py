@@ -13,6 +13,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from engine.checks import prepare
 from engine.errors import FileReadError, FileTooLargeError, HazelError
 from engine.io import (
     DEFAULT_MISSING_TOKENS,
@@ -22,6 +23,7 @@ from engine.io import (
     missing_token_variants,
     read_table,
 )
+from engine.roles import Roles
 
 DATA = Path(__file__).parent / "data"
 
@@ -113,6 +115,18 @@ def test_malformed_lines_are_skipped_but_reported():
     assert table.frame["id"].tolist() == [1, 3, 4, 5]
     assert not table.confident
     assert any("2,20,0,extra,fields" in note for note in table.notes)
+    assert table.malformed_lines == ("2,20,0,extra,fields",)
+
+
+def test_malformed_lines_count_as_rows_read_and_excluded():
+    table = read_table(b"a,b,c\n1,2,1\n4,5\n6,7,0\n")
+    prepared = prepare(
+        table.frame, Roles(time="a", event="c"), malformed_lines=table.malformed_lines
+    )
+    report = prepared.report
+    assert (report.rows_read, report.rows_used) == (3, 2)
+    assert report.excluded == (("malformed line", 1),)
+    assert prepared.excluded_rows["_raw_line"].tolist() == ["4,5"]
 
 
 def test_short_rows_are_skipped_but_reported():
