@@ -17,23 +17,19 @@ from scipy import stats
 
 from engine.cox import ChiSquareTest, CoxResult, chi_square
 from engine.cox_likelihood import baseline_hazard, event_means, row_totals
+from engine.curves import kaplan_meier
 from engine.errors import AnalysisError, preview_values
 
 TRANSFORMS = ("km", "rank", "identity", "log")
 FUNCTIONAL_FORM_BINS = 20
 
 
-def _left_km(time: np.ndarray, event: np.ndarray, at: np.ndarray) -> np.ndarray:
-    """Kaplan–Meier survival just before each time in ``at`` (left-continuous)."""
-    times, inverse = np.unique(time, return_inverse=True)
-    deaths = np.bincount(inverse, event.astype(float), len(times))
-    removed = np.bincount(inverse, minlength=len(times))
-    at_risk = len(time) - np.concatenate([[0], np.cumsum(removed)[:-1]])
-    with np.errstate(divide="ignore", invalid="ignore"):
-        factor = np.where(at_risk > 0, 1 - deaths / at_risk, 1.0)
-    survival = np.cumprod(factor)
-    before = np.concatenate([[1.0], survival])
-    return before[np.searchsorted(times, at, side="left")]
+def _km_step(time: np.ndarray, event: np.ndarray, at: np.ndarray, side: str) -> np.ndarray:
+    """Kaplan–Meier survival at each time in ``at``: just before it (``side="left"``) or at it
+    (``side="right"``), from the shared estimator."""
+    curve = kaplan_meier(time, event)
+    survival = np.concatenate([[1.0], curve.survival])
+    return survival[np.searchsorted(curve.time, at, side=side)]
 
 
 def transform_times(transform: str, event_times, all_times, all_events) -> np.ndarray:
@@ -50,7 +46,7 @@ def transform_times(transform: str, event_times, all_times, all_events) -> np.nd
     if transform == "rank":
         return stats.rankdata(event_times)
     if transform == "km":
-        return 1 - _left_km(np.asarray(all_times), np.asarray(all_events), event_times)
+        return 1 - _km_step(np.asarray(all_times), np.asarray(all_events), event_times, "left")
     raise AnalysisError(
         f"Time transform {transform!r} is not known; use one of {preview_values(TRANSFORMS)}."
     )
@@ -185,7 +181,7 @@ def log_minus_log(
         event = rows[event_col].to_numpy() == 1
         at = np.unique(time[event])
         at = at[at > 0]
-        survival = _left_km(time, event, np.nextafter(at, np.inf))  # S(t) just after t
+        survival = _km_step(time, event, at, "right")
         keep = (survival > 0) & (survival < 1)
         pieces.append(
             pd.DataFrame(
