@@ -33,7 +33,7 @@ from scipy.stats import norm
 from engine.cox import CoxResult, fit_cox
 from engine.errors import AnalysisError, preview_values
 from engine.json_values import frame_records
-from engine.risk_table import as_float_array, group_codes
+from engine.risk_table import as_float_array, checked_entry, group_codes
 
 VARIANCE_METHOD = (
     "delta method (Greenwood-type), Collett 2015 section 12.2.3; intervals on the log(-log) scale"
@@ -221,15 +221,7 @@ def aalen_johansen(
             "at least one event. Check the event coding."
         )
     if entry is not None:
-        entry = as_float_array(entry, "_entry")
-        if entry.shape[0] != n:
-            raise AnalysisError(f"Column '_entry' has {entry.shape[0]} values but '_time' has {n}.")
-        late = entry >= time
-        if late.any():
-            raise AnalysisError(
-                f"Column '_entry' must be earlier than '_time'; {int(late.sum())} rows are not "
-                f"(entry values {preview_values(entry[late])}). Correct or exclude those rows."
-            )
+        entry = checked_entry(entry, time)
     z = float(norm.ppf(0.5 + confidence_level / 2))
     if group is None:
         parts = [(None, None)]

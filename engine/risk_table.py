@@ -63,6 +63,21 @@ def as_float_array(values, name: str) -> np.ndarray:
     return arr
 
 
+def checked_entry(entry, time: np.ndarray) -> np.ndarray:
+    """Entry times as floats, one per row and each earlier than its exit time."""
+    n = time.shape[0]
+    entry = as_float_array(entry, "_entry")
+    if entry.shape[0] != n:
+        raise AnalysisError(f"Column '_entry' has {entry.shape[0]} values but '_time' has {n}.")
+    late = entry >= time
+    if late.any():
+        raise AnalysisError(
+            f"Column '_entry' must be earlier than '_time'; {int(late.sum())} rows are not "
+            f"(entry values {preview_values(entry[late])}). Correct or exclude those rows."
+        )
+    return entry
+
+
 def as_event_array(values, n: int) -> np.ndarray:
     """Event indicators as a bool array, refusing anything but 0/1."""
     arr = np.asarray(values).reshape(-1)
@@ -148,15 +163,7 @@ def build_risk_table(time, event, codes=None, labels=(None,), entry=None) -> Ris
     # number with time >= t: reverse cumulative sum of everything observed at or after t
     at_risk = np.cumsum(all_obs[::-1], axis=0)[::-1]
     if entry is not None:
-        entry = as_float_array(entry, "_entry")
-        if entry.shape[0] != n:
-            raise AnalysisError(f"Column '_entry' has {entry.shape[0]} values but '_time' has {n}.")
-        late = entry >= time
-        if late.any():
-            raise AnalysisError(
-                f"Column '_entry' must be earlier than '_time'; {int(late.sum())} rows are not "
-                f"(entry values {preview_values(entry[late])}). Correct or exclude those rows."
-            )
+        entry = checked_entry(entry, time)
         # subtract those who have not entered yet: entry >= t, i.e. distinct times t_j <= entry
         entered_after = np.searchsorted(times, entry, side="right")  # count of t_j <= entry
         counts = np.bincount(entered_after * k + codes, minlength=(times.shape[0] + 1) * k)
