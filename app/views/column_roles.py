@@ -300,7 +300,7 @@ with right:
 with ui.guard("The follow-up summary"):
     from engine.curves import median_follow_up
 
-    follow = median_follow_up(prepared.frame)
+    follow = median_follow_up(prepared.frame["_time"], prepared.frame["_event"])
     st.markdown(
         f"**Median follow-up** (reverse Kaplan–Meier): "
         f"{ui.fmt_num(follow.estimate)} {report.time_unit}"
