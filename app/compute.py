@@ -178,7 +178,7 @@ def curve_drawing(
         "y_domain": y_domain,
         "x_upper": x_upper,
         "last_time": last_time,
-        "vertices": int(len(rows)),
+        "vertices": len(rows),
     }
 
 
@@ -233,3 +233,153 @@ def summary_table(
 ):
     frame = _frame(fingerprint, roles_text, _table)
     return group_summary(frame, times, tau=tau, confidence=confidence, transform=transform)
+
+
+# --- group comparison -----------------------------------------------------------------------
+
+
+def comparison_frame(
+    fingerprint: str,
+    roles_text: str,
+    grouping: tuple,
+    strata_column: str | None,
+    table: ImportedTable,
+) -> pd.DataFrame:
+    """The prepared frame with ``_group`` set for the comparison and ``_strata`` if asked.
+
+    ``grouping`` is ("role",) for the group role, or ("cut", column, k) for a numeric column cut
+    at its quantiles into k groups of about equal size (edges from pandas' ``qcut``).
+    """
+    frame = _frame(fingerprint, roles_text, table)
+    out = frame[[c for c in ("_time", "_event", "_entry") if c in frame.columns]].copy()
+    if grouping[0] == "cut":
+        _, column, k = grouping
+        values = pd.to_numeric(table.frame.loc[frame.index, column], errors="coerce")
+        out["_group"] = pd.qcut(values, q=k, duplicates="drop", precision=3)
+        out["_group"] = out["_group"].cat.rename_categories(
+            [f"{column} {interval}" for interval in out["_group"].cat.categories]
+        )
+    else:
+        out["_group"] = frame["_group"]
+    if strata_column:
+        out["_strata"] = table.frame.loc[frame.index, strata_column].astype("category")
+    return out.loc[out["_group"].notna()]
+
+
+@st.cache_data(max_entries=32, show_spinner="Testing…")
+def comparison(
+    fingerprint: str,
+    roles_text: str,
+    grouping: tuple,
+    strata_column: str | None,
+    test: str,
+    rho: float,
+    gamma: float,
+    _table: ImportedTable,
+):
+    from engine.compare import compare_frame
+
+    frame = comparison_frame(fingerprint, roles_text, grouping, strata_column, _table)
+    return compare_frame(frame, test=test, rho=rho, gamma=gamma)
+
+
+@st.cache_data(max_entries=32, show_spinner=False)
+def trend(
+    fingerprint: str,
+    roles_text: str,
+    grouping: tuple,
+    strata_column: str | None,
+    test: str,
+    rho: float,
+    gamma: float,
+    order: tuple | None,
+    scores: tuple | None,
+    _table: ImportedTable,
+):
+    from engine.compare import trend_test
+
+    frame = comparison_frame(fingerprint, roles_text, grouping, strata_column, _table)
+    labels = list(frame["_group"].cat.categories)
+    return trend_test(
+        frame["_time"].to_numpy(),
+        frame["_event"].to_numpy(),
+        frame["_group"],
+        order=[labels[[str(x) for x in labels].index(o)] for o in order] if order else None,
+        scores=scores,
+        test=test,
+        rho=rho,
+        gamma=gamma,
+        strata=frame["_strata"] if "_strata" in frame.columns else None,
+        entry=frame["_entry"].to_numpy() if "_entry" in frame.columns else None,
+    )
+
+
+@st.cache_data(max_entries=32, show_spinner=False)
+def pairwise(
+    fingerprint: str,
+    roles_text: str,
+    grouping: tuple,
+    strata_column: str | None,
+    test: str,
+    rho: float,
+    gamma: float,
+    _table: ImportedTable,
+):
+    from engine.compare import pairwise_comparisons
+
+    frame = comparison_frame(fingerprint, roles_text, grouping, strata_column, _table)
+    return pairwise_comparisons(
+        frame["_time"].to_numpy(),
+        frame["_event"].to_numpy(),
+        frame["_group"],
+        test=test,
+        rho=rho,
+        gamma=gamma,
+        strata=frame["_strata"] if "_strata" in frame.columns else None,
+        entry=frame["_entry"].to_numpy() if "_entry" in frame.columns else None,
+    )
+
+
+@st.cache_data(max_entries=32, show_spinner=False)
+def rmst_pair(
+    fingerprint: str,
+    roles_text: str,
+    grouping: tuple,
+    pair: tuple[str, str],
+    tau: float | None,
+    confidence: float,
+    _table: ImportedTable,
+):
+    """RMST of two groups and their difference (the second minus the first)."""
+    from engine.rmst import rmst_by_group
+
+    frame = comparison_frame(fingerprint, roles_text, grouping, None, _table)
+    labels = {str(x): x for x in frame["_group"].cat.categories}
+    chosen = [labels[p] for p in pair]
+    part = frame.loc[frame["_group"].isin(chosen)]
+    group = pd.Categorical(part["_group"].astype(object), categories=chosen)
+    return rmst_by_group(
+        part["_time"].to_numpy(),
+        part["_event"].to_numpy(),
+        pd.Series(group, index=part.index),
+        tau=tau,
+        confidence=confidence,
+        entry=part["_entry"].to_numpy() if "_entry" in part.columns else None,
+    )
+
+
+@st.cache_data(max_entries=16, show_spinner=False)
+def comparison_drawing(
+    fingerprint: str,
+    roles_text: str,
+    grouping: tuple,
+    size_px: tuple[int, int],
+    _table: ImportedTable,
+) -> pd.DataFrame:
+    """Thinned Kaplan–Meier vertices of the compared groups (for the small figure)."""
+    frame = comparison_frame(fingerprint, roles_text, grouping, None, _table)
+    curves = curves_by_group(frame).curves[1:]
+    rows = pd.concat([_curve_rows(c, SURVIVAL) for c in curves], ignore_index=True)
+    return thinning.thin_step_frame(
+        rows, ["estimate", "lower", "upper"], (0.0, 1.0), size_px[1], group="group"
+    )

@@ -13,16 +13,16 @@ from dataclasses import replace
 from pathlib import Path
 
 import streamlit as st
+
+from app import state
 from engine.checks import prepare
 from engine.io import ImportedTable, ImportOptions, read_table
 from engine.roles import Roles, suggest_roles
 
-from app import state
-
 DEMO_DIR = Path(__file__).resolve().parents[1] / "demo_data"
 DEMO_SUFFIXES = (".csv", ".tsv", ".txt", ".xlsx", ".parquet")
-# The demo the app opens on: several groups, numeric and categorical covariates.
-PREFERRED_DEMO_WORDS = ("group", "trial", "cohort")
+# The demo the app opens on: four groups, numeric and categorical covariates.
+PREFERRED_DEMO_WORDS = ("pump", "group", "cohort")
 
 
 def demo_files() -> list[Path]:
@@ -42,6 +42,62 @@ def demo_label(path: Path) -> str:
     return path.stem.replace("_", " ").replace("-", " ").capitalize()
 
 
+def demo_description(path: Path) -> str:
+    """The one-line description of a demo file from demo_data/README.md (``## name: text``)."""
+    readme = DEMO_DIR / "README.md"
+    if readme.is_file():
+        for line in readme.read_text(encoding="utf-8").splitlines():
+            if line.startswith("## ") and line[3:].startswith(path.name + ":"):
+                return line[3 + len(path.name) + 1 :].strip()
+    return ""
+
+
+# Roles each bundled demo is documented with (demo_data/README.md); applied only when every
+# named column is present, otherwise Hazel's own suggestions are used.
+DEMO_ROLES: dict[str, dict] = {
+    "pump_bearings.csv": {
+        "time": "months_in_service",
+        "unit": "months",
+        "event": "failed",
+        "event_values": (1,),
+        "group": "supplier",
+        "covariates": ("load_kN", "temperature_C", "lubricant"),
+        "categorical": ("lubricant",),
+    },
+    "joint_trial.csv": {
+        "time": None,
+        "start": "enrolled",
+        "end": "last_visit",
+        "dayfirst": True,
+        "unit": "months",
+        "event": "outcome",
+        "event_values": ("relapsed",),
+        "group": "arm",
+        "covariates": ("age_years", "weight_kg", "breed_size"),
+        "categorical": ("breed_size",),
+    },
+    "dairy_herd.csv": {
+        "time": "weeks",
+        "unit": "weeks",
+        "event": "status",
+        "event_values": ("died",),
+        "group": "housing",
+        "covariates": ("first_calving_age_months", "farm"),
+        "categorical": ("farm",),
+    },
+}
+
+
+def _demo_roles(table: ImportedTable) -> dict | None:
+    preset = DEMO_ROLES.get(table.source_name)
+    if preset is None:
+        return None
+    named = [v for k, v in preset.items() if k in ("time", "start", "end", "event", "group")]
+    named += [*preset.get("covariates", ())]
+    columns = {str(c) for c in table.frame.columns}
+    return preset if all(v is None or v in columns for v in named) else None
+
+
 def install_table(session: MutableMapping, table: ImportedTable, label: str, is_demo: bool) -> None:
     """Make ``table`` the one in use: suggested roles applied (and shown as suggestions)."""
     suggestions = suggest_roles(table.frame)
@@ -49,7 +105,9 @@ def install_table(session: MutableMapping, table: ImportedTable, label: str, is_
     session[state.DATASET_LABEL] = label
     session[state.DATASET_IS_DEMO] = is_demo
     session[state.ROLES_SUGGESTED] = suggestions
-    session[state.ROLES] = suggestions.to_roles()
+    preset = _demo_roles(table) if is_demo else None
+    session[state.ROLES] = suggestions.to_roles(**(preset or {}))
+    session[state.ROLES_PRESET] = preset is not None
     session[state.DATA_VERSION] = session.get(state.DATA_VERSION, 0) + 1
     session.pop(state.LOAD_ERROR, None)
     state.clear_page_choices(session, ("roles_", "curves_", "compare_", "model_"))

@@ -12,11 +12,12 @@ from __future__ import annotations
 from collections.abc import MutableMapping
 
 # Shared, set by code (never a widget key).
-TABLE = "table"  # engine.io.ImportedTable in use
+TABLE = "shared_table"  # engine.io.ImportedTable in use
 DATASET_LABEL = "dataset_label"  # what the sidebar calls it, e.g. "Demo: pump wear trial"
 DATASET_IS_DEMO = "dataset_is_demo"
-ROLES = "roles"  # engine.roles.Roles in use
-ROLES_SUGGESTED = "roles_suggested"  # engine.roles.RoleSuggestions for the table in use
+ROLES = "shared_roles"  # engine.roles.Roles in use
+ROLES_PRESET = "shared_roles_preset"  # True when a demo's documented roles were applied
+ROLES_SUGGESTED = "shared_roles_suggested"  # engine.roles.RoleSuggestions for the table in use
 DATA_VERSION = "data_version"  # bumps when a new table is loaded: resets page widgets
 LOAD_ERROR = "load_error"  # message from the last failed import, shown on the import page
 

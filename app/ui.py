@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import contextlib
-import html
 import logging
 from collections.abc import Iterator
 
@@ -35,9 +34,10 @@ def show_cautions() -> None:
 
 
 def escape(text: object) -> str:
-    """User text (column names, labels) made safe for markdown and HTML."""
-    escaped = html.escape(str(text))
-    for ch in "\\`*_[]{}()#+-.!|~<>$":
+    """User text (column names, labels) shown literally in markdown (Streamlit never renders
+    raw HTML in markdown here, so markdown's own characters are the ones to neutralise)."""
+    escaped = str(text)
+    for ch in "\\`*_[]{}#|~<>$:":
         escaped = escaped.replace(ch, "\\" + ch)
     return escaped
 

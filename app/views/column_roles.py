@@ -52,13 +52,21 @@ st.caption(
     "Hazel has pre-filled its suggestions from the column names and contents; check each one. "
     "Every page uses these roles, and a change here updates the results that depend on it."
 )
+if st.session_state.get(state.ROLES_PRESET):
+    st.info(
+        "This demo opens with the roles its documentation describes; Hazel's own suggestions "
+        "are noted under each choice.",
+        icon=":material/science:",
+    )
 
 # --- time -----------------------------------------------------------------------------------
 
 with st.container(border=True):
     st.subheader("Time", anchor=False)
     default("roles_time_mode", DATES if roles.start and not roles.time else DURATION)
-    mode = st.radio("The time to event is", [DURATION, DATES], key="roles_time_mode", horizontal=True)
+    mode = st.radio(
+        "The time to event is", [DURATION, DATES], key="roles_time_mode", horizontal=True
+    )
     unit_names = list(TIME_UNITS)
     if mode == DURATION:
         default("roles_time", optional(roles.time))
@@ -312,6 +320,4 @@ with ui.guard("The follow-up summary"):
         + (f" — {follow.reason}" if follow.reason else "")
     )
     times = pd.Series(prepared.frame["_time"])
-    st.caption(
-        f"Observed times from {times.min():,.4g} to {times.max():,.4g} {report.time_unit}."
-    )
+    st.caption(f"Observed times from {times.min():,.4g} to {times.max():,.4g} {report.time_unit}.")

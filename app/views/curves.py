@@ -67,7 +67,9 @@ censor = toggles[1].toggle("Censoring marks", value=True, key="curves_censor")
 risk = toggles[2].toggle("Numbers at risk", value=True, key="curves_risk")
 with st.expander("Estimation settings"):
     cols = st.columns(2)
-    confidence = CONFIDENCE[cols[0].selectbox("Confidence level", list(CONFIDENCE), key="curves_conf")]
+    confidence = CONFIDENCE[
+        cols[0].selectbox("Confidence level", list(CONFIDENCE), key="curves_conf")
+    ]
     transform = TRANSFORMS[
         cols[1].selectbox(
             "Interval transform (survival)",
@@ -174,7 +176,7 @@ def interval(estimate, lower, upper, digits: int = 3) -> str:
         return "not reached"
     inner = (
         f" ({ui.fmt_num(lower, digits)} to {ui.fmt_num(upper, digits)})"
-        if lower is not None and not pd.isna(lower) or upper is not None and not pd.isna(upper)
+        if (lower is not None and not pd.isna(lower)) or (upper is not None and not pd.isna(upper))
         else ""
     )
     return f"{ui.fmt_num(estimate, digits)}{inner}"
@@ -199,7 +201,10 @@ with ui.guard("The summary table"):
             "Events": frame["events"],
             "Censored": frame["censored"],
             f"Median ({unit})": [
-                interval(e, lo, hi) for e, lo, hi in frame[["median", "median_lower", "median_upper"]].itertuples(index=False)
+                interval(e, lo, hi)
+                for e, lo, hi in frame[["median", "median_lower", "median_upper"]].itertuples(
+                    index=False
+                )
             ],
         }
     )
@@ -210,7 +215,8 @@ with ui.guard("The summary table"):
             for e, lo, hi in frame[[key, f"{key}_lower", f"{key}_upper"]].itertuples(index=False)
         ]
     shown[f"RMST to {summary.tau:g} ({unit})"] = [
-        interval(e, lo, hi) for e, lo, hi in frame[["rmst", "rmst_lower", "rmst_upper"]].itertuples(index=False)
+        interval(e, lo, hi)
+        for e, lo, hi in frame[["rmst", "rmst_lower", "rmst_upper"]].itertuples(index=False)
     ]
     ui.table(frame, "curve-summary", "curves_summary", shown=shown)
     st.caption(

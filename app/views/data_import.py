@@ -6,10 +6,10 @@ import hashlib
 
 import pandas as pd
 import streamlit as st
-from engine.io import DEFAULT_MISSING_TOKENS, ImportOptions, read_table
 
 from app import data, state, ui
 from engine.errors import HazelError
+from engine.io import DEFAULT_MISSING_TOKENS, ImportOptions, read_table
 
 UPLOAD_BYTES = "import_bytes"  # the last uploaded file, kept to re-read with other options
 UPLOAD_NAME = "import_name"
@@ -75,6 +75,7 @@ with right:
             key=f"import_demo_{path.stem}_button",
             icon=":material/dataset:",
             width="stretch",
+            help=data.demo_description(path) or None,
         ):
             try:
                 data.open_demo(st.session_state, path)
