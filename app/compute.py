@@ -383,3 +383,12 @@ def comparison_drawing(
     return thinning.thin_step_frame(
         rows, ["estimate", "lower", "upper"], (0.0, 1.0), size_px[1], group="group"
     )
+
+
+@st.cache_data(max_entries=32, show_spinner=False)
+def group_levels(
+    fingerprint: str, roles_text: str, grouping: tuple, _table: ImportedTable
+) -> list[str]:
+    """Labels of the compared groups, in their display order."""
+    frame = comparison_frame(fingerprint, roles_text, grouping, None, _table)
+    return [str(x) for x in frame["_group"].cat.categories]

@@ -185,7 +185,7 @@ if n_levels >= 3 or grouping[0] == "cut":
             help="A trend test asks whether survival gets steadily better or worse along the "
             "order; it is more powerful than the overall test when that is the question.",
         ):
-            labels = [str(x) for x in (levels_source or result.groups)]
+            labels = compute.group_levels(*key, table)
             order = st.multiselect(
                 "Order, lowest first (pick every group in order)",
                 labels,
@@ -267,7 +267,8 @@ if n_levels >= 3:
                 f"{a} vs {b}" for a, b in differing[["group_a", "group_b"]].itertuples(index=False)
             )
             st.markdown(
-                f"**Reading:** after {adjust_label.split(' ')[0]} adjustment, these pairs differ clearly: {ui.escape(names)}."
+                f"**Reading:** after {adjust_label.split(' ')[0]} adjustment, these pairs "
+                f"differ clearly: {ui.escape(names)}."
             )
         st.caption(ui.NOT_SIGNIFICANT_CAUTION)
 
@@ -275,7 +276,7 @@ if n_levels >= 3:
 
 st.subheader("Restricted mean survival time difference", anchor=False)
 with ui.guard("The RMST difference"):
-    labels = [str(x) for x in (levels_source or result.groups)]
+    labels = compute.group_levels(*key, table)
     cols = st.columns(3)
     first = cols[0].selectbox("Group", labels, index=0, key="compare_rmst_a")
     second = cols[1].selectbox(
@@ -293,9 +294,10 @@ with ui.guard("The RMST difference"):
         rmst = compute.rmst_pair(*key, (first, second), tau or None, 0.95, table)
         contrast = rmst.contrast
         unit = prepared.report.time_unit
+        longer = "longer" if contrast.difference > 0 else "shorter"
         sentence = (
-            f"Up to {rmst.tau:g} {unit}, {second} was event-free for {ui.fmt_num(abs(contrast.difference))} "
-            f"{unit} {'longer' if contrast.difference > 0 else 'shorter'} on average than {first} "
+            f"Up to {rmst.tau:g} {unit}, {second} was event-free for "
+            f"{ui.fmt_num(abs(contrast.difference))} {unit} {longer} on average than {first} "
             f"(95% interval for the difference {ui.fmt_num(contrast.difference_lower)} to "
             f"{ui.fmt_num(contrast.difference_upper)}, p {_p(contrast.difference_p)})."
         )
