@@ -94,9 +94,9 @@ st.divider()
 unsure = not table.confident
 for note in table.notes:
     st.caption(f"ℹ︎ {ui.escape(note)}")
+ui.remember("import_show_options", unsure)
 show = st.toggle(
     "Show import options",
-    value=unsure,
     key="import_show_options",
     help="Separator, decimal mark, encoding, sheet and missing-value markers.",
 )
@@ -116,9 +116,9 @@ if show:
         sheet = cols[3].text_input(
             "Excel sheet (name)", key="import_sheet", help="Empty = the first sheet."
         )
+        ui.remember("import_missing", " ".join(t for t in DEFAULT_MISSING_TOKENS if t))
         missing = st.text_input(
             "Values that mean 'missing' (separated by spaces)",
-            value=" ".join(t for t in DEFAULT_MISSING_TOKENS if t),
             key="import_missing",
             help="Empty cells always count as missing.",
         )
