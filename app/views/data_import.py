@@ -48,21 +48,25 @@ with left:
         key="import_file_upload",
         help="The file is read on this computer and never sent anywhere.",
     )
+    pending = st.session_state.pop(state.PENDING_UPLOAD, None)
     if upload is not None:
         content = upload.getvalue()
         digest = hashlib.sha256(content).hexdigest()
         if st.session_state.get(UPLOAD_DIGEST) != digest:
             st.session_state[UPLOAD_DIGEST] = digest
-            try:
-                data.open_upload(st.session_state, content, upload.name)
-            except HazelError as error:
-                st.session_state[state.LOAD_ERROR] = (
-                    f"{upload.name} could not be read: {error} The data in use has not changed."
-                )
-            else:
-                st.session_state[UPLOAD_BYTES] = content
-                st.session_state[UPLOAD_NAME] = upload.name
-            st.rerun()
+            pending = (upload.name, content)
+    if pending is not None:
+        name, content = pending
+        try:
+            data.open_upload(st.session_state, content, name)
+        except HazelError as error:
+            st.session_state[state.LOAD_ERROR] = (
+                f"{name} could not be read: {error} The data in use has not changed."
+            )
+        else:
+            st.session_state[UPLOAD_BYTES] = content
+            st.session_state[UPLOAD_NAME] = name
+        st.rerun()
 
 with right:
     st.subheader("Or open a demo dataset", anchor=False)
