@@ -9,6 +9,7 @@ Tests read the charts as data through ``chart.to_dict()``.
 from __future__ import annotations
 
 import math
+import threading
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
 
@@ -129,13 +130,31 @@ def house_config(style: ChartStyle) -> dict:
     }
 
 
-def finish(chart: alt.TopLevelMixin, style: ChartStyle) -> dict:
-    """The Vega-Lite spec to draw and export, with the house look.
+_DATA_LOCK = threading.Lock()  # Altair's data transformers are process-wide settings
 
-    Built as a plain dictionary: Altair's own validation and copying of a finished layered chart
-    take longer than a display switch may (tests validate every builder's output instead).
+
+def _collect_frames(data, frames: dict) -> dict:
+    """Altair data transformer: keep each DataFrame aside and refer to it by name."""
+    name = f"data-{len(frames)}"
+    frames[name] = data
+    return {"name": name}
+
+
+alt.data_transformers.register("hazel_frames", _collect_frames)
+
+
+def finish(chart: alt.TopLevelMixin, style: ChartStyle) -> dict:
+    """The Vega-Lite spec to draw, with the house look and its data as DataFrames.
+
+    Built as a plain dictionary, data left as DataFrames under ``datasets`` (Streamlit sends
+    those as Arrow): Altair's validation, copying and row-by-row conversion of a finished chart
+    take longer than a display switch may. Tests validate every builder's output instead, and
+    ``exports.json_spec`` turns the frames into JSON rows for the image exports.
     """
-    spec = chart.to_dict(validate=False)
+    frames: dict = {}
+    with _DATA_LOCK, alt.data_transformers.enable("hazel_frames", frames=frames):
+        spec = chart.to_dict(validate=False)
+    spec["datasets"] = {**spec.get("datasets", {}), **frames}
     spec["config"] = house_config(style)
     return spec
 

@@ -5,6 +5,7 @@ Nothing here touches streamlit, so the same functions serve the app, tests and l
 
 from __future__ import annotations
 
+import json
 import re
 
 import altair as alt
@@ -38,18 +39,25 @@ def table_csv(frame: pd.DataFrame) -> bytes:
     return out.to_csv(index=False).encode("utf-8")
 
 
-def _spec(figure: alt.TopLevelMixin | dict) -> dict:
-    return figure if isinstance(figure, dict) else figure.to_dict()
+def json_spec(figure: alt.TopLevelMixin | dict) -> dict:
+    """A Vega-Lite spec with every dataset as JSON rows (missing values as null)."""
+    if not isinstance(figure, dict):
+        return figure.to_dict()
+    datasets = {
+        name: json.loads(rows.to_json(orient="records")) if isinstance(rows, pd.DataFrame) else rows
+        for name, rows in figure.get("datasets", {}).items()
+    }
+    return {**figure, "datasets": datasets}
 
 
 def figure_svg(figure: alt.TopLevelMixin | dict) -> str:
     """A chart (or its Vega-Lite spec) as a standalone SVG document."""
-    return vl_convert.vegalite_to_svg(_spec(figure))
+    return vl_convert.vegalite_to_svg(json_spec(figure))
 
 
 def figure_png(figure: alt.TopLevelMixin | dict, scale: float = 2.0) -> bytes:
     """The chart as a PNG at ``scale`` times its on-screen size (2 = sharp on slides and paper)."""
-    return vl_convert.vegalite_to_png(_spec(figure), scale=scale)
+    return vl_convert.vegalite_to_png(json_spec(figure), scale=scale)
 
 
 def file_stem(title: str, fallback: str = "hazel") -> str:

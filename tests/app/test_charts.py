@@ -7,7 +7,7 @@ import pandas as pd
 import pytest
 from altair.vegalite.v6.schema.core import Root
 
-from app import charts
+from app import charts, exports
 
 STYLE = charts.ChartStyle()
 
@@ -192,4 +192,5 @@ def test_finished_spec_is_valid_vega_lite_with_the_house_config():
     large = charts.ChartStyle.presentation()
     spec = charts.finish(chart, large)
     assert spec["config"]["axis"]["labelFontSize"] == large.font_size
-    Root.validate(spec)
+    assert isinstance(spec["datasets"]["data-0"], pd.DataFrame)  # sent to the browser as Arrow
+    Root.validate(exports.json_spec(spec))
