@@ -43,7 +43,7 @@ ACCENT = "#0B6E69"
 class ChartStyle:
     """Size, type and line weight; ``presentation()`` gives the projector version."""
 
-    width: int = 720
+    width: int = 640
     height: int = 360
     font_size: int = 12
     title_size: int = 15
@@ -77,7 +77,13 @@ def _colour(field: str, colours: dict[str, str], levels: Sequence[str], title: s
         f"{field}:N",
         scale=alt.Scale(domain=domain, range=[colours.get(d, ALL_ROWS_COLOUR) for d in domain]),
         legend=alt.Legend(
-            title=title, orient="right", symbolType="stroke", symbolOpacity=1, labelLimit=220
+            title=title,
+            orient="top",
+            direction="horizontal",
+            columns=min(max(len(domain), 1), 4),
+            symbolType="stroke",
+            symbolOpacity=1,
+            labelLimit=240,
         )
         if title is not None
         else None,
@@ -156,6 +162,9 @@ def finish(chart: alt.TopLevelMixin, style: ChartStyle) -> dict:
         spec = chart.to_dict(validate=False)
     spec["datasets"] = {**spec.get("datasets", {}), **frames}
     spec["config"] = house_config(style)
+    # Width and height are the plot's own; axes, legend and title add to them (the page would
+    # otherwise squeeze the whole figure, labels included, into the plot's size).
+    spec["autosize"] = {"type": "pad"}
     return spec
 
 
@@ -166,7 +175,10 @@ def _title(style: ChartStyle) -> alt.TitleParams | str:
 # ---------------------------------------------------------------------------------------------
 # Step curves (survival, cumulative incidence, cumulative hazard, predicted curves)
 
-Y_AXIS_EXTENT = 120  # same left-axis width on the curve and the at-risk table keeps them aligned
+
+def axis_extent(style: ChartStyle) -> int:
+    """Left-axis width shared by a curve and its at-risk table, so the two line up."""
+    return style.font_size * 10
 
 
 def step_curve_chart(
@@ -181,12 +193,14 @@ def step_curve_chart(
     ticks: Sequence[float] | None = None,
     y_format: str = ".2f",
     legend_title: str | None = "",
+    align_with_table: bool = False,
 ) -> alt.LayerChart:
     """Step lines (one per ``group``) with an optional interval band and censoring marks.
 
     ``curves`` has columns group, time, estimate, lower, upper, at_risk (one row per kept step
     vertex); ``censored`` has group, time, estimate. Tooltips show time, estimate, interval and
-    number at risk at each vertex.
+    number at risk at each vertex. ``align_with_table`` fixes the width of the left axis to the
+    one of ``at_risk_chart`` so the two line up when stacked.
     """
     levels = list(dict.fromkeys(curves["group"].astype(str)))
     data = curves.assign(group=curves["group"].astype(str))
@@ -199,7 +213,11 @@ def step_curve_chart(
         axis=x_axis,
     )
     y_scale = alt.Scale(domain=list(y_domain), nice=False)
-    y_axis = alt.Axis(minExtent=Y_AXIS_EXTENT, maxExtent=Y_AXIS_EXTENT, format=y_format)
+    y_axis = (
+        alt.Axis(minExtent=axis_extent(style), maxExtent=axis_extent(style), format=y_format)
+        if align_with_table
+        else alt.Axis(format=y_format)
+    )
     colour = _colour("group", colours, levels, legend_title if len(levels) > 1 else None)
     tooltip = [
         alt.Tooltip("group:N", title="Group"),
@@ -284,9 +302,9 @@ def at_risk_chart(
                 sort=levels,
                 title=None,
                 axis=alt.Axis(
-                    minExtent=Y_AXIS_EXTENT,
-                    maxExtent=Y_AXIS_EXTENT,
-                    labelLimit=Y_AXIS_EXTENT - 24,
+                    minExtent=axis_extent(style),
+                    maxExtent=axis_extent(style),
+                    labelLimit=axis_extent(style) - 24,
                     labelPadding=24,
                     ticks=False,
                     domain=False,
@@ -303,11 +321,20 @@ def at_risk_chart(
     )
 
 
-def curve_with_risk_table(curve: alt.LayerChart, risk: alt.Chart | None) -> alt.TopLevelMixin:
-    """The curve above its numbers-at-risk table, sharing the x axis positions."""
+def curve_with_risk_table(
+    curve: alt.LayerChart, risk: alt.Chart | None, style: ChartStyle
+) -> alt.TopLevelMixin:
+    """The curve above its numbers-at-risk table, sharing the x axis positions.
+
+    The title moves to the stacked figure so that it sits above the legend, not below it.
+    """
     if risk is None:
         return curve
-    return alt.vconcat(curve, risk, spacing=14).resolve_scale(color="shared")
+    return (
+        alt.vconcat(curve.properties(title=""), risk, spacing=14)
+        .resolve_scale(color="shared")
+        .properties(title=_title(style))
+    )
 
 
 # ---------------------------------------------------------------------------------------------

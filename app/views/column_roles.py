@@ -198,10 +198,14 @@ with st.container(border=True):
     references: list[tuple[str, object]] = []
     if covariates:
         st.markdown("**Covariate types and reference levels**")
+        header = st.columns([2, 2, 3])
+        header[0].caption("Covariate")
+        header[1].caption("Type")
+        header[2].caption("Reference level (categorical covariates)")
         for column in covariates:
             kind = covariate_kind(frame[column])
             row = st.columns([2, 2, 3])
-            row[0].markdown(f"`{ui.escape(column)}`")
+            row[0].markdown(ui.escape(column))
             kind_key = f"roles_kind_{column}"
             default(
                 kind_key,

@@ -171,7 +171,6 @@ with ui.guard("The test"):
     st.caption(ui.NOT_SIGNIFICANT_CAUTION)
     observed = result.to_frame()[["group", "observed", "expected"]].copy()
     observed["group"] = observed["group"].map(str)
-    observed["observed / expected"] = observed["observed"] / observed["expected"]
     ui.table(observed, "observed-expected", "compare_observed")
 
 # --- trend ----------------------------------------------------------------------------------

@@ -120,6 +120,7 @@ with ui.guard("The curves"):
         ticks=ticks,
         y_format=".2f" if scale != compute.HAZARD else ".2~f",
         legend_title=str(group_label) if group_label else None,
+        align_with_table=risk,
     )
     risk_chart = None
     if risk:
@@ -131,7 +132,9 @@ with ui.guard("The curves"):
             x_max=drawing["x_upper"],
             ticks=ticks,
         )
-    ui.figure(charts.curve_with_risk_table(chart, risk_chart), style, "curves", "curves_figure")
+    ui.figure(
+        charts.curve_with_risk_table(chart, risk_chart, style), style, "curves", "curves_figure"
+    )
     if drawing["vertices"] > len(drawing["curves"]):
         st.caption(
             f"Drawn with {len(drawing['curves']):,} of {drawing['vertices']:,} step vertices: "
@@ -149,6 +152,11 @@ with ui.guard("The curves"):
 
 st.subheader("Summary", anchor=False)
 cols = st.columns(2)
+with ui.guard("Suggested times"):
+    # Two round times within follow-up as a start; the user can type any others.
+    span = float(base.frame["_time"].max()) if len(base.frame) else 0.0
+    first_ticks = charts.nice_ticks(span, count=4)[1:3]
+    ui.remember("curves_times", ", ".join(f"{t:g}" for t in first_ticks))
 times_text = cols[0].text_input(
     f"Survival at times ({unit}), separated by commas",
     key="curves_times",
@@ -169,15 +177,19 @@ def parse_times(text: str) -> tuple[float, ...]:
     return tuple(sorted({float(p) for p in parts}))
 
 
-def interval(estimate, lower, upper, digits: int = 3) -> str:
-    if estimate is None or pd.isna(estimate):
-        return "not reached"
-    inner = (
-        f" ({ui.fmt_num(lower, digits)} to {ui.fmt_num(upper, digits)})"
-        if (lower is not None and not pd.isna(lower)) or (upper is not None and not pd.isna(upper))
-        else ""
-    )
-    return f"{ui.fmt_num(estimate, digits)}{inner}"
+def _value(value, fmt: str) -> str | None:
+    return None if value is None or pd.isna(value) else format(value, fmt)
+
+
+def interval(estimate, lower, upper, fmt: str = ".3g", missing: str = "not reached") -> str:
+    """'estimate (lower to upper)'; a missing limit is shown as 'not reached'."""
+    shown = _value(estimate, fmt)
+    if shown is None:
+        return missing
+    lo, hi = _value(lower, fmt), _value(upper, fmt)
+    if lo is None and hi is None:
+        return shown
+    return f"{shown} ({lo or 'not reached'} to {hi or 'not reached'})"
 
 
 try:
@@ -209,7 +221,7 @@ with ui.guard("The summary table"):
     for t in summary.times:
         key = f"survival_{t:g}"
         shown[f"Survival at {t:g}"] = [
-            interval(e, lo, hi)
+            interval(e, lo, hi, ".3f", "not estimable")
             for e, lo, hi in frame[[key, f"{key}_lower", f"{key}_upper"]].itertuples(index=False)
         ]
     shown[f"RMST to {summary.tau:g} ({unit})"] = [

@@ -79,7 +79,6 @@ with right:
             key=f"import_demo_{path.stem}_button",
             icon=":material/dataset:",
             width="stretch",
-            help=data.demo_description(path) or None,
         ):
             try:
                 data.open_demo(st.session_state, path)
@@ -87,6 +86,9 @@ with right:
                 st.session_state[state.LOAD_ERROR] = f"The demo could not be opened: {error}"
             st.session_state.pop(UPLOAD_BYTES, None)
             st.rerun()
+        description = data.demo_description(path)
+        if description:
+            st.caption(ui.escape(description))
 
 table = data.current_table(st.session_state)
 if table is None:

@@ -16,6 +16,12 @@ PH_TRANSFORMS = {
     "time itself": "identity",
     "log time": "log",
 }
+PH_SCALE_NAMES = {
+    "km": "Kaplan–Meier scale",
+    "rank": "rank",
+    "identity": "as recorded",
+    "log": "log scale",
+}
 NO_STRATA = "(no strata)"
 DOT_LIMIT = 4000  # dots drawn in a residual plot; beyond this a seeded sample is drawn
 
@@ -175,7 +181,12 @@ with tabs[0], ui.guard("The hazard-ratio table"):
     if result.variable_wald:
         st.markdown("**Joint tests for categorical covariates with several levels (Wald)**")
         joint = pd.DataFrame([t.to_dict() for t in result.variable_wald])
-        ui.table(joint, "cox-joint-wald", "model_joint")
+        ui.table(
+            joint,
+            "cox-joint-wald",
+            "model_joint",
+            shown=joint.assign(p_value=joint["p_value"].map(ui.fmt_p)),
+        )
     rows = compute.forest(model_key, table)
     rows = rows.assign(
         label=[
@@ -296,7 +307,7 @@ with tabs[3], ui.guard("The proportional-hazards check"):
     title, x_title, y_title = ui.label_inputs(
         "model_ph_plot",
         f"Scaled Schoenfeld residuals: {term}",
-        f"Time ({transform} scale)",
+        f"Time ({PH_SCALE_NAMES[transform]})",
         "β(t) for this term",
     )
     rstyle = style.titled(title, x_title, y_title)

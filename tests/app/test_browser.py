@@ -36,6 +36,14 @@ PAGES = [
     ("about", "About and cautions", "Cautions"),
 ]
 
+REGRESSION_TABS = [
+    "Model tests",
+    "Univariable screen",
+    "Proportional hazards",
+    "Functional form",
+    "Predicted curves",
+]
+
 pytestmark = pytest.mark.browser
 
 
@@ -114,6 +122,13 @@ def test_walk_every_page_on_the_demo(server):
             _wait_until_idle(page)
             assert page.locator('[data-testid="stException"]').count() == 0, slug
             page.screenshot(path=str(ARTIFACTS / f"{slug}.png"), full_page=True)
+            if slug == "regression":
+                for tab in REGRESSION_TABS:
+                    page.get_by_role("tab", name=tab).first.click()
+                    _wait_until_idle(page)
+                    assert page.locator('[data-testid="stException"]').count() == 0, tab
+                    name = tab.lower().replace(" ", "_")
+                    page.screenshot(path=str(ARTIFACTS / f"regression_{name}.png"), full_page=True)
             if slug == "curves":
                 # A curve is drawn (Vega renders into a canvas or svg inside the chart element).
                 assert page.locator('[data-testid="stVegaLiteChart"]').count() >= 1

@@ -107,7 +107,12 @@ def test_palette_is_okabe_ito():
 def test_numbers_at_risk_share_the_curve_ticks_and_axis_width():
     ticks = charts.nice_ticks(5.0)
     curve = charts.step_curve_chart(
-        _curves(), STYLE, charts.group_colours(["A", "B"]), ticks=ticks, x_max=5.0
+        _curves(),
+        STYLE,
+        charts.group_colours(["A", "B"]),
+        ticks=ticks,
+        x_max=5.0,
+        align_with_table=True,
     )
     table = pd.DataFrame(
         {"group": ["A", "A", "B", "B"], "time": [0.0, 2.0, 0.0, 2.0], "at_risk": [10, 7, 10, 5]}
@@ -115,7 +120,7 @@ def test_numbers_at_risk_share_the_curve_ticks_and_axis_width():
     risk = charts.at_risk_chart(
         table, STYLE, charts.group_colours(["A", "B"]), x_max=5.0, ticks=ticks
     )
-    spec = charts.curve_with_risk_table(curve, risk).to_dict()
+    spec = charts.curve_with_risk_table(curve, risk, STYLE).to_dict()
     top, bottom = spec["vconcat"]
     top_x = top["layer"][1]["encoding"]["x"]
     bottom_x = bottom["encoding"]["x"]

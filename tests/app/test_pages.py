@@ -184,8 +184,8 @@ def test_curves_summary_equals_the_engine(pumps):
     assert list(shown["Events"]) == list(expected["events"])
     for row, (_, want) in zip(shown.itertuples(index=False), expected.iterrows(), strict=True):
         assert row[4].startswith(f"{want['median']:.3g} (")
-        assert row[5].startswith(f"{want['survival_12']:.3g} (")
-        assert row[6].startswith(f"{want['survival_24']:.3g} (")
+        assert row[5].startswith(f"{want['survival_12']:.3f} (")
+        assert row[6].startswith(f"{want['survival_24']:.3f} (")
     assert len(at.get("vega_lite_chart")) >= 1
 
 
