@@ -155,14 +155,14 @@ def data_summary(table: ImportedTable, prepared: PreparedData) -> str:
     report = prepared.report
     roles = prepared.roles
     options = table.options
-    lines = [f"File: {table.source_name} ({table.file_format}, sha256 {table.sha256[:12]}…)"]
+    lines = [f"File: {table.source_name} ({table.file_format}, sha256 {table.sha256[:12]}...)"]
     if table.file_format == "csv":
         lines.append(
             f"Read with separator {options.sep!r}, decimal {options.decimal!r}, "
             f"encoding {options.encoding}" + ("" if table.confident else " (detection unsure)")
         )
     lines += [f"  note: {note}" for note in table.notes]
-    time = roles.time or f"{roles.start} → {roles.end}"
+    time = roles.time or f"{roles.start} -> {roles.end}"
     lines.append(f"Time: {time} (reported in {report.time_unit})")
     if report.event_coding is not None:
         lines.append(f"Event: {report.event_coding.describe()}")

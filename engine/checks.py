@@ -6,12 +6,14 @@ categoricals whose first level is the reference. No row disappears without a rea
 
 from __future__ import annotations
 
+import datetime
 import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 
+from engine.data_warnings import group_counts, warnings_on_used
 from engine.errors import EventCodingError, RoleError, preview_values
 from engine.roles import (
     TIME_UNITS,
@@ -47,8 +49,6 @@ REASONS = (
     ENTRY_AFTER_EXIT,
     MISSING_COVARIATE,
 )
-FEW_EVENTS = 10  # common practice: fewer than ~10 events per group gives unstable estimates
-TINY_GROUP = 5
 REASON_COLUMN = "_reason"
 
 
@@ -119,6 +119,12 @@ def prepare(frame: pd.DataFrame, roles: Roles, *, require_covariates: bool = Fal
     kinds = classify_covariates(frame, roles)
     covariates = {}
     for column in roles.covariates:
+        if kinds[column] != "categorical" and roles.reference_for(column) is not None:
+            raise RoleError(
+                f"A reference level is given for {column!r}, which is treated as numeric; "
+                "add it to the categorical covariates or drop the reference.",
+                column=column,
+            )
         values, missing = _covariate(frame[column], column, kinds[column], roles)
         covariates[column] = values
         if require_covariates:
@@ -135,26 +141,31 @@ def prepare(frame: pd.DataFrame, roles: Roles, *, require_covariates: bool = Fal
             )
 
     used = reason < 0
-    prepared = pd.DataFrame(index=frame.index[used])
-    prepared["_time"] = time[used]
-    prepared["_event"] = event[used].astype(np.int64)
+    everything = bool(used.all())
+
+    def kept(values):
+        return values if everything else values[used]
+
+    columns = {"_time": kept(time), "_event": kept(event).astype(np.int64)}
     if cause is not None:
-        prepared["_cause"] = cause[used]
+        columns["_cause"] = kept(cause)
     for role, column in (("_group", roles.group), ("_strata", roles.strata)):
         if column:
-            prepared[role] = _natural_categorical(frame[column])[used]
+            columns[role] = kept(_natural_categorical(frame[column]))
     if roles.entry:
-        prepared["_entry"] = out["_entry"][used]
+        columns["_entry"] = kept(out["_entry"])
     if roles.id:
-        prepared["_id"] = frame[roles.id].to_numpy()[used]
+        columns["_id"] = frame[roles.id].to_numpy(copy=True)[used]
     for column, values in covariates.items():
-        prepared[column] = values[used]
+        columns[column] = kept(values)
+    # Every array above is new (computed or masked), so the frame need not copy them again.
+    prepared = pd.DataFrame(columns, index=frame.index[used], copy=False)
 
-    group_counts = _group_counts(prepared)
-    notes.extend(_warnings_on_used(prepared, frame, roles, time[used], group_counts))
+    counts_by_group = group_counts(prepared)
+    notes.extend(warnings_on_used(prepared, frame, roles, time[used], counts_by_group))
     counts = np.bincount(reason[~used], minlength=len(REASONS)) if (~used).any() else []
     excluded = tuple((REASONS[i], int(c)) for i, c in enumerate(counts) if c)
-    excluded_rows = frame.loc[~used].copy()
+    excluded_rows = frame.iloc[:0].copy() if everything else frame.loc[~used].copy()
     excluded_rows.insert(0, REASON_COLUMN, [REASONS[i] for i in reason[~used]])
     events = int(prepared["_event"].sum())
     report = DataReport(
@@ -165,7 +176,7 @@ def prepare(frame: pd.DataFrame, roles: Roles, *, require_covariates: bool = Fal
         time_unit=roles.unit,
         excluded=excluded,
         warnings=tuple(notes),
-        group_counts=group_counts,
+        group_counts=counts_by_group,
         event_coding=coding,
         covariate_kinds=kinds,
     )
@@ -264,7 +275,7 @@ def _numbers(series: pd.Series, column: str, role: str) -> np.ndarray:
             f"The {role} column {column!r} holds true/false values, not numbers.", column=column
         )
     if pd.api.types.is_numeric_dtype(series):
-        return series.to_numpy(dtype=float, na_value=np.nan)
+        return series.to_numpy(dtype=float, na_value=np.nan, copy=True)
     if pd.api.types.is_datetime64_any_dtype(series):
         raise RoleError(
             f"The {role} column {column!r} holds dates ({preview_values(series.head(3))}). "
@@ -288,6 +299,8 @@ def _numbers(series: pd.Series, column: str, role: str) -> np.ndarray:
 def _dates(series: pd.Series, roles: Roles) -> np.ndarray:
     if pd.api.types.is_datetime64_any_dtype(series):
         parsed = series
+    elif _holds_date_objects(series):  # pyarrow reads ISO dates as datetime.date objects
+        parsed = pd.to_datetime(series, errors="coerce")
     else:
         text = series.where(series.isna(), series.astype(str).str.strip())
         with warnings.catch_warnings():
@@ -309,6 +322,11 @@ def _dates(series: pd.Series, roles: Roles) -> np.ndarray:
             values=list(series[present].unique()[:5]),
         )
     return values
+
+
+def _holds_date_objects(series: pd.Series) -> bool:
+    present = series.iloc[:1000].dropna()
+    return len(present) > 0 and all(isinstance(v, datetime.date) for v in present)
 
 
 def _ambiguous_date_notes(frame, roles: Roles) -> list[str]:
@@ -380,7 +398,7 @@ def _event_codes(frame, roles: Roles, notes: list[str]):
         names = {value_key(v): name for v, name in roles.event_causes}
         cause_lookup = np.array([names.get(k) for k in keys] + [None], dtype=object)
         cause = cause_lookup[codes]
-        cause[event != 1] = None
+        cause[event < 0] = None  # competing causes keep their name with _event == 0
         missing_cause = (event == 1) & pd.isna(cause)
         cause[missing_cause] = "event"
     return event, cause, coding
@@ -405,7 +423,11 @@ def _covariate(series: pd.Series, column: str, kind: str, roles: Roles):
 
 
 def _natural_categorical(series: pd.Series, reference=None, column: str | None = None):
-    """Categorical with levels in natural order, the reference level (if any) first."""
+    """Categorical with levels in natural order; for a covariate the reference level comes first.
+
+    The default reference follows ``roles.default_reference`` (most frequent, natural-order tie
+    break) but is counted from the codes already at hand rather than hashing the column again.
+    """
     codes, uniques = pd.factorize(series, use_na_sentinel=True, sort=False)
     levels = list(uniques)
     order = sorted(range(len(levels)), key=lambda i: natural_sort_key(levels[i]))
@@ -433,82 +455,3 @@ def _natural_categorical(series: pd.Series, reference=None, column: str | None =
     new_codes = np.where(codes >= 0, rank[codes] if len(levels) else codes, -1)
     categories = pd.Index([levels[i] for i in order], dtype=object)
     return pd.Categorical.from_codes(new_codes, categories=categories)
-
-
-# --- warnings -----------------------------------------------------------------------------------
-
-
-def _group_counts(prepared: pd.DataFrame) -> pd.DataFrame:
-    event = prepared["_event"]
-    if "_group" in prepared:
-        grouped = event.groupby(prepared["_group"], observed=False)
-        table = pd.DataFrame({"n": grouped.size(), "events": grouped.sum()})
-        table.index = table.index.astype(object)
-    else:
-        table = pd.DataFrame({"n": [len(event)], "events": [int(event.sum())]}, index=["all"])
-    table["censored"] = table["n"] - table["events"]
-    table = table.rename_axis("group").reset_index()
-    return table.astype({"n": "int64", "events": "int64", "censored": "int64"})
-
-
-def _warnings_on_used(prepared, frame, roles: Roles, time, group_counts) -> list[str]:
-    notes = []
-    zeros = int((time == 0).sum())
-    if zeros:
-        notes.append(
-            f"{zeros} row(s) have time 0; they are kept, but check whether they are real "
-            "(an event on the first day) or data-entry placeholders."
-        )
-    if roles.time and len(time):
-        notes.extend(_unit_hints(time, roles))
-    if len(prepared) and prepared["_event"].sum() == 0:
-        notes.append("There are no events among the rows used; curves stay at 1.")
-    if roles.group:
-        for _, row in group_counts.iterrows():
-            label = row["group"]
-            if row["n"] < TINY_GROUP:
-                notes.append(f"Group {label!r} has only {row['n']} row(s).")
-            elif row["events"] < FEW_EVENTS:
-                notes.append(
-                    f"Group {label!r} has {row['events']} event(s); with fewer than "
-                    f"{FEW_EVENTS} events its estimates are unstable (common practice rule)."
-                )
-        no_group = int(prepared["_group"].isna().sum())
-        if no_group:
-            notes.append(
-                f"{no_group} row(s) have no value in the group column {roles.group!r}; they "
-                "appear in overall results but in no group."
-            )
-    if roles.id:
-        ids = frame[roles.id]
-        duplicated = ids[ids.duplicated(keep=False) & ids.notna()]
-        if len(duplicated):
-            notes.append(
-                f"Column {roles.id!r} repeats {duplicated.nunique()} id(s) "
-                f"({preview_values(duplicated.unique())}); each subject should appear once."
-            )
-    return notes
-
-
-def _unit_hints(time: np.ndarray, roles: Roles) -> list[str]:
-    """Heuristic hints (rules of thumb) that the duration column is in another unit."""
-    unit = roles.duration_unit
-    raw = convert_time(time, roles.unit, unit)
-    top = float(np.nanmax(raw)) if len(raw) else 0.0
-    whole = bool(np.all(np.mod(raw, 1) == 0))
-    if unit == "days" and whole and top < 120:
-        return [
-            f"All times are whole numbers below 120 (largest {top:g}); if they are weeks or "
-            "months rather than days, set the unit of the time column."
-        ]
-    if unit == "days" and not whole and top <= 40:
-        return [
-            f"Times are fractional and at most {top:g}; if they are years or months rather "
-            "than days, set the unit of the time column."
-        ]
-    if unit == "years" and top > 100:
-        return [
-            f"Times reach {top:g} years; if they are days or months, set the unit of the "
-            "time column."
-        ]
-    return []

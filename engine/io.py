@@ -13,11 +13,13 @@ import io
 import re
 import zipfile
 from collections import Counter
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
 import pandas as pd
 import pyarrow as pa
+import pyarrow.csv as pa_csv
 
 from engine.errors import FileReadError, FileTooLargeError, preview_values
 
@@ -111,13 +113,16 @@ def read_table(
     source_name = name or (path.name if path is not None else "uploaded file")
     head = data[:16] if data is not None else _read_head(path, 16)
     file_format = _detect_format(source_name, head)
-    sha256 = _sha256(path, data)
-    if file_format == "xlsx":
-        frame, used, notes, confident = _read_excel(path, data, options, source_name)
-    elif file_format == "parquet":
-        frame, used, notes, confident = _read_parquet(path, data, options, source_name)
-    else:
-        frame, used, notes, confident = _read_text(path, data, options, source_name)
+    # hashlib releases the GIL, so the fingerprint is computed while the file is parsed.
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        sha256 = pool.submit(_sha256, path, data)
+        if file_format == "xlsx":
+            frame, used, notes, confident = _read_excel(path, data, options, source_name)
+        elif file_format == "parquet":
+            frame, used, notes, confident = _read_parquet(path, data, options, source_name)
+        else:
+            frame, used, notes, confident = _read_text(path, data, options, source_name)
+        sha256 = sha256.result()
     frame, dropped_note = _drop_empty_unnamed_columns(frame)
     notes = notes + dropped_note
     _check_columns(frame, source_name)
@@ -208,7 +213,8 @@ def _read_text(path, data, options: ImportOptions, name: str):
     confident = sniffed.confident
     encoding = sniffed.encoding
     frame = _parse_text(path, data, sniffed.sep, sniffed.decimal, encoding, options, notes, name)
-    if options.encoding is None and encoding != FALLBACK_ENCODING and _has_undecoded(frame):
+    guessed_utf8 = options.encoding is None and encoding not in (FALLBACK_ENCODING, "latin-1")
+    if guessed_utf8 and _has_undecoded(frame):
         # The sample was valid UTF-8 but a later part of the file is not.
         encoding = FALLBACK_ENCODING
         notes.append(
@@ -238,7 +244,12 @@ def _sniff(sample: bytes, truncated: bool, options: ImportOptions, name: str) ->
     if not sample.strip():
         raise FileReadError(f"{name} is empty (only blank lines). Export the data again.")
     encoding = options.encoding or _guess_encoding(sample)
-    if encoding == FALLBACK_ENCODING and options.encoding is None:
+    if b"\x00" in sample and not encoding.startswith("utf-16"):
+        raise FileReadError(
+            f"{name} does not look like a text table (it contains binary data). "
+            "Upload a CSV, TSV, Excel .xlsx or Parquet file."
+        )
+    if encoding in (FALLBACK_ENCODING, "latin-1") and options.encoding is None:
         notes.append("The file is not UTF-8; it was read as Windows-1252 (Latin-1).")
     try:
         text = sample.decode(encoding, errors="strict" if not truncated else "ignore")
@@ -288,6 +299,10 @@ def _guess_encoding(sample: bytes) -> str:
     except UnicodeDecodeError as exc:
         # A multi-byte character cut by the end of the sample is not an error.
         if exc.start < len(sample) - 3 or len(sample) < SAMPLE_BYTES:
+            try:
+                sample.decode(FALLBACK_ENCODING)
+            except UnicodeDecodeError:
+                return "latin-1"  # cp1252 leaves five bytes undefined; latin-1 maps every byte
             return FALLBACK_ENCODING
     return "utf-8"
 
@@ -362,9 +377,7 @@ def _parse_text(path, data, sep, decimal, encoding, options, notes, name) -> pd.
     arrow_encoding = "utf-8" if encoding in ("utf-8", "utf-8-sig") else encoding
     source = str(path) if path is not None else io.BytesIO(data)
     try:
-        frame = pd.read_csv(
-            source, engine="pyarrow", encoding=arrow_encoding, on_bad_lines=skip_malformed, **kwargs
-        )
+        frame = _parse_with_pyarrow(source, sep, decimal, arrow_encoding, kwargs, skip_malformed)
     except (pa.ArrowException, ValueError, OverflowError, TypeError):
         # pyarrow cannot cope with some quoting and line-ending mixes; the python parser can.
         malformed.clear()
@@ -374,8 +387,26 @@ def _parse_text(path, data, sep, decimal, encoding, options, notes, name) -> pd.
             f"{len(malformed)} malformed line(s) with the wrong number of fields were skipped: "
             f"{preview_values(malformed, 3)}. Check the separator and quoting."
         )
-    frame.columns = [str(c).strip() for c in frame.columns]
+    names = [str(c).strip() for c in frame.columns]
+    frame.columns = [n if n else f"Unnamed: {i}" for i, n in enumerate(names)]
+    _check_columns(frame, name)
     return frame
+
+
+def _parse_with_pyarrow(source, sep, decimal, encoding, kwargs, on_bad_line) -> pd.DataFrame:
+    """What ``pandas.read_csv(engine="pyarrow")`` does, but converting column by column
+    (``self_destruct``) so the Arrow table and the frame are not both held in full."""
+    table = pa_csv.read_csv(
+        source,
+        read_options=pa_csv.ReadOptions(encoding=encoding),
+        parse_options=pa_csv.ParseOptions(delimiter=sep, invalid_row_handler=on_bad_line),
+        convert_options=pa_csv.ConvertOptions(
+            null_values=kwargs["na_values"],
+            strings_can_be_null="" in kwargs["na_values"],
+            decimal_point=decimal,
+        ),
+    )
+    return table.to_pandas(self_destruct=True, split_blocks=True)
 
 
 def _parse_text_python(path, data, encoding, kwargs, malformed, name) -> pd.DataFrame:
@@ -399,11 +430,13 @@ def _parse_text_python(path, data, encoding, kwargs, malformed, name) -> pd.Data
 
 def _has_undecoded(frame: pd.DataFrame) -> bool:
     """pyarrow keeps invalid UTF-8 as bytes: one bytes value means the encoding was wrong."""
-    for column in frame.columns:
-        series = frame[column]
+    for position in range(frame.shape[1]):
+        series = frame.iloc[:, position]
         if series.dtype == object:
-            first = series.first_valid_index()
-            if first is not None and isinstance(series.loc[first], bytes):
+            present = series.iloc[:1000].dropna()
+            if present.empty:
+                present = series.dropna()
+            if len(present) and isinstance(present.iloc[0], bytes):
                 return True
     return False
 

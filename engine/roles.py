@@ -390,6 +390,9 @@ def covariate_kind(series: pd.Series) -> str:
     """'numeric', 'categorical' or 'possibly categorical' (numeric with few distinct values)."""
     if pd.api.types.is_bool_dtype(series) or not pd.api.types.is_numeric_dtype(series):
         return "categorical"
+    head = series.iloc[:2000].dropna().unique()  # most numeric columns show many values early
+    if len(head) > FEW_DISTINCT or not np.all(np.mod(head, 1) == 0):
+        return "numeric"
     distinct = series.dropna().unique()
     if len(distinct) <= FEW_DISTINCT and np.all(np.mod(distinct, 1) == 0):
         return "possibly categorical"

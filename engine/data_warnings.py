@@ -1,0 +1,114 @@
+"""Warnings about the rows kept by ``engine.checks.prepare``: nothing here excludes a row.
+
+Thresholds are rules of thumb (common practice), stated in each message.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from engine.errors import preview_values
+from engine.roles import Roles, convert_time
+
+FEW_EVENTS = 10  # common practice: fewer than ~10 events per group gives unstable estimates
+TINY_GROUP = 5
+
+
+def group_counts(prepared: pd.DataFrame) -> pd.DataFrame:
+    """Rows, events and censored per group (one row "all" without a group role)."""
+    event = prepared["_event"]
+    if "_group" in prepared:
+        groups = prepared["_group"].cat
+        codes = groups.codes.to_numpy()
+        has_group = codes >= 0
+        size = len(groups.categories)
+        table = pd.DataFrame(
+            {
+                "n": np.bincount(codes[has_group], minlength=size),
+                "events": np.bincount(codes[has_group], event.to_numpy()[has_group], size),
+            },
+            index=pd.Index(list(groups.categories), dtype=object),
+        )
+    else:
+        table = pd.DataFrame({"n": [len(event)], "events": [int(event.sum())]}, index=["all"])
+    table["censored"] = table["n"] - table["events"]
+    table = table.rename_axis("group").reset_index()
+    return table.astype({"n": "int64", "events": "int64", "censored": "int64"})
+
+
+def warnings_on_used(prepared, frame, roles: Roles, time, counts) -> list[str]:
+    """Zero times, unit hints, no events, small groups, rows without a group, repeated ids."""
+    notes = []
+    zeros = int((time == 0).sum())
+    if zeros:
+        notes.append(
+            f"{zeros} row(s) have time 0; they are kept, but check whether they are real "
+            "(an event on the first day) or data-entry placeholders."
+        )
+    if roles.time and len(time):
+        notes.extend(_unit_hints(time, roles))
+    if len(prepared) and prepared["_event"].sum() == 0:
+        notes.append("There are no events among the rows used; curves stay at 1.")
+    if roles.group:
+        for _, row in counts.iterrows():
+            label = row["group"]
+            if row["n"] < TINY_GROUP:
+                notes.append(f"Group {label!r} has only {row['n']} row(s).")
+            elif row["events"] < FEW_EVENTS:
+                notes.append(
+                    f"Group {label!r} has {row['events']} event(s); with fewer than "
+                    f"{FEW_EVENTS} events its estimates are unstable (common practice rule)."
+                )
+        no_group = int(prepared["_group"].isna().sum())
+        if no_group:
+            notes.append(
+                f"{no_group} row(s) have no value in the group column {roles.group!r}; they "
+                "appear in overall results but in no group."
+            )
+    if roles.id and _may_repeat(frame[roles.id]):
+        ids = frame[roles.id]
+        duplicated = ids[ids.duplicated(keep=False) & ids.notna()]
+        if len(duplicated):
+            notes.append(
+                f"Column {roles.id!r} repeats {duplicated.nunique()} id(s) "
+                f"({preview_values(duplicated.unique())}); each subject should appear once."
+            )
+    return notes
+
+
+def _may_repeat(ids: pd.Series) -> bool:
+    """Fast exit for numeric ids: a sort finds 'no repeats' quicker than hashing."""
+    if not pd.api.types.is_numeric_dtype(ids):
+        return not ids.is_unique
+    values = ids.to_numpy(dtype=float, na_value=np.nan)
+    values = values[~np.isnan(values)]
+    if bool((values[1:] > values[:-1]).all()):  # ids in increasing order: the usual export
+        return False
+    values = np.sort(values)
+    return bool((values[1:] == values[:-1]).any())
+
+
+def _unit_hints(time: np.ndarray, roles: Roles) -> list[str]:
+    """Heuristic hints (rules of thumb) that the duration column is in another unit."""
+    unit = roles.duration_unit
+    raw = convert_time(time, roles.unit, unit)
+    top = float(np.nanmax(raw)) if len(raw) else 0.0
+    # The first rows usually settle it; the full column is scanned only when they are whole.
+    whole = bool(np.all(np.mod(raw[:10_000], 1) == 0)) and bool(np.all(np.mod(raw, 1) == 0))
+    if unit == "days" and whole and top < 120:
+        return [
+            f"All times are whole numbers below 120 (largest {top:g}); if they are weeks or "
+            "months rather than days, set the unit of the time column."
+        ]
+    if unit == "days" and not whole and top <= 40:
+        return [
+            f"Times are fractional and at most {top:g}; if they are years or months rather "
+            "than days, set the unit of the time column."
+        ]
+    if unit == "years" and top > 100:
+        return [
+            f"Times reach {top:g} years; if they are days or months, set the unit of the "
+            "time column."
+        ]
+    return []
