@@ -16,9 +16,9 @@ from scipy import stats
 from engine.concordance import ConcordanceResult, harrell_c
 from engine.cox_design import Design, Term, build_design
 from engine.cox_likelihood import TIES, RiskSetLayout, build_layout, newton_raphson
-from engine.errors import AnalysisError
+from engine.errors import AnalysisError, preview_values
 
-EVENTS_PER_PARAMETER = 10  # common practice, after Peduzzi et al. (1996)
+EVENTS_PER_PARAMETER = 10  # common practice, after Peduzzi et al. (1995) for Cox models
 RUNAWAY_STEP = 1e-4  # a Newton step still this large (scaled units) at the optimum: monotone
 
 
@@ -113,6 +113,7 @@ class CoxResult:
             "concordance": _num(self.concordance.concordance),
             "concordance_se": _num(self.concordance.standard_error),
             "rows_dropped": {k: int(v) for k, v in self.dropped.items()},
+            "variable_wald": [t.to_dict() for t in self.variable_wald],
             "drop_one": [t.to_dict() for t in self.drop_one],
             "ph_check": None if ph_check is None else [t.to_dict() for t in ph_check],
             "warnings": list(self.warnings),
@@ -157,6 +158,7 @@ def fit_cox(
     time_col: str = "_time",
     event_col: str = "_event",
     drop_one: bool = True,
+    max_iterations: int = 50,
 ) -> CoxResult:
     """Fit a Cox model by Newton–Raphson on the complete cases of the model's variables."""
     if ties not in TIES:
@@ -174,16 +176,22 @@ def fit_cox(
     event = frame[event_col].to_numpy(dtype=float)[used] == 1
     codes, strata_levels = _strata_codes(frame, used, strata)
     entry_values = None if entry is None else frame[entry].to_numpy(dtype=float)[used]
+    if entry_values is not None and np.any(entry_values >= time):
+        bad = np.flatnonzero(entry_values >= time)
+        raise AnalysisError(
+            f"Entry time '{entry}' is at or after the exit time in {len(bad)} row(s) (for "
+            f"example rows {preview_values(frame.index[used][bad])}); a subject must enter "
+            "before it leaves. Fix or remove those rows."
+        )
     if not event.any():
         raise AnalysisError(
             "None of the rows used by the Cox model has an event, so nothing can be estimated; "
             "check the event coding."
         )
     layout = build_layout(time, event, codes, entry_values)
-    center = design.matrix.mean(axis=0)
-    scale = design.matrix.std(axis=0)
+    center, scale = design.center, design.scale
     scaled = (design.matrix[layout.order] - center) / scale
-    fit = newton_raphson(layout, scaled, ties)
+    fit = newton_raphson(layout, scaled, ties, max_iter=max_iterations)
     warnings = list(design.warnings)
     p = scaled.shape[1]
     try:
@@ -212,7 +220,7 @@ def fit_cox(
         warnings.append(
             f"Only {events / p:.1f} events per model parameter ({events} events, {p} parameters): "
             f"fewer than {EVENTS_PER_PARAMETER} (a common rule of thumb, after Peduzzi et al. "
-            "1996); the estimates may be biased and the tests unreliable. Use fewer covariates."
+            "1995); the estimates may be biased and the tests unreliable. Use fewer covariates."
         )
     terms = term_estimates(design.terms, beta, covariance, confidence)
     eta = scaled @ fit.beta
@@ -228,9 +236,7 @@ def fit_cox(
         used_index=frame.index.to_numpy()[used],
     )
     null_loglik = fit.null_loglik
-    drop_tests = tuple(
-        _drop_one(layout, scaled, design, fit.loglik, null_loglik, ties) if drop_one else ()
-    )
+    drop_tests = tuple(_drop_one(layout, scaled, design, fit, ties) if drop_one else ())
     return CoxResult(
         n=int(used.sum()),
         events=events,
@@ -287,19 +293,22 @@ def _variable_wald(design: Design, beta, covariance):
             yield chi_square(variable, statistic, len(cols))
 
 
-def _drop_one(layout, scaled, design: Design, loglik, null_loglik, ties):
-    """Likelihood-ratio test of each variable: refit without it on the same rows."""
+def _drop_one(layout, scaled, design: Design, fit, ties):
+    """Likelihood-ratio test of each variable: refit without it on the same rows (starting from
+    the full model's other coefficients, which saves iterations)."""
     for variable in design.variables:
         cols = design.columns_of(variable)
         keep = np.setdiff1d(np.arange(scaled.shape[1]), cols)
-        reduced = null_loglik if len(keep) == 0 else _loglik_of(layout, scaled[:, keep], ties)
-        yield chi_square(variable, 2 * (loglik - reduced), len(cols))
+        if len(keep) == 0:
+            reduced = fit.null_loglik
+        else:
+            reduced = newton_raphson(layout, scaled[:, keep], ties, start=fit.beta[keep]).loglik
+        yield chi_square(variable, 2 * (fit.loglik - reduced), len(cols))
 
 
-def _loglik_of(layout, scaled, ties) -> float:
-    return newton_raphson(layout, scaled, ties).loglik
-
-
-def cox_json(result: CoxResult | None, ph_check: Sequence[ChiSquareTest] | None = None):
-    """The command line's "cox" object: the fit with its proportional-hazards checks, or None."""
-    return None if result is None else result.to_dict(ph_check)
+def cox_json(result: CoxResult | None, ph_check=None):
+    """The command line's "cox" object, or None without a model. ``ph_check`` is a
+    ``cox_diagnostics.PHTest`` (its per-variable and GLOBAL rows are used) or those rows."""
+    if result is None:
+        return None
+    return result.to_dict(getattr(ph_check, "checks", ph_check))

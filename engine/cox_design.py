@@ -36,6 +36,8 @@ class Design:
     levels: dict  # categorical variable -> (reference, *other levels kept)
     level_counts: dict  # categorical variable -> {level: rows used}
     warnings: tuple[str, ...]
+    center: np.ndarray  # column means over the rows used
+    scale: np.ndarray  # column standard deviations over the rows used
 
     @property
     def variables(self) -> tuple[str, ...]:
@@ -153,25 +155,31 @@ def build_design(
             terms.append(Term(column, str(level), str(ref)))
             columns.append((codes == level).astype(float))
     matrix = np.column_stack(columns) if columns else np.zeros((int(used.sum()), 0))
-    design = Design(tuple(terms), matrix, used, dropped, levels, level_counts, ())
-    warnings += check_collinearity(design)
-    return Design(tuple(terms), matrix, used, dropped, levels, level_counts, tuple(warnings))
+    center = matrix.mean(axis=0)
+    centred = matrix - center
+    covariance = centred.T @ centred / len(matrix)
+    del centred
+    scale = np.sqrt(np.diag(covariance))
+    design = Design(tuple(terms), matrix, used, dropped, levels, level_counts, (), center, scale)
+    warnings += check_collinearity(design, covariance)
+    return Design(
+        tuple(terms), matrix, used, dropped, levels, level_counts, tuple(warnings), center, scale
+    )
 
 
-def check_collinearity(design: Design) -> list[str]:
+def check_collinearity(design: Design, covariance: np.ndarray) -> list[str]:
     """Raise for constant or exactly collinear terms; warn for near-collinear variables."""
-    x = design.matrix
-    if x.shape[1] == 0:
+    spread = design.scale
+    if len(spread) == 0:
         return []
-    spread = x.std(axis=0)
-    constant = [design.terms[j].label for j in np.flatnonzero(spread <= 1e-12 * (1 + abs(x[0])))]
+    tiny = spread <= 1e-12 * (1 + np.abs(design.center))
+    constant = [design.terms[j].label for j in np.flatnonzero(tiny)]
     if constant:
         raise AnalysisError(
             f"Covariate(s) {preview_values(constant)} take a single value among the rows used, so "
             "their effect cannot be estimated; remove them from the covariates."
         )
-    z = (x - x.mean(axis=0)) / spread
-    corr = (z.T @ z) / len(z)
+    corr = covariance / np.outer(spread, spread)
     eigenvalues, eigenvectors = np.linalg.eigh(corr)
     if eigenvalues[0] < 1e-10 * max(eigenvalues[-1], 1.0):
         involved = np.abs(eigenvectors[:, 0]) > 1e-3

@@ -162,9 +162,11 @@ def test_delayed_entry_matches_statsmodels(rng):
     # time as at risk then, the counting-process convention (used here) does not.
     frame["_entry"] = np.floor(frame["_time"] * rng.uniform(0, 0.9, len(frame))) + 0.5
     frame.loc[frame["_entry"] >= frame["_time"], "_entry"] = 0.0
-    for ties in ("efron", "breslow"):
-        result = fit_cox(frame, ["x1", "x2", "group"], ties=ties, entry="_entry")
-        _, fit = statsmodels_fit(frame, ["x1", "x2", "mid", "high"], ties, entry="_entry")
+    for ties, strata in [("efron", None), ("breslow", None), ("efron", "_strata")]:
+        result = fit_cox(frame, ["x1", "x2", "group"], ties=ties, entry="_entry", strata=strata)
+        _, fit = statsmodels_fit(
+            frame, ["x1", "x2", "mid", "high"], ties, entry="_entry", strata=strata
+        )
         np.testing.assert_allclose(result.to_frame()["coef"], fit.params, atol=1e-5)
         np.testing.assert_allclose(result.to_frame()["se"], fit.bse, atol=1e-5)
         assert result.loglik == pytest.approx(fit.llf, abs=1e-6)
@@ -271,6 +273,14 @@ def test_predicted_survival_per_stratum_and_levels(rng):
         assert np.all(np.diff(curve["survival"]) <= 0)
 
 
+def test_numeric_profiles_use_values_or_quartiles(rossi):
+    result = fit_cox(rossi, ROSSI_COVARIATES)
+    assert list(level_profiles(result, "fin")) == ["fin = 0", "fin = 1"]
+    ages = [p["age"] for p in level_profiles(result, "age").values()]
+    np.testing.assert_allclose(ages, np.quantile(rossi["age"], [0.25, 0.5, 0.75]))
+    assert level_profiles(result, "fin")["fin = 1"]["prio"] == pytest.approx(rossi["prio"].mean())
+
+
 def test_json_contract(rossi):
     result = fit_cox(rossi, ROSSI_COVARIATES)
     out = cox_json(result)
@@ -306,6 +316,12 @@ def test_few_events_per_parameter_and_small_level_warn(rng):
     assert any("'tiny'" in w and "'rare' (3 rows)" in w for w in result.warnings)
 
 
+def test_non_convergence_warns(rossi):
+    result = fit_cox(rossi, ROSSI_COVARIATES, max_iterations=1)
+    assert not result.converged
+    assert any("did not converge" in w for w in result.warnings)
+
+
 def test_near_collinear_covariates_warn(rng):
     frame = simulated(rng)
     frame["x1_copy"] = frame["x1"] + rng.normal(scale=0.01, size=len(frame))
@@ -321,13 +337,15 @@ def test_near_collinear_covariates_warn(rng):
         (lambda f: f.assign(word=["a", "b"] * 200), ["word"], "word"),
         (lambda f: f.assign(_event=0), ["x1"], "event"),
         (lambda f: f, ["missing_column"], "missing_column"),
+        (lambda f: f.assign(_entry=f["_time"]), ["x1"], "_entry"),
     ],
-    ids=["constant", "collinear", "not-numeric", "no-events", "unknown-column"],
+    ids=["constant", "collinear", "not-numeric", "no-events", "unknown-column", "late-entry"],
 )
 def test_unfittable_models_raise_naming_the_problem(rng, change, covariates, message):
     frame = change(simulated(rng))
+    entry = "_entry" if "_entry" in frame else None
     with pytest.raises(AnalysisError, match=message):
-        fit_cox(frame, covariates)
+        fit_cox(frame, covariates, entry=entry)
 
 
 def test_unknown_reference_level_raises(rng):
