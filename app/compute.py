@@ -17,6 +17,7 @@ import streamlit as st
 from app import charts, data, thinning
 from engine.curves import CurveSet, curves_by_group, nelson_aalen
 from engine.io import ImportedTable
+from engine.risk_table import without_missing
 from engine.roles import Roles
 from engine.summary import group_summary, numbers_at_risk
 
@@ -245,7 +246,8 @@ def comparison_frame(
     strata_column: str | None,
     table: ImportedTable,
 ) -> pd.DataFrame:
-    """The prepared frame with ``_group`` set for the comparison and ``_strata`` if asked.
+    """The prepared frame with ``_group`` set for the comparison and ``_strata`` if asked
+    (rows without a group or stratum still in: the engine leaves them out and counts them).
 
     ``grouping`` is ("role",) for the group role, or ("cut", column, k) for a numeric column cut
     at its quantiles into k groups of about equal size (edges from pandas' ``qcut``).
@@ -263,7 +265,12 @@ def comparison_frame(
         out["_group"] = frame["_group"]
     if strata_column:
         out["_strata"] = table.frame.loc[frame.index, strata_column].astype("category")
-    return out.loc[out["_group"].notna()]
+    return out
+
+
+def _complete(frame: pd.DataFrame) -> pd.DataFrame:
+    """Rows with a group (and stratum): the engine's own rule for comparisons."""
+    return without_missing(frame)[0]
 
 
 @st.cache_data(max_entries=32, show_spinner="Testing…")
@@ -298,7 +305,7 @@ def trend(
 ):
     from engine.compare import trend_test
 
-    frame = comparison_frame(fingerprint, roles_text, grouping, strata_column, _table)
+    frame = _complete(comparison_frame(fingerprint, roles_text, grouping, strata_column, _table))
     labels = list(frame["_group"].cat.categories)
     return trend_test(
         frame["_time"].to_numpy(),
@@ -327,7 +334,7 @@ def pairwise(
 ):
     from engine.compare import pairwise_comparisons
 
-    frame = comparison_frame(fingerprint, roles_text, grouping, strata_column, _table)
+    frame = _complete(comparison_frame(fingerprint, roles_text, grouping, strata_column, _table))
     return pairwise_comparisons(
         frame["_time"].to_numpy(),
         frame["_event"].to_numpy(),
@@ -353,7 +360,7 @@ def rmst_pair(
     """RMST of two groups and their difference (the second minus the first)."""
     from engine.rmst import rmst_by_group
 
-    frame = comparison_frame(fingerprint, roles_text, grouping, None, _table)
+    frame = _complete(comparison_frame(fingerprint, roles_text, grouping, None, _table))
     labels = {str(x): x for x in frame["_group"].cat.categories}
     chosen = [labels[p] for p in pair]
     part = frame.loc[frame["_group"].isin(chosen)]
@@ -377,7 +384,7 @@ def comparison_drawing(
     _table: ImportedTable,
 ) -> pd.DataFrame:
     """Thinned Kaplan–Meier vertices of the compared groups (for the small figure)."""
-    frame = comparison_frame(fingerprint, roles_text, grouping, None, _table)
+    frame = _complete(comparison_frame(fingerprint, roles_text, grouping, None, _table))
     curves = curves_by_group(frame).curves[1:]
     rows = pd.concat([_curve_rows(c, SURVIVAL) for c in curves], ignore_index=True)
     return thinning.thin_step_frame(

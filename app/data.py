@@ -155,6 +155,17 @@ def set_roles(session: MutableMapping, roles: Roles) -> None:
     session[state.ROLES] = roles
 
 
+def curve_roles(roles: Roles) -> Roles:
+    """The roles curves and comparisons depend on: covariates play no part in them, so changing
+    a covariate leaves their cached results alone."""
+    return replace(roles, covariates=(), categorical=(), reference=())
+
+
+def model_roles(roles: Roles) -> Roles:
+    """The roles a Cox model depends on (the model builder picks its own strata)."""
+    return replace(roles, group=None, strata=None)
+
+
 def with_unit(roles: Roles, unit: str) -> Roles:
     """The same roles with durations expressed in ``unit`` (the engine converts)."""
     if roles.time is not None and roles.source_unit is None:

@@ -107,7 +107,7 @@ with st.container(border=True):
         "factor such as site affects survival but is not what you are comparing.",
     )
 strata_column = None if strata_choice == strata_options[0] else strata_choice
-roles_text = data.roles_key(roles)
+roles_text = data.roles_key(data.curve_roles(roles))
 key = (table.sha256, roles_text, grouping)
 
 
@@ -169,6 +169,11 @@ with ui.guard("The test"):
     cols[2].metric("p-value", ui.fmt_p(result.p_value))
     st.markdown(f"**Reading:** {ui.escape(sentence)}")
     st.caption(ui.NOT_SIGNIFICANT_CAUTION)
+    if result.rows_excluded:
+        st.caption(
+            f"{result.rows_excluded:,} row(s) without a value for the group or stratum are "
+            "left out of the comparison."
+        )
     observed = result.to_frame()[["group", "observed", "expected"]].copy()
     observed["group"] = observed["group"].map(str)
     ui.table(observed, "observed-expected", "compare_observed")

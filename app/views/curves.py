@@ -77,7 +77,9 @@ with st.expander("Estimation settings"):
         )
     ]
 
-shown_roles = data.with_unit(roles, unit) if unit != base.report.time_unit else roles
+shown_roles = data.curve_roles(roles)
+if unit != base.report.time_unit:
+    shown_roles = data.with_unit(shown_roles, unit)
 roles_text = data.roles_key(shown_roles)
 style = ui.chart_style()
 group_label = roles.group if by_group else None

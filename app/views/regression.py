@@ -106,7 +106,7 @@ if not covariates:
 
 model_key = (
     table.sha256,
-    data.roles_key(roles),
+    data.roles_key(data.model_roles(roles)),
     tuple(covariates),
     tuple(categorical),
     tuple(reference),
@@ -354,7 +354,9 @@ with tabs[4], ui.guard("The functional-form check"):
         variable = st.selectbox(
             "Categorical covariate (log-minus-log plot)", categorical_all, key="model_lml_variable"
         )
-        lines = compute.log_minus_log_lines(table.sha256, data.roles_key(roles), variable, table)
+        lines = compute.log_minus_log_lines(
+            table.sha256, data.roles_key(data.model_roles(roles)), variable, table
+        )
         lines = lines.rename(columns={"level": "group", "log_minus_log": "value"})
         levels = list(dict.fromkeys(lines["group"]))
         title, x_title, y_title = ui.label_inputs(

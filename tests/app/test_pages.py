@@ -10,6 +10,7 @@ from pathlib import Path
 
 import pandas as pd
 import pytest
+import streamlit as st
 from streamlit.testing.v1 import AppTest
 
 from app import data, state
@@ -260,3 +261,31 @@ def test_cox_model_with_one_covariate_and_a_new_reference(pumps):
     terms = at.dataframe[0].value
     assert all("vs oil bath" in t for t in terms["Term"])
     assert isinstance(terms, pd.DataFrame)
+
+
+def test_changing_a_covariate_does_not_recompute_the_curves(monkeypatch):
+    from app import compute
+
+    calls = []
+    original = compute.curves_by_group
+
+    def counting(frame, **kwargs):
+        calls.append(len(frame))
+        return original(frame, **kwargs)
+
+    monkeypatch.setattr(compute, "curves_by_group", counting)
+    st.cache_data.clear()
+    st.cache_resource.clear()
+    at = _open("views/curves.py")
+    assert len(calls) == 1
+    at.switch_page("views/column_roles.py").run()
+    at.multiselect(key="roles_covariates").set_value(["load_kN"]).run()
+    assert at.session_state[state.ROLES].covariates == ("load_kN",)
+    at.switch_page("views/curves.py").run()
+    assert not at.exception
+    assert len(calls) == 1
+    # Changing the group does recompute them.
+    at.switch_page("views/column_roles.py").run()
+    at.selectbox(key="roles_group").set_value("site").run()
+    at.switch_page("views/curves.py").run()
+    assert len(calls) == 2
