@@ -152,7 +152,7 @@ with st.container(border=True):
                     for v in counts["value"]
                 ],
             )
-            st.dataframe(shown, hide_index=True, width="stretch")
+            ui.table(shown, "event-values", "roles_event_counts")
 
 # --- group, covariates, strata --------------------------------------------------------------
 

@@ -136,22 +136,24 @@ with ui.guard("The comparison curves"):
         line_width=style.line_width,
         point_size=style.point_size,
     )
+    title, x_title, y_title = ui.label_inputs(
+        "compare_plot",
+        f"Survival by {group_name}",
+        f"Time ({prepared.report.time_unit})",
+        "Probability still event-free",
+    )
+    small = small.titled(title, x_title, y_title)
     drawn = compute.comparison_drawing(*key, (small.width, small.height), table)
     levels = levels_source or list(dict.fromkeys(drawn["group"]))
-    colours = charts.group_colours(levels)
     chart = charts.step_curve_chart(
         drawn,
-        small.titled(
-            f"Survival by {group_name}", f"Time ({prepared.report.time_unit})", "Survival"
-        ),
-        colours,
+        small,
+        charts.group_colours(levels),
         band=False,
         ticks=charts.nice_ticks(float(drawn["time"].max())),
         legend_title=str(group_name),
     )
-    ui.figure(
-        chart, small.titled(f"Survival by {group_name}"), "comparison-curves", "compare_curves"
-    )
+    ui.figure(chart, small, "comparison-curves", "compare_curves")
 
 # --- overall test ---------------------------------------------------------------------------
 
