@@ -91,7 +91,7 @@ def _colour(field: str, colours: dict[str, str], levels: Sequence[str], title: s
     )
 
 
-def nice_ticks(upper: float, count: int = 8) -> list[float]:
+def nice_ticks(upper: float, count: int = 10) -> list[float]:
     """Round tick positions from 0 to ``upper`` (1, 2 or 5 times a power of ten apart).
 
     Both the curve and the numbers-at-risk table use these, so their columns line up.
