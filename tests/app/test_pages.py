@@ -289,3 +289,20 @@ def test_changing_a_covariate_does_not_recompute_the_curves(monkeypatch):
     at.selectbox(key="roles_group").set_value("site").run()
     at.switch_page("views/curves.py").run()
     assert len(calls) == 2
+
+
+@pytest.mark.parametrize("demo", ["pump_bearings", "joint_trial", "dairy_herd"])
+def test_every_page_works_on_every_demo(demo):
+    at = _open()
+    at.button(key=f"import_demo_{demo}_button").click().run()
+    assert not at.exception
+    for page in (
+        "views/column_roles.py",
+        "views/curves.py",
+        "views/comparison.py",
+        "views/regression.py",
+        "views/about.py",
+    ):
+        at.switch_page(page).run()
+        assert not at.exception, (demo, page, [e.message for e in at.exception])
+        assert not at.error, (demo, page, [e.value for e in at.error])
