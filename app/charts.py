@@ -344,8 +344,8 @@ def curve_with_risk_table(
 def forest_chart(rows: pd.DataFrame, style: ChartStyle) -> alt.LayerChart:
     """Hazard ratios with intervals on a log axis, one row per term, reference rows marked.
 
-    ``rows`` has columns label, hazard_ratio, lower, upper, is_reference and p_text, in the
-    order to draw from top to bottom.
+    ``rows`` has columns label, hazard_ratio, lower, upper, is_reference and p_text (and n,
+    events for the tooltips, when known), in the order to draw from top to bottom.
     """
     data = rows.copy()
     data["label"] = data["label"].astype(str)
@@ -365,6 +365,11 @@ def forest_chart(rows: pd.DataFrame, style: ChartStyle) -> alt.LayerChart:
         alt.Tooltip("lower:Q", title="Interval from", format=".3f"),
         alt.Tooltip("upper:Q", title="Interval to", format=".3f"),
         alt.Tooltip("p_text:N", title="p"),
+    ]
+    tooltip += [
+        alt.Tooltip(f"{column}:Q", title=title, format=",")
+        for column, title in (("n", "Rows"), ("events", "Events"))
+        if column in data.columns
     ]
     one = alt.Chart(pd.DataFrame({"x": [1.0]})).mark_rule(color="#7A8585", strokeDash=[4, 3])
     height = max(len(order) * (style.font_size + 14), 80)

@@ -306,3 +306,22 @@ def test_every_page_works_on_every_demo(demo):
         at.switch_page(page).run()
         assert not at.exception, (demo, page, [e.message for e in at.exception])
         assert not at.error, (demo, page, [e.value for e in at.error])
+
+
+def test_import_options_read_the_file_again():
+    at = _open()
+    csv = b"months;died;arm\n1,5;1;a\n2,25;0;b\n3,0;1;a\n4,75;1;b\n"
+    at.session_state[state.PENDING_UPLOAD] = ("semicolons.csv", csv)
+    at.run()
+    assert not at.exception
+    first = at.session_state[state.TABLE]
+    assert list(first.frame.columns) == ["months", "died", "arm"]
+    at.toggle(key="import_show_options").set_value(True).run()
+    # Inside a form, choices take effect together when the form is submitted.
+    at.selectbox(key="import_sep").set_value("Semicolon ;")
+    at.selectbox(key="import_decimal").set_value("Point .")
+    next(b for b in at.button if b.label.startswith("Read the file again")).click().run()
+    assert not at.exception
+    again = at.session_state[state.TABLE]
+    assert again.options.decimal == "."
+    assert again.frame["months"].tolist() == ["1,5", "2,25", "3,0", "4,75"]
