@@ -106,6 +106,19 @@ def _wait_until_idle(page) -> None:
     page.wait_for_timeout(800)
 
 
+def _hover_for_tooltip(page) -> str:
+    """Move over the first chart until Vega shows a tooltip; return its text."""
+    box = page.locator('[data-testid="stVegaLiteChart"]').first.bounding_box()
+    for fx in (0.3, 0.35, 0.4, 0.45, 0.5, 0.55, 0.6, 0.65):
+        for fy in (0.2, 0.25, 0.3, 0.35, 0.4, 0.45, 0.5, 0.55):
+            page.mouse.move(box["x"] + box["width"] * fx, box["y"] + box["height"] * fy)
+            page.wait_for_timeout(120)
+            tip = page.locator("#vg-tooltip-element")
+            if tip.count() and tip.first.is_visible() and tip.first.inner_text().strip():
+                return tip.first.inner_text()
+    return ""
+
+
 def test_walk_every_page_on_the_demo(server):
     playwright = pytest.importorskip("playwright.sync_api")
     ARTIFACTS.mkdir(parents=True, exist_ok=True)
@@ -130,8 +143,11 @@ def test_walk_every_page_on_the_demo(server):
                     name = tab.lower().replace(" ", "_")
                     page.screenshot(path=str(ARTIFACTS / f"regression_{name}.png"), full_page=True)
             if slug == "curves":
-                # A curve is drawn (Vega renders into a canvas or svg inside the chart element).
+                # A curve is drawn, and hovering it shows time, estimate, interval and at risk.
                 assert page.locator('[data-testid="stVegaLiteChart"]').count() >= 1
+                tip = _hover_for_tooltip(page)
+                for word in ("Time", "Estimate", "Interval from", "Interval to", "At risk"):
+                    assert word in tip, tip
         # Presentation mode on the curves page: larger figure, still no error.
         page.get_by_role("link", name="Curves").first.click()
         page.get_by_text("Summary").first.wait_for(timeout=60_000)
