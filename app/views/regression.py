@@ -299,6 +299,7 @@ with tabs[3], ui.guard("The proportional-hazards check"):
         "a significant one may reflect a change too small to matter. The plot shows how big it is."
     )
     term_labels = [t.label for t in result.design.terms]
+    ui.remember_choice("model_ph_term", term_labels, term_labels[0])
     term = st.selectbox("Residuals of", term_labels, key="model_ph_term")
     points = compute.sample_rows(residuals[["transformed_time", term]], DOT_LIMIT).rename(
         columns={"transformed_time": "x", term: "residual"}
@@ -329,6 +330,7 @@ with tabs[4], ui.guard("The functional-form check"):
     numeric = [c for c in covariates if not is_categorical.get(c)]
     if numeric:
         table_m, bins = compute.martingale(model_key, table)
+        ui.remember_choice("model_mart_variable", numeric, numeric[0])
         variable = st.selectbox("Numeric covariate", numeric, key="model_mart_variable")
         here = table_m.loc[table_m["variable"] == variable]
         points = compute.sample_rows(here[["value", "residual_null"]], DOT_LIMIT).rename(
@@ -351,6 +353,7 @@ with tabs[4], ui.guard("The functional-form check"):
         )
     categorical_all = [c for c in covariates if is_categorical.get(c)]
     if categorical_all:
+        ui.remember_choice("model_lml_variable", categorical_all, categorical_all[0])
         variable = st.selectbox(
             "Categorical covariate (log-minus-log plot)", categorical_all, key="model_lml_variable"
         )
@@ -374,6 +377,7 @@ with tabs[4], ui.guard("The functional-form check"):
         st.caption("No covariates to check.")
 
 with tabs[5], ui.guard("The predicted curves"):
+    ui.remember_choice("model_profile_variable", covariates, covariates[0])
     variable = st.selectbox(
         "Vary",
         covariates,

@@ -325,3 +325,13 @@ def test_import_options_read_the_file_again():
     again = at.session_state[state.TABLE]
     assert again.options.decimal == "."
     assert again.frame["months"].tolist() == ["1,5", "2,25", "3,0", "4,75"]
+
+
+def test_removing_a_covariate_keeps_the_regression_page_working():
+    at = _open("views/regression.py")
+    at.selectbox(key="model_ph_term").set_value("lubricant: oil bath").run()
+    at.selectbox(key="model_profile_variable").set_value("lubricant").run()
+    at.multiselect(key="model_covariates").set_value(["load_kN"]).run()
+    assert not at.exception
+    assert not at.error
+    assert at.selectbox(key="model_ph_term").value == "load_kN"
