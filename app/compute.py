@@ -130,10 +130,15 @@ def curve_drawing(
     last_time = float(rows["time"].max()) if len(rows) else 1.0
     x_upper = float(x_max) if x_max else last_time
     if scale == HAZARD:
-        finite = rows.loc[rows["time"] <= x_upper, ["estimate", "upper"]].to_numpy(float)
-        finite = finite[np.isfinite(finite)]
-        top = float(finite.max()) if finite.size else 1.0
-        y_domain = (0.0, top * 1.05 if top > 0 else 1.0)
+        # The axis follows the estimates; a band that widens late (few at risk) is clipped at
+        # half as much again rather than flattening every curve.
+        shown = rows.loc[rows["time"] <= x_upper]
+        estimate = shown["estimate"].to_numpy(float)
+        upper = shown["upper"].to_numpy(float)
+        top = float(np.nanmax(estimate)) if estimate.size else 0.0
+        band_top = float(np.nanmax(upper[np.isfinite(upper)])) if np.isfinite(upper).any() else 0.0
+        top = max(top * 1.05, min(band_top, top * 1.5))
+        y_domain = (0.0, top if top > 0 else 1.0)
     else:
         y_domain = (0.0, 1.0)
     width, height = size_px

@@ -52,6 +52,7 @@ st.caption(
     "Hazel has pre-filled its suggestions from the column names and contents; check each one. "
     "Every page uses these roles, and a change here updates the results that depend on it."
 )
+st.markdown("[Jump to the data-quality report ↓](#data-quality-report)")
 if st.session_state.get(state.ROLES_PRESET):
     st.info(
         "This demo opens with the roles its documentation describes; Hazel's own suggestions "
