@@ -123,11 +123,11 @@ def guard(what: str) -> Iterator[None]:
     try:
         yield
     except HazelError as error:
-        st.error(f"**{what} could not be computed.** {error}", icon=":material/error:")
+        st.error(f"**{what} could not be computed.** {escape(error)}", icon=":material/error:")
     except Exception as error:  # the page must survive any failure of one block
         log.exception("unexpected failure in %s", what)
         st.error(
-            f"**{what} failed unexpectedly** ({type(error).__name__}: {error}). The other "
+            f"**{what} failed unexpectedly** ({type(error).__name__}: {escape(error)}). The other "
             "results and pages still work. Try other settings; if it keeps happening, note the "
             "steps and report it.",
             icon=":material/error:",
@@ -195,7 +195,7 @@ def sidebar(roles_page) -> None:
         try:
             report = data.prepared(table, roles).report
         except ValueError as error:
-            st.warning(f"The roles need attention: {error}", icon=":material/warning:")
+            st.warning(f"The roles need attention: {escape(error)}", icon=":material/warning:")
         else:
             st.markdown(
                 f"**Rows used** {report.rows_used:,} of {report.rows_read:,}  \n"

@@ -276,7 +276,7 @@ st.header("Data-quality report", anchor="data-quality-report")
 try:
     prepared = data.prepared(table, new_roles)
 except HazelError as error:
-    st.error(f"These roles cannot be used yet. {error}", icon=":material/error:")
+    st.error(f"These roles cannot be used yet. {ui.escape(error)}", icon=":material/error:")
     st.stop()
 
 report = prepared.report

@@ -30,7 +30,7 @@ if table is None or roles is None:
 try:
     prepared = data.prepared(table, roles)
 except HazelError as error:
-    st.error(f"The column roles need attention before groups can be compared. {error}")
+    st.error(f"The column roles need attention before groups can be compared. {ui.escape(error)}")
     st.page_link("views/column_roles.py", label="Fix the column roles", icon=":material/build:")
     st.stop()
 
@@ -50,7 +50,7 @@ source = cols[0].radio(
     "Compare the groups of",
     [ROLE, CUT],
     key="compare_source",
-    captions=[f"now: {roles.group}" if has_group else "none set on Column roles", None],
+    captions=[f"now: {ui.escape(roles.group)}" if has_group else "none set on Column roles", None],
 )
 if source == ROLE and not has_group:
     st.info("No group column is set. Choose one on the Column roles page, or cut a numeric column.")

@@ -27,7 +27,7 @@ if table is None or roles is None:
 try:
     base = data.prepared(table, roles)
 except HazelError as error:
-    st.error(f"The column roles need attention before curves can be drawn. {error}")
+    st.error(f"The column roles need attention before curves can be drawn. {ui.escape(error)}")
     st.page_link("views/column_roles.py", label="Fix the column roles", icon=":material/build:")
     st.stop()
 

@@ -26,7 +26,7 @@ with st.container(border=True):
 
 table = data.current_table(st.session_state)
 if state.LOAD_ERROR in st.session_state:
-    st.error(st.session_state[state.LOAD_ERROR], icon=":material/error:")
+    st.error(ui.escape(st.session_state[state.LOAD_ERROR]), icon=":material/error:")
 
 if table is not None:
     label = st.session_state.get(state.DATASET_LABEL, table.source_name)
@@ -159,7 +159,7 @@ if show:
                     is_demo=True,
                 )
         except (HazelError, StopIteration) as error:
-            st.error(f"The file could not be read with these options: {error}")
+            st.error(f"The file could not be read with these options: {ui.escape(error)}")
         else:
             st.rerun()
 

@@ -35,7 +35,7 @@ if table is None or roles is None:
 try:
     prepared = data.prepared(table, roles)
 except HazelError as error:
-    st.error(f"The column roles need attention before a model can be fitted. {error}")
+    st.error(f"The column roles need attention before a model can be fitted. {ui.escape(error)}")
     st.page_link("views/column_roles.py", label="Fix the column roles", icon=":material/build:")
     st.stop()
 if not roles.covariates:
@@ -71,7 +71,7 @@ with st.container(border=True):
             levels = [str(x) for x in frame[column].cat.categories]
             ui.remember_choice(f"model_reference_{column}", levels, levels[0])
             choice = cols[i % len(cols)].selectbox(
-                f"Reference level of {column}",
+                f"Reference level of {ui.escape(column)}",
                 levels,
                 key=f"model_reference_{column}",
                 help="Hazard ratios of the other levels are relative to this one.",
@@ -117,8 +117,8 @@ try:
     result = compute.cox_model(*model_key, table)
 except HazelError as error:
     st.error(
-        f"**This model cannot be fitted.** {error} Try fewer covariates, merge rare levels, "
-        "or pick another reference level.",
+        f"**This model cannot be fitted.** {ui.escape(error)} Try fewer covariates, merge rare "
+        "levels, or pick another reference level.",
         icon=":material/error:",
     )
     st.stop()
