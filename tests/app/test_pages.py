@@ -335,3 +335,17 @@ def test_removing_a_covariate_keeps_the_regression_page_working():
     assert not at.exception
     assert not at.error
     assert at.selectbox(key="model_ph_term").value == "load_kN"
+
+
+def test_column_names_are_shown_literally_not_as_markup():
+    at = _open()
+    csv = "t,e,<script>alert(1)</script>,[arm](http://x)\n" + "".join(
+        f"{i + 1},{i % 2},x,{'ab'[i % 2]}\n" for i in range(20)
+    )
+    at.session_state[state.PENDING_UPLOAD] = ("odd names.csv", csv.encode())
+    at.run()
+    at.session_state[state.ROLES] = Roles(time="t", event="e", group="[arm](http://x)")
+    at.run()
+    sidebar = "\n".join(m.value for m in at.sidebar.markdown)
+    assert "Group: \\[arm\\](http\\://x)" in sidebar
+    assert "[arm](http://x)" not in sidebar
