@@ -386,9 +386,11 @@ def _event_codes(frame, roles: Roles, notes: list[str]):
         [1 if k in events else 0 if k in censored else -2 for k in keys] + [-1], dtype=np.int8
     )
     event = lookup[codes]  # code -1 (missing) picks the last entry
-    if chosen and len(coding.censored_values) > 1:
+    cause_keys = {value_key(v) for v, _ in roles.event_causes}
+    censored_only = [v for v in coding.censored_values if value_key(v) not in cause_keys]
+    if chosen and len(censored_only) > 1:
         notes.append(
-            f"Event column {column!r}: {preview_values(coding.censored_values)} are all treated "
+            f"Event column {column!r}: {preview_values(censored_only)} are all treated "
             "as censored (not named as event values)."
         )
     if coding.assumption:

@@ -209,22 +209,30 @@ def _read_text(path, data, options: ImportOptions, name: str):
     sample = data[:SAMPLE_BYTES] if data is not None else _read_head(path, SAMPLE_BYTES)
     truncated = len(sample) == SAMPLE_BYTES
     sniffed = _sniff(sample, truncated, options, name)
-    notes = list(sniffed.notes)
     confident = sniffed.confident
     encoding = sniffed.encoding
-    frame = _parse_text(path, data, sniffed.sep, sniffed.decimal, encoding, options, notes, name)
+    parse_notes: list[str] = []
+    frame = _parse_text(
+        path, data, sniffed.sep, sniffed.decimal, encoding, options, parse_notes, name
+    )
     guessed_utf8 = options.encoding is None and encoding not in (FALLBACK_ENCODING, "latin-1")
     if guessed_utf8 and _has_undecoded(frame):
         # The sample was valid UTF-8 but a later part of the file is not.
-        encoding = FALLBACK_ENCODING
-        notes.append(
-            "Part of the file is not valid UTF-8; it was read as Windows-1252 (Latin-1). "
-            "Check accented characters."
-        )
         confident = False
-        frame = _parse_text(
-            path, data, sniffed.sep, sniffed.decimal, encoding, options, notes, name
-        )
+        for encoding in (FALLBACK_ENCODING, "latin-1"):
+            parse_notes = [
+                f"Part of the file is not valid UTF-8; it was read as {encoding}. "
+                "Check accented characters."
+            ]
+            try:
+                frame = _parse_text(
+                    path, data, sniffed.sep, sniffed.decimal, encoding, options, parse_notes, name
+                )
+                break
+            except FileReadError:
+                if encoding == "latin-1":
+                    raise
+    notes = [*sniffed.notes, *parse_notes]
     if any("malformed" in note for note in notes):
         confident = False
     used = ImportOptions(

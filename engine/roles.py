@@ -112,7 +112,9 @@ class Roles:
     unit: str = "days"
     source_unit: str | None = None
     event: str | None = None
-    event_values: tuple = ()
+    event_values: tuple = ()  # empty: recognise the coding (0/1, yes/no, dead/alive...)
+    # (value, cause name) pairs for competing risks. Without event_values the first cause is the
+    # event of interest; rows of other causes keep their name in _cause with _event 0.
     event_causes: tuple[tuple[object, str], ...] = ()
     group: str | None = None
     covariates: tuple[str, ...] = ()

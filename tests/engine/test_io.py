@@ -145,6 +145,15 @@ def test_utf8_without_bom_and_cp1252_later_in_a_large_file():
     assert not table.confident
 
 
+def test_bytes_undefined_in_cp1252_fall_back_to_latin1():
+    head = "id,name\n" + "".join(f"{i},plain\n" for i in range(SAMPLE_BYTES // 8))
+    data = head.encode("utf-8") + b"99999,x\x81y\n"
+    table = read_table(data)
+    assert table.options.encoding == "latin-1"
+    assert table.frame["name"].iloc[-1] == "x\x81y"
+    assert sum("not valid UTF-8" in note for note in table.notes) == 1
+
+
 def test_utf16_with_bom():
     data = "id\tdays\n1\t5\n2\t7\n".encode("utf-16")
     table = read_table(data)
