@@ -306,10 +306,11 @@ with ui.guard("The RMST difference"):
         unit = prepared.report.time_unit
         longer = "longer" if contrast.difference > 0 else "shorter"
         sentence = (
-            f"Up to {rmst.tau:g} {unit}, {second} was event-free for "
-            f"{ui.fmt_num(abs(contrast.difference))} {unit} {longer} on average than {first} "
-            f"(95% interval for the difference {ui.fmt_num(contrast.difference_lower)} to "
-            f"{ui.fmt_num(contrast.difference_upper)}, p {_p(contrast.difference_p)})."
+            f"Over the first {rmst.tau:g} {unit}, the average time free of the event was "
+            f"{ui.fmt_num(abs(contrast.difference))} {unit} {longer} in {second} than in {first} "
+            f"(difference {second} − {first}: {ui.fmt_num(contrast.difference)}, 95% interval "
+            f"{ui.fmt_num(contrast.difference_lower)} to {ui.fmt_num(contrast.difference_upper)}, "
+            f"p {_p(contrast.difference_p)})."
         )
         st.markdown(f"**Reading:** {ui.escape(sentence)}")
         st.caption(f"RMST {rmst.tau_rule}. " + ui.NOT_SIGNIFICANT_CAUTION)
