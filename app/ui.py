@@ -134,6 +134,24 @@ def guard(what: str) -> Iterator[None]:
         )
 
 
+def prepared_or_stop(table, roles, what: str):
+    """The prepared data for a page, or a message with a way to fix the roles, and stop."""
+    from app import data
+
+    try:
+        return data.prepared(table, roles)
+    except HazelError as error:
+        st.error(f"The column roles need attention before {what}. {escape(error)}")
+    except Exception as error:  # the page must never show a traceback
+        log.exception("preparing the data failed")
+        st.error(
+            f"The data could not be prepared ({type(error).__name__}: {escape(error)}). Check "
+            "the column roles; if it keeps happening, note the steps and report it."
+        )
+    st.page_link("views/column_roles.py", label="Fix the column roles", icon=":material/build:")
+    st.stop()
+
+
 def fmt_p(p: float | None) -> str:
     """p-values as people read them: three significant digits, or '< 0.001'."""
     if p is None or pd.isna(p):
@@ -194,7 +212,7 @@ def sidebar(roles_page) -> None:
         st.markdown("**Roles**  \n" + "  \n".join(roles_lines(roles)))
         try:
             report = data.prepared(table, roles).report
-        except ValueError as error:
+        except Exception as error:  # the sidebar must draw whatever the roles
             st.warning(f"The roles need attention: {escape(error)}", icon=":material/warning:")
         else:
             st.markdown(

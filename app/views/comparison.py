@@ -8,7 +8,6 @@ import streamlit as st
 
 from app import charts, compute, data, ui
 from engine.compare import TESTS
-from engine.errors import HazelError
 
 TEST_LABELS = {
     "logrank": "Log-rank (equal weight at every time)",
@@ -27,12 +26,7 @@ roles = data.current_roles(st.session_state)
 if table is None or roles is None:
     st.info("Open a demo or upload a file on the Data import page first.")
     st.stop()
-try:
-    prepared = data.prepared(table, roles)
-except HazelError as error:
-    st.error(f"The column roles need attention before groups can be compared. {ui.escape(error)}")
-    st.page_link("views/column_roles.py", label="Fix the column roles", icon=":material/build:")
-    st.stop()
+prepared = ui.prepared_or_stop(table, roles, "groups can be compared")
 
 frame = table.frame
 numeric = [

@@ -7,7 +7,6 @@ import pandas as pd
 import streamlit as st
 
 from app import charts, compute, data, ui
-from engine.errors import HazelError
 from engine.roles import TIME_UNITS
 
 SCALES = {
@@ -24,12 +23,7 @@ roles = data.current_roles(st.session_state)
 if table is None or roles is None:
     st.info("Open a demo or upload a file on the Data import page first.")
     st.stop()
-try:
-    base = data.prepared(table, roles)
-except HazelError as error:
-    st.error(f"The column roles need attention before curves can be drawn. {ui.escape(error)}")
-    st.page_link("views/column_roles.py", label="Fix the column roles", icon=":material/build:")
-    st.stop()
+base = ui.prepared_or_stop(table, roles, "curves can be drawn")
 
 has_group = roles.group is not None and "_group" in base.frame.columns
 row = st.columns([2, 3, 2, 2])

@@ -32,12 +32,7 @@ roles = data.current_roles(st.session_state)
 if table is None or roles is None:
     st.info("Open a demo or upload a file on the Data import page first.")
     st.stop()
-try:
-    prepared = data.prepared(table, roles)
-except HazelError as error:
-    st.error(f"The column roles need attention before a model can be fitted. {ui.escape(error)}")
-    st.page_link("views/column_roles.py", label="Fix the column roles", icon=":material/build:")
-    st.stop()
+prepared = ui.prepared_or_stop(table, roles, "a model can be fitted")
 if not roles.covariates:
     st.info("No covariates are chosen. Pick them on the Column roles page.")
     st.page_link("views/column_roles.py", label="Column roles", icon=":material/view_column:")
