@@ -29,7 +29,7 @@ def _roles(roles_text: str) -> Roles:
 
 
 def _frame(fingerprint: str, roles_text: str, table: ImportedTable) -> pd.DataFrame:
-    return data._prepared(fingerprint, roles_text, table).frame
+    return data.prepared_by_key(fingerprint, roles_text, table).frame
 
 
 def label_text(label: object) -> str:

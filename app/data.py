@@ -173,8 +173,8 @@ def with_unit(roles: Roles, unit: str) -> Roles:
     return replace(roles, unit=unit)
 
 
-@st.cache_resource(max_entries=6, show_spinner="Checking the data…")
-def _prepared(fingerprint: str, roles_text: str, _table: ImportedTable):
+@st.cache_resource(max_entries=8, show_spinner="Checking the data…")
+def prepared_by_key(fingerprint: str, roles_text: str, _table: ImportedTable):
     # Kept as a resource (not copied on each use): the prepared frame may hold a million rows,
     # and nothing downstream modifies it.
     return prepare(_table.frame, Roles.from_dict(json.loads(roles_text)))
@@ -182,4 +182,4 @@ def _prepared(fingerprint: str, roles_text: str, _table: ImportedTable):
 
 def prepared(table: ImportedTable, roles: Roles):
     """``engine.checks.prepare`` on the table in use, cached on its SHA-256 and the roles."""
-    return _prepared(table.sha256, roles_key(roles), table)
+    return prepared_by_key(table.sha256, roles_key(roles), table)

@@ -349,3 +349,25 @@ def test_column_names_are_shown_literally_not_as_markup():
     sidebar = "\n".join(m.value for m in at.sidebar.markdown)
     assert "Group: \\[arm\\](http\\://x)" in sidebar
     assert "[arm](http://x)" not in sidebar
+
+
+def test_trend_pairwise_and_rmst_equal_the_engine(pumps):
+    from engine.compare import pairwise_comparisons, trend_test
+    from engine.rmst import rmst_by_group
+
+    _, _, prepared = pumps
+    frame = prepared.frame
+    at = _open("views/comparison.py")
+    at.toggle(key="compare_trend").set_value(True).run()
+    assert not at.exception
+    trend = trend_test(frame["_time"], frame["_event"], frame["_group"])
+    text = _texts(at)
+    assert f"χ² = {trend.statistic:.2f} on 1 df" in text
+    pairs = pairwise_comparisons(frame["_time"], frame["_event"], frame["_group"]).to_frame()
+    shown = next(d.value for d in at.dataframe if "against" in d.value.columns)
+    assert list(shown["χ²"]) == list(pairs["statistic"].round(2))
+    two = frame[frame["_group"].isin(["Ashford", "Brightmoor"])]
+    group = pd.Categorical(two["_group"].astype(object), categories=["Ashford", "Brightmoor"])
+    rmst = rmst_by_group(two["_time"], two["_event"], pd.Series(group, index=two.index))
+    assert f"{rmst.contrast.difference:.3g}" in text
+    assert f"{rmst.contrast.difference_lower:.3g} to {rmst.contrast.difference_upper:.3g}" in text

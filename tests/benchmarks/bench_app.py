@@ -76,7 +76,7 @@ def main() -> None:
     def first_figure():
         st.cache_data.clear()
         st.cache_resource.clear()
-        data._prepared(table.sha256, roles_text, table)  # prepared data is in hand already
+        data.prepared_by_key(table.sha256, roles_text, table)  # prepared data is in hand already
         start = time.perf_counter()
         drawing = compute.curve_drawing(
             table.sha256,
