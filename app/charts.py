@@ -199,8 +199,8 @@ def step_curve_chart(
 
     ``curves`` has columns group, time, estimate and, when known, lower, upper, at_risk (one
     row per kept step vertex); ``censored`` has group, time, estimate. Tooltips show time,
-    estimate, interval and number at risk at each vertex. ``align_with_table`` fixes the width of the left axis to the
-    one of ``at_risk_chart`` so the two line up when stacked.
+    estimate, interval and number at risk at each vertex. ``align_with_table`` fixes the width
+    of the left axis to the one of ``at_risk_chart`` so the two line up when stacked.
     """
     levels = list(dict.fromkeys(curves["group"].astype(str)))
     data = curves.assign(group=curves["group"].astype(str))
