@@ -177,8 +177,6 @@ def profile_builder(result, covariates: list[str]) -> tuple:
                 name += " (again)"
             kept.append((name, tuple(values.items())))
     if kept:
-        shown = pd.DataFrame([{"profile": name, **dict(items)} for name, items in kept])
-        st.dataframe(shown, hide_index=True)
         if st.button("Remove all profiles", key="model_profiles_clear_button"):
             store[key] = []
             st.rerun()
