@@ -176,10 +176,9 @@ def profile_builder(result, covariates: list[str]) -> tuple:
             while name in taken:
                 name += " (again)"
             kept.append((name, tuple(values.items())))
-    if kept:
-        if st.button("Remove all profiles", key="model_profiles_clear_button"):
-            store[key] = []
-            st.rerun()
+    if kept and st.button("Remove all profiles", key="model_profiles_clear_button"):
+        store[key] = []
+        st.rerun()
     return tuple(kept)
 
 
