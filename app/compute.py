@@ -8,8 +8,6 @@ estimate. Nothing here computes a statistic: it calls the engine and reshapes it
 
 from __future__ import annotations
 
-import json
-
 import numpy as np
 import pandas as pd
 import streamlit as st
@@ -18,14 +16,9 @@ from app import charts, data, thinning
 from engine.curves import CurveSet, curves_by_group, nelson_aalen
 from engine.io import ImportedTable
 from engine.risk_table import without_missing
-from engine.roles import Roles
 from engine.summary import group_summary, numbers_at_risk
 
 SURVIVAL, INCIDENCE, HAZARD = "survival", "incidence", "hazard"
-
-
-def _roles(roles_text: str) -> Roles:
-    return Roles.from_dict(json.loads(roles_text))
 
 
 def _frame(fingerprint: str, roles_text: str, table: ImportedTable) -> pd.DataFrame:
