@@ -67,7 +67,9 @@ def _curve_rows(curve, scale: str) -> pd.DataFrame:
         estimate, lower, upper = curve.cumulative_hazard, curve.lower, curve.upper
         start = 0.0
     elif scale == INCIDENCE:
-        estimate, lower, upper = 1.0 - curve.survival, 1.0 - curve.upper, 1.0 - curve.lower
+        incidence = curve.incidence_frame()  # the engine's 1 − S and its reflected interval
+        estimate = incidence["incidence"].to_numpy()
+        lower, upper = incidence["lower"].to_numpy(), incidence["upper"].to_numpy()
         start = 0.0
     else:
         estimate, lower, upper = curve.survival, curve.lower, curve.upper
