@@ -443,7 +443,9 @@ def cox_model(
     )
 
 
-@st.cache_data(max_entries=8, show_spinner="Checking proportional hazards…")
+# Residuals have one row per event (Schoenfeld) or per row (martingale): kept as resources, not
+# copied on every rerun.
+@st.cache_resource(max_entries=8, show_spinner="Checking proportional hazards…")
 def ph_check(model_key: tuple, transform: str, _table: ImportedTable) -> tuple:
     """The PH test and the scaled Schoenfeld residuals (for the plots)."""
     from engine.cox_diagnostics import proportional_hazards_test, schoenfeld_residuals
@@ -468,7 +470,7 @@ def forest(model_key: tuple, _table: ImportedTable) -> pd.DataFrame:
     return forest_data(cox_model(*model_key, _table)).to_frame()
 
 
-@st.cache_data(max_entries=8, show_spinner="Computing residuals…")
+@st.cache_resource(max_entries=8, show_spinner="Computing residuals…")
 def martingale(model_key: tuple, _table: ImportedTable) -> tuple[pd.DataFrame, pd.DataFrame]:
     from engine.cox_diagnostics import martingale_residuals
 
