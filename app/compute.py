@@ -13,6 +13,7 @@ import pandas as pd
 import streamlit as st
 
 from app import charts, data, thinning
+from engine.columns import cut_at_quantiles
 from engine.curves import CurveSet, curves_by_group, nelson_aalen
 from engine.io import ImportedTable
 from engine.risk_table import without_missing
@@ -250,17 +251,13 @@ def comparison_frame(
     (rows without a group or stratum still in: the engine leaves them out and counts them).
 
     ``grouping`` is ("role",) for the group role, or ("cut", column, k) for a numeric column cut
-    at its quantiles into k groups of about equal size (edges from pandas' ``qcut``).
+    at its quantiles into k groups of about equal size (``engine.columns.cut_at_quantiles``).
     """
     frame = _frame(fingerprint, roles_text, table)
     out = frame[[c for c in ("_time", "_event", "_entry") if c in frame.columns]].copy()
     if grouping[0] == "cut":
         _, column, k = grouping
-        values = pd.to_numeric(table.frame.loc[frame.index, column], errors="coerce")
-        out["_group"] = pd.qcut(values, q=k, duplicates="drop", precision=3)
-        out["_group"] = out["_group"].cat.rename_categories(
-            [f"{column} {interval}" for interval in out["_group"].cat.categories]
-        )
+        out["_group"] = cut_at_quantiles(table.frame.loc[frame.index, column], k, column)
     else:
         out["_group"] = frame["_group"]
     if strata_column:

@@ -8,6 +8,7 @@ import pandas as pd
 import streamlit as st
 
 from app import data, state, ui
+from engine.columns import column_profile
 from engine.errors import HazelError
 from engine.io import DEFAULT_MISSING_TOKENS, ImportOptions, read_table
 
@@ -173,31 +174,7 @@ st.dataframe(frame.head(200), hide_index=True, height=280)
 
 @st.cache_data(max_entries=4, show_spinner=False)
 def column_overview(fingerprint: str, _frame: pd.DataFrame) -> pd.DataFrame:
-    """Type, missing count and a few example values of every column."""
-    rows = []
-    for name in _frame.columns:
-        series = _frame[name]
-        present = series.dropna()
-        rows.append(
-            {
-                "column": str(name),
-                "type": _kind(series),
-                "missing": int(series.isna().sum()),
-                "distinct": int(present.nunique()),
-                "examples": ", ".join(str(v) for v in present.unique()[:4]),
-            }
-        )
-    return pd.DataFrame(rows)
-
-
-def _kind(series: pd.Series) -> str:
-    if pd.api.types.is_bool_dtype(series):
-        return "true/false"
-    if pd.api.types.is_numeric_dtype(series):
-        return "number"
-    if pd.api.types.is_datetime64_any_dtype(series):
-        return "date"
-    return "text"
+    return column_profile(_frame)
 
 
 st.subheader("Columns", anchor=False)
