@@ -24,7 +24,7 @@ import pyarrow.csv as pa_csv
 from engine.errors import FileReadError, FileTooLargeError, preview_values
 
 DEFAULT_MISSING_TOKENS: tuple[str, ...] = ("", "NA", "N/A", ".", "-", "null", "NaN", "missing")
-DEFAULT_MAX_BYTES = 600 * 1024 * 1024
+DEFAULT_MAX_BYTES = 1024 * 1024 * 1024  # matches server.maxUploadSize (1024 MB)
 
 SEPARATORS = (",", ";", "\t", "|")
 SAMPLE_BYTES = 256 * 1024

@@ -48,3 +48,15 @@ def test_command_line_start_up_does_not_import_streamlit():
         [sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, check=True
     )
     assert out.stdout.strip() == "False"
+
+
+def test_upload_limit_matches_the_engine_limit():
+    import tomllib
+
+    from engine.io import DEFAULT_MAX_BYTES
+
+    config = tomllib.loads((ROOT / ".streamlit" / "config.toml").read_text(encoding="utf-8"))
+    assert config["server"]["maxUploadSize"] * 1024 * 1024 == DEFAULT_MAX_BYTES
+    assert config["server"]["address"] == "127.0.0.1"
+    assert config["browser"]["gatherUsageStats"] is False
+    assert config["server"]["enableXsrfProtection"] is True
