@@ -1,0 +1,346 @@
+"""The HTML report: valid HTML, nothing external, user text escaped, numbers equal to the JSON's.
+
+Data: Freireich et al. (1963) 6-MP vs placebo remission times as reproduced in Klein &
+Moeschberger (2003); the placebo group is given a hostile label to test escaping. The JSON
+sections come from the same engine functions the command line uses.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import re
+from html.parser import HTMLParser
+
+import altair as alt
+import pandas as pd
+import pytest
+
+from app.report import build_report, methods_paragraph, sanitize_svg
+from engine.checks import prepare
+from engine.io import read_table
+from engine.roles import Roles
+from engine.summary import comparison_json, curves_json
+from engine.wording import format_p, format_percent, format_ratio
+
+HOSTILE = "<script>alert(1)</script>"
+SIX_MP = [
+    "6",
+    "6",
+    "6",
+    "6+",
+    "7",
+    "9+",
+    "10",
+    "10+",
+    "11+",
+    "13",
+    "16",
+    "17+",
+    "19+",
+    "20+",
+    "22",
+    "23",
+    "25+",
+    "32+",
+    "32+",
+    "34+",
+    "35+",
+]
+PLACEBO = [
+    "1",
+    "1",
+    "2",
+    "2",
+    "3",
+    "4",
+    "4",
+    "5",
+    "5",
+    "8",
+    "8",
+    "8",
+    "8",
+    "11",
+    "11",
+    "12",
+    "12",
+    "15",
+    "17",
+    "22",
+    "23",
+]
+VOID = {"meta", "br", "hr", "img", "input", "link", "col", "area", "base", "wbr", "source"}
+
+
+def _freireich_csv(group_column: str = "arm") -> bytes:
+    rows = [f"weeks,relapse,{group_column}"]
+    rows += [f"{v.rstrip('+')},{0 if v.endswith('+') else 1},6-MP" for v in SIX_MP]
+    rows += [f"{v},1,{HOSTILE}" for v in PLACEBO]
+    return "\n".join(rows).encode("utf-8")
+
+
+@pytest.fixture(scope="module")
+def freireich():
+    table = read_table(_freireich_csv(), name="remission <b>.csv")
+    prepared = prepare(table.frame, Roles(time="weeks", event="relapse", group="arm", unit="weeks"))
+    results = {
+        "schema": 1,
+        "data": prepared.report.to_dict(),
+        "curves": curves_json(prepared.frame, times=[10, 20]),
+        "comparison": comparison_json(prepared.frame),
+        "cox": COX,
+    }
+    return table, prepared, results
+
+
+# A Cox section in the shape of the JSON contract (issue 4). The numbers are placeholders for
+# layout checks, not estimates: the report only formats what it is given.
+COX = {
+    "n": 42,
+    "events": 30,
+    "ties": "breslow",
+    "terms": [
+        {
+            "variable": HOSTILE,
+            "level": "B & C",
+            "reference": "A",
+            "coef": 1.50919,
+            "se": 0.40956,
+            "hazard_ratio": 4.52265,
+            "lower": 2.02693,
+            "upper": 10.09138,
+            "p_value": 0.000229,
+        },
+        {
+            "variable": "age",
+            "level": None,
+            "reference": None,
+            "coef": -0.00501,
+            "se": 0.0123,
+            "hazard_ratio": 0.995,
+            "lower": 0.9713,
+            "upper": 1.0193,
+            "p_value": 0.68375,
+        },
+    ],
+    "likelihood_ratio": {"statistic": 15.2112, "df": 2, "p_value": 0.000498},
+    "wald": {"statistic": 13.58, "df": 2, "p_value": 0.00112},
+    "score": {"statistic": 15.93, "df": 2, "p_value": 0.000348},
+    "concordance": 0.69012,
+    "drop_one": [{"variable": "age", "statistic": 0.1661, "df": 1, "p_value": 0.68359}],
+    "ph_check": [
+        {"variable": HOSTILE, "statistic": 0.0045, "df": 1, "p_value": 0.9466},
+        {"variable": "GLOBAL", "statistic": 0.83, "df": 2, "p_value": 0.6603},
+    ],
+    "warnings": [f"Variable {HOSTILE} has few events per parameter."],
+}
+
+SETTINGS = {
+    "curves": {"times": [10, 20], "ci_transform": "log", "confidence": 0.95},
+    "comparison": {"test": "logrank"},
+    "cox": {"ties": "breslow", "ph_transform": "rank"},
+}
+
+
+def _chart(title: str) -> alt.Chart:
+    frame = pd.DataFrame({"time": [0, 5, 10], "estimate": [1.0, 0.8, 0.5], "group": [HOSTILE] * 3})
+    return (
+        alt.Chart(frame)
+        .mark_line(interpolate="step-after")
+        .encode(x="time:Q", y="estimate:Q", color="group:N")
+        .properties(title=title, width=300, height=200)
+    )
+
+
+@pytest.fixture(scope="module")
+def report(freireich):
+    table, prepared, results = freireich
+    return build_report(
+        results,
+        SETTINGS,
+        roles=prepared.roles.to_dict() | {"covariates": [HOSTILE]},
+        title=f"Remission {HOSTILE} see https://example.invalid/x",
+        figures={"curves": _chart(f"KM {HOSTILE} http://example.invalid"), "forest": _chart("HR")},
+        fingerprint={**table.fingerprint(), "file_name": table.source_name},
+        filters=[{"filter": f"{HOSTILE} is one of 'x'", "rows": 0}],
+        warnings=["The recipe was made on 40 rows; this file has 42 rows."],
+        software={"python": "3.11.0", "lifelines": "0.30.3"},
+        generated=dt.datetime(2026, 12, 2, 9, 30, tzinfo=dt.UTC),
+    )
+
+
+class _Checker(HTMLParser):
+    """Checks that every element closes in order, and collects numeric cells."""
+
+    def __init__(self):
+        super().__init__(convert_charrefs=True)
+        self.stack: list[str] = []
+        self.errors: list[str] = []
+        self.cells: list[tuple[str, str]] = []  # (data-value, shown text)
+        self._cell: list | None = None
+        self.text: list[str] = []
+        self.headings: list[str] = []
+
+    def _check(self, tag, attrs):
+        if tag == "script":
+            self.errors.append("script element")
+        if any(name.startswith("on") for name, _ in attrs):
+            self.errors.append(f"event handler on <{tag}>")
+
+    def handle_starttag(self, tag, attrs):
+        self._check(tag, attrs)
+        if tag == "h2":
+            self.headings.append("")
+        attributes = dict(attrs)
+        if tag == "td" and "data-value" in attributes:
+            self._cell = [attributes["data-value"], ""]
+        if tag not in VOID:
+            self.stack.append(tag)
+
+    def handle_startendtag(self, tag, attrs):
+        self._check(tag, attrs)  # self-closing (SVG) elements are complete as written
+
+    def handle_endtag(self, tag):
+        if not self.stack or self.stack[-1] != tag:
+            self.errors.append(f"</{tag}> closes <{self.stack[-1] if self.stack else None}>")
+            return
+        self.stack.pop()
+        if tag == "td" and self._cell is not None:
+            self.cells.append(tuple(self._cell))
+            self._cell = None
+
+    def handle_data(self, data):
+        self.text.append(data)
+        if self._cell is not None:
+            self._cell[1] += data
+        if self.stack and self.stack[-1] == "h2":
+            self.headings[-1] += data
+
+
+@pytest.fixture(scope="module")
+def parsed(report):
+    checker = _Checker()
+    checker.feed(report)
+    checker.close()
+    return checker
+
+
+def test_report_is_well_formed_html(report, parsed):
+    assert report.startswith("<!DOCTYPE html>")
+    assert parsed.errors == []
+    assert parsed.stack == []
+
+
+def test_report_holds_no_address_and_loads_nothing(report):
+    assert "http://" not in report
+    assert "https://" not in report
+    assert not re.search(r"(?i)\b(src|href)\s*=", report)
+    assert "url(" not in report
+    assert "@import" not in report
+    assert "default-src 'none'" in report
+
+
+def test_user_text_appears_only_escaped(report, parsed):
+    assert "<script" not in report.lower()
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in report
+    assert "remission &lt;b&gt;.csv" in report
+    assert "B &amp; C" in report
+    text = "".join(parsed.text)
+    assert HOSTILE in text  # shown to the reader as the literal label
+    assert text.count(HOSTILE) >= 6  # title, roles, group rows, sentences, Cox, PH, warnings
+
+
+def test_every_section_and_the_cautions_are_present(parsed):
+    text = "".join(parsed.text)
+    assert parsed.headings == [
+        "Data",
+        "Column roles",
+        "Survival curves",
+        "Group comparison",
+        "Cox proportional-hazards model",
+        "Proportional-hazards checks",
+        "Warnings",
+        "Methods",
+    ]
+    for caution in (
+        "not decisions about an individual patient",
+        "qualified statistician",
+        "stayed on this computer",
+        "ethics and data-protection rules",
+    ):
+        assert text.count(caution) == 2  # at the top and at the end
+    assert "The recipe was made on 40 rows; this file has 42 rows." in text
+    assert "fewer than 10 events" in text  # the data check's warning for the 6-MP group
+
+
+def test_figures_are_inline_svg(report):
+    assert report.count("<svg") == 2
+    assert "<figure><svg" in report
+
+
+def test_curve_numbers_equal_the_json_numbers(freireich, parsed):
+    results = freireich[2]
+    cells = parsed.cells
+    for curve in results["curves"]:
+        for point in curve["at_times"]:
+            assert (repr(point["survival"]), format_percent(point["survival"])) in cells
+            assert (str(point["at_risk"]), str(point["at_risk"])) in cells
+    medians = {c["group"]: c["median"]["estimate"] for c in results["curves"]}
+    # Freireich: 23 weeks on 6-MP, 8 on placebo (Klein & Moeschberger 2003)
+    assert medians == {None: 12.0, "6-MP": 23.0, HOSTILE: 8.0}
+    assert ("23.0", "23.0") in cells and ("8.0", "8.0") in cells
+    text = "".join(parsed.text)
+    assert "Median survival in group 6-MP was 23.0 weeks (95% CI 13.0 to not reached)." in text
+
+
+def test_comparison_and_cox_numbers_equal_the_json_numbers(freireich, parsed):
+    comparison = freireich[2]["comparison"]
+    assert round(comparison["statistic"], 2) == 16.79  # Freireich log-rank (K&M 2003)
+    assert (repr(comparison["statistic"]), "16.79") in parsed.cells
+    assert (repr(comparison["p_value"]), "< 0.001") in parsed.cells
+    for term in COX["terms"]:
+        assert (repr(term["hazard_ratio"]), format_ratio(term["hazard_ratio"])) in parsed.cells
+        assert (repr(term["p_value"]), format_p(term["p_value"])) in parsed.cells
+    assert ("0.68375", "0.684") in parsed.cells
+    assert ("0.9466", "0.947") in parsed.cells
+    text = "".join(parsed.text)
+    assert f"The hazard ratio for {HOSTILE} B & C versus A was 4.52 (95% CI 2.03 to 10.09" in text
+    assert "Harrell's concordance: 0.690." in text
+
+
+def test_methods_follow_the_settings_actually_used(freireich):
+    results = freireich[2]
+    text = methods_paragraph(results, SETTINGS, {"python": "3.11.0", "lifelines": "0.30.3"})
+    assert "Kaplan–Meier" in text
+    assert "Pointwise 95% confidence intervals used Greenwood's variance with the log " in text
+    assert "log-rank test (1 degree of freedom)" in text
+    assert "Breslow method for tied event times" in text
+    assert "against the ranks of the event times" in text
+    assert "Python 3.11.0, lifelines 0.30.3" in text
+    other = methods_paragraph(
+        {"data": results["data"]}, {"curves": {"ci_transform": "linear", "confidence": 0.9}}, {}
+    )
+    assert "90% confidence intervals" in other and "no transform" in other
+    assert "Cox" not in other and "compared" not in other
+
+
+def test_report_without_optional_sections(freireich):
+    results = {"schema": 1, "data": freireich[2]["data"], "curves": freireich[2]["curves"][:1]}
+    text = build_report(results, {"curves": {}}, software={"python": "3.11"})
+    assert "Group comparison" not in text and "Cox" not in text
+    assert "<svg" not in text
+
+
+def test_svg_sanitiser_removes_addresses_scripts_and_handlers():
+    svg = (
+        '<?xml version="1.0"?><svg xmlns="http://www.w3.org/2000/svg" '
+        'xmlns:xlink="http://www.w3.org/1999/xlink" onload="steal()">'
+        '<image xlink:href="https://tracker.invalid/p.png" href="//cdn.invalid/x"/>'
+        "<script>alert(1)</script><text style=\"fill:url('https://x.invalid/#a')\">"
+        "see https://example.invalid</text></svg>"
+    )
+    clean = sanitize_svg(svg)
+    assert "http://" not in clean and "https://" not in clean and "//cdn" not in clean
+    assert "<script" not in clean and "onload" not in clean and "<?xml" not in clean
+    assert clean.startswith("<svg")
+    assert "see https:&#8203;//example.invalid" in clean
