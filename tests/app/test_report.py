@@ -23,52 +23,13 @@ from engine.summary import comparison_json, curves_json
 from engine.wording import format_p, format_percent, format_ratio
 
 HOSTILE = "<script>alert(1)</script>"
-SIX_MP = [
-    "6",
-    "6",
-    "6",
-    "6+",
-    "7",
-    "9+",
-    "10",
-    "10+",
-    "11+",
-    "13",
-    "16",
-    "17+",
-    "19+",
-    "20+",
-    "22",
-    "23",
-    "25+",
-    "32+",
-    "32+",
-    "34+",
-    "35+",
-]
-PLACEBO = [
-    "1",
-    "1",
-    "2",
-    "2",
-    "3",
-    "4",
-    "4",
-    "5",
-    "5",
-    "8",
-    "8",
-    "8",
-    "8",
-    "11",
-    "11",
-    "12",
-    "12",
-    "15",
-    "17",
-    "22",
-    "23",
-]
+# Remission times in weeks, "+" = censored (Klein & Moeschberger 2003, from Gehan 1965).
+# fmt: off
+SIX_MP = ["6", "6", "6", "6+", "7", "9+", "10", "10+", "11+", "13", "16", "17+", "19+", "20+",
+          "22", "23", "25+", "32+", "32+", "34+", "35+"]
+PLACEBO = ["1", "1", "2", "2", "3", "4", "4", "5", "5", "8", "8", "8", "8", "11", "11", "12",
+           "12", "15", "17", "22", "23"]
+# fmt: on
 VOID = {"meta", "br", "hr", "img", "input", "link", "col", "area", "base", "wbr", "source"}
 
 
