@@ -1,7 +1,45 @@
-"""Streamlit entry script: ``streamlit run app/hazel.py``."""
+"""Streamlit entry script: ``streamlit run app/hazel.py``.
 
-import streamlit as st
+Sets up the page, opens the bundled demo when nothing has been loaded yet, draws the sidebar that
+every page shares, and hands over to the chosen page (scripts in ``app/views/``).
+"""
 
-st.set_page_config(page_title="Hazel", layout="wide")
-st.title("Hazel")
-st.write("Exploring time-to-event data. The pages arrive with the app issue.")
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+if str(ROOT) not in sys.path:  # `streamlit run app/hazel.py` puts only app/ on the path
+    sys.path.insert(0, str(ROOT))
+
+import streamlit as st  # noqa: E402
+
+from app import data, state, ui  # noqa: E402
+
+st.set_page_config(
+    page_title="Hazel · time-to-event explorer",
+    page_icon=":material/timeline:",
+    layout="wide",
+    initial_sidebar_state="expanded",
+)
+state.keep_widget_values(st.session_state)
+data.ensure_table(st.session_state)
+
+pages = {
+    "Data": [
+        st.Page(
+            "views/data_import.py", title="Data import", icon=":material/upload_file:", default=True
+        ),
+        st.Page("views/column_roles.py", title="Column roles", icon=":material/view_column:"),
+    ],
+    "Analyses": [
+        st.Page("views/curves.py", title="Curves", icon=":material/show_chart:"),
+        st.Page("views/comparison.py", title="Group comparison", icon=":material/compare_arrows:"),
+        st.Page("views/regression.py", title="Regression", icon=":material/account_tree:"),
+    ],
+    "Help": [st.Page("views/about.py", title="About and cautions", icon=":material/info:")],
+}
+current = st.navigation(pages)
+ui.sidebar(pages["Data"][1])
+current.run()

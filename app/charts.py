@@ -1,0 +1,397 @@
+"""Every Altair chart Hazel draws.
+
+Builders take tidy frames already computed by the engine (and thinned for drawing) plus a
+``ChartStyle``, and return Altair charts; they never compute statistics. Smoothers drawn through
+residuals use Vega's own loess (``transform_loess``): a drawing aid, computed in the browser.
+Tests read the charts as data through ``chart.to_dict()``.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, replace
+
+import altair as alt
+import pandas as pd
+
+# Okabe & Ito (2008), "Color Universal Design", in an order of our own: the first colours are
+# the most distinct from each other on white and for the common colour-vision deficiencies.
+PALETTE = (
+    "#0072B2",  # blue
+    "#D55E00",  # vermillion
+    "#009E73",  # bluish green
+    "#CC79A7",  # reddish purple
+    "#E69F00",  # orange
+    "#56B4E9",  # sky blue
+    "#000000",  # black
+    "#F0E442",  # yellow: weak on white, so last
+)
+ALL_ROWS_COLOUR = "#4A4A4A"
+ALL_ROWS_LABEL = "All rows"
+FONT = "Helvetica, Arial, sans-serif"
+INK = "#1F2A2E"
+ACCENT = "#0B6E69"
+
+
+@dataclass(frozen=True)
+class ChartStyle:
+    """Size, type and line weight; ``presentation()`` gives the projector version."""
+
+    width: int = 720
+    height: int = 360
+    font_size: int = 12
+    title_size: int = 15
+    line_width: float = 2.0
+    point_size: int = 30
+    title: str = ""
+    x_title: str = ""
+    y_title: str = ""
+
+    @classmethod
+    def presentation(cls) -> ChartStyle:
+        return cls(
+            width=960, height=480, font_size=18, title_size=24, line_width=4.0, point_size=80
+        )
+
+    def titled(self, title: str = "", x_title: str = "", y_title: str = "") -> ChartStyle:
+        return replace(self, title=title, x_title=x_title, y_title=y_title)
+
+
+def group_colours(levels: Sequence[object]) -> dict[str, str]:
+    """One colour per group level, by position, so a group keeps its colour on every page."""
+    colours = {ALL_ROWS_LABEL: ALL_ROWS_COLOUR}
+    for i, level in enumerate(levels):
+        colours[str(level)] = PALETTE[i % len(PALETTE)]
+    return colours
+
+
+def _colour(field: str, colours: dict[str, str], levels: Sequence[str], title: str | None):
+    domain = [str(level) for level in levels]
+    return alt.Color(
+        f"{field}:N",
+        scale=alt.Scale(domain=domain, range=[colours.get(d, ALL_ROWS_COLOUR) for d in domain]),
+        legend=alt.Legend(title=title, orient="top", direction="horizontal")
+        if title is not None
+        else None,
+        sort=domain,
+    )
+
+
+def nice_ticks(upper: float, count: int = 6) -> list[float]:
+    """Round tick positions from 0 to ``upper`` (1, 2 or 5 times a power of ten apart).
+
+    Both the curve and the numbers-at-risk table use these, so their columns line up.
+    """
+    if not upper > 0 or not math.isfinite(upper):
+        return [0.0]
+    raw = upper / max(count - 1, 1)
+    power = 10 ** math.floor(math.log10(raw))
+    step = next(m * power for m in (1, 2, 2.5, 5, 10) if m * power >= raw)
+    n = math.floor(upper / step + 1e-9)
+    return [round(i * step, 10) for i in range(n + 1)]
+
+
+def finish(chart: alt.TopLevelMixin, style: ChartStyle) -> alt.TopLevelMixin:
+    """House look: type sizes, colours and a quiet frame, scaled by the style."""
+    return (
+        chart.configure(font=FONT)
+        .configure_view(stroke=None)
+        .configure_axis(
+            labelFontSize=style.font_size,
+            titleFontSize=style.font_size + 1,
+            labelColor=INK,
+            titleColor=INK,
+            titleFontWeight="normal",
+            gridColor="#E3E8E8",
+            domainColor="#9AA5A5",
+            tickColor="#9AA5A5",
+        )
+        .configure_legend(
+            labelFontSize=style.font_size,
+            titleFontSize=style.font_size,
+            titleFontWeight="normal",
+            symbolStrokeWidth=style.line_width,
+        )
+        .configure_title(
+            fontSize=style.title_size, anchor="start", color=INK, fontWeight="bold", offset=10
+        )
+    )
+
+
+def _title(style: ChartStyle) -> alt.TitleParams | str:
+    return alt.TitleParams(style.title) if style.title else ""
+
+
+# ---------------------------------------------------------------------------------------------
+# Step curves (survival, cumulative incidence, cumulative hazard, predicted curves)
+
+Y_AXIS_EXTENT = 120  # same left-axis width on the curve and the at-risk table keeps them aligned
+
+
+def step_curve_chart(
+    curves: pd.DataFrame,
+    style: ChartStyle,
+    colours: dict[str, str],
+    *,
+    censored: pd.DataFrame | None = None,
+    band: bool = True,
+    y_domain: tuple[float, float] = (0.0, 1.0),
+    x_max: float | None = None,
+    ticks: Sequence[float] | None = None,
+    y_format: str = ".2f",
+    legend_title: str | None = "",
+) -> alt.LayerChart:
+    """Step lines (one per ``group``) with an optional interval band and censoring marks.
+
+    ``curves`` has columns group, time, estimate, lower, upper, at_risk (one row per kept step
+    vertex); ``censored`` has group, time, estimate. Tooltips show time, estimate, interval and
+    number at risk at each vertex.
+    """
+    levels = list(dict.fromkeys(curves["group"].astype(str)))
+    data = curves.assign(group=curves["group"].astype(str))
+    x_upper = x_max if x_max is not None else float(data["time"].max() or 1.0)
+    x_axis = alt.Axis(values=list(ticks) if ticks is not None else alt.Undefined, grid=True)
+    x = alt.X(
+        "time:Q",
+        title=style.x_title or "Time",
+        scale=alt.Scale(domain=[0, x_upper], nice=False, zero=True),
+        axis=x_axis,
+    )
+    y_scale = alt.Scale(domain=list(y_domain), nice=False)
+    y_axis = alt.Axis(minExtent=Y_AXIS_EXTENT, maxExtent=Y_AXIS_EXTENT, format=y_format)
+    colour = _colour("group", colours, levels, legend_title if len(levels) > 1 else None)
+    tooltip = [
+        alt.Tooltip("group:N", title="Group"),
+        alt.Tooltip("time:Q", title="Time", format=",.4~g"),
+        alt.Tooltip("estimate:Q", title="Estimate", format=".3f"),
+        alt.Tooltip("lower:Q", title="Interval from", format=".3f"),
+        alt.Tooltip("upper:Q", title="Interval to", format=".3f"),
+        alt.Tooltip("at_risk:Q", title="At risk", format=","),
+    ]
+    base = alt.Chart(data).encode(x=x, color=colour)
+    layers = []
+    if band:
+        layers.append(
+            base.mark_area(interpolate="step-after", opacity=0.16, clip=True).encode(
+                y=alt.Y("lower:Q", scale=y_scale), y2="upper:Q"
+            )
+        )
+    layers.append(
+        base.mark_line(interpolate="step-after", strokeWidth=style.line_width, clip=True).encode(
+            y=alt.Y("estimate:Q", title=style.y_title or "Estimate", scale=y_scale, axis=y_axis)
+        )
+    )
+    layers.append(
+        base.mark_point(size=style.point_size * 3, opacity=0, clip=True).encode(
+            y="estimate:Q", tooltip=tooltip
+        )
+    )
+    if censored is not None and not censored.empty:
+        marks = censored.assign(group=censored["group"].astype(str))
+        layers.append(
+            alt.Chart(marks)
+            .mark_tick(orient="vertical", size=style.font_size * 0.7, thickness=1.4, clip=True)
+            .encode(
+                x="time:Q",
+                y="estimate:Q",
+                color=colour,
+                tooltip=[
+                    alt.Tooltip("group:N", title="Group"),
+                    alt.Tooltip("time:Q", title="Censored at", format=",.4~g"),
+                ],
+            )
+        )
+    return alt.layer(*layers).properties(
+        width=style.width, height=style.height, title=_title(style)
+    )
+
+
+def at_risk_chart(
+    table: pd.DataFrame,
+    style: ChartStyle,
+    colours: dict[str, str],
+    *,
+    x_max: float,
+    ticks: Sequence[float],
+    title: str = "Number at risk",
+) -> alt.Chart:
+    """Numbers at risk (columns group, time, at_risk) as text under the curve's own x ticks."""
+    data = table.assign(group=table["group"].astype(str))
+    levels = list(dict.fromkeys(data["group"]))
+    row_height = style.font_size + 10
+    return (
+        alt.Chart(data)
+        .mark_text(fontSize=style.font_size, fontWeight="bold")
+        .encode(
+            x=alt.X(
+                "time:Q",
+                scale=alt.Scale(domain=[0, x_max], nice=False, zero=True),
+                axis=alt.Axis(
+                    values=list(ticks),
+                    labels=False,
+                    ticks=False,
+                    domain=False,
+                    grid=False,
+                    title=None,
+                ),
+            ),
+            y=alt.Y(
+                "group:N",
+                sort=levels,
+                title=None,
+                axis=alt.Axis(
+                    minExtent=Y_AXIS_EXTENT,
+                    maxExtent=Y_AXIS_EXTENT,
+                    labelLimit=Y_AXIS_EXTENT - 10,
+                    ticks=False,
+                    domain=False,
+                ),
+            ),
+            text=alt.Text("at_risk:Q", format=","),
+            color=_colour("group", colours, levels, None),
+        )
+        .properties(
+            width=style.width,
+            height=row_height * max(len(levels), 1),
+            title=alt.TitleParams(title, fontSize=style.font_size + 1, fontWeight="normal"),
+        )
+    )
+
+
+def curve_with_risk_table(curve: alt.LayerChart, risk: alt.Chart | None) -> alt.TopLevelMixin:
+    """The curve above its numbers-at-risk table, sharing the x axis positions."""
+    if risk is None:
+        return curve
+    return alt.vconcat(curve, risk, spacing=14).resolve_scale(color="shared")
+
+
+# ---------------------------------------------------------------------------------------------
+# Regression
+
+
+def forest_chart(rows: pd.DataFrame, style: ChartStyle) -> alt.LayerChart:
+    """Hazard ratios with intervals on a log axis, one row per term, reference rows marked.
+
+    ``rows`` has columns label, hazard_ratio, lower, upper, is_reference and p_text, in the
+    order to draw from top to bottom.
+    """
+    data = rows.copy()
+    data["label"] = data["label"].astype(str)
+    order = list(data["label"])
+    finite = data.loc[~data["is_reference"], ["lower", "upper", "hazard_ratio"]]
+    finite = finite.stack()
+    finite = finite[(finite > 0) & finite.map(math.isfinite)]
+    lo = min(float(finite.min()) if len(finite) else 1.0, 1.0) / 1.25
+    hi = max(float(finite.max()) if len(finite) else 1.0, 1.0) * 1.25
+    x_scale = alt.Scale(type="log", domain=[lo, hi], nice=False)
+    y = alt.Y("label:N", sort=order, title=None, axis=alt.Axis(labelLimit=260, domain=False))
+    base = alt.Chart(data).encode(y=y)
+    terms = base.transform_filter("!datum.is_reference")
+    tooltip = [
+        alt.Tooltip("label:N", title="Term"),
+        alt.Tooltip("hazard_ratio:Q", title="Hazard ratio", format=".3f"),
+        alt.Tooltip("lower:Q", title="Interval from", format=".3f"),
+        alt.Tooltip("upper:Q", title="Interval to", format=".3f"),
+        alt.Tooltip("p_text:N", title="p"),
+    ]
+    one = alt.Chart(pd.DataFrame({"x": [1.0]})).mark_rule(color="#7A8585", strokeDash=[4, 3])
+    height = max(len(order) * (style.font_size + 14), 80)
+    return alt.layer(
+        one.encode(x=alt.X("x:Q", scale=x_scale)),
+        terms.mark_rule(color=ACCENT, strokeWidth=style.line_width).encode(
+            x=alt.X("lower:Q", scale=x_scale, title=style.x_title or "Hazard ratio (log scale)"),
+            x2="upper:Q",
+            tooltip=tooltip,
+        ),
+        terms.mark_point(
+            filled=True, shape="diamond", color=ACCENT, size=style.point_size * 3, opacity=1
+        ).encode(x=alt.X("hazard_ratio:Q", scale=x_scale), tooltip=tooltip),
+        base.transform_filter("datum.is_reference")
+        .mark_point(shape="circle", color="#7A8585", size=style.point_size * 2, filled=False)
+        .encode(x=alt.value(0), tooltip=[alt.Tooltip("label:N", title="Reference level")])
+        .encode(x=alt.X("hazard_ratio:Q", scale=x_scale)),
+    ).properties(width=style.width, height=height, title=_title(style))
+
+
+def residual_chart(
+    points: pd.DataFrame,
+    style: ChartStyle,
+    *,
+    x_title: str,
+    y_title: str,
+    x_log: bool = False,
+    zero_line: float | None = 0.0,
+) -> alt.LayerChart:
+    """Residuals (columns x, residual) as dots with a loess smoother drawn by Vega."""
+    x_scale = alt.Scale(type="log") if x_log else alt.Scale(zero=False)
+    x = alt.X("x:Q", title=style.x_title or x_title, scale=x_scale)
+    y = alt.Y("residual:Q", title=style.y_title or y_title)
+    base = alt.Chart(points).encode(x=x)
+    layers = [
+        base.mark_circle(size=style.point_size * 0.6, opacity=0.35, color="#5F6B6B").encode(
+            y=y,
+            tooltip=[
+                alt.Tooltip("x:Q", title=x_title, format=",.4~g"),
+                alt.Tooltip("residual:Q", title=y_title, format=".3f"),
+            ],
+        ),
+        base.transform_loess("x", "residual", bandwidth=0.5)
+        .mark_line(color=PALETTE[1], strokeWidth=style.line_width)
+        .encode(y="residual:Q"),
+    ]
+    if zero_line is not None:
+        layers.insert(
+            0,
+            alt.Chart(pd.DataFrame({"y": [zero_line]}))
+            .mark_rule(color="#7A8585", strokeDash=[4, 3])
+            .encode(y="y:Q"),
+        )
+    return alt.layer(*layers).properties(
+        width=style.width, height=int(style.height * 0.8), title=_title(style)
+    )
+
+
+def log_minus_log_chart(
+    lines: pd.DataFrame, style: ChartStyle, colours: dict[str, str], *, legend_title: str
+) -> alt.Chart:
+    """log(−log S) against log time per level (columns group, log_time, value): parallel lines
+    are what proportional hazards predicts."""
+    data = lines.assign(group=lines["group"].astype(str))
+    levels = list(dict.fromkeys(data["group"]))
+    return (
+        alt.Chart(data)
+        .mark_line(interpolate="step-after", strokeWidth=style.line_width)
+        .encode(
+            x=alt.X("log_time:Q", title=style.x_title or "log(time)", scale=alt.Scale(zero=False)),
+            y=alt.Y(
+                "value:Q", title=style.y_title or "log(−log survival)", scale=alt.Scale(zero=False)
+            ),
+            color=_colour("group", colours, levels, legend_title),
+            tooltip=[
+                alt.Tooltip("group:N", title=legend_title),
+                alt.Tooltip("log_time:Q", title="log(time)", format=".3f"),
+                alt.Tooltip("value:Q", title="log(−log S)", format=".3f"),
+            ],
+        )
+        .properties(width=style.width, height=int(style.height * 0.8), title=_title(style))
+    )
+
+
+def bar_count_chart(counts: pd.DataFrame, style: ChartStyle, *, x_title: str) -> alt.Chart:
+    """Counts per value (columns value, rows, is_event): which values will mean the event."""
+    return (
+        alt.Chart(counts.assign(value=counts["value"].astype(str)))
+        .mark_bar()
+        .encode(
+            y=alt.Y("value:N", title=x_title, sort=list(counts["value"].astype(str))),
+            x=alt.X("rows:Q", title="Rows"),
+            color=alt.Color(
+                "is_event:N",
+                scale=alt.Scale(domain=["event", "censored"], range=[PALETTE[1], "#9AA5A5"]),
+                legend=alt.Legend(title=None, orient="top"),
+            ),
+            tooltip=[alt.Tooltip("value:N", title="Value"), alt.Tooltip("rows:Q", format=",")],
+        )
+        .properties(width=min(style.width, 480), height=max(22 * len(counts), 60))
+    )

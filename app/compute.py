@@ -1,0 +1,394 @@
+"""Cached calls into the engine, keyed on the data's SHA-256, the roles and the settings.
+
+Large results (curves with a vertex per distinct time) are kept as resources, not copied on each
+use; what a page draws or shows (thinned vertices, small tables) is cached with
+``st.cache_data``. A display switch therefore reruns in the time it takes to draw, not to
+estimate. Nothing here computes a statistic: it calls the engine and reshapes its results.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import streamlit as st
+
+from app import charts, data, thinning
+from engine.curves import CurveSet, curves_by_group, nelson_aalen
+from engine.io import ImportedTable
+from engine.roles import Roles
+from engine.summary import group_summary, numbers_at_risk
+
+SURVIVAL, INCIDENCE, HAZARD = "survival", "incidence", "hazard"
+
+
+def _roles(roles_text: str) -> Roles:
+    return Roles.from_dict(json.loads(roles_text))
+
+
+def _frame(fingerprint: str, roles_text: str, table: ImportedTable) -> pd.DataFrame:
+    return data._prepared(fingerprint, roles_text, table).frame
+
+
+def label_text(label: object) -> str:
+    return charts.ALL_ROWS_LABEL if label is None else str(label)
+
+
+@st.cache_resource(max_entries=8, show_spinner="Estimating the curves…")
+def curve_set(
+    fingerprint: str, roles_text: str, confidence: float, transform: str, _table: ImportedTable
+) -> CurveSet:
+    frame = _frame(fingerprint, roles_text, _table)
+    return curves_by_group(frame, confidence=confidence, transform=transform)
+
+
+@st.cache_resource(max_entries=8, show_spinner="Estimating the cumulative hazard…")
+def hazard_curves(
+    fingerprint: str, roles_text: str, confidence: float, _table: ImportedTable
+) -> list:
+    """Nelson–Aalen for all rows, then per group (rows split by group, engine per part)."""
+    frame = _frame(fingerprint, roles_text, _table)
+    entry = "_entry" in frame.columns
+
+    def one(part: pd.DataFrame, label):
+        return nelson_aalen(
+            part["_time"].to_numpy(),
+            part["_event"].to_numpy(),
+            entry=part["_entry"].to_numpy() if entry else None,
+            confidence=confidence,
+            label=label,
+        )
+
+    out = [one(frame, None)]
+    if "_group" in frame.columns:
+        for label, part in frame.groupby("_group", observed=True, sort=True):
+            out.append(one(part, label))
+    return out
+
+
+def _curve_rows(curve, scale: str) -> pd.DataFrame:
+    """One drawing row per vertex, starting at time 0 (where every curve starts)."""
+    if scale == HAZARD:
+        estimate, lower, upper = curve.cumulative_hazard, curve.lower, curve.upper
+        start = 0.0
+    elif scale == INCIDENCE:
+        estimate, lower, upper = 1.0 - curve.survival, 1.0 - curve.upper, 1.0 - curve.lower
+        start = 0.0
+    else:
+        estimate, lower, upper = curve.survival, curve.lower, curve.upper
+        start = 1.0
+    time = np.asarray(curve.time, dtype=float)
+    at_risk = np.asarray(curve.at_risk)
+    prepend = time.size == 0 or time[0] > 0
+    if prepend:
+        first_at_risk = int(at_risk[0]) if at_risk.size else 0
+        time = np.concatenate([[0.0], time])
+        estimate = np.concatenate([[start], estimate])
+        lower = np.concatenate([[start], lower])
+        upper = np.concatenate([[start], upper])
+        at_risk = np.concatenate([[first_at_risk], at_risk])
+    return pd.DataFrame(
+        {
+            "group": label_text(curve.label),
+            "time": time,
+            "estimate": estimate,
+            "lower": lower,
+            "upper": upper,
+            "at_risk": at_risk,
+        }
+    )
+
+
+def _selected(curves: list, by_group: bool) -> list:
+    return curves[1:] if by_group and len(curves) > 1 else curves[:1]
+
+
+@st.cache_data(max_entries=32, show_spinner=False)
+def curve_drawing(
+    fingerprint: str,
+    roles_text: str,
+    scale: str,
+    confidence: float,
+    transform: str,
+    by_group: bool,
+    size_px: tuple[int, int],
+    x_max: float | None,
+    _table: ImportedTable,
+) -> dict:
+    """Thinned vertices and censoring marks to draw, and the axis ranges they need."""
+    if scale == HAZARD:
+        curves = hazard_curves(fingerprint, roles_text, confidence, _table)
+        censor_source = curve_set(fingerprint, roles_text, confidence, transform, _table).curves
+    else:
+        curves = curve_set(fingerprint, roles_text, confidence, transform, _table).curves
+        censor_source = curves
+    curves = _selected(list(curves), by_group)
+    censor_source = _selected(list(censor_source), by_group)
+    rows = pd.concat([_curve_rows(c, scale) for c in curves], ignore_index=True)
+    last_time = float(rows["time"].max()) if len(rows) else 1.0
+    x_upper = float(x_max) if x_max else last_time
+    if scale == HAZARD:
+        finite = rows.loc[rows["time"] <= x_upper, ["estimate", "upper"]].to_numpy(float)
+        finite = finite[np.isfinite(finite)]
+        top = float(finite.max()) if finite.size else 1.0
+        y_domain = (0.0, top * 1.05 if top > 0 else 1.0)
+    else:
+        y_domain = (0.0, 1.0)
+    width, height = size_px
+    thinned = thinning.thin_step_frame(
+        rows, ["estimate", "lower", "upper"], y_domain, height, group="group"
+    )
+    drawn_by_label = {label_text(c.label): c for c in curves}
+    marks = []
+    for curve in censor_source:
+        has = np.asarray(curve.censored) > 0
+        drawn = drawn_by_label.get(label_text(curve.label))
+        if drawn is None or not has.any():
+            continue
+        times = np.asarray(curve.time, dtype=float)[has]
+        # A censoring mark sits on the drawn curve at its time.
+        drawn_rows = _curve_rows(drawn, scale)
+        index = np.searchsorted(drawn_rows["time"].to_numpy(), times, side="right") - 1
+        marks.append(
+            pd.DataFrame(
+                {
+                    "group": label_text(curve.label),
+                    "time": times,
+                    "estimate": drawn_rows["estimate"].to_numpy()[np.clip(index, 0, None)],
+                }
+            )
+        )
+    censored = (
+        thinning.thin_points(
+            pd.concat(marks, ignore_index=True),
+            "time",
+            "estimate",
+            (0.0, x_upper),
+            y_domain,
+            (width, height),
+            group="group",
+        )
+        if marks
+        else pd.DataFrame(columns=["group", "time", "estimate"])
+    )
+    return {
+        "curves": thinned,
+        "censored": censored,
+        "y_domain": y_domain,
+        "x_upper": x_upper,
+        "last_time": last_time,
+        "vertices": len(rows),
+    }
+
+
+def full_curve_table(
+    fingerprint: str,
+    roles_text: str,
+    scale: str,
+    confidence: float,
+    transform: str,
+    table: ImportedTable,
+) -> pd.DataFrame:
+    """Every vertex with its exact values (for the CSV download), as the engine returns it."""
+    if scale == HAZARD:
+        curves = hazard_curves(fingerprint, roles_text, confidence, table)
+        return pd.concat([c.to_frame() for c in curves], ignore_index=True)
+    curves = curve_set(fingerprint, roles_text, confidence, transform, table).curves
+    if scale == INCIDENCE:
+        return pd.concat([c.incidence_frame() for c in curves], ignore_index=True)
+    return pd.concat([c.to_frame() for c in curves], ignore_index=True)
+
+
+@st.cache_data(max_entries=32, show_spinner=False)
+def at_risk_table(
+    fingerprint: str,
+    roles_text: str,
+    ticks: tuple[float, ...],
+    by_group: bool,
+    _table: ImportedTable,
+) -> pd.DataFrame:
+    frame = _frame(fingerprint, roles_text, _table)
+    group = frame["_group"] if by_group and "_group" in frame.columns else None
+    result = numbers_at_risk(
+        frame["_time"].to_numpy(),
+        frame["_event"].to_numpy(),
+        group,
+        ticks,
+        entry=frame["_entry"].to_numpy() if "_entry" in frame.columns else None,
+    ).to_frame()
+    result["group"] = result["group"].map(label_text)
+    return result
+
+
+@st.cache_data(max_entries=32, show_spinner="Summarising…")
+def summary_table(
+    fingerprint: str,
+    roles_text: str,
+    times: tuple[float, ...],
+    tau: float | None,
+    confidence: float,
+    transform: str,
+    _table: ImportedTable,
+):
+    frame = _frame(fingerprint, roles_text, _table)
+    return group_summary(frame, times, tau=tau, confidence=confidence, transform=transform)
+
+
+# --- group comparison -----------------------------------------------------------------------
+
+
+def comparison_frame(
+    fingerprint: str,
+    roles_text: str,
+    grouping: tuple,
+    strata_column: str | None,
+    table: ImportedTable,
+) -> pd.DataFrame:
+    """The prepared frame with ``_group`` set for the comparison and ``_strata`` if asked.
+
+    ``grouping`` is ("role",) for the group role, or ("cut", column, k) for a numeric column cut
+    at its quantiles into k groups of about equal size (edges from pandas' ``qcut``).
+    """
+    frame = _frame(fingerprint, roles_text, table)
+    out = frame[[c for c in ("_time", "_event", "_entry") if c in frame.columns]].copy()
+    if grouping[0] == "cut":
+        _, column, k = grouping
+        values = pd.to_numeric(table.frame.loc[frame.index, column], errors="coerce")
+        out["_group"] = pd.qcut(values, q=k, duplicates="drop", precision=3)
+        out["_group"] = out["_group"].cat.rename_categories(
+            [f"{column} {interval}" for interval in out["_group"].cat.categories]
+        )
+    else:
+        out["_group"] = frame["_group"]
+    if strata_column:
+        out["_strata"] = table.frame.loc[frame.index, strata_column].astype("category")
+    return out.loc[out["_group"].notna()]
+
+
+@st.cache_data(max_entries=32, show_spinner="Testing…")
+def comparison(
+    fingerprint: str,
+    roles_text: str,
+    grouping: tuple,
+    strata_column: str | None,
+    test: str,
+    rho: float,
+    gamma: float,
+    _table: ImportedTable,
+):
+    from engine.compare import compare_frame
+
+    frame = comparison_frame(fingerprint, roles_text, grouping, strata_column, _table)
+    return compare_frame(frame, test=test, rho=rho, gamma=gamma)
+
+
+@st.cache_data(max_entries=32, show_spinner=False)
+def trend(
+    fingerprint: str,
+    roles_text: str,
+    grouping: tuple,
+    strata_column: str | None,
+    test: str,
+    rho: float,
+    gamma: float,
+    order: tuple | None,
+    scores: tuple | None,
+    _table: ImportedTable,
+):
+    from engine.compare import trend_test
+
+    frame = comparison_frame(fingerprint, roles_text, grouping, strata_column, _table)
+    labels = list(frame["_group"].cat.categories)
+    return trend_test(
+        frame["_time"].to_numpy(),
+        frame["_event"].to_numpy(),
+        frame["_group"],
+        order=[labels[[str(x) for x in labels].index(o)] for o in order] if order else None,
+        scores=scores,
+        test=test,
+        rho=rho,
+        gamma=gamma,
+        strata=frame["_strata"] if "_strata" in frame.columns else None,
+        entry=frame["_entry"].to_numpy() if "_entry" in frame.columns else None,
+    )
+
+
+@st.cache_data(max_entries=32, show_spinner=False)
+def pairwise(
+    fingerprint: str,
+    roles_text: str,
+    grouping: tuple,
+    strata_column: str | None,
+    test: str,
+    rho: float,
+    gamma: float,
+    _table: ImportedTable,
+):
+    from engine.compare import pairwise_comparisons
+
+    frame = comparison_frame(fingerprint, roles_text, grouping, strata_column, _table)
+    return pairwise_comparisons(
+        frame["_time"].to_numpy(),
+        frame["_event"].to_numpy(),
+        frame["_group"],
+        test=test,
+        rho=rho,
+        gamma=gamma,
+        strata=frame["_strata"] if "_strata" in frame.columns else None,
+        entry=frame["_entry"].to_numpy() if "_entry" in frame.columns else None,
+    )
+
+
+@st.cache_data(max_entries=32, show_spinner=False)
+def rmst_pair(
+    fingerprint: str,
+    roles_text: str,
+    grouping: tuple,
+    pair: tuple[str, str],
+    tau: float | None,
+    confidence: float,
+    _table: ImportedTable,
+):
+    """RMST of two groups and their difference (the second minus the first)."""
+    from engine.rmst import rmst_by_group
+
+    frame = comparison_frame(fingerprint, roles_text, grouping, None, _table)
+    labels = {str(x): x for x in frame["_group"].cat.categories}
+    chosen = [labels[p] for p in pair]
+    part = frame.loc[frame["_group"].isin(chosen)]
+    group = pd.Categorical(part["_group"].astype(object), categories=chosen)
+    return rmst_by_group(
+        part["_time"].to_numpy(),
+        part["_event"].to_numpy(),
+        pd.Series(group, index=part.index),
+        tau=tau,
+        confidence=confidence,
+        entry=part["_entry"].to_numpy() if "_entry" in part.columns else None,
+    )
+
+
+@st.cache_data(max_entries=16, show_spinner=False)
+def comparison_drawing(
+    fingerprint: str,
+    roles_text: str,
+    grouping: tuple,
+    size_px: tuple[int, int],
+    _table: ImportedTable,
+) -> pd.DataFrame:
+    """Thinned Kaplan–Meier vertices of the compared groups (for the small figure)."""
+    frame = comparison_frame(fingerprint, roles_text, grouping, None, _table)
+    curves = curves_by_group(frame).curves[1:]
+    rows = pd.concat([_curve_rows(c, SURVIVAL) for c in curves], ignore_index=True)
+    return thinning.thin_step_frame(
+        rows, ["estimate", "lower", "upper"], (0.0, 1.0), size_px[1], group="group"
+    )
+
+
+@st.cache_data(max_entries=32, show_spinner=False)
+def group_levels(
+    fingerprint: str, roles_text: str, grouping: tuple, _table: ImportedTable
+) -> list[str]:
+    """Labels of the compared groups, in their display order."""
+    frame = comparison_frame(fingerprint, roles_text, grouping, None, _table)
+    return [str(x) for x in frame["_group"].cat.categories]

@@ -1,0 +1,54 @@
+"""Figure and table downloads: PNG and SVG through vl-convert, CSV safe to open in a spreadsheet.
+
+Nothing here touches streamlit, so the same functions serve the app, tests and later the report.
+"""
+
+from __future__ import annotations
+
+import re
+
+import altair as alt
+import pandas as pd
+import vl_convert
+
+# OWASP, "CSV Injection": a spreadsheet treats a cell beginning with one of these as a formula.
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def safe_cell(value: object) -> object:
+    """A text cell that cannot run as a formula; every other value unchanged.
+
+    Text beginning with = + - @ tab or carriage return gets a leading apostrophe, as OWASP advises,
+    so it shows as the text it is. Numbers (including negative ones) are never text here, so they
+    stay numbers.
+    """
+    if isinstance(value, str) and value.startswith(_FORMULA_START):
+        return "'" + value
+    return value
+
+
+def table_csv(frame: pd.DataFrame) -> bytes:
+    """UTF-8 CSV of a table with text cells and column names neutralised; numbers exact."""
+    out = frame.copy()
+    out.columns = [safe_cell(str(c)) for c in out.columns]
+    for column in out.columns:
+        series = out[column]
+        if not (pd.api.types.is_numeric_dtype(series) or pd.api.types.is_bool_dtype(series)):
+            out[column] = series.map(safe_cell)
+    return out.to_csv(index=False).encode("utf-8")
+
+
+def figure_svg(chart: alt.TopLevelMixin) -> str:
+    """The chart as a standalone SVG document."""
+    return vl_convert.vegalite_to_svg(chart.to_dict())
+
+
+def figure_png(chart: alt.TopLevelMixin, scale: float = 2.0) -> bytes:
+    """The chart as a PNG at ``scale`` times its on-screen size (2 = sharp on slides and paper)."""
+    return vl_convert.vegalite_to_png(chart.to_dict(), scale=scale)
+
+
+def file_stem(title: str, fallback: str = "hazel") -> str:
+    """A file name from a title the user may have typed: letters, digits, dashes only."""
+    stem = re.sub(r"[^A-Za-z0-9]+", "-", title).strip("-").lower()
+    return stem[:60] or fallback

@@ -1,0 +1,52 @@
+"""Every session-state key the app uses, in one place.
+
+Shared keys are plain names; a page's own widget keys carry the page prefix (``import_``,
+``roles_``, ``curves_``, ``compare_``, ``model_``). Streamlit forgets the value of a widget that
+was not drawn in the last run, so ``keep_widget_values`` (called by the entry script on every
+run) re-stores the prefixed keys: a choice made on one page is still there after visiting
+another.
+"""
+
+from __future__ import annotations
+
+from collections.abc import MutableMapping
+
+# Shared, set by code (never a widget key).
+TABLE = "shared_table"  # engine.io.ImportedTable in use
+DATASET_LABEL = "dataset_label"  # what the sidebar calls it, e.g. "Demo: pump wear trial"
+DATASET_IS_DEMO = "dataset_is_demo"
+ROLES = "shared_roles"  # engine.roles.Roles in use
+ROLES_PRESET = "shared_roles_preset"  # True when a demo's documented roles were applied
+ROLES_SUGGESTED = "shared_roles_suggested"  # engine.roles.RoleSuggestions for the table in use
+DATA_VERSION = "data_version"  # bumps when a new table is loaded: resets page widgets
+LOAD_ERROR = "load_error"  # message from the last failed import, shown on the import page
+
+# Shared widget.
+PRESENTATION = "view_presentation"
+
+# Page prefixes whose widget values survive page switches.
+PERSISTENT_PREFIXES = ("view_", "import_", "roles_", "curves_", "compare_", "model_")
+# Widgets whose value cannot be assigned (buttons, uploaders) end with one of these.
+NOT_ASSIGNABLE_SUFFIXES = ("_button", "_upload", "_download")
+
+
+def keep_widget_values(session: MutableMapping) -> None:
+    """Re-store every persistent widget value so Streamlit keeps it across page switches."""
+    for key in list(session.keys()):
+        if (
+            isinstance(key, str)
+            and key.startswith(PERSISTENT_PREFIXES)
+            and not key.endswith(NOT_ASSIGNABLE_SUFFIXES)
+        ):
+            session[key] = session[key]
+
+
+def clear_page_choices(session: MutableMapping, prefixes: tuple[str, ...]) -> None:
+    """Forget the widget values of these pages (a new table makes them meaningless)."""
+    for key in list(session.keys()):
+        if (
+            isinstance(key, str)
+            and key.startswith(prefixes)
+            and not key.endswith(NOT_ASSIGNABLE_SUFFIXES)
+        ):
+            del session[key]

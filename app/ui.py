@@ -1,0 +1,206 @@
+"""Pieces every page uses: cautions, figure and table blocks with downloads, error boundaries."""
+
+from __future__ import annotations
+
+import contextlib
+import logging
+from collections.abc import Iterator
+
+import altair as alt
+import pandas as pd
+import streamlit as st
+
+from app import charts, exports, state
+from engine.errors import HazelError
+
+log = logging.getLogger("hazel.app")
+
+CAUTIONS = (
+    "Results support research and exploration, **not decisions about an individual patient**.",
+    "Important conclusions need review by a **qualified statistician**.",
+    "Your data **stays on this computer**: nothing is uploaded anywhere and usage statistics "
+    "are switched off.",
+    "Follow your local **ethics and data-protection rules** for identifiable data.",
+)
+
+NOT_SIGNIFICANT_CAUTION = (
+    "A test that is not significant does not show that the groups are the same: "
+    "it may only mean there were too few events to see a difference."
+)
+
+
+def show_cautions() -> None:
+    st.markdown("\n".join(f"- {line}" for line in CAUTIONS))
+
+
+def escape(text: object) -> str:
+    """User text (column names, labels) shown literally in markdown (Streamlit never renders
+    raw HTML in markdown here, so markdown's own characters are the ones to neutralise)."""
+    escaped = str(text)
+    for ch in "\\`*_[]{}#|~<>$:":
+        escaped = escaped.replace(ch, "\\" + ch)
+    return escaped
+
+
+def chart_style() -> charts.ChartStyle:
+    """The style for this run: the presentation switch gives larger type and lines."""
+    if st.session_state.get(state.PRESENTATION, False):
+        return charts.ChartStyle.presentation()
+    return charts.ChartStyle()
+
+
+def label_inputs(prefix: str, title: str, x_title: str, y_title: str) -> tuple[str, str, str]:
+    """Editable title and axis labels for one figure, kept per figure under ``prefix``."""
+    with st.expander("Title and axis labels"):
+        cols = st.columns(3)
+        chosen = (
+            cols[0].text_input("Title", value=title, key=f"{prefix}_title"),
+            cols[1].text_input("Horizontal axis", value=x_title, key=f"{prefix}_xlabel"),
+            cols[2].text_input("Vertical axis", value=y_title, key=f"{prefix}_ylabel"),
+        )
+    return chosen
+
+
+def figure(chart: alt.TopLevelMixin, style: charts.ChartStyle, name: str, key: str) -> None:
+    """Draw a chart, with PNG and SVG downloads made only when asked for."""
+    finished = charts.finish(chart, style)
+    st.altair_chart(finished, theme=None)
+    stem = exports.file_stem(style.title or name, name)
+    cols = st.columns([1, 1, 6])
+    cols[0].download_button(
+        "PNG",
+        data=lambda: exports.figure_png(finished),
+        file_name=f"{stem}.png",
+        mime="image/png",
+        key=f"{key}_png_download",
+        on_click="ignore",
+        icon=":material/download:",
+        help="Picture at twice the screen size, for slides and documents.",
+    )
+    cols[1].download_button(
+        "SVG",
+        data=lambda: exports.figure_svg(finished),
+        file_name=f"{stem}.svg",
+        mime="image/svg+xml",
+        key=f"{key}_svg_download",
+        on_click="ignore",
+        icon=":material/download:",
+        help="Vector drawing that stays sharp at any size.",
+    )
+
+
+def table(
+    frame: pd.DataFrame,
+    name: str,
+    key: str,
+    *,
+    shown: pd.DataFrame | None = None,
+    column_config: dict | None = None,
+) -> None:
+    """Show a table (``shown`` may be a rounded view) and offer the exact values as CSV."""
+    st.dataframe(
+        frame if shown is None else shown,
+        hide_index=True,
+        column_config=column_config,
+        width="stretch",
+    )
+    st.download_button(
+        "CSV",
+        data=lambda: exports.table_csv(frame),
+        file_name=f"{exports.file_stem(name)}.csv",
+        mime="text/csv",
+        key=f"{key}_csv_download",
+        on_click="ignore",
+        icon=":material/download:",
+        help="Every exact value, safe to open in a spreadsheet.",
+    )
+
+
+@contextlib.contextmanager
+def guard(what: str) -> Iterator[None]:
+    """Run one analysis block; a failure shows a message here and leaves the rest of the page."""
+    try:
+        yield
+    except HazelError as error:
+        st.error(f"**{what} could not be computed.** {error}", icon=":material/error:")
+    except Exception as error:  # the page must survive any failure of one block
+        log.exception("unexpected failure in %s", what)
+        st.error(
+            f"**{what} failed unexpectedly** ({type(error).__name__}: {error}). The other "
+            "results and pages still work. Try other settings; if it keeps happening, note the "
+            "steps and report it.",
+            icon=":material/error:",
+        )
+
+
+def fmt_p(p: float | None) -> str:
+    """p-values as people read them: three significant digits, or '< 0.001'."""
+    if p is None or pd.isna(p):
+        return "—"
+    return "< 0.001" if p < 0.001 else f"{p:.3f}"
+
+
+def fmt_num(value: float | None, digits: int = 3) -> str:
+    if value is None or pd.isna(value):
+        return "—"
+    return f"{value:.{digits}g}" if abs(value) < 1e5 else f"{value:,.0f}"
+
+
+def roles_lines(roles) -> list[str]:
+    """The roles in use, one short line each, for the sidebar."""
+    if roles.time:
+        time = f"{escape(roles.time)} ({roles.source_unit or roles.unit})"
+    elif roles.start and roles.end:
+        time = f"{escape(roles.end)} − {escape(roles.start)} (in {roles.unit})"
+    else:
+        time = "not set"
+    lines = [f"Time: {time}"]
+    if roles.event:
+        values = ", ".join(escape(v) for v in roles.event_values) or "recognised coding"
+        lines.append(f"Event: {escape(roles.event)} = {values}")
+    else:
+        lines.append("Event: not set (every row counts as an event)")
+    lines.append(f"Group: {escape(roles.group) if roles.group else 'none'}")
+    if roles.covariates:
+        lines.append("Covariates: " + ", ".join(escape(c) for c in roles.covariates))
+    if roles.strata:
+        lines.append(f"Strata: {escape(roles.strata)}")
+    return lines
+
+
+def sidebar(roles_page) -> None:
+    """Dataset, roles, rows used and events, on every page."""
+    from app import data  # local: data imports the engine's checks, ui must stay light
+
+    with st.sidebar:
+        st.toggle(
+            "Presentation mode",
+            key=state.PRESENTATION,
+            help="Larger type and thicker lines, for a projector.",
+        )
+        table = data.current_table(st.session_state)
+        if table is None:
+            st.info("No data loaded yet.")
+            return
+        label = st.session_state.get(state.DATASET_LABEL, table.source_name)
+        demo = st.session_state.get(state.DATASET_IS_DEMO, False)
+        st.markdown(
+            "**Dataset**  \n"
+            + escape(label)
+            + ("  \n:orange-badge[Invented demo data]" if demo else "")
+        )
+        roles = data.current_roles(st.session_state)
+        st.markdown("**Roles**  \n" + "  \n".join(roles_lines(roles)))
+        try:
+            report = data.prepared(table, roles).report
+        except ValueError as error:
+            st.warning(f"The roles need attention: {error}", icon=":material/warning:")
+        else:
+            st.markdown(
+                f"**Rows used** {report.rows_used:,} of {report.rows_read:,}  \n"
+                f"**Events** {report.events:,} · **censored** {report.censored:,}"
+            )
+            if report.warnings:
+                st.caption(f"{len(report.warnings)} data warning(s)")
+        st.page_link(roles_page, label="Data-quality report", icon=":material/fact_check:")
+        st.caption("Data stays on this computer. For research and exploration only.")

@@ -1,0 +1,225 @@
+"""Curves: Kaplan–Meier (or cumulative incidence, or cumulative hazard) overall or by group,
+with numbers at risk under the plot and a summary table."""
+
+from __future__ import annotations
+
+import pandas as pd
+import streamlit as st
+
+from app import charts, compute, data, ui
+from engine.errors import HazelError
+from engine.roles import TIME_UNITS
+
+SCALES = {
+    "Survival probability": compute.SURVIVAL,
+    "Cumulative incidence (1 − survival)": compute.INCIDENCE,
+    "Cumulative hazard (Nelson–Aalen)": compute.HAZARD,
+}
+TRANSFORMS = {"log-log (default)": "log-log", "log": "log", "linear": "linear"}
+CONFIDENCE = {"95%": 0.95, "90%": 0.90, "99%": 0.99, "80%": 0.80}
+
+st.title("Curves", anchor=False)
+table = data.current_table(st.session_state)
+roles = data.current_roles(st.session_state)
+if table is None or roles is None:
+    st.info("Open a demo or upload a file on the Data import page first.")
+    st.stop()
+try:
+    base = data.prepared(table, roles)
+except HazelError as error:
+    st.error(f"The column roles need attention before curves can be drawn. {error}")
+    st.page_link("views/column_roles.py", label="Fix the column roles", icon=":material/build:")
+    st.stop()
+
+has_group = roles.group is not None and "_group" in base.frame.columns
+row = st.columns([2, 3, 2, 2])
+by_group = (
+    row[0].segmented_control(
+        "Curves for",
+        ["All rows", "Each group"],
+        default="Each group" if has_group else "All rows",
+        key="curves_for",
+        disabled=not has_group,
+        help=None if has_group else "Choose a group column on the Column roles page.",
+    )
+    == "Each group"
+    and has_group
+)
+scale_label = row[1].selectbox("Show", list(SCALES), key="curves_scale")
+scale = SCALES[scale_label]
+unit = row[2].selectbox(
+    "Time unit",
+    list(TIME_UNITS),
+    index=list(TIME_UNITS).index(base.report.time_unit),
+    key="curves_unit",
+)
+x_limit = row[3].number_input(
+    f"Show up to time ({unit})",
+    min_value=0.0,
+    value=0.0,
+    step=1.0,
+    key="curves_xmax",
+    help="0 shows the whole follow-up.",
+)
+toggles = st.columns(4)
+band = toggles[0].toggle("Interval band", value=True, key="curves_band")
+censor = toggles[1].toggle("Censoring marks", value=True, key="curves_censor")
+risk = toggles[2].toggle("Numbers at risk", value=True, key="curves_risk")
+with st.expander("Estimation settings"):
+    cols = st.columns(2)
+    confidence = CONFIDENCE[
+        cols[0].selectbox("Confidence level", list(CONFIDENCE), key="curves_conf")
+    ]
+    transform = TRANSFORMS[
+        cols[1].selectbox(
+            "Interval transform (survival)",
+            list(TRANSFORMS),
+            key="curves_transform",
+            help="log-log keeps the interval inside 0 to 1 and behaves well in small samples.",
+        )
+    ]
+
+shown_roles = data.with_unit(roles, unit) if unit != base.report.time_unit else roles
+roles_text = data.roles_key(shown_roles)
+style = ui.chart_style()
+group_label = roles.group if by_group else None
+default_title = {
+    compute.SURVIVAL: "Survival",
+    compute.INCIDENCE: "Cumulative incidence",
+    compute.HAZARD: "Cumulative hazard",
+}[scale] + (f" by {group_label}" if group_label else ", all rows")
+y_default = {
+    compute.SURVIVAL: "Probability still event-free",
+    compute.INCIDENCE: "Probability of the event by then",
+    compute.HAZARD: "Cumulative hazard",
+}[scale]
+title, x_title, y_title = ui.label_inputs("curves", default_title, f"Time ({unit})", y_default)
+style = style.titled(title, x_title, y_title)
+
+with ui.guard("The curves"):
+    drawing = compute.curve_drawing(
+        table.sha256,
+        roles_text,
+        scale,
+        confidence,
+        transform,
+        by_group,
+        (style.width, style.height),
+        x_limit or None,
+        table,
+    )
+    levels = list(base.frame["_group"].cat.categories) if has_group else []
+    colours = charts.group_colours(levels)
+    ticks = charts.nice_ticks(drawing["x_upper"])
+    chart = charts.step_curve_chart(
+        drawing["curves"],
+        style,
+        colours,
+        censored=drawing["censored"] if censor else None,
+        band=band,
+        y_domain=drawing["y_domain"],
+        x_max=drawing["x_upper"],
+        ticks=ticks,
+        y_format=".2f" if scale != compute.HAZARD else ".2~f",
+        legend_title=str(group_label) if group_label else None,
+    )
+    risk_chart = None
+    if risk:
+        numbers = compute.at_risk_table(table.sha256, roles_text, tuple(ticks), by_group, table)
+        risk_chart = charts.at_risk_chart(
+            numbers.rename(columns={"tick": "time"}),
+            style,
+            colours,
+            x_max=drawing["x_upper"],
+            ticks=ticks,
+        )
+    ui.figure(charts.curve_with_risk_table(chart, risk_chart), style, "curves", "curves_figure")
+    if drawing["vertices"] > len(drawing["curves"]):
+        st.caption(
+            f"Drawn with {len(drawing['curves']):,} of {drawing['vertices']:,} step vertices: "
+            "the others would move the line by less than a pixel. Downloads below keep every "
+            "vertex."
+        )
+    with st.expander("Every vertex of the curves (exact values)"):
+        if st.toggle("Show the table", key="curves_show_vertices"):
+            full = compute.full_curve_table(
+                table.sha256, roles_text, scale, confidence, transform, table
+            )
+            ui.table(full, f"{scale}-curve-values", "curves_vertices")
+
+# --- summary --------------------------------------------------------------------------------
+
+st.subheader("Summary", anchor=False)
+cols = st.columns(2)
+times_text = cols[0].text_input(
+    f"Survival at times ({unit}), separated by commas",
+    key="curves_times",
+    placeholder="e.g. 12, 24, 36",
+)
+tau_value = cols[1].number_input(
+    f"RMST horizon τ ({unit}), 0 = automatic",
+    min_value=0.0,
+    value=0.0,
+    key="curves_tau",
+    help="Restricted mean survival time: the average event-free time up to τ. Automatic: the "
+    "smallest of the groups' largest observed times.",
+)
+
+
+def parse_times(text: str) -> tuple[float, ...]:
+    parts = [p for p in text.replace(";", ",").split(",") if p.strip()]
+    return tuple(sorted({float(p) for p in parts}))
+
+
+def interval(estimate, lower, upper, digits: int = 3) -> str:
+    if estimate is None or pd.isna(estimate):
+        return "not reached"
+    inner = (
+        f" ({ui.fmt_num(lower, digits)} to {ui.fmt_num(upper, digits)})"
+        if (lower is not None and not pd.isna(lower)) or (upper is not None and not pd.isna(upper))
+        else ""
+    )
+    return f"{ui.fmt_num(estimate, digits)}{inner}"
+
+
+try:
+    times = parse_times(times_text)
+except ValueError:
+    st.error("Times must be numbers separated by commas, for example 12, 24, 36.")
+    times = ()
+
+with ui.guard("The summary table"):
+    summary = compute.summary_table(
+        table.sha256, roles_text, times, tau_value or None, confidence, transform, table
+    )
+    frame = summary.to_frame()
+    frame["group"] = frame["group"].map(compute.label_text)
+    shown = pd.DataFrame(
+        {
+            "Group": frame["group"],
+            "n": frame["n"],
+            "Events": frame["events"],
+            "Censored": frame["censored"],
+            f"Median ({unit})": [
+                interval(e, lo, hi)
+                for e, lo, hi in frame[["median", "median_lower", "median_upper"]].itertuples(
+                    index=False
+                )
+            ],
+        }
+    )
+    for t in summary.times:
+        key = f"survival_{t:g}"
+        shown[f"Survival at {t:g}"] = [
+            interval(e, lo, hi)
+            for e, lo, hi in frame[[key, f"{key}_lower", f"{key}_upper"]].itertuples(index=False)
+        ]
+    shown[f"RMST to {summary.tau:g} ({unit})"] = [
+        interval(e, lo, hi)
+        for e, lo, hi in frame[["rmst", "rmst_lower", "rmst_upper"]].itertuples(index=False)
+    ]
+    ui.table(frame, "curve-summary", "curves_summary", shown=shown)
+    st.caption(
+        f"Intervals: {int(confidence * 100)}%, {summary.transform} transform; medians by "
+        f"{summary.quantile_method}. RMST {summary.tau_rule}."
+    )

@@ -1,0 +1,203 @@
+"""Data import: open a bundled demo or upload a file; preview, column types, missing counts."""
+
+from __future__ import annotations
+
+import hashlib
+
+import pandas as pd
+import streamlit as st
+
+from app import data, state, ui
+from engine.errors import HazelError
+from engine.io import DEFAULT_MISSING_TOKENS, ImportOptions, read_table
+
+UPLOAD_BYTES = "import_bytes"  # the last uploaded file, kept to re-read with other options
+UPLOAD_NAME = "import_name"
+UPLOAD_DIGEST = "import_digest"
+SEPARATORS = {"Detect": None, "Comma ,": ",", "Semicolon ;": ";", "Tab": "\t", "Pipe |": "|"}
+DECIMALS = {"Detect": None, "Point .": ".", "Comma ,": ","}
+ENCODINGS = {"Detect": None, "UTF-8": "utf-8", "Windows (cp1252)": "cp1252", "Latin-1": "latin-1"}
+
+st.title("Hazel", anchor=False)
+st.markdown("##### Explore time-to-event data: curves, group comparisons and Cox models")
+with st.container(border=True):
+    st.markdown("**Before you start**")
+    ui.show_cautions()
+
+table = data.current_table(st.session_state)
+if state.LOAD_ERROR in st.session_state:
+    st.error(st.session_state[state.LOAD_ERROR], icon=":material/error:")
+
+if table is not None:
+    label = st.session_state.get(state.DATASET_LABEL, table.source_name)
+    if st.session_state.get(state.DATASET_IS_DEMO):
+        st.info(
+            f"You are looking at **{ui.escape(label)}**, invented data bundled with Hazel so that "
+            "every page has something to show. Open another demo or upload your own file below.",
+            icon=":material/science:",
+        )
+    else:
+        st.success(f"In use: **{ui.escape(label)}**", icon=":material/check_circle:")
+
+left, right = st.columns(2, gap="large")
+with left:
+    st.subheader("Upload your file", anchor=False)
+    upload = st.file_uploader(
+        "CSV, TSV, Excel (.xlsx) or Parquet",
+        type=["csv", "tsv", "txt", "xlsx", "parquet"],
+        key="import_file_upload",
+        help="The file is read on this computer and never sent anywhere.",
+    )
+    if upload is not None:
+        content = upload.getvalue()
+        digest = hashlib.sha256(content).hexdigest()
+        if st.session_state.get(UPLOAD_DIGEST) != digest:
+            st.session_state[UPLOAD_DIGEST] = digest
+            try:
+                data.open_upload(st.session_state, content, upload.name)
+            except HazelError as error:
+                st.session_state[state.LOAD_ERROR] = (
+                    f"{upload.name} could not be read: {error} The data in use has not changed."
+                )
+            else:
+                st.session_state[UPLOAD_BYTES] = content
+                st.session_state[UPLOAD_NAME] = upload.name
+            st.rerun()
+
+with right:
+    st.subheader("Or open a demo dataset", anchor=False)
+    demos = data.demo_files()
+    if not demos:
+        st.caption("No demo datasets are bundled with this copy.")
+    for path in demos:
+        if st.button(
+            data.demo_label(path),
+            key=f"import_demo_{path.stem}_button",
+            icon=":material/dataset:",
+            width="stretch",
+            help=data.demo_description(path) or None,
+        ):
+            try:
+                data.open_demo(st.session_state, path)
+            except HazelError as error:
+                st.session_state[state.LOAD_ERROR] = f"The demo could not be opened: {error}"
+            st.session_state.pop(UPLOAD_BYTES, None)
+            st.rerun()
+
+table = data.current_table(st.session_state)
+if table is None:
+    st.stop()
+
+# --- import options -------------------------------------------------------------------------
+
+st.divider()
+unsure = not table.confident
+for note in table.notes:
+    st.caption(f"ℹ︎ {ui.escape(note)}")
+show = st.toggle(
+    "Show import options",
+    value=unsure,
+    key="import_show_options",
+    help="Separator, decimal mark, encoding, sheet and missing-value markers.",
+)
+if unsure:
+    st.warning(
+        "Hazel was not sure how to read this file. Check the preview below, and change the "
+        "import options if columns look wrong.",
+        icon=":material/help:",
+    )
+if show:
+    used = table.options
+    with st.form("import_options_form"):
+        cols = st.columns(4)
+        sep = cols[0].selectbox("Separator", list(SEPARATORS), key="import_sep")
+        decimal = cols[1].selectbox("Decimal mark", list(DECIMALS), key="import_decimal")
+        encoding = cols[2].selectbox("Encoding", list(ENCODINGS), key="import_encoding")
+        sheet = cols[3].text_input(
+            "Excel sheet (name)", key="import_sheet", help="Empty = the first sheet."
+        )
+        missing = st.text_input(
+            "Values that mean 'missing' (separated by spaces)",
+            value=" ".join(t for t in DEFAULT_MISSING_TOKENS if t),
+            key="import_missing",
+            help="Empty cells always count as missing.",
+        )
+        st.caption(
+            f"Used for this file: separator {used.sep!r}, decimal mark {used.decimal!r}, "
+            f"encoding {used.encoding!r}" + (f", sheet {used.sheet!r}" if used.sheet else "")
+        )
+        reread = st.form_submit_button("Read the file again with these options")
+    if reread:
+        options = ImportOptions(
+            sep=SEPARATORS[sep],
+            decimal=DECIMALS[decimal],
+            encoding=ENCODINGS[encoding],
+            sheet=sheet.strip() or None,
+            missing_tokens=("", *missing.split()),
+        )
+        try:
+            if st.session_state.get(UPLOAD_BYTES) is not None:
+                data.open_upload(
+                    st.session_state,
+                    st.session_state[UPLOAD_BYTES],
+                    st.session_state[UPLOAD_NAME],
+                    options,
+                )
+            else:
+                demo = next(p for p in data.demo_files() if p.name == table.source_name)
+                fresh = read_table(demo, options)
+                data.install_table(
+                    st.session_state,
+                    fresh,
+                    st.session_state.get(state.DATASET_LABEL, demo.name),
+                    is_demo=True,
+                )
+        except (HazelError, StopIteration) as error:
+            st.error(f"The file could not be read with these options: {error}")
+        else:
+            st.rerun()
+
+# --- preview --------------------------------------------------------------------------------
+
+st.subheader("Preview", anchor=False)
+frame = table.frame
+st.caption(f"{len(frame):,} rows × {frame.shape[1]} columns · showing the first 200 rows")
+st.dataframe(frame.head(200), hide_index=True, height=280)
+
+
+@st.cache_data(max_entries=4, show_spinner=False)
+def column_overview(fingerprint: str, _frame: pd.DataFrame) -> pd.DataFrame:
+    """Type, missing count and a few example values of every column."""
+    rows = []
+    for name in _frame.columns:
+        series = _frame[name]
+        present = series.dropna()
+        rows.append(
+            {
+                "column": str(name),
+                "type": _kind(series),
+                "missing": int(series.isna().sum()),
+                "distinct": int(present.nunique()),
+                "examples": ", ".join(str(v) for v in present.unique()[:4]),
+            }
+        )
+    return pd.DataFrame(rows)
+
+
+def _kind(series: pd.Series) -> str:
+    if pd.api.types.is_bool_dtype(series):
+        return "true/false"
+    if pd.api.types.is_numeric_dtype(series):
+        return "number"
+    if pd.api.types.is_datetime64_any_dtype(series):
+        return "date"
+    return "text"
+
+
+st.subheader("Columns", anchor=False)
+ui.table(column_overview(table.sha256, frame), "columns", "import_columns")
+st.page_link(
+    "views/column_roles.py",
+    label="Next: say which column is which",
+    icon=":material/arrow_forward:",
+)

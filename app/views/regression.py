@@ -1,0 +1,5 @@
+"""Placeholder."""
+
+import streamlit as st
+
+st.title("regression")

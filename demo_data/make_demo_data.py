@@ -1,0 +1,130 @@
+"""Rebuild the invented demo datasets: ``python demo_data/make_demo_data.py``.
+
+Every scenario is made up; the numbers come from a seeded generator, not from any real study.
+The columns, units and codings are documented in demo_data/README.md.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+HERE = Path(__file__).resolve().parent
+SEED = 20261202
+
+
+def joint_trial(rng: np.random.Generator, n: int = 420) -> pd.DataFrame:
+    """Fictional veterinary trial: two joint supplements for dogs; time to lameness relapse."""
+    arm = rng.choice(["Formula A", "Formula B"], size=n)
+    breed_size = rng.choice(["small", "medium", "large", "giant"], size=n, p=[0.2, 0.35, 0.3, 0.15])
+    weight = {"small": 8, "medium": 18, "large": 32, "giant": 55}
+    weight_kg = np.round([rng.normal(weight[b], weight[b] * 0.15) for b in breed_size], 1)
+    age_years = np.round(rng.uniform(2, 13, n), 1)
+    log_hazard = (
+        -6.3 + 0.45 * (arm == "Formula A") + 0.08 * (age_years - 7) + 0.012 * (weight_kg - 25)
+    )
+    relapse_days = rng.exponential(1 / np.exp(log_hazard))
+    enrolled = pd.Timestamp("2024-03-01") + pd.to_timedelta(rng.integers(0, 270, n), unit="D")
+    study_end = pd.Timestamp("2025-12-31")
+    admin_days = (study_end - enrolled).days.to_numpy()
+    lost_days = rng.exponential(2500, n)
+    days = np.minimum.reduce([relapse_days, admin_days, lost_days]).astype(int) + 1
+    outcome = np.where(
+        relapse_days <= np.minimum(admin_days, lost_days),
+        "relapsed",
+        np.where(lost_days < admin_days, "lost to follow-up", "event-free"),
+    )
+    last_visit = enrolled + pd.to_timedelta(days, unit="D")
+    frame = pd.DataFrame(
+        {
+            "dog_id": [f"D{i:04d}" for i in range(1, n + 1)],
+            "clinic": rng.choice(["Riverside", "Hilltop", "Old Mill"], size=n),
+            "arm": arm,
+            "breed_size": breed_size,
+            "weight_kg": weight_kg,
+            "age_years": age_years,
+            "enrolled": enrolled.strftime("%d/%m/%Y"),
+            "last_visit": last_visit.strftime("%d/%m/%Y"),
+            "outcome": outcome,
+        }
+    )
+    # A few records as they arrive from clinics: missing visit dates and weights.
+    frame.loc[rng.choice(n, 3, replace=False), "last_visit"] = ""
+    frame.loc[rng.choice(n, 2, replace=False), "weight_kg"] = np.nan
+    return frame
+
+
+def pump_bearings(rng: np.random.Generator, n: int = 1500) -> pd.DataFrame:
+    """Invented field data: bearings from four suppliers in water pumps; months to failure."""
+    suppliers = np.array(["Ashford", "Brightmoor", "Kestrel", "Northwind"])
+    supplier = rng.choice(suppliers, size=n, p=[0.3, 0.25, 0.25, 0.2])
+    supplier_effect = {"Ashford": 0.0, "Brightmoor": 0.35, "Kestrel": -0.4, "Northwind": 0.7}
+    lubricant = rng.choice(["grease", "oil bath", "dry film"], size=n, p=[0.5, 0.35, 0.15])
+    lube_effect = {"grease": 0.0, "oil bath": -0.3, "dry film": 0.5}
+    load_kn = np.round(rng.gamma(6, 2.0, n), 1)
+    temperature_c = np.round(rng.normal(55, 8, n), 1)
+    site = rng.choice(["north plant", "south plant", "harbour"], size=n)
+    linear = (
+        np.array([supplier_effect[s] for s in supplier])
+        + np.array([lube_effect[x] for x in lubricant])
+        + 0.05 * (load_kn - 12)
+        + 0.02 * (temperature_c - 55)
+    )
+    shape = 1.4
+    scale = 48 * np.exp(-linear / shape)
+    failure = scale * rng.weibull(shape, n)
+    installed_ago = rng.uniform(6, 72, n)  # months between installation and the data pull
+    months = np.round(np.minimum(failure, installed_ago), 2)
+    frame = pd.DataFrame(
+        {
+            "bearing_serial": [f"BR-{100000 + i}" for i in range(n)],
+            "supplier": supplier,
+            "lubricant": lubricant,
+            "site": site,
+            "load_kN": load_kn,
+            "temperature_C": temperature_c,
+            "months_in_service": months,
+            "failed": (failure <= installed_ago).astype(int),
+        }
+    )
+    for column, share in (("load_kN", 0.03), ("temperature_C", 0.05), ("lubricant", 0.02)):
+        frame.loc[rng.random(n) < share, column] = None
+    return frame
+
+
+def dairy_herd(rng: np.random.Generator, n: int = 900) -> pd.DataFrame:
+    """Invented dairy herd records: weeks from first calving until a cow is sold or dies."""
+    farm = rng.choice(["Meadowbank", "Clayfield", "Westbrook"], size=n)
+    housing = rng.choice(["free stall", "straw yard"], size=n, p=[0.6, 0.4])
+    first_calving_age_months = np.round(rng.normal(26, 2.5, n), 1)
+    farm_sale = {"Meadowbank": 1.0, "Clayfield": 1.4, "Westbrook": 0.8}
+    sale_rate = np.array([farm_sale[f] for f in farm]) / 150
+    death_rate = np.where(housing == "straw yard", 1 / 500, 1 / 800)
+    sold = rng.exponential(1 / sale_rate)
+    died = rng.exponential(1 / death_rate)
+    follow = rng.uniform(20, 260, n)
+    weeks = np.minimum.reduce([sold, died, follow])
+    status = np.where(weeks == sold, "sold", np.where(weeks == died, "died", "in herd"))
+    return pd.DataFrame(
+        {
+            "cow_id": np.arange(1, n + 1),
+            "farm": farm,
+            "housing": housing,
+            "first_calving_age_months": first_calving_age_months,
+            "weeks": np.round(weeks, 1),
+            "status": status,
+        }
+    )
+
+
+def main() -> None:
+    rng = np.random.default_rng(SEED)
+    joint_trial(rng).to_csv(HERE / "joint_trial.csv", index=False)
+    pump_bearings(rng).to_csv(HERE / "pump_bearings.csv", index=False)
+    dairy_herd(rng).to_csv(HERE / "dairy_herd.csv", index=False)
+
+
+if __name__ == "__main__":
+    main()
