@@ -83,6 +83,8 @@ th, td { padding: .25rem .6rem; border-bottom: 1px solid var(--rule); text-align
          vertical-align: top; }
 th { font-weight: 600; border-bottom: 2px solid var(--ink); }
 td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
+td.ci { white-space: nowrap; }
+.wide { overflow-x: auto; }
 figure { margin: .5rem 0 1rem; overflow-x: auto; }
 figure svg { max-width: 100%; height: auto; }
 figcaption { color: var(--muted); font-size: .85rem; }
@@ -121,7 +123,10 @@ def _table(headers: Sequence[str], rows: Iterable[Sequence[str]], caption: str =
     head = "".join(f"<th>{escape(h)}</th>" for h in headers)
     body = "".join(f"<tr>{''.join(r)}</tr>" for r in rows)
     cap = f"<caption>{escape(caption)}</caption>" if caption else ""
-    return f"<table>{cap}<thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+    return (
+        f'<div class="wide"><table>{cap}<thead><tr>{head}</tr></thead>'
+        f"<tbody>{body}</tbody></table></div>"
+    )
 
 
 def _list(items: Iterable[str], css: str = "") -> str:
@@ -241,8 +246,9 @@ def _roles_section(roles: Mapping | None) -> str:
     return "<h2>Column roles</h2>\n" + _table(["Role", "Column or value"], rows)
 
 
-def _interval_text(lower, upper, fmt) -> str:
-    return f"{fmt(lower)} to {fmt(upper)}"
+def _interval(lower, upper, fmt) -> str:
+    """An interval cell, kept on one line."""
+    return f'<td class="ci">{escape(fmt(lower))} to {escape(fmt(upper))}</td>'
 
 
 def _curves_section(curves: Sequence[Mapping], unit: str, confidence: float, figure) -> str:
@@ -265,12 +271,8 @@ def _curves_section(curves: Sequence[Mapping], unit: str, confidence: float, fig
             _num(c["events"], f"{c['events']:,}"),
             _num(c["n"] - c["events"], f"{c['n'] - c['events']:,}"),
             _num(median["estimate"], format_number(median["estimate"], missing=NOT_REACHED)),
-            _cell(
-                _interval_text(
-                    median["lower"],
-                    median["upper"],
-                    lambda v: format_number(v, missing=NOT_REACHED),
-                )
+            _interval(
+                median["lower"], median["upper"], lambda v: format_number(v, missing=NOT_REACHED)
             ),
         ]
         group = None if c["group"] is None else str(c["group"])
@@ -282,7 +284,7 @@ def _curves_section(curves: Sequence[Mapping], unit: str, confidence: float, fig
         for point in c.get("at_times", []):
             row += [
                 _num(point["survival"], format_percent(point["survival"])),
-                _cell(_interval_text(point["lower"], point["upper"], format_percent)),
+                _interval(point["lower"], point["upper"], format_percent),
                 _num(point["at_risk"], f"{point['at_risk']:,}"),
             ]
             sentences.append(
@@ -301,7 +303,7 @@ def _curves_section(curves: Sequence[Mapping], unit: str, confidence: float, fig
             rmst = c.get("rmst") or {}
             row += [
                 _num(rmst.get("estimate"), format_number(rmst.get("estimate"))),
-                _cell(_interval_text(rmst.get("lower"), rmst.get("upper"), format_number)),
+                _interval(rmst.get("lower"), rmst.get("upper"), format_number),
             ]
         rows.append(row)
     parts = [
@@ -393,7 +395,7 @@ def _cox_section(cox: Mapping | None, confidence: float, forest) -> str:
                 _num(term["coef"], format_number(term["coef"], 3)),
                 _num(term["se"], format_number(term["se"], 3)),
                 _num(term["hazard_ratio"], format_ratio(term["hazard_ratio"])),
-                _cell(_interval_text(term["lower"], term["upper"], format_ratio)),
+                _interval(term["lower"], term["upper"], format_ratio),
                 _num(term["p_value"], format_p(term["p_value"])),
             ]
         )
