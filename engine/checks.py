@@ -380,7 +380,7 @@ def _event_codes(frame, roles: Roles, notes: list[str]):
         names = {value_key(v): name for v, name in roles.event_causes}
         cause_lookup = np.array([names.get(k) for k in keys] + [None], dtype=object)
         cause = cause_lookup[codes]
-        cause[event != 1] = None
+        cause[event < 0] = None  # competing causes keep their name with _event == 0
         missing_cause = (event == 1) & pd.isna(cause)
         cause[missing_cause] = "event"
     return event, cause, coding

@@ -15,7 +15,7 @@ Kaplan–Meier of the stratum.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from itertools import combinations
 
 import numpy as np
@@ -24,7 +24,7 @@ from scipy.stats import chi2
 
 from engine.errors import AnalysisError
 from engine.json_values import json_float, json_label
-from engine.risk_table import RiskTable, build_risk_table, group_codes
+from engine.risk_table import RiskTable, build_risk_table, group_codes, without_missing
 
 TESTS = ("logrank", "gehan-breslow", "tarone-ware", "peto-peto", "fleming-harrington")
 
@@ -115,6 +115,7 @@ class ComparisonResult:
     n_strata: int | None = None
     rho: float = 0.0
     gamma: float = 0.0
+    rows_excluded: int = 0  # rows left out for a missing group or stratum
 
     def to_frame(self) -> pd.DataFrame:
         return pd.DataFrame(
@@ -140,6 +141,7 @@ class ComparisonResult:
                 for g, o, e in zip(self.groups, self.observed, self.expected, strict=True)
             ],
             "stratified": self.n_strata is not None,
+            "rows_excluded": self.rows_excluded,
         }
         if self.n_strata is not None:
             out["strata"] = self.n_strata
@@ -151,7 +153,7 @@ def _stratum_tables(time, event, codes, labels, strata, entry):
     if strata is None:
         yield build_risk_table(time, event, codes, labels, entry)
         return
-    s_codes, s_labels = group_codes(pd.Series(strata).astype("category"), len(codes))
+    s_codes, s_labels = group_codes(pd.Series(strata), len(codes), name="_strata")
     time, event = np.asarray(time), np.asarray(event)
     for s in range(len(s_labels)):
         rows = s_codes == s
@@ -215,10 +217,12 @@ def compare_survival(
 def compare_frame(
     frame: pd.DataFrame, *, test: str = "logrank", rho: float = 0.0, gamma: float = 0.0
 ) -> ComparisonResult:
-    """`compare_survival` on a prepared frame, stratified when it has `_strata`."""
+    """`compare_survival` on a prepared frame, stratified when it has `_strata`; rows without
+    a group or stratum are left out and counted in ``rows_excluded``."""
     if "_group" not in frame.columns:
         raise AnalysisError("Comparing survival needs a group column; set the group role.")
-    return compare_survival(
+    frame, excluded = without_missing(frame)
+    result = compare_survival(
         frame["_time"].to_numpy(),
         frame["_event"].to_numpy(),
         frame["_group"],
@@ -228,6 +232,7 @@ def compare_frame(
         strata=frame["_strata"] if "_strata" in frame.columns else None,
         entry=frame["_entry"].to_numpy() if "_entry" in frame.columns else None,
     )
+    return replace(result, rows_excluded=excluded)
 
 
 @dataclass(frozen=True)

@@ -201,7 +201,7 @@ class CurveSet:
 def frame_columns(frame: pd.DataFrame, *, use_group: bool = True):
     """Time, event, group codes, labels and entry from a prepared frame."""
     group = frame["_group"] if use_group and "_group" in frame.columns else None
-    codes, labels = group_codes(group, len(frame))
+    codes, labels = group_codes(group, len(frame), missing_as_extra=True)
     entry = frame["_entry"].to_numpy() if "_entry" in frame.columns else None
     return frame["_time"].to_numpy(), frame["_event"].to_numpy(), codes, labels, entry
 
@@ -209,7 +209,9 @@ def frame_columns(frame: pd.DataFrame, *, use_group: bool = True):
 def curves_by_group(
     frame: pd.DataFrame, *, confidence: float = 0.95, transform: str = "log-log"
 ) -> CurveSet:
-    """Kaplan–Meier for all rows, then for each group of a prepared frame (one sort in all)."""
+    """Kaplan–Meier for all rows, then for each group of a prepared frame (one sort in all).
+
+    Rows without a group value count in the all-rows curve and in no group curve."""
     time, event, codes, labels, entry = frame_columns(frame)
     table = build_risk_table(time, event, codes, labels, entry)
     curves = [curve_from_table(table.pooled(None), confidence, transform)]

@@ -38,7 +38,12 @@ class AnalysisError(HazelError):
 
 def preview_values(values, limit: int = 5) -> str:
     """Show a few offending values in a message, quoted, with a count of the rest."""
-    values = list(values)
+    values = [_plain(v) for v in values]
     shown = ", ".join(repr(v) for v in values[:limit])
     rest = len(values) - limit
     return shown + (f" and {rest} more" if rest > 0 else "")
+
+
+def _plain(value):
+    """numpy scalars as Python values, so messages show 2 rather than np.int64(2)."""
+    return value.item() if hasattr(value, "dtype") and hasattr(value, "item") else value

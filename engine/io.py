@@ -208,7 +208,8 @@ def _read_text(path, data, options: ImportOptions, name: str):
     confident = sniffed.confident
     encoding = sniffed.encoding
     frame = _parse_text(path, data, sniffed.sep, sniffed.decimal, encoding, options, notes, name)
-    if options.encoding is None and encoding != FALLBACK_ENCODING and _has_undecoded(frame):
+    guessed_utf8 = options.encoding is None and encoding not in (FALLBACK_ENCODING, "latin-1")
+    if guessed_utf8 and _has_undecoded(frame):
         # The sample was valid UTF-8 but a later part of the file is not.
         encoding = FALLBACK_ENCODING
         notes.append(
@@ -238,7 +239,12 @@ def _sniff(sample: bytes, truncated: bool, options: ImportOptions, name: str) ->
     if not sample.strip():
         raise FileReadError(f"{name} is empty (only blank lines). Export the data again.")
     encoding = options.encoding or _guess_encoding(sample)
-    if encoding == FALLBACK_ENCODING and options.encoding is None:
+    if b"\x00" in sample and not encoding.startswith("utf-16"):
+        raise FileReadError(
+            f"{name} does not look like a text table (it contains binary data). "
+            "Upload a CSV, TSV, Excel .xlsx or Parquet file."
+        )
+    if encoding in (FALLBACK_ENCODING, "latin-1") and options.encoding is None:
         notes.append("The file is not UTF-8; it was read as Windows-1252 (Latin-1).")
     try:
         text = sample.decode(encoding, errors="strict" if not truncated else "ignore")
@@ -288,6 +294,10 @@ def _guess_encoding(sample: bytes) -> str:
     except UnicodeDecodeError as exc:
         # A multi-byte character cut by the end of the sample is not an error.
         if exc.start < len(sample) - 3 or len(sample) < SAMPLE_BYTES:
+            try:
+                sample.decode(FALLBACK_ENCODING)
+            except UnicodeDecodeError:
+                return "latin-1"  # cp1252 leaves five bytes undefined; latin-1 maps every byte
             return FALLBACK_ENCODING
     return "utf-8"
 
@@ -374,7 +384,9 @@ def _parse_text(path, data, sep, decimal, encoding, options, notes, name) -> pd.
             f"{len(malformed)} malformed line(s) with the wrong number of fields were skipped: "
             f"{preview_values(malformed, 3)}. Check the separator and quoting."
         )
-    frame.columns = [str(c).strip() for c in frame.columns]
+    names = [str(c).strip() for c in frame.columns]
+    frame.columns = [n if n else f"Unnamed: {i}" for i, n in enumerate(names)]
+    _check_columns(frame, name)
     return frame
 
 
@@ -399,8 +411,8 @@ def _parse_text_python(path, data, encoding, kwargs, malformed, name) -> pd.Data
 
 def _has_undecoded(frame: pd.DataFrame) -> bool:
     """pyarrow keeps invalid UTF-8 as bytes: one bytes value means the encoding was wrong."""
-    for column in frame.columns:
-        series = frame[column]
+    for position in range(frame.shape[1]):
+        series = frame.iloc[:, position]
         if series.dtype == object:
             first = series.first_valid_index()
             if first is not None and isinstance(series.loc[first], bytes):

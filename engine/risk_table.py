@@ -26,7 +26,8 @@ class RiskTable:
     at_risk: np.ndarray  # (T, k) int64
     events: np.ndarray  # (T, k) int64
     censored: np.ndarray  # (T, k) int64
-    labels: tuple  # k group labels (None for a single unlabelled group)
+    labels: tuple  # group labels (None for a single unlabelled group); a last, unlabelled
+    # column, when present, holds rows without a group (they count only in `pooled`)
 
     def column(self, g: int) -> RiskTable:
         """One group's counts, keeping only the times at which that group has an observation."""
@@ -79,27 +80,45 @@ def as_event_array(values, n: int) -> np.ndarray:
     return numeric == 1.0
 
 
-def group_codes(group, n: int) -> tuple[np.ndarray, tuple]:
+def group_codes(
+    group, n: int, *, name: str = "_group", missing_as_extra: bool = False
+) -> tuple[np.ndarray, tuple]:
     """Integer codes and labels of a grouping, in category order for a Categorical.
 
-    Missing group values are refused: the caller decides whether to drop those rows.
+    Missing values are refused unless ``missing_as_extra``: then they get the code
+    ``len(labels)`` (one past the last label), so pooled counts keep those rows while no group
+    curve or test includes them.
     """
     if group is None:
         return np.zeros(n, dtype=np.intp), (None,)
     series = group if isinstance(group, pd.Series) else pd.Series(group)
     if len(series) != n:
-        raise AnalysisError(f"Column '_group' has {len(series)} values but '_time' has {n}.")
+        raise AnalysisError(f"Column {name!r} has {len(series)} values but '_time' has {n}.")
     if isinstance(series.dtype, pd.CategoricalDtype):
         cat = series.cat.remove_unused_categories()
     else:
         cat = series.astype("category")
     codes = np.asarray(cat.cat.codes, dtype=np.intp)
-    if (codes < 0).any():
-        raise AnalysisError(
-            f"Column '_group' has {int((codes < 0).sum())} missing values. "
-            "Drop those rows or give them a group before comparing groups."
-        )
-    return codes, tuple(cat.cat.categories.tolist())
+    labels = tuple(cat.cat.categories.tolist())
+    missing = codes < 0
+    if missing.any():
+        if not missing_as_extra:
+            raise AnalysisError(
+                f"Column {name!r} has {int(missing.sum())} missing values. "
+                "Drop those rows or give them a value before this analysis."
+            )
+        codes = np.where(missing, len(labels), codes)
+    return codes, labels
+
+
+def without_missing(frame: pd.DataFrame, columns=("_group", "_strata")) -> tuple[pd.DataFrame, int]:
+    """The rows of a prepared frame with a value in each of the given columns, and how many
+    rows were left out (rows without a group count in overall results but in no group)."""
+    present = [c for c in columns if c in frame.columns]
+    if not present:
+        return frame, 0
+    keep = frame[present].notna().all(axis=1).to_numpy()
+    return (frame, 0) if keep.all() else (frame[keep], int((~keep).sum()))
 
 
 def build_risk_table(time, event, codes=None, labels=(None,), entry=None) -> RiskTable:
@@ -112,6 +131,8 @@ def build_risk_table(time, event, codes=None, labels=(None,), entry=None) -> Ris
         )
     is_event = as_event_array(event, n)
     k = len(labels)
+    if codes is not None and codes.size and codes.max() >= k:
+        k += 1  # rows without a group: counted in the pooled table, shown in no group
     if codes is None:
         codes = np.zeros(n, dtype=np.intp)
     times = np.unique(time)  # sorts a copy once

@@ -182,27 +182,36 @@ def rmst_by_group(
     """RMST per group (category order); with exactly two groups, the second against the first."""
     codes, labels = group_codes(group, len(np.asarray(time)))
     table = build_risk_table(time, event, codes, labels, entry)
-    curves = [curve_from_table(table.column(g), confidence) for g in range(len(labels))]
+    pooled = curve_from_table(table.pooled(None), confidence)
     if group is None:
-        curves = [curve_from_table(table.pooled(None), confidence)]
-    if tau is None:
-        tau, rule = default_tau(curves)
-    else:
-        rule = f"tau = {float(tau):g}, given by the caller"
-    estimates = [rmst_from_curve(c, tau) for c in curves]
-    contrast = rmst_contrast(estimates[0], estimates[1]) if len(estimates) == 2 else None
-    if include_overall and group is not None:
-        pooled = curve_from_table(table.pooled(None), confidence)
-        estimates = [rmst_from_curve(pooled, tau), *estimates]
-    return RMSTTable(float(tau), rule, tuple(estimates), contrast)
+        return _rmst_table([pooled], [pooled], tau)
+    groups = [curve_from_table(table.column(g), confidence) for g in range(len(labels))]
+    return _rmst_table([pooled, *groups] if include_overall else groups, groups, tau)
 
 
 def rmst_frame(
     frame: pd.DataFrame, *, tau: float | None = None, confidence: float = 0.95
 ) -> RMSTTable:
-    """`rmst_by_group` on a prepared frame, overall first when there is a group column."""
-    time, event, _, _, entry = frame_columns(frame, use_group=False)
-    group = frame["_group"] if "_group" in frame.columns else None
-    return rmst_by_group(
-        time, event, group, tau=tau, confidence=confidence, entry=entry, include_overall=True
-    )
+    """RMST on a prepared frame: all rows first, then each group (rows without a group count
+    only in the first); τ defaults to the smallest of the groups' largest observed times."""
+    time, event, codes, labels, entry = frame_columns(frame)
+    table = build_risk_table(time, event, codes, labels, entry)
+    pooled = curve_from_table(table.pooled(None), confidence)
+    if "_group" not in frame.columns:
+        return _rmst_table([pooled], [pooled], tau)
+    groups = [curve_from_table(table.column(g), confidence) for g in range(len(labels))]
+    return _rmst_table([pooled, *groups], groups, tau)
+
+
+def _rmst_table(curves, groups, tau) -> RMSTTable:
+    """Estimates for `curves` at τ (default from `groups`); the contrast when two groups."""
+    if tau is None:
+        tau, rule = default_tau(groups)
+    else:
+        rule = f"tau = {float(tau):g}, given by the caller"
+    estimates = tuple(rmst_from_curve(c, tau) for c in curves)
+    by_label = {e.label: e for e in estimates[len(curves) - len(groups) :]}
+    contrast = None
+    if len(groups) == 2:
+        contrast = rmst_contrast(by_label[groups[0].label], by_label[groups[1].label])
+    return RMSTTable(float(tau), rule, estimates, contrast)

@@ -276,3 +276,15 @@ def test_bad_settings_are_refused_with_a_clear_message(kwargs, message):
 def test_negative_times_are_refused():
     with pytest.raises(AnalysisError, match="_time"):
         kaplan_meier([-1.0, 2.0], [1, 0])
+
+
+def test_rows_without_a_group_count_in_all_rows_and_in_no_group(freireich):
+    # The prepared frame keeps rows with no group value (engine.checks notes them).
+    freireich.loc[[0, 30], "_group"] = np.nan
+    curves = curves_by_group(freireich).curves
+    assert [c.n for c in curves] == [42, 20, 20]
+    time, event = _arrays(freireich.dropna(subset=["_group"]), "6-MP")
+    assert_allclose(curves[1].survival, kaplan_meier(time, event).survival)
+    everyone = kaplan_meier(freireich["_time"], freireich["_event"])
+    assert_allclose(curves[0].survival, everyone.survival)
+    assert group_summary(freireich).to_frame()["n"].tolist() == [42, 20, 20]

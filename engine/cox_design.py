@@ -1,0 +1,201 @@
+"""The Cox model's design: complete cases, treatment coding, and checks that name the variable."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from engine.errors import AnalysisError, preview_values
+
+SMALL_LEVEL_ROWS = 5  # common practice: a level this small gives an unstable hazard ratio
+VIF_LIMIT = 10.0  # common practice: variance inflation above 10 signals near-collinearity
+
+
+@dataclass(frozen=True)
+class Term:
+    """One column of the design: a numeric variable, or one non-reference level of a categorical."""
+
+    variable: str
+    level: str | None = None
+    reference: str | None = None
+
+    @property
+    def label(self) -> str:
+        return self.variable if self.level is None else f"{self.variable}: {self.level}"
+
+
+@dataclass(frozen=True)
+class Design:
+    terms: tuple[Term, ...]
+    matrix: np.ndarray  # used rows x terms, in the frame's row order
+    used: np.ndarray  # bool mask over the frame's rows
+    dropped: dict  # variable (or role column) -> rows dropped because it was missing
+    levels: dict  # categorical variable -> (reference, *other levels kept)
+    level_counts: dict  # categorical variable -> {level: rows used}
+    warnings: tuple[str, ...]
+
+    @property
+    def variables(self) -> tuple[str, ...]:
+        return tuple(dict.fromkeys(t.variable for t in self.terms))
+
+    def columns_of(self, variable: str) -> np.ndarray:
+        return np.array([i for i, t in enumerate(self.terms) if t.variable == variable])
+
+
+def _as_categorical(frame: pd.DataFrame, column: str) -> pd.Categorical:
+    values = frame[column]
+    if isinstance(values.dtype, pd.CategoricalDtype):
+        return pd.Categorical(values)
+    return pd.Categorical(values.astype("string").astype(object).where(values.notna()))
+
+
+def build_design(
+    frame: pd.DataFrame,
+    covariates: Sequence[str],
+    *,
+    categorical: Sequence[str] = (),
+    reference: Mapping[str, object] | None = None,
+    required: Sequence[str] = (),
+) -> Design:
+    """Complete cases on ``required`` role columns and the covariates, then treatment coding."""
+    covariates = list(dict.fromkeys(covariates))
+    reference = dict(reference or {})
+    missing_columns = [c for c in [*covariates, *required] if c not in frame.columns]
+    if missing_columns:
+        raise AnalysisError(
+            f"The Cox model names column(s) {preview_values(missing_columns)} that the data does "
+            f"not have. Available columns: {preview_values(list(frame.columns), 12)}."
+        )
+    unknown_categorical = sorted(set(categorical) - set(covariates))
+    if unknown_categorical:
+        raise AnalysisError(
+            f"Column(s) {preview_values(unknown_categorical)} are marked categorical but are not "
+            "among the covariates; add them to the covariates or unmark them."
+        )
+    categorical = set(categorical) | {
+        c for c in covariates if isinstance(frame[c].dtype, pd.CategoricalDtype)
+    }
+    for column in covariates:
+        if column not in categorical and not pd.api.types.is_numeric_dtype(frame[column]):
+            bad = frame[column][pd.to_numeric(frame[column], errors="coerce").isna()].dropna()
+            raise AnalysisError(
+                f"Covariate '{column}' is not numeric (values such as "
+                f"{preview_values(bad.unique())}); mark it as categorical or fix those values."
+            )
+    dropped = {}
+    used = np.ones(len(frame), dtype=bool)
+    for column in [*required, *covariates]:
+        missing = frame[column].isna().to_numpy()
+        if column not in categorical and column in covariates:
+            with np.errstate(invalid="ignore"):
+                missing |= ~np.isfinite(frame[column].to_numpy(dtype=float, na_value=np.nan))
+        if missing.any():
+            dropped[column] = int(missing.sum())
+        used &= ~missing
+    if not used.any():
+        raise AnalysisError(
+            "No row has every model variable present (rows missing per variable: "
+            f"{dropped}); remove the variable with most missing values or fill it in."
+        )
+
+    terms: list[Term] = []
+    columns: list[np.ndarray] = []
+    levels: dict = {}
+    level_counts: dict = {}
+    warnings: list[str] = []
+    for column in covariates:
+        if column not in categorical:
+            terms.append(Term(column))
+            columns.append(frame[column].to_numpy(dtype=float, na_value=np.nan)[used])
+            continue
+        values = _as_categorical(frame, column)[used]
+        counts = pd.Series(values).value_counts(sort=False)
+        counts = counts.reindex(values.categories, fill_value=0)
+        ref = reference.get(column, values.categories[0] if len(values.categories) else None)
+        if ref not in list(values.categories):
+            matched = [c for c in values.categories if str(c) == str(ref)]
+            if not matched:
+                raise AnalysisError(
+                    f"Reference level {ref!r} for '{column}' is not one of its levels "
+                    f"{preview_values(list(values.categories), 12)}; choose one of those."
+                )
+            ref = matched[0]
+        if counts[ref] == 0:
+            raise AnalysisError(
+                f"Reference level {ref!r} of '{column}' has no rows among the complete cases; "
+                "choose a reference level that has rows."
+            )
+        empty = [c for c in values.categories if counts[c] == 0]
+        if empty:
+            warnings.append(
+                f"'{column}': level(s) {preview_values(empty)} have no rows among the complete "
+                "cases and are left out of the model."
+            )
+        kept = [c for c in values.categories if counts[c] > 0 and c != ref]
+        if not kept:
+            raise AnalysisError(
+                f"Categorical covariate '{column}' has a single level ({ref!r}) among the complete "
+                "cases, so it cannot be estimated; remove it from the covariates."
+            )
+        small = [f"{c!r} ({counts[c]} rows)" for c in [ref, *kept] if counts[c] < SMALL_LEVEL_ROWS]
+        if small:
+            warnings.append(
+                f"'{column}': level(s) {', '.join(small)} have fewer than {SMALL_LEVEL_ROWS} rows "
+                "(common practice); their hazard ratios are unreliable. Consider merging levels."
+            )
+        levels[column] = (str(ref), *(str(c) for c in kept))
+        level_counts[column] = {str(c): int(counts[c]) for c in [ref, *kept]}
+        codes = np.asarray(values.astype(object))
+        for level in kept:
+            terms.append(Term(column, str(level), str(ref)))
+            columns.append((codes == level).astype(float))
+    matrix = np.column_stack(columns) if columns else np.zeros((int(used.sum()), 0))
+    design = Design(tuple(terms), matrix, used, dropped, levels, level_counts, ())
+    warnings += check_collinearity(design)
+    return Design(tuple(terms), matrix, used, dropped, levels, level_counts, tuple(warnings))
+
+
+def check_collinearity(design: Design) -> list[str]:
+    """Raise for constant or exactly collinear terms; warn for near-collinear variables."""
+    x = design.matrix
+    if x.shape[1] == 0:
+        return []
+    spread = x.std(axis=0)
+    constant = [design.terms[j].label for j in np.flatnonzero(spread <= 1e-12 * (1 + abs(x[0])))]
+    if constant:
+        raise AnalysisError(
+            f"Covariate(s) {preview_values(constant)} take a single value among the rows used, so "
+            "their effect cannot be estimated; remove them from the covariates."
+        )
+    z = (x - x.mean(axis=0)) / spread
+    corr = (z.T @ z) / len(z)
+    eigenvalues, eigenvectors = np.linalg.eigh(corr)
+    if eigenvalues[0] < 1e-10 * max(eigenvalues[-1], 1.0):
+        involved = np.abs(eigenvectors[:, 0]) > 1e-3
+        names = list(dict.fromkeys(design.terms[j].label for j in np.flatnonzero(involved)))
+        raise AnalysisError(
+            f"Covariates {preview_values(names, 8)} are exactly collinear (one is a linear "
+            "combination of the others among the rows used); remove one of them."
+        )
+    warnings = []
+    variables = design.variables
+    if len(variables) > 1:
+        log_det_all = np.linalg.slogdet(corr)[1]
+        for variable in variables:
+            own = design.columns_of(variable)
+            rest = np.setdiff1d(np.arange(len(corr)), own)
+            log_gvif = (
+                np.linalg.slogdet(corr[np.ix_(own, own)])[1]
+                + np.linalg.slogdet(corr[np.ix_(rest, rest)])[1]
+                - log_det_all
+            )
+            vif = float(np.exp(log_gvif / len(own)))  # generalised VIF per degree of freedom
+            if vif > VIF_LIMIT:
+                warnings.append(
+                    f"'{variable}' is nearly collinear with other covariates (variance inflation "
+                    f"{vif:.1f} > {VIF_LIMIT:g}, common practice); its hazard ratio is imprecise."
+                )
+    return warnings
