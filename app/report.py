@@ -426,20 +426,29 @@ def _cox_section(cox: Mapping | None, confidence: float, forest) -> str:
             ]
         ),
     ]
+    model_lines = []
     concordance = cox.get("concordance")
-    if isinstance(concordance, Mapping):
-        value, se = concordance.get("estimate"), concordance.get("se")
-        parts.append(
-            f"<p>Harrell's concordance: <span data-value={_quote(value)}>"
-            f"{escape(format_number(value, 3))}</span>"
+    if concordance is not None:
+        se = cox.get("concordance_se")
+        model_lines.append(
+            f"Harrell's concordance: <span data-value={_quote(concordance)}>"
+            f"{escape(format_number(concordance, 3))}</span>"
             + (f" (SE {escape(format_number(se, 3))})" if se is not None else "")
-            + ".</p>"
+            + "."
         )
-    elif concordance is not None:
-        parts.append(
-            f"<p>Harrell's concordance: <span data-value={_quote(concordance)}>"
-            f"{escape(format_number(concordance, 3))}</span>.</p>"
+    if cox.get("aic") is not None:
+        model_lines.append(
+            f"AIC: <span data-value={_quote(cox['aic'])}>{escape(format_number(cox['aic'], 2))}"
+            "</span>."
         )
+    dropped = {k: v for k, v in (cox.get("rows_dropped") or {}).items() if v}
+    if dropped:
+        model_lines.append(
+            "Rows left out of the model because a variable was missing: "
+            + "; ".join(f"{escape(k)}: {int(v):,}" for k, v in dropped.items())
+            + "."
+        )
+    parts += [f"<p>{line}</p>" for line in model_lines]
     drop_one = cox.get("drop_one") or []
     if drop_one:
         parts += [

@@ -17,10 +17,12 @@ import pytest
 
 from app.report import build_report, methods_paragraph, sanitize_svg
 from engine.checks import prepare
+from engine.cox import cox_json, fit_cox
+from engine.cox_diagnostics import proportional_hazards_test
 from engine.io import read_table
 from engine.roles import Roles
 from engine.summary import comparison_json, curves_json
-from engine.wording import format_p, format_percent, format_ratio
+from engine.wording import format_number, format_p, format_percent, format_ratio, p_clause
 
 HOSTILE = "<script>alert(1)</script>"
 # Remission times in weeks, "+" = censored (Klein & Moeschberger 2003, from Gehan 1965).
@@ -33,68 +35,45 @@ PLACEBO = ["1", "1", "2", "2", "3", "4", "4", "5", "5", "8", "8", "8", "8", "11"
 VOID = {"meta", "br", "hr", "img", "input", "link", "col", "area", "base", "wbr", "source"}
 
 
-def _freireich_csv(group_column: str = "arm") -> bytes:
-    rows = [f"weeks,relapse,{group_column}"]
+def _freireich_csv() -> bytes:
+    rows = [f"weeks,relapse,{HOSTILE}"]  # a hostile column name and a hostile group label
     rows += [f"{v.rstrip('+')},{0 if v.endswith('+') else 1},6-MP" for v in SIX_MP]
     rows += [f"{v},1,{HOSTILE}" for v in PLACEBO]
     return "\n".join(rows).encode("utf-8")
 
 
+ROLES = Roles(
+    time="weeks",
+    event="relapse",
+    group=HOSTILE,
+    unit="weeks",
+    covariates=(HOSTILE,),
+    categorical=(HOSTILE,),
+    reference=((HOSTILE, "6-MP"),),
+)
+
+
 @pytest.fixture(scope="module")
 def freireich():
     table = read_table(_freireich_csv(), name="remission <b>.csv")
-    prepared = prepare(table.frame, Roles(time="weeks", event="relapse", group="arm", unit="weeks"))
+    prepared = prepare(table.frame, ROLES)
+    cox = fit_cox(
+        prepared.frame,
+        [HOSTILE],
+        categorical=[HOSTILE],
+        reference={HOSTILE: "6-MP"},
+        ties="breslow",
+    )
+    checks = proportional_hazards_test(cox, "rank").checks
     results = {
         "schema": 1,
         "data": prepared.report.to_dict(),
         "curves": curves_json(prepared.frame, times=[10, 20]),
         "comparison": comparison_json(prepared.frame),
-        "cox": COX,
+        "cox": cox_json(cox, checks),
     }
     return table, prepared, results
 
-
-# A Cox section in the shape of the JSON contract (issue 4). The numbers are placeholders for
-# layout checks, not estimates: the report only formats what it is given.
-COX = {
-    "n": 42,
-    "events": 30,
-    "ties": "breslow",
-    "terms": [
-        {
-            "variable": HOSTILE,
-            "level": "B & C",
-            "reference": "A",
-            "coef": 1.50919,
-            "se": 0.40956,
-            "hazard_ratio": 4.52265,
-            "lower": 2.02693,
-            "upper": 10.09138,
-            "p_value": 0.000229,
-        },
-        {
-            "variable": "age",
-            "level": None,
-            "reference": None,
-            "coef": -0.00501,
-            "se": 0.0123,
-            "hazard_ratio": 0.995,
-            "lower": 0.9713,
-            "upper": 1.0193,
-            "p_value": 0.68375,
-        },
-    ],
-    "likelihood_ratio": {"statistic": 15.2112, "df": 2, "p_value": 0.000498},
-    "wald": {"statistic": 13.58, "df": 2, "p_value": 0.00112},
-    "score": {"statistic": 15.93, "df": 2, "p_value": 0.000348},
-    "concordance": 0.69012,
-    "drop_one": [{"variable": "age", "statistic": 0.1661, "df": 1, "p_value": 0.68359}],
-    "ph_check": [
-        {"variable": HOSTILE, "statistic": 0.0045, "df": 1, "p_value": 0.9466},
-        {"variable": "GLOBAL", "statistic": 0.83, "df": 2, "p_value": 0.6603},
-    ],
-    "warnings": [f"Variable {HOSTILE} has few events per parameter."],
-}
 
 SETTINGS = {
     "curves": {"times": [10, 20], "ci_transform": "log", "confidence": 0.95},
@@ -119,7 +98,7 @@ def report(freireich):
     return build_report(
         results,
         SETTINGS,
-        roles=prepared.roles.to_dict() | {"covariates": [HOSTILE]},
+        roles=prepared.roles.to_dict(),
         title=f"Remission {HOSTILE} see https://example.invalid/x",
         figures={"curves": _chart(f"KM {HOSTILE} http://example.invalid"), "forest": _chart("HR")},
         fingerprint={**table.fingerprint(), "file_name": table.source_name},
@@ -205,10 +184,9 @@ def test_user_text_appears_only_escaped(report, parsed):
     assert "<script" not in report.lower()
     assert "&lt;script&gt;alert(1)&lt;/script&gt;" in report
     assert "remission &lt;b&gt;.csv" in report
-    assert "B &amp; C" in report
     text = "".join(parsed.text)
     assert HOSTILE in text  # shown to the reader as the literal label
-    assert text.count(HOSTILE) >= 6  # title, roles, group rows, sentences, Cox, PH, warnings
+    assert text.count(HOSTILE) >= 8  # title, roles, group rows, sentences, Cox, PH, warnings
 
 
 def test_every_section_and_the_cautions_are_present(parsed):
@@ -255,18 +233,31 @@ def test_curve_numbers_equal_the_json_numbers(freireich, parsed):
 
 
 def test_comparison_and_cox_numbers_equal_the_json_numbers(freireich, parsed):
-    comparison = freireich[2]["comparison"]
+    results = freireich[2]
+    comparison, cox = results["comparison"], results["cox"]
     assert round(comparison["statistic"], 2) == 16.79  # Freireich log-rank (K&M 2003)
     assert (repr(comparison["statistic"]), "16.79") in parsed.cells
     assert (repr(comparison["p_value"]), "< 0.001") in parsed.cells
-    for term in COX["terms"]:
-        assert (repr(term["hazard_ratio"]), format_ratio(term["hazard_ratio"])) in parsed.cells
-        assert (repr(term["p_value"]), format_p(term["p_value"])) in parsed.cells
-    assert ("0.68375", "0.684") in parsed.cells
-    assert ("0.9466", "0.947") in parsed.cells
+    (term,) = cox["terms"]
+    assert round(term["coef"], 3) == 1.509  # Breslow ties, placebo vs 6-MP (the Cox issue)
+    assert (repr(term["coef"]), "1.509") in parsed.cells
+    assert (repr(term["hazard_ratio"]), format_ratio(term["hazard_ratio"])) in parsed.cells
+    assert format_ratio(term["hazard_ratio"]) == "4.52"
+    assert (repr(term["p_value"]), format_p(term["p_value"])) in parsed.cells
+    for check in cox["ph_check"]:
+        assert (repr(check["statistic"]), format_number(check["statistic"], 2)) in parsed.cells
+        assert (repr(check["p_value"]), format_p(check["p_value"])) in parsed.cells
+    for test in ("likelihood_ratio", "wald", "score"):
+        assert (repr(cox[test]["statistic"]), format_number(cox[test]["statistic"], 2)) in (
+            parsed.cells
+        )
     text = "".join(parsed.text)
-    assert f"The hazard ratio for {HOSTILE} B & C versus A was 4.52 (95% CI 2.03 to 10.09" in text
-    assert "Harrell's concordance: 0.690." in text
+    lower, upper = format_ratio(term["lower"]), format_ratio(term["upper"])
+    assert (
+        f"The hazard ratio for {HOSTILE} {HOSTILE} versus 6-MP was 4.52 "
+        f"(95% CI {lower} to {upper}; {p_clause(term['p_value'])})." in text
+    )
+    assert f"Harrell's concordance: {format_number(cox['concordance'], 3)} (SE " in text
 
 
 def test_methods_follow_the_settings_actually_used(freireich):
