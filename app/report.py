@@ -339,7 +339,7 @@ def _generic_rows(records: Sequence[Mapping]) -> tuple[list[str], list[list[str]
     return [h.replace("_", " ") for h in headers], rows
 
 
-def _test_table(tests: Sequence[tuple[str, Mapping | None]]) -> str:
+def _test_table(tests: Sequence[tuple[str, Mapping | None]], first: str = "Test") -> str:
     rows = []
     for name, t in tests:
         if not t:
@@ -352,7 +352,7 @@ def _test_table(tests: Sequence[tuple[str, Mapping | None]]) -> str:
                 _num(t.get("p_value"), format_p(t.get("p_value"))),
             ]
         )
-    return _table(["Test", "Chi-squared", "df", "p"], rows) if rows else ""
+    return _table([first, "Chi-squared", "df", "p"], rows) if rows else ""
 
 
 def _comparison_section(comparison: Mapping | None, pairwise) -> str:
@@ -453,7 +453,7 @@ def _cox_section(cox: Mapping | None, confidence: float, forest) -> str:
     if drop_one:
         parts += [
             "<h3>Each variable removed in turn (likelihood-ratio tests)</h3>",
-            _test_table([(d["variable"], d) for d in drop_one]),
+            _test_table([(d["variable"], d) for d in drop_one], "Variable removed"),
         ]
     parts += ["<h3>Text for a manuscript</h3>", _list(sentences, "sentences")]
     return "\n".join(p for p in parts if p)
@@ -469,7 +469,7 @@ def _ph_section(cox: Mapping | None) -> str:
         return ""
     return (
         "<h2>Proportional-hazards checks</h2>\n"
-        + _test_table([(c["variable"], c) for c in checks])
+        + _test_table([(c["variable"], c) for c in checks], "Variable")
         + "<p>A small p-value suggests the hazard ratio of that variable changes over time; look "
         "at its residual plot before trusting a single hazard ratio.</p>"
     )
