@@ -413,8 +413,8 @@ def _cox_section(cox: Mapping | None, confidence: float, forest) -> str:
         )
     parts = [
         "<h2>Cox proportional-hazards model</h2>",
-        f'<p class="meta">{cox["n"]:,} rows used, {cox["events"]:,} events; ties by '
-        f"{escape(cox.get('ties', ''))}.</p>",
+        f'<p class="meta">{cox["n"]:,} rows used, {cox["events"]:,} events; tied times by the '
+        f"{escape(str(cox.get('ties', '')).capitalize())} method.</p>",
         _table(["Term", "Coefficient", "SE", "Hazard ratio", f"{ci} CI", "p"], rows),
         _figure(forest, "Hazard ratios with their intervals on a log scale."),
         "<h3>Whole-model tests</h3>",
