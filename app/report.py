@@ -19,15 +19,14 @@ from engine.recipe import software_versions
 from engine.wording import (
     NOT_REACHED,
     comparison_sentence,
+    cox_sentences,
+    curve_sentences,
     format_confidence,
     format_number,
     format_p,
     format_percent,
     format_plain,
     format_ratio,
-    hazard_ratio_sentence,
-    median_sentence,
-    survival_at_sentence,
 )
 
 CAUTIONS = (
@@ -275,30 +274,13 @@ def _curves_section(curves: Sequence[Mapping], unit: str, confidence: float, fig
                 median["lower"], median["upper"], lambda v: format_number(v, missing=NOT_REACHED)
             ),
         ]
-        group = None if c["group"] is None else str(c["group"])
-        sentences.append(
-            median_sentence(
-                median["estimate"], median["lower"], median["upper"], unit, confidence, group
-            )
-        )
+        sentences += curve_sentences(c, unit, confidence)
         for point in c.get("at_times", []):
             row += [
                 _num(point["survival"], format_percent(point["survival"])),
                 _interval(point["lower"], point["upper"], format_percent),
                 _num(point["at_risk"], f"{point['at_risk']:,}"),
             ]
-            sentences.append(
-                survival_at_sentence(
-                    point["time"],
-                    point["survival"],
-                    point["lower"],
-                    point["upper"],
-                    unit,
-                    confidence,
-                    group,
-                    point["at_risk"],
-                )
-            )
         if has_rmst:
             rmst = c.get("rmst") or {}
             row += [
@@ -387,7 +369,7 @@ def _cox_section(cox: Mapping | None, confidence: float, forest) -> str:
     if not cox:
         return ""
     ci = format_confidence(confidence)
-    rows, sentences = [], []
+    rows = []
     for term in cox["terms"]:
         rows.append(
             [
@@ -398,18 +380,6 @@ def _cox_section(cox: Mapping | None, confidence: float, forest) -> str:
                 _interval(term["lower"], term["upper"], format_ratio),
                 _num(term["p_value"], format_p(term["p_value"])),
             ]
-        )
-        sentences.append(
-            hazard_ratio_sentence(
-                term["hazard_ratio"],
-                term["lower"],
-                term["upper"],
-                term["p_value"],
-                str(term["variable"]),
-                None if term.get("level") is None else str(term["level"]),
-                None if term.get("reference") is None else str(term["reference"]),
-                confidence,
-            )
         )
     parts = [
         "<h2>Cox proportional-hazards model</h2>",
@@ -455,7 +425,7 @@ def _cox_section(cox: Mapping | None, confidence: float, forest) -> str:
             "<h3>Each variable removed in turn (likelihood-ratio tests)</h3>",
             _test_table([(d["variable"], d) for d in drop_one], "Variable removed"),
         ]
-    parts += ["<h3>Text for a manuscript</h3>", _list(sentences, "sentences")]
+    parts += ["<h3>Text for a manuscript</h3>", _list(cox_sentences(cox, confidence), "sentences")]
     return "\n".join(p for p in parts if p)
 
 

@@ -225,3 +225,48 @@ def rmst_sentence(
     high = format_number(upper, time_digits)
     estimate_text = format_number(estimate, time_digits)
     return f"{subject} was {estimate_text} {unit} ({_interval(low, high, confidence)})."
+
+
+# --- sentences for whole results, from their JSON form (the command line's schema 1) ------------
+
+
+def curve_sentences(curve: dict, unit: str, confidence: float = 0.95) -> list[str]:
+    """The median and each survival-at-time of one ``curves`` entry, as sentences."""
+    group = None if curve.get("group") is None else str(curve["group"])
+    median = curve["median"]
+    sentences = [
+        median_sentence(
+            median["estimate"], median["lower"], median["upper"], unit, confidence, group
+        )
+    ]
+    for point in curve.get("at_times", []):
+        sentences.append(
+            survival_at_sentence(
+                point["time"],
+                point["survival"],
+                point["lower"],
+                point["upper"],
+                unit,
+                confidence,
+                group,
+                point.get("at_risk"),
+            )
+        )
+    return sentences
+
+
+def cox_sentences(cox: dict, confidence: float = 0.95) -> list[str]:
+    """One hazard-ratio sentence per term of the ``cox`` object."""
+    return [
+        hazard_ratio_sentence(
+            term["hazard_ratio"],
+            term["lower"],
+            term["upper"],
+            term["p_value"],
+            str(term["variable"]),
+            None if term.get("level") is None else str(term["level"]),
+            None if term.get("reference") is None else str(term["reference"]),
+            confidence,
+        )
+        for term in cox.get("terms", [])
+    ]

@@ -14,6 +14,8 @@ from hypothesis import strategies as st
 
 from engine.wording import (
     comparison_sentence,
+    cox_sentences,
+    curve_sentences,
     format_confidence,
     format_number,
     format_p,
@@ -198,3 +200,41 @@ def test_format_ratio_keeps_two_significant_figures_or_more(value):
     digits = text.replace(".", "").lstrip("0")
     assert len(digits) >= 2
     assert float(text) == pytest.approx(value, rel=0.06)
+
+
+def test_curve_sentences_from_a_json_entry():
+    entry = {
+        "group": "6-MP",
+        "n": 21,
+        "events": 9,
+        "median": {"estimate": 23.0, "lower": 13.0, "upper": None},
+        "at_times": [
+            {"time": 10.0, "survival": 0.75294, "lower": 0.5032, "upper": 0.88936, "at_risk": 15}
+        ],
+    }
+    assert curve_sentences(entry, "weeks") == [
+        "Median survival in group 6-MP was 23.0 weeks (95% CI 13.0 to not reached).",
+        "Survival at 10 weeks in group 6-MP was 75.3% (95% CI 50.3% to 88.9%), "
+        "with 15 still at risk.",
+    ]
+    overall = {**entry, "group": None, "at_times": []}
+    assert curve_sentences(overall, "weeks", 0.9) == [
+        "Median survival was 23.0 weeks (90% CI 13.0 to not reached)."
+    ]
+
+
+def test_cox_sentences_from_the_json_object():
+    cox = {
+        "terms": [
+            {"variable": "arm", "level": "B", "reference": "A", "hazard_ratio": 4.5226,
+             "lower": 2.0269, "upper": 10.0914, "p_value": 0.000229},
+            {"variable": "age", "level": None, "reference": None, "hazard_ratio": 0.995,
+             "lower": 0.9713, "upper": 1.0193, "p_value": 0.68375},
+        ]
+    }  # fmt: skip
+    assert cox_sentences(cox) == [
+        "The hazard ratio for arm B versus A was 4.52 (95% CI 2.03 to 10.09; p < 0.001).",
+        # 0.995 is 0.99499... as a float (round() gives 0.99); the decimal rule gives 1.00
+        "The hazard ratio for each one-unit increase in age was 1.00 "
+        "(95% CI 0.97 to 1.02; p = 0.684).",
+    ]
