@@ -163,14 +163,36 @@ def sanitize_svg(svg: str) -> str:
     return re.sub(r"(?i)(https?|ftp):(//)", r"\1:&#8203;\2", svg).strip()
 
 
+_INVISIBLE_MARK = re.compile(r"""<path(?=[^>]*\sopacity="0")[^>]*/>""")
+_MARK_ARIA = re.compile(r'\s(?:aria-label|aria-roledescription|role)="[^"]*"')
+
+
+def compact_svg(svg: str) -> str:
+    """Drop what only an interactive chart uses: invisible hover targets and per-mark labels.
+
+    A Kaplan–Meier figure on a large dataset keeps a transparent point per vertex for tooltips,
+    each with a spoken description; on paper they are two thirds of the file.
+    """
+    svg = _INVISIBLE_MARK.sub("", svg)
+    return _MARK_ARIA.sub("", svg).replace("<svg ", '<svg role="img" ', 1)
+
+
 def figure_svg(figure) -> str:
     """An Altair chart, a Vega-Lite dict or ready SVG text, as sanitised inline SVG."""
     if isinstance(figure, str):
         return sanitize_svg(figure)
     import vl_convert  # imported here: the command line loads this module without drawing
 
-    spec = figure if isinstance(figure, dict) else figure.to_dict()
-    return sanitize_svg(vl_convert.vegalite_to_svg(spec))
+    if isinstance(figure, dict):
+        spec = figure
+    else:
+        import altair as alt
+
+        # The data were thinned to what can be seen, yet several curves together can pass
+        # Altair's 5,000-row guard; lift it for this conversion only (restored on exit).
+        with alt.data_transformers.enable("default", max_rows=None):
+            spec = figure.to_dict()
+    return compact_svg(sanitize_svg(vl_convert.vegalite_to_svg(spec)))
 
 
 def _figure(figure, caption: str) -> str:

@@ -15,7 +15,7 @@ import altair as alt
 import pandas as pd
 import pytest
 
-from app.report import build_report, methods_paragraph, sanitize_svg
+from app.report import build_report, compact_svg, figure_svg, methods_paragraph, sanitize_svg
 from engine.checks import prepare
 from engine.cox import cox_json, fit_cox
 from engine.cox_diagnostics import proportional_hazards_test
@@ -296,3 +296,22 @@ def test_svg_sanitiser_removes_addresses_scripts_and_handlers():
     assert "<script" not in clean and "onload" not in clean and "<?xml" not in clean
     assert clean.startswith("<svg")
     assert "see https:&#8203;//example.invalid" in clean
+
+
+def test_compact_svg_drops_only_invisible_marks_and_per_mark_labels():
+    svg = (
+        '<svg width="10"><path d="M0,0" opacity="0" aria-label="time: 1; estimate: 0.9"/>'
+        '<path d="M1,1" opacity="0.16"/><path d="M2,2"/>'
+        '<g role="graphics-object" aria-roledescription="group mark container"></g></svg>'
+    )
+    assert compact_svg(svg) == (
+        '<svg role="img" width="10"><path d="M1,1" opacity="0.16"/><path d="M2,2"/><g></g></svg>'
+    )
+
+
+def test_figures_with_more_than_five_thousand_rows_are_drawn():
+    # Altair refuses more than 5,000 rows by default; thinned curves of several groups pass it
+    frame = pd.DataFrame({"time": range(6000), "estimate": [1 - i / 6000 for i in range(6000)]})
+    chart = alt.Chart(frame).mark_line().encode(x="time:Q", y="estimate:Q")
+    assert figure_svg(chart).startswith('<svg role="img"')
+    assert alt.data_transformers.options.get("max_rows", 5000) == 5000  # the guard is back
