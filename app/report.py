@@ -181,18 +181,19 @@ def figure_svg(figure) -> str:
     """An Altair chart, a Vega-Lite dict or ready SVG text, as sanitised inline SVG."""
     if isinstance(figure, str):
         return sanitize_svg(figure)
-    import vl_convert  # imported here: the command line loads this module without drawing
+    # imported here: the command line loads this module without drawing anything
+    import altair as alt
+    import vl_convert
+
+    from app import exports
 
     if isinstance(figure, dict):
-        spec = figure
-    else:
-        import altair as alt
-
-        # The data were thinned to what can be seen, yet several curves together can pass
-        # Altair's 5,000-row guard; lift it for this conversion only (restored on exit).
-        with alt.data_transformers.enable("default", max_rows=None):
-            spec = figure.to_dict()
-    return compact_svg(sanitize_svg(vl_convert.vegalite_to_svg(spec)))
+        return compact_svg(sanitize_svg(vl_convert.vegalite_to_svg(figure)))
+    # The data were thinned to what can be seen, yet several curves together can pass
+    # Altair's 5,000-row guard; lift it for this conversion only (restored on exit).
+    with alt.data_transformers.enable("default", max_rows=None):
+        svg = exports.figure_svg(figure)
+    return compact_svg(sanitize_svg(svg))
 
 
 def _figure(figure, caption: str) -> str:
