@@ -29,7 +29,7 @@ from engine.risk_table import RiskTable, build_risk_table, group_codes, without_
 TESTS = ("logrank", "gehan-breslow", "tarone-ware", "peto-peto", "fleming-harrington")
 
 
-def test_name(test: str, rho: float = 0.0, gamma: float = 0.0) -> str:
+def display_name(test: str, rho: float = 0.0, gamma: float = 0.0) -> str:
     """The name shown in results for a test key."""
     names = {
         "logrank": "log-rank",
@@ -200,7 +200,7 @@ def compare_survival(
     statistic, df = _chi_square(u, v)
     n_strata = None if strata is None else int(pd.Series(strata).nunique())
     return ComparisonResult(
-        test=test_name(test, rho, gamma),
+        test=display_name(test, rho, gamma),
         test_key=test,
         statistic=statistic,
         df=df,
@@ -305,7 +305,7 @@ def trend_test(
         raise AnalysisError("The trend test has no variance: the scores or events do not vary.")
     z = float(c @ u) / np.sqrt(variance)
     return TrendResult(
-        test=f"{test_name(test, rho, gamma)} test for trend",
+        test=f"{display_name(test, rho, gamma)} test for trend",
         statistic=z * z,
         z=z,
         df=1,
@@ -403,4 +403,4 @@ def pairwise_comparisons(
     frame = pd.DataFrame(rows, columns=["group_a", "group_b", "statistic", "df", "p_value"])
     frame["p_holm"] = holm_adjust(frame["p_value"])
     frame["p_bh"] = bh_adjust(frame["p_value"])
-    return PairwiseTable(test_name(test, rho, gamma), frame)
+    return PairwiseTable(display_name(test, rho, gamma), frame)
