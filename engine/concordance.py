@@ -91,10 +91,30 @@ def pair_counts(time, event, risk, strata=None) -> tuple[np.ndarray, np.ndarray,
             a[perm] for a in (full_key, score, event, conc, comp, order)
         )
         later = ((full_key >> level) & 1).astype(bool)
-        tied_pairs += _count_level(new_block, score, later, event, conc, comp)
+        if n_scores == n:
+            _count_level_distinct(new_block, later, event, conc, comp)
+        else:
+            tied_pairs += _count_level(new_block, score, later, event, conc, comp)
     concordant[order] = conc
     comparable[order] = comp
     return concordant, comparable, tied_pairs
+
+
+def _count_level_distinct(new_block, later, event, conc, comp) -> None:
+    """``_count_level`` when no two scores are equal (every run is a single row)."""
+    block_start = np.flatnonzero(new_block)
+    block_len = np.diff(np.append(block_start, len(later)))
+    later_f = later.astype(float)
+    early_f = (~later & event).astype(float)
+    later_before = np.concatenate([[0.0], np.cumsum(later_f)])
+    early_before = np.concatenate([[0.0], np.cumsum(early_f)])
+    block_end = block_start + block_len
+    later_below = later_before[:-1] - np.repeat(later_before[block_start], block_len)
+    early_below = early_before[:-1] - np.repeat(early_before[block_start], block_len)
+    later_in_block = np.repeat(later_before[block_end] - later_before[block_start], block_len)
+    early_in_block = np.repeat(early_before[block_end] - early_before[block_start], block_len)
+    conc += early_f * later_below + later_f * (early_in_block - early_below)
+    comp += early_f * later_in_block + later_f * early_in_block
 
 
 def _count_level(new_block, score, later, event, conc, comp) -> float:

@@ -16,9 +16,9 @@ from scipy import stats
 from engine.concordance import ConcordanceResult, harrell_c
 from engine.cox_design import Design, Term, build_design
 from engine.cox_likelihood import TIES, RiskSetLayout, build_layout, newton_raphson
-from engine.errors import AnalysisError
+from engine.errors import AnalysisError, preview_values
 
-EVENTS_PER_PARAMETER = 10  # common practice, after Peduzzi et al. (1996)
+EVENTS_PER_PARAMETER = 10  # common practice, after Peduzzi et al. (1995) for Cox models
 RUNAWAY_STEP = 1e-4  # a Newton step still this large (scaled units) at the optimum: monotone
 
 
@@ -157,6 +157,7 @@ def fit_cox(
     time_col: str = "_time",
     event_col: str = "_event",
     drop_one: bool = True,
+    max_iterations: int = 50,
 ) -> CoxResult:
     """Fit a Cox model by Newton–Raphson on the complete cases of the model's variables."""
     if ties not in TIES:
@@ -174,6 +175,13 @@ def fit_cox(
     event = frame[event_col].to_numpy(dtype=float)[used] == 1
     codes, strata_levels = _strata_codes(frame, used, strata)
     entry_values = None if entry is None else frame[entry].to_numpy(dtype=float)[used]
+    if entry_values is not None and np.any(entry_values >= time):
+        bad = np.flatnonzero(entry_values >= time)
+        raise AnalysisError(
+            f"Entry time '{entry}' is at or after the exit time in {len(bad)} row(s) (for "
+            f"example rows {preview_values(frame.index[used][bad])}); a subject must enter "
+            "before it leaves. Fix or remove those rows."
+        )
     if not event.any():
         raise AnalysisError(
             "None of the rows used by the Cox model has an event, so nothing can be estimated; "
@@ -183,7 +191,7 @@ def fit_cox(
     center = design.matrix.mean(axis=0)
     scale = design.matrix.std(axis=0)
     scaled = (design.matrix[layout.order] - center) / scale
-    fit = newton_raphson(layout, scaled, ties)
+    fit = newton_raphson(layout, scaled, ties, max_iter=max_iterations)
     warnings = list(design.warnings)
     p = scaled.shape[1]
     try:
@@ -212,7 +220,7 @@ def fit_cox(
         warnings.append(
             f"Only {events / p:.1f} events per model parameter ({events} events, {p} parameters): "
             f"fewer than {EVENTS_PER_PARAMETER} (a common rule of thumb, after Peduzzi et al. "
-            "1996); the estimates may be biased and the tests unreliable. Use fewer covariates."
+            "1995); the estimates may be biased and the tests unreliable. Use fewer covariates."
         )
     terms = term_estimates(design.terms, beta, covariance, confidence)
     eta = scaled @ fit.beta

@@ -87,7 +87,8 @@ def build_layout(time, event, stratum=None, entry=None) -> RiskSetLayout:
     row_first_group = np.minimum(row_first_group, row_end_group)
     # Risk sets without delayed entry are runs of sorted rows, [group_start, stratum end): sums
     # over the stretches between these boundaries, then a reverse cumulative sum, give them all.
-    bounds = np.unique(np.concatenate([group_start, group_stratum_end]))
+    # The group's own events, [group_start, group_start + size), are one stretch too.
+    bounds = np.unique(np.concatenate([group_start, group_start + group_size, group_stratum_end]))
     bounds = bounds[bounds < n]
     return RiskSetLayout(
         order=order,
@@ -110,26 +111,28 @@ def build_layout(time, event, stratum=None, entry=None) -> RiskSetLayout:
     )
 
 
-def _group_sums(layout: RiskSetLayout, values: np.ndarray) -> np.ndarray:
-    """Sum of ``values`` (sorted rows, 1-D or 2-D) over each group's risk set."""
+def _group_sums(layout: RiskSetLayout, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per group, sums of ``values`` (sorted rows, 1-D or 2-D) over its risk set and over its
+    own events."""
+    segments = np.add.reduceat(values, layout.segment_bounds, axis=0)
+    events = segments[layout.group_first_segment]
     if not layout.has_entry:
-        segments = np.add.reduceat(values, layout.segment_bounds, axis=0)
         tail = np.zeros((len(segments) + 1, *values.shape[1:]))
         tail[:-1] = np.cumsum(segments[::-1], axis=0)[::-1]
-        return tail[layout.group_first_segment] - tail[layout.group_end_segment]
+        return tail[layout.group_first_segment] - tail[layout.group_end_segment], events
     # With delayed entry a row adds to the groups in [row_first_group, row_end_group).
     size = layout.n_groups + 1
     if values.ndim == 1:
         diff = np.bincount(layout.row_first_group, values, size) - np.bincount(
             layout.row_end_group, values, size
         )
-        return np.cumsum(diff)[:-1]
+        return np.cumsum(diff)[:-1], events
     columns = [
         np.bincount(layout.row_first_group, values[:, j], size)
         - np.bincount(layout.row_end_group, values[:, j], size)
         for j in range(values.shape[1])
     ]
-    return np.cumsum(np.column_stack(columns), axis=0)[:-1]
+    return np.cumsum(np.column_stack(columns), axis=0)[:-1], events
 
 
 def row_totals(layout: RiskSetLayout, per_group: np.ndarray) -> np.ndarray:
@@ -145,43 +148,44 @@ class LikelihoodTerms:
     information: np.ndarray
 
 
-def _denominators(layout, weights, ties):
-    """Per event: the (Efron-adjusted) risk-set sum; also the per-group sums it used."""
-    s0 = _group_sums(layout, weights)
-    d0 = np.add.reduceat(weights[layout.event_rows], layout.group_offsets)
+def _event_weights(layout, weights, ties):
+    """Per event: the (Efron-adjusted) denominator S0 - f D0, with f = l/d for the l-th of d tied
+    events (f = 0 for Breslow); also a = 1/den and b = f/den, which carry everything else."""
+    s0, d0 = _group_sums(layout, weights)
     frac = layout.event_fraction if ties == "efron" else np.zeros(layout.n_events)
     g = layout.event_group
-    return s0[g] - frac * d0[g], s0, d0, frac
+    den = s0[g] - frac * d0[g]
+    a = 1.0 / den
+    return den, a, frac * a
 
 
 def partial_likelihood(layout: RiskSetLayout, x: np.ndarray, beta: np.ndarray, ties: str):
     """Log partial likelihood, score vector and observed information at ``beta``.
 
-    ``x`` is the design in sorted row order (n x p, p may be 0).
+    ``x`` is the design in sorted row order (n x p, p may be 0). With S1, D1 the group's risk-set
+    and tied-event sums of w x (and S2, D2 of w x x'), each event contributes the mean
+    v = S1 a - D1 b and the information (S2 a - D2 b) - v v'; summed per group these need only
+    the per-group sums of a, b, a^2, ab and b^2.
     """
     p = x.shape[1]
     eta = x @ beta if p else np.zeros(len(x))
     shift = eta.max() if len(eta) else 0.0
     weights = np.exp(eta - shift)
-    den, _s0, _d0, frac = _denominators(layout, weights, ties)
-    g = layout.event_group
+    den, a, b = _event_weights(layout, weights, ties)
     ev = layout.event_rows
     loglik = float(eta[ev].sum() - np.log(den).sum() - shift * layout.n_events)
     if p == 0:
         return LikelihoodTerms(loglik, np.zeros(0), np.zeros((0, 0)))
-    wx = x * weights[:, None]
-    s1 = _group_sums(layout, wx)
-    d1 = np.add.reduceat(wx[ev], layout.group_offsets, axis=0)
-    numer = s1[g] - frac[:, None] * d1[g]
-    mean = numer / den[:, None]
-    score = x[ev].sum(axis=0) - mean.sum(axis=0)
-    inv = 1.0 / den
-    per_group = np.bincount(g, inv, layout.n_groups)
-    per_group_frac = np.bincount(g, frac * inv, layout.n_groups)
-    row_weight = weights * row_totals(layout, per_group)
-    # Efron: the tied events' own share is removed with weight sum(l/d / den) in their group.
-    row_weight[ev] -= weights[ev] * per_group_frac[g]
-    information = (x * row_weight[:, None]).T @ x - mean.T @ mean
+    g, n_groups = layout.event_group, layout.n_groups
+    sum_a, sum_b = np.bincount(g, a, n_groups), np.bincount(g, b, n_groups)
+    s1, d1 = _group_sums(layout, x * weights[:, None])
+    score = layout.event @ x - (sum_a @ s1 - sum_b @ d1)
+    row_weight = weights * row_totals(layout, sum_a)
+    row_weight[ev] -= weights[ev] * sum_b[g]
+    aa, ab, bb = (np.bincount(g, v, n_groups) for v in (a * a, a * b, b * b))
+    cross = (s1 * ab[:, None]).T @ d1
+    outer = (s1 * aa[:, None]).T @ s1 - cross - cross.T + (d1 * bb[:, None]).T @ d1
+    information = (x * row_weight[:, None]).T @ x - outer
     return LikelihoodTerms(loglik, score, information)
 
 
@@ -261,18 +265,15 @@ def event_means(layout: RiskSetLayout, x: np.ndarray, beta: np.ndarray, ties: st
     with; for Efron, averaged over the tied events' adjusted risk sets as in the likelihood."""
     eta = x @ beta
     weights = np.exp(eta - eta.max())
-    den, _s0, _d0, frac = _denominators(layout, weights, ties)
-    wx = x * weights[:, None]
-    s1 = _group_sums(layout, wx)
-    d1 = np.add.reduceat(wx[layout.event_rows], layout.group_offsets, axis=0)
-    g = layout.event_group
-    mean = (s1[g] - frac[:, None] * d1[g]) / den[:, None]
-    group_mean = np.add.reduceat(mean, layout.group_offsets, axis=0) / layout.group_size[:, None]
-    return group_mean[g]
+    _den, a, b = _event_weights(layout, weights, ties)
+    g, n_groups = layout.event_group, layout.n_groups
+    s1, d1 = _group_sums(layout, x * weights[:, None])
+    total = np.bincount(g, a, n_groups)[:, None] * s1 - np.bincount(g, b, n_groups)[:, None] * d1
+    return (total / layout.group_size[:, None])[g]
 
 
 def baseline_hazard(layout: RiskSetLayout, eta: np.ndarray) -> np.ndarray:
     """Breslow hazard increment per group for linear predictor ``eta`` (sorted rows): events in
     the group divided by the risk-set sum of exp(eta)."""
-    s0 = _group_sums(layout, np.exp(eta))
+    s0, _ = _group_sums(layout, np.exp(eta))
     return layout.group_size / s0

@@ -155,7 +155,8 @@ def typical_profile(result: CoxResult) -> dict:
 
 
 def level_profiles(result: CoxResult, variable: str) -> dict[str, dict]:
-    """Profiles varying one covariate (each level; or a numeric's quartiles), others typical."""
+    """Profiles varying one covariate (each level; a numeric's quartiles, or its values when it
+    has five or fewer), the others typical."""
     design = result.design
     if variable not in design.variables:
         raise AnalysisError(
@@ -167,6 +168,9 @@ def level_profiles(result: CoxResult, variable: str) -> dict[str, dict]:
         values = list(design.levels[variable])
         return {f"{variable} = {v}": {**base, variable: v} for v in values}
     column = design.matrix[:, design.columns_of(variable)[0]]
+    distinct = np.unique(column)
+    if len(distinct) <= 5:  # a coded variable (e.g. 0/1): its own values, not quartiles
+        return {f"{variable} = {v:.4g}": {**base, variable: float(v)} for v in distinct}
     quartiles = np.quantile(column, [0.25, 0.5, 0.75])
     return {
         f"{variable} = {q:.4g} ({name})": {**base, variable: float(q)}

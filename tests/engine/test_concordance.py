@@ -51,6 +51,16 @@ def test_matches_direct_count_with_tied_times_and_scores(seed):
     assert result.comparable == comp.sum() / 2
 
 
+def test_matches_direct_count_with_distinct_scores(rng):
+    time, event, _ = tied_sample(rng, 80)
+    risk = rng.normal(size=80)  # no tied scores: the fast path
+    conc, comp = direct_counts(time, event, risk)
+    mine_conc, mine_comp, tied = pair_counts(time, event, risk)
+    np.testing.assert_allclose(mine_conc, conc)
+    np.testing.assert_allclose(mine_comp, comp)
+    assert tied == 0
+
+
 @pytest.mark.parametrize("seed", [5, 6])
 def test_matches_lifelines_concordance_index(seed):
     # lifelines scores "higher = survives longer": pass the negated risk.

@@ -271,6 +271,14 @@ def test_predicted_survival_per_stratum_and_levels(rng):
         assert np.all(np.diff(curve["survival"]) <= 0)
 
 
+def test_numeric_profiles_use_values_or_quartiles(rossi):
+    result = fit_cox(rossi, ROSSI_COVARIATES)
+    assert list(level_profiles(result, "fin")) == ["fin = 0", "fin = 1"]
+    ages = [p["age"] for p in level_profiles(result, "age").values()]
+    np.testing.assert_allclose(ages, np.quantile(rossi["age"], [0.25, 0.5, 0.75]))
+    assert level_profiles(result, "fin")["fin = 1"]["prio"] == pytest.approx(rossi["prio"].mean())
+
+
 def test_json_contract(rossi):
     result = fit_cox(rossi, ROSSI_COVARIATES)
     out = cox_json(result)
@@ -306,6 +314,12 @@ def test_few_events_per_parameter_and_small_level_warn(rng):
     assert any("'tiny'" in w and "'rare' (3 rows)" in w for w in result.warnings)
 
 
+def test_non_convergence_warns(rossi):
+    result = fit_cox(rossi, ROSSI_COVARIATES, max_iterations=1)
+    assert not result.converged
+    assert any("did not converge" in w for w in result.warnings)
+
+
 def test_near_collinear_covariates_warn(rng):
     frame = simulated(rng)
     frame["x1_copy"] = frame["x1"] + rng.normal(scale=0.01, size=len(frame))
@@ -321,13 +335,15 @@ def test_near_collinear_covariates_warn(rng):
         (lambda f: f.assign(word=["a", "b"] * 200), ["word"], "word"),
         (lambda f: f.assign(_event=0), ["x1"], "event"),
         (lambda f: f, ["missing_column"], "missing_column"),
+        (lambda f: f.assign(_entry=f["_time"]), ["x1"], "_entry"),
     ],
-    ids=["constant", "collinear", "not-numeric", "no-events", "unknown-column"],
+    ids=["constant", "collinear", "not-numeric", "no-events", "unknown-column", "late-entry"],
 )
 def test_unfittable_models_raise_naming_the_problem(rng, change, covariates, message):
     frame = change(simulated(rng))
+    entry = "_entry" if "_entry" in frame else None
     with pytest.raises(AnalysisError, match=message):
-        fit_cox(frame, covariates)
+        fit_cox(frame, covariates, entry=entry)
 
 
 def test_unknown_reference_level_raises(rng):

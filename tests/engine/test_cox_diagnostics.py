@@ -11,7 +11,7 @@ from lifelines import CoxPHFitter, KaplanMeierFitter
 from lifelines.datasets import load_rossi
 from lifelines.statistics import proportional_hazard_test
 
-from engine.cox import fit_cox
+from engine.cox import cox_json, fit_cox
 from engine.cox_diagnostics import (
     log_minus_log,
     martingale_residuals,
@@ -173,6 +173,14 @@ def test_log_minus_log_matches_lifelines_kaplan_meier(rossi_fits):
         expected = km.survival_function_at_times(mine["time"]).to_numpy()
         np.testing.assert_allclose(mine["survival"], expected, atol=1e-12)
         np.testing.assert_allclose(mine["log_minus_log"], np.log(-np.log(expected)))
+
+
+def test_json_ph_check_lists_variables_and_global(rossi_fits):
+    _, ours, _ = rossi_fits
+    checks = cox_json(ours, proportional_hazards_test(ours).checks)["ph_check"]
+    assert [c["variable"] for c in checks] == [*COVARIATES, "GLOBAL"]
+    assert checks[-1]["df"] == 7
+    assert all(set(c) == {"variable", "statistic", "df", "p_value"} for c in checks)
 
 
 def test_unknown_transform_raises(rossi_fits):
