@@ -15,6 +15,10 @@ from dataclasses import dataclass, replace
 import altair as alt
 import pandas as pd
 
+# Thinning bounds what a chart carries (a few thousand vertices per curve); Altair's default
+# limit of 5,000 rows per chart would refuse several thinned curves drawn together.
+alt.data_transformers.disable_max_rows()
+
 # Okabe & Ito (2008), "Color Universal Design", in an order of our own: the first colours are
 # the most distinct from each other on white and for the common colour-vision deficiencies.
 PALETTE = (
@@ -71,14 +75,16 @@ def _colour(field: str, colours: dict[str, str], levels: Sequence[str], title: s
     return alt.Color(
         f"{field}:N",
         scale=alt.Scale(domain=domain, range=[colours.get(d, ALL_ROWS_COLOUR) for d in domain]),
-        legend=alt.Legend(title=title, orient="top", direction="horizontal")
+        legend=alt.Legend(
+            title=title, orient="right", symbolType="stroke", symbolOpacity=1, labelLimit=220
+        )
         if title is not None
         else None,
         sort=domain,
     )
 
 
-def nice_ticks(upper: float, count: int = 6) -> list[float]:
+def nice_ticks(upper: float, count: int = 8) -> list[float]:
     """Round tick positions from 0 to ``upper`` (1, 2 or 5 times a power of ten apart).
 
     Both the curve and the numbers-at-risk table use these, so their columns line up.
@@ -92,31 +98,46 @@ def nice_ticks(upper: float, count: int = 6) -> list[float]:
     return [round(i * step, 10) for i in range(n + 1)]
 
 
-def finish(chart: alt.TopLevelMixin, style: ChartStyle) -> alt.TopLevelMixin:
-    """House look: type sizes, colours and a quiet frame, scaled by the style."""
-    return (
-        chart.configure(font=FONT)
-        .configure_view(stroke=None)
-        .configure_axis(
-            labelFontSize=style.font_size,
-            titleFontSize=style.font_size + 1,
-            labelColor=INK,
-            titleColor=INK,
-            titleFontWeight="normal",
-            gridColor="#E3E8E8",
-            domainColor="#9AA5A5",
-            tickColor="#9AA5A5",
-        )
-        .configure_legend(
-            labelFontSize=style.font_size,
-            titleFontSize=style.font_size,
-            titleFontWeight="normal",
-            symbolStrokeWidth=style.line_width,
-        )
-        .configure_title(
-            fontSize=style.title_size, anchor="start", color=INK, fontWeight="bold", offset=10
-        )
-    )
+def house_config(style: ChartStyle) -> dict:
+    """House look as a Vega-Lite config: type sizes, colours and a quiet frame."""
+    return {
+        "font": FONT,
+        "view": {"stroke": None},
+        "axis": {
+            "labelFontSize": style.font_size,
+            "titleFontSize": style.font_size + 1,
+            "labelColor": INK,
+            "titleColor": INK,
+            "titleFontWeight": "normal",
+            "gridColor": "#E3E8E8",
+            "domainColor": "#9AA5A5",
+            "tickColor": "#9AA5A5",
+        },
+        "legend": {
+            "labelFontSize": style.font_size,
+            "titleFontSize": style.font_size,
+            "titleFontWeight": "normal",
+            "symbolStrokeWidth": style.line_width,
+        },
+        "title": {
+            "fontSize": style.title_size,
+            "anchor": "start",
+            "color": INK,
+            "fontWeight": "bold",
+            "offset": 10,
+        },
+    }
+
+
+def finish(chart: alt.TopLevelMixin, style: ChartStyle) -> dict:
+    """The Vega-Lite spec to draw and export, with the house look.
+
+    Built as a plain dictionary: Altair's own validation and copying of a finished layered chart
+    take longer than a display switch may (tests validate every builder's output instead).
+    """
+    spec = chart.to_dict(validate=False)
+    spec["config"] = house_config(style)
+    return spec
 
 
 def _title(style: ChartStyle) -> alt.TitleParams | str:
@@ -169,7 +190,9 @@ def step_curve_chart(
         alt.Tooltip("upper:Q", title="Interval to", format=".3f"),
         alt.Tooltip("at_risk:Q", title="At risk", format=","),
     ]
-    base = alt.Chart(data).encode(x=x, color=colour)
+    # Layers carry no data of their own (the layer holds it once): Altair copies a chart's data
+    # on every method call, which for thousands of vertices costs more than drawing them.
+    base = alt.Chart().encode(x=x, color=colour)
     layers = []
     if band:
         layers.append(
@@ -189,10 +212,11 @@ def step_curve_chart(
     )
     if censored is not None and not censored.empty:
         marks = censored.assign(group=censored["group"].astype(str))
+        tick = alt.Chart().mark_tick(
+            orient="vertical", size=style.font_size * 0.7, thickness=1.4, clip=True
+        )
         layers.append(
-            alt.Chart(marks)
-            .mark_tick(orient="vertical", size=style.font_size * 0.7, thickness=1.4, clip=True)
-            .encode(
+            tick.encode(
                 x="time:Q",
                 y="estimate:Q",
                 color=colour,
@@ -200,9 +224,9 @@ def step_curve_chart(
                     alt.Tooltip("group:N", title="Group"),
                     alt.Tooltip("time:Q", title="Censored at", format=",.4~g"),
                 ],
-            )
+            ).properties(data=marks)
         )
-    return alt.layer(*layers).properties(
+    return alt.layer(*layers, data=data).properties(
         width=style.width, height=style.height, title=_title(style)
     )
 
@@ -243,7 +267,8 @@ def at_risk_chart(
                 axis=alt.Axis(
                     minExtent=Y_AXIS_EXTENT,
                     maxExtent=Y_AXIS_EXTENT,
-                    labelLimit=Y_AXIS_EXTENT - 10,
+                    labelLimit=Y_AXIS_EXTENT - 24,
+                    labelPadding=24,
                     ticks=False,
                     domain=False,
                 ),

@@ -392,3 +392,103 @@ def group_levels(
     """Labels of the compared groups, in their display order."""
     frame = comparison_frame(fingerprint, roles_text, grouping, None, _table)
     return [str(x) for x in frame["_group"].cat.categories]
+
+
+# --- Cox regression -------------------------------------------------------------------------
+
+MODEL_STRATA = "_model_strata"
+
+
+def model_frame(
+    fingerprint: str, roles_text: str, strata_column: str | None, table: ImportedTable
+) -> pd.DataFrame:
+    """The prepared frame, with the chosen strata column added when it is not the strata role."""
+    frame = _frame(fingerprint, roles_text, table)
+    if strata_column is None:
+        return frame
+    out = frame.copy()
+    out[MODEL_STRATA] = table.frame.loc[frame.index, strata_column].to_numpy()
+    return out
+
+
+@st.cache_resource(max_entries=8, show_spinner="Fitting the Cox model…")
+def cox_model(
+    fingerprint: str,
+    roles_text: str,
+    covariates: tuple[str, ...],
+    categorical: tuple[str, ...],
+    reference: tuple[tuple[str, str], ...],
+    strata_column: str | None,
+    ties: str,
+    _table: ImportedTable,
+):
+    from engine.cox import fit_cox
+
+    frame = model_frame(fingerprint, roles_text, strata_column, _table)
+    return fit_cox(
+        frame,
+        list(covariates),
+        categorical=list(categorical),
+        reference=dict(reference) or None,
+        strata=MODEL_STRATA if strata_column else None,
+        ties=ties,
+        entry="_entry" if "_entry" in frame.columns else None,
+    )
+
+
+@st.cache_data(max_entries=8, show_spinner="Checking proportional hazards…")
+def ph_check(model_key: tuple, transform: str, _table: ImportedTable) -> tuple:
+    """The PH test and the scaled Schoenfeld residuals (for the plots)."""
+    from engine.cox_diagnostics import proportional_hazards_test, schoenfeld_residuals
+
+    result = cox_model(*model_key, _table)
+    residuals = schoenfeld_residuals(result, transform)
+    test = proportional_hazards_test(result, transform, residuals=residuals)
+    return test, residuals.to_frame()
+
+
+@st.cache_data(max_entries=8, show_spinner="Screening each covariate alone…")
+def univariable(model_key: tuple, _table: ImportedTable) -> pd.DataFrame:
+    from engine.cox_summaries import univariable_screen
+
+    return univariable_screen(cox_model(*model_key, _table)).to_frame()
+
+
+@st.cache_data(max_entries=8, show_spinner=False)
+def forest(model_key: tuple, _table: ImportedTable) -> pd.DataFrame:
+    from engine.cox_summaries import forest_data
+
+    return forest_data(cox_model(*model_key, _table)).to_frame()
+
+
+@st.cache_data(max_entries=8, show_spinner="Computing residuals…")
+def martingale(model_key: tuple, _table: ImportedTable) -> tuple[pd.DataFrame, pd.DataFrame]:
+    from engine.cox_diagnostics import martingale_residuals
+
+    result = martingale_residuals(cox_model(*model_key, _table))
+    return result.table, result.bins
+
+
+@st.cache_data(max_entries=8, show_spinner=False)
+def log_minus_log_lines(
+    fingerprint: str, roles_text: str, variable: str, _table: ImportedTable
+) -> pd.DataFrame:
+    from engine.cox_diagnostics import log_minus_log
+
+    return log_minus_log(_frame(fingerprint, roles_text, _table), variable).to_frame()
+
+
+@st.cache_data(max_entries=8, show_spinner="Predicting curves…")
+def predicted(model_key: tuple, variable: str, _table: ImportedTable) -> tuple:
+    from engine.cox_summaries import level_profiles, predict_survival
+
+    result = cox_model(*model_key, _table)
+    prediction = predict_survival(result, level_profiles(result, variable))
+    return prediction.to_frame(), prediction.profiles
+
+
+def sample_rows(frame: pd.DataFrame, limit: int, seed: int = 20261202) -> pd.DataFrame:
+    """At most ``limit`` rows to draw as dots (seeded, so the picture does not change)."""
+    if len(frame) <= limit:
+        return frame
+    return frame.sample(n=limit, random_state=seed).sort_index()

@@ -38,14 +38,18 @@ def table_csv(frame: pd.DataFrame) -> bytes:
     return out.to_csv(index=False).encode("utf-8")
 
 
-def figure_svg(chart: alt.TopLevelMixin) -> str:
-    """The chart as a standalone SVG document."""
-    return vl_convert.vegalite_to_svg(chart.to_dict())
+def _spec(figure: alt.TopLevelMixin | dict) -> dict:
+    return figure if isinstance(figure, dict) else figure.to_dict()
 
 
-def figure_png(chart: alt.TopLevelMixin, scale: float = 2.0) -> bytes:
+def figure_svg(figure: alt.TopLevelMixin | dict) -> str:
+    """A chart (or its Vega-Lite spec) as a standalone SVG document."""
+    return vl_convert.vegalite_to_svg(_spec(figure))
+
+
+def figure_png(figure: alt.TopLevelMixin | dict, scale: float = 2.0) -> bytes:
     """The chart as a PNG at ``scale`` times its on-screen size (2 = sharp on slides and paper)."""
-    return vl_convert.vegalite_to_png(chart.to_dict(), scale=scale)
+    return vl_convert.vegalite_to_png(_spec(figure), scale=scale)
 
 
 def file_stem(title: str, fallback: str = "hazel") -> str:

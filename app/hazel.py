@@ -15,7 +15,7 @@ if str(ROOT) not in sys.path:  # `streamlit run app/hazel.py` puts only app/ on 
 
 import streamlit as st  # noqa: E402
 
-from app import data, state, ui  # noqa: E402
+from app import compute, data, state, ui  # noqa: E402, F401  (compute: load the engine once, up front)
 
 st.set_page_config(
     page_title="Hazel · time-to-event explorer",

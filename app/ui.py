@@ -50,21 +50,22 @@ def chart_style() -> charts.ChartStyle:
 
 
 def label_inputs(prefix: str, title: str, x_title: str, y_title: str) -> tuple[str, str, str]:
-    """Editable title and axis labels for one figure, kept per figure under ``prefix``."""
+    """Editable title and axis labels for one figure; left empty, each keeps its default."""
     with st.expander("Title and axis labels"):
         cols = st.columns(3)
-        chosen = (
-            cols[0].text_input("Title", value=title, key=f"{prefix}_title"),
-            cols[1].text_input("Horizontal axis", value=x_title, key=f"{prefix}_xlabel"),
-            cols[2].text_input("Vertical axis", value=y_title, key=f"{prefix}_ylabel"),
+        typed = (
+            cols[0].text_input("Title", placeholder=title, key=f"{prefix}_title"),
+            cols[1].text_input("Horizontal axis", placeholder=x_title, key=f"{prefix}_xlabel"),
+            cols[2].text_input("Vertical axis", placeholder=y_title, key=f"{prefix}_ylabel"),
         )
-    return chosen
+        st.caption("Leave a box empty to keep the label shown in grey.")
+    return tuple(t.strip() or d for t, d in zip(typed, (title, x_title, y_title), strict=True))
 
 
 def figure(chart: alt.TopLevelMixin, style: charts.ChartStyle, name: str, key: str) -> None:
     """Draw a chart, with PNG and SVG downloads made only when asked for."""
     finished = charts.finish(chart, style)
-    st.altair_chart(finished, theme=None)
+    st.vega_lite_chart(finished, theme=None, width="content")
     stem = exports.file_stem(style.title or name, name)
     cols = st.columns([1, 1, 6])
     cols[0].download_button(
@@ -204,3 +205,16 @@ def sidebar(roles_page) -> None:
                 st.caption(f"{len(report.warnings)} data warning(s)")
         st.page_link(roles_page, label="Data-quality report", icon=":material/fact_check:")
         st.caption("Data stays on this computer. For research and exploration only.")
+
+
+def remember(key: str, value) -> None:
+    """Give a widget its first value through session state (never as a widget argument too:
+    that clashes with the values kept across page switches)."""
+    if key not in st.session_state:
+        st.session_state[key] = value
+
+
+def remember_choice(key: str, options: list, value) -> None:
+    """Like ``remember``, and reset a kept choice that is no longer among the options."""
+    if st.session_state.get(key) not in options:
+        st.session_state[key] = value if value in options else (options[0] if options else None)

@@ -45,11 +45,11 @@ numeric = [
 ]
 has_group = roles.group is not None
 cols = st.columns([2, 3])
+ui.remember("compare_source", ROLE if has_group else CUT)
 source = cols[0].radio(
     "Compare the groups of",
     [ROLE, CUT],
     key="compare_source",
-    index=0 if has_group else 1,
     captions=[f"now: {roles.group}" if has_group else "none set on Column roles", None],
 )
 if source == ROLE and not has_group:
@@ -63,8 +63,9 @@ if source == CUT:
         st.stop()
     with cols[1]:
         column = st.selectbox("Numeric column", numeric, key="compare_cut_column")
+        ui.remember("compare_cut_k", 2)
         k = st.select_slider(
-            "Number of groups of about equal size", [2, 3, 4, 5], value=2, key="compare_cut_k"
+            "Number of groups of about equal size", [2, 3, 4, 5], key="compare_cut_k"
         )
         st.warning(
             "Decide the number of groups before looking at the results. Trying cut after cut and "
@@ -97,10 +98,10 @@ with st.container(border=True):
         if frame[c].nunique() <= 20 and str(c) not in (roles.time, roles.event, roles.group)
     ]
     default_strata = roles.strata if roles.strata in strata_options else strata_options[0]
+    ui.remember_choice("compare_strata", strata_options, default_strata)
     strata_choice = st.selectbox(
         "Stratify by",
         strata_options,
-        index=strata_options.index(default_strata),
         key="compare_strata",
         help="Compares groups within each stratum and adds up the evidence: use it when a "
         "factor such as site affects survival but is not what you are comparing.",
@@ -186,10 +187,13 @@ if n_levels >= 3 or grouping[0] == "cut":
             "order; it is more powerful than the overall test when that is the question.",
         ):
             labels = compute.group_levels(*key, table)
+            ui.remember("compare_trend_order", labels)
+            st.session_state["compare_trend_order"] = [
+                x for x in st.session_state["compare_trend_order"] if x in labels
+            ]
             order = st.multiselect(
                 "Order, lowest first (pick every group in order)",
                 labels,
-                default=labels,
                 key="compare_trend_order",
             )
             scores_text = st.text_input(
@@ -278,14 +282,14 @@ st.subheader("Restricted mean survival time difference", anchor=False)
 with ui.guard("The RMST difference"):
     labels = compute.group_levels(*key, table)
     cols = st.columns(3)
-    first = cols[0].selectbox("Group", labels, index=0, key="compare_rmst_a")
-    second = cols[1].selectbox(
-        "against", labels, index=min(1, len(labels) - 1), key="compare_rmst_b"
-    )
+    ui.remember_choice("compare_rmst_a", labels, labels[0])
+    ui.remember_choice("compare_rmst_b", labels, labels[min(1, len(labels) - 1)])
+    first = cols[0].selectbox("Group", labels, key="compare_rmst_a")
+    second = cols[1].selectbox("against", labels, key="compare_rmst_b")
+    ui.remember("compare_tau", 0.0)
     tau = cols[2].number_input(
         f"Horizon τ ({prepared.report.time_unit}), 0 = automatic",
         min_value=0.0,
-        value=0.0,
         key="compare_tau",
     )
     if first == second:

@@ -33,11 +33,11 @@ except HazelError as error:
 
 has_group = roles.group is not None and "_group" in base.frame.columns
 row = st.columns([2, 3, 2, 2])
+ui.remember("curves_for", "Each group" if has_group else "All rows")
 by_group = (
     row[0].segmented_control(
         "Curves for",
         ["All rows", "Each group"],
-        default="Each group" if has_group else "All rows",
         key="curves_for",
         disabled=not has_group,
         help=None if has_group else "Choose a group column on the Column roles page.",
@@ -47,24 +47,22 @@ by_group = (
 )
 scale_label = row[1].selectbox("Show", list(SCALES), key="curves_scale")
 scale = SCALES[scale_label]
-unit = row[2].selectbox(
-    "Time unit",
-    list(TIME_UNITS),
-    index=list(TIME_UNITS).index(base.report.time_unit),
-    key="curves_unit",
-)
+ui.remember("curves_unit", base.report.time_unit)
+unit = row[2].selectbox("Time unit", list(TIME_UNITS), key="curves_unit")
+ui.remember("curves_xmax", 0.0)
 x_limit = row[3].number_input(
     f"Show up to time ({unit})",
     min_value=0.0,
-    value=0.0,
     step=1.0,
     key="curves_xmax",
     help="0 shows the whole follow-up.",
 )
 toggles = st.columns(4)
-band = toggles[0].toggle("Interval band", value=True, key="curves_band")
-censor = toggles[1].toggle("Censoring marks", value=True, key="curves_censor")
-risk = toggles[2].toggle("Numbers at risk", value=True, key="curves_risk")
+for key in ("curves_band", "curves_censor", "curves_risk"):
+    ui.remember(key, True)
+band = toggles[0].toggle("Interval band", key="curves_band")
+censor = toggles[1].toggle("Censoring marks", key="curves_censor")
+risk = toggles[2].toggle("Numbers at risk", key="curves_risk")
 with st.expander("Estimation settings"):
     cols = st.columns(2)
     confidence = CONFIDENCE[
@@ -156,10 +154,10 @@ times_text = cols[0].text_input(
     key="curves_times",
     placeholder="e.g. 12, 24, 36",
 )
+ui.remember("curves_tau", 0.0)
 tau_value = cols[1].number_input(
     f"RMST horizon τ ({unit}), 0 = automatic",
     min_value=0.0,
-    value=0.0,
     key="curves_tau",
     help="Restricted mean survival time: the average event-free time up to τ. Automatic: the "
     "smallest of the groups' largest observed times.",

@@ -48,21 +48,25 @@ with left:
         key="import_file_upload",
         help="The file is read on this computer and never sent anywhere.",
     )
+    pending = st.session_state.pop(state.PENDING_UPLOAD, None)
     if upload is not None:
         content = upload.getvalue()
         digest = hashlib.sha256(content).hexdigest()
         if st.session_state.get(UPLOAD_DIGEST) != digest:
             st.session_state[UPLOAD_DIGEST] = digest
-            try:
-                data.open_upload(st.session_state, content, upload.name)
-            except HazelError as error:
-                st.session_state[state.LOAD_ERROR] = (
-                    f"{upload.name} could not be read: {error} The data in use has not changed."
-                )
-            else:
-                st.session_state[UPLOAD_BYTES] = content
-                st.session_state[UPLOAD_NAME] = upload.name
-            st.rerun()
+            pending = (upload.name, content)
+    if pending is not None:
+        name, content = pending
+        try:
+            data.open_upload(st.session_state, content, name)
+        except HazelError as error:
+            st.session_state[state.LOAD_ERROR] = (
+                f"{name} could not be read: {error} The data in use has not changed."
+            )
+        else:
+            st.session_state[UPLOAD_BYTES] = content
+            st.session_state[UPLOAD_NAME] = name
+        st.rerun()
 
 with right:
     st.subheader("Or open a demo dataset", anchor=False)
@@ -94,9 +98,9 @@ st.divider()
 unsure = not table.confident
 for note in table.notes:
     st.caption(f"ℹ︎ {ui.escape(note)}")
+ui.remember("import_show_options", unsure)
 show = st.toggle(
     "Show import options",
-    value=unsure,
     key="import_show_options",
     help="Separator, decimal mark, encoding, sheet and missing-value markers.",
 )
@@ -116,9 +120,9 @@ if show:
         sheet = cols[3].text_input(
             "Excel sheet (name)", key="import_sheet", help="Empty = the first sheet."
         )
+        ui.remember("import_missing", " ".join(t for t in DEFAULT_MISSING_TOKENS if t))
         missing = st.text_input(
             "Values that mean 'missing' (separated by spaces)",
-            value=" ".join(t for t in DEFAULT_MISSING_TOKENS if t),
             key="import_missing",
             help="Empty cells always count as missing.",
         )

@@ -1,5 +1,405 @@
-"""Placeholder."""
+"""Regression: a Cox model built from the covariates, with its warnings up front, hazard ratios,
+tests, proportional-hazards and functional-form checks, and predicted curves."""
 
+from __future__ import annotations
+
+import pandas as pd
 import streamlit as st
 
-st.title("regression")
+from app import charts, compute, data, thinning, ui
+from engine.errors import HazelError
+
+TIES = {"Efron (default)": "efron", "Breslow": "breslow"}
+PH_TRANSFORMS = {
+    "Kaplan–Meier scale (default)": "km",
+    "rank of time": "rank",
+    "time itself": "identity",
+    "log time": "log",
+}
+NO_STRATA = "(no strata)"
+DOT_LIMIT = 4000  # dots drawn in a residual plot; beyond this a seeded sample is drawn
+
+st.title("Regression", anchor=False)
+st.caption("Cox proportional-hazards model: how each covariate goes with the hazard of the event.")
+table = data.current_table(st.session_state)
+roles = data.current_roles(st.session_state)
+if table is None or roles is None:
+    st.info("Open a demo or upload a file on the Data import page first.")
+    st.stop()
+try:
+    prepared = data.prepared(table, roles)
+except HazelError as error:
+    st.error(f"The column roles need attention before a model can be fitted. {error}")
+    st.page_link("views/column_roles.py", label="Fix the column roles", icon=":material/build:")
+    st.stop()
+if not roles.covariates:
+    st.info("No covariates are chosen. Pick them on the Column roles page.")
+    st.page_link("views/column_roles.py", label="Column roles", icon=":material/view_column:")
+    st.stop()
+
+frame = prepared.frame
+kinds = prepared.report.covariate_kinds
+is_categorical = {
+    c: isinstance(frame[c].dtype, pd.CategoricalDtype) for c in roles.covariates if c in frame
+}
+
+# --- model builder --------------------------------------------------------------------------
+
+with st.container(border=True):
+    st.subheader("Model", anchor=False)
+    ui.remember("model_covariates", list(roles.covariates))
+    st.session_state["model_covariates"] = [
+        c for c in st.session_state["model_covariates"] if c in roles.covariates
+    ]
+    covariates = st.multiselect(
+        "Covariates in the model",
+        list(roles.covariates),
+        key="model_covariates",
+        help="Add more covariates, or change a covariate's type, on the Column roles page.",
+    )
+    categorical = [c for c in covariates if is_categorical.get(c)]
+    reference: list[tuple[str, str]] = []
+    if categorical:
+        cols = st.columns(min(len(categorical), 4))
+        for i, column in enumerate(categorical):
+            levels = [str(x) for x in frame[column].cat.categories]
+            ui.remember_choice(f"model_reference_{column}", levels, levels[0])
+            choice = cols[i % len(cols)].selectbox(
+                f"Reference level of {column}",
+                levels,
+                key=f"model_reference_{column}",
+                help="Hazard ratios of the other levels are relative to this one.",
+            )
+            reference.append((column, choice))
+    cols = st.columns(2)
+    strata_options = [NO_STRATA] + [
+        str(c)
+        for c in table.frame.columns
+        if table.frame[c].nunique() <= 20 and str(c) not in (roles.time, roles.event, *covariates)
+    ]
+    default_strata = roles.strata if roles.strata in strata_options else NO_STRATA
+    ui.remember_choice("model_strata", strata_options, default_strata)
+    strata = cols[0].selectbox(
+        "Strata (own baseline hazard per stratum)",
+        strata_options,
+        key="model_strata",
+    )
+    ties = TIES[
+        cols[1].radio(
+            "Tied event times",
+            list(TIES),
+            key="model_ties",
+            horizontal=True,
+            help="Efron's method is more accurate when many events share a time.",
+        )
+    ]
+
+if not covariates:
+    st.info("Choose at least one covariate to fit a model.")
+    st.stop()
+
+model_key = (
+    table.sha256,
+    data.roles_key(roles),
+    tuple(covariates),
+    tuple(categorical),
+    tuple(reference),
+    None if strata == NO_STRATA else strata,
+    ties,
+)
+try:
+    result = compute.cox_model(*model_key, table)
+except HazelError as error:
+    st.error(
+        f"**This model cannot be fitted.** {error} Try fewer covariates, merge rare levels, "
+        "or pick another reference level.",
+        icon=":material/error:",
+    )
+    st.stop()
+
+# --- warnings, prominently ------------------------------------------------------------------
+
+for warning in result.warnings:
+    st.warning(ui.escape(warning), icon=":material/warning:")
+if result.dropped:
+    dropped = ", ".join(f"{ui.escape(k)}: {v:,}" for k, v in result.dropped.items())
+    st.info(
+        f"Complete-case analysis: {result.n:,} rows used; rows left out because a model "
+        f"variable was missing — {dropped}.",
+        icon=":material/info:",
+    )
+
+cols = st.columns(5)
+cols[0].metric("Rows used", f"{result.n:,}")
+cols[1].metric("Events", f"{result.events:,}")
+cols[2].metric(
+    "Concordance (C)",
+    f"{result.concordance.concordance:.3f}",
+    help=f"Standard error {result.concordance.standard_error:.3f}. 0.5 = no better than "
+    "chance at ordering who has the event first; 1 = perfect.",
+)
+cols[3].metric("Likelihood-ratio p", ui.fmt_p(result.likelihood_ratio.p_value))
+cols[4].metric("AIC", f"{result.aic:,.1f}")
+
+style = ui.chart_style()
+tabs = st.tabs(
+    [
+        "Hazard ratios",
+        "Model tests",
+        "Univariable screen",
+        "Proportional hazards",
+        "Functional form",
+        "Predicted curves",
+    ]
+)
+
+with tabs[0], ui.guard("The hazard-ratio table"):
+    terms = result.to_frame()
+    shown = pd.DataFrame(
+        {
+            "Term": [
+                t.variable if t.level is None else f"{t.variable}: {t.level} vs {t.reference}"
+                for t in result.terms
+            ],
+            "Hazard ratio": terms["hazard_ratio"].map(lambda v: f"{v:.3f}"),
+            f"{int(result.confidence * 100)}% interval": [
+                f"{lo:.3f} to {hi:.3f}"
+                for lo, hi in zip(terms["lower"], terms["upper"], strict=True)
+            ],
+            "p": terms["p_value"].map(ui.fmt_p),
+            "Coefficient": terms["coef"].round(4),
+            "SE": terms["se"].round(4),
+        }
+    )
+    ui.table(terms, "cox-hazard-ratios", "model_terms", shown=shown)
+    if result.variable_wald:
+        st.markdown("**Joint tests for categorical covariates with several levels (Wald)**")
+        joint = pd.DataFrame([t.to_dict() for t in result.variable_wald])
+        ui.table(joint, "cox-joint-wald", "model_joint")
+    rows = compute.forest(model_key, table)
+    rows = rows.assign(
+        label=[
+            f"{v}" if lv is None or pd.isna(lv) else f"{v}: {lv}" + (" (reference)" if ref else "")
+            for v, lv, ref in rows[["variable", "level", "is_reference"]].itertuples(index=False)
+        ],
+        p_text=rows["p_value"].map(lambda p: ui.fmt_p(p) if p is not None else "reference"),
+    )
+    title, x_title, _ = ui.label_inputs(
+        "model_forest", "Hazard ratios", "Hazard ratio (log scale)", ""
+    )
+    fstyle = style.titled(title, x_title, "")
+    ui.figure(charts.forest_chart(rows, fstyle), fstyle, "forest-plot", "model_forest_figure")
+    st.caption(
+        "A hazard ratio above 1 means a higher hazard (the event tends to come sooner); below 1, "
+        "a lower hazard. Each holds the other covariates fixed."
+    )
+
+with tabs[1], ui.guard("The model tests"):
+    whole = pd.DataFrame(
+        [
+            {"test": "Likelihood ratio", **result.likelihood_ratio.to_dict()},
+            {"test": "Wald", **result.wald.to_dict()},
+            {"test": "Score (log-rank)", **result.score.to_dict()},
+        ]
+    ).drop(columns="variable")
+    st.markdown("**Does the model as a whole explain anything?**")
+    ui.table(
+        whole,
+        "cox-whole-model-tests",
+        "model_whole",
+        shown=whole.assign(p_value=whole["p_value"].map(ui.fmt_p)),
+    )
+    lr = result.likelihood_ratio
+    st.markdown(
+        "**Reading:** "
+        + (
+            f"the covariates together go with the hazard (likelihood ratio χ² = "
+            f"{lr.statistic:.2f} on {lr.df} df, p {ui.fmt_p(lr.p_value)})."
+            if lr.p_value < 0.05
+            else f"no clear evidence that the covariates together go with the hazard (χ² = "
+            f"{lr.statistic:.2f} on {lr.df} df, p = {ui.fmt_p(lr.p_value)})."
+        )
+    )
+    st.caption(ui.NOT_SIGNIFICANT_CAUTION.replace("the groups are the same", "there is no effect"))
+    st.markdown("**What does each covariate add? (drop one, refit on the same rows)**")
+    drop = pd.DataFrame([t.to_dict() for t in result.drop_one])
+    ui.table(
+        drop,
+        "cox-drop-one-tests",
+        "model_drop",
+        shown=drop.assign(p_value=drop["p_value"].map(ui.fmt_p)),
+    )
+
+with tabs[2], ui.guard("The univariable screen"):
+    st.caption(
+        "Each covariate alone, on the same rows as the full model, beside its hazard ratio in "
+        "the full model. A big change between the two suggests the covariates overlap."
+    )
+    screen = compute.univariable(model_key, table)
+    shown = pd.DataFrame(
+        {
+            "Covariate": [
+                v if lv is None or pd.isna(lv) else f"{v}: {lv}"
+                for v, lv in screen[["variable", "level"]].itertuples(index=False)
+            ],
+            "Alone: HR (interval)": [
+                f"{h:.3f} ({lo:.3f} to {hi:.3f})"
+                for h, lo, hi in screen[
+                    ["univariable_hazard_ratio", "univariable_lower", "univariable_upper"]
+                ].itertuples(index=False)
+            ],
+            "Alone: p": screen["univariable_p_value"].map(ui.fmt_p),
+            "In the model: HR (interval)": [
+                f"{h:.3f} ({lo:.3f} to {hi:.3f})"
+                for h, lo, hi in screen[
+                    ["multivariable_hazard_ratio", "multivariable_lower", "multivariable_upper"]
+                ].itertuples(index=False)
+            ],
+            "In the model: p": screen["multivariable_p_value"].map(ui.fmt_p),
+        }
+    )
+    ui.table(screen, "cox-univariable-screen", "model_screen", shown=shown)
+
+with tabs[3], ui.guard("The proportional-hazards check"):
+    transform = PH_TRANSFORMS[
+        st.selectbox("Time scale for the test", list(PH_TRANSFORMS), key="model_ph_transform")
+    ]
+    test, residuals = compute.ph_check(model_key, transform, table)
+    ph = test.to_frame()
+    ui.table(
+        ph,
+        "proportional-hazards-check",
+        "model_ph",
+        shown=ph.assign(p_value=ph["p_value"].map(ui.fmt_p)),
+    )
+    worst = min(test.checks, key=lambda t: t.p_value)
+    st.markdown(
+        "**Reading:** "
+        + (
+            f"the hazard ratio of {ui.escape(worst.variable)} seems to change over time "
+            f"(p {ui.fmt_p(worst.p_value)}); look at its plot below, and consider strata or a "
+            "time-varying effect."
+            if worst.p_value < 0.05
+            else "no clear sign that any hazard ratio changes over time."
+        )
+    )
+    st.caption(
+        "A non-significant check does not prove the hazards are proportional; with many rows, "
+        "a significant one may reflect a change too small to matter. The plot shows how big it is."
+    )
+    term_labels = [t.label for t in result.design.terms]
+    term = st.selectbox("Residuals of", term_labels, key="model_ph_term")
+    points = compute.sample_rows(residuals[["transformed_time", term]], DOT_LIMIT).rename(
+        columns={"transformed_time": "x", term: "residual"}
+    )
+    coefficient = result.terms[term_labels.index(term)].coef
+    title, x_title, y_title = ui.label_inputs(
+        "model_ph_plot",
+        f"Scaled Schoenfeld residuals: {term}",
+        f"Time ({transform} scale)",
+        "β(t) for this term",
+    )
+    rstyle = style.titled(title, x_title, y_title)
+    chart = charts.residual_chart(
+        points, rstyle, x_title=x_title, y_title=y_title, zero_line=coefficient
+    )
+    ui.figure(chart, rstyle, "schoenfeld-residuals", "model_ph_figure")
+    st.caption(
+        "A flat smoother at the dashed line (the model's coefficient) is what proportional "
+        "hazards predicts; a trend means the effect changes over time."
+        + (
+            f" Showing a random {DOT_LIMIT:,} of {len(residuals):,} residuals."
+            if len(residuals) > DOT_LIMIT
+            else ""
+        )
+    )
+
+with tabs[4], ui.guard("The functional-form check"):
+    numeric = [c for c in covariates if not is_categorical.get(c)]
+    if numeric:
+        table_m, bins = compute.martingale(model_key, table)
+        variable = st.selectbox("Numeric covariate", numeric, key="model_mart_variable")
+        here = table_m.loc[table_m["variable"] == variable]
+        points = compute.sample_rows(here[["value", "residual_null"]], DOT_LIMIT).rename(
+            columns={"value": "x", "residual_null": "residual"}
+        )
+        title, x_title, y_title = ui.label_inputs(
+            "model_mart_plot",
+            f"Martingale residuals against {variable}",
+            variable,
+            "Martingale residual (null model)",
+        )
+        mstyle = style.titled(title, x_title, y_title)
+        chart = charts.residual_chart(
+            points, mstyle, x_title=x_title, y_title=y_title, zero_line=None
+        )
+        ui.figure(chart, mstyle, "martingale-residuals", "model_mart_figure")
+        st.caption(
+            "Residuals of a model without covariates, against the covariate: a straight smoother "
+            "supports entering it as a straight line; a bend suggests a transformation or groups."
+        )
+    categorical_all = [c for c in covariates if is_categorical.get(c)]
+    if categorical_all:
+        variable = st.selectbox(
+            "Categorical covariate (log-minus-log plot)", categorical_all, key="model_lml_variable"
+        )
+        lines = compute.log_minus_log_lines(table.sha256, data.roles_key(roles), variable, table)
+        lines = lines.rename(columns={"level": "group", "log_minus_log": "value"})
+        levels = list(dict.fromkeys(lines["group"]))
+        title, x_title, y_title = ui.label_inputs(
+            "model_lml_plot", f"log(−log survival) by {variable}", "log(time)", "log(−log survival)"
+        )
+        lstyle = style.titled(title, x_title, y_title)
+        chart = charts.log_minus_log_chart(
+            lines, lstyle, charts.group_colours(levels), legend_title=variable
+        )
+        ui.figure(chart, lstyle, "log-minus-log", "model_lml_figure")
+        st.caption(
+            "Roughly parallel lines are what proportional hazards predicts for this covariate."
+        )
+    if not numeric and not categorical_all:
+        st.caption("No covariates to check.")
+
+with tabs[5], ui.guard("The predicted curves"):
+    variable = st.selectbox(
+        "Vary",
+        covariates,
+        key="model_profile_variable",
+        help="One curve per level (or per quartile of a number); the other covariates at their "
+        "reference level or mean.",
+    )
+    curves, profiles = compute.predicted(model_key, variable, table)
+    if curves["stratum"].notna().any():
+        curves = curves.assign(profile=curves["profile"] + " · " + curves["stratum"].astype(str))
+    rows = pd.DataFrame(
+        {
+            "group": curves["profile"],
+            "time": curves["time"],
+            "estimate": curves["survival"],
+            "lower": curves["survival"],
+            "upper": curves["survival"],
+            "at_risk": pd.NA,
+        }
+    )
+    title, x_title, y_title = ui.label_inputs(
+        "model_pred_plot",
+        f"Predicted survival by {variable}",
+        f"Time ({prepared.report.time_unit})",
+        "Predicted survival",
+    )
+    pstyle = style.titled(title, x_title, y_title)
+    drawn = thinning.thin_step_frame(rows, ["estimate"], (0.0, 1.0), pstyle.height, group="group")
+    levels = list(dict.fromkeys(drawn["group"]))
+    chart = charts.step_curve_chart(
+        drawn,
+        pstyle,
+        charts.group_colours(levels),
+        band=False,
+        ticks=charts.nice_ticks(float(drawn["time"].max())),
+        legend_title="Profile",
+    )
+    ui.figure(chart, pstyle, "predicted-survival", "model_pred_figure")
+    st.markdown("**Profiles**")
+    ui.table(profiles, "predicted-profiles", "model_profiles")
+    with st.expander("Predicted values (every time)"):
+        ui.table(curves, "predicted-survival", "model_pred_values")

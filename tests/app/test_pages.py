@@ -1,0 +1,262 @@
+"""Every page in Streamlit's AppTest: the numbers shown are the engine's, and errors are messages.
+
+The reference numbers are computed here by calling the engine directly on the same demo file
+with the same roles; the app must show exactly those (after its stated rounding).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pandas as pd
+import pytest
+from streamlit.testing.v1 import AppTest
+
+from app import data, state
+from engine.checks import prepare
+from engine.compare import compare_frame
+from engine.cox import fit_cox
+from engine.io import read_table
+from engine.roles import Roles, suggest_roles
+from engine.summary import group_summary
+
+ROOT = Path(__file__).resolve().parents[2]
+ENTRY = str(ROOT / "app" / "hazel.py")
+PUMPS = ROOT / "demo_data" / "pump_bearings.csv"
+TIMEOUT = 120
+
+
+def _app() -> AppTest:
+    return AppTest.from_file(ENTRY, default_timeout=TIMEOUT)
+
+
+def _open(page: str | None = None) -> AppTest:
+    at = _app().run()
+    assert not at.exception
+    if page is not None:
+        at.switch_page(page).run()
+        assert not at.exception, [e.message for e in at.exception]
+    return at
+
+
+@pytest.fixture(scope="module")
+def pumps():
+    """The demo the app opens on, prepared with its documented roles, straight from the engine."""
+    table = read_table(PUMPS)
+    roles = data.DEMO_ROLES["pump_bearings.csv"]
+    suggested = suggest_roles(table.frame).to_roles(**roles)
+    return table, suggested, prepare(table.frame, suggested)
+
+
+def _metric(at: AppTest, label: str) -> str:
+    return next(m.value for m in at.metric if m.label == label)
+
+
+def _texts(at: AppTest) -> str:
+    return "\n".join(
+        [m.value for m in at.markdown]
+        + [m.value for m in at.caption]
+        + [m.value for m in at.info]
+        + [m.value for m in at.warning]
+        + [m.value for m in at.error]
+    )
+
+
+# --- start page and sidebar -----------------------------------------------------------------
+
+
+def test_app_opens_on_the_demo_with_cautions_and_sidebar(pumps):
+    _, _, prepared = pumps
+    at = _open()
+    text = _texts(at)
+    assert "not decisions about an individual patient" in text
+    assert "qualified statistician" in text
+    assert "stays on this computer" in text
+    assert "ethics and data-protection rules" in text
+    sidebar = "\n".join(m.value for m in at.sidebar.markdown)
+    assert "Invented demo data" in sidebar
+    assert f"{prepared.report.rows_used:,} of {prepared.report.rows_read:,}" in sidebar
+    assert f"**Events** {prepared.report.events:,}" in sidebar
+    assert "supplier" in sidebar
+
+
+def test_about_page_shows_the_cautions():
+    at = _open("views/about.py")
+    text = _texts(at)
+    assert "qualified statistician" in text
+    assert "usage statistics" in text
+
+
+def test_another_demo_opens_in_one_click():
+    at = _open()
+    at.button(key="import_demo_dairy_herd_button").click().run()
+    assert not at.exception
+    assert at.session_state[state.DATASET_LABEL] == "Demo: Dairy herd"
+    assert at.session_state[state.ROLES].group == "housing"
+
+
+# --- error paths ----------------------------------------------------------------------------
+
+
+def test_a_bad_file_gives_a_message_and_keeps_the_data():
+    at = _open()
+    before = at.session_state[state.TABLE].sha256
+    at.session_state[state.PENDING_UPLOAD] = ("broken.csv", b"\x00\x01\x02binary junk\xff" * 50)
+    at.run()
+    assert not at.exception
+    assert any("broken.csv could not be read" in e.value for e in at.error)
+    assert at.session_state[state.TABLE].sha256 == before
+
+
+def test_an_uploaded_file_replaces_the_demo():
+    at = _open()
+    csv = b"months,died,arm\n1,1,a\n2,0,b\n3,1,a\n4,1,b\n5,0,a\n6,1,b\n"
+    at.session_state[state.PENDING_UPLOAD] = ("mine.csv", csv)
+    at.run()
+    assert not at.exception
+    assert at.session_state[state.DATASET_IS_DEMO] is False
+    assert "mine.csv" in "\n".join(m.value for m in at.sidebar.markdown)
+
+
+def test_wrong_event_values_give_a_message_on_every_page():
+    at = _open("views/column_roles.py")
+    at.selectbox(key="roles_event").set_value("site").run()
+    assert not at.exception
+    assert any("Choose the value(s) that mean the event" in e.value for e in at.error)
+    assert any("cannot be used yet" in e.value for e in at.error)
+    for page in ("views/curves.py", "views/comparison.py", "views/regression.py"):
+        at.switch_page(page).run()
+        assert not at.exception, page
+        assert any("need attention" in e.value for e in at.error), page
+
+
+def test_a_model_that_cannot_be_fitted_gives_a_message():
+    at = _open()
+    csv = "t,e,g,const\n" + "".join(f"{i + 1},{i % 2},{'ab'[i % 2]},same\n" for i in range(40))
+    at.session_state[state.PENDING_UPLOAD] = ("flat.csv", csv.encode())
+    at.run()
+    at.session_state[state.ROLES] = Roles(
+        time="t", event="e", covariates=("const",), categorical=("const",)
+    )
+    at.switch_page("views/regression.py").run()
+    assert not at.exception
+    assert any("cannot be fitted" in e.value for e in at.error)
+    # The other pages still work.
+    at.switch_page("views/curves.py").run()
+    assert not at.exception and not at.error
+
+
+# --- roles ----------------------------------------------------------------------------------
+
+
+def test_changing_the_group_role_updates_the_sidebar_and_the_report(pumps):
+    table, roles, _ = pumps
+    at = _open("views/column_roles.py")
+    at.selectbox(key="roles_group").set_value("site").run()
+    assert not at.exception
+    assert at.session_state[state.ROLES].group == "site"
+    assert "Group: site" in "\n".join(m.value for m in at.sidebar.markdown)
+    expected = prepare(table.frame, Roles(**{**roles.to_dict(), "group": "site"}))
+    shown = at.dataframe[-1].value
+    assert list(shown["group"]) == list(expected.report.group_counts["group"])
+    assert list(shown["events"]) == list(expected.report.group_counts["events"])
+
+
+def test_roles_survive_a_page_switch():
+    at = _open("views/curves.py")
+    at.toggle(key="curves_band").set_value(False).run()
+    at.switch_page("views/about.py").run()
+    at.switch_page("views/curves.py").run()
+    assert at.toggle(key="curves_band").value is False
+
+
+# --- curves ---------------------------------------------------------------------------------
+
+
+def test_curves_summary_equals_the_engine(pumps):
+    _, _, prepared = pumps
+    at = _open("views/curves.py")
+    at.text_input(key="curves_times").set_value("12, 24").run()
+    assert not at.exception
+    expected = group_summary(prepared.frame, (12.0, 24.0)).to_frame()
+    shown = at.dataframe[0].value
+    assert list(shown["n"]) == list(expected["n"])
+    assert list(shown["Events"]) == list(expected["events"])
+    for row, (_, want) in zip(shown.itertuples(index=False), expected.iterrows(), strict=True):
+        assert row[4].startswith(f"{want['median']:.3g} (")
+        assert row[5].startswith(f"{want['survival_12']:.3g} (")
+        assert row[6].startswith(f"{want['survival_24']:.3g} (")
+    assert len(at.get("vega_lite_chart")) >= 1
+
+
+@pytest.mark.parametrize(
+    "scale", ["Cumulative incidence (1 − survival)", "Cumulative hazard (Nelson–Aalen)"]
+)
+def test_curve_scales_and_switches_draw_without_error(scale):
+    at = _open("views/curves.py")
+    at.selectbox(key="curves_scale").set_value(scale).run()
+    at.toggle(key="curves_censor").set_value(False).run()
+    at.segmented_control(key="curves_for").set_value("All rows").run()
+    at.selectbox(key="curves_unit").set_value("years").run()
+    assert not at.exception
+    assert not at.error
+
+
+# --- comparison -----------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("test", ["logrank", "gehan-breslow", "peto-peto"])
+def test_comparison_shows_the_engine_statistic(pumps, test):
+    _, _, prepared = pumps
+    at = _open("views/comparison.py")
+    at.selectbox(key="compare_test").set_value(test).run()
+    assert not at.exception
+    expected = compare_frame(prepared.frame, test=test)
+    assert _metric(at, "χ² statistic") == f"{expected.statistic:.2f}"
+    assert _metric(at, "Degrees of freedom") == str(expected.df)
+    text = _texts(at)
+    assert "Reading:" in text
+    assert "does not show that the groups are the same" in text
+
+
+def test_cutting_a_numeric_column_warns_against_hunting_for_a_cut():
+    at = _open("views/comparison.py")
+    at.radio(key="compare_source").set_value("A numeric column cut at quantiles").run()
+    assert not at.exception
+    assert any("smallest p-value" in w.value for w in at.warning)
+    assert _metric(at, "Degrees of freedom") == "1"
+
+
+# --- regression -----------------------------------------------------------------------------
+
+
+def test_cox_model_numbers_equal_the_engine(pumps):
+    _, roles, prepared = pumps
+    at = _open("views/regression.py")
+    expected = fit_cox(prepared.frame, list(roles.covariates), categorical=list(roles.categorical))
+    assert _metric(at, "Rows used") == f"{expected.n:,}"
+    assert _metric(at, "Events") == f"{expected.events:,}"
+    assert _metric(at, "Concordance (C)") == f"{expected.concordance.concordance:.3f}"
+    terms = at.dataframe[0].value
+    assert list(terms["Hazard ratio"]) == [f"{t.hazard_ratio:.3f}" for t in expected.terms]
+    # Breslow ties refit the model.
+    at.radio(key="model_ties").set_value("Breslow").run()
+    breslow = fit_cox(
+        prepared.frame,
+        list(roles.covariates),
+        categorical=list(roles.categorical),
+        ties="breslow",
+    )
+    assert not at.exception
+    terms = at.dataframe[0].value
+    assert list(terms["Hazard ratio"]) == [f"{t.hazard_ratio:.3f}" for t in breslow.terms]
+
+
+def test_cox_model_with_one_covariate_and_a_new_reference(pumps):
+    at = _open("views/regression.py")
+    at.multiselect(key="model_covariates").set_value(["lubricant"]).run()
+    at.selectbox(key="model_reference_lubricant").set_value("oil bath").run()
+    assert not at.exception
+    terms = at.dataframe[0].value
+    assert all("vs oil bath" in t for t in terms["Term"])
+    assert isinstance(terms, pd.DataFrame)
