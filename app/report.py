@@ -336,7 +336,9 @@ def _generic_rows(records: Sequence[Mapping]) -> tuple[list[str], list[list[str]
             value = r.get(key)
             if isinstance(value, bool) or not isinstance(value, int | float):
                 row.append(_cell("" if value is None else value))
-            elif "p_" in key or key.startswith("p"):
+            elif isinstance(value, int):
+                row.append(_num(value, f"{value:,}"))
+            elif key == "p" or key.startswith("p_") or key.endswith(("_p", "p_value")):
                 row.append(_num(value, format_p(value)))
             else:
                 row.append(_num(value, format_number(value, 2)))

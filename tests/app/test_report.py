@@ -315,3 +315,20 @@ def test_figures_with_more_than_five_thousand_rows_are_drawn():
     chart = alt.Chart(frame).mark_line().encode(x="time:Q", y="estimate:Q")
     assert figure_svg(chart).startswith('<svg role="img"')
     assert alt.data_transformers.options.get("max_rows", 5000) == 5000  # the guard is back
+
+
+def test_pairwise_records_are_tabled_with_p_values_and_escaped_labels(freireich):
+    results = {
+        **freireich[2],
+        "pairwise": [
+            {"group_a": "6-MP", "group_b": HOSTILE, "statistic": 16.7929, "p_value": 4.17e-5,
+             "p_holm": 0.0213, "pairs": 3},
+        ],
+    }  # fmt: skip
+    text = build_report(results, SETTINGS, software={"python": "3.11"})
+    assert "<h3>Pairwise comparisons</h3>" in text
+    assert "<th>group b</th>" in text and "<th>p holm</th>" in text
+    assert '<td class="num" data-value="0.0213">0.021</td>' in text
+    assert '<td class="num" data-value="16.7929">16.79</td>' in text
+    assert '<td class="num" data-value="3">3</td>' in text  # whole numbers stay whole
+    assert "<td>&lt;script&gt;alert(1)&lt;/script&gt;</td>" in text
