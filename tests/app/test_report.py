@@ -332,3 +332,13 @@ def test_pairwise_records_are_tabled_with_p_values_and_escaped_labels(freireich)
     assert '<td class="num" data-value="16.7929">16.79</td>' in text
     assert '<td class="num" data-value="3">3</td>' in text  # whole numbers stay whole
     assert "<td>&lt;script&gt;alert(1)&lt;/script&gt;</td>" in text
+
+
+def test_rmst_columns_appear_when_the_curves_carry_them(freireich):
+    curves = [
+        {**c, "rmst": {"estimate": 17.25, "lower": 14.04, "upper": 20.46, "tau": 23.0}}
+        for c in freireich[2]["curves"]
+    ]
+    text = build_report({**freireich[2], "curves": curves}, SETTINGS, software={})
+    assert "<th>RMST</th>" in text
+    assert '<td class="num" data-value="17.25">17.3</td><td class="ci">14.0 to 20.5</td>' in text
