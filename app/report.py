@@ -183,12 +183,9 @@ def figure_svg(figure) -> str:
         return sanitize_svg(figure)
     # imported here: the command line loads this module without drawing anything
     import altair as alt
-    import vl_convert
 
     from app import exports
 
-    if isinstance(figure, dict):
-        return compact_svg(sanitize_svg(vl_convert.vegalite_to_svg(figure)))
     # The data were thinned to what can be seen, yet several curves together can pass
     # Altair's 5,000-row guard; lift it for this conversion only (restored on exit).
     with alt.data_transformers.enable("default", max_rows=None):
