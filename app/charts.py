@@ -197,10 +197,10 @@ def step_curve_chart(
 ) -> alt.LayerChart:
     """Step lines (one per ``group``) with an optional interval band and censoring marks.
 
-    ``curves`` has columns group, time, estimate, lower, upper, at_risk (one row per kept step
-    vertex); ``censored`` has group, time, estimate. Tooltips show time, estimate, interval and
-    number at risk at each vertex. ``align_with_table`` fixes the width of the left axis to the
-    one of ``at_risk_chart`` so the two line up when stacked.
+    ``curves`` has columns group, time, estimate and, when known, lower, upper, at_risk (one
+    row per kept step vertex); ``censored`` has group, time, estimate. Tooltips show time,
+    estimate, interval and number at risk at each vertex. ``align_with_table`` fixes the width
+    of the left axis to the one of ``at_risk_chart`` so the two line up when stacked.
     """
     levels = list(dict.fromkeys(curves["group"].astype(str)))
     data = curves.assign(group=curves["group"].astype(str))
@@ -220,12 +220,16 @@ def step_curve_chart(
     )
     colour = _colour("group", colours, levels, legend_title if len(levels) > 1 else None)
     tooltip = [
-        alt.Tooltip("group:N", title="Group"),
-        alt.Tooltip("time:Q", title="Time", format=",.4~g"),
-        alt.Tooltip("estimate:Q", title="Estimate", format=".3f"),
-        alt.Tooltip("lower:Q", title="Interval from", format=".3f"),
-        alt.Tooltip("upper:Q", title="Interval to", format=".3f"),
-        alt.Tooltip("at_risk:Q", title="At risk", format=","),
+        alt.Tooltip(f"{field}:{kind}", title=title, format=fmt)
+        for field, kind, title, fmt in (
+            ("group", "N", "Group", alt.Undefined),
+            ("time", "Q", "Time", ",.4~g"),
+            ("estimate", "Q", "Estimate", ".3f"),
+            ("lower", "Q", "Interval from", ".3f"),
+            ("upper", "Q", "Interval to", ".3f"),
+            ("at_risk", "Q", "At risk", ","),
+        )
+        if field in data.columns
     ]
     # Layers carry no data of their own (the layer holds it once): Altair copies a chart's data
     # on every method call, which for thousands of vertices costs more than drawing them.

@@ -499,6 +499,17 @@ def predicted(model_key: tuple, variable: str, _table: ImportedTable) -> tuple:
     return prediction.to_frame(), prediction.profiles
 
 
+@st.cache_data(max_entries=8, show_spinner="Predicting curves…")
+def predicted_profiles(model_key: tuple, profiles: tuple, _table: ImportedTable) -> tuple:
+    """Predicted curves for profiles given as (name, ((covariate, value), ...)) pairs."""
+    from engine.cox_summaries import predict_survival
+
+    result = cox_model(*model_key, _table)
+    named = {name: dict(values) for name, values in profiles}
+    prediction = predict_survival(result, named)
+    return prediction.to_frame(), prediction.profiles
+
+
 def sample_rows(frame: pd.DataFrame, limit: int, seed: int = 20261202) -> pd.DataFrame:
     """At most ``limit`` rows to draw as dots (seeded, so the picture does not change)."""
     if len(frame) <= limit:

@@ -23,6 +23,8 @@ PH_SCALE_NAMES = {
     "log": "log scale",
 }
 NO_STRATA = "(no strata)"
+EACH_LEVEL, MY_PROFILES = "Each level of one covariate", "Profiles I set"
+CUSTOM_PROFILES = "shared_model_custom_profiles"  # covariates -> [(name, ((column, value), ...))]
 DOT_LIMIT = 4000  # dots drawn in a residual plot; beyond this a seeded sample is drawn
 
 st.title("Regression", anchor=False)
@@ -141,6 +143,47 @@ cols[2].metric(
 )
 cols[3].metric("Likelihood-ratio p", ui.fmt_p(result.likelihood_ratio.p_value))
 cols[4].metric("AIC", f"{result.aic:,.1f}")
+
+
+def profile_builder(result, covariates: list[str]) -> tuple:
+    """A small form to add covariate profiles; they are kept for this model's covariates."""
+    from engine.cox_summaries import typical_profile
+
+    key = "|".join(covariates)
+    store = st.session_state.setdefault(CUSTOM_PROFILES, {})
+    kept = store.setdefault(key, [])
+    typical = typical_profile(result)
+    with st.form("model_profile_form", clear_on_submit=False):
+        st.markdown("**Add a profile** (starts at the reference levels and the means)")
+        cols = st.columns(min(len(covariates), 3))
+        values = {}
+        for i, column in enumerate(covariates):
+            box = cols[i % len(cols)]
+            if is_categorical.get(column):
+                levels = [str(x) for x in frame[column].cat.categories]
+                start = str(typical.get(column, levels[0]))
+                values[column] = box.selectbox(
+                    ui.escape(column), levels, index=levels.index(start) if start in levels else 0
+                )
+            else:
+                values[column] = box.number_input(
+                    ui.escape(column), value=float(typical.get(column, 0.0)), format="%.4g"
+                )
+        label = st.text_input("Name of the profile", value=f"Profile {len(kept) + 1}")
+        if st.form_submit_button("Add profile"):
+            name = label.strip() or f"Profile {len(kept) + 1}"
+            taken = {n for n, _ in kept}
+            while name in taken:
+                name += " (again)"
+            kept.append((name, tuple(values.items())))
+    if kept:
+        shown = pd.DataFrame([{"profile": name, **dict(items)} for name, items in kept])
+        st.dataframe(shown, hide_index=True)
+        if st.button("Remove all profiles", key="model_profiles_clear_button"):
+            store[key] = []
+            st.rerun()
+    return tuple(kept)
+
 
 style = ui.chart_style()
 tabs = st.tabs(
@@ -372,46 +415,62 @@ with tabs[4], ui.guard("The functional-form check"):
         st.caption("No covariates to check.")
 
 with tabs[5], ui.guard("The predicted curves"):
-    ui.remember_choice("model_profile_variable", covariates, covariates[0])
-    variable = st.selectbox(
-        "Vary",
-        covariates,
-        key="model_profile_variable",
-        help="One curve per level (or per quartile of a number); the other covariates at their "
-        "reference level or mean.",
+    mode = st.radio(
+        "Curves for",
+        [EACH_LEVEL, MY_PROFILES],
+        key="model_profile_mode",
+        horizontal=True,
+        help="A profile is one set of covariate values; its curve is the survival the model "
+        "predicts for it (from the Breslow baseline).",
     )
-    curves, profiles = compute.predicted(model_key, variable, table)
-    if curves["stratum"].notna().any():
-        curves = curves.assign(profile=curves["profile"] + " · " + curves["stratum"].astype(str))
-    rows = pd.DataFrame(
-        {
-            "group": curves["profile"],
-            "time": curves["time"],
-            "estimate": curves["survival"],
-            "lower": curves["survival"],
-            "upper": curves["survival"],
-            "at_risk": pd.NA,
-        }
-    )
-    title, x_title, y_title = ui.label_inputs(
-        "model_pred_plot",
-        f"Predicted survival by {variable}",
-        f"Time ({prepared.report.time_unit})",
-        "Predicted survival",
-    )
-    pstyle = style.titled(title, x_title, y_title)
-    drawn = thinning.thin_step_frame(rows, ["estimate"], (0.0, 1.0), pstyle.height, group="group")
-    levels = list(dict.fromkeys(drawn["group"]))
-    chart = charts.step_curve_chart(
-        drawn,
-        pstyle,
-        charts.group_colours(levels),
-        band=False,
-        ticks=charts.nice_ticks(float(drawn["time"].max())),
-        legend_title="Profile",
-    )
-    ui.figure(chart, pstyle, "predicted-survival", "model_pred_figure")
-    st.markdown("**Profiles**")
-    ui.table(profiles, "predicted-profiles", "model_profiles")
-    with st.expander("Predicted values (every time)"):
-        ui.table(curves, "predicted-survival", "model_pred_values")
+    if mode == EACH_LEVEL:
+        ui.remember_choice("model_profile_variable", covariates, covariates[0])
+        variable = st.selectbox(
+            "Vary",
+            covariates,
+            key="model_profile_variable",
+            help="One curve per level (or per quartile of a number); the other covariates at "
+            "their reference level or mean.",
+        )
+        curves, profiles = compute.predicted(model_key, variable, table)
+        default_title = f"Predicted survival by {variable}"
+    else:
+        chosen_profiles = profile_builder(result, covariates)
+        curves = profiles = None
+        if chosen_profiles:
+            curves, profiles = compute.predicted_profiles(model_key, chosen_profiles, table)
+        else:
+            st.info("Add a profile above to draw its predicted curve.")
+        default_title = "Predicted survival for chosen profiles"
+    if curves is not None:
+        if curves["stratum"].notna().any():
+            curves = curves.assign(
+                profile=curves["profile"] + " · " + curves["stratum"].astype(str)
+            )
+        rows = pd.DataFrame(
+            {"group": curves["profile"], "time": curves["time"], "estimate": curves["survival"]}
+        )
+        title, x_title, y_title = ui.label_inputs(
+            "model_pred_plot",
+            default_title,
+            f"Time ({prepared.report.time_unit})",
+            "Predicted survival",
+        )
+        pstyle = style.titled(title, x_title, y_title)
+        drawn = thinning.thin_step_frame(
+            rows, ["estimate"], (0.0, 1.0), pstyle.height, group="group"
+        )
+        levels = list(dict.fromkeys(drawn["group"]))
+        chart = charts.step_curve_chart(
+            drawn,
+            pstyle,
+            charts.group_colours(levels),
+            band=False,
+            ticks=charts.nice_ticks(float(drawn["time"].max())),
+            legend_title="Profile",
+        )
+        ui.figure(chart, pstyle, "predicted-survival", "model_pred_figure")
+        st.markdown("**Profiles**")
+        ui.table(profiles, "predicted-profiles", "model_profiles")
+        with st.expander("Predicted values (every time)"):
+            ui.table(curves, "predicted-survival", "model_pred_values")

@@ -371,3 +371,22 @@ def test_trend_pairwise_and_rmst_equal_the_engine(pumps):
     rmst = rmst_by_group(two["_time"], two["_event"], pd.Series(group, index=two.index))
     assert f"{rmst.contrast.difference:.3g}" in text
     assert f"{rmst.contrast.difference_lower:.3g} to {rmst.contrast.difference_upper:.3g}" in text
+
+
+def test_predicted_curves_for_profiles_i_set(pumps):
+    from engine.cox_summaries import predict_survival
+
+    _, roles, prepared = pumps
+    at = _open("views/regression.py")
+    at.radio(key="model_profile_mode").set_value("Profiles I set").run()
+    assert any("Add a profile" in i.value for i in at.info)
+    next(b for b in at.button if b.label == "Add profile").click().run()
+    assert not at.exception
+    assert not at.error
+    table = next(d.value for d in at.dataframe if "profile" in d.value.columns)
+    assert list(table["profile"]) == ["Profile 1"]
+    # The profile starts at the reference level and the means: the engine's typical profile.
+    model = fit_cox(prepared.frame, list(roles.covariates), categorical=list(roles.categorical))
+    expected = predict_survival(model, {"Profile 1": {}}).profiles
+    assert table["lubricant"].iloc[0] == expected["lubricant"].iloc[0]
+    assert table["load_kN"].iloc[0] == pytest.approx(expected["load_kN"].iloc[0], rel=1e-3)
