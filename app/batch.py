@@ -1,12 +1,13 @@
 """Replaying a recipe and writing the HTML report, for the command line and the app's download.
 
 Nothing here imports streamlit; Altair and vl-convert load only when a figure is drawn, so the
-command line starts quickly. ``run_analysis`` (the JSON sections) belongs to ``app.cli``.
+command line starts quickly. The JSON sections come from ``engine.analysis.run_analysis``
+(through ``app.cli.run_analysis``); the settings from the command line from
+``app.cli.settings_from_args``.
 """
 
 from __future__ import annotations
 
-import argparse
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -116,41 +117,6 @@ def _comparable(value):
     return list(value) if isinstance(value, list | tuple) else value
 
 
-# --- settings from the command line ------------------------------------------------------------
-
-
-def settings_from_args(args: argparse.Namespace, roles: Roles) -> dict:
-    """The same settings layout a recipe holds, from ``analyze`` options.
-
-    Reads ``times`` ("6,12" or a list), ``ci_transform``, ``confidence``, ``test``, ``rho``,
-    ``gamma``, ``ties`` and ``ph_transform`` where the parser defines them; comparison runs
-    with a group role and the Cox model with covariates.
-    """
-    settings = {"curves": dict(ANALYSIS_DEFAULTS["curves"])}
-    if roles.group:
-        settings["comparison"] = dict(ANALYSIS_DEFAULTS["comparison"])
-    if roles.covariates:
-        settings["cox"] = dict(ANALYSIS_DEFAULTS["cox"])
-    for values in settings.values():
-        for name in values:
-            given = getattr(args, name, None)
-            if given is not None:
-                values[name] = _times(given) if name == "times" else given
-    return settings
-
-
-def _times(value) -> list[float]:
-    if isinstance(value, str):
-        parts = [p.strip() for p in value.split(",") if p.strip()]
-        try:
-            return [float(p) for p in parts]
-        except ValueError:
-            raise HazelError(
-                f"--times expects numbers separated by commas, got {value!r}"
-            ) from None
-    return [float(v) for v in value]
-
-
 # --- figures -----------------------------------------------------------------------------------
 
 
@@ -234,6 +200,7 @@ def curve_figure(prepared: PreparedData, settings: Mapping, *, title: str = ""):
         x_max=x_max,
         ticks=ticks,
         legend_title=prepared.roles.group or "",
+        align_with_table=True,
     )
     group = frame["_group"] if by_group else None
     risk = numbers_at_risk(
@@ -246,7 +213,7 @@ def curve_figure(prepared: PreparedData, settings: Mapping, *, title: str = ""):
     risk = risk.rename(columns={"tick": "time"})
     risk["group"] = [ALL_ROWS if g is None else str(g) for g in risk["group"]]
     risk_chart = charts.at_risk_chart(risk, style, colours, x_max=x_max, ticks=ticks)
-    return charts.finish(charts.curve_with_risk_table(curve_chart, risk_chart), style)
+    return charts.finish(charts.curve_with_risk_table(curve_chart, risk_chart, style), style)
 
 
 def forest_rows(cox: Mapping) -> pd.DataFrame:

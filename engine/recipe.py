@@ -16,6 +16,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from importlib import metadata
 
+from engine.analysis import ANALYSIS_DEFAULTS
 from engine.errors import HazelError
 from engine.filters import RowFilter
 
@@ -23,13 +24,11 @@ VERSION_KEY = "hazel_recipe"
 CURRENT_VERSION = 1
 MAX_RECIPE_BYTES = 1_000_000  # a recipe holds settings only; anything larger is not one
 
-# The analyses a recipe can ask for, with the settings each one reads and their defaults. Unknown
-# analysis names are kept as they are (a later Hazel may add some) but only these are run.
-ANALYSIS_DEFAULTS: dict[str, dict] = {
-    "curves": {"times": [], "ci_transform": "log-log", "confidence": 0.95, "rmst_horizon": None},
-    "comparison": {"test": "logrank", "rho": 0.0, "gamma": 0.0},
-    "cox": {"ties": "efron", "ph_transform": "km"},
-}
+# The analyses a recipe can ask for, with their settings and defaults, live in engine.analysis
+# (one source for the command line, the report and the app). Unknown analysis names are kept as
+# they are (a later Hazel may add some) but only the known ones are run.
+# Version 0 recipes knew only these three analyses.
+VERSION_0_ANALYSES = ("curves", "comparison", "cox")
 
 SOFTWARE = ("python", "numpy", "pandas", "scipy", "lifelines")
 
@@ -218,7 +217,7 @@ def _migrate_0_to_1(old: dict) -> dict:
     _require(old["file"], ("hash", "n_rows", "columns"), "file")
     settings = dict(old.get("settings", {}))
     analyses: dict[str, dict] = {"curves": {}}
-    owner = {name: key for key, defaults in ANALYSIS_DEFAULTS.items() for name in defaults}
+    owner = {name: key for key in VERSION_0_ANALYSES for name in ANALYSIS_DEFAULTS[key]}
     if old["roles"].get("group"):
         analyses["comparison"] = {}
     if old["roles"].get("covariates"):

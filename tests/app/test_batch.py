@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import argparse
 import json
 from pathlib import Path
 
@@ -14,7 +13,6 @@ from app.batch import (
     load_recipe_run,
     read_recipe,
     report_from_json_and_results,
-    settings_from_args,
     write_text,
 )
 from engine.checks import prepare
@@ -124,13 +122,23 @@ def test_recipe_file_errors_name_the_file(tmp_path):
 
 
 def test_settings_from_command_line_options():
-    args = argparse.Namespace(times="6, 12.5", ci_transform="linear", test="peto-peto", ties=None)
-    settings = settings_from_args(args, Roles(time="t", group="g", covariates=("x",)))
+    from app.cli import build_parser, settings_from_args
+
+    args = build_parser().parse_args(
+        ["analyze", "x.csv", "--times", "6, 12.5", "--ci-transform", "linear", "--test",
+         "peto-peto"]
+    )  # fmt: skip
+    settings = settings_from_args(args)
     assert settings["curves"]["times"] == [6.0, 12.5]
     assert settings["curves"]["ci_transform"] == "linear"
     assert settings["comparison"]["test"] == "peto-peto"
     assert settings["cox"] == {"ties": "efron", "ph_transform": "km"}
-    assert set(settings_from_args(args, Roles(time="t"))) == {"curves"}
+    assert set(settings) == {"curves", "comparison", "cox"}
+    # a recipe's settings are the base; options given override them
+    base = {"curves": {"confidence": 0.9, "times": [3.0]}, "landmark": {"time": 2.0}}
+    settings = settings_from_args(args, base=base)
+    assert settings["curves"]["confidence"] == 0.9 and settings["curves"]["times"] == [6.0, 12.5]
+    assert settings["landmark"] == {"time": 2.0, "test": "peto-peto"}
 
 
 def test_forest_rows_add_a_reference_row_per_categorical():
