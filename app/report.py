@@ -511,6 +511,212 @@ def methods_paragraph(results: Mapping, settings: Mapping, software: Mapping[str
     return " ".join(text)
 
 
+# --- optional analyses (competing risks, parametric, sample size, landmark) ---------------------
+
+
+def _ci_cells(row: Mapping, estimate: str, fmt) -> list[str]:
+    return [
+        _num(row.get(estimate), fmt(row.get(estimate))),
+        _interval(row["lower"], row["upper"], fmt),
+    ]
+
+
+def _competing_section(section: Mapping | None, unit: str, ci: str, figure) -> str:
+    if not section:
+        return ""
+    rows = [
+        [
+            _cell(_label(r["group"])),
+            _cell(r["cause"]),
+            *_ci_cells(r, "cumulative_incidence", format_percent),
+            _num(r["one_minus_km"], format_percent(r["one_minus_km"])),
+            _num(r["time"], format_number(r["time"])),
+        ]
+        for r in section["at_end"]
+    ]
+    parts = [
+        "<h2>Competing risks</h2>",
+        "<p>Causes: " + escape(", ".join(section["causes"])) + ".</p>",
+        _figure(figure, f"Cumulative incidence per cause (Aalen–Johansen) with {ci} bands."),
+        _table(
+            ["Group", "Cause", "Cumulative incidence", f"{ci} CI", "1 − KM", f"At time ({unit})"],
+            rows,
+            caption="At the end of follow-up. 1 − KM treats other causes as censored.",
+        ),
+    ]
+    if section.get("warning"):
+        parts.append(f"<p><strong>Note.</strong> {escape(section['warning'])}</p>")
+    if section.get("at_times"):
+        parts.append(
+            _table(
+                ["Group", "Cause", f"Time ({unit})", "Cumulative incidence", f"{ci} CI"],
+                (
+                    [
+                        _cell(_label(r["group"])),
+                        _cell(r["cause"]),
+                        _num(r["time"], format_plain(r["time"])),
+                        *_ci_cells(r, "cumulative_incidence", format_percent),
+                    ]
+                    for r in section["at_times"]
+                ),
+            )
+        )
+    for model in section.get("cause_specific_cox") or ():
+        parts.append(
+            f"<h3>Cause-specific Cox model: {escape(model['cause'])}</h3>"
+            f'<p class="meta">{model["n"]:,} rows, {model["events"]:,} events of this cause; '
+            "other causes censored.</p>"
+        )
+        parts.append(
+            _table(
+                ["Term", "Hazard ratio", f"{ci} CI", "p"],
+                (
+                    [
+                        _cell(_term_label(t)),
+                        _num(t["hazard_ratio"], format_ratio(t["hazard_ratio"])),
+                        _interval(t["lower"], t["upper"], format_ratio),
+                        _num(t["p_value"], format_p(t["p_value"])),
+                    ]
+                    for t in model["terms"]
+                ),
+            )
+        )
+    return "\n".join(p for p in parts if p)
+
+
+def _parametric_section(section: Mapping | None, unit: str, ci: str, figure) -> str:
+    if not section:
+        return ""
+    aic = [
+        [
+            _cell(_label(r["group"]) if r["group"] is not None else "All rows"),
+            _cell(r["distribution"]),
+            _num(r["n_parameters"], str(r["n_parameters"])),
+            _num(r["log_likelihood"], format_number(r["log_likelihood"], 2)),
+            _num(r["aic"], format_number(r["aic"], 2)),
+            _num(r["delta_aic"], format_number(r["delta_aic"], 2)),
+        ]
+        for r in section["aic_table"]
+    ]
+    estimates = []
+    for r in section["estimates"]:
+        what = "Median" if r["quantity"] == "median" else f"Survival at {format_plain(r['time'])}"
+        fmt = format_number if r["quantity"] == "median" else format_percent
+        estimates.append(
+            [
+                _cell(_label(r["group"])),
+                _cell(r["distribution"]),
+                _cell(what),
+                *_ci_cells(r, "estimate", fmt),
+                _cell("extrapolated" if r["extrapolated"] else ""),
+            ]
+        )
+    parts = [
+        "<h2>Parametric models</h2>",
+        _figure(
+            figure,
+            "Fitted survival over the Kaplan–Meier estimate; dashed beyond the last observed "
+            "time, where the curve is extrapolation from the model's shape, not data.",
+        ),
+        _table(["Group", "Model", "Parameters", "Log-likelihood", "AIC", "Δ AIC"], aic),
+        _table(
+            ["Group", "Model", "Estimate", "Value", f"{ci} CI", ""],
+            estimates,
+            caption=f"Medians in {unit}; survival in per cent.",
+        ),
+    ]
+    aft = section.get("aft")
+    if aft:
+        parts.append(
+            f"<h3>Accelerated failure time model ({escape(aft['distribution'])})</h3>"
+            f'<p class="meta">{aft["n"]:,} rows, {aft["n_events"]:,} events. A time ratio above '
+            "1 means the event tends to come later.</p>"
+        )
+        parts.append(
+            _table(
+                ["Term", "Time ratio", f"{ci} CI", "p"],
+                (
+                    [
+                        _cell(c["term"]),
+                        _num(c.get("time_ratio"), format_ratio(c.get("time_ratio"))),
+                        _interval(
+                            c.get("time_ratio_lower"), c.get("time_ratio_upper"), format_ratio
+                        ),
+                        _num(c.get("p_value"), format_p(c.get("p_value"))),
+                    ]
+                    for c in aft["coefficients"]
+                    if c["term"] != "Intercept"
+                ),
+            )
+        )
+    return "\n".join(p for p in parts if p)
+
+
+def _sample_size_section(section: Mapping | None) -> str:
+    if not section:
+        return ""
+    rows = [
+        [
+            _cell(r["method"].capitalize()),
+            _num(r["hazard_ratio"], format_plain(r["hazard_ratio"])),
+            _num(r["power"], format_percent(r["power"])),
+            _num(r["alpha"], format_plain(r["alpha"])),
+            _num(r["allocation_ratio"], format_plain(r["allocation_ratio"])),
+            _num(r["events"], f"{r['events']:,}"),
+            _num(r["subjects"], f"{r['subjects']:,}"),
+        ]
+        for r in section["needed"]
+    ]
+    parts = [
+        "<h2>Sample size and power</h2>",
+        _table(
+            ["Formula", "Hazard ratio", "Power", "Alpha", "Allocation", "Events", "Subjects"], rows
+        ),
+    ]
+    for r in section.get("power") or ():
+        parts.append(
+            f"<p>{escape(r['method'].capitalize())}: with {escape(format_plain(r['events']))} "
+            "events the power to detect a hazard ratio of "
+            f"{escape(format_plain(r['hazard_ratio']))} is "
+            f"{escape(format_percent(r['power']))}.</p>"
+        )
+    return "\n".join(parts)
+
+
+def _landmark_section(section: Mapping | None, unit: str, ci: str) -> str:
+    if not section:
+        return ""
+    parts = [
+        "<h2>Landmark analysis from "
+        f"{escape(format_plain(section['landmark']))} {escape(unit)}</h2>",
+        f"<p>{section['n_kept']:,} subjects still at risk at the landmark are analysed; "
+        f"{section['n_excluded']:,} are left out (event or censoring before it, or entry "
+        "after it). Times are measured from the landmark.</p>",
+        _table(
+            ["Group", "Rows", "Kept", "Event before", "Censored before", "Entered after"],
+            (
+                [_cell(_label(r["group"]))]
+                + [
+                    _num(r[k], f"{r[k]:,}")
+                    for k in (
+                        "n_rows",
+                        "n_kept",
+                        "n_events_before",
+                        "n_censored_before",
+                        "n_entered_after",
+                    )
+                ]
+                for r in section["counts"]
+            ),
+        ),
+        _list((s for c in section["curves"] for s in curve_sentences(c, unit)), "sentences"),
+    ]
+    comparison = section.get("comparison")
+    if comparison:
+        parts.append(_test_table([(comparison["test"], comparison)]))
+    return "\n".join(p for p in parts if p)
+
+
 # --- the report --------------------------------------------------------------------------------
 
 
@@ -565,6 +771,17 @@ def build_report(
         _comparison_section(results.get("comparison"), results.get("pairwise")),
         _cox_section(cox, confidence, figures.get("forest")),
         _ph_section(cox),
+        _competing_section(
+            results.get("competing"), unit, format_confidence(confidence), figures.get("competing")
+        ),
+        _parametric_section(
+            results.get("parametric"),
+            unit,
+            format_confidence(confidence),
+            figures.get("parametric"),
+        ),
+        _sample_size_section(results.get("sample_size")),
+        _landmark_section(results.get("landmark"), unit, format_confidence(confidence)),
         "<h2>Warnings</h2>",
         _list(all_warnings, "warnings") or "<p>None.</p>",
         "<h2>Methods</h2>",
