@@ -7,15 +7,19 @@ does not depend on how any page is laid out. The pure functions below it are wha
 
 from __future__ import annotations
 
+import hashlib
+import json
 from collections.abc import Callable, MutableMapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import streamlit as st
 
 from app import state
 from app.exports import file_stem
+from engine.analysis import ANALYSIS_DEFAULTS, OPTIONAL_ANALYSES
 from engine.errors import HazelError
-from engine.recipe import ANALYSIS_DEFAULTS, Recipe, make_recipe
+from engine.filters import apply_filters
+from engine.recipe import Recipe, make_recipe
 from engine.roles import Roles
 from engine.wording import format_confidence, format_plain
 
@@ -23,8 +27,30 @@ FILTERS = "shared_filters"  # tuple of engine.filters.RowFilter in use (none unt
 RESTORED_UPLOAD = "share_restored_upload"  # id of the recipe upload already applied
 RESTORE_MESSAGES = "share_restore_messages"  # what the last restore found, shown once
 REPORT_HTML = "share_report_html"  # (key of what it was built from, html text)
+SOURCE_TABLE = "shared_source_table"  # the table as read, while a filtered copy is in use
 
+# Widget labels of the pages (app/views), value -> label; the AppTest of a restored recipe checks
+# that the pages show these values.
 TRANSFORM_LABELS = {"log-log": "log-log (default)", "log": "log", "linear": "linear"}
+TIES_LABELS = {"efron": "Efron (default)", "breslow": "Breslow"}
+PH_LABELS = {
+    "km": "Kaplan–Meier scale (default)",
+    "rank": "rank of time",
+    "identity": "time itself",
+    "log": "log time",
+}
+# An optional analysis goes into the recipe (and the report) while its page's switch is on.
+INCLUDE_KEYS = {
+    "competing": "cr_include",
+    "parametric": "param_include",
+    "sample_size": "power_include",
+    "landmark": "landmark_include",
+}
+
+
+def _labelled(labels: dict) -> tuple[Callable, Callable]:
+    back = {v: k for k, v in labels.items()}
+    return (lambda v: labels.get(v, v)), (lambda label: back.get(label, label))
 
 
 @dataclass(frozen=True)
@@ -54,6 +80,14 @@ def _same(value):
     return value
 
 
+def _optional_number(value):
+    return float(value) if value else None
+
+
+def _zero_for_none(value):
+    return float(value or 0.0)
+
+
 WIDGETS = (
     Widget(
         "curves",
@@ -80,24 +114,44 @@ WIDGETS = (
     Widget("comparison", "test", "compare_test", _same, _same),
     Widget("comparison", "rho", "compare_rho", float, float),
     Widget("comparison", "gamma", "compare_gamma", float, float),
-    Widget("cox", "ties", "model_ties", _same, _same),
-    Widget("cox", "ph_transform", "model_ph_transform", _same, _same),
+    Widget("cox", "ties", "model_ties", *_labelled(TIES_LABELS)),
+    Widget("cox", "ph_transform", "model_ph_transform", *_labelled(PH_LABELS)),
+    Widget("competing", "times", "cr_times", _times_text, _times_from_text),
+    Widget("competing", "by_group", "cr_by_group", bool, bool),
+    Widget("parametric", "distributions", "param_distributions", list, list),
+    Widget("parametric", "by_group", "param_by_group", bool, bool),
+    Widget("parametric", "times", "param_times", _times_text, _times_from_text),
+    Widget("parametric", "horizon", "param_horizon", _zero_for_none, _optional_number),
+    Widget("parametric", "aft_distribution", "param_aft_distribution", _same, _same),
+    Widget("sample_size", "hazard_ratio", "power_hr", float, float),
+    Widget("sample_size", "alpha", "power_alpha", float, float),
+    Widget("sample_size", "sides", "power_sides", int, int),
+    Widget("sample_size", "power", "power_power", float, float),
+    Widget("sample_size", "allocation_ratio", "power_allocation", float, float),
+    Widget("sample_size", "event_probability", "power_event_probability", float, float),
+    Widget("sample_size", "events", "power_events", _zero_for_none, _optional_number),
+    Widget("landmark", "time", "landmark_time", _zero_for_none, float),
+    Widget("landmark", "test", "landmark_test", _same, _same),
 )
 
 
-def analyses_in_use(roles: Roles) -> list[str]:
-    """Curves always; a comparison with a group; a Cox model with covariates."""
+def analyses_in_use(roles: Roles, session: MutableMapping | None = None) -> list[str]:
+    """Curves always; a comparison with a group; a Cox model with covariates; and each optional
+    analysis whose page has its "include" switch on."""
     names = ["curves"]
     if roles.group:
         names.append("comparison")
     if roles.covariates:
         names.append("cox")
+    for name in OPTIONAL_ANALYSES:
+        if session is not None and session.get(INCLUDE_KEYS[name]):
+            names.append(name)
     return names
 
 
 def settings_from_session(session: MutableMapping, roles: Roles) -> dict:
     """Each analysis in use with its settings as the pages show them (defaults where unset)."""
-    settings = {name: dict(ANALYSIS_DEFAULTS[name]) for name in analyses_in_use(roles)}
+    settings = {name: dict(ANALYSIS_DEFAULTS[name]) for name in analyses_in_use(roles, session)}
     for widget in WIDGETS:
         if widget.analysis in settings and widget.key in session:
             try:
@@ -107,9 +161,28 @@ def settings_from_session(session: MutableMapping, roles: Roles) -> dict:
     return settings
 
 
+def source_table(session: MutableMapping):
+    """The table as read from the file: the one in use, or the one a restored filter cut down."""
+    table, source = session.get(state.TABLE), session.get(SOURCE_TABLE)
+    if table is not None and source is not None and table.sha256.startswith(source.sha256 + ":"):
+        return source
+    return table
+
+
+def filtered_table(table, filters):
+    """``table`` with only the rows the filters keep, under a fingerprint of its own (so every
+    cached result of the pages is keyed on the filtered rows), or ``table`` without filters."""
+    if not filters:
+        return table
+    outcome = apply_filters(table.frame, filters)
+    key = json.dumps([f.to_dict() for f in filters], sort_keys=True, default=str)
+    digest = hashlib.sha256(key.encode("utf-8")).hexdigest()[:16]
+    return replace(table, frame=outcome.frame, sha256=f"{table.sha256}:filters:{digest}")
+
+
 def recipe_from_session(session: MutableMapping, note: str = "") -> Recipe | None:
     """The recipe of what the session shows now, or None before a table and roles exist."""
-    table, roles = session.get(state.TABLE), session.get(state.ROLES)
+    table, roles = source_table(session), session.get(state.ROLES)
     if table is None or roles is None:
         return None
     return make_recipe(
@@ -130,7 +203,7 @@ def restore_recipe(session: MutableMapping, recipe: Recipe) -> list[str]:
     from app.batch import import_option_differences
     from engine.recipe import check_fingerprint
 
-    table = session.get(state.TABLE)
+    table = source_table(session)
     if table is None:
         raise HazelError(
             "Open the data file first: a recipe holds the settings, not the data. Then upload "
@@ -145,14 +218,26 @@ def restore_recipe(session: MutableMapping, recipe: Recipe) -> list[str]:
             + ". Open the file the recipe was made for."
         )
     warnings = check_fingerprint(recipe, table) + import_option_differences(recipe, table)
-    state.clear_page_choices(session, ("roles_", "curves_", "compare_", "model_"))
+    state.clear_page_choices(session, PAGE_PREFIXES)
     session[state.ROLES] = roles
     session[FILTERS] = tuple(recipe.filters)
+    in_use = session[state.TABLE] = filtered_table(table, recipe.filters)
+    if in_use is table:
+        if SOURCE_TABLE in session:  # (AppTest's session state has no pop)
+            del session[SOURCE_TABLE]
+    else:
+        session[SOURCE_TABLE] = table
+    settings = recipe.settings()
+    for name, key in INCLUDE_KEYS.items():
+        session[key] = name in settings
     for widget in WIDGETS:
-        values = recipe.settings().get(widget.analysis, {})
+        values = settings.get(widget.analysis, {})
         if widget.setting in values and values[widget.setting] is not None:
             session[widget.key] = widget.to_widget(values[widget.setting])
     return warnings
+
+
+PAGE_PREFIXES = ("roles_", "curves_", "compare_", "model_", "cr_", "param_", "power_", "landmark_")
 
 
 def _role_columns(roles: Roles) -> list[str]:
@@ -174,7 +259,7 @@ def render_share_section(
     """
     st.subheader("Share and replay", anchor=False)
     recipe = recipe_from_session(st.session_state)
-    table = st.session_state.get(state.TABLE)
+    table = source_table(st.session_state)
     if recipe is None or table is None:
         st.info("Open a dataset and set its roles first.")
         return
@@ -248,3 +333,73 @@ def _report_download(column, recipe, table, run_analysis, report_builder) -> Non
         return
     st.session_state[REPORT_HTML] = (key, html_text)
     st.rerun()
+
+
+# --- text for a manuscript -----------------------------------------------------------------------
+
+
+def manuscript_box(sentences, what: str = "these results") -> None:
+    """The results worded for a manuscript (engine.wording), in a box with a copy button."""
+    sentences = [s for s in sentences if s]
+    if not sentences:
+        return
+    with st.expander(f"Text for a manuscript: {what}", icon=":material/content_copy:"):
+        st.code("\n".join(sentences), language=None, wrap_lines=True)
+        st.caption(
+            "Rounded by one set of rules everywhere (p below 0.001 as '< 0.001'); the copy "
+            "button is at the top right of the box. The report holds the same sentences."
+        )
+
+
+def curve_text(frame, times, confidence: float, transform: str, unit: str) -> list[str]:
+    """Median and survival-at-time sentences for every curve (engine.summary.curves_json)."""
+    from engine.summary import curves_json
+    from engine.wording import curve_sentences
+
+    sentences = []
+    for curve in curves_json(frame, times=times, confidence=confidence, transform=transform):
+        sentences += curve_sentences(curve, unit, confidence)
+    return sentences
+
+
+def comparison_text(result) -> list[str]:
+    """One sentence for a comparison result of engine.compare."""
+    from engine.wording import comparison_sentence
+
+    return [comparison_sentence(result.test, result.statistic, result.df, result.p_value)]
+
+
+def cox_text(result) -> list[str]:
+    """One hazard-ratio sentence per term of an engine.cox result."""
+    from engine.wording import cox_sentences
+
+    return cox_sentences(result.to_dict(), result.confidence)
+
+
+def analysis_text(sections: dict, settings: dict) -> list[str]:
+    """Every sentence of a run_analysis result (the report's "Text for a manuscript")."""
+    from engine.wording import comparison_sentence, cox_sentences, curve_sentences
+
+    unit = sections["data"]["time_unit"]
+    confidence = settings["curves"]["confidence"]
+    sentences = [s for c in sections["curves"] for s in curve_sentences(c, unit, confidence)]
+    comparison = sections.get("comparison")
+    if comparison:
+        sentences.append(
+            comparison_sentence(
+                comparison["test"], comparison["statistic"], comparison["df"], comparison["p_value"]
+            )
+        )
+    if sections.get("cox"):
+        sentences += cox_sentences(sections["cox"], confidence)
+    return sentences
+
+
+@st.cache_data(max_entries=8, show_spinner="Wording the results…")
+def recipe_text(recipe_json: str, fingerprint: str, _table) -> str:
+    """All sentences for a recipe replayed on the table (the same path as the report)."""
+    from app.batch import apply_recipe
+    from engine.analysis import run_analysis
+
+    run = apply_recipe(Recipe.from_json(recipe_json), _table)
+    return "\n".join(analysis_text(run_analysis(run.prepared, run.settings), run.settings))

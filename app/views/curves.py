@@ -229,3 +229,13 @@ with ui.guard("The summary table"):
         f"Intervals: {int(confidence * 100)}%, {summary.transform} transform; medians by "
         f"{summary.quantile_method}. RMST {summary.tau_rule}."
     )
+
+# --- text for a manuscript (app.share_section) -----------------------------------------------
+
+with ui.guard("The manuscript text"):
+    from app import share_section
+
+    share_section.manuscript_box(
+        share_section.curve_text(base.frame, times, confidence, transform, base.report.time_unit),
+        "medians and survival at the chosen times",
+    )
