@@ -458,25 +458,6 @@ def log_minus_log_chart(
     )
 
 
-def bar_count_chart(counts: pd.DataFrame, style: ChartStyle, *, x_title: str) -> alt.Chart:
-    """Counts per value (columns value, rows, is_event): which values will mean the event."""
-    return (
-        alt.Chart(counts.assign(value=counts["value"].astype(str)))
-        .mark_bar()
-        .encode(
-            y=alt.Y("value:N", title=x_title, sort=list(counts["value"].astype(str))),
-            x=alt.X("rows:Q", title="Rows"),
-            color=alt.Color(
-                "is_event:N",
-                scale=alt.Scale(domain=["event", "censored"], range=[PALETTE[1], "#9AA5A5"]),
-                legend=alt.Legend(title=None, orient="top"),
-            ),
-            tooltip=[alt.Tooltip("value:N", title="Value"), alt.Tooltip("rows:Q", format=",")],
-        )
-        .properties(width=min(style.width, 480), height=max(22 * len(counts), 60))
-    )
-
-
 # ---------------------------------------------------------------------------------------------
 # Beyond the basics: competing risks, parametric models, sample size and power
 # (appended block; builders reuse the step-curve builder where they can)

@@ -8,8 +8,6 @@ estimate. Nothing here computes a statistic: it calls the engine and reshapes it
 
 from __future__ import annotations
 
-import json
-
 import numpy as np
 import pandas as pd
 import streamlit as st
@@ -18,14 +16,9 @@ from app import charts, data, thinning
 from engine.curves import CurveSet, curves_by_group, nelson_aalen
 from engine.io import ImportedTable
 from engine.risk_table import without_missing
-from engine.roles import Roles
 from engine.summary import group_summary, numbers_at_risk
 
 SURVIVAL, INCIDENCE, HAZARD = "survival", "incidence", "hazard"
-
-
-def _roles(roles_text: str) -> Roles:
-    return Roles.from_dict(json.loads(roles_text))
 
 
 def _frame(fingerprint: str, roles_text: str, table: ImportedTable) -> pd.DataFrame:
@@ -74,7 +67,9 @@ def _curve_rows(curve, scale: str) -> pd.DataFrame:
         estimate, lower, upper = curve.cumulative_hazard, curve.lower, curve.upper
         start = 0.0
     elif scale == INCIDENCE:
-        estimate, lower, upper = 1.0 - curve.survival, 1.0 - curve.upper, 1.0 - curve.lower
+        incidence = curve.incidence_frame()  # the engine's 1 − S and its reflected interval
+        estimate = incidence["incidence"].to_numpy()
+        lower, upper = incidence["lower"].to_numpy(), incidence["upper"].to_numpy()
         start = 0.0
     else:
         estimate, lower, upper = curve.survival, curve.lower, curve.upper
@@ -448,7 +443,9 @@ def cox_model(
     )
 
 
-@st.cache_data(max_entries=8, show_spinner="Checking proportional hazards…")
+# Residuals have one row per event (Schoenfeld) or per row (martingale): kept as resources, not
+# copied on every rerun.
+@st.cache_resource(max_entries=8, show_spinner="Checking proportional hazards…")
 def ph_check(model_key: tuple, transform: str, _table: ImportedTable) -> tuple:
     """The PH test and the scaled Schoenfeld residuals (for the plots)."""
     from engine.cox_diagnostics import proportional_hazards_test, schoenfeld_residuals
@@ -473,7 +470,7 @@ def forest(model_key: tuple, _table: ImportedTable) -> pd.DataFrame:
     return forest_data(cox_model(*model_key, _table)).to_frame()
 
 
-@st.cache_data(max_entries=8, show_spinner="Computing residuals…")
+@st.cache_resource(max_entries=8, show_spinner="Computing residuals…")
 def martingale(model_key: tuple, _table: ImportedTable) -> tuple[pd.DataFrame, pd.DataFrame]:
     from engine.cox_diagnostics import martingale_residuals
 

@@ -179,12 +179,9 @@ def profile_builder(result, covariates: list[str]) -> tuple:
             while name in taken:
                 name += " (again)"
             kept.append((name, tuple(values.items())))
-    if kept:
-        shown = pd.DataFrame([{"profile": name, **dict(items)} for name, items in kept])
-        st.dataframe(shown, hide_index=True)
-        if st.button("Remove all profiles", key="model_profiles_clear_button"):
-            store[key] = []
-            st.rerun()
+    if kept and st.button("Remove all profiles", key="model_profiles_clear_button"):
+        store[key] = []
+        st.rerun()
     return tuple(kept)
 
 

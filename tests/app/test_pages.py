@@ -384,7 +384,7 @@ def test_predicted_curves_for_profiles_i_set(pumps):
     assert not at.exception
     assert not at.error
     table = next(d.value for d in at.dataframe if "profile" in d.value.columns)
-    assert list(table["profile"]) == ["Profile 1"]
+    assert list(table["profile"]) == ["Profile 1"]  # the table of profiles drawn
     # The profile starts at the reference level and the means: the engine's typical profile.
     model = fit_cox(prepared.frame, list(roles.covariates), categorical=list(roles.categorical))
     expected = predict_survival(model, {"Profile 1": {}}).profiles
