@@ -71,6 +71,13 @@ if not causes:
     st.info("Name at least one cause above (the event of interest).")
     st.stop()
 prepared = ui.prepared_or_stop(table, roles, "cumulative incidence can be estimated")
+if len({name for _, name in causes}) == 1:
+    st.info(
+        "Only one kind of event is named, so the cumulative incidence equals 1 − Kaplan–Meier. "
+        "If some of the values above are another kind of event (not censoring), give them a "
+        "name of their own; the Dairy herd demo has two kinds.",
+        icon=":material/info:",
+    )
 if "_cause" not in prepared.frame.columns:
     st.info("Name the causes above to estimate their cumulative incidence.")
     st.stop()

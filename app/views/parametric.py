@@ -38,7 +38,8 @@ with st.container(border=True):
     by_group = (
         cols[1].toggle("Each group", key="param_by_group", disabled=not has_group) and has_group
     )
-    ui.remember("param_horizon", 0.0)
+    # start past the follow-up, so the extrapolated part (dashed, shaded) is visible at once
+    ui.remember("param_horizon", charts.nice_ticks(last_time * 1.5, count=4)[-1] or 0.0)
     horizon = cols[2].number_input(
         f"Draw up to ({unit})",
         min_value=0.0,
