@@ -258,11 +258,114 @@ def forest_figure(cox: Mapping | None):
     return charts.finish(charts.forest_chart(forest_rows(cox), style), style)
 
 
+def incidence_rows(result) -> pd.DataFrame:
+    """Drawing rows (group, time, estimate, lower, upper, one_minus_km, at_risk) per cause and
+    group of an ``engine.competing.CumulativeIncidence``, from time 0; the series label is the
+    cause, or "group: cause" when split by group."""
+    table = result.to_frame()
+    pieces = []
+    for (group, cause), rows in table.groupby(["group", "cause"], sort=False, dropna=False):
+        label = str(cause) if group is None or pd.isna(group) else f"{group}: {cause}"
+        first = rows["n_at_risk"].to_numpy()[:1]
+
+        def from_zero(column: str, rows=rows) -> np.ndarray:
+            return np.concatenate([[0.0], rows[column].to_numpy(dtype=float)])
+
+        pieces.append(
+            pd.DataFrame(
+                {
+                    "group": label,
+                    "time": from_zero("time"),
+                    "estimate": from_zero("cumulative_incidence"),
+                    "lower": from_zero("lower"),
+                    "upper": from_zero("upper"),
+                    "one_minus_km": from_zero("one_minus_km"),
+                    "at_risk": np.concatenate([first, rows["n_at_risk"].to_numpy()]),
+                }
+            )
+        )
+    return pd.concat(pieces, ignore_index=True)
+
+
+def incidence_figure(prepared: PreparedData, settings: Mapping):
+    """Cumulative incidence per cause (and group) with bands, 1 − KM dotted, for the report."""
+    from app import charts, thinning
+    from engine.competing import cumulative_incidence
+
+    chosen = settings.get("competing") or {}
+    confidence = {**ANALYSIS_DEFAULTS["curves"], **settings.get("curves", {})}["confidence"]
+    by_group = chosen.get("by_group", True)
+    result = cumulative_incidence(prepared.frame, by_group=by_group, confidence_level=confidence)
+    rows = incidence_rows(result)
+    width, height = REPORT_SIZE
+    top = float(max(rows["upper"].max(), rows["one_minus_km"].max(), 0.05))
+    domain = (0.0, min(1.0, top * 1.05))
+    cif = thinning.thin_step_frame(
+        rows.drop(columns="one_minus_km"), ["estimate", "lower", "upper"], domain, height,
+        group="group",
+    )  # fmt: skip
+    km = rows[["group", "time", "one_minus_km"]].rename(columns={"one_minus_km": "estimate"})
+    km = thinning.thin_step_frame(km, ["estimate"], domain, height, group="group")
+    unit = prepared.report.time_unit
+    style = charts.ChartStyle(width=width, height=height).titled(
+        "", f"Time ({unit})", "Cumulative incidence"
+    )
+    series = list(dict.fromkeys(cif["group"]))
+    chart = charts.incidence_chart(
+        cif,
+        style,
+        charts.group_colours(series),
+        one_minus_km=km,
+        y_domain=domain,
+        legend_title="Group: cause" if by_group and "_group" in prepared.frame else "Cause",
+    )
+    return charts.finish(chart, style)
+
+
+def parametric_figure(prepared: PreparedData, settings: Mapping):
+    """Fitted models over Kaplan–Meier (all rows), extrapolation dashed, for the report; None
+    when the models were fitted per group (the tables hold those)."""
+    from app import charts, thinning
+    from engine.parametric import LABELS, fit_parametric
+
+    chosen = {**ANALYSIS_DEFAULTS["parametric"], **(settings.get("parametric") or {})}
+    if chosen["by_group"]:
+        return None
+    frame = prepared.frame
+    result = fit_parametric(
+        frame,
+        distributions=tuple(chosen["distributions"]),
+        horizon=chosen["horizon"],
+        confidence_level=settings.get("curves", {}).get("confidence", 0.95),
+    )
+    width, height = REPORT_SIZE
+    curve = curves_by_group(frame.drop(columns="_group", errors="ignore")).curves[0]
+    km = thinning.thin_step_frame(_curve_rows(curve), ["estimate"], (0.0, 1.0), height)
+    fitted = result.curves.assign(distribution=result.curves["distribution"].map(LABELS))
+    unit = prepared.report.time_unit
+    style = charts.ChartStyle(width=width, height=height).titled(
+        "", f"Time ({unit})", "Survival probability"
+    )
+    chart = charts.parametric_chart(
+        km,
+        fitted,
+        style,
+        max_time=float(frame["_time"].max()),
+        x_max=float(fitted["time"].max()),
+    )
+    return charts.finish(chart, style)
+
+
 def report_figures(prepared: PreparedData | None, results: Mapping, settings: Mapping) -> dict:
-    """The report's figures: ``curves`` from the prepared data, ``forest`` from the JSON."""
+    """The report's figures: ``curves`` (and ``competing``, ``parametric`` when those analyses
+    ran) from the prepared data, ``forest`` from the JSON."""
     figures = {}
     if prepared is not None and len(prepared.frame):
         figures["curves"] = curve_figure(prepared, settings)
+        if results.get("competing"):
+            figures["competing"] = incidence_figure(prepared, settings)
+        if results.get("parametric"):
+            figures["parametric"] = parametric_figure(prepared, settings)
     forest = forest_figure(results.get("cox"))
     if forest is not None:
         figures["forest"] = forest

@@ -5,11 +5,11 @@ Nothing here computes a statistic; it calls the engine and reshapes its results 
 
 from __future__ import annotations
 
-import numpy as np
 import pandas as pd
 import streamlit as st
 
 from app import compute, thinning
+from app.batch import incidence_rows
 from engine.io import ImportedTable
 
 
@@ -25,31 +25,6 @@ def incidence(
 
     frame = _frame(fingerprint, roles_text, _table)
     return cumulative_incidence(frame, by_group=by_group, confidence_level=confidence)
-
-
-def incidence_rows(result) -> pd.DataFrame:
-    """Drawing rows (group, time, estimate, lower, upper, at_risk) per cause and group, from 0;
-    the series label is the cause, or "group: cause" when split by group."""
-    table = result.to_frame()
-    pieces = []
-    for (group, cause), rows in table.groupby(["group", "cause"], sort=False, dropna=False):
-        label = str(cause) if group is None or pd.isna(group) else f"{group}: {cause}"
-        time = np.concatenate([[0.0], rows["time"].to_numpy(float)])
-        first = rows["n_at_risk"].to_numpy()[:1]
-        pieces.append(
-            pd.DataFrame(
-                {
-                    "group": label,
-                    "time": time,
-                    "estimate": np.concatenate([[0.0], rows["cumulative_incidence"].to_numpy()]),
-                    "lower": np.concatenate([[0.0], rows["lower"].to_numpy()]),
-                    "upper": np.concatenate([[0.0], rows["upper"].to_numpy()]),
-                    "one_minus_km": np.concatenate([[0.0], rows["one_minus_km"].to_numpy()]),
-                    "at_risk": np.concatenate([first, rows["n_at_risk"].to_numpy()]),
-                }
-            )
-        )
-    return pd.concat(pieces, ignore_index=True)
 
 
 @st.cache_data(max_entries=16, show_spinner=False)

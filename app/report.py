@@ -587,10 +587,12 @@ def _competing_section(section: Mapping | None, unit: str, ci: str, figure) -> s
 def _parametric_section(section: Mapping | None, unit: str, ci: str, figure) -> str:
     if not section:
         return ""
+    from engine.parametric import LABELS  # model names as people write them
+
     aic = [
         [
-            _cell(_label(r["group"]) if r["group"] is not None else "All rows"),
-            _cell(r["distribution"]),
+            _cell(_label(r["group"])),
+            _cell(LABELS.get(r["distribution"], r["distribution"])),
             _num(r["n_parameters"], str(r["n_parameters"])),
             _num(r["log_likelihood"], format_number(r["log_likelihood"], 2)),
             _num(r["aic"], format_number(r["aic"], 2)),
@@ -605,7 +607,7 @@ def _parametric_section(section: Mapping | None, unit: str, ci: str, figure) -> 
         estimates.append(
             [
                 _cell(_label(r["group"])),
-                _cell(r["distribution"]),
+                _cell(LABELS.get(r["distribution"], r["distribution"])),
                 _cell(what),
                 *_ci_cells(r, "estimate", fmt),
                 _cell("extrapolated" if r["extrapolated"] else ""),
@@ -628,7 +630,8 @@ def _parametric_section(section: Mapping | None, unit: str, ci: str, figure) -> 
     aft = section.get("aft")
     if aft:
         parts.append(
-            f"<h3>Accelerated failure time model ({escape(aft['distribution'])})</h3>"
+            "<h3>Accelerated failure time model "
+            f"({escape(LABELS.get(aft['distribution'], aft['distribution']))})</h3>"
             f'<p class="meta">{aft["n"]:,} rows, {aft["n_events"]:,} events. A time ratio above '
             "1 means the event tends to come later.</p>"
         )
