@@ -80,7 +80,7 @@ def test_parametric_chart_dashes_and_shades_only_the_extrapolation():
                     "survival": np.exp(-rate * time),
                     "extrapolated": time > 10,
                 }
-            )  # fmt: skip
+            )
             for name, rate in (("Weibull", 0.05), ("Exponential", 0.07))
         ],
         ignore_index=True,
