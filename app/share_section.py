@@ -275,7 +275,11 @@ def render_share_section(
         "analysis in the app or with `python -m app analyze DATA --recipe FILE`.",
     )
     upload = cols[1].file_uploader(
-        "Restore from a recipe", type=["json"], key="share_recipe_upload"
+        "Restore from a recipe",
+        type=["json"],
+        key="share_recipe_upload",
+        help="A .recipe.json file saved by Hazel. Open its data file first: the recipe holds "
+        "the settings, not the data.",
     )
     if upload is not None and st.session_state.get(RESTORED_UPLOAD) != upload.file_id:
         st.session_state[RESTORED_UPLOAD] = upload.file_id
@@ -310,7 +314,12 @@ def _report_download(column, recipe, table, run_analysis, report_builder) -> Non
             key="share_report_download",
         )
         return
-    if not column.button("Build the report", key="share_report_button"):
+    clicked = column.button(
+        "Build the report",
+        key="share_report_button",
+        help="One HTML file with every result, figure and the methods; then download it here.",
+    )
+    if not clicked:
         return
     if run_analysis is None:
         from app.cli import run_analysis  # the lead's JSON sections, shared with the CLI

@@ -32,7 +32,14 @@ at = cols[0].number_input(
     help=f"Follow-up runs to {last_time:,.4g} {unit}.",
 )
 ui.remember("landmark_test", "logrank")
-test = cols[1].selectbox("Test", TESTS, key="landmark_test")
+TEST_NAMES = {
+    "logrank": "Log-rank",
+    "gehan-breslow": "Gehan–Breslow",
+    "tarone-ware": "Tarone–Ware",
+    "peto-peto": "Peto–Peto",
+    "fleming-harrington": "Fleming–Harrington (ρ = 0, γ = 0)",
+}
+test = cols[1].selectbox("Test", TESTS, format_func=TEST_NAMES.get, key="landmark_test")
 ui.remember("landmark_include", True)
 cols[2].toggle("In the report and recipe", key="landmark_include")
 roles_text = data.roles_key(data.curve_roles(roles))

@@ -95,7 +95,17 @@ for col, result in zip(cols, needed, strict=True):
             f"experimental; exact events {result.events_exact:.1f}."
         )
 table = pd.concat([r.to_frame() for r in needed], ignore_index=True)
-ui.table(table, "sample-size", "power_table")
+shown = pd.DataFrame(
+    {
+        "Formula": table["method"].map(NAMES),
+        "Events (exact)": table["events_exact"].map(lambda v: f"{v:,.1f}"),
+        "Events": table["events"],
+        "Subjects": table["subjects"],
+        "Control": table["subjects_control"],
+        "Experimental": table["subjects_experimental"],
+    }
+)
+ui.table(table, "sample-size", "power_table", shown=shown)
 
 st.subheader("Power", anchor=False)
 given = float(events) if events else float(needed[0].events)

@@ -38,5 +38,27 @@ def test_walk_the_pages_beyond_the_basics(server):  # noqa: F811
             _wait_until_idle(page)
             assert page.locator('[data-testid="stException"]').count() == 0, slug
             page.screenshot(path=str(ARTIFACTS / f"beyond_{slug}.png"), full_page=True)
+        # the report is built on the page and offered as a download
+        page.get_by_role("button", name="Build the report").click()
+        page.get_by_text("Download report (HTML)").first.wait_for(timeout=120_000)
+        _wait_until_idle(page)
+        with page.expect_download() as download:
+            page.get_by_text("Download report (HTML)").first.click()
+        text = open(download.value.path(), encoding="utf-8").read()
+        assert text.startswith("<!DOCTYPE html>") and "Landmark analysis" in text
+        # competing risks on the demo with two kinds of event
+        page.get_by_role("link", name="Data import").first.click()
+        page.get_by_role("button", name="Dairy herd").first.click()
+        _wait_until_idle(page)
+        page.get_by_role("link", name="Competing risks").first.click()
+        page.get_by_text("Causes", exact=False).first.wait_for(timeout=60_000)
+        _wait_until_idle(page)
+        box = page.get_by_role("textbox", name="Cause for sold")
+        box.fill("sold")
+        box.press("Enter")
+        page.get_by_text("overstates the cumulative incidence").first.wait_for(timeout=60_000)
+        _wait_until_idle(page)
+        assert page.locator('[data-testid="stException"]').count() == 0
+        page.screenshot(path=str(ARTIFACTS / "beyond_competing_two_causes.png"), full_page=True)
         browser.close()
     assert not errors, errors
