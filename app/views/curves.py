@@ -236,6 +236,9 @@ with ui.guard("The manuscript text"):
     from app import share_section
 
     share_section.manuscript_box(
-        share_section.curve_text(base.frame, times, confidence, transform, base.report.time_unit),
+        # the rows and unit the summary above uses (the unit switch converts the times)
+        share_section.curve_text(
+            data.prepared(table, shown_roles).frame, times, confidence, transform, unit
+        ),
         "medians and survival at the chosen times",
     )

@@ -6,6 +6,8 @@ tests/artifacts/ for a person to look at.
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import pytest
 
 from tests.app.test_browser import ARGS, ARTIFACTS, CHROMIUM, _wait_until_idle, server  # noqa: F401
@@ -44,7 +46,7 @@ def test_walk_the_pages_beyond_the_basics(server):  # noqa: F811
         _wait_until_idle(page)
         with page.expect_download() as download:
             page.get_by_text("Download report (HTML)").first.click()
-        text = open(download.value.path(), encoding="utf-8").read()
+        text = Path(download.value.path()).read_text(encoding="utf-8")
         assert text.startswith("<!DOCTYPE html>") and "Landmark analysis" in text
         # competing risks on the demo with two kinds of event
         page.get_by_role("link", name="Data import").first.click()

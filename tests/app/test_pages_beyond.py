@@ -247,3 +247,11 @@ def test_restored_ties_and_ph_scale_show_on_the_regression_page():
     assert at.session_state["model_ph_transform"] == "rank of time"
     run = run_analysis(prepare(table.frame, roles), recipe.settings())
     assert run["cox"]["ties"] == "breslow"
+
+
+def test_curves_manuscript_text_follows_the_unit_switch():
+    at = _open("views/curves.py")
+    at.selectbox(key="curves_unit").set_value("years").run()
+    assert not at.exception
+    text = next(c.value for c in at.code if "Median survival" in c.value)
+    assert " years (95% CI" in text and "months" not in text
