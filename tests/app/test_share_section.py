@@ -140,3 +140,30 @@ def test_section_offers_the_recipe_and_builds_the_report():
     built = at.session_state["share_report_html"][1]
     assert built.startswith("<!DOCTYPE html>") and "<svg" in built
     assert "https://" not in built
+
+
+def test_optional_analyses_follow_their_page_switches(table):
+    session = {
+        **_session(table),
+        "cr_include": True,
+        "cr_times": "52",
+        "param_include": False,
+        "param_times": "12",
+        "power_include": True,
+        "power_hr": 0.6,
+        "power_events": 0.0,
+        "landmark_include": True,
+        "landmark_time": 6.0,
+        "landmark_test": "peto-peto",
+    }
+    settings = recipe_from_session(session).settings()
+    assert "parametric" not in settings  # its switch is off
+    assert settings["competing"]["times"] == [52.0]
+    assert settings["sample_size"]["hazard_ratio"] == 0.6
+    assert settings["sample_size"]["events"] is None  # 0 on the page: no power figure asked
+    assert settings["landmark"] == {"time": 6.0, "test": "peto-peto"}
+    fresh = {state.TABLE: read_table(PUMPS)}
+    restore_recipe(fresh, recipe_from_session(session))
+    assert fresh["cr_include"] and fresh["power_include"] and not fresh["param_include"]
+    assert fresh["cr_times"] == "52" and fresh["landmark_test"] == "peto-peto"
+    assert fresh["power_hr"] == 0.6 and fresh["landmark_time"] == 6.0
