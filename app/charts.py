@@ -456,3 +456,178 @@ def log_minus_log_chart(
         )
         .properties(width=style.width, height=int(style.height * 0.8), title=_title(style))
     )
+
+
+# ---------------------------------------------------------------------------------------------
+# Beyond the basics: competing risks, parametric models, sample size and power
+# (appended block; builders reuse the step-curve builder where they can)
+
+EXTRAPOLATION_SHADE = "#F3EEE4"
+
+
+def incidence_chart(
+    incidence: pd.DataFrame,
+    style: ChartStyle,
+    colours: dict[str, str],
+    *,
+    one_minus_km: pd.DataFrame | None = None,
+    y_domain: tuple[float, float] = (0.0, 1.0),
+    legend_title: str = "Cause",
+) -> alt.LayerChart:
+    """Aalen–Johansen cumulative incidence per series (cause, or group: cause) with bands, and
+    optionally 1 − KM per series as thin dotted steps for comparison (it overstates incidence
+    when competing events exist). Both frames have columns group, time, estimate (+ bands)."""
+    curves = step_curve_chart(
+        incidence,
+        style,
+        colours,
+        y_domain=y_domain,
+        legend_title=legend_title,
+        y_format=".0%",
+    )
+    if one_minus_km is None or one_minus_km.empty:
+        return curves
+    levels = list(dict.fromkeys(incidence["group"].astype(str)))
+    km = (
+        alt.Chart(one_minus_km.assign(group=one_minus_km["group"].astype(str)))
+        .mark_line(
+            interpolate="step-after",
+            strokeDash=[2, 3],
+            strokeWidth=max(style.line_width * 0.6, 1.0),
+            clip=True,
+        )
+        .encode(
+            x="time:Q",
+            y=alt.Y("estimate:Q", scale=alt.Scale(domain=list(y_domain), nice=False)),
+            color=_colour("group", colours, levels, None),
+            tooltip=[
+                alt.Tooltip("group:N", title="Series"),
+                alt.Tooltip("time:Q", title="Time", format=",.4~g"),
+                alt.Tooltip("estimate:Q", title="1 − Kaplan–Meier", format=".3f"),
+            ],
+        )
+    )
+    return alt.layer(curves, km).properties(
+        width=style.width, height=style.height, title=_title(style)
+    )
+
+
+def parametric_chart(
+    km: pd.DataFrame,
+    fitted: pd.DataFrame,
+    style: ChartStyle,
+    *,
+    max_time: float,
+    x_max: float,
+) -> alt.LayerChart:
+    """Fitted survival of each model over the Kaplan–Meier steps (dark grey). Past ``max_time``
+    (the last observed time) the fitted lines are dashed over a shaded band labelled as
+    extrapolation: they rest on the model's shape, not on data.
+
+    ``km`` has time, estimate; ``fitted`` has distribution, time, survival, extrapolated.
+    """
+    names = list(dict.fromkeys(fitted["distribution"].astype(str)))
+    colours = {name: PALETTE[i % len(PALETTE)] for i, name in enumerate(names)}
+    x = alt.X(
+        "time:Q",
+        title=style.x_title or "Time",
+        scale=alt.Scale(domain=[0, x_max], nice=False, zero=True),
+    )
+    y_scale = alt.Scale(domain=[0, 1], nice=False)
+    colour = _colour("distribution", colours, names, "Model")
+    data = fitted.assign(distribution=fitted["distribution"].astype(str))
+    inside = data.loc[~data["extrapolated"]]
+    # the dashed part starts at the last point inside follow-up, so the line does not break
+    last_inside = inside.groupby("distribution", sort=False).tail(1)
+    beyond = pd.concat([last_inside, data.loc[data["extrapolated"]]], ignore_index=True)
+    tooltip = [
+        alt.Tooltip("distribution:N", title="Model"),
+        alt.Tooltip("time:Q", title="Time", format=",.4~g"),
+        alt.Tooltip("survival:Q", title="Fitted survival", format=".3f"),
+    ]
+    layers = []
+    if x_max > max_time:
+        shade = pd.DataFrame({"start": [max_time], "end": [x_max], "label": ["extrapolation"]})
+        layers.append(
+            alt.Chart(shade).mark_rect(color=EXTRAPOLATION_SHADE).encode(x="start:Q", x2="end:Q")
+        )
+        layers.append(
+            alt.Chart(shade)
+            .mark_text(align="left", dx=6, dy=12, color="#7A6A4F", fontSize=style.font_size)
+            .encode(x="start:Q", y=alt.value(0), text="label:N")
+        )
+    layers.append(
+        alt.Chart(km)
+        .mark_line(interpolate="step-after", color=INK, strokeWidth=style.line_width * 0.75)
+        .encode(
+            x=x,
+            y=alt.Y("estimate:Q", title=style.y_title or "Survival probability", scale=y_scale),
+            tooltip=[
+                alt.Tooltip("time:Q", title="Time", format=",.4~g"),
+                alt.Tooltip("estimate:Q", title="Kaplan–Meier", format=".3f"),
+            ],
+        )
+    )
+    layers.append(
+        alt.Chart(inside)
+        .mark_line(strokeWidth=style.line_width, clip=True)
+        .encode(x=x, y=alt.Y("survival:Q", scale=y_scale), color=colour, tooltip=tooltip)
+    )
+    if not data["extrapolated"].any():
+        return alt.layer(*layers).properties(
+            width=style.width, height=style.height, title=_title(style)
+        )
+    layers.append(
+        alt.Chart(beyond)
+        .mark_line(strokeWidth=style.line_width, strokeDash=[6, 4], clip=True)
+        .encode(x=x, y=alt.Y("survival:Q", scale=y_scale), color=colour, tooltip=tooltip)
+    )
+    return alt.layer(*layers).properties(
+        width=style.width, height=style.height, title=_title(style)
+    )
+
+
+def power_chart(
+    curve: pd.DataFrame, style: ChartStyle, *, target_hr: float | None, target_power: float
+) -> alt.LayerChart:
+    """Power against the hazard ratio (columns method, hazard_ratio, power), one line per
+    formula, with the target power as a dashed rule and the target hazard ratio marked."""
+    names = list(dict.fromkeys(curve["method"].astype(str)))
+    colours = {name: PALETTE[i % len(PALETTE)] for i, name in enumerate(names)}
+    data = curve.assign(method=curve["method"].astype(str))
+    # a line per side of HR = 1 (power is not defined at 1), so the line does not bridge it
+    data = data.assign(side=(data["hazard_ratio"] > 1).map({True: "above", False: "below"}))
+    x = alt.X(
+        "hazard_ratio:Q",
+        title=style.x_title or "Hazard ratio to detect",
+        scale=alt.Scale(type="log", nice=False),
+        axis=alt.Axis(values=[0.4, 0.5, 0.6, 0.7, 0.8, 0.9, 1.0, 1.25, 1.5, 2.0, 2.5]),
+    )
+    y = alt.Y("power:Q", title=style.y_title or "Power", scale=alt.Scale(domain=[0, 1]))
+    layers = [
+        alt.Chart(data)
+        .mark_line(strokeWidth=style.line_width)
+        .encode(
+            x=x,
+            y=y,
+            color=_colour("method", colours, names, "Formula"),
+            detail="side:N",
+            tooltip=[
+                alt.Tooltip("method:N", title="Formula"),
+                alt.Tooltip("hazard_ratio:Q", title="Hazard ratio", format=".2f"),
+                alt.Tooltip("power:Q", title="Power", format=".3f"),
+            ],
+        ),
+        alt.Chart(pd.DataFrame({"power": [target_power]}))
+        .mark_rule(color="#7A8585", strokeDash=[4, 3])
+        .encode(y="power:Q"),
+    ]
+    if target_hr is not None:
+        layers.append(
+            alt.Chart(pd.DataFrame({"hazard_ratio": [target_hr]}))
+            .mark_rule(color=ACCENT, strokeDash=[2, 2])
+            .encode(x=alt.X("hazard_ratio:Q", scale=alt.Scale(type="log", nice=False)))
+        )
+    return alt.layer(*layers).properties(
+        width=style.width, height=int(style.height * 0.8), title=_title(style)
+    )

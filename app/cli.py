@@ -39,10 +39,19 @@ def build_parser() -> argparse.ArgumentParser:
     add_role_options(check)
     check.set_defaults(run=run_check)
     analyze = commands.add_parser(
-        "analyze", help="curves, group comparison and Cox model, as text and JSON"
+        "analyze",
+        help="curves, group comparison and Cox model (and more), as text, JSON and a report",
     )
     add_role_options(analyze)
     add_analysis_options(analyze)
+    replay = analyze.add_argument_group("recipes and reports")
+    replay.add_argument(
+        "--recipe",
+        metavar="RECIPE.json",
+        help="replay a recipe saved by the app: its import options, roles, filters and settings "
+        "(analysis options given here override the recipe's settings)",
+    )
+    replay.add_argument("--report", metavar="OUT.html", help="write a self-contained HTML report")
     analyze.set_defaults(run=run_analyze)
     return parser
 
@@ -75,6 +84,41 @@ def add_analysis_options(parser: argparse.ArgumentParser) -> None:
         choices=("km", "rank", "identity", "log"),
         help="time scale of the proportional-hazards test (default km)",
     )
+    more = parser.add_argument_group("beyond the basics (each adds a section)")
+    more.add_argument(
+        "--competing",
+        metavar="VALUE=CAUSE",
+        action="append",
+        default=[],
+        help="map an event value to a named cause (repeatable; the first cause is the event of "
+        "interest): cumulative incidence per cause and cause-specific Cox models",
+    )
+    more.add_argument(
+        "--parametric",
+        action="store_true",
+        help="exponential, Weibull, log-normal and log-logistic fits (AFT with --covariates)",
+    )
+    more.add_argument(
+        "--horizon", type=float, help="end of the parametric curves (past follow-up: extrapolated)"
+    )
+    more.add_argument("--landmark", type=float, metavar="T", help="landmark analysis from time T")
+    more.add_argument(
+        "--power-hr",
+        type=float,
+        metavar="HR",
+        help="events and subjects needed to detect this hazard ratio (Schoenfeld, Freedman)",
+    )
+    more.add_argument("--power", type=float, help="target power for --power-hr (default 0.8)")
+    more.add_argument("--alpha", type=float, help="two-sided alpha for --power-hr (default 0.05)")
+    more.add_argument(
+        "--allocation", type=float, help="experimental : control subjects (default 1)"
+    )
+    more.add_argument(
+        "--event-probability",
+        type=float,
+        help="expected share of subjects with the event (default 1)",
+    )
+    more.add_argument("--events", type=float, help="power of this many events for --power-hr")
 
 
 def add_role_options(parser: argparse.ArgumentParser) -> None:
@@ -151,6 +195,7 @@ def roles_from_args(args: argparse.Namespace) -> Roles:
         strata=args.strata,
         entry=args.entry,
         id=args.id,
+        event_causes=tuple(getattr(args, "event_causes", ())),
     )
 
 
@@ -242,24 +287,51 @@ def _times(text: str) -> list[float]:
         raise UsageError(f"--times expects numbers separated by commas, got {text!r}") from None
 
 
-def settings_from_args(args: argparse.Namespace) -> dict[str, dict]:
-    """The analysis settings (recipe layout) from the options given; defaults elsewhere."""
-    given = {
-        "curves": {
-            "times": _times(args.times) if args.times else None,
-            "ci_transform": args.ci_transform,
-            "confidence": args.confidence,
-        },
-        "comparison": {"test": args.test, "rho": args.rho, "gamma": args.gamma},
-        "cox": {"ties": args.ties, "ph_transform": args.ph_transform},
+SETTING_OPTIONS = {
+    "curves": {"times": "times", "ci_transform": "ci_transform", "confidence": "confidence"},
+    "comparison": {"test": "test", "rho": "rho", "gamma": "gamma"},
+    "cox": {"ties": "ties", "ph_transform": "ph_transform"},
+    "parametric": {"horizon": "horizon", "times": "times"},
+    "competing": {"times": "times"},
+    "landmark": {"time": "landmark", "test": "test"},
+    "sample_size": {
+        "hazard_ratio": "power_hr",
+        "power": "power",
+        "alpha": "alpha",
+        "allocation_ratio": "allocation",
+        "event_probability": "event_probability",
+        "events": "events",
+    },
+}
+
+
+def settings_from_args(args: argparse.Namespace, base: dict | None = None) -> dict[str, dict]:
+    """The analysis settings (recipe layout): ``base`` (a recipe's, else the defaults) with the
+    options given on the command line put over it. The optional analyses are switched on by
+    their options (--competing, --parametric, --landmark, --power-hr) or by the recipe."""
+    settings = {name: dict(ANALYSIS_DEFAULTS[name]) for name in ("curves", "comparison", "cox")}
+    for name, values in (base or {}).items():
+        settings[name] = {**ANALYSIS_DEFAULTS.get(name, {}), **values}
+    switched = {
+        "competing": bool(getattr(args, "competing", None)),
+        "parametric": bool(getattr(args, "parametric", False)),
+        "landmark": getattr(args, "landmark", None) is not None,
+        "sample_size": getattr(args, "power_hr", None) is not None,
     }
-    confidence = given["curves"]["confidence"]
-    if confidence is not None and not 0 < confidence < 1:
+    for name, on in switched.items():
+        if on and name not in settings:
+            settings[name] = dict(ANALYSIS_DEFAULTS[name])
+    for name, options in SETTING_OPTIONS.items():
+        if name not in settings:
+            continue
+        for setting, option in options.items():
+            given = getattr(args, option, None)
+            if given is not None:
+                settings[name][setting] = _times(given) if setting == "times" else given
+    confidence = settings["curves"]["confidence"]
+    if not 0 < confidence < 1:
         raise UsageError(f"--confidence must lie between 0 and 1, got {confidence}")
-    return {
-        name: {**ANALYSIS_DEFAULTS[name], **{k: v for k, v in values.items() if v is not None}}
-        for name, values in given.items()
-    }
+    return settings
 
 
 def run_analysis(imported: ImportedTable, prepared: PreparedData, settings: dict) -> dict:
@@ -306,17 +378,127 @@ def analysis_summary(sections: dict, unit: str) -> str:
             f"p = {lr['p_value']:.3g}; concordance {_fmt(cox['concordance'])}"
         )
         lines += [f"  Warning: {warning}" for warning in cox["warnings"]]
+    lines += extra_summary(sections, unit)
     return "\n".join(lines)
 
 
+def extra_summary(sections: dict, unit: str) -> list[str]:
+    """Short lines for the optional sections (the JSON and the report hold everything)."""
+    lines = []
+    competing = sections.get("competing")
+    if competing:
+        lines.append("Cumulative incidence at the end of follow-up (Aalen–Johansen):")
+        for row in competing["at_end"]:
+            label = "all rows" if row["group"] is None else row["group"]
+            lines.append(
+                f"  {label!s:<20} {row['cause']!s:<12} {_fmt(row['cumulative_incidence'])} "
+                f"({_fmt(row['lower'])} to {_fmt(row['upper'])}) at {_fmt(row['time'], 4)}"
+            )
+        if competing["warning"]:
+            lines.append(f"  Note: {competing['warning']}")
+    parametric = sections.get("parametric")
+    if parametric:
+        lines.append("Parametric models by AIC (lower is better):")
+        for row in parametric["aic_table"]:
+            label = "" if row["group"] is None else f"{row['group']}: "
+            lines.append(
+                f"  {label}{row['distribution']:<12} AIC {row['aic']:.2f} "
+                f"(Δ {row['delta_aic']:.2f})"
+            )
+    size = sections.get("sample_size")
+    if size:
+        for row in size["needed"]:
+            lines.append(
+                f"{row['method'].capitalize()}: {row['events']} events, {row['subjects']} "
+                f"subjects for HR {row['hazard_ratio']:g} (power {row['power']:g}, "
+                f"alpha {row['alpha']:g})"
+            )
+        for row in size["power"] or ():
+            lines.append(
+                f"{row['method'].capitalize()}: power {row['power']:.3f} with "
+                f"{row['events']:g} events"
+            )
+    landmark = sections.get("landmark")
+    if landmark:
+        lines.append(
+            f"Landmark at {landmark['landmark']:g} {unit}: {landmark['n_kept']} kept, "
+            f"{landmark['n_excluded']} excluded (event or censored before, or entered after)"
+        )
+        comparison = landmark["comparison"]
+        if comparison is not None:
+            lines.append(
+                f"  {comparison['test']}: chi-square {comparison['statistic']:.2f} on "
+                f"{comparison['df']} df, p = {comparison['p_value']:.3g}"
+            )
+    return lines
+
+
+# Options that set roles or import options: a recipe brings its own, so they cannot be mixed.
+ROLE_OPTIONS = (
+    "sep", "decimal", "encoding", "sheet", "time", "start", "end", "date_format", "time_unit",
+    "event", "event_value", "group", "covariates", "categorical", "reference", "strata", "entry",
+    "id", "competing",
+)  # fmt: skip
+
+
+def causes_from_args(args: argparse.Namespace) -> tuple[tuple[str, str], ...]:
+    """``--competing VALUE=CAUSE`` pairs, in the order given."""
+    pairs = []
+    for item in getattr(args, "competing", None) or ():
+        value, sep, cause = item.partition("=")
+        if not sep or not value.strip() or not cause.strip():
+            raise UsageError(f"--competing expects VALUE=CAUSE, got {item!r}")
+        pairs.append((value.strip(), cause.strip()))
+    return tuple(pairs)
+
+
 def run_analyze(args: argparse.Namespace) -> int:
-    table, prepared = load_prepared(args)
-    sections = run_analysis(table, prepared, settings_from_args(args))
+    from app.batch import load_recipe_run
+
+    filtered, warnings = None, []
+    if args.recipe:
+        given = [
+            name for name in ROLE_OPTIONS if getattr(args, name, None) not in (None, [], False)
+        ]
+        if given or args.dayfirst:
+            shown = ", ".join("--" + name.replace("_", "-") for name in given or ["dayfirst"])
+            raise UsageError(
+                f"--recipe brings its own import options and roles; leave out {shown} "
+                "(or drop --recipe and give every role as an option)"
+            )
+        run = load_recipe_run(args.recipe, args.data)
+        table, prepared, filtered, warnings = run.imported, run.prepared, run.filtered, run.warnings
+        settings = settings_from_args(args, base=run.settings)
+        for warning in warnings:
+            print(f"warning: {' '.join(warning.split())}", file=sys.stderr)
+    else:
+        causes = causes_from_args(args)
+        if causes:
+            args.event_causes = causes
+        table, prepared = load_prepared(args)
+        settings = settings_from_args(args)
+    sections = run_analysis(table, prepared, settings)
+    if filtered is not None and filtered.excluded:
+        sections["filters"] = filtered.to_dict()
     if args.json != "-":
         print(data_summary(table, prepared))
         print(analysis_summary(sections, prepared.report.time_unit))
     if args.json:
         write_json(sections, args.json)
+    if args.report:
+        from app.batch import report_from_json_and_results, write_text
+
+        html_text = report_from_json_and_results(
+            sections,
+            settings,
+            imported=table,
+            prepared=prepared,
+            filtered=filtered,
+            warnings=warnings,
+        )
+        write_text(args.report, html_text)
+        if args.json != "-":
+            print(f"Report written to {args.report}")
     return 0
 
 

@@ -36,7 +36,9 @@ def table_csv(frame: pd.DataFrame) -> bytes:
         series = out[column]
         if not (pd.api.types.is_numeric_dtype(series) or pd.api.types.is_bool_dtype(series)):
             out[column] = series.map(safe_cell)
-    return out.to_csv(index=False).encode("utf-8")
+    # CRLF rows: the csv writer then quotes a cell holding a bare CR, which a spreadsheet
+    # would otherwise read as the end of a row (splitting a neutralised cell from its quote).
+    return out.to_csv(index=False, lineterminator="\r\n").encode("utf-8")
 
 
 def json_spec(figure: alt.TopLevelMixin | dict) -> dict:

@@ -40,6 +40,18 @@ pages = {
     ],
     "Help": [st.Page("views/about.py", title="About and cautions", icon=":material/info:")],
 }
+# --- pages beyond the basics, and saving and sharing (kept in one block for easy merges) -------
+pages = {
+    **{name: group for name, group in pages.items() if name != "Help"},
+    "Beyond the basics": [
+        st.Page("views/competing.py", title="Competing risks", icon=":material/call_split:"),
+        st.Page("views/parametric.py", title="Parametric models", icon=":material/functions:"),
+        st.Page("views/landmark.py", title="Landmark analysis", icon=":material/flag:"),
+        st.Page("views/sample_size.py", title="Sample size and power", icon=":material/calculate:"),
+    ],
+    "Share": [st.Page("views/share.py", title="Save and share", icon=":material/ios_share:")],
+    "Help": pages["Help"],
+}
 current = st.navigation(pages)
 ui.sidebar(pages["Data"][1])
 current.run()

@@ -51,3 +51,7 @@ def clear_page_choices(session: MutableMapping, prefixes: tuple[str, ...]) -> No
             and not key.endswith(NOT_ASSIGNABLE_SUFFIXES)
         ):
             del session[key]
+
+
+# --- pages beyond the basics and the share page (appended; prefixes of their widget keys) ------
+PERSISTENT_PREFIXES = (*PERSISTENT_PREFIXES, "cr_", "param_", "power_", "landmark_")

@@ -23,16 +23,35 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
     "curves": {"times": [], "ci_transform": "log-log", "confidence": 0.95, "rmst_horizon": None},
     "comparison": {"test": "logrank", "rho": 0.0, "gamma": 0.0},
     "cox": {"ties": "efron", "ph_transform": "km"},
+    # The analyses below run only when the settings name them (a recipe, --competing ...).
+    "competing": {"times": [], "by_group": True, "cause_specific_cox": True},
+    "parametric": {
+        "distributions": ["exponential", "weibull", "lognormal", "loglogistic"],
+        "by_group": False,
+        "times": [],
+        "horizon": None,
+        "aft_distribution": "weibull",
+    },
+    "sample_size": {
+        "hazard_ratio": 0.7,
+        "alpha": 0.05,
+        "sides": 2,
+        "power": 0.8,
+        "allocation_ratio": 1.0,
+        "event_probability": 1.0,
+        "events": None,
+    },
+    "landmark": {"time": None, "test": "logrank"},
 }
+CORE_ANALYSES = ("curves", "comparison", "cox")  # always run (when the roles allow)
+OPTIONAL_ANALYSES = ("competing", "parametric", "sample_size", "landmark")
 
 
 def resolved_settings(settings: Mapping | None) -> dict[str, dict]:
-    """Every analysis's settings with defaults filled in (a fresh copy)."""
+    """The core analyses' settings, and the optional ones named, with defaults filled in."""
     settings = settings or {}
-    return {
-        name: {**defaults, **dict(settings.get(name) or {})}
-        for name, defaults in ANALYSIS_DEFAULTS.items()
-    }
+    names = [*CORE_ANALYSES, *(n for n in OPTIONAL_ANALYSES if settings.get(n) is not None)]
+    return {name: {**ANALYSIS_DEFAULTS[name], **dict(settings.get(name) or {})} for name in names}
 
 
 def categorical_covariates(frame: pd.DataFrame, covariates) -> tuple[str, ...]:
@@ -66,7 +85,8 @@ def comparison_section(prepared: PreparedData, test: str, rho: float, gamma: flo
 
 
 def run_analysis(prepared: PreparedData, settings: Mapping | None = None) -> dict:
-    """The "data", "curves", "comparison" and "cox" sections for these settings."""
+    """The "data", "curves", "comparison" and "cox" sections for these settings, and a section
+    for each optional analysis the settings name (see ``engine.analysis_extra``)."""
     chosen = resolved_settings(settings)
     curves, comparison, cox = chosen["curves"], chosen["comparison"], chosen["cox"]
     sections: dict = {
@@ -85,4 +105,7 @@ def run_analysis(prepared: PreparedData, settings: Mapping | None = None) -> dic
     if prepared.roles.covariates:
         result = fit_cox_from_roles(prepared, ties=cox["ties"], confidence=curves["confidence"])
         sections["cox"] = cox_json(result, proportional_hazards_test(result, cox["ph_transform"]))
+    from engine.analysis_extra import extra_sections  # the optional analyses
+
+    sections.update(extra_sections(prepared, chosen))
     return sections

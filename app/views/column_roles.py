@@ -176,6 +176,14 @@ with st.container(border=True):
         key="roles_strata",
         help="Compared within each stratum, then combined (stratified tests and Cox models).",
     )
+    default("roles_entry", optional(roles.entry))
+    cols[1].selectbox(
+        "Entry time (delayed entry, optional)",
+        [NONE, *columns],
+        key="roles_entry",
+        help="When a subject came under observation, on the same scale as the time column: "
+        "they count as at risk only from then on (left truncation).",
+    )
     used = {
         chosen("roles_time"),
         chosen("roles_start"),
@@ -264,7 +272,10 @@ new_roles = Roles(
     categorical=tuple(categorical),
     reference=tuple(references),
     strata=chosen("roles_strata"),
+    entry=chosen("roles_entry"),
     id=roles.id if roles.id in columns else None,
+    # causes are named on the Competing risks page; they hold while the event column does
+    event_causes=roles.event_causes if chosen("roles_event") == roles.event else (),
 )
 if new_roles != roles:
     data.set_roles(st.session_state, new_roles)

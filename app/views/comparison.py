@@ -165,6 +165,9 @@ with ui.guard("The test"):
     cols[2].metric("p-value", ui.fmt_p(result.p_value))
     st.markdown(f"**Reading:** {ui.escape(sentence)}")
     st.caption(ui.NOT_SIGNIFICANT_CAUTION)
+    from app import share_section  # text for a manuscript
+
+    share_section.manuscript_box(share_section.comparison_text(result), "the test")
     if result.rows_excluded:
         st.caption(
             f"{result.rows_excluded:,} row(s) without a value for the group or stratum are "

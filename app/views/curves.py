@@ -229,3 +229,16 @@ with ui.guard("The summary table"):
         f"Intervals: {int(confidence * 100)}%, {summary.transform} transform; medians by "
         f"{summary.quantile_method}. RMST {summary.tau_rule}."
     )
+
+# --- text for a manuscript (app.share_section) -----------------------------------------------
+
+with ui.guard("The manuscript text"):
+    from app import share_section
+
+    share_section.manuscript_box(
+        # the rows and unit the summary above uses (the unit switch converts the times)
+        share_section.curve_text(
+            data.prepared(table, shown_roles).frame, times, confidence, transform, unit
+        ),
+        "medians and survival at the chosen times",
+    )

@@ -143,6 +143,9 @@ cols[2].metric(
 )
 cols[3].metric("Likelihood-ratio p", ui.fmt_p(result.likelihood_ratio.p_value))
 cols[4].metric("AIC", f"{result.aic:,.1f}")
+from app import share_section  # noqa: E402  (text for a manuscript)
+
+share_section.manuscript_box(share_section.cox_text(result), "hazard ratios")
 
 
 def profile_builder(result, covariates: list[str]) -> tuple:

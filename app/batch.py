@@ -1,0 +1,418 @@
+"""Replaying a recipe and writing the HTML report, for the command line and the app's download.
+
+Nothing here imports streamlit; Altair and vl-convert load only when a figure is drawn, so the
+command line starts quickly. The JSON sections come from ``engine.analysis.run_analysis``
+(through ``app.cli.run_analysis``); the settings from the command line from
+``app.cli.settings_from_args``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator, Mapping, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from engine.checks import PreparedData, prepare
+from engine.curves import curves_by_group
+from engine.errors import HazelError
+from engine.filters import FilterOutcome, apply_filters
+from engine.io import ImportedTable, ImportOptions, read_table
+from engine.recipe import (
+    ANALYSIS_DEFAULTS,
+    MAX_RECIPE_BYTES,
+    Recipe,
+    RecipeError,
+    check_fingerprint,
+    software_versions,
+)
+from engine.roles import Roles
+from engine.summary import numbers_at_risk
+
+ALL_ROWS = "All rows"
+REPORT_SIZE = (640, 320)  # figure width and height in the report, pixels
+
+
+class OutputError(HazelError):
+    """A result file cannot be written."""
+
+
+@dataclass(frozen=True, eq=False)
+class RecipeRun:
+    """A recipe applied to a data file, ready for ``run_analysis``.
+
+    Unpacks as ``imported, prepared, settings, warnings``; ``recipe`` and ``filtered`` (the rows
+    each filter removed, for the report) are there for whoever needs them.
+    """
+
+    imported: ImportedTable
+    prepared: PreparedData
+    settings: dict
+    warnings: list[str]
+    recipe: Recipe
+    filtered: FilterOutcome
+
+    def __iter__(self) -> Iterator:
+        return iter((self.imported, self.prepared, self.settings, self.warnings))
+
+
+def read_recipe(path: str | Path) -> Recipe:
+    """A recipe file, or a RecipeError naming the file."""
+    path = Path(path)
+    try:
+        size = path.stat().st_size
+        if size > MAX_RECIPE_BYTES:
+            raise RecipeError(
+                f"{path.name} is {size:,} bytes; a Hazel recipe holds settings only and is far "
+                f"smaller (limit {MAX_RECIPE_BYTES:,}). Did you give the data file as the recipe?"
+            )
+        text = path.read_bytes()
+    except OSError as exc:
+        raise RecipeError(f"cannot read the recipe {path}: {exc.strerror or exc}") from None
+    try:
+        return Recipe.from_json(text)
+    except RecipeError as exc:
+        raise RecipeError(f"{path.name}: {exc}") from None
+
+
+def apply_recipe(recipe: Recipe, imported: ImportedTable) -> RecipeRun:
+    """Filters, roles and checks of ``recipe`` on a table already read."""
+    warnings = check_fingerprint(recipe, imported)
+    warnings += import_option_differences(recipe, imported)
+    filtered = apply_filters(imported.frame, recipe.filters)
+    prepared = prepare(filtered.frame, Roles.from_dict(recipe.roles))
+    return RecipeRun(imported, prepared, recipe.settings(), warnings, recipe, filtered)
+
+
+def load_recipe_run(recipe_path: str | Path, data_path: str | Path) -> RecipeRun:
+    """Read the data as the recipe says, apply its filters and roles, and say what differs.
+
+    Fingerprint differences (another file, other rows or columns) are warnings, not errors: the
+    caller shows them beside the results so nobody mistakes them for the original numbers.
+    """
+    recipe = read_recipe(recipe_path)
+    imported = read_table(Path(data_path), ImportOptions.from_dict(recipe.import_options))
+    return apply_recipe(recipe, imported)
+
+
+def import_option_differences(recipe: Recipe, imported: ImportedTable) -> list[str]:
+    """Import options the recipe names that differ from those the table was read with."""
+    used = imported.options.to_dict()
+    out = []
+    for key in ("sep", "decimal", "encoding", "sheet", "missing_tokens"):
+        wanted = recipe.import_options.get(key)
+        if wanted is None or key not in used:
+            continue
+        if _comparable(wanted) != _comparable(used[key]):
+            out.append(
+                f"The recipe reads the file with {key} = {wanted!r}; the table in use was read "
+                f"with {used[key]!r}. Re-import the file with the recipe's options to repeat it."
+            )
+    return out
+
+
+def _comparable(value):
+    return list(value) if isinstance(value, list | tuple) else value
+
+
+# --- figures -----------------------------------------------------------------------------------
+
+
+def _curve_rows(curve) -> pd.DataFrame:
+    """Step vertices from time 0 (where every survival curve starts at 1)."""
+    time = np.asarray(curve.time, dtype=float)
+    survival, lower, upper = curve.survival, curve.lower, curve.upper
+    at_risk = np.asarray(curve.at_risk)
+    if time.size == 0 or time[0] > 0:
+        time = np.concatenate([[0.0], time])
+        survival, lower, upper = (np.concatenate([[1.0], a]) for a in (survival, lower, upper))
+        at_risk = np.concatenate([[at_risk[0] if at_risk.size else 0], at_risk])
+    label = ALL_ROWS if curve.label is None else str(curve.label)
+    return pd.DataFrame(
+        {
+            "group": label,
+            "time": time,
+            "estimate": survival,
+            "lower": lower,
+            "upper": upper,
+            "at_risk": at_risk,
+        }
+    )
+
+
+def curve_figure(prepared: PreparedData, settings: Mapping, *, title: str = ""):
+    """The Kaplan–Meier figure with its numbers-at-risk table, drawn by the app's builders."""
+    from app import charts, thinning
+
+    curve_settings = {**ANALYSIS_DEFAULTS["curves"], **settings.get("curves", {})}
+    frame = prepared.frame
+    curves = curves_by_group(
+        frame, confidence=curve_settings["confidence"], transform=curve_settings["ci_transform"]
+    ).curves
+    by_group = len(curves) > 1
+    drawn = list(curves[1:] if by_group else curves[:1])
+    rows = pd.concat([_curve_rows(c) for c in drawn], ignore_index=True)
+    width, height = REPORT_SIZE
+    thinned = thinning.thin_step_frame(
+        rows, ["estimate", "lower", "upper"], (0.0, 1.0), height, group="group"
+    )
+    x_max = float(rows["time"].max()) or 1.0
+    marks = []
+    for curve in drawn:
+        censored = np.asarray(curve.censored) > 0
+        if censored.any():
+            marks.append(
+                pd.DataFrame(
+                    {
+                        "group": ALL_ROWS if curve.label is None else str(curve.label),
+                        "time": np.asarray(curve.time, dtype=float)[censored],
+                        "estimate": np.asarray(curve.survival)[censored],
+                    }
+                )
+            )
+    censored_marks = (
+        thinning.thin_points(
+            pd.concat(marks, ignore_index=True),
+            "time",
+            "estimate",
+            (0.0, x_max),
+            (0.0, 1.0),
+            (width, height),
+            group="group",
+        )
+        if marks
+        else None
+    )
+    ticks = charts.nice_ticks(x_max)
+    labels = [str(c.label) for c in drawn] if by_group else []
+    colours = charts.group_colours(labels)
+    unit = prepared.report.time_unit
+    style = charts.ChartStyle(width=width, height=height).titled(
+        title, f"Time ({unit})", "Survival probability"
+    )
+    curve_chart = charts.step_curve_chart(
+        thinned,
+        style,
+        colours,
+        censored=censored_marks,
+        x_max=x_max,
+        ticks=ticks,
+        legend_title=prepared.roles.group or "",
+        align_with_table=True,
+    )
+    group = frame["_group"] if by_group else None
+    risk = numbers_at_risk(
+        frame["_time"].to_numpy(),
+        frame["_event"].to_numpy(),
+        group,
+        ticks,
+        entry=frame["_entry"].to_numpy() if "_entry" in frame.columns else None,
+    ).to_frame()
+    risk = risk.rename(columns={"tick": "time"})
+    risk["group"] = [ALL_ROWS if g is None else str(g) for g in risk["group"]]
+    risk_chart = charts.at_risk_chart(risk, style, colours, x_max=x_max, ticks=ticks)
+    return charts.finish(charts.curve_with_risk_table(curve_chart, risk_chart, style), style)
+
+
+def forest_rows(cox: Mapping) -> pd.DataFrame:
+    """Forest-plot rows from the JSON ``cox`` section: a reference row above each categorical."""
+    from engine.wording import format_p
+
+    rows, seen = [], set()
+    for term in cox["terms"]:
+        variable, level, reference = term["variable"], term.get("level"), term.get("reference")
+        if level is not None and variable not in seen and reference is not None:
+            seen.add(variable)
+            rows.append(
+                {
+                    "label": f"{variable}: {reference} (reference)",
+                    "hazard_ratio": 1.0,
+                    "lower": 1.0,
+                    "upper": 1.0,
+                    "is_reference": True,
+                    "p_text": "",
+                }
+            )
+        rows.append(
+            {
+                "label": str(variable) if level is None else f"{variable}: {level}",
+                "hazard_ratio": term["hazard_ratio"],
+                "lower": term["lower"],
+                "upper": term["upper"],
+                "is_reference": False,
+                "p_text": format_p(term["p_value"]),
+            }
+        )
+    return pd.DataFrame(rows)
+
+
+def forest_figure(cox: Mapping | None):
+    """The forest plot of the Cox terms, or None without a model."""
+    if not cox or not cox.get("terms"):
+        return None
+    from app import charts
+
+    style = charts.ChartStyle(width=REPORT_SIZE[0], height=REPORT_SIZE[1])
+    return charts.finish(charts.forest_chart(forest_rows(cox), style), style)
+
+
+def incidence_rows(result) -> pd.DataFrame:
+    """Drawing rows (group, time, estimate, lower, upper, one_minus_km, at_risk) per cause and
+    group of an ``engine.competing.CumulativeIncidence``, from time 0; the series label is the
+    cause, or "group: cause" when split by group."""
+    table = result.to_frame()
+    pieces = []
+    for (group, cause), rows in table.groupby(["group", "cause"], sort=False, dropna=False):
+        label = str(cause) if group is None or pd.isna(group) else f"{group}: {cause}"
+        first = rows["n_at_risk"].to_numpy()[:1]
+
+        def from_zero(column: str, rows=rows) -> np.ndarray:
+            return np.concatenate([[0.0], rows[column].to_numpy(dtype=float)])
+
+        pieces.append(
+            pd.DataFrame(
+                {
+                    "group": label,
+                    "time": from_zero("time"),
+                    "estimate": from_zero("cumulative_incidence"),
+                    "lower": from_zero("lower"),
+                    "upper": from_zero("upper"),
+                    "one_minus_km": from_zero("one_minus_km"),
+                    "at_risk": np.concatenate([first, rows["n_at_risk"].to_numpy()]),
+                }
+            )
+        )
+    return pd.concat(pieces, ignore_index=True)
+
+
+def incidence_figure(prepared: PreparedData, settings: Mapping):
+    """Cumulative incidence per cause (and group) with bands, 1 − KM dotted, for the report."""
+    from app import charts, thinning
+    from engine.competing import cumulative_incidence
+
+    chosen = settings.get("competing") or {}
+    confidence = {**ANALYSIS_DEFAULTS["curves"], **settings.get("curves", {})}["confidence"]
+    by_group = chosen.get("by_group", True)
+    result = cumulative_incidence(prepared.frame, by_group=by_group, confidence_level=confidence)
+    rows = incidence_rows(result)
+    width, height = REPORT_SIZE
+    top = float(max(rows["upper"].max(), rows["one_minus_km"].max(), 0.05))
+    domain = (0.0, min(1.0, top * 1.05))
+    cif = thinning.thin_step_frame(
+        rows.drop(columns="one_minus_km"), ["estimate", "lower", "upper"], domain, height,
+        group="group",
+    )  # fmt: skip
+    km = rows[["group", "time", "one_minus_km"]].rename(columns={"one_minus_km": "estimate"})
+    km = thinning.thin_step_frame(km, ["estimate"], domain, height, group="group")
+    unit = prepared.report.time_unit
+    style = charts.ChartStyle(width=width, height=height).titled(
+        "", f"Time ({unit})", "Cumulative incidence"
+    )
+    series = list(dict.fromkeys(cif["group"]))
+    chart = charts.incidence_chart(
+        cif,
+        style,
+        charts.group_colours(series),
+        one_minus_km=km,
+        y_domain=domain,
+        legend_title="Group: cause" if by_group and "_group" in prepared.frame else "Cause",
+    )
+    return charts.finish(chart, style)
+
+
+def parametric_figure(prepared: PreparedData, settings: Mapping):
+    """Fitted models over Kaplan–Meier (all rows), extrapolation dashed, for the report; None
+    when the models were fitted per group (the tables hold those)."""
+    from app import charts, thinning
+    from engine.parametric import LABELS, fit_parametric
+
+    chosen = {**ANALYSIS_DEFAULTS["parametric"], **(settings.get("parametric") or {})}
+    if chosen["by_group"]:
+        return None
+    frame = prepared.frame
+    result = fit_parametric(
+        frame,
+        distributions=tuple(chosen["distributions"]),
+        horizon=chosen["horizon"],
+        confidence_level=settings.get("curves", {}).get("confidence", 0.95),
+    )
+    width, height = REPORT_SIZE
+    curve = curves_by_group(frame.drop(columns="_group", errors="ignore")).curves[0]
+    km = thinning.thin_step_frame(_curve_rows(curve), ["estimate"], (0.0, 1.0), height)
+    fitted = result.curves.assign(distribution=result.curves["distribution"].map(LABELS))
+    unit = prepared.report.time_unit
+    style = charts.ChartStyle(width=width, height=height).titled(
+        "", f"Time ({unit})", "Survival probability"
+    )
+    chart = charts.parametric_chart(
+        km,
+        fitted,
+        style,
+        max_time=float(frame["_time"].max()),
+        x_max=float(fitted["time"].max()),
+    )
+    return charts.finish(chart, style)
+
+
+def report_figures(prepared: PreparedData | None, results: Mapping, settings: Mapping) -> dict:
+    """The report's figures: ``curves`` (and ``competing``, ``parametric`` when those analyses
+    ran) from the prepared data, ``forest`` from the JSON."""
+    figures = {}
+    if prepared is not None and len(prepared.frame):
+        figures["curves"] = curve_figure(prepared, settings)
+        if results.get("competing"):
+            figures["competing"] = incidence_figure(prepared, settings)
+        if results.get("parametric"):
+            figures["parametric"] = parametric_figure(prepared, settings)
+    forest = forest_figure(results.get("cox"))
+    if forest is not None:
+        figures["forest"] = forest
+    return figures
+
+
+# --- the report --------------------------------------------------------------------------------
+
+
+def report_from_json_and_results(
+    results: Mapping,
+    settings: Mapping,
+    *,
+    imported: ImportedTable | None = None,
+    prepared: PreparedData | None = None,
+    filtered: FilterOutcome | None = None,
+    warnings: Sequence[str] = (),
+    title: str | None = None,
+) -> str:
+    """The HTML report of ``results`` (the JSON object ``run_analysis`` returns).
+
+    ``prepared`` draws the Kaplan–Meier figure; ``imported`` gives the file's fingerprint and
+    name; ``filtered`` the rows each recipe filter removed; ``warnings`` extra warnings such as
+    a replayed recipe's fingerprint differences.
+    """
+    from app.report import build_report
+
+    fingerprint = None
+    if imported is not None:
+        fingerprint = {**imported.fingerprint(), "file_name": imported.source_name}
+    name = imported.source_name if imported is not None else "data"
+    return build_report(
+        results,
+        settings,
+        roles=prepared.roles.to_dict() if prepared is not None else None,
+        title=title or f"Survival analysis of {name}",
+        figures=report_figures(prepared, results, settings),
+        fingerprint=fingerprint,
+        filters=filtered.to_dict()["excluded"] if filtered is not None else (),
+        warnings=warnings,
+        software=software_versions(),
+    )
+
+
+def write_text(path: str | Path, text: str) -> None:
+    """Write a report or recipe, or an OutputError (exit 2 on the command line)."""
+    try:
+        Path(path).write_text(text, encoding="utf-8")
+    except OSError as exc:
+        raise OutputError(f"cannot write {path}: {exc.strerror or exc}") from None

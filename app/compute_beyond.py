@@ -1,0 +1,144 @@
+"""Cached engine calls for the pages beyond the basics (competing risks, parametric models,
+landmark analysis). Keyed like ``app.compute``: the data's fingerprint, the roles, the settings.
+Nothing here computes a statistic; it calls the engine and reshapes its results for drawing.
+"""
+
+from __future__ import annotations
+
+import pandas as pd
+import streamlit as st
+
+from app import compute, thinning
+from app.batch import incidence_rows
+from engine.io import ImportedTable
+
+
+def _frame(fingerprint: str, roles_text: str, table: ImportedTable) -> pd.DataFrame:
+    return compute._frame(fingerprint, roles_text, table)
+
+
+@st.cache_resource(max_entries=8, show_spinner="Estimating the cumulative incidence…")
+def incidence(
+    fingerprint: str, roles_text: str, by_group: bool, confidence: float, _table: ImportedTable
+):
+    from engine.competing import cumulative_incidence
+
+    frame = _frame(fingerprint, roles_text, _table)
+    return cumulative_incidence(frame, by_group=by_group, confidence_level=confidence)
+
+
+@st.cache_data(max_entries=16, show_spinner=False)
+def incidence_drawing(
+    fingerprint: str,
+    roles_text: str,
+    by_group: bool,
+    confidence: float,
+    height_px: int,
+    _table: ImportedTable,
+) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Thinned Aalen–Johansen vertices, and thinned 1 − KM vertices for the comparison."""
+    rows = incidence_rows(incidence(fingerprint, roles_text, by_group, confidence, _table))
+    top = float(max(rows["upper"].max(), rows["one_minus_km"].max(), 0.05))
+    domain = (0.0, min(1.0, top * 1.05))
+    cif = thinning.thin_step_frame(
+        rows.drop(columns="one_minus_km"), ["estimate", "lower", "upper"], domain, height_px,
+        group="group",
+    )  # fmt: skip
+    km = rows[["group", "time", "one_minus_km"]].rename(columns={"one_minus_km": "estimate"})
+    km = thinning.thin_step_frame(
+        km.assign(lower=km["estimate"], upper=km["estimate"], at_risk=0),
+        ["estimate"],
+        domain,
+        height_px,
+        group="group",
+    )
+    return cif, km
+
+
+@st.cache_resource(max_entries=4, show_spinner="Fitting a Cox model per cause…")
+def cause_specific(fingerprint: str, roles_text: str, ties: str, _table: ImportedTable, _roles):
+    from engine.analysis import categorical_covariates
+    from engine.competing import cause_specific_cox
+
+    frame = _frame(fingerprint, roles_text, _table)
+    return cause_specific_cox(
+        frame,
+        list(_roles.covariates),
+        categorical=categorical_covariates(frame, _roles.covariates),
+        reference=dict(_roles.reference),
+        ties=ties,
+    )
+
+
+@st.cache_resource(max_entries=8, show_spinner="Fitting the parametric models…")
+def parametric(
+    fingerprint: str,
+    roles_text: str,
+    distributions: tuple[str, ...],
+    by_group: bool,
+    times: tuple[float, ...],
+    horizon: float | None,
+    confidence: float,
+    _table: ImportedTable,
+):
+    from engine.parametric import fit_parametric
+
+    frame = _frame(fingerprint, roles_text, _table)
+    return fit_parametric(
+        frame,
+        by_group=by_group,
+        distributions=distributions,
+        times=times,
+        horizon=horizon,
+        confidence_level=confidence,
+    )
+
+
+@st.cache_resource(max_entries=8, show_spinner="Fitting the AFT model…")
+def aft(
+    fingerprint: str,
+    roles_text: str,
+    distribution: str,
+    confidence: float,
+    _table: ImportedTable,
+    _covariates: tuple[str, ...],
+):
+    from engine.aft import fit_aft
+
+    frame = _frame(fingerprint, roles_text, _table)
+    return fit_aft(frame, list(_covariates), distribution, confidence_level=confidence)
+
+
+@st.cache_resource(max_entries=8, show_spinner="Selecting the subjects at risk…")
+def landmark(fingerprint: str, roles_text: str, at: float, _table: ImportedTable):
+    from engine.landmark import landmark as select
+
+    return select(_frame(fingerprint, roles_text, _table), at)
+
+
+@st.cache_data(max_entries=8, show_spinner=False)
+def landmark_curves(
+    fingerprint: str, roles_text: str, at: float, height_px: int, _table: ImportedTable
+) -> pd.DataFrame:
+    """Thinned Kaplan–Meier vertices of the subjects kept at the landmark (time from it)."""
+    from engine.curves import curves_by_group
+
+    frame = landmark(fingerprint, roles_text, at, _table).frame
+    curves = curves_by_group(frame).curves
+    drawn = curves[1:] if len(curves) > 1 else curves[:1]
+    rows = pd.concat([compute._curve_rows(c, compute.SURVIVAL) for c in drawn], ignore_index=True)
+    return thinning.thin_step_frame(
+        rows, ["estimate", "lower", "upper"], (0.0, 1.0), height_px, group="group"
+    )
+
+
+@st.cache_data(max_entries=8, show_spinner="Testing…")
+def landmark_comparison(
+    fingerprint: str, roles_text: str, at: float, test: str, _table: ImportedTable
+):
+    from engine.compare import compare_frame
+
+    frame = landmark(fingerprint, roles_text, at, _table).frame
+    if "_group" not in frame.columns or frame["_group"].nunique(dropna=True) < 2:
+        return None
+    return compare_frame(frame, test=test)

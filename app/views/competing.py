@@ -1,0 +1,190 @@
+"""Competing risks: name the causes behind the event column's values, then cumulative incidence
+per cause (Aalen–Johansen) by group with bands, the 1 − KM comparison and cause-specific Cox
+models."""
+
+from __future__ import annotations
+
+from dataclasses import replace
+
+import pandas as pd
+import streamlit as st
+
+from app import charts, compute_beyond, data, share_section, ui
+from engine.wording import format_percent
+
+CONFIDENCE = {"95%": 0.95, "90%": 0.90, "99%": 0.99}
+
+st.title("Competing risks", anchor=False)
+st.caption(
+    "When a subject can have one of several kinds of event (died, sold, moved away), each one "
+    "stops the others from happening. Name the kinds here; Hazel then estimates the "
+    "probability of each by every time."
+)
+table = data.current_table(st.session_state)
+roles = data.current_roles(st.session_state)
+if table is None or roles is None:
+    st.info("Open a demo or upload a file on the Data import page first.")
+    st.stop()
+if roles.event is None:
+    st.info("Choose the event column on the Column roles page first.")
+    st.page_link("views/column_roles.py", label="Column roles", icon=":material/view_column:")
+    st.stop()
+
+# --- causes ---------------------------------------------------------------------------------
+
+counts = table.frame[roles.event].value_counts(dropna=True)
+values = list(counts.index)
+if len(values) > 20:
+    st.warning(
+        f"The event column {ui.escape(roles.event)} has {len(values)} distinct values; causes "
+        "are named for columns with at most 20. Choose another event column."
+    )
+    st.stop()
+named = {str(v): name for v, name in roles.event_causes}
+event_values = {str(v) for v in roles.event_values}
+with st.container(border=True):
+    st.subheader("Causes", anchor=False)
+    st.caption(
+        f"One row per value of {ui.escape(roles.event)}. Give each kind of event a name; leave "
+        "the box empty for values that mean censored (still event-free when last seen). The "
+        "first cause named is the event of interest for the other pages."
+    )
+    pairs = []
+    for i, value in enumerate(values):
+        key = f"cr_cause_{i}"
+        ui.remember(key, named.get(str(value), str(value) if str(value) in event_values else ""))
+        cols = st.columns([2, 1, 3])
+        cols[0].markdown(f"**{ui.escape(value)}**")
+        cols[1].caption(f"{int(counts[value]):,} rows")
+        name = cols[2].text_input(
+            f"Cause for {value}", key=key, label_visibility="collapsed", placeholder="censored"
+        )
+        if name.strip():
+            pairs.append((value, name.strip()))
+# the event of interest (the values of the event role) leads
+pairs.sort(key=lambda pair: str(pair[0]) not in event_values)
+causes = tuple(pairs)
+if causes != tuple(roles.event_causes):
+    data.set_roles(st.session_state, replace(roles, event_causes=causes))
+    st.rerun()
+if not causes:
+    st.info("Name at least one cause above (the event of interest).")
+    st.stop()
+prepared = ui.prepared_or_stop(table, roles, "cumulative incidence can be estimated")
+if len({name for _, name in causes}) == 1:
+    st.info(
+        "Only one kind of event is named, so the cumulative incidence equals 1 − Kaplan–Meier. "
+        "If some of the values above are another kind of event (not censoring), give them a "
+        "name of their own; the Dairy herd demo has two kinds.",
+        icon=":material/info:",
+    )
+if "_cause" not in prepared.frame.columns:
+    st.info("Name the causes above to estimate their cumulative incidence.")
+    st.stop()
+
+# --- settings -------------------------------------------------------------------------------
+
+has_group = "_group" in prepared.frame.columns
+cols = st.columns(4)
+ui.remember("cr_by_group", has_group)
+by_group = cols[0].toggle("Each group", key="cr_by_group", disabled=not has_group) and has_group
+ui.remember("cr_show_km", True)
+show_km = cols[1].toggle(
+    "Show 1 − KM",
+    key="cr_show_km",
+    help="One minus the Kaplan–Meier curve that treats the other causes as censored, dotted.",
+)
+confidence = CONFIDENCE[cols[2].selectbox("Confidence level", list(CONFIDENCE), key="cr_conf")]
+ui.remember("cr_include", True)
+cols[3].toggle("In the report and recipe", key="cr_include")
+roles_text = data.roles_key(data.curve_roles(roles))
+unit = prepared.report.time_unit
+
+with ui.guard("The cumulative incidence"):
+    result = compute_beyond.incidence(table.sha256, roles_text, by_group, confidence, table)
+    if result.warning:
+        st.warning(result.warning, icon=":material/warning:")
+    style = ui.chart_style()
+    title, x_title, y_title = ui.label_inputs(
+        "cr_plot",
+        "Cumulative incidence by cause" + (f" and {roles.group}" if by_group else ""),
+        f"Time ({unit})",
+        "Probability of the event by then",
+    )
+    style = style.titled(title, x_title, y_title)
+    cif, km = compute_beyond.incidence_drawing(
+        table.sha256, roles_text, by_group, confidence, style.height, table
+    )
+    series = list(dict.fromkeys(cif["group"]))
+    top = float(max(cif["upper"].max(), km["estimate"].max() if show_km else 0, 0.05))
+    chart = charts.incidence_chart(
+        cif,
+        style,
+        charts.group_colours(series),
+        one_minus_km=km if show_km else None,
+        y_domain=(0.0, min(1.0, top * 1.05)),
+        legend_title="Group: cause" if by_group else "Cause",
+    )
+    ui.figure(chart, style, "cumulative-incidence", "cr_figure")
+    st.caption(
+        f"Solid: Aalen–Johansen estimate with pointwise {format_percent(confidence, 0)} bands"
+        + ("; dotted: 1 − Kaplan–Meier with the other causes censored." if show_km else ".")
+    )
+
+    st.subheader("At the end of follow-up", anchor=False)
+    frame = result.to_frame()
+    last = frame.groupby(["group", "cause"], sort=False, dropna=False).tail(1)
+    shown = pd.DataFrame(
+        {
+            "Group": last["group"].map(compute_beyond.compute.label_text),
+            "Cause": last["cause"],
+            f"Time ({unit})": last["time"].map(lambda t: f"{t:,.4g}"),
+            "Cumulative incidence": [
+                f"{format_percent(e)} ({format_percent(lo)} to {format_percent(hi)})"
+                for e, lo, hi in last[["cumulative_incidence", "lower", "upper"]].itertuples(
+                    index=False
+                )
+            ],
+            "1 − KM": last["one_minus_km"].map(format_percent),
+        }
+    )
+    ui.table(last, "cumulative-incidence-final", "cr_final", shown=shown)
+    with st.expander("Every step of the estimate (exact values)"):
+        if st.toggle("Show the table", key="cr_show_steps"):
+            ui.table(frame, "cumulative-incidence", "cr_steps")
+
+# --- cause-specific Cox models --------------------------------------------------------------
+
+st.subheader("Cause-specific Cox models", anchor=False)
+if not roles.covariates:
+    st.info("Choose covariates on the Column roles page to fit a Cox model per cause.")
+else:
+    st.caption(
+        "One model per cause, the other causes counted as censored: each hazard ratio says how "
+        "a covariate goes with the rate of that cause among subjects still free of every event."
+    )
+    with ui.guard("The cause-specific models"):
+        models = compute_beyond.cause_specific(
+            table.sha256, data.roles_key(roles), "efron", table, roles
+        )
+        rows = models.to_frame()
+        shown = pd.DataFrame(
+            {
+                "Cause": rows["cause"],
+                "Term": [
+                    str(v) if pd.isna(lv) else f"{v}: {lv} vs {ref}"
+                    for v, lv, ref in rows[["variable", "level", "reference"]].itertuples(
+                        index=False
+                    )
+                ],
+                "Hazard ratio": rows["hazard_ratio"].map(lambda v: f"{v:.3f}"),
+                "Interval": [
+                    f"{lo:.3f} to {hi:.3f}"
+                    for lo, hi in rows[["lower", "upper"]].itertuples(index=False)
+                ],
+                "p": rows["p_value"].map(ui.fmt_p),
+            }
+        )
+        ui.table(rows, "cause-specific-cox", "cr_cox", shown=shown)
+        for cause, model in models.models:
+            share_section.manuscript_box(share_section.cox_text(model), f"cause {cause}")

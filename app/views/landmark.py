@@ -1,0 +1,93 @@
+"""Landmark analysis: curves and a group comparison counted from a chosen time, among the
+subjects still at risk then, with the number left out shown."""
+
+from __future__ import annotations
+
+import streamlit as st
+
+from app import charts, compute, compute_beyond, data, share_section, ui
+from engine.compare import TESTS
+
+st.title("Landmark analysis", anchor=False)
+st.caption(
+    "Comparing groups that form during follow-up (responders, transplanted) from time 0 "
+    "favours whoever had to survive long enough to join a group. A landmark analysis starts "
+    "the clock at a fixed time and keeps only the subjects still at risk then."
+)
+table = data.current_table(st.session_state)
+roles = data.current_roles(st.session_state)
+if table is None or roles is None:
+    st.info("Open a demo or upload a file on the Data import page first.")
+    st.stop()
+prepared = ui.prepared_or_stop(table, roles, "a landmark can be set")
+unit = prepared.report.time_unit
+last_time = float(prepared.frame["_time"].max()) if len(prepared.frame) else 0.0
+
+cols = st.columns([2, 3, 2])
+ui.remember("landmark_time", charts.nice_ticks(last_time, count=5)[1] if last_time else 0.0)
+at = cols[0].number_input(
+    f"Landmark time ({unit})",
+    min_value=0.0,
+    key="landmark_time",
+    help=f"Follow-up runs to {last_time:,.4g} {unit}.",
+)
+ui.remember("landmark_test", "logrank")
+TEST_NAMES = {
+    "logrank": "Log-rank",
+    "gehan-breslow": "Gehan–Breslow",
+    "tarone-ware": "Tarone–Ware",
+    "peto-peto": "Peto–Peto",
+    "fleming-harrington": "Fleming–Harrington (ρ = 0, γ = 0)",
+}
+test = cols[1].selectbox("Test", TESTS, format_func=TEST_NAMES.get, key="landmark_test")
+ui.remember("landmark_include", True)
+cols[2].toggle("In the report and recipe", key="landmark_include")
+roles_text = data.roles_key(data.curve_roles(roles))
+
+with ui.guard("The landmark selection"):
+    selected = compute_beyond.landmark(table.sha256, roles_text, float(at), table)
+    cols = st.columns(3)
+    cols[0].metric("Subjects kept", f"{selected.n_kept:,}")
+    cols[1].metric("Left out", f"{selected.n_excluded:,}")
+    cols[2].metric("Time now counted from", f"{at:g} {unit}")
+    counts = selected.to_frame()
+    shown = counts.assign(group=counts["group"].map(compute.label_text)).rename(
+        columns={
+            "group": "Group",
+            "n_rows": "Rows",
+            "n_kept": "Kept",
+            "n_events_before": "Event before the landmark",
+            "n_censored_before": "Censored before the landmark",
+            "n_entered_after": "Entered after the landmark",
+        }
+    )
+    ui.table(counts, "landmark-counts", "landmark_counts", shown=shown)
+
+    style = ui.chart_style()
+    title, x_title, y_title = ui.label_inputs(
+        "landmark_plot",
+        f"Survival from the landmark at {at:g} {unit}",
+        f"Time since the landmark ({unit})",
+        "Probability still event-free",
+    )
+    style = style.titled(title, x_title, y_title)
+    rows = compute_beyond.landmark_curves(table.sha256, roles_text, float(at), style.height, table)
+    levels = list(dict.fromkeys(rows["group"]))
+    chart = charts.step_curve_chart(
+        rows,
+        style,
+        charts.group_colours([g for g in levels if g != charts.ALL_ROWS_LABEL]),
+        ticks=charts.nice_ticks(float(rows["time"].max())),
+        legend_title=str(roles.group) if roles.group else None,
+    )
+    ui.figure(chart, style, "landmark-curves", "landmark_figure")
+    result = compute_beyond.landmark_comparison(table.sha256, roles_text, float(at), test, table)
+    if result is None:
+        st.info("Set a group column on the Column roles page to compare groups from the landmark.")
+    else:
+        cols = st.columns(3)
+        cols[0].metric("χ² statistic", f"{result.statistic:.2f}")
+        cols[1].metric("Degrees of freedom", result.df)
+        cols[2].metric("p-value", ui.fmt_p(result.p_value))
+        st.caption(ui.NOT_SIGNIFICANT_CAUTION)
+        share_section.manuscript_box(share_section.comparison_text(result), "the test")

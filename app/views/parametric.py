@@ -1,0 +1,188 @@
+"""Parametric models: exponential, Weibull, log-normal and log-logistic fits compared by AIC,
+drawn over Kaplan–Meier with extrapolation marked, their medians and survival at chosen times,
+and accelerated failure time models with the covariates."""
+
+from __future__ import annotations
+
+import pandas as pd
+import streamlit as st
+
+from app import charts, compute, compute_beyond, data, ui
+from engine.parametric import DISTRIBUTIONS, LABELS
+from engine.wording import format_percent
+
+st.title("Parametric models", anchor=False)
+st.caption(
+    "A parametric model assumes a shape for the survival curve. It can summarise the curve in a "
+    "few numbers and carry it past the end of follow-up, but past that point the curve is the "
+    "model's assumption, not what the data showed."
+)
+table = data.current_table(st.session_state)
+roles = data.current_roles(st.session_state)
+if table is None or roles is None:
+    st.info("Open a demo or upload a file on the Data import page first.")
+    st.stop()
+prepared = ui.prepared_or_stop(table, roles, "models can be fitted")
+frame = prepared.frame
+unit = prepared.report.time_unit
+last_time = float(frame["_time"].max()) if len(frame) else 0.0
+has_group = "_group" in frame.columns
+
+with st.container(border=True):
+    cols = st.columns([3, 1, 1, 1])
+    ui.remember("param_distributions", list(DISTRIBUTIONS))
+    chosen = cols[0].multiselect(
+        "Models", list(DISTRIBUTIONS), format_func=LABELS.get, key="param_distributions"
+    )
+    ui.remember("param_by_group", False)
+    by_group = (
+        cols[1].toggle("Each group", key="param_by_group", disabled=not has_group) and has_group
+    )
+    # start past the follow-up, so the extrapolated part (dashed, shaded) is visible at once
+    ui.remember("param_horizon", charts.nice_ticks(last_time * 1.5, count=4)[-1] or 0.0)
+    horizon = cols[2].number_input(
+        f"Draw up to ({unit})",
+        min_value=0.0,
+        key="param_horizon",
+        help=f"0 = the last observed time ({last_time:,.4g}). Beyond it the curves are "
+        "extrapolation, drawn dashed on a shaded band.",
+    )
+    ui.remember("param_include", True)
+    cols[3].toggle("In the report and recipe", key="param_include")
+    ui.remember("param_times", "")
+    times_text = st.text_input(
+        f"Survival at times ({unit}), separated by commas", key="param_times", placeholder="12, 24"
+    )
+if not chosen:
+    st.info("Choose at least one model.")
+    st.stop()
+try:
+    times = tuple(sorted({float(p) for p in times_text.replace(";", ",").split(",") if p.strip()}))
+except ValueError:
+    st.error("Times must be numbers separated by commas, for example 12, 24.")
+    times = ()
+roles_text = data.roles_key(data.curve_roles(roles))
+
+with ui.guard("The parametric fits"):
+    result = compute_beyond.parametric(
+        table.sha256,
+        roles_text,
+        tuple(chosen),
+        by_group,
+        times,
+        horizon or None,
+        0.95,
+        table,
+    )
+    for dist, group, reason in result.failed:
+        st.warning(f"{LABELS[dist]}{f' ({group})' if group else ''}: {ui.escape(reason)}")
+    st.subheader("Which shape fits best", anchor=False)
+    aic = result.aic_table
+    shown = aic.assign(
+        group=aic["group"].map(compute.label_text),
+        distribution=aic["distribution"].map(LABELS),
+        log_likelihood=aic["log_likelihood"].map(lambda v: f"{v:,.2f}"),
+        aic=aic["aic"].map(lambda v: f"{v:,.2f}"),
+        delta_aic=aic["delta_aic"].map(lambda v: f"{v:.2f}"),
+    ).rename(
+        columns={
+            "group": "Group",
+            "distribution": "Model",
+            "n_parameters": "Parameters",
+            "log_likelihood": "Log-likelihood",
+            "aic": "AIC",
+            "delta_aic": "Δ AIC",
+        }
+    )
+    ui.table(aic, "parametric-aic", "param_aic", shown=shown)
+    st.caption(
+        "Lower AIC is better; models within about 2 of the best fit about as well (common "
+        "practice)."
+    )
+
+    groups = [g for g in dict.fromkeys(result.curves["group"])]
+    group = groups[0]
+    if by_group and len(groups) > 1:
+        group = st.selectbox("Group to draw", groups, key="param_draw_group")
+    style = ui.chart_style()
+    title, x_title, y_title = ui.label_inputs(
+        "param_plot",
+        "Fitted models over Kaplan–Meier" + (f", {group}" if group is not None else ""),
+        f"Time ({unit})",
+        "Survival probability",
+    )
+    style = style.titled(title, x_title, y_title)
+    drawing = compute.curve_drawing(
+        table.sha256,
+        roles_text,
+        compute.SURVIVAL,
+        0.95,
+        "log-log",
+        group is not None,
+        (style.width, style.height),
+        None,
+        table,
+    )
+    km = drawing["curves"]
+    km = km.loc[km["group"] == compute.label_text(group)]
+    fitted = result.curves.loc[
+        result.curves["group"].isna() if group is None else result.curves["group"] == group
+    ]
+    fitted = fitted.assign(distribution=fitted["distribution"].map(LABELS))
+    group_max = float(km["time"].max()) if len(km) else last_time
+    x_max = float(fitted["time"].max())
+    chart = charts.parametric_chart(km, fitted, style, max_time=group_max, x_max=x_max)
+    ui.figure(chart, style, "parametric-fits", "param_figure")
+
+    st.subheader("Median and survival at the chosen times", anchor=False)
+    est = result.estimates
+    shown = pd.DataFrame(
+        {
+            "Group": est["group"].map(compute.label_text),
+            "Model": est["distribution"].map(LABELS),
+            "Estimate": [
+                "Median" if q == "median" else f"Survival at {t:g}"
+                for q, t in est[["quantity", "time"]].itertuples(index=False)
+            ],
+            "Value (95% interval)": [
+                f"{e:,.3g} ({lo:,.3g} to {hi:,.3g})"
+                if q == "median"
+                else f"{format_percent(e)} ({format_percent(lo)} to {format_percent(hi)})"
+                for q, e, lo, hi in est[["quantity", "estimate", "lower", "upper"]].itertuples(
+                    index=False
+                )
+            ],
+            "Beyond follow-up": est["extrapolated"].map({True: "extrapolated", False: ""}),
+        }
+    )
+    ui.table(est, "parametric-estimates", "param_estimates", shown=shown)
+
+st.subheader("With covariates: accelerated failure time models", anchor=False)
+if not roles.covariates:
+    st.info("Choose covariates on the Column roles page to fit AFT models.")
+    st.stop()
+ui.remember("param_aft_distribution", "weibull")
+aft_dist = st.selectbox(
+    "Model", list(DISTRIBUTIONS), format_func=LABELS.get, key="param_aft_distribution"
+)
+with ui.guard("The AFT model"):
+    fit = compute_beyond.aft(
+        table.sha256, data.roles_key(roles), aft_dist, 0.95, table, tuple(roles.covariates)
+    )
+    st.caption(
+        f"{fit.n:,} rows, {fit.n_events:,} events. A time ratio above 1 means the event tends "
+        "to come later (time is stretched); below 1, sooner."
+    )
+    coef = fit.coefficients.loc[fit.coefficients["term"] != "Intercept"]
+    shown = pd.DataFrame(
+        {
+            "Term": coef["term"],
+            "Time ratio": coef["time_ratio"].map(lambda v: f"{v:.3f}"),
+            "95% interval": [
+                f"{lo:.3f} to {hi:.3f}"
+                for lo, hi in coef[["time_ratio_lower", "time_ratio_upper"]].itertuples(index=False)
+            ],
+            "p": coef["p_value"].map(ui.fmt_p),
+        }
+    )
+    ui.table(fit.coefficients, "aft-coefficients", "param_aft", shown=shown)

@@ -1,0 +1,257 @@
+"""The pages beyond the basics, and the Save and share page, in Streamlit's AppTest.
+
+Numbers shown are compared with the engine's own on the same demo file and roles.
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from streamlit.testing.v1 import AppTest
+
+from app import data, share_section, state
+from engine.analysis import run_analysis
+from engine.checks import prepare
+from engine.competing import cumulative_incidence
+from engine.io import read_table
+from engine.landmark import landmark
+from engine.recipe import Recipe
+from engine.roles import suggest_roles
+from engine.sample_size import events_needed
+from engine.wording import format_percent
+
+ROOT = Path(__file__).resolve().parents[2]
+ENTRY = str(ROOT / "app" / "hazel.py")
+DEMO = ROOT / "demo_data"
+TIMEOUT = 180
+
+
+def _open(page: str, demo: str | None = None) -> AppTest:
+    at = AppTest.from_file(ENTRY, default_timeout=TIMEOUT).run()
+    assert not at.exception
+    if demo is not None:
+        fresh: dict = {}
+        data.open_demo(fresh, DEMO / demo)
+        for key, value in fresh.items():
+            at.session_state[key] = value
+        at.run()
+    at.switch_page(page).run()
+    assert not at.exception, [e.message for e in at.exception]
+    return at
+
+
+def _metric(at: AppTest, label: str) -> str:
+    return next(m.value for m in at.metric if m.label == label)
+
+
+def _errors(at: AppTest) -> list[str]:
+    return [e.value for e in at.error]
+
+
+def _dairy_roles():
+    table = read_table(DEMO / "dairy_herd.csv")
+    roles = suggest_roles(table.frame).to_roles(**data.DEMO_ROLES["dairy_herd.csv"])
+    return table, roles
+
+
+def test_competing_risks_page_names_causes_and_shows_the_engine_incidence():
+    at = _open("views/competing.py", "dairy_herd.csv")
+    # "died" is the event value of the demo's roles; name "sold" as the competing cause
+    boxes = {t.key: t for t in at.text_input if t.key.startswith("cr_cause_")}
+    assert any(t.value == "died" for t in boxes.values())
+    sold = next(t for t in boxes.values() if t.label.endswith("sold"))
+    sold.input("sold").run()
+    assert not at.exception, [e.message for e in at.exception]
+    roles = at.session_state[state.ROLES]
+    assert dict((str(v), n) for v, n in roles.event_causes) == {"died": "died", "sold": "sold"}
+    assert any("overstates the cumulative incidence" in w.value for w in at.warning)
+    table, _ = _dairy_roles()
+    prepared = prepare(table.frame, roles)
+    result = cumulative_incidence(prepared.frame, by_group=True)
+    last = result.to_frame().groupby(["group", "cause"], sort=False).tail(1)
+    shown = at.dataframe[0].value
+    for row, expected in zip(
+        shown["Cumulative incidence"], last["cumulative_incidence"], strict=True
+    ):
+        assert row.startswith(format_percent(expected))
+    assert not _errors(at)
+
+
+def test_competing_page_asks_for_an_event_column_first():
+    at = AppTest.from_file(ENTRY, default_timeout=TIMEOUT).run()
+    roles = at.session_state[state.ROLES]
+    from dataclasses import replace
+
+    at.session_state[state.ROLES] = replace(roles, event=None, event_values=())
+    at.switch_page("views/competing.py").run()
+    assert not at.exception
+    assert any("event column" in i.value for i in at.info)
+
+
+def test_parametric_page_shows_the_aic_table_of_the_engine():
+    at = _open("views/parametric.py")
+    assert not _errors(at)
+    table = read_table(DEMO / "pump_bearings.csv")
+    roles = at.session_state[state.ROLES]
+    sections = run_analysis(prepare(table.frame, roles), {"parametric": {}})
+    shown = at.dataframe[0].value
+    expected = [f"{r['aic']:,.2f}" for r in sections["parametric"]["aic_table"]]
+    assert list(shown["AIC"]) == expected
+
+
+def test_parametric_page_without_a_model_chosen_says_so():
+    at = _open("views/parametric.py")
+    at.multiselect(key="param_distributions").set_value([]).run()
+    assert not at.exception
+    assert any("at least one model" in i.value for i in at.info)
+
+
+def test_landmark_page_counts_the_subjects_left_out():
+    at = _open("views/landmark.py")
+    at.number_input(key="landmark_time").set_value(10.0).run()
+    assert not at.exception and not _errors(at)
+    table = read_table(DEMO / "pump_bearings.csv")
+    prepared = prepare(table.frame, at.session_state[state.ROLES])
+    selected = landmark(prepared.frame, 10.0)
+    assert _metric(at, "Subjects kept") == f"{selected.n_kept:,}"
+    assert _metric(at, "Left out") == f"{selected.n_excluded:,}"
+
+
+def test_landmark_past_follow_up_is_a_message():
+    at = _open("views/landmark.py")
+    at.number_input(key="landmark_time").set_value(1e6).run()
+    assert not at.exception
+    assert any("after the last follow-up" in e for e in _errors(at))
+
+
+def test_sample_size_page_gives_schoenfelds_events():
+    at = _open("views/sample_size.py")
+    expected = events_needed(0.7, power=0.8, alpha=0.05)
+    assert _metric(at, "Events needed") == f"{expected.events:,}"
+    assert not _errors(at)
+
+
+def test_sample_size_page_refuses_a_hazard_ratio_of_one():
+    at = _open("views/sample_size.py")
+    at.number_input(key="power_hr").set_value(1.0).run()
+    assert not at.exception
+    assert any("other than 1" in e for e in _errors(at))
+
+
+@pytest.mark.parametrize("restore_filters", [False, True])
+def test_restored_recipe_gives_the_pages_the_cli_numbers(tmp_path, restore_filters):
+    """Restore a recipe (with a filter) in the app; Curves and Group comparison show the
+    numbers the command line computes from the same recipe."""
+    from app.batch import load_recipe_run
+    from engine.filters import RowFilter
+
+    table = read_table(DEMO / "pump_bearings.csv")
+    at = _open("views/share.py")
+    roles = at.session_state[state.ROLES]
+    session = {
+        state.TABLE: table,
+        state.ROLES: roles,
+        "curves_conf": "90%",
+        "curves_times": "12",
+        "compare_test": "peto-peto",
+    }
+    if restore_filters:
+        session[share_section.FILTERS] = (RowFilter("site", "not_in", ("harbour",)),)
+    recipe = share_section.recipe_from_session(session)
+    path = tmp_path / "r.json"
+    path.write_text(recipe.to_json(), encoding="utf-8")
+    run = load_recipe_run(path, DEMO / "pump_bearings.csv")
+    cli = run_analysis(run.prepared, run.settings)
+
+    warnings = share_section.restore_recipe(at.session_state, Recipe.from_json(recipe.to_json()))
+    assert warnings == []
+    at.switch_page("views/comparison.py").run()
+    assert not at.exception, [e.message for e in at.exception]
+    assert _metric(at, "χ² statistic") == f"{cli['comparison']['statistic']:.2f}"
+    at.switch_page("views/curves.py").run()
+    assert not at.exception
+    shown = at.dataframe[0].value
+    assert list(shown["n"]) == [c["n"] for c in cli["curves"]]
+    assert list(shown["Events"]) == [c["events"] for c in cli["curves"]]
+    expected = cli["curves"][0]["at_times"][0]
+    assert shown["Survival at 12"].iloc[0].startswith(f"{expected['survival']:.3f}")
+    # the recipe downloaded again is the one restored
+    again = share_section.recipe_from_session(at.session_state)
+    assert again.fingerprint == recipe.fingerprint and again.filters == recipe.filters
+
+
+def test_share_page_offers_the_recipe_and_the_text():
+    at = _open("views/share.py")
+    assert not _errors(at)
+    assert any("Median survival" in c.value for c in at.code)
+
+
+def test_entry_time_role_is_honoured_by_the_curves_page():
+    """Delayed entry: choosing an entry column on Column roles changes the curves the way the
+    engine says (and differs from ignoring it)."""
+    from engine.summary import group_summary
+
+    rng = np.random.default_rng(20261202)
+    n = 400
+    entry = rng.uniform(0, 6, n).round(2)
+    time = (entry + 0.01 + rng.exponential(12, n)).round(2)  # entry < time on every row
+    frame = pd.DataFrame(
+        {"entered": entry, "followed": time, "status": rng.integers(0, 2, n), "arm": "A"}
+    )
+    content = frame.to_csv(index=False).encode("utf-8")
+    at = AppTest.from_file(ENTRY, default_timeout=TIMEOUT).run()
+    fresh: dict = {}
+    data.open_upload(fresh, content, "late.csv")
+    for key, value in fresh.items():
+        at.session_state[key] = value
+    at.switch_page("views/column_roles.py").run()
+    at.selectbox(key="roles_time").set_value("followed").run()
+    at.selectbox(key="roles_event").set_value("status").run()
+    at.selectbox(key="roles_entry").set_value("entered").run()
+    assert not at.exception, [e.message for e in at.exception]
+    roles = at.session_state[state.ROLES]
+    assert roles.entry == "entered"
+    at.switch_page("views/curves.py").run()
+    assert not at.exception
+    at.text_input(key="curves_times").set_value("10").run()
+    shown = at.dataframe[0].value["Survival at 10"].iloc[0]
+    table = read_table(content, name="late.csv")
+    with_entry = group_summary(prepare(table.frame, roles).frame, (10.0,)).to_frame()
+    without = group_summary(
+        prepare(table.frame, replace(roles, entry=None)).frame, (10.0,)
+    ).to_frame()
+    assert shown.startswith(f"{with_entry['survival_10'].iloc[0]:.3f}")
+    assert f"{with_entry['survival_10'].iloc[0]:.3f}" != f"{without['survival_10'].iloc[0]:.3f}"
+
+
+def test_restored_ties_and_ph_scale_show_on_the_regression_page():
+    table = read_table(DEMO / "pump_bearings.csv")
+    at = _open("views/share.py")
+    roles = at.session_state[state.ROLES]
+    session = {
+        state.TABLE: table,
+        state.ROLES: roles,
+        "model_ties": "Breslow",
+        "model_ph_transform": "rank of time",
+    }
+    recipe = share_section.recipe_from_session(session)
+    assert recipe.settings()["cox"] == {"ties": "breslow", "ph_transform": "rank"}
+    share_section.restore_recipe(at.session_state, recipe)
+    at.switch_page("views/regression.py").run()
+    assert not at.exception, [e.message for e in at.exception]
+    assert at.radio(key="model_ties").value == "Breslow"
+    assert at.session_state["model_ph_transform"] == "rank of time"
+    run = run_analysis(prepare(table.frame, roles), recipe.settings())
+    assert run["cox"]["ties"] == "breslow"
+
+
+def test_curves_manuscript_text_follows_the_unit_switch():
+    at = _open("views/curves.py")
+    at.selectbox(key="curves_unit").set_value("years").run()
+    assert not at.exception
+    text = next(c.value for c in at.code if "Median survival" in c.value)
+    assert " years (95% CI" in text and "months" not in text
