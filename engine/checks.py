@@ -36,7 +36,7 @@ END_BEFORE_START = "end before start"
 MISSING_EVENT = "missing event"
 UNKNOWN_EVENT = "unknown event value"
 MISSING_ENTRY = "missing entry time"
-ENTRY_AFTER_EXIT = "entry after time"
+ENTRY_AFTER_EXIT = "entry not before time"  # at risk only for entry < t <= time: none
 MISSING_COVARIATE = "missing covariate"
 MALFORMED_LINE = "malformed line"
 REASONS = (
@@ -128,7 +128,7 @@ def prepare(
         entry = convert_time(entry, roles.duration_unit, roles.unit)
         exclude(np.isnan(entry), MISSING_ENTRY)
         with np.errstate(invalid="ignore"):
-            exclude(entry > time, ENTRY_AFTER_EXIT)
+            exclude(entry >= time, ENTRY_AFTER_EXIT)
         out["_entry"] = entry
     kinds = classify_covariates(frame, roles)
     covariates = {}

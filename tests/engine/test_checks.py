@@ -12,6 +12,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from engine.checks import REASON_COLUMN, REASONS, prepare
+from engine.curves import curves_by_group
 from engine.errors import EventCodingError, RoleError
 from engine.io import read_table
 from engine.roles import Roles
@@ -201,10 +202,12 @@ def test_competing_causes():
 
 
 def test_entry_times():
-    frame = pd.DataFrame({"t": [5.0, 5, 5], "entry": [1.0, np.nan, 6], "e": [1, 1, 0]})
+    frame = pd.DataFrame({"t": [5.0, 5, 5, 5], "entry": [1.0, np.nan, 6, 5], "e": [1, 1, 0, 1]})
     prepared = prepare(frame, Roles(time="t", event="e", entry="entry"))
     assert prepared.frame["_entry"].tolist() == [1.0]
-    assert _excluded(prepared) == {"missing entry time": 1, "entry after time": 1}
+    # entry equal to the exit time leaves the subject in no risk set (entry < t <= time)
+    assert _excluded(prepared) == {"missing entry time": 1, "entry not before time": 2}
+    curves_by_group(prepared.frame)  # the estimators accept every kept row
 
 
 def test_no_event_column_means_every_row_is_an_event():
