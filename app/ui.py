@@ -215,9 +215,12 @@ def sidebar(roles_page) -> None:
         except Exception as error:  # the sidebar must draw whatever the roles
             st.warning(f"The roles need attention: {escape(error)}", icon=":material/warning:")
         else:
+            competing = report.competing_events
             st.markdown(
                 f"**Rows used** {report.rows_used:,} of {report.rows_read:,}  \n"
-                f"**Events** {report.events:,} · **censored** {report.censored:,}"
+                f"**Events** {report.events:,} · "
+                + (f"**competing events** {competing:,} · " if competing else "")
+                + f"**censored** {report.censored - competing:,}"
             )
             if report.warnings:
                 st.caption(f"{len(report.warnings)} data warning(s)")

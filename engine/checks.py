@@ -70,6 +70,8 @@ class DataReport:
     group_counts: pd.DataFrame
     event_coding: EventCoding | None = None
     covariate_kinds: dict = field(default_factory=dict)
+    # Rows counted in `censored` whose event was a competing cause (named causes only).
+    competing_events: int = 0
 
     def to_dict(self) -> dict:
         """The ``data`` object of the JSON contract (schema 1); keys are fixed."""
@@ -191,6 +193,7 @@ def prepare(
         rows_used=int(used.sum()),
         events=events,
         censored=int(used.sum()) - events,
+        competing_events=_competing_events(prepared),
         time_unit=roles.unit,
         excluded=excluded,
         warnings=tuple(notes),
@@ -475,3 +478,9 @@ def _natural_categorical(series: pd.Series, reference=None, column: str | None =
     new_codes = np.where(codes >= 0, rank[codes] if len(levels) else codes, -1)
     categories = pd.Index([levels[i] for i in order], dtype=object)
     return pd.Categorical.from_codes(new_codes, categories=categories)
+
+
+def _competing_events(prepared: pd.DataFrame) -> int:
+    if "_cause" not in prepared.columns:
+        return 0
+    return int((prepared["_cause"].notna() & (prepared["_event"] == 0)).sum())

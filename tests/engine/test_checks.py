@@ -196,6 +196,7 @@ def test_competing_causes():
     prepared = prepare(frame, roles)
     assert prepared.frame["_cause"].tolist() == ["sale", "death", None, "death"]
     assert prepared.frame["_event"].tolist() == [0, 1, 0, 1]  # first cause is of interest
+    assert prepared.report.competing_events == 1  # the sale, counted in `censored` of the JSON
     assert not any("treated as censored" in w for w in prepared.report.warnings)
     roles = Roles(time="t", event="s", event_values=("sold",), event_causes=roles.event_causes)
     assert prepare(frame, roles).frame["_event"].tolist() == [1, 0, 0, 0]
