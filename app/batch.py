@@ -29,7 +29,7 @@ from engine.recipe import (
     software_versions,
 )
 from engine.roles import Roles
-from engine.summary import numbers_at_risk
+from engine.summary import numbers_at_risk_frame
 
 ALL_ROWS = "All rows"
 REPORT_SIZE = (640, 320)  # figure width and height in the report, pixels
@@ -202,14 +202,7 @@ def curve_figure(prepared: PreparedData, settings: Mapping, *, title: str = ""):
         legend_title=prepared.roles.group or "",
         align_with_table=True,
     )
-    group = frame["_group"] if by_group else None
-    risk = numbers_at_risk(
-        frame["_time"].to_numpy(),
-        frame["_event"].to_numpy(),
-        group,
-        ticks,
-        entry=frame["_entry"].to_numpy() if "_entry" in frame.columns else None,
-    ).to_frame()
+    risk = numbers_at_risk_frame(frame, ticks, by_group=by_group).to_frame()
     risk = risk.rename(columns={"tick": "time"})
     risk["group"] = [ALL_ROWS if g is None else str(g) for g in risk["group"]]
     risk_chart = charts.at_risk_chart(risk, style, colours, x_max=x_max, ticks=ticks)

@@ -17,7 +17,7 @@ from engine.columns import cut_at_quantiles
 from engine.curves import CurveSet, curves_by_group, nelson_aalen
 from engine.io import ImportedTable
 from engine.risk_table import without_missing
-from engine.summary import group_summary, numbers_at_risk
+from engine.summary import group_summary, numbers_at_risk_frame
 
 SURVIVAL, INCIDENCE, HAZARD = "survival", "incidence", "hazard"
 
@@ -211,14 +211,7 @@ def at_risk_table(
     _table: ImportedTable,
 ) -> pd.DataFrame:
     frame = _frame(fingerprint, roles_text, _table)
-    group = frame["_group"] if by_group and "_group" in frame.columns else None
-    result = numbers_at_risk(
-        frame["_time"].to_numpy(),
-        frame["_event"].to_numpy(),
-        group,
-        ticks,
-        entry=frame["_entry"].to_numpy() if "_entry" in frame.columns else None,
-    ).to_frame()
+    result = numbers_at_risk_frame(frame, ticks, by_group=by_group).to_frame()
     result["group"] = result["group"].map(label_text)
     return result
 
@@ -300,21 +293,17 @@ def trend(
     scores: tuple | None,
     _table: ImportedTable,
 ):
-    from engine.compare import trend_test
+    from engine.compare import trend_frame
 
-    frame = _complete(comparison_frame(fingerprint, roles_text, grouping, strata_column, _table))
+    frame = comparison_frame(fingerprint, roles_text, grouping, strata_column, _table)
     labels = list(frame["_group"].cat.categories)
-    return trend_test(
-        frame["_time"].to_numpy(),
-        frame["_event"].to_numpy(),
-        frame["_group"],
+    return trend_frame(
+        frame,
         order=[labels[[str(x) for x in labels].index(o)] for o in order] if order else None,
         scores=scores,
         test=test,
         rho=rho,
         gamma=gamma,
-        strata=frame["_strata"] if "_strata" in frame.columns else None,
-        entry=frame["_entry"].to_numpy() if "_entry" in frame.columns else None,
     )
 
 
@@ -329,19 +318,10 @@ def pairwise(
     gamma: float,
     _table: ImportedTable,
 ):
-    from engine.compare import pairwise_comparisons
+    from engine.compare import pairwise_frame
 
-    frame = _complete(comparison_frame(fingerprint, roles_text, grouping, strata_column, _table))
-    return pairwise_comparisons(
-        frame["_time"].to_numpy(),
-        frame["_event"].to_numpy(),
-        frame["_group"],
-        test=test,
-        rho=rho,
-        gamma=gamma,
-        strata=frame["_strata"] if "_strata" in frame.columns else None,
-        entry=frame["_entry"].to_numpy() if "_entry" in frame.columns else None,
-    )
+    frame = comparison_frame(fingerprint, roles_text, grouping, strata_column, _table)
+    return pairwise_frame(frame, test=test, rho=rho, gamma=gamma)
 
 
 @st.cache_data(max_entries=32, show_spinner=False)

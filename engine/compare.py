@@ -214,24 +214,27 @@ def compare_survival(
     )
 
 
+def _frame_arguments(frame: pd.DataFrame) -> tuple[tuple, dict, int]:
+    """The arguments a test takes from a prepared frame: (time, event, group), the strata and
+    entry keywords, and how many rows were left out for want of a group or stratum."""
+    if "_group" not in frame.columns:
+        raise AnalysisError("Comparing survival needs a group column; set the group role.")
+    frame, excluded = without_missing(frame)
+    arrays = (frame["_time"].to_numpy(), frame["_event"].to_numpy(), frame["_group"])
+    keywords = {
+        "strata": frame["_strata"] if "_strata" in frame.columns else None,
+        "entry": frame["_entry"].to_numpy() if "_entry" in frame.columns else None,
+    }
+    return arrays, keywords, excluded
+
+
 def compare_frame(
     frame: pd.DataFrame, *, test: str = "logrank", rho: float = 0.0, gamma: float = 0.0
 ) -> ComparisonResult:
     """`compare_survival` on a prepared frame, stratified when it has `_strata`; rows without
     a group or stratum are left out and counted in ``rows_excluded``."""
-    if "_group" not in frame.columns:
-        raise AnalysisError("Comparing survival needs a group column; set the group role.")
-    frame, excluded = without_missing(frame)
-    result = compare_survival(
-        frame["_time"].to_numpy(),
-        frame["_event"].to_numpy(),
-        frame["_group"],
-        test=test,
-        rho=rho,
-        gamma=gamma,
-        strata=frame["_strata"] if "_strata" in frame.columns else None,
-        entry=frame["_entry"].to_numpy() if "_entry" in frame.columns else None,
-    )
+    arrays, keywords, excluded = _frame_arguments(frame)
+    result = compare_survival(*arrays, test=test, rho=rho, gamma=gamma, **keywords)
     return replace(result, rows_excluded=excluded)
 
 
@@ -312,6 +315,23 @@ def trend_test(
         p_value=float(chi2.sf(z * z, 1)),
         groups=labels,
         scores=tuple(float(x) for x in c),
+    )
+
+
+def trend_frame(
+    frame: pd.DataFrame,
+    *,
+    scores=None,
+    order=None,
+    test: str = "logrank",
+    rho: float = 0.0,
+    gamma: float = 0.0,
+) -> TrendResult:
+    """`trend_test` on a prepared frame, stratified when it has `_strata`; rows without a group
+    or stratum are left out."""
+    arrays, keywords, _ = _frame_arguments(frame)
+    return trend_test(
+        *arrays, scores=scores, order=order, test=test, rho=rho, gamma=gamma, **keywords
     )
 
 
@@ -404,3 +424,12 @@ def pairwise_comparisons(
     frame["p_holm"] = holm_adjust(frame["p_value"])
     frame["p_bh"] = bh_adjust(frame["p_value"])
     return PairwiseTable(display_name(test, rho, gamma), frame)
+
+
+def pairwise_frame(
+    frame: pd.DataFrame, *, test: str = "logrank", rho: float = 0.0, gamma: float = 0.0
+) -> PairwiseTable:
+    """`pairwise_comparisons` on a prepared frame, stratified when it has `_strata`; rows
+    without a group or stratum are left out."""
+    arrays, keywords, _ = _frame_arguments(frame)
+    return pairwise_comparisons(*arrays, test=test, rho=rho, gamma=gamma, **keywords)

@@ -79,6 +79,20 @@ def numbers_at_risk(time, event, group=None, ticks=(0.0,), *, entry=None) -> Num
     return NumbersAtRiskTable(frame)
 
 
+def numbers_at_risk_frame(
+    frame: pd.DataFrame, ticks=(0.0,), *, by_group: bool = True
+) -> NumbersAtRiskTable:
+    """`numbers_at_risk` on a prepared frame: per group when asked and it has `_group`, with
+    delayed entry when it has `_entry`."""
+    return numbers_at_risk(
+        frame["_time"].to_numpy(),
+        frame["_event"].to_numpy(),
+        frame["_group"] if by_group and "_group" in frame.columns else None,
+        ticks,
+        entry=frame["_entry"].to_numpy() if "_entry" in frame.columns else None,
+    )
+
+
 @dataclass(frozen=True)
 class GroupSummaryTable:
     """One row per group (all rows first): n, events, censored, median with its interval,

@@ -26,6 +26,8 @@ from engine.compare import (
     compare_survival,
     holm_adjust,
     pairwise_comparisons,
+    pairwise_frame,
+    trend_frame,
     trend_test,
 )
 from engine.errors import AnalysisError
@@ -248,3 +250,29 @@ def test_compare_frame_leaves_out_rows_without_group_or_stratum(simulated):
     )
     assert result.rows_excluded == 4 and result.to_dict()["rows_excluded"] == 4
     assert_allclose(result.statistic, reference, rtol=1e-6)
+
+
+def test_trend_and_pairwise_frames_leave_out_rows_without_group_or_stratum(simulated):
+    simulated.loc[[0, 1, 2], "_group"] = np.nan
+    simulated.loc[[2, 3], "_strata"] = np.nan
+    kept = simulated.dropna(subset=["_group", "_strata"])
+    time, event, group = _columns(kept)
+    strata = np.asarray(kept["_strata"])
+    labels = np.asarray(group)
+    pairs = pairwise_frame(simulated, test="gehan-breslow").frame
+    assert len(pairs) == 6
+    for row in pairs.itertuples():
+        rows = np.isin(labels, [row.group_a, row.group_b])
+        reference, _ = survdiff(
+            time[rows], event[rows], labels[rows], strata=strata[rows], weight_type="gb"
+        )
+        assert_allclose(row.statistic, reference, rtol=1e-6)
+    # Two groups: the 1-df trend statistic is the stratified two-group chi-square.
+    two = kept.loc[kept["_group"].isin(["g0", "g1"])]
+    two_labels = np.asarray(two["_group"]).astype(str)
+    reference, _ = survdiff(
+        two["_time"], two["_event"], two_labels, strata=np.asarray(two["_strata"])
+    )
+    two_frame = simulated.loc[simulated["_group"].isin(["g0", "g1"]) | simulated["_group"].isna()]
+    two_frame = two_frame.assign(_group=two_frame["_group"].cat.remove_unused_categories())
+    assert_allclose(trend_frame(two_frame).statistic, reference, rtol=1e-6)
