@@ -43,6 +43,12 @@ def optional(column: str | None) -> str:
     return column if column in columns else NONE
 
 
+def column_choice(where, label: str, key: str, column: str | None, **options) -> str:
+    """A column picker with a "none" choice, pre-filled with the role's column."""
+    default(key, optional(column))
+    return where.selectbox(label, [NONE, *columns], key=key, **options)
+
+
 def chosen(key: str) -> str | None:
     value = st.session_state.get(key)
     return None if value in (None, NONE) else value
@@ -70,9 +76,8 @@ with st.container(border=True):
     )
     unit_names = list(TIME_UNITS)
     if mode == DURATION:
-        default("roles_time", optional(roles.time))
         cols = st.columns(2)
-        cols[0].selectbox("Duration column", [NONE, *columns], key="roles_time")
+        column_choice(cols[0], "Duration column", "roles_time", roles.time)
         default("roles_unit", roles.source_unit or roles.unit)
         cols[1].selectbox(
             "Unit of that column",
@@ -82,14 +87,12 @@ with st.container(border=True):
         )
         suggestion_note("time")
     else:
-        default("roles_start", optional(roles.start))
-        default("roles_end", optional(roles.end))
         default("roles_dayfirst", bool(roles.dayfirst))
         default("roles_date_format", roles.date_format or "")
         default("roles_unit", roles.unit)
         cols = st.columns(2)
-        cols[0].selectbox("Start date", [NONE, *columns], key="roles_start")
-        cols[1].selectbox("End date (event or last seen)", [NONE, *columns], key="roles_end")
+        column_choice(cols[0], "Start date", "roles_start", roles.start)
+        column_choice(cols[1], "End date (event or last seen)", "roles_end", roles.end)
         suggestion_note("start")
         cols = st.columns(3)
         cols[0].selectbox("Express durations in", unit_names, key="roles_unit")
@@ -109,11 +112,11 @@ with st.container(border=True):
 
 with st.container(border=True):
     st.subheader("Event", anchor=False)
-    default("roles_event", optional(roles.event))
-    event_column = st.selectbox(
+    event_column = column_choice(
+        st,
         "Event column",
-        [NONE, *columns],
-        key="roles_event",
+        "roles_event",
+        roles.event,
         help="Without an event column every row counts as an event (no censoring).",
     )
     suggestion_note("event")
@@ -160,27 +163,27 @@ with st.container(border=True):
 with st.container(border=True):
     st.subheader("Groups and covariates", anchor=False)
     cols = st.columns(2)
-    default("roles_group", optional(roles.group))
-    cols[0].selectbox(
+    column_choice(
+        cols[0],
         "Group to compare (curves and tests)",
-        [NONE, *columns],
-        key="roles_group",
+        "roles_group",
+        roles.group,
         help="A column with a few distinct values, such as treatment arm.",
     )
     with cols[0]:
         suggestion_note("group")
-    default("roles_strata", optional(roles.strata))
-    cols[1].selectbox(
+    column_choice(
+        cols[1],
         "Strata (optional)",
-        [NONE, *columns],
-        key="roles_strata",
+        "roles_strata",
+        roles.strata,
         help="Compared within each stratum, then combined (stratified tests and Cox models).",
     )
-    default("roles_entry", optional(roles.entry))
-    cols[1].selectbox(
+    column_choice(
+        cols[1],
         "Entry time (delayed entry, optional)",
-        [NONE, *columns],
-        key="roles_entry",
+        "roles_entry",
+        roles.entry,
         help="When a subject came under observation, on the same scale as the time column: "
         "they count as at risk only from then on (left truncation).",
     )
