@@ -5,6 +5,7 @@ from __future__ import annotations
 import contextlib
 import logging
 from collections.abc import Iterator
+from functools import partial
 
 import altair as alt
 import pandas as pd
@@ -62,31 +63,37 @@ def label_inputs(prefix: str, title: str, x_title: str, y_title: str) -> tuple[s
     return tuple(t.strip() or d for t, d in zip(typed, (title, x_title, y_title), strict=True))
 
 
+def titled_style(
+    style: charts.ChartStyle, prefix: str, title: str, x_title: str, y_title: str
+) -> charts.ChartStyle:
+    """``style`` with the title and axis labels typed in `label_inputs` (or these defaults)."""
+    return style.titled(*label_inputs(prefix, title, x_title, y_title))
+
+
 def figure(chart: alt.TopLevelMixin, style: charts.ChartStyle, name: str, key: str) -> None:
     """Draw a chart, with PNG and SVG downloads made only when asked for."""
     finished = charts.finish(chart, style)
     st.vega_lite_chart(finished, theme=None, width="content")
     stem = exports.file_stem(style.title or name, name)
-    cols = st.columns([1, 1, 6])
-    cols[0].download_button(
-        "PNG",
-        data=lambda: exports.figure_png(finished),
-        file_name=f"{stem}.png",
-        mime="image/png",
-        key=f"{key}_png_download",
+    png, svg, _ = st.columns([1, 1, 6])
+    png_help = "Picture at twice the screen size, for slides and documents."
+    svg_help = "Vector drawing that stays sharp at any size."
+    svg_mime = "image/svg+xml"
+    _download(png, "png", partial(exports.figure_png, finished), stem, "image/png", key, png_help)
+    _download(svg, "svg", partial(exports.figure_svg, finished), stem, svg_mime, key, svg_help)
+
+
+def _download(where, kind: str, make, stem: str, mime: str, key: str, help_text: str) -> None:
+    """A download button in ``where`` whose file ``make()`` builds only when it is clicked."""
+    where.download_button(
+        kind.upper(),
+        data=make,
+        file_name=f"{stem}.{kind}",
+        mime=mime,
+        key=f"{key}_{kind}_download",
         on_click="ignore",
         icon=":material/download:",
-        help="Picture at twice the screen size, for slides and documents.",
-    )
-    cols[1].download_button(
-        "SVG",
-        data=lambda: exports.figure_svg(finished),
-        file_name=f"{stem}.svg",
-        mime="image/svg+xml",
-        key=f"{key}_svg_download",
-        on_click="ignore",
-        icon=":material/download:",
-        help="Vector drawing that stays sharp at any size.",
+        help=help_text,
     )
 
 
@@ -105,16 +112,9 @@ def table(
         column_config=column_config,
         width="stretch",
     )
-    st.download_button(
-        "CSV",
-        data=lambda: exports.table_csv(frame),
-        file_name=f"{exports.file_stem(name)}.csv",
-        mime="text/csv",
-        key=f"{key}_csv_download",
-        on_click="ignore",
-        icon=":material/download:",
-        help="Every exact value, safe to open in a spreadsheet.",
-    )
+    csv_help = "Every exact value, safe to open in a spreadsheet."
+    stem = exports.file_stem(name)
+    _download(st, "csv", partial(exports.table_csv, frame), stem, "text/csv", key, csv_help)
 
 
 @contextlib.contextmanager
@@ -132,6 +132,18 @@ def guard(what: str) -> Iterator[None]:
             "steps and report it.",
             icon=":material/error:",
         )
+
+
+def table_and_roles_or_stop():
+    """The table and roles in use, or a pointer to the Data import page, and stop."""
+    from app import data
+
+    table = data.current_table(st.session_state)
+    roles = data.current_roles(st.session_state)
+    if table is None or roles is None:
+        st.info("Open a demo or upload a file on the Data import page first.")
+        st.stop()
+    return table, roles
 
 
 def prepared_or_stop(table, roles, what: str):

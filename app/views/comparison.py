@@ -21,11 +21,7 @@ ADJUST = {"Holm (family-wise error)": "p_holm", "Benjamini–Hochberg (false dis
 LEVEL = 0.05  # conventional 5% level used for the plain-language reading
 
 st.title("Group comparison", anchor=False)
-table = data.current_table(st.session_state)
-roles = data.current_roles(st.session_state)
-if table is None or roles is None:
-    st.info("Open a demo or upload a file on the Data import page first.")
-    st.stop()
+table, roles = ui.table_and_roles_or_stop()
 prepared = ui.prepared_or_stop(table, roles, "groups can be compared")
 
 frame = table.frame
@@ -130,13 +126,13 @@ with ui.guard("The comparison curves"):
         line_width=style.line_width,
         point_size=style.point_size,
     )
-    title, x_title, y_title = ui.label_inputs(
+    small = ui.titled_style(
+        small,
         "compare_plot",
         f"Survival by {group_name}",
         f"Time ({prepared.report.time_unit})",
         "Probability still event-free",
     )
-    small = small.titled(title, x_title, y_title)
     drawn = compute.comparison_drawing(*key, (small.width, small.height), table)
     levels = levels_source or list(dict.fromkeys(drawn["group"]))
     chart = charts.step_curve_chart(

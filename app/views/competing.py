@@ -20,11 +20,7 @@ st.caption(
     "stops the others from happening. Name the kinds here; Hazel then estimates the "
     "probability of each by every time."
 )
-table = data.current_table(st.session_state)
-roles = data.current_roles(st.session_state)
-if table is None or roles is None:
-    st.info("Open a demo or upload a file on the Data import page first.")
-    st.stop()
+table, roles = ui.table_and_roles_or_stop()
 if roles.event is None:
     st.info("Choose the event column on the Column roles page first.")
     st.page_link("views/column_roles.py", label="Column roles", icon=":material/view_column:")
@@ -105,13 +101,13 @@ with ui.guard("The cumulative incidence"):
     if result.warning:
         st.warning(result.warning, icon=":material/warning:")
     style = ui.chart_style()
-    title, x_title, y_title = ui.label_inputs(
+    style = ui.titled_style(
+        style,
         "cr_plot",
         "Cumulative incidence by cause" + (f" and {roles.group}" if by_group else ""),
         f"Time ({unit})",
         "Probability of the event by then",
     )
-    style = style.titled(title, x_title, y_title)
     cif, km = compute_beyond.incidence_drawing(
         table.sha256, roles_text, by_group, confidence, style.height, table
     )

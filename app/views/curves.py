@@ -18,11 +18,7 @@ TRANSFORMS = {"log-log (default)": "log-log", "log": "log", "linear": "linear"}
 CONFIDENCE = {"95%": 0.95, "90%": 0.90, "99%": 0.99, "80%": 0.80}
 
 st.title("Curves", anchor=False)
-table = data.current_table(st.session_state)
-roles = data.current_roles(st.session_state)
-if table is None or roles is None:
-    st.info("Open a demo or upload a file on the Data import page first.")
-    st.stop()
+table, roles = ui.table_and_roles_or_stop()
 base = ui.prepared_or_stop(table, roles, "curves can be drawn")
 
 has_group = roles.group is not None and "_group" in base.frame.columns
@@ -87,8 +83,7 @@ y_default = {
     compute.INCIDENCE: "Probability of the event by then",
     compute.HAZARD: "Cumulative hazard",
 }[scale]
-title, x_title, y_title = ui.label_inputs("curves", default_title, f"Time ({unit})", y_default)
-style = style.titled(title, x_title, y_title)
+style = ui.titled_style(style, "curves", default_title, f"Time ({unit})", y_default)
 
 with ui.guard("The curves"):
     drawing = compute.curve_drawing(

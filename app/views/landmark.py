@@ -14,11 +14,7 @@ st.caption(
     "favours whoever had to survive long enough to join a group. A landmark analysis starts "
     "the clock at a fixed time and keeps only the subjects still at risk then."
 )
-table = data.current_table(st.session_state)
-roles = data.current_roles(st.session_state)
-if table is None or roles is None:
-    st.info("Open a demo or upload a file on the Data import page first.")
-    st.stop()
+table, roles = ui.table_and_roles_or_stop()
 prepared = ui.prepared_or_stop(table, roles, "a landmark can be set")
 unit = prepared.report.time_unit
 last_time = float(prepared.frame["_time"].max()) if len(prepared.frame) else 0.0
@@ -64,13 +60,13 @@ with ui.guard("The landmark selection"):
     ui.table(counts, "landmark-counts", "landmark_counts", shown=shown)
 
     style = ui.chart_style()
-    title, x_title, y_title = ui.label_inputs(
+    style = ui.titled_style(
+        style,
         "landmark_plot",
         f"Survival from the landmark at {at:g} {unit}",
         f"Time since the landmark ({unit})",
         "Probability still event-free",
     )
-    style = style.titled(title, x_title, y_title)
     rows = compute_beyond.landmark_curves(table.sha256, roles_text, float(at), style.height, table)
     levels = list(dict.fromkeys(rows["group"]))
     chart = charts.step_curve_chart(

@@ -17,11 +17,7 @@ st.caption(
     "few numbers and carry it past the end of follow-up, but past that point the curve is the "
     "model's assumption, not what the data showed."
 )
-table = data.current_table(st.session_state)
-roles = data.current_roles(st.session_state)
-if table is None or roles is None:
-    st.info("Open a demo or upload a file on the Data import page first.")
-    st.stop()
+table, roles = ui.table_and_roles_or_stop()
 prepared = ui.prepared_or_stop(table, roles, "models can be fitted")
 frame = prepared.frame
 unit = prepared.report.time_unit
@@ -105,13 +101,13 @@ with ui.guard("The parametric fits"):
     if by_group and len(groups) > 1:
         group = st.selectbox("Group to draw", groups, key="param_draw_group")
     style = ui.chart_style()
-    title, x_title, y_title = ui.label_inputs(
+    style = ui.titled_style(
+        style,
         "param_plot",
         "Fitted models over Kaplan–Meier" + (f", {group}" if group is not None else ""),
         f"Time ({unit})",
         "Survival probability",
     )
-    style = style.titled(title, x_title, y_title)
     drawing = compute.curve_drawing(
         table.sha256,
         roles_text,

@@ -29,11 +29,7 @@ DOT_LIMIT = 4000  # dots drawn in a residual plot; beyond this a seeded sample i
 
 st.title("Regression", anchor=False)
 st.caption("Cox proportional-hazards model: how each covariate goes with the hazard of the event.")
-table = data.current_table(st.session_state)
-roles = data.current_roles(st.session_state)
-if table is None or roles is None:
-    st.info("Open a demo or upload a file on the Data import page first.")
-    st.stop()
+table, roles = ui.table_and_roles_or_stop()
 prepared = ui.prepared_or_stop(table, roles, "a model can be fitted")
 if not roles.covariates:
     st.info("No covariates are chosen. Pick them on the Column roles page.")
@@ -343,15 +339,15 @@ with tabs[3], ui.guard("The proportional-hazards check"):
         columns={"transformed_time": "x", term: "residual"}
     )
     coefficient = result.terms[term_labels.index(term)].coef
-    title, x_title, y_title = ui.label_inputs(
+    rstyle = ui.titled_style(
+        style,
         "model_ph_plot",
         f"Scaled Schoenfeld residuals: {term}",
         f"Time ({PH_SCALE_NAMES[transform]})",
         "β(t) for this term",
     )
-    rstyle = style.titled(title, x_title, y_title)
     chart = charts.residual_chart(
-        points, rstyle, x_title=x_title, y_title=y_title, zero_line=coefficient
+        points, rstyle, x_title=rstyle.x_title, y_title=rstyle.y_title, zero_line=coefficient
     )
     ui.figure(chart, rstyle, "schoenfeld-residuals", "model_ph_figure")
     st.caption(
@@ -374,15 +370,15 @@ with tabs[4], ui.guard("The functional-form check"):
         points = compute.sample_rows(here[["value", "residual_null"]], DOT_LIMIT).rename(
             columns={"value": "x", "residual_null": "residual"}
         )
-        title, x_title, y_title = ui.label_inputs(
+        mstyle = ui.titled_style(
+            style,
             "model_mart_plot",
             f"Martingale residuals against {variable}",
             variable,
             "Martingale residual (null model)",
         )
-        mstyle = style.titled(title, x_title, y_title)
         chart = charts.residual_chart(
-            points, mstyle, x_title=x_title, y_title=y_title, zero_line=None
+            points, mstyle, x_title=mstyle.x_title, y_title=mstyle.y_title, zero_line=None
         )
         ui.figure(chart, mstyle, "martingale-residuals", "model_mart_figure")
         st.caption(
@@ -400,10 +396,13 @@ with tabs[4], ui.guard("The functional-form check"):
         )
         lines = lines.rename(columns={"level": "group", "log_minus_log": "value"})
         levels = list(dict.fromkeys(lines["group"]))
-        title, x_title, y_title = ui.label_inputs(
-            "model_lml_plot", f"log(−log survival) by {variable}", "log(time)", "log(−log survival)"
+        lstyle = ui.titled_style(
+            style,
+            "model_lml_plot",
+            f"log(−log survival) by {variable}",
+            "log(time)",
+            "log(−log survival)",
         )
-        lstyle = style.titled(title, x_title, y_title)
         chart = charts.log_minus_log_chart(
             lines, lstyle, charts.group_colours(levels), legend_title=variable
         )
@@ -450,13 +449,13 @@ with tabs[5], ui.guard("The predicted curves"):
         rows = pd.DataFrame(
             {"group": curves["profile"], "time": curves["time"], "estimate": curves["survival"]}
         )
-        title, x_title, y_title = ui.label_inputs(
+        pstyle = ui.titled_style(
+            style,
             "model_pred_plot",
             default_title,
             f"Time ({prepared.report.time_unit})",
             "Predicted survival",
         )
-        pstyle = style.titled(title, x_title, y_title)
         drawn = thinning.thin_step_frame(
             rows, ["estimate"], (0.0, 1.0), pstyle.height, group="group"
         )

@@ -118,10 +118,9 @@ with ui.guard("The power"):
         col.metric(f"Power with {given:,.0f} events, {NAMES[method]}", f"{value:.1%}")
     curve = power_curve(given, alpha=alpha, sides=sides, allocation_ratio=allocation)
     style = ui.chart_style()
-    title, x_title, y_title = ui.label_inputs(
-        "power_plot", f"Power with {given:,.0f} events", "Hazard ratio to detect", "Power"
+    style = ui.titled_style(
+        style, "power_plot", f"Power with {given:,.0f} events", "Hazard ratio to detect", "Power"
     )
-    style = style.titled(title, x_title, y_title)
     data = curve.to_frame().assign(method=lambda f: f["method"].map(NAMES))
     chart = charts.power_chart(data, style, target_hr=hr, target_power=power)
     ui.figure(chart, style, "power-curve", "power_figure")
