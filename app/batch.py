@@ -280,25 +280,35 @@ def incidence_rows(result) -> pd.DataFrame:
     return pd.concat(pieces, ignore_index=True)
 
 
+def thinned_incidence(
+    rows: pd.DataFrame, height_px: int
+) -> tuple[tuple[float, float], pd.DataFrame, pd.DataFrame]:
+    """The y domain and the vertices worth drawing at this height of the cumulative incidence
+    and of 1 − KM (as ``estimate``), from `incidence_rows`."""
+    from app import thinning
+
+    top = float(max(rows["upper"].max(), rows["one_minus_km"].max(), 0.05))
+    domain = (0.0, min(1.0, top * 1.05))
+    cif = thinning.thin_step_frame(
+        rows.drop(columns="one_minus_km"), ["estimate", "lower", "upper"], domain, height_px,
+        group="group",
+    )  # fmt: skip
+    km = rows[["group", "time", "one_minus_km"]].rename(columns={"one_minus_km": "estimate"})
+    km = thinning.thin_step_frame(km, ["estimate"], domain, height_px, group="group")
+    return domain, cif, km
+
+
 def incidence_figure(prepared: PreparedData, settings: Mapping):
     """Cumulative incidence per cause (and group) with bands, 1 − KM dotted, for the report."""
-    from app import charts, thinning
+    from app import charts
     from engine.competing import cumulative_incidence
 
     chosen = settings.get("competing") or {}
     confidence = {**ANALYSIS_DEFAULTS["curves"], **settings.get("curves", {})}["confidence"]
     by_group = chosen.get("by_group", True)
     result = cumulative_incidence(prepared.frame, by_group=by_group, confidence_level=confidence)
-    rows = incidence_rows(result)
     width, height = REPORT_SIZE
-    top = float(max(rows["upper"].max(), rows["one_minus_km"].max(), 0.05))
-    domain = (0.0, min(1.0, top * 1.05))
-    cif = thinning.thin_step_frame(
-        rows.drop(columns="one_minus_km"), ["estimate", "lower", "upper"], domain, height,
-        group="group",
-    )  # fmt: skip
-    km = rows[["group", "time", "one_minus_km"]].rename(columns={"one_minus_km": "estimate"})
-    km = thinning.thin_step_frame(km, ["estimate"], domain, height, group="group")
+    domain, cif, km = thinned_incidence(incidence_rows(result), height)
     unit = prepared.report.time_unit
     style = charts.ChartStyle(width=width, height=height).titled(
         "", f"Time ({unit})", "Cumulative incidence"

@@ -9,7 +9,7 @@ import pandas as pd
 import streamlit as st
 
 from app import compute, thinning
-from app.batch import incidence_rows
+from app.batch import incidence_rows, thinned_incidence
 from engine.io import ImportedTable
 
 
@@ -38,21 +38,8 @@ def incidence_drawing(
 ) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Thinned Aalen–Johansen vertices, and thinned 1 − KM vertices for the comparison."""
     rows = incidence_rows(incidence(fingerprint, roles_text, by_group, confidence, _table))
-    top = float(max(rows["upper"].max(), rows["one_minus_km"].max(), 0.05))
-    domain = (0.0, min(1.0, top * 1.05))
-    cif = thinning.thin_step_frame(
-        rows.drop(columns="one_minus_km"), ["estimate", "lower", "upper"], domain, height_px,
-        group="group",
-    )  # fmt: skip
-    km = rows[["group", "time", "one_minus_km"]].rename(columns={"one_minus_km": "estimate"})
-    km = thinning.thin_step_frame(
-        km.assign(lower=km["estimate"], upper=km["estimate"], at_risk=0),
-        ["estimate"],
-        domain,
-        height_px,
-        group="group",
-    )
-    return cif, km
+    _, cif, km = thinned_incidence(rows, height_px)
+    return cif, km.assign(lower=km["estimate"], upper=km["estimate"], at_risk=0)
 
 
 @st.cache_resource(max_entries=4, show_spinner="Fitting a Cox model per cause…")
