@@ -222,6 +222,13 @@ def curves_by_group(
     return CurveSet(tuple(curves))
 
 
+def _with_group(frame: pd.DataFrame, label: object) -> pd.DataFrame:
+    """A copy of a per-curve table with the curve's label as its first column, ``group``."""
+    out = frame.copy()
+    out.insert(0, "group", [label] * len(out))
+    return out
+
+
 @dataclass(frozen=True)
 class SurvivalAtTable:
     """Survival at chosen times. ``at_risk`` counts subjects with time >= t (with delayed entry:
@@ -234,9 +241,7 @@ class SurvivalAtTable:
     frame: pd.DataFrame  # time, survival, lower, upper, at_risk, events_before, censored_before
 
     def to_frame(self) -> pd.DataFrame:
-        out = self.frame.copy()
-        out.insert(0, "group", [self.label] * len(out))
-        return out
+        return _with_group(self.frame, self.label)
 
     def to_dict(self) -> dict:
         return {
@@ -332,9 +337,7 @@ class QuantileTable:
         }
 
     def to_frame(self) -> pd.DataFrame:
-        out = self.frame.copy()
-        out.insert(0, "group", [self.label] * len(out))
-        return out
+        return _with_group(self.frame, self.label)
 
     def to_dict(self) -> dict:
         return {
