@@ -24,7 +24,12 @@ from scipy.stats import norm
 
 from engine.errors import AnalysisError, RoleError, preview_values
 from engine.json_values import frame_records
-from engine.parametric import DISTRIBUTIONS, log_cumulative_hazard, log_quantile
+from engine.parametric import (
+    DISTRIBUTIONS,
+    AICComparison,
+    log_cumulative_hazard,
+    log_quantile,
+)
 
 # lifelines AFT fitter, its location parameter and its shape parameter (modelled on log scale)
 _LIFELINES_AFT = {
@@ -321,20 +326,14 @@ def fit_aft(
 
 
 @dataclass(frozen=True)
-class AFTComparison:
+class AFTComparison(AICComparison):
     """AFT models with the same covariates on the same complete cases, compared by AIC."""
 
     fits: tuple[AFTFit, ...]
     aic_table: pd.DataFrame  # distribution, n_parameters, log_likelihood, aic, delta_aic, note
 
-    def to_frame(self) -> pd.DataFrame:
-        return self.aic_table.copy()
-
     def to_dict(self) -> dict:
-        return {
-            "aic_table": frame_records(self.aic_table),
-            "fits": [f.to_dict() for f in self.fits],
-        }
+        return self._table_and_fits()
 
 
 def compare_aft(

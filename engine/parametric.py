@@ -170,8 +170,25 @@ class ParametricFit:
         }
 
 
+class AICComparison:
+    """What comparisons of fitted families share: the AIC table is their tidy view, and their
+    JSON starts with it and the fits."""
+
+    aic_table: pd.DataFrame
+    fits: tuple
+
+    def to_frame(self) -> pd.DataFrame:
+        return self.aic_table.copy()
+
+    def _table_and_fits(self) -> dict:
+        return {
+            "aic_table": frame_records(self.aic_table),
+            "fits": [f.to_dict() for f in self.fits],
+        }
+
+
 @dataclass(frozen=True)
-class ParametricComparison:
+class ParametricComparison(AICComparison):
     """Several families fitted to the same data (per group when split), compared by AIC."""
 
     fits: tuple[ParametricFit, ...]
@@ -186,13 +203,9 @@ class ParametricComparison:
                 return f
         raise AnalysisError(f"No {distribution!r} fit for group {group!r} in this comparison.")
 
-    def to_frame(self) -> pd.DataFrame:
-        return self.aic_table.copy()
-
     def to_dict(self) -> dict:
         return {
-            "aic_table": frame_records(self.aic_table),
-            "fits": [f.to_dict() for f in self.fits],
+            **self._table_and_fits(),
             "failed": [{"distribution": d, "group": g, "reason": r} for d, g, r in self.failed],
             "curves": frame_records(self.curves),
             "estimates": frame_records(self.estimates),
