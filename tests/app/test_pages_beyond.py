@@ -142,6 +142,14 @@ def test_sample_size_page_refuses_a_hazard_ratio_of_one():
     assert any("other than 1" in e for e in _errors(at))
 
 
+def _share_page_with_pumps(widgets: dict) -> tuple[AppTest, dict]:
+    """The Save and share page open on the pumps demo, and a session holding the pumps table,
+    the roles in use and these widget values (to make a recipe from)."""
+    at = _open("views/share.py")
+    table = read_table(DEMO / "pump_bearings.csv")
+    return at, {state.TABLE: table, state.ROLES: at.session_state[state.ROLES], **widgets}
+
+
 @pytest.mark.parametrize("restore_filters", [False, True])
 def test_restored_recipe_gives_the_pages_the_cli_numbers(tmp_path, restore_filters):
     """Restore a recipe (with a filter) in the app; Curves and Group comparison show the
@@ -149,16 +157,9 @@ def test_restored_recipe_gives_the_pages_the_cli_numbers(tmp_path, restore_filte
     from app.batch import load_recipe_run
     from engine.filters import RowFilter
 
-    table = read_table(DEMO / "pump_bearings.csv")
-    at = _open("views/share.py")
-    roles = at.session_state[state.ROLES]
-    session = {
-        state.TABLE: table,
-        state.ROLES: roles,
-        "curves_conf": "90%",
-        "curves_times": "12",
-        "compare_test": "peto-peto",
-    }
+    at, session = _share_page_with_pumps(
+        {"curves_conf": "90%", "curves_times": "12", "compare_test": "peto-peto"}
+    )
     if restore_filters:
         session[share_section.FILTERS] = (RowFilter("site", "not_in", ("harbour",)),)
     recipe = share_section.recipe_from_session(session)
@@ -229,15 +230,9 @@ def test_entry_time_role_is_honoured_by_the_curves_page():
 
 
 def test_restored_ties_and_ph_scale_show_on_the_regression_page():
-    table = read_table(DEMO / "pump_bearings.csv")
-    at = _open("views/share.py")
-    roles = at.session_state[state.ROLES]
-    session = {
-        state.TABLE: table,
-        state.ROLES: roles,
-        "model_ties": "Breslow",
-        "model_ph_transform": "rank of time",
-    }
+    at, session = _share_page_with_pumps(
+        {"model_ties": "Breslow", "model_ph_transform": "rank of time"}
+    )
     recipe = share_section.recipe_from_session(session)
     assert recipe.settings()["cox"] == {"ties": "breslow", "ph_transform": "rank"}
     share_section.restore_recipe(at.session_state, recipe)
@@ -245,7 +240,7 @@ def test_restored_ties_and_ph_scale_show_on_the_regression_page():
     assert not at.exception, [e.message for e in at.exception]
     assert at.radio(key="model_ties").value == "Breslow"
     assert at.session_state["model_ph_transform"] == "rank of time"
-    run = run_analysis(prepare(table.frame, roles), recipe.settings())
+    run = run_analysis(prepare(session[state.TABLE].frame, session[state.ROLES]), recipe.settings())
     assert run["cox"]["ties"] == "breslow"
 
 
