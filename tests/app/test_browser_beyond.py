@@ -1,7 +1,7 @@
 """The pages beyond the basics and Save and share, walked in a real headless Chromium.
 
-Reuses the server fixture and helpers of tests/app/test_browser.py; screenshots go to
-tests/artifacts/ for a person to look at.
+Uses the server fixture of tests/app/conftest.py and the helpers of tests/app/browser.py;
+screenshots go to tests/artifacts/ for a person to look at.
 """
 
 from __future__ import annotations
@@ -10,7 +10,7 @@ from pathlib import Path
 
 import pytest
 
-from tests.app.test_browser import ARGS, ARTIFACTS, CHROMIUM, _wait_until_idle, server  # noqa: F401
+from tests.app.browser import ARTIFACTS, demo_page, wait_until_idle, walk_pages
 
 pytestmark = pytest.mark.browser
 
@@ -23,27 +23,14 @@ PAGES = [
 ]
 
 
-def test_walk_the_pages_beyond_the_basics(server):  # noqa: F811
-    from playwright.sync_api import sync_playwright
-
-    ARTIFACTS.mkdir(parents=True, exist_ok=True)
-    with sync_playwright() as p:
-        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=ARGS)
-        page = browser.new_page(viewport={"width": 1400, "height": 2400})
-        errors: list[str] = []
-        page.on("pageerror", lambda error: errors.append(str(error)))
-        page.goto(server, wait_until="networkidle")
-        page.get_by_text("Invented demo data").first.wait_for(timeout=60_000)
-        for slug, title, marker in PAGES:
-            page.get_by_role("link", name=title).first.click()
-            page.get_by_text(marker, exact=False).first.wait_for(timeout=60_000)
-            _wait_until_idle(page)
-            assert page.locator('[data-testid="stException"]').count() == 0, slug
-            page.screenshot(path=str(ARTIFACTS / f"beyond_{slug}.png"), full_page=True)
+def test_walk_the_pages_beyond_the_basics(server):
+    with demo_page(server) as (page, errors):
+        for _ in walk_pages(page, PAGES, prefix="beyond_"):
+            pass
         # the report is built on the page and offered as a download
         page.get_by_role("button", name="Build the report").click()
         page.get_by_text("Download report (HTML)").first.wait_for(timeout=120_000)
-        _wait_until_idle(page)
+        wait_until_idle(page)
         with page.expect_download() as download:
             page.get_by_text("Download report (HTML)").first.click()
         text = Path(download.value.path()).read_text(encoding="utf-8")
@@ -51,16 +38,15 @@ def test_walk_the_pages_beyond_the_basics(server):  # noqa: F811
         # competing risks on the demo with two kinds of event
         page.get_by_role("link", name="Data import").first.click()
         page.get_by_role("button", name="Dairy herd").first.click()
-        _wait_until_idle(page)
+        wait_until_idle(page)
         page.get_by_role("link", name="Competing risks").first.click()
         page.get_by_text("Causes", exact=False).first.wait_for(timeout=60_000)
-        _wait_until_idle(page)
+        wait_until_idle(page)
         box = page.get_by_role("textbox", name="Cause for sold")
         box.fill("sold")
         box.press("Enter")
         page.get_by_text("overstates the cumulative incidence").first.wait_for(timeout=60_000)
-        _wait_until_idle(page)
+        wait_until_idle(page)
         assert page.locator('[data-testid="stException"]').count() == 0
         page.screenshot(path=str(ARTIFACTS / "beyond_competing_two_causes.png"), full_page=True)
-        browser.close()
     assert not errors, errors
