@@ -170,7 +170,7 @@ def _aalen_johansen_table(time, codes, n_causes: int, entry, z: float) -> dict[s
         )
         var = np.maximum(var, 0.0)
         se = np.sqrt(var)
-        with np.errstate(divide="ignore", invalid="ignore"):
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):  # exp(inf) -> bound 0
             log_f = np.log(cif)
             se_t = se / (cif * np.abs(log_f))
             centre = np.log(-log_f)
