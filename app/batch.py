@@ -31,7 +31,8 @@ from engine.recipe import (
 from engine.roles import Roles
 from engine.summary import numbers_at_risk_frame
 
-ALL_ROWS = "All rows"
+ALL_ROWS = "All rows"  # the label of the all-rows curve, as app.charts.ALL_ROWS_LABEL
+SURVIVAL, INCIDENCE, HAZARD = "survival", "incidence", "hazard"  # scales a curve is drawn on
 REPORT_SIZE = (640, 320)  # figure width and height in the report, pixels
 
 
@@ -120,21 +121,34 @@ def _comparable(value):
 # --- figures -----------------------------------------------------------------------------------
 
 
-def _curve_rows(curve) -> pd.DataFrame:
-    """Step vertices from time 0 (where every survival curve starts at 1)."""
+def curve_rows(curve, scale: str = SURVIVAL) -> pd.DataFrame:
+    """One drawing row per vertex, starting at time 0 (where every curve starts)."""
+    if scale == HAZARD:
+        estimate, lower, upper = curve.cumulative_hazard, curve.lower, curve.upper
+        start = 0.0
+    elif scale == INCIDENCE:
+        incidence = curve.incidence_frame()  # the engine's 1 − S and its reflected interval
+        estimate = incidence["incidence"].to_numpy()
+        lower, upper = incidence["lower"].to_numpy(), incidence["upper"].to_numpy()
+        start = 0.0
+    else:
+        estimate, lower, upper = curve.survival, curve.lower, curve.upper
+        start = 1.0
     time = np.asarray(curve.time, dtype=float)
-    survival, lower, upper = curve.survival, curve.lower, curve.upper
     at_risk = np.asarray(curve.at_risk)
-    if time.size == 0 or time[0] > 0:
+    prepend = time.size == 0 or time[0] > 0
+    if prepend:
+        first_at_risk = int(at_risk[0]) if at_risk.size else 0
         time = np.concatenate([[0.0], time])
-        survival, lower, upper = (np.concatenate([[1.0], a]) for a in (survival, lower, upper))
-        at_risk = np.concatenate([[at_risk[0] if at_risk.size else 0], at_risk])
-    label = ALL_ROWS if curve.label is None else str(curve.label)
+        estimate = np.concatenate([[start], estimate])
+        lower = np.concatenate([[start], lower])
+        upper = np.concatenate([[start], upper])
+        at_risk = np.concatenate([[first_at_risk], at_risk])
     return pd.DataFrame(
         {
-            "group": label,
+            "group": ALL_ROWS if curve.label is None else str(curve.label),
             "time": time,
-            "estimate": survival,
+            "estimate": estimate,
             "lower": lower,
             "upper": upper,
             "at_risk": at_risk,
@@ -153,7 +167,7 @@ def curve_figure(prepared: PreparedData, settings: Mapping, *, title: str = ""):
     ).curves
     by_group = len(curves) > 1
     drawn = list(curves[1:] if by_group else curves[:1])
-    rows = pd.concat([_curve_rows(c) for c in drawn], ignore_index=True)
+    rows = pd.concat([curve_rows(c) for c in drawn], ignore_index=True)
     width, height = REPORT_SIZE
     thinned = thinning.thin_step_frame(
         rows, ["estimate", "lower", "upper"], (0.0, 1.0), height, group="group"
@@ -343,7 +357,7 @@ def parametric_figure(prepared: PreparedData, settings: Mapping):
     )
     width, height = REPORT_SIZE
     curve = curves_by_group(frame.drop(columns="_group", errors="ignore")).curves[0]
-    km = thinning.thin_step_frame(_curve_rows(curve), ["estimate"], (0.0, 1.0), height)
+    km = thinning.thin_step_frame(curve_rows(curve), ["estimate"], (0.0, 1.0), height)
     fitted = result.curves.assign(distribution=result.curves["distribution"].map(LABELS))
     unit = prepared.report.time_unit
     style = charts.ChartStyle(width=width, height=height).titled(

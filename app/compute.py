@@ -13,13 +13,12 @@ import pandas as pd
 import streamlit as st
 
 from app import charts, data, thinning
+from app.batch import HAZARD, INCIDENCE, SURVIVAL, curve_rows
 from engine.columns import cut_at_quantiles
 from engine.curves import CurveSet, curves_by_group, nelson_aalen
 from engine.io import ImportedTable
 from engine.risk_table import without_missing
 from engine.summary import group_summary, numbers_at_risk_frame
-
-SURVIVAL, INCIDENCE, HAZARD = "survival", "incidence", "hazard"
 
 
 def _frame(fingerprint: str, roles_text: str, table: ImportedTable) -> pd.DataFrame:
@@ -62,41 +61,6 @@ def hazard_curves(
     return out
 
 
-def _curve_rows(curve, scale: str) -> pd.DataFrame:
-    """One drawing row per vertex, starting at time 0 (where every curve starts)."""
-    if scale == HAZARD:
-        estimate, lower, upper = curve.cumulative_hazard, curve.lower, curve.upper
-        start = 0.0
-    elif scale == INCIDENCE:
-        incidence = curve.incidence_frame()  # the engine's 1 − S and its reflected interval
-        estimate = incidence["incidence"].to_numpy()
-        lower, upper = incidence["lower"].to_numpy(), incidence["upper"].to_numpy()
-        start = 0.0
-    else:
-        estimate, lower, upper = curve.survival, curve.lower, curve.upper
-        start = 1.0
-    time = np.asarray(curve.time, dtype=float)
-    at_risk = np.asarray(curve.at_risk)
-    prepend = time.size == 0 or time[0] > 0
-    if prepend:
-        first_at_risk = int(at_risk[0]) if at_risk.size else 0
-        time = np.concatenate([[0.0], time])
-        estimate = np.concatenate([[start], estimate])
-        lower = np.concatenate([[start], lower])
-        upper = np.concatenate([[start], upper])
-        at_risk = np.concatenate([[first_at_risk], at_risk])
-    return pd.DataFrame(
-        {
-            "group": label_text(curve.label),
-            "time": time,
-            "estimate": estimate,
-            "lower": lower,
-            "upper": upper,
-            "at_risk": at_risk,
-        }
-    )
-
-
 def _selected(curves: list, by_group: bool) -> list:
     return curves[1:] if by_group and len(curves) > 1 else curves[:1]
 
@@ -122,7 +86,7 @@ def curve_drawing(
         censor_source = curves
     curves = _selected(list(curves), by_group)
     censor_source = _selected(list(censor_source), by_group)
-    rows = pd.concat([_curve_rows(c, scale) for c in curves], ignore_index=True)
+    rows = pd.concat([curve_rows(c, scale) for c in curves], ignore_index=True)
     last_time = float(rows["time"].max()) if len(rows) else 1.0
     x_upper = float(x_max) if x_max else last_time
     if scale == HAZARD:
@@ -150,7 +114,7 @@ def curve_drawing(
             continue
         times = np.asarray(curve.time, dtype=float)[has]
         # A censoring mark sits on the drawn curve at its time.
-        drawn_rows = _curve_rows(drawn, scale)
+        drawn_rows = curve_rows(drawn, scale)
         index = np.searchsorted(drawn_rows["time"].to_numpy(), times, side="right") - 1
         marks.append(
             pd.DataFrame(
@@ -363,7 +327,7 @@ def comparison_drawing(
     """Thinned Kaplan–Meier vertices of the compared groups (for the small figure)."""
     frame = _complete(comparison_frame(fingerprint, roles_text, grouping, None, _table))
     curves = curves_by_group(frame).curves[1:]
-    rows = pd.concat([_curve_rows(c, SURVIVAL) for c in curves], ignore_index=True)
+    rows = pd.concat([curve_rows(c, SURVIVAL) for c in curves], ignore_index=True)
     return thinning.thin_step_frame(
         rows, ["estimate", "lower", "upper"], (0.0, 1.0), size_px[1], group="group"
     )

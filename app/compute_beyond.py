@@ -9,7 +9,7 @@ import pandas as pd
 import streamlit as st
 
 from app import compute, thinning
-from app.batch import incidence_rows, thinned_incidence
+from app.batch import curve_rows, incidence_rows, thinned_incidence
 from engine.io import ImportedTable
 
 
@@ -113,7 +113,7 @@ def landmark_curves(
     frame = landmark(fingerprint, roles_text, at, _table).frame
     curves = curves_by_group(frame).curves
     drawn = curves[1:] if len(curves) > 1 else curves[:1]
-    rows = pd.concat([compute._curve_rows(c, compute.SURVIVAL) for c in drawn], ignore_index=True)
+    rows = pd.concat([curve_rows(c) for c in drawn], ignore_index=True)
     return thinning.thin_step_frame(
         rows, ["estimate", "lower", "upper"], (0.0, 1.0), height_px, group="group"
     )
