@@ -9,7 +9,6 @@ from __future__ import annotations
 import json
 import subprocess
 import sys
-from pathlib import Path
 
 import pytest
 
@@ -17,19 +16,10 @@ from app import state
 from app.share_section import recipe_from_session
 from engine.checks import prepare
 from engine.io import read_table
-from engine.roles import Roles
 from engine.summary import comparison_json, curves_json
+from tests.app.demo_files import PUMP_ROLES, PUMPS, ROOT
 
-ROOT = Path(__file__).resolve().parents[2]
-PUMPS = ROOT / "demo_data" / "pump_bearings.csv"
-ROLES = Roles(
-    time="months_in_service",
-    unit="months",
-    event="failed",
-    group="supplier",
-    covariates=("load_kN", "lubricant"),
-    categorical=("lubricant",),
-)
+ROLES = PUMP_ROLES
 
 
 def _has_analyze() -> bool:

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from pathlib import Path
+from dataclasses import replace
 
 import pytest
 from streamlit.testing.v1 import AppTest
@@ -19,18 +19,9 @@ from engine.filters import RowFilter
 from engine.io import read_table
 from engine.recipe import Recipe
 from engine.roles import Roles
+from tests.app.demo_files import PUMP_ROLES, PUMPS
 
-ROOT = Path(__file__).resolve().parents[2]
-PUMPS = ROOT / "demo_data" / "pump_bearings.csv"
-ROLES = Roles(
-    time="months_in_service",
-    unit="months",
-    event="failed",
-    group="supplier",
-    covariates=("load_kN", "lubricant"),
-    categorical=("lubricant",),
-    reference=(("lubricant", "grease"),),
-)
+ROLES = replace(PUMP_ROLES, reference=(("lubricant", "grease"),))
 
 
 @pytest.fixture(scope="module")
