@@ -121,6 +121,10 @@ def _comparable(value):
 # --- figures -----------------------------------------------------------------------------------
 
 
+def _label(label: object) -> str:
+    return ALL_ROWS if label is None else str(label)
+
+
 def curve_rows(curve, scale: str = SURVIVAL) -> pd.DataFrame:
     """One drawing row per vertex, starting at time 0 (where every curve starts)."""
     if scale == HAZARD:
@@ -146,7 +150,7 @@ def curve_rows(curve, scale: str = SURVIVAL) -> pd.DataFrame:
         at_risk = np.concatenate([[first_at_risk], at_risk])
     return pd.DataFrame(
         {
-            "group": ALL_ROWS if curve.label is None else str(curve.label),
+            "group": _label(curve.label),
             "time": time,
             "estimate": estimate,
             "lower": lower,
@@ -154,6 +158,46 @@ def curve_rows(curve, scale: str = SURVIVAL) -> pd.DataFrame:
             "at_risk": at_risk,
         }
     )
+
+
+def censoring_marks(
+    censor_source: Sequence,
+    drawn: Sequence,
+    scale: str,
+    x_domain: tuple[float, float],
+    y_domain: tuple[float, float],
+    size_px: tuple[int, int],
+) -> pd.DataFrame:
+    """Censoring marks (group, time, estimate) of each curve in ``censor_source`` on the drawn
+    curve with the same label, thinned to one mark per pixel and group."""
+    from app import thinning
+
+    drawn_by_label = {_label(c.label): c for c in drawn}
+    marks = []
+    for curve in censor_source:
+        has = np.asarray(curve.censored) > 0
+        on = drawn_by_label.get(_label(curve.label))
+        if on is None or not has.any():
+            continue
+        times = np.asarray(curve.time, dtype=float)[has]
+        # A censoring mark sits on the drawn curve at its time.
+        on_rows = curve_rows(on, scale)
+        index = np.searchsorted(on_rows["time"].to_numpy(), times, side="right") - 1
+        marks.append(
+            pd.DataFrame(
+                {
+                    "group": _label(curve.label),
+                    "time": times,
+                    "estimate": on_rows["estimate"].to_numpy()[np.clip(index, 0, None)],
+                }
+            )
+        )
+    if not marks:
+        return pd.DataFrame(columns=["group", "time", "estimate"])
+    return thinning.thin_points(
+        pd.concat(marks, ignore_index=True), "time", "estimate", x_domain, y_domain, size_px,
+        group="group",
+    )  # fmt: skip
 
 
 def curve_figure(prepared: PreparedData, settings: Mapping, *, title: str = ""):
@@ -173,32 +217,8 @@ def curve_figure(prepared: PreparedData, settings: Mapping, *, title: str = ""):
         rows, ["estimate", "lower", "upper"], (0.0, 1.0), height, group="group"
     )
     x_max = float(rows["time"].max()) or 1.0
-    marks = []
-    for curve in drawn:
-        censored = np.asarray(curve.censored) > 0
-        if censored.any():
-            marks.append(
-                pd.DataFrame(
-                    {
-                        "group": ALL_ROWS if curve.label is None else str(curve.label),
-                        "time": np.asarray(curve.time, dtype=float)[censored],
-                        "estimate": np.asarray(curve.survival)[censored],
-                    }
-                )
-            )
-    censored_marks = (
-        thinning.thin_points(
-            pd.concat(marks, ignore_index=True),
-            "time",
-            "estimate",
-            (0.0, x_max),
-            (0.0, 1.0),
-            (width, height),
-            group="group",
-        )
-        if marks
-        else None
-    )
+    marks = censoring_marks(drawn, drawn, SURVIVAL, (0.0, x_max), (0.0, 1.0), (width, height))
+    censored_marks = marks if len(marks) else None
     ticks = charts.nice_ticks(x_max)
     labels = [str(c.label) for c in drawn] if by_group else []
     colours = charts.group_colours(labels)

@@ -13,7 +13,7 @@ import pandas as pd
 import streamlit as st
 
 from app import charts, data, thinning
-from app.batch import HAZARD, INCIDENCE, SURVIVAL, curve_rows
+from app.batch import HAZARD, INCIDENCE, SURVIVAL, censoring_marks, curve_rows
 from engine.columns import cut_at_quantiles
 from engine.curves import CurveSet, curves_by_group, nelson_aalen
 from engine.io import ImportedTable
@@ -105,38 +105,8 @@ def curve_drawing(
     thinned = thinning.thin_step_frame(
         rows, ["estimate", "lower", "upper"], y_domain, height, group="group"
     )
-    drawn_by_label = {label_text(c.label): c for c in curves}
-    marks = []
-    for curve in censor_source:
-        has = np.asarray(curve.censored) > 0
-        drawn = drawn_by_label.get(label_text(curve.label))
-        if drawn is None or not has.any():
-            continue
-        times = np.asarray(curve.time, dtype=float)[has]
-        # A censoring mark sits on the drawn curve at its time.
-        drawn_rows = curve_rows(drawn, scale)
-        index = np.searchsorted(drawn_rows["time"].to_numpy(), times, side="right") - 1
-        marks.append(
-            pd.DataFrame(
-                {
-                    "group": label_text(curve.label),
-                    "time": times,
-                    "estimate": drawn_rows["estimate"].to_numpy()[np.clip(index, 0, None)],
-                }
-            )
-        )
-    censored = (
-        thinning.thin_points(
-            pd.concat(marks, ignore_index=True),
-            "time",
-            "estimate",
-            (0.0, x_upper),
-            y_domain,
-            (width, height),
-            group="group",
-        )
-        if marks
-        else pd.DataFrame(columns=["group", "time", "estimate"])
+    censored = censoring_marks(
+        censor_source, curves, scale, (0.0, x_upper), y_domain, (width, height)
     )
     return {
         "curves": thinned,
