@@ -45,9 +45,12 @@ with st.container(border=True):
     )
     ui.remember("param_include", True)
     cols[3].toggle("In the report and recipe", key="param_include")
-    ui.remember("param_times", "")
+    # Two round times within follow-up as a start (as on the Curves page); any others may be typed.
+    ui.remember("param_times", ", ".join(f"{t:g}" for t in charts.nice_ticks(last_time, 4)[1:3]))
     times_text = st.text_input(
-        f"Survival at times ({unit}), separated by commas", key="param_times", placeholder="12, 24"
+        f"Survival at times ({unit}), separated by commas",
+        key="param_times",
+        placeholder="e.g. 12, 24",
     )
 if not chosen:
     st.info("Choose at least one model.")
