@@ -15,7 +15,8 @@ import altair as alt
 import pandas as pd
 import pytest
 
-from app.report import build_report, compact_svg, figure_svg, methods_paragraph, sanitize_svg
+from app.report import build_report, methods_paragraph
+from app.report_html import compact_svg, figure_svg, sanitize_svg
 from engine.checks import prepare
 from engine.cox import cox_json, fit_cox
 from engine.cox_diagnostics import proportional_hazards_test

@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 
 from app.batch import curve_figure, report_from_json_and_results
-from app.report import figure_svg
+from app.report_html import figure_svg
 from engine.checks import prepare
 from engine.roles import Roles
 from engine.summary import comparison_json, curves_json
