@@ -3,41 +3,38 @@
 Text files are sniffed on a sample (separator, decimal mark, encoding) and parsed by pyarrow,
 which keeps a 1,000,000-row import close to the speed of a plain ``pandas.read_csv``. Anything
 the sniffer was unsure about is reported (``confident=False``) so the app can show the options.
+The text sniffing and parsing are in ``engine.io_text``; Excel and Parquet are read here.
 """
 
 from __future__ import annotations
 
-import csv
 import hashlib
 import io
-import re
 import zipfile
-from collections import Counter
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
 import pandas as pd
 import pyarrow as pa
-import pyarrow.csv as pa_csv
 
 from engine.errors import FileReadError, FileTooLargeError, preview_values
+from engine.io_text import (
+    check_columns,
+    check_duplicates,
+    missing_token_variants,
+    read_head,
+    read_text,
+)
 
 DEFAULT_MISSING_TOKENS: tuple[str, ...] = ("", "NA", "N/A", ".", "-", "null", "NaN", "missing")
 DEFAULT_MAX_BYTES = 1024 * 1024 * 1024  # matches server.maxUploadSize (1024 MB)
 
-SEPARATORS = (",", ";", "\t", "|")
-SAMPLE_BYTES = 256 * 1024
-FALLBACK_ENCODING = "cp1252"
-_SEPARATOR_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}
 _EXCEL_SUFFIXES = {".xlsx", ".xlsm"}
 _PARQUET_SUFFIXES = {".parquet", ".pq"}
 _ZIP_MAGIC = b"PK\x03\x04"
 _PARQUET_MAGIC = b"PAR1"
 _OLE_MAGIC = b"\xd0\xcf\x11\xe0"
-_DECIMAL_COMMA = re.compile(r"^[+-]?\d+,\d+$")
-_CONTROL_CHARS = re.compile(r"[\x01-\x08\x0b\x0e-\x1f\x7f-\x9f]")
-_DECIMAL_POINT = re.compile(r"^[+-]?\d*\.\d+$")
 
 
 @dataclass(frozen=True)
@@ -97,15 +94,6 @@ class ImportedTable:
         }
 
 
-@dataclass(frozen=True)
-class _Sniffed:
-    sep: str
-    decimal: str
-    encoding: str
-    confident: bool
-    notes: tuple[str, ...]
-
-
 def read_table(
     source: str | Path | bytes, options: ImportOptions | None = None, *, name: str | None = None
 ) -> ImportedTable:
@@ -113,7 +101,7 @@ def read_table(
     options = options or ImportOptions()
     path, data = _open_source(source, options.max_bytes)
     source_name = name or (path.name if path is not None else "uploaded file")
-    head = data[:16] if data is not None else _read_head(path, 16)
+    head = data[:16] if data is not None else read_head(path, 16)
     file_format = _detect_format(source_name, head)
     # hashlib releases the GIL, so the fingerprint is computed while the file is parsed.
     with ThreadPoolExecutor(max_workers=1) as pool:
@@ -123,12 +111,12 @@ def read_table(
         elif file_format == "parquet":
             frame, used, notes, confident = _read_parquet(path, data, options, source_name)
         else:
-            frame, used, notes, confident = _read_text(path, data, options, source_name)
+            frame, used, notes, confident = read_text(path, data, options, source_name)
         sha256 = sha256.result()
     malformed_lines = tuple(frame.attrs.pop("malformed_lines", ()))
     frame, dropped_note = _drop_empty_unnamed_columns(frame)
     notes = notes + dropped_note
-    _check_columns(frame, source_name)
+    check_columns(frame, source_name)
     if len(frame) == 0:
         raise FileReadError(
             f"{source_name} has a header ({preview_values(frame.columns)}) but no data rows. "
@@ -144,16 +132,6 @@ def read_table(
         notes=tuple(notes),
         malformed_lines=malformed_lines,
     )
-
-
-def missing_token_variants(tokens: tuple[str, ...]) -> list[str]:
-    """Each token as written, lower, upper and title case: 'NA', 'na', 'Na' all mean missing."""
-    variants: list[str] = []
-    for token in tokens:
-        for form in (token, token.lower(), token.upper(), token.title()):
-            if form not in variants:
-                variants.append(form)
-    return variants
 
 
 def _open_source(source: str | Path | bytes, max_bytes: int) -> tuple[Path | None, bytes | None]:
@@ -180,11 +158,6 @@ def _check_size(size: int, max_bytes: int, what: str) -> None:
         raise FileReadError(f"{what} is empty (0 bytes). Export the data again and retry.")
 
 
-def _read_head(path: Path, size: int) -> bytes:
-    with path.open("rb") as handle:
-        return handle.read(size)
-
-
 def _sha256(path: Path | None, data: bytes | None) -> str:
     if data is not None:
         return hashlib.sha256(data).hexdigest()
@@ -204,254 +177,6 @@ def _detect_format(name: str, head: bytes) -> str:
             "Save it as .xlsx or CSV and upload that."
         )
     return "csv"
-
-
-# --- text files ---------------------------------------------------------------------------------
-
-
-def _read_text(path, data, options: ImportOptions, name: str):
-    sample = data[:SAMPLE_BYTES] if data is not None else _read_head(path, SAMPLE_BYTES)
-    truncated = len(sample) == SAMPLE_BYTES
-    sniffed = _sniff(sample, truncated, options, name)
-    confident = sniffed.confident
-    encoding = sniffed.encoding
-    parse_notes: list[str] = []
-    frame = _parse_text(
-        path, data, sniffed.sep, sniffed.decimal, encoding, options, parse_notes, name
-    )
-    guessed_utf8 = options.encoding is None and encoding not in (FALLBACK_ENCODING, "latin-1")
-    if guessed_utf8 and _has_undecoded(frame):
-        # The sample was valid UTF-8 but a later part of the file is not.
-        confident = False
-        for encoding in (FALLBACK_ENCODING, "latin-1"):
-            parse_notes = [
-                f"Part of the file is not valid UTF-8; it was read as {encoding}. "
-                "Check accented characters."
-            ]
-            try:
-                frame = _parse_text(
-                    path, data, sniffed.sep, sniffed.decimal, encoding, options, parse_notes, name
-                )
-                break
-            except FileReadError:
-                if encoding == "latin-1":
-                    raise
-    notes = [*sniffed.notes, *parse_notes]
-    if any("malformed" in note for note in notes):
-        confident = False
-    used = ImportOptions(
-        sep=sniffed.sep,
-        decimal=sniffed.decimal,
-        encoding=encoding,
-        sheet=None,
-        missing_tokens=options.missing_tokens,
-        max_bytes=options.max_bytes,
-    )
-    return frame, used, notes, confident
-
-
-def _sniff(sample: bytes, truncated: bool, options: ImportOptions, name: str) -> _Sniffed:
-    notes: list[str] = []
-    confident = True
-    if not sample.strip():
-        raise FileReadError(f"{name} is empty (only blank lines). Export the data again.")
-    encoding = options.encoding or _guess_encoding(sample)
-    if b"\x00" in sample and not encoding.startswith("utf-16"):
-        raise FileReadError(
-            f"{name} does not look like a text table (it contains binary data). "
-            "Upload a CSV, TSV, Excel .xlsx or Parquet file."
-        )
-    if encoding in (FALLBACK_ENCODING, "latin-1") and options.encoding is None:
-        notes.append("The file is not UTF-8; it was read as Windows-1252 (Latin-1).")
-    try:
-        text = sample.decode(encoding, errors="strict" if not truncated else "ignore")
-    except (UnicodeDecodeError, LookupError) as exc:
-        raise FileReadError(
-            f"{name} cannot be decoded as {encoding}: {exc}. Choose another encoding."
-        ) from None
-    text = text.lstrip("\ufeff")
-    if _looks_binary(text):
-        raise FileReadError(
-            f"{name} does not look like a text table (it contains binary data). "
-            "Upload a CSV, TSV, Excel .xlsx or Parquet file."
-        )
-    lines = text.splitlines()
-    if truncated and len(lines) > 1:
-        lines = lines[:-1]
-    lines = [line for line in lines if line.strip()][:200]
-    if options.sep:
-        sep = options.sep
-    else:
-        sep, sure = _sniff_separator(lines)
-        confident &= sure
-        if not sure:
-            notes.append(
-                f"The column separator was unclear; {_SEPARATOR_NAMES.get(sep, repr(sep))} "
-                "was used. Check the columns and set the separator if they look wrong."
-            )
-    if options.decimal:
-        decimal = options.decimal
-    else:
-        decimal, sure = _sniff_decimal(lines, sep)
-        confident &= sure
-        if decimal == ",":
-            notes.append("Numbers use a decimal comma (3,5 = 3.5).")
-        if not sure:
-            notes.append("The decimal mark was unclear; check numeric columns.")
-    return _Sniffed(sep, decimal, encoding, confident, tuple(notes))
-
-
-def _guess_encoding(sample: bytes) -> str:
-    if sample.startswith(b"\xef\xbb\xbf"):
-        return "utf-8-sig"
-    if sample.startswith((b"\xff\xfe", b"\xfe\xff")):
-        return "utf-16"
-    try:
-        sample.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        # A multi-byte character cut by the end of the sample is not an error.
-        if exc.start < len(sample) - 3 or len(sample) < SAMPLE_BYTES:
-            try:
-                sample.decode(FALLBACK_ENCODING)
-            except UnicodeDecodeError:
-                return "latin-1"  # cp1252 leaves five bytes undefined; latin-1 maps every byte
-            return FALLBACK_ENCODING
-    return "utf-8"
-
-
-def _looks_binary(text: str) -> bool:
-    if "\x00" in text:
-        return True
-    controls = len(_CONTROL_CHARS.findall(text))
-    return controls > max(2, 0.02 * len(text))
-
-
-def _field_counts(lines: list[str], sep: str) -> list[int]:
-    try:
-        return [len(row) for row in csv.reader(lines, delimiter=sep)]
-    except csv.Error:
-        return []
-
-
-def _sniff_separator(lines: list[str]) -> tuple[str, bool]:
-    """Pick the separator that splits the header and most rows into the same number of fields."""
-    scored = []
-    for sep in SEPARATORS:
-        counts = _field_counts(lines, sep)
-        if not counts:
-            continue
-        mode, _ = Counter(counts).most_common(1)[0]
-        if mode < 2:
-            continue
-        consistency = sum(c == mode for c in counts) / len(counts)
-        header_fits = counts[0] == mode
-        scored.append((header_fits and consistency >= 0.9, consistency, mode, sep))
-    if not scored:
-        return ",", len(lines) > 0 and all("," not in line for line in lines)
-    scored.sort(key=lambda s: (s[0], s[1], s[2]), reverse=True)
-    best = scored[0]
-    rivals = [s for s in scored[1:] if s[0]]
-    return best[3], bool(best[0]) and not rivals
-
-
-def _sniff_decimal(lines: list[str], sep: str) -> tuple[str, bool]:
-    if sep == ",":
-        return ".", True
-    commas = points = 0
-    try:
-        for row in csv.reader(lines[1:], delimiter=sep):
-            for cell in row:
-                cell = cell.strip()
-                commas += bool(_DECIMAL_COMMA.match(cell))
-                points += bool(_DECIMAL_POINT.match(cell))
-    except csv.Error:
-        return ".", False
-    if commas and not points:
-        return ",", True
-    if commas and points:
-        return ("," if commas > points else "."), False
-    return ".", True
-
-
-def _parse_text(path, data, sep, decimal, encoding, options, notes, name) -> pd.DataFrame:
-    malformed: list[str] = []
-
-    def skip_malformed(row) -> str:
-        malformed.append(str(row.text))
-        return "skip"
-
-    kwargs = {
-        "sep": sep,
-        "decimal": decimal,
-        "na_values": missing_token_variants(options.missing_tokens),
-        "keep_default_na": False,
-    }
-    arrow_encoding = "utf-8" if encoding in ("utf-8", "utf-8-sig") else encoding
-    source = str(path) if path is not None else io.BytesIO(data)
-    try:
-        frame = _parse_with_pyarrow(source, sep, decimal, arrow_encoding, kwargs, skip_malformed)
-    except (pa.ArrowException, ValueError, OverflowError, TypeError):
-        # pyarrow cannot cope with some quoting and line-ending mixes; the python parser can.
-        malformed.clear()
-        frame = _parse_text_python(path, data, encoding, kwargs, malformed, name)
-    if malformed:
-        notes.append(
-            f"{len(malformed)} malformed line(s) with the wrong number of fields were skipped: "
-            f"{preview_values(malformed, 3)}. Check the separator and quoting."
-        )
-    names = [str(c).strip() for c in frame.columns]
-    frame.columns = [n if n else f"Unnamed: {i}" for i, n in enumerate(names)]
-    _check_columns(frame, name)
-    frame.attrs["malformed_lines"] = tuple(malformed)
-    return frame
-
-
-def _parse_with_pyarrow(source, sep, decimal, encoding, kwargs, on_bad_line) -> pd.DataFrame:
-    """What ``pandas.read_csv(engine="pyarrow")`` does, but converting column by column
-    (``self_destruct``) so the Arrow table and the frame are not both held in full."""
-    table = pa_csv.read_csv(
-        source,
-        read_options=pa_csv.ReadOptions(encoding=encoding),
-        parse_options=pa_csv.ParseOptions(delimiter=sep, invalid_row_handler=on_bad_line),
-        convert_options=pa_csv.ConvertOptions(
-            null_values=kwargs["na_values"],
-            strings_can_be_null="" in kwargs["na_values"],
-            decimal_point=decimal,
-        ),
-    )
-    return table.to_pandas(self_destruct=True, split_blocks=True)
-
-
-def _parse_text_python(path, data, encoding, kwargs, malformed, name) -> pd.DataFrame:
-    def skip_malformed(fields: list[str]) -> None:
-        malformed.append(kwargs["sep"].join(fields))
-        return None
-
-    source = str(path) if path is not None else io.BytesIO(data)
-    try:
-        return pd.read_csv(
-            source, engine="python", encoding=encoding, on_bad_lines=skip_malformed, **kwargs
-        )
-    except pd.errors.EmptyDataError:
-        raise FileReadError(f"{name} has no columns. Export the data again.") from None
-    except (ValueError, csv.Error, pd.errors.ParserError, UnicodeError, OverflowError) as exc:
-        raise FileReadError(
-            f"{name} could not be read as a table: {exc}. Check the separator, quoting and "
-            "encoding, or export the file again."
-        ) from None
-
-
-def _has_undecoded(frame: pd.DataFrame) -> bool:
-    """pyarrow keeps invalid UTF-8 as bytes: one bytes value means the encoding was wrong."""
-    for position in range(frame.shape[1]):
-        series = frame.iloc[:, position]
-        if series.dtype == object:
-            present = series.iloc[:1000].dropna()
-            if present.empty:
-                present = series.dropna()
-            if len(present) and isinstance(present.iloc[0], bytes):
-                return True
-    return False
 
 
 # --- Excel and Parquet --------------------------------------------------------------------------
@@ -482,7 +207,7 @@ def _read_excel(path, data, options: ImportOptions, name: str):
         raise FileReadError(f"Sheet {sheet!r} of {name} is empty. Pick another sheet.")
     header = ["" if pd.isna(v) else str(v).strip() for v in raw.iloc[0]]
     header = [h[:-2] if h.endswith(".0") and h[:-2].isdigit() else h for h in header]
-    _check_duplicates(header, name)
+    check_duplicates(header, name)
     header = [h or f"Unnamed: {i}" for i, h in enumerate(header)]
     frame = raw.iloc[1:].reset_index(drop=True).infer_objects()
     frame.columns = header
@@ -521,23 +246,7 @@ def _read_parquet(path, data, options: ImportOptions, name: str):
     return frame, used, [], True
 
 
-# --- shared checks ------------------------------------------------------------------------------
-
-
-def _check_duplicates(names: list[str], source_name: str) -> None:
-    counts = Counter(n for n in names if n)
-    dups = [n for n, c in counts.items() if c > 1]
-    if dups:
-        raise FileReadError(
-            f"{source_name} has duplicate column names: {preview_values(dups)}. "
-            "Rename the columns so each name is used once."
-        )
-
-
-def _check_columns(frame: pd.DataFrame, source_name: str) -> None:
-    if frame.shape[1] == 0:
-        raise FileReadError(f"{source_name} has no columns. Export the data again.")
-    _check_duplicates([str(c) for c in frame.columns], source_name)
+# --- after any reader -----------------------------------------------------------------------------
 
 
 def _drop_empty_unnamed_columns(frame: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:

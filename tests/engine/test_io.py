@@ -17,12 +17,12 @@ from engine.checks import prepare
 from engine.errors import FileReadError, FileTooLargeError, HazelError
 from engine.io import (
     DEFAULT_MISSING_TOKENS,
-    SAMPLE_BYTES,
     ImportedTable,
     ImportOptions,
     missing_token_variants,
     read_table,
 )
+from engine.io_text import SAMPLE_BYTES
 from engine.roles import Roles
 
 DATA = Path(__file__).parent / "data"
