@@ -279,10 +279,10 @@ def forest_figure(cox: Mapping | None):
     """The forest plot of the Cox terms, or None without a model."""
     if not cox or not cox.get("terms"):
         return None
-    from app import charts
+    from app import charts, charts_models
 
     style = charts.ChartStyle(width=REPORT_SIZE[0], height=REPORT_SIZE[1])
-    return charts.finish(charts.forest_chart(forest_rows(cox), style), style)
+    return charts.finish(charts_models.forest_chart(forest_rows(cox), style), style)
 
 
 def incidence_rows(result) -> pd.DataFrame:
@@ -362,7 +362,7 @@ def incidence_figure(prepared: PreparedData, settings: Mapping):
 def parametric_figure(prepared: PreparedData, settings: Mapping):
     """Fitted models over Kaplan–Meier (all rows), extrapolation dashed, for the report; None
     when the models were fitted per group (the tables hold those)."""
-    from app import charts, thinning
+    from app import charts, charts_models, thinning
     from engine.parametric import LABELS, fit_parametric
 
     chosen = {**ANALYSIS_DEFAULTS["parametric"], **(settings.get("parametric") or {})}
@@ -383,7 +383,7 @@ def parametric_figure(prepared: PreparedData, settings: Mapping):
     style = charts.ChartStyle(width=width, height=height).titled(
         "", f"Time ({unit})", "Survival probability"
     )
-    chart = charts.parametric_chart(
+    chart = charts_models.parametric_chart(
         km,
         fitted,
         style,

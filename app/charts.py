@@ -1,4 +1,6 @@
-"""Every Altair chart Hazel draws.
+"""Hazel's chart style and its curve charts: survival and cumulative-incidence steps, numbers at
+risk, and ``finish`` (the house configuration applied to any chart). Charts of models and their
+checks (forest, residuals, log(−log), parametric fits, power) are in ``app.charts_models``.
 
 Builders take tidy frames already computed by the engine (and thinned for drawing) plus a
 ``ChartStyle``, and return Altair charts; they never compute statistics. Smoothers drawn through
@@ -71,7 +73,8 @@ def group_colours(levels: Sequence[object]) -> dict[str, str]:
     return colours
 
 
-def _colour(field: str, colours: dict[str, str], levels: Sequence[str], title: str | None):
+def colour_encoding(field: str, colours: dict[str, str], levels: Sequence[str], title: str | None):
+    """A colour channel that keeps each level's colour whatever subset of levels is drawn."""
     domain = [str(level) for level in levels]
     return alt.Color(
         f"{field}:N",
@@ -168,7 +171,8 @@ def finish(chart: alt.TopLevelMixin, style: ChartStyle) -> dict:
     return spec
 
 
-def _title(style: ChartStyle) -> alt.TitleParams | str:
+def chart_title(style: ChartStyle) -> alt.TitleParams | str:
+    """The style's title, or none (an empty string, which Vega-Lite leaves out)."""
     return alt.TitleParams(style.title) if style.title else ""
 
 
@@ -218,7 +222,7 @@ def step_curve_chart(
         if align_with_table
         else alt.Axis(format=y_format)
     )
-    colour = _colour("group", colours, levels, legend_title if len(levels) > 1 else None)
+    colour = colour_encoding("group", colours, levels, legend_title if len(levels) > 1 else None)
     tooltip = [
         alt.Tooltip(f"{field}:{kind}", title=title, format=fmt)
         for field, kind, title, fmt in (
@@ -268,7 +272,7 @@ def step_curve_chart(
             ).properties(data=marks)
         )
     return alt.layer(*layers, data=data).properties(
-        width=style.width, height=style.height, title=_title(style)
+        width=style.width, height=style.height, title=chart_title(style)
     )
 
 
@@ -315,7 +319,7 @@ def at_risk_chart(
                 ),
             ),
             text=alt.Text("at_risk:Q", format=","),
-            color=_colour("group", colours, levels, None),
+            color=colour_encoding("group", colours, levels, None),
         )
         .properties(
             width=style.width,
@@ -337,132 +341,12 @@ def curve_with_risk_table(
     return (
         alt.vconcat(curve.properties(title=""), risk, spacing=14)
         .resolve_scale(color="shared")
-        .properties(title=_title(style))
+        .properties(title=chart_title(style))
     )
 
 
 # ---------------------------------------------------------------------------------------------
-# Regression
-
-
-def forest_chart(rows: pd.DataFrame, style: ChartStyle) -> alt.LayerChart:
-    """Hazard ratios with intervals on a log axis, one row per term, reference rows marked.
-
-    ``rows`` has columns label, hazard_ratio, lower, upper, is_reference and p_text (and n,
-    events for the tooltips, when known), in the order to draw from top to bottom.
-    """
-    data = rows.copy()
-    data["label"] = data["label"].astype(str)
-    order = list(data["label"])
-    finite = data.loc[~data["is_reference"], ["lower", "upper", "hazard_ratio"]]
-    finite = finite.stack()
-    finite = finite[(finite > 0) & finite.map(math.isfinite)]
-    lo = min(float(finite.min()) if len(finite) else 1.0, 1.0) / 1.25
-    hi = max(float(finite.max()) if len(finite) else 1.0, 1.0) * 1.25
-    x_scale = alt.Scale(type="log", domain=[lo, hi], nice=False)
-    y = alt.Y("label:N", sort=order, title=None, axis=alt.Axis(labelLimit=260, domain=False))
-    base = alt.Chart(data).encode(y=y)
-    terms = base.transform_filter("!datum.is_reference")
-    tooltip = [
-        alt.Tooltip("label:N", title="Term"),
-        alt.Tooltip("hazard_ratio:Q", title="Hazard ratio", format=".3f"),
-        alt.Tooltip("lower:Q", title="Interval from", format=".3f"),
-        alt.Tooltip("upper:Q", title="Interval to", format=".3f"),
-        alt.Tooltip("p_text:N", title="p"),
-    ]
-    tooltip += [
-        alt.Tooltip(f"{column}:Q", title=title, format=",")
-        for column, title in (("n", "Rows"), ("events", "Events"))
-        if column in data.columns
-    ]
-    one = alt.Chart(pd.DataFrame({"x": [1.0]})).mark_rule(color="#7A8585", strokeDash=[4, 3])
-    height = max(len(order) * (style.font_size + 14), 80)
-    return alt.layer(
-        one.encode(x=alt.X("x:Q", scale=x_scale)),
-        terms.mark_rule(color=ACCENT, strokeWidth=style.line_width).encode(
-            x=alt.X("lower:Q", scale=x_scale, title=style.x_title or "Hazard ratio (log scale)"),
-            x2="upper:Q",
-            tooltip=tooltip,
-        ),
-        terms.mark_point(
-            filled=True, shape="diamond", color=ACCENT, size=style.point_size * 3, opacity=1
-        ).encode(x=alt.X("hazard_ratio:Q", scale=x_scale), tooltip=tooltip),
-        base.transform_filter("datum.is_reference")
-        .mark_point(shape="circle", color="#7A8585", size=style.point_size * 2, filled=False)
-        .encode(x=alt.value(0), tooltip=[alt.Tooltip("label:N", title="Reference level")])
-        .encode(x=alt.X("hazard_ratio:Q", scale=x_scale)),
-    ).properties(width=style.width, height=height, title=_title(style))
-
-
-def residual_chart(
-    points: pd.DataFrame,
-    style: ChartStyle,
-    *,
-    x_title: str,
-    y_title: str,
-    x_log: bool = False,
-    zero_line: float | None = 0.0,
-) -> alt.LayerChart:
-    """Residuals (columns x, residual) as dots with a loess smoother drawn by Vega."""
-    x_scale = alt.Scale(type="log") if x_log else alt.Scale(zero=False)
-    x = alt.X("x:Q", title=style.x_title or x_title, scale=x_scale)
-    y = alt.Y("residual:Q", title=style.y_title or y_title)
-    base = alt.Chart(points).encode(x=x)
-    layers = [
-        base.mark_circle(size=style.point_size * 0.6, opacity=0.35, color="#5F6B6B").encode(
-            y=y,
-            tooltip=[
-                alt.Tooltip("x:Q", title=x_title, format=",.4~g"),
-                alt.Tooltip("residual:Q", title=y_title, format=".3f"),
-            ],
-        ),
-        base.transform_loess("x", "residual", bandwidth=0.5)
-        .mark_line(color=PALETTE[1], strokeWidth=style.line_width)
-        .encode(y="residual:Q"),
-    ]
-    if zero_line is not None:
-        layers.insert(
-            0,
-            alt.Chart(pd.DataFrame({"y": [zero_line]}))
-            .mark_rule(color="#7A8585", strokeDash=[4, 3])
-            .encode(y="y:Q"),
-        )
-    return alt.layer(*layers).properties(
-        width=style.width, height=int(style.height * 0.8), title=_title(style)
-    )
-
-
-def log_minus_log_chart(
-    lines: pd.DataFrame, style: ChartStyle, colours: dict[str, str], *, legend_title: str
-) -> alt.Chart:
-    """log(−log S) against log time per level (columns group, log_time, value): parallel lines
-    are what proportional hazards predicts."""
-    data = lines.assign(group=lines["group"].astype(str))
-    levels = list(dict.fromkeys(data["group"]))
-    return (
-        alt.Chart(data)
-        .mark_line(interpolate="step-after", strokeWidth=style.line_width)
-        .encode(
-            x=alt.X("log_time:Q", title=style.x_title or "log(time)", scale=alt.Scale(zero=False)),
-            y=alt.Y(
-                "value:Q", title=style.y_title or "log(−log survival)", scale=alt.Scale(zero=False)
-            ),
-            color=_colour("group", colours, levels, legend_title),
-            tooltip=[
-                alt.Tooltip("group:N", title=legend_title),
-                alt.Tooltip("log_time:Q", title="log(time)", format=".3f"),
-                alt.Tooltip("value:Q", title="log(−log S)", format=".3f"),
-            ],
-        )
-        .properties(width=style.width, height=int(style.height * 0.8), title=_title(style))
-    )
-
-
-# ---------------------------------------------------------------------------------------------
-# Beyond the basics: competing risks, parametric models, sample size and power
-# (appended block; builders reuse the step-curve builder where they can)
-
-EXTRAPOLATION_SHADE = "#F3EEE4"
+# Cumulative incidence (competing risks), drawn with the step-curve builder
 
 
 def incidence_chart(
@@ -499,7 +383,7 @@ def incidence_chart(
         .encode(
             x="time:Q",
             y=alt.Y("estimate:Q", scale=alt.Scale(domain=list(y_domain), nice=False)),
-            color=_colour("group", colours, levels, None),
+            color=colour_encoding("group", colours, levels, None),
             tooltip=[
                 alt.Tooltip("group:N", title="Series"),
                 alt.Tooltip("time:Q", title="Time", format=",.4~g"),
@@ -508,126 +392,5 @@ def incidence_chart(
         )
     )
     return alt.layer(curves, km).properties(
-        width=style.width, height=style.height, title=_title(style)
-    )
-
-
-def parametric_chart(
-    km: pd.DataFrame,
-    fitted: pd.DataFrame,
-    style: ChartStyle,
-    *,
-    max_time: float,
-    x_max: float,
-) -> alt.LayerChart:
-    """Fitted survival of each model over the Kaplan–Meier steps (dark grey). Past ``max_time``
-    (the last observed time) the fitted lines are dashed over a shaded band labelled as
-    extrapolation: they rest on the model's shape, not on data.
-
-    ``km`` has time, estimate; ``fitted`` has distribution, time, survival, extrapolated.
-    """
-    names = list(dict.fromkeys(fitted["distribution"].astype(str)))
-    colours = {name: PALETTE[i % len(PALETTE)] for i, name in enumerate(names)}
-    x = alt.X(
-        "time:Q",
-        title=style.x_title or "Time",
-        scale=alt.Scale(domain=[0, x_max], nice=False, zero=True),
-    )
-    y_scale = alt.Scale(domain=[0, 1], nice=False)
-    colour = _colour("distribution", colours, names, "Model")
-    data = fitted.assign(distribution=fitted["distribution"].astype(str))
-    inside = data.loc[~data["extrapolated"]]
-    # the dashed part starts at the last point inside follow-up, so the line does not break
-    last_inside = inside.groupby("distribution", sort=False).tail(1)
-    beyond = pd.concat([last_inside, data.loc[data["extrapolated"]]], ignore_index=True)
-    tooltip = [
-        alt.Tooltip("distribution:N", title="Model"),
-        alt.Tooltip("time:Q", title="Time", format=",.4~g"),
-        alt.Tooltip("survival:Q", title="Fitted survival", format=".3f"),
-    ]
-    layers = []
-    if x_max > max_time:
-        shade = pd.DataFrame({"start": [max_time], "end": [x_max], "label": ["extrapolation"]})
-        layers.append(
-            alt.Chart(shade).mark_rect(color=EXTRAPOLATION_SHADE).encode(x="start:Q", x2="end:Q")
-        )
-        layers.append(
-            alt.Chart(shade)
-            .mark_text(align="left", dx=6, dy=12, color="#7A6A4F", fontSize=style.font_size)
-            .encode(x="start:Q", y=alt.value(0), text="label:N")
-        )
-    layers.append(
-        alt.Chart(km)
-        .mark_line(interpolate="step-after", color=INK, strokeWidth=style.line_width * 0.75)
-        .encode(
-            x=x,
-            y=alt.Y("estimate:Q", title=style.y_title or "Survival probability", scale=y_scale),
-            tooltip=[
-                alt.Tooltip("time:Q", title="Time", format=",.4~g"),
-                alt.Tooltip("estimate:Q", title="Kaplan–Meier", format=".3f"),
-            ],
-        )
-    )
-    layers.append(
-        alt.Chart(inside)
-        .mark_line(strokeWidth=style.line_width, clip=True)
-        .encode(x=x, y=alt.Y("survival:Q", scale=y_scale), color=colour, tooltip=tooltip)
-    )
-    if not data["extrapolated"].any():
-        return alt.layer(*layers).properties(
-            width=style.width, height=style.height, title=_title(style)
-        )
-    layers.append(
-        alt.Chart(beyond)
-        .mark_line(strokeWidth=style.line_width, strokeDash=[6, 4], clip=True)
-        .encode(x=x, y=alt.Y("survival:Q", scale=y_scale), color=colour, tooltip=tooltip)
-    )
-    return alt.layer(*layers).properties(
-        width=style.width, height=style.height, title=_title(style)
-    )
-
-
-def power_chart(
-    curve: pd.DataFrame, style: ChartStyle, *, target_hr: float | None, target_power: float
-) -> alt.LayerChart:
-    """Power against the hazard ratio (columns method, hazard_ratio, power), one line per
-    formula, with the target power as a dashed rule and the target hazard ratio marked."""
-    names = list(dict.fromkeys(curve["method"].astype(str)))
-    colours = {name: PALETTE[i % len(PALETTE)] for i, name in enumerate(names)}
-    data = curve.assign(method=curve["method"].astype(str))
-    # a line per side of HR = 1 (power is not defined at 1), so the line does not bridge it
-    data = data.assign(side=(data["hazard_ratio"] > 1).map({True: "above", False: "below"}))
-    x = alt.X(
-        "hazard_ratio:Q",
-        title=style.x_title or "Hazard ratio to detect",
-        scale=alt.Scale(type="log", nice=False),
-        axis=alt.Axis(values=[0.4, 0.5, 0.6, 0.7, 0.8, 0.9, 1.0, 1.25, 1.5, 2.0, 2.5]),
-    )
-    y = alt.Y("power:Q", title=style.y_title or "Power", scale=alt.Scale(domain=[0, 1]))
-    layers = [
-        alt.Chart(data)
-        .mark_line(strokeWidth=style.line_width)
-        .encode(
-            x=x,
-            y=y,
-            color=_colour("method", colours, names, "Formula"),
-            detail="side:N",
-            tooltip=[
-                alt.Tooltip("method:N", title="Formula"),
-                alt.Tooltip("hazard_ratio:Q", title="Hazard ratio", format=".2f"),
-                alt.Tooltip("power:Q", title="Power", format=".3f"),
-            ],
-        ),
-        alt.Chart(pd.DataFrame({"power": [target_power]}))
-        .mark_rule(color="#7A8585", strokeDash=[4, 3])
-        .encode(y="power:Q"),
-    ]
-    if target_hr is not None:
-        layers.append(
-            alt.Chart(pd.DataFrame({"hazard_ratio": [target_hr]}))
-            .mark_rule(color=ACCENT, strokeDash=[2, 2])
-            .encode(x=alt.X("hazard_ratio:Q", scale=alt.Scale(type="log", nice=False)))
-        )
-    return alt.layer(*layers).properties(
-        width=style.width, height=int(style.height * 0.8), title=_title(style)
+        width=style.width, height=style.height, title=chart_title(style)
     )

@@ -7,7 +7,7 @@ from __future__ import annotations
 import pandas as pd
 import streamlit as st
 
-from app import charts, compute, compute_beyond, data, ui
+from app import charts, charts_models, compute, compute_beyond, data, ui
 from engine.parametric import DISTRIBUTIONS, LABELS
 from engine.wording import format_percent
 
@@ -130,7 +130,7 @@ with ui.guard("The parametric fits"):
     fitted = fitted.assign(distribution=fitted["distribution"].map(LABELS))
     group_max = float(km["time"].max()) if len(km) else last_time
     x_max = float(fitted["time"].max())
-    chart = charts.parametric_chart(km, fitted, style, max_time=group_max, x_max=x_max)
+    chart = charts_models.parametric_chart(km, fitted, style, max_time=group_max, x_max=x_max)
     ui.figure(chart, style, "parametric-fits", "param_figure")
 
     st.subheader("Median and survival at the chosen times", anchor=False)

@@ -6,7 +6,7 @@ from __future__ import annotations
 import pandas as pd
 import streamlit as st
 
-from app import charts, compute, data, thinning, ui
+from app import charts, charts_models, compute, data, thinning, ui
 from engine.errors import HazelError
 
 TIES = {"Efron (default)": "efron", "Breslow": "breslow"}
@@ -233,7 +233,9 @@ with tabs[0], ui.guard("The hazard-ratio table"):
         "model_forest", "Hazard ratios", "Hazard ratio (log scale)", ""
     )
     fstyle = style.titled(title, x_title, "")
-    ui.figure(charts.forest_chart(rows, fstyle), fstyle, "forest-plot", "model_forest_figure")
+    ui.figure(
+        charts_models.forest_chart(rows, fstyle), fstyle, "forest-plot", "model_forest_figure"
+    )
     st.caption(
         "A hazard ratio above 1 means a higher hazard (the event tends to come sooner); below 1, "
         "a lower hazard. Each holds the other covariates fixed."
@@ -346,7 +348,7 @@ with tabs[3], ui.guard("The proportional-hazards check"):
         f"Time ({PH_SCALE_NAMES[transform]})",
         "β(t) for this term",
     )
-    chart = charts.residual_chart(
+    chart = charts_models.residual_chart(
         points, rstyle, x_title=rstyle.x_title, y_title=rstyle.y_title, zero_line=coefficient
     )
     ui.figure(chart, rstyle, "schoenfeld-residuals", "model_ph_figure")
@@ -377,7 +379,7 @@ with tabs[4], ui.guard("The functional-form check"):
             variable,
             "Martingale residual (null model)",
         )
-        chart = charts.residual_chart(
+        chart = charts_models.residual_chart(
             points, mstyle, x_title=mstyle.x_title, y_title=mstyle.y_title, zero_line=None
         )
         ui.figure(chart, mstyle, "martingale-residuals", "model_mart_figure")
@@ -403,7 +405,7 @@ with tabs[4], ui.guard("The functional-form check"):
             "log(time)",
             "log(−log survival)",
         )
-        chart = charts.log_minus_log_chart(
+        chart = charts_models.log_minus_log_chart(
             lines, lstyle, charts.group_colours(levels), legend_title=variable
         )
         ui.figure(chart, lstyle, "log-minus-log", "model_lml_figure")

@@ -6,7 +6,7 @@ from __future__ import annotations
 import pandas as pd
 import streamlit as st
 
-from app import charts, ui
+from app import charts_models, ui
 from engine.errors import HazelError
 from engine.sample_size import METHODS, events_needed, power_curve, power_for_events
 
@@ -122,7 +122,7 @@ with ui.guard("The power"):
         style, "power_plot", f"Power with {given:,.0f} events", "Hazard ratio to detect", "Power"
     )
     data = curve.to_frame().assign(method=lambda f: f["method"].map(NAMES))
-    chart = charts.power_chart(data, style, target_hr=hr, target_power=power)
+    chart = charts_models.power_chart(data, style, target_hr=hr, target_power=power)
     ui.figure(chart, style, "power-curve", "power_figure")
     st.caption(
         "Dashed: the power wanted (horizontal) and the hazard ratio to detect (vertical). Both "

@@ -7,7 +7,7 @@ import pandas as pd
 import pytest
 from altair.vegalite.v6.schema.core import Root
 
-from app import charts, exports
+from app import charts, charts_models, exports
 
 STYLE = charts.ChartStyle()
 
@@ -154,7 +154,7 @@ def test_forest_plot_uses_a_log_axis_and_marks_reference_rows():
             "p_text": ["0.01", "reference", "0.02"],
         }
     )
-    spec = charts.forest_chart(rows, STYLE).to_dict()
+    spec = charts_models.forest_chart(rows, STYLE).to_dict()
     scales = [
         layer["encoding"]["x"]["scale"]["type"]
         for layer in spec["layer"]
@@ -168,7 +168,7 @@ def test_forest_plot_uses_a_log_axis_and_marks_reference_rows():
 
 def test_residual_plot_has_dots_and_a_loess_smoother():
     points = pd.DataFrame({"x": np.linspace(0, 1, 30), "residual": np.sin(np.linspace(0, 3, 30))})
-    spec = charts.residual_chart(points, STYLE, x_title="time", y_title="residual").to_dict()
+    spec = charts_models.residual_chart(points, STYLE, x_title="time", y_title="residual").to_dict()
     loess = [t for layer in spec["layer"] for t in layer.get("transform", []) if "loess" in t]
     assert loess == [{"loess": "residual", "on": "x", "bandwidth": 0.5}]
     assert spec["layer"][0]["mark"]["type"] == "rule"
@@ -178,7 +178,7 @@ def test_log_minus_log_chart_draws_one_line_per_level():
     lines = pd.DataFrame(
         {"group": ["a", "a", "b", "b"], "log_time": [0, 1, 0, 1], "value": [-2, -1, -1.5, -0.5]}
     )
-    spec = charts.log_minus_log_chart(
+    spec = charts_models.log_minus_log_chart(
         lines, STYLE, charts.group_colours(["a", "b"]), legend_title="diet"
     ).to_dict()
     assert spec["encoding"]["color"]["field"] == "group"

@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from app import charts
+from app import charts, charts_models
 
 STYLE = charts.ChartStyle(width=300, height=200)
 
@@ -87,7 +87,7 @@ def test_parametric_chart_dashes_and_shades_only_the_extrapolation():
     )
     km = pd.DataFrame({"time": [0.0, 4.0, 10.0], "estimate": [1.0, 0.8, 0.6]})
     spec = charts.finish(
-        charts.parametric_chart(km, fitted, STYLE, max_time=10.0, x_max=20.0), STYLE
+        charts_models.parametric_chart(km, fitted, STYLE, max_time=10.0, x_max=20.0), STYLE
     )
     layers = _layers(spec)
     shade = next(layer for layer in layers if _mark(layer)["type"] == "rect")
@@ -113,7 +113,9 @@ def test_parametric_chart_within_follow_up_has_no_extrapolation_marks():
          "extrapolated": [False, False]}
     )  # fmt: skip
     km = pd.DataFrame({"time": [0.0, 5.0], "estimate": [1.0, 0.7]})
-    spec = charts.finish(charts.parametric_chart(km, fitted, STYLE, max_time=5.0, x_max=5.0), STYLE)
+    spec = charts.finish(
+        charts_models.parametric_chart(km, fitted, STYLE, max_time=5.0, x_max=5.0), STYLE
+    )
     types = [_mark(layer)["type"] for layer in _layers(spec)]
     assert "rect" not in types and not any(_mark(x).get("strokeDash") for x in _layers(spec))
 
@@ -126,7 +128,9 @@ def test_power_chart_lines_per_formula_and_side_with_target_rules():
             "power": [0.9, 0.1, 0.1, 0.9, 0.88, 0.1, 0.1, 0.87],
         }
     )
-    spec = charts.finish(charts.power_chart(curve, STYLE, target_hr=0.7, target_power=0.8), STYLE)
+    spec = charts.finish(
+        charts_models.power_chart(curve, STYLE, target_hr=0.7, target_power=0.8), STYLE
+    )
     layers = _layers(spec)
     line = next(layer for layer in layers if _mark(layer)["type"] == "line")
     assert line["encoding"]["detail"]["field"] == "side"
