@@ -1,7 +1,8 @@
 """Command line: ``python -m app``. Imports no user-interface library.
 
 ``check`` reads a file, applies the roles given as options and reports what the data checks found.
-The pieces (role options, loading, JSON output) are shared with later subcommands.
+The pieces (role options, loading, JSON output) are shared with later subcommands; the text
+summaries printed to the shell are written by ``app.cli_text``.
 """
 
 from __future__ import annotations
@@ -11,6 +12,7 @@ import json
 import sys
 from pathlib import Path
 
+from app.cli_text import analysis_summary, data_summary
 from engine.analysis import ANALYSIS_DEFAULTS
 from engine.analysis import run_analysis as run_engine_analysis
 from engine.checks import PreparedData, prepare
@@ -238,39 +240,6 @@ def write_json(sections: dict, out: str) -> None:
         raise UsageError(f"cannot write {out}: {exc.strerror or exc}") from None
 
 
-def data_summary(table: ImportedTable, prepared: PreparedData) -> str:
-    """A readable summary of the import and the data checks."""
-    report = prepared.report
-    roles = prepared.roles
-    options = table.options
-    lines = [f"File: {table.source_name} ({table.file_format}, sha256 {table.sha256[:12]}...)"]
-    if table.file_format == "csv":
-        lines.append(
-            f"Read with separator {options.sep!r}, decimal {options.decimal!r}, "
-            f"encoding {options.encoding}" + ("" if table.confident else " (detection unsure)")
-        )
-    lines += [f"  note: {note}" for note in table.notes]
-    time = roles.time or f"{roles.start} -> {roles.end}"
-    lines.append(f"Time: {time} (reported in {report.time_unit})")
-    if report.event_coding is not None:
-        lines.append(f"Event: {report.event_coding.describe()}")
-    lines.append(
-        f"Rows read {report.rows_read}, used {report.rows_used}: "
-        f"{report.events} events, {report.censored} censored"
-    )
-    for reason, rows in report.excluded:
-        lines.append(f"  excluded: {rows} row(s), {reason}")
-    if roles.group:
-        lines.append(f"By {roles.group}:")
-        for _, row in report.group_counts.iterrows():
-            lines.append(
-                f"  {row['group']!s:<20} n={row['n']:<7} events={row['events']:<7} "
-                f"censored={row['censored']}"
-            )
-    lines += [f"Warning: {warning}" for warning in report.warnings]
-    return "\n".join(lines)
-
-
 def run_check(args: argparse.Namespace) -> int:
     table, prepared = load_prepared(args)
     if args.json != "-":
@@ -337,100 +306,6 @@ def settings_from_args(args: argparse.Namespace, base: dict | None = None) -> di
 def run_analysis(imported: ImportedTable, prepared: PreparedData, settings: dict) -> dict:
     """The JSON sections (without "schema") for one data set and its settings."""
     return run_engine_analysis(prepared, settings)
-
-
-def _fmt(value, digits: int = 3) -> str:
-    return "n/a" if value is None else f"{value:.{digits}g}" if digits else str(value)
-
-
-def analysis_summary(sections: dict, unit: str) -> str:
-    """A readable summary of the curves, comparison and Cox sections."""
-    lines = ["", f"Survival ({unit}):"]
-    for curve in sections["curves"]:
-        label = "all rows" if curve["group"] is None else curve["group"]
-        median = curve["median"]
-        text = (
-            f"  {label!s:<20} n={curve['n']:<7} events={curve['events']:<7} "
-            f"median {_fmt(median['estimate'], 4)} "
-            f"({_fmt(median['lower'], 4)} to {_fmt(median['upper'], 4)})"
-        )
-        for point in curve["at_times"]:
-            text += f"; S({point['time']:g})={_fmt(point['survival'])}"
-        lines.append(text)
-    comparison = sections["comparison"]
-    if comparison is not None:
-        lines.append(
-            f"{comparison['test']}: chi-square {comparison['statistic']:.2f} on "
-            f"{comparison['df']} df, p = {comparison['p_value']:.3g}"
-        )
-    cox = sections["cox"]
-    if cox is not None:
-        lines.append(f"Cox model ({cox['ties']} ties): n={cox['n']}, events={cox['events']}")
-        for term in cox["terms"]:
-            name = term["variable"] + (f"={term['level']}" if term["level"] is not None else "")
-            lines.append(
-                f"  {name:<28} HR {_fmt(term['hazard_ratio'])} "
-                f"({_fmt(term['lower'])} to {_fmt(term['upper'])}), p = {_fmt(term['p_value'])}"
-            )
-        lr = cox["likelihood_ratio"]
-        lines.append(
-            f"  likelihood ratio {lr['statistic']:.2f} on {lr['df']} df, "
-            f"p = {lr['p_value']:.3g}; concordance {_fmt(cox['concordance'])}"
-        )
-        lines += [f"  Warning: {warning}" for warning in cox["warnings"]]
-    lines += extra_summary(sections, unit)
-    return "\n".join(lines)
-
-
-def extra_summary(sections: dict, unit: str) -> list[str]:
-    """Short lines for the optional sections (the JSON and the report hold everything)."""
-    lines = []
-    competing = sections.get("competing")
-    if competing:
-        lines.append("Cumulative incidence at the end of follow-up (Aalen–Johansen):")
-        for row in competing["at_end"]:
-            label = "all rows" if row["group"] is None else row["group"]
-            lines.append(
-                f"  {label!s:<20} {row['cause']!s:<12} {_fmt(row['cumulative_incidence'])} "
-                f"({_fmt(row['lower'])} to {_fmt(row['upper'])}) at {_fmt(row['time'], 4)}"
-            )
-        if competing["warning"]:
-            lines.append(f"  Note: {competing['warning']}")
-    parametric = sections.get("parametric")
-    if parametric:
-        lines.append("Parametric models by AIC (lower is better):")
-        for row in parametric["aic_table"]:
-            label = "" if row["group"] is None else f"{row['group']}: "
-            lines.append(
-                f"  {label}{row['distribution']:<12} AIC {row['aic']:.2f} "
-                f"(Δ {row['delta_aic']:.2f})"
-            )
-    size = sections.get("sample_size")
-    if size:
-        for row in size["needed"]:
-            lines.append(
-                f"{row['method'].capitalize()}: {row['events']} events, {row['subjects']} "
-                f"subjects for HR {row['hazard_ratio']:g} (power {row['power']:g}, "
-                f"alpha {row['alpha']:g})"
-            )
-        for row in size["power"] or ():
-            lines.append(
-                f"{row['method'].capitalize()}: power {row['power']:.3f} with "
-                f"{row['events']:g} events"
-            )
-    landmark = sections.get("landmark")
-    if landmark:
-        lines.append(
-            f"Landmark at {landmark['landmark']:g} {unit}: {landmark['n_kept']} kept, "
-            f"{landmark['n_excluded']} excluded (event or censored before, or entered after)"
-        )
-        comparison = landmark["comparison"]
-        if comparison is not None:
-            lines.append(
-                f"  {comparison['test']}: chi-square {comparison['statistic']:.2f} on "
-                f"{comparison['df']} df, p = {comparison['p_value']:.3g}"
-            )
-    return lines
 
 
 # Options that set roles or import options: a recipe brings its own, so they cannot be mixed.
