@@ -58,6 +58,12 @@ class RecipeRun:
     def __iter__(self) -> Iterator:
         return iter((self.imported, self.prepared, self.settings, self.warnings))
 
+    @property
+    def source(self) -> pd.DataFrame:
+        """The rows the filters kept, as read: the frame ``prepare`` was given (a comparison
+        cut or a strata column is read from it)."""
+        return self.filtered.frame
+
 
 def read_recipe(path: str | Path) -> Recipe:
     """A recipe file, or a RecipeError naming the file."""

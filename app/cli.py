@@ -303,9 +303,12 @@ def settings_from_args(args: argparse.Namespace, base: dict | None = None) -> di
     return settings
 
 
-def run_analysis(imported: ImportedTable, prepared: PreparedData, settings: dict) -> dict:
-    """The JSON sections (without "schema") for one data set and its settings."""
-    return run_engine_analysis(prepared, settings)
+def run_analysis(
+    imported: ImportedTable, prepared: PreparedData, settings: dict, source=None
+) -> dict:
+    """The JSON sections (without "schema") for one data set and its settings; ``source`` is
+    the frame ``prepare`` was given (the table's own frame unless filters cut it down)."""
+    return run_engine_analysis(prepared, settings, imported.frame if source is None else source)
 
 
 # Options that set roles or import options: a recipe brings its own, so they cannot be mixed.
@@ -330,7 +333,7 @@ def causes_from_args(args: argparse.Namespace) -> tuple[tuple[str, str], ...]:
 def run_analyze(args: argparse.Namespace) -> int:
     from app.batch import load_recipe_run
 
-    filtered, warnings = None, []
+    filtered, warnings, source = None, [], None
     if args.recipe:
         given = [
             name for name in ROLE_OPTIONS if getattr(args, name, None) not in (None, [], False)
@@ -343,6 +346,7 @@ def run_analyze(args: argparse.Namespace) -> int:
             )
         run = load_recipe_run(args.recipe, args.data)
         table, prepared, filtered, warnings = run.imported, run.prepared, run.filtered, run.warnings
+        source = run.source
         settings = settings_from_args(args, base=run.settings)
         for warning in warnings:
             print(f"warning: {' '.join(warning.split())}", file=sys.stderr)
@@ -352,7 +356,7 @@ def run_analyze(args: argparse.Namespace) -> int:
             args.event_causes = causes
         table, prepared = load_prepared(args)
         settings = settings_from_args(args)
-    sections = run_analysis(table, prepared, settings)
+    sections = run_analysis(table, prepared, settings, source)
     if filtered is not None and filtered.excluded:
         sections["filters"] = filtered.to_dict()
     if args.json != "-":

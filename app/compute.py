@@ -14,7 +14,6 @@ import streamlit as st
 
 from app import charts, data, thinning
 from app.batch import HAZARD, INCIDENCE, SURVIVAL, censoring_marks, curve_rows
-from engine.columns import cut_at_quantiles
 from engine.curves import CurveSet, curves_by_group, nelson_aalen
 from engine.io import ImportedTable
 from engine.risk_table import without_missing
@@ -175,21 +174,18 @@ def comparison_frame(
     table: ImportedTable,
 ) -> pd.DataFrame:
     """The prepared frame with ``_group`` set for the comparison and ``_strata`` if asked
-    (rows without a group or stratum still in: the engine leaves them out and counts them).
+    (``engine.analysis.comparison_frame``, the one the recipe replay uses).
 
     ``grouping`` is ("role",) for the group role, or ("cut", column, k) for a numeric column cut
     at its quantiles into k groups of about equal size (``engine.columns.cut_at_quantiles``).
     """
-    frame = _frame(fingerprint, roles_text, table)
-    out = frame[[c for c in ("_time", "_event", "_entry") if c in frame.columns]].copy()
-    if grouping[0] == "cut":
-        _, column, k = grouping
-        out["_group"] = cut_at_quantiles(table.frame.loc[frame.index, column], k, column)
-    else:
-        out["_group"] = frame["_group"]
-    if strata_column:
-        out["_strata"] = table.frame.loc[frame.index, strata_column].astype("category")
-    return out
+    from engine.analysis import comparison_frame as engine_comparison_frame
+
+    prepared = data.prepared_by_key(fingerprint, roles_text, table)
+    cut = {"column": grouping[1], "groups": int(grouping[2])} if grouping[0] == "cut" else None
+    return engine_comparison_frame(
+        prepared, cut=cut, strata=strata_column or False, source=table.frame
+    )
 
 
 def _complete(frame: pd.DataFrame) -> pd.DataFrame:
@@ -314,43 +310,30 @@ def group_levels(
 
 # --- Cox regression -------------------------------------------------------------------------
 
-MODEL_STRATA = "_model_strata"
-
-
-def model_frame(
-    fingerprint: str, roles_text: str, strata_column: str | None, table: ImportedTable
-) -> pd.DataFrame:
-    """The prepared frame, with the chosen strata column added when it is not the strata role."""
-    frame = _frame(fingerprint, roles_text, table)
-    if strata_column is None:
-        return frame
-    out = frame.copy()
-    out[MODEL_STRATA] = table.frame.loc[frame.index, strata_column].to_numpy()
-    return out
-
 
 @st.cache_resource(max_entries=8, show_spinner="Fitting the Cox model…")
 def cox_model(
     fingerprint: str,
     roles_text: str,
     covariates: tuple[str, ...],
-    categorical: tuple[str, ...],
     reference: tuple[tuple[str, str], ...],
     strata_column: str | None,
     ties: str,
     _table: ImportedTable,
 ):
-    from engine.cox import fit_cox
+    """The model builder's Cox model (``engine.analysis.fit_cox_from_roles``, as the recipe
+    replay fits it); the roles have no strata here (``data.model_roles``), so the page's
+    strata column is the only one."""
+    from engine.analysis import fit_cox_from_roles
 
-    frame = model_frame(fingerprint, roles_text, strata_column, _table)
-    return fit_cox(
-        frame,
-        list(covariates),
-        categorical=list(categorical),
-        reference=dict(reference) or None,
-        strata=MODEL_STRATA if strata_column else None,
+    return fit_cox_from_roles(
+        data.prepared_by_key(fingerprint, roles_text, _table),
         ties=ties,
-        entry="_entry" if "_entry" in frame.columns else None,
+        confidence=0.95,
+        covariates=covariates,
+        reference=reference,
+        strata=strata_column or False,
+        source=_table.frame,
     )
 
 

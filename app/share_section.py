@@ -39,6 +39,75 @@ PH_LABELS = {
     "identity": "time itself",
     "log": "log time",
 }
+# Choices of the Group comparison and Regression pages that are not plain widget values: the
+# groups compared (the group role or a numeric column cut at quantiles), the strata, the model's
+# covariates and reference levels. The pages use these labels.
+ROLE_SOURCE, CUT_SOURCE = "The group column", "A numeric column cut at quantiles"
+NO_COMPARE_STRATA, NO_MODEL_STRATA = "(no stratification)", "(no strata)"
+CUT_GROUPS = (2, 3, 4, 5)  # the numbers of groups the comparison page offers
+REFERENCE_PREFIX = "model_reference_"  # + covariate name: the model's reference level
+
+
+def _strata_setting(choice, none_label: str, role_strata: str | None):
+    """None while the page shows the strata role, False for none instead, else the column."""
+    if choice == none_label:
+        return False if role_strata else None
+    return None if choice == role_strata else str(choice)
+
+
+def _strata_widget(strata, none_label: str):
+    """The page's choice for a strata setting other than None (the page's own default)."""
+    return none_label if strata is False or strata == "" else str(strata)
+
+
+def _page_choices(session: MutableMapping, roles: Roles, settings: dict) -> None:
+    """Add the comparison's grouping and strata and the model's covariates, strata and
+    reference levels, as their pages show them, to ``settings``."""
+    comparison, cox = settings.get("comparison"), settings.get("cox")
+    if comparison is not None:
+        if session.get("compare_source") == CUT_SOURCE and session.get("compare_cut_column"):
+            groups = int(session.get("compare_cut_k") or CUT_GROUPS[0])
+            comparison["cut"] = {"column": str(session["compare_cut_column"]), "groups": groups}
+        if "compare_strata" in session:
+            comparison["strata"] = _strata_setting(
+                session["compare_strata"], NO_COMPARE_STRATA, roles.strata
+            )
+    if cox is not None:
+        if "model_covariates" in session:
+            chosen = [str(c) for c in session["model_covariates"] if c in roles.covariates]
+            cox["covariates"] = None if chosen == list(roles.covariates) else chosen
+        if "model_strata" in session:
+            cox["strata"] = _strata_setting(session["model_strata"], NO_MODEL_STRATA, roles.strata)
+        model = roles.covariates if cox["covariates"] is None else cox["covariates"]
+        changed = [
+            [column, str(session[REFERENCE_PREFIX + column])]
+            for column in model
+            if REFERENCE_PREFIX + column in session
+            and str(session[REFERENCE_PREFIX + column]) != str(roles.reference_for(column))
+        ]
+        cox["reference"] = changed or None
+
+
+def _restore_page_choices(session: MutableMapping, roles: Roles, settings: dict) -> None:
+    """The inverse of ``_page_choices``: a setting left at None keeps the page's default."""
+    comparison, cox = settings.get("comparison") or {}, settings.get("cox") or {}
+    cut = comparison.get("cut")
+    if cut and int(cut.get("groups", 0)) in CUT_GROUPS:
+        session["compare_source"] = CUT_SOURCE
+        session["compare_cut_column"] = str(cut["column"])
+        session["compare_cut_k"] = int(cut["groups"])
+    elif roles.group:
+        session["compare_source"] = ROLE_SOURCE
+    if comparison.get("strata") is not None:
+        session["compare_strata"] = _strata_widget(comparison["strata"], NO_COMPARE_STRATA)
+    if cox.get("covariates") is not None:
+        session["model_covariates"] = [str(c) for c in cox["covariates"] if c in roles.covariates]
+    if cox.get("strata") is not None:
+        session["model_strata"] = _strata_widget(cox["strata"], NO_MODEL_STRATA)
+    for column, level in cox.get("reference") or ():
+        session[REFERENCE_PREFIX + str(column)] = str(level)
+
+
 # An optional analysis goes into the recipe (and the report) while its page's switch is on.
 INCLUDE_KEYS = {
     "competing": "cr_include",
@@ -136,10 +205,10 @@ WIDGETS = (
 
 
 def analyses_in_use(roles: Roles, session: MutableMapping | None = None) -> list[str]:
-    """Curves always; a comparison with a group; a Cox model with covariates; and each optional
-    analysis whose page has its "include" switch on."""
+    """Curves always; a comparison with a group (or a cut); a Cox model with covariates; and
+    each optional analysis whose page has its "include" switch on."""
     names = ["curves"]
-    if roles.group:
+    if roles.group or (session is not None and session.get("compare_source") == CUT_SOURCE):
         names.append("comparison")
     if roles.covariates:
         names.append("cox")
@@ -158,6 +227,7 @@ def settings_from_session(session: MutableMapping, roles: Roles) -> dict:
                 settings[widget.analysis][widget.setting] = widget.from_widget(session[widget.key])
             except (TypeError, ValueError):
                 continue  # a widget value the page has not finished typing keeps the default
+    _page_choices(session, roles, settings)
     return settings
 
 
@@ -234,6 +304,7 @@ def restore_recipe(session: MutableMapping, recipe: Recipe) -> list[str]:
         values = settings.get(widget.analysis, {})
         if widget.setting in values and values[widget.setting] is not None:
             session[widget.key] = widget.to_widget(values[widget.setting])
+    _restore_page_choices(session, roles, settings)
     return warnings
 
 
@@ -254,8 +325,8 @@ def render_share_section(
 ) -> None:
     """Download the recipe, restore from one, download the report.
 
-    ``run_analysis(imported, prepared, settings) -> dict`` makes the JSON sections the report
-    shows (``app.cli.run_analysis`` by default).
+    ``run_analysis(imported, prepared, settings, source) -> dict`` makes the JSON sections the
+    report shows (``app.cli.run_analysis`` by default; ``source`` is the frame the filters kept).
     """
     st.subheader("Share and replay", anchor=False)
     recipe = recipe_from_session(st.session_state)
@@ -328,7 +399,7 @@ def _report_download(column, recipe, table, run_analysis, report_builder) -> Non
     try:
         # the recipe's own path (filters, roles, checks), so the report equals a CLI replay
         run = apply_recipe(recipe, table)
-        results = run_analysis(run.imported, run.prepared, run.settings)
+        results = run_analysis(run.imported, run.prepared, run.settings, run.source)
         html_text = report_builder(
             results,
             run.settings,
@@ -411,4 +482,5 @@ def recipe_text(recipe_json: str, fingerprint: str, _table) -> str:
     from engine.analysis import run_analysis
 
     run = apply_recipe(Recipe.from_json(recipe_json), _table)
-    return "\n".join(analysis_text(run_analysis(run.prepared, run.settings), run.settings))
+    sections = run_analysis(run.prepared, run.settings, run.source)
+    return "\n".join(analysis_text(sections, run.settings))

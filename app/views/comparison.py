@@ -7,6 +7,7 @@ import pandas as pd
 import streamlit as st
 
 from app import charts, compute, data, ui
+from app.share_section import CUT_GROUPS, CUT_SOURCE, NO_COMPARE_STRATA, ROLE_SOURCE
 from engine.compare import TESTS
 
 TEST_LABELS = {
@@ -16,7 +17,7 @@ TEST_LABELS = {
     "peto-peto": "Peto–Peto (weights from the pooled survival)",
     "fleming-harrington": "Fleming–Harrington (choose ρ and γ)",
 }
-ROLE, CUT = "The group column", "A numeric column cut at quantiles"
+ROLE, CUT = ROLE_SOURCE, CUT_SOURCE  # labels the recipe (app.share_section) reads back
 ADJUST = {"Holm (family-wise error)": "p_holm", "Benjamini–Hochberg (false discovery rate)": "p_bh"}
 LEVEL = 0.05  # conventional 5% level used for the plain-language reading
 
@@ -55,7 +56,7 @@ if source == CUT:
         column = st.selectbox("Numeric column", numeric, key="compare_cut_column")
         ui.remember("compare_cut_k", 2)
         k = st.select_slider(
-            "Number of groups of about equal size", [2, 3, 4, 5], key="compare_cut_k"
+            "Number of groups of about equal size", list(CUT_GROUPS), key="compare_cut_k"
         )
         st.warning(
             "Decide the number of groups before looking at the results. Trying cut after cut and "
@@ -82,7 +83,7 @@ with st.container(border=True):
         gamma = cols[2].number_input(
             "γ (weight on late times)", 0.0, 5.0, 1.0, 0.5, key="compare_gamma"
         )
-    strata_options = ["(no stratification)"] + [
+    strata_options = [NO_COMPARE_STRATA] + [
         str(c)
         for c in frame.columns
         if frame[c].nunique() <= 20 and str(c) not in (roles.time, roles.event, roles.group)

@@ -7,6 +7,7 @@ import pandas as pd
 import streamlit as st
 
 from app import charts, charts_models, compute, data, thinning, ui
+from app.share_section import NO_MODEL_STRATA, REFERENCE_PREFIX
 from engine.errors import HazelError
 
 TIES = {"Efron (default)": "efron", "Breslow": "breslow"}
@@ -22,7 +23,7 @@ PH_SCALE_NAMES = {
     "identity": "as recorded",
     "log": "log scale",
 }
-NO_STRATA = "(no strata)"
+NO_STRATA = NO_MODEL_STRATA  # labels and keys the recipe (app.share_section) reads back
 EACH_LEVEL, MY_PROFILES = "Each level of one covariate", "Profiles I set"
 CUSTOM_PROFILES = "shared_model_custom_profiles"  # covariates -> [(name, ((column, value), ...))]
 DOT_LIMIT = 4000  # dots drawn in a residual plot; beyond this a seeded sample is drawn
@@ -62,11 +63,11 @@ with st.container(border=True):
         cols = st.columns(min(len(categorical), 4))
         for i, column in enumerate(categorical):
             levels = [str(x) for x in frame[column].cat.categories]
-            ui.remember_choice(f"model_reference_{column}", levels, levels[0])
+            ui.remember_choice(REFERENCE_PREFIX + column, levels, levels[0])
             choice = cols[i % len(cols)].selectbox(
                 f"Reference level of {ui.escape(column)}",
                 levels,
-                key=f"model_reference_{column}",
+                key=REFERENCE_PREFIX + column,
                 help="Hazard ratios of the other levels are relative to this one.",
             )
             reference.append((column, choice))
@@ -101,7 +102,6 @@ model_key = (
     table.sha256,
     data.roles_key(data.model_roles(roles)),
     tuple(covariates),
-    tuple(categorical),
     tuple(reference),
     None if strata == NO_STRATA else strata,
     ties,

@@ -132,7 +132,13 @@ def test_settings_from_command_line_options():
     assert settings["curves"]["times"] == [6.0, 12.5]
     assert settings["curves"]["ci_transform"] == "linear"
     assert settings["comparison"]["test"] == "peto-peto"
-    assert settings["cox"] == {"ties": "efron", "ph_transform": "km"}
+    assert settings["cox"] == {
+        "ties": "efron",
+        "ph_transform": "km",
+        "covariates": None,
+        "strata": None,
+        "reference": None,
+    }
     assert set(settings) == {"curves", "comparison", "cox"}
     # a recipe's settings are the base; options given override them
     base = {"curves": {"confidence": 0.9, "times": [3.0]}, "landmark": {"time": 2.0}}

@@ -234,7 +234,13 @@ def test_restored_ties_and_ph_scale_show_on_the_regression_page():
         {"model_ties": "Breslow", "model_ph_transform": "rank of time"}
     )
     recipe = share_section.recipe_from_session(session)
-    assert recipe.settings()["cox"] == {"ties": "breslow", "ph_transform": "rank"}
+    assert recipe.settings()["cox"] == {
+        "ties": "breslow",
+        "ph_transform": "rank",
+        "covariates": None,
+        "strata": None,
+        "reference": None,
+    }
     share_section.restore_recipe(at.session_state, recipe)
     at.switch_page("views/regression.py").run()
     assert not at.exception, [e.message for e in at.exception]

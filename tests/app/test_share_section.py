@@ -54,8 +54,20 @@ def test_settings_are_read_from_the_page_widgets(table):
             "confidence": 0.9,
             "rmst_horizon": None,
         },
-        "comparison": {"test": "fleming-harrington", "rho": 0.0, "gamma": 1.0},
-        "cox": {"ties": "efron", "ph_transform": "km"},
+        "comparison": {
+            "test": "fleming-harrington",
+            "rho": 0.0,
+            "gamma": 1.0,
+            "cut": None,
+            "strata": None,
+        },
+        "cox": {
+            "ties": "efron",
+            "ph_transform": "km",
+            "covariates": None,
+            "strata": None,
+            "reference": None,
+        },
     }
 
 
@@ -110,7 +122,7 @@ def _section_script():
             time="months_in_service", unit="months", event="failed", group="supplier"
         )
 
-    def run_analysis(imported, prepared, settings):
+    def run_analysis(imported, prepared, settings, source=None):
         return {
             "schema": 1,
             "data": prepared.report.to_dict(),
