@@ -13,7 +13,7 @@ import pandas as pd
 import pytest
 from streamlit.testing.v1 import AppTest
 
-from app import data, share_section, state
+from app import data, share_section, state, ui
 from engine.analysis import run_analysis
 from engine.checks import prepare
 from engine.competing import cumulative_incidence
@@ -256,3 +256,72 @@ def test_curves_manuscript_text_follows_the_unit_switch():
     assert not at.exception
     text = next(c.value for c in at.code if "Median survival" in c.value)
     assert " years (95% CI" in text and "months" not in text
+
+
+PAGE_CHOICES = {
+    "compare_source": share_section.CUT_SOURCE,
+    "compare_cut_column": "temperature_C",
+    "compare_cut_k": 3,
+    "compare_strata": "site",
+    "model_covariates": ["load_kN", "lubricant"],
+    "model_strata": "site",
+    share_section.REFERENCE_PREFIX + "lubricant": "oil bath",
+}
+
+
+def test_restored_cut_strata_and_model_choices_give_the_pages_the_cli_numbers(tmp_path):
+    """A recipe made with a cut, strata and a covariate subset: the command line's replay and
+    the restored Group comparison and Regression pages show the same numbers."""
+    import json
+    import subprocess
+    import sys
+
+    at, session = _share_page_with_pumps(PAGE_CHOICES)
+    recipe = share_section.recipe_from_session(session)
+    settings = recipe.settings()
+    assert settings["comparison"]["cut"] == {"column": "temperature_C", "groups": 3}
+    assert settings["comparison"]["strata"] == "site"
+    assert settings["cox"]["covariates"] == ["load_kN", "lubricant"]
+    assert settings["cox"]["strata"] == "site"
+    assert settings["cox"]["reference"] == [["lubricant", "oil bath"]]
+    path = tmp_path / "r.json"
+    path.write_text(recipe.to_json(), encoding="utf-8")
+    done = subprocess.run(
+        [sys.executable, "-m", "app", "analyze", str(DEMO / "pump_bearings.csv"), "--recipe",
+         str(path), "--json", "-"],
+        cwd=ROOT, capture_output=True, text=True, timeout=300,
+    )  # fmt: skip
+    assert done.returncode == 0, done.stderr
+    cli = json.loads(done.stdout)
+
+    assert share_section.restore_recipe(at.session_state, Recipe.from_json(path.read_text())) == []
+    at.switch_page("views/comparison.py").run()
+    assert not at.exception, [e.message for e in at.exception]
+    assert at.radio(key="compare_source").value == share_section.CUT_SOURCE
+    assert at.selectbox(key="compare_strata").value == "site"
+    comparison = cli["comparison"]
+    assert comparison["df"] == 2
+    assert _metric(at, "χ² statistic") == f"{comparison['statistic']:.2f}"
+    assert _metric(at, "Degrees of freedom") == str(comparison["df"])
+    assert _metric(at, "p-value") == ui.fmt_p(comparison["p_value"])
+
+    at.switch_page("views/regression.py").run()
+    assert not at.exception, [e.message for e in at.exception]
+    assert at.multiselect(key="model_covariates").value == ["load_kN", "lubricant"]
+    assert at.selectbox(key="model_strata").value == "site"
+    cox = cli["cox"]
+    assert _metric(at, "Rows used") == f"{cox['n']:,}"
+    assert _metric(at, "Events") == f"{cox['events']:,}"
+    shown = next(d.value for d in at.dataframe if "Hazard ratio" in d.value.columns)
+    expected = [
+        f"{t['variable']}: {t['level']} vs {t['reference']}" if t["level"] else t["variable"]
+        for t in cox["terms"]
+    ]
+    assert list(shown["Term"]) == expected
+    assert list(shown["Hazard ratio"]) == [f"{t['hazard_ratio']:.3f}" for t in cox["terms"]]
+    assert list(shown["Coefficient"]) == pytest.approx([round(t["coef"], 4) for t in cox["terms"]])
+    assert all(t["reference"] == "oil bath" for t in cox["terms"] if t["level"] is not None)
+
+    # the recipe downloaded again from the restored pages is the one restored
+    again = share_section.recipe_from_session(at.session_state)
+    assert again.analyses == recipe.analyses

@@ -170,3 +170,76 @@ def test_optional_analyses_follow_their_page_switches(table):
     assert fresh["cr_include"] and fresh["power_include"] and not fresh["param_include"]
     assert fresh["cr_times"] == "52" and fresh["landmark_test"] == "peto-peto"
     assert fresh["power_hr"] == 0.6 and fresh["landmark_time"] == 6.0
+
+
+def test_page_choices_round_trip_through_the_recipe(table):
+    """The comparison's cut and strata and the model's covariates, strata and reference levels
+    go into the recipe only where they depart from the roles, and come back to the widgets."""
+    from app.share_section import CUT_SOURCE, NO_COMPARE_STRATA, NO_MODEL_STRATA, ROLE_SOURCE
+
+    roles = replace(ROLES, covariates=("load_kN", "temperature_C", "lubricant"), strata="site")
+    session = {
+        **_session(table),
+        state.ROLES: roles,
+        "compare_source": CUT_SOURCE,
+        "compare_cut_column": "load_kN",
+        "compare_cut_k": 4,
+        "compare_strata": NO_COMPARE_STRATA,
+        "model_covariates": ["lubricant", "load_kN"],
+        "model_strata": "supplier",
+        "model_reference_lubricant": "grease",  # the roles' reference: not written
+    }
+    settings = settings_from_session(session, roles)
+    assert settings["comparison"]["cut"] == {"column": "load_kN", "groups": 4}
+    assert settings["comparison"]["strata"] is False  # no strata although the roles have one
+    assert settings["cox"]["covariates"] == ["lubricant", "load_kN"]
+    assert settings["cox"]["strata"] == "supplier"
+    assert settings["cox"]["reference"] is None
+    session["model_reference_lubricant"] = "oil bath"
+    recipe = recipe_from_session(session)
+    assert recipe.settings()["cox"]["reference"] == [["lubricant", "oil bath"]]
+
+    fresh = {state.TABLE: read_table(PUMPS), "compare_strata": "supplier", "model_strata": "x"}
+    assert restore_recipe(fresh, Recipe.from_json(recipe.to_json())) == []
+    assert fresh["compare_source"] == CUT_SOURCE
+    assert (fresh["compare_cut_column"], fresh["compare_cut_k"]) == ("load_kN", 4)
+    assert fresh["compare_strata"] == NO_COMPARE_STRATA
+    assert fresh["model_covariates"] == ["lubricant", "load_kN"]
+    assert fresh["model_strata"] == "supplier"
+    assert fresh["model_reference_lubricant"] == "oil bath"
+    assert recipe_from_session(fresh).to_dict() == recipe.to_dict()
+
+    # the roles' own choices are written as null and leave the pages at their defaults
+    plain = {
+        **_session(table),
+        state.ROLES: roles,
+        "compare_source": ROLE_SOURCE,
+        "compare_strata": "site",
+        "model_covariates": list(roles.covariates),
+        "model_strata": "site",
+    }
+    settings = settings_from_session(plain, roles)
+    assert settings["comparison"]["cut"] is None and settings["comparison"]["strata"] is None
+    assert settings["cox"]["covariates"] is None and settings["cox"]["strata"] is None
+    fresh = {state.TABLE: read_table(PUMPS)}
+    restore_recipe(fresh, recipe_from_session(plain))
+    assert fresh["compare_source"] == ROLE_SOURCE
+    assert "compare_strata" not in fresh and "model_strata" not in fresh
+    assert "model_covariates" not in fresh
+    assert NO_MODEL_STRATA not in fresh.values()
+
+
+def test_a_recipe_without_the_page_choices_still_restores(table):
+    """A recipe saved before these settings existed: the pages keep their defaults."""
+    old = recipe_from_session(_session(table)).to_dict()
+    for name, keys in (("comparison", ("cut", "strata")), ("cox", ("covariates", "strata"))):
+        for key in keys:
+            old["analyses"].get(name, {}).pop(key, None)
+    old["analyses"]["cox"].pop("reference", None)
+    recipe = Recipe.from_dict(old)
+    assert "cut" not in recipe.analyses["comparison"]
+    fresh = {state.TABLE: read_table(PUMPS), "compare_cut_column": "load_kN"}
+    assert restore_recipe(fresh, recipe) == []
+    assert fresh["compare_source"] == "The group column"
+    assert "compare_cut_column" not in fresh and "model_covariates" not in fresh
+    assert settings_from_session(fresh, ROLES) == settings_from_session(_session(table), ROLES)
