@@ -85,6 +85,26 @@ code { font-size: .85rem; }
 # --- methods --------------------------------------------------------------------------------------
 
 
+def _strata_words(strata) -> str:
+    """Words for a strata setting (None: the strata role, shown with the roles)."""
+    if strata is False:
+        return ", without stratification"
+    return f", stratified by {strata}" if strata else ""
+
+
+def _model_words(settings: Mapping) -> str:
+    """The model builder's choices, when they depart from the roles."""
+    chosen = settings.get("cox", {})
+    words = ""
+    if chosen.get("covariates") is not None:
+        words += " on " + ", ".join(str(c) for c in chosen["covariates"])
+    if chosen.get("strata") is False:
+        words += " without strata"
+    elif chosen.get("strata"):
+        words += f" with a baseline hazard per stratum of {chosen['strata']}"
+    return words
+
+
 def methods_paragraph(results: Mapping, settings: Mapping, software: Mapping[str, str]) -> str:
     """The methods, written from the settings actually used (plain text)."""
     curves = {"ci_transform": "log-log", "confidence": 0.95, **settings.get("curves", {})}
@@ -108,8 +128,16 @@ def methods_paragraph(results: Mapping, settings: Mapping, software: Mapping[str
     if comparison:
         df = format_plain(comparison["df"])
         freedom = "degree" if df == "1" else "degrees"
+        chosen = settings.get("comparison", {})
+        cut, strata = chosen.get("cut"), chosen.get("strata")
+        groups = (
+            f"{cut['groups']} groups of about equal size cut at the quantiles of {cut['column']}"
+            if cut
+            else "Groups"
+        )
         text.append(
-            f"Groups were compared with the {comparison['test']} test ({df} {freedom} of freedom)."
+            f"{groups[0].upper()}{groups[1:]} were compared with the {comparison['test']} test "
+            f"({df} {freedom} of freedom){_strata_words(strata)}."
         )
     cox = results.get("cox")
     if cox:
@@ -117,7 +145,8 @@ def methods_paragraph(results: Mapping, settings: Mapping, software: Mapping[str
         ph = settings.get("cox", {}).get("ph_transform", "km")
         text.append(
             "Hazard ratios were estimated with a Cox proportional-hazards model "
-            f"({ties.capitalize()} method for tied event times), categorical covariates coded "
+            f"({ties.capitalize()} method for tied event times){_model_words(settings)}, "
+            "categorical covariates coded "
             "against their reference level, using complete cases on the model's variables; "
             "intervals and p-values are from Wald statistics. Proportional hazards were checked "
             "with the Grambsch–Therneau test on scaled Schoenfeld residuals against "

@@ -277,6 +277,22 @@ def test_methods_follow_the_settings_actually_used(freireich):
     assert "Cox" not in other and "compared" not in other
 
 
+def test_methods_name_the_page_choices_a_recipe_keeps(freireich):
+    results = freireich[2]
+    settings = {
+        **SETTINGS,
+        "comparison": {"test": "logrank", "cut": {"column": "age", "groups": 3}, "strata": False},
+        "cox": {"ties": "efron", "covariates": ["age"], "strata": "site"},
+    }
+    text = methods_paragraph(results, settings, {})
+    assert "3 groups of about equal size cut at the quantiles of age were compared" in text
+    assert "(1 degree of freedom), without stratification." in text
+    assert "tied event times) on age with a baseline hazard per stratum of site," in text
+    plain = methods_paragraph(results, SETTINGS, {})
+    assert "Groups were compared" in plain and "stratif" not in plain
+    assert "times) on " not in plain and "per stratum" not in plain
+
+
 def test_report_without_optional_sections(freireich):
     results = {"schema": 1, "data": freireich[2]["data"], "curves": freireich[2]["curves"][:1]}
     text = build_report(results, {"curves": {}}, software={"python": "3.11"})
