@@ -70,7 +70,9 @@ def add_analysis_options(parser: argparse.ArgumentParser) -> None:
         choices=("log-log", "log", "linear"),
         help="scale of the pointwise interval (default log-log)",
     )
-    curves.add_argument("--confidence", type=float, help="confidence level (default 0.95)")
+    curves.add_argument(
+        "--confidence", type=float, help="confidence level of every interval (default 0.95)"
+    )
     compare = parser.add_argument_group("group comparison")
     compare.add_argument(
         "--test", choices=TESTS, help="test comparing the groups (default logrank)"
@@ -259,7 +261,7 @@ def _times(text: str) -> list[float]:
 SETTING_OPTIONS = {
     "curves": {"times": "times", "ci_transform": "ci_transform", "confidence": "confidence"},
     "comparison": {"test": "test", "rho": "rho", "gamma": "gamma"},
-    "cox": {"ties": "ties", "ph_transform": "ph_transform"},
+    "cox": {"ties": "ties", "ph_transform": "ph_transform", "confidence": "confidence"},
     "parametric": {"horizon": "horizon", "times": "times"},
     "competing": {"times": "times"},
     "landmark": {"time": "landmark", "test": "test"},

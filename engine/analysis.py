@@ -34,9 +34,11 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
     # strata: None (the strata role), False (none) or a column
     "comparison": {"test": "logrank", "rho": 0.0, "gamma": 0.0, "cut": None, "strata": None},
     # covariates: None (the roles' list) or a list; reference: None (the roles' reference
-    # levels) or [column, level] pairs that replace them; strata as for the comparison
+    # levels) or [column, level] pairs that replace them; strata as for the comparison.
+    # confidence: the hazard-ratio intervals' level (the Regression page shows 95%)
     "cox": {
         "ties": "efron",
+        "confidence": 0.95,
         "ph_transform": "km",
         "covariates": None,
         "strata": None,
@@ -222,7 +224,7 @@ def run_analysis(
         result = fit_cox_from_roles(
             prepared,
             ties=cox["ties"],
-            confidence=curves["confidence"],
+            confidence=cox["confidence"],
             covariates=cox["covariates"],
             strata=cox["strata"],
             reference=cox["reference"],

@@ -134,6 +134,7 @@ def test_settings_from_command_line_options():
     assert settings["comparison"]["test"] == "peto-peto"
     assert settings["cox"] == {
         "ties": "efron",
+        "confidence": 0.95,
         "ph_transform": "km",
         "covariates": None,
         "strata": None,

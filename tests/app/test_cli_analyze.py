@@ -169,3 +169,32 @@ def test_bad_options_exit_2_with_one_line(extra, fragment):
     assert done.returncode == 2
     assert done.stderr.startswith("error: ") and fragment in done.stderr
     assert len(done.stderr.strip().splitlines()) == 1 and "Traceback" not in done.stderr
+
+
+def test_confidence_option_sets_curve_and_hazard_ratio_intervals(freireich_csv):
+    """Interval limits recomputed from the normal quantile (scipy): exp(coef ± z·se)."""
+    from scipy.stats import norm
+
+    result = analyze_json(
+        str(freireich_csv),
+        *("--time", "weeks", "--event", "relapse", "--covariates", "arm", "--confidence", "0.9"),
+    )
+    (term,) = result["cox"]["terms"]
+    z = norm.ppf(0.95)
+    assert term["lower"] == pytest.approx(math.exp(term["coef"] - z * term["se"]), rel=1e-9)
+    assert term["upper"] == pytest.approx(math.exp(term["coef"] + z * term["se"]), rel=1e-9)
+
+
+def test_model_intervals_default_to_95_percent_whatever_the_curves_level(freireich_csv):
+    """A recipe from the app holds the Curves page's level for curves only; the Regression page
+    shows 95% intervals, and so must the replay."""
+    from scipy.stats import norm
+
+    from engine.analysis import run_analysis
+
+    roles = Roles(time="weeks", unit="weeks", event="relapse", covariates=("arm",))
+    prepared = prepare(read_table(freireich_csv).frame, roles)
+    sections = run_analysis(prepared, {"curves": {"confidence": 0.9}})
+    (term,) = sections["cox"]["terms"]
+    z = norm.ppf(0.975)
+    assert term["lower"] == pytest.approx(math.exp(term["coef"] - z * term["se"]), rel=1e-9)

@@ -236,6 +236,7 @@ def test_restored_ties_and_ph_scale_show_on_the_regression_page():
     recipe = share_section.recipe_from_session(session)
     assert recipe.settings()["cox"] == {
         "ties": "breslow",
+        "confidence": 0.95,
         "ph_transform": "rank",
         "covariates": None,
         "strata": None,

@@ -63,6 +63,7 @@ def test_settings_are_read_from_the_page_widgets(table):
         },
         "cox": {
             "ties": "efron",
+            "confidence": 0.95,
             "ph_transform": "km",
             "covariates": None,
             "strata": None,
