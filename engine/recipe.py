@@ -217,7 +217,10 @@ def _migrate_0_to_1(old: dict) -> dict:
     _require(old["file"], ("hash", "n_rows", "columns"), "file")
     settings = dict(old.get("settings", {}))
     analyses: dict[str, dict] = {"curves": {}}
-    owner = {name: key for key in VERSION_0_ANALYSES for name in ANALYSIS_DEFAULTS[key]}
+    owner: dict[str, str] = {}
+    for key in VERSION_0_ANALYSES:  # a name two analyses share belongs to the first (curves)
+        for name in ANALYSIS_DEFAULTS[key]:
+            owner.setdefault(name, key)
     if old["roles"].get("group"):
         analyses["comparison"] = {}
     if old["roles"].get("covariates"):
