@@ -28,8 +28,9 @@ from engine.recipe import (
     check_fingerprint,
     software_versions,
 )
-from engine.roles import Roles
+from engine.roles import Roles, event_in_words
 from engine.summary import numbers_at_risk_frame
+from engine.wording import probability_title
 
 ALL_ROWS = "All rows"  # the label of the all-rows curve, as app.charts.ALL_ROWS_LABEL
 SURVIVAL, INCIDENCE, HAZARD = "survival", "incidence", "hazard"  # scales a curve is drawn on
@@ -230,7 +231,7 @@ def curve_figure(prepared: PreparedData, settings: Mapping, *, title: str = ""):
     colours = charts.group_colours(labels)
     unit = prepared.report.time_unit
     style = charts.ChartStyle(width=width, height=height).titled(
-        title, f"Time ({unit})", "Survival probability"
+        title, f"Time ({unit})", probability_title(event_in_words(prepared.roles))
     )
     curve_chart = charts.step_curve_chart(
         thinned,
@@ -239,7 +240,7 @@ def curve_figure(prepared: PreparedData, settings: Mapping, *, title: str = ""):
         censored=censored_marks,
         x_max=x_max,
         ticks=ticks,
-        legend_title=prepared.roles.group or "",
+        legend_title=charts.group_title(prepared.roles.group) if prepared.roles.group else "",
         align_with_table=True,
     )
     risk = numbers_at_risk_frame(frame, ticks, by_group=by_group).to_frame()
@@ -250,8 +251,9 @@ def curve_figure(prepared: PreparedData, settings: Mapping, *, title: str = ""):
 
 
 def forest_rows(cox: Mapping) -> pd.DataFrame:
-    """Forest-plot rows from the JSON ``cox`` section: a reference row above each categorical."""
-    from engine.wording import format_p
+    """Forest-plot rows from the JSON ``cox`` section: a reference row above each categorical,
+    labelled as on the Regression page (``charts_models.forest_labels``)."""
+    from engine.wording import format_p, term_label
 
     rows, seen = [], set()
     for term in cox["terms"]:
@@ -270,7 +272,7 @@ def forest_rows(cox: Mapping) -> pd.DataFrame:
             )
         rows.append(
             {
-                "label": str(variable) if level is None else f"{variable}: {level}",
+                "label": term_label(variable, level, reference),
                 "hazard_ratio": term["hazard_ratio"],
                 "lower": term["lower"],
                 "upper": term["upper"],
@@ -281,14 +283,15 @@ def forest_rows(cox: Mapping) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def forest_figure(cox: Mapping | None):
+def forest_figure(cox: Mapping | None, confidence: float = 0.95):
     """The forest plot of the Cox terms, or None without a model."""
     if not cox or not cox.get("terms"):
         return None
     from app import charts, charts_models
 
-    style = charts.ChartStyle(width=REPORT_SIZE[0], height=REPORT_SIZE[1])
-    return charts.finish(charts_models.forest_chart(forest_rows(cox), style), style)
+    style = charts.ChartStyle(width=int(REPORT_SIZE[0] * 0.7), height=REPORT_SIZE[1])
+    chart = charts_models.forest_chart(forest_rows(cox), style, confidence=confidence)
+    return charts.finish(chart, style)
 
 
 def incidence_rows(result) -> pd.DataFrame:
@@ -399,17 +402,78 @@ def parametric_figure(prepared: PreparedData, settings: Mapping):
     return charts.finish(chart, style)
 
 
-def report_figures(prepared: PreparedData | None, results: Mapping, settings: Mapping) -> dict:
+DOT_LIMIT = 4000  # residual dots drawn in the report (a seeded sample beyond), as on the page
+
+
+def residual_figure(
+    prepared: PreparedData, settings: Mapping, source: pd.DataFrame | None = None
+) -> tuple[str, dict] | None:
+    """The scaled Schoenfeld residuals of the term whose proportional-hazards test has the
+    smallest p-value, against time on the check's scale, as on the Regression page; None
+    without a model. Returns the term's label and the figure."""
+    from app import charts, charts_models
+    from engine.analysis import fit_cox_from_roles
+    from engine.cox_diagnostics import proportional_hazards_test, schoenfeld_residuals
+
+    cox = {**ANALYSIS_DEFAULTS["cox"], **(settings.get("cox") or {})}
+    result = fit_cox_from_roles(
+        prepared,
+        ties=cox["ties"],
+        confidence=cox["confidence"],
+        covariates=cox["covariates"],
+        strata=cox["strata"],
+        reference=cox["reference"],
+        source=source,
+        without_each=False,
+    )
+    residuals = schoenfeld_residuals(result, cox["ph_time_scale"])
+    test = proportional_hazards_test(result, cox["ph_time_scale"], residuals=residuals)
+    finite = [t for t in test.terms if t.p_value == t.p_value]
+    if not finite:
+        return None
+    worst = min(finite, key=lambda t: t.p_value)
+    table = residuals.to_frame()
+    points = table[["transformed_time", worst.variable]].rename(
+        columns={"transformed_time": "x", worst.variable: "residual"}
+    )
+    if len(points) > DOT_LIMIT:
+        points = points.sample(DOT_LIMIT, random_state=0)
+    labels = [t.label for t in result.design.terms]
+    coefficient = result.terms[labels.index(worst.variable)].coef
+    width, height = REPORT_SIZE
+    style = charts.ChartStyle(width=width, height=height)
+    chart = charts_models.residual_chart(
+        points,
+        style,
+        x_title=f"Time on the {cox['ph_time_scale']} scale",
+        y_title=f"β(t) for {worst.variable}",
+        zero_line=coefficient,
+    )
+    return worst.variable, charts.finish(chart, style)
+
+
+def report_figures(
+    prepared: PreparedData | None,
+    results: Mapping,
+    settings: Mapping,
+    source: pd.DataFrame | None = None,
+) -> dict:
     """The report's figures: ``curves`` (and ``competing``, ``parametric`` when those analyses
-    ran) from the prepared data, ``forest`` from the JSON."""
+    ran, ``residuals`` with the model, labelled by ``residuals_term``) from the prepared data,
+    ``forest`` from the JSON."""
     figures = {}
     if prepared is not None and len(prepared.frame):
         figures["curves"] = curve_figure(prepared, settings)
+        if results.get("cox") and results["cox"].get("ph_check"):
+            found = residual_figure(prepared, settings, source)
+            if found is not None:
+                figures["residuals_term"], figures["residuals"] = found
         if results.get("competing"):
             figures["competing"] = incidence_figure(prepared, settings)
         if results.get("parametric"):
             figures["parametric"] = parametric_figure(prepared, settings)
-    forest = forest_figure(results.get("cox"))
+    cox_confidence = {**ANALYSIS_DEFAULTS["cox"], **(settings.get("cox") or {})}["confidence"]
+    forest = forest_figure(results.get("cox"), cox_confidence)
     if forest is not None:
         figures["forest"] = forest
     return figures
@@ -427,6 +491,7 @@ def report_from_json_and_results(
     filtered: FilterOutcome | None = None,
     warnings: Sequence[str] = (),
     title: str | None = None,
+    source: pd.DataFrame | None = None,
 ) -> str:
     """The HTML report of ``results`` (the JSON object ``run_analysis`` returns).
 
@@ -436,6 +501,8 @@ def report_from_json_and_results(
     """
     from app.report import build_report
 
+    if source is None:  # the frame prepare was given (a cut or strata column is read from it)
+        source = filtered.frame if filtered is not None else getattr(imported, "frame", None)
     fingerprint = None
     if imported is not None:
         fingerprint = {**imported.fingerprint(), "file_name": imported.source_name}
@@ -445,7 +512,7 @@ def report_from_json_and_results(
         settings,
         roles=prepared.roles.to_dict() if prepared is not None else None,
         title=title or f"Survival analysis of {name}",
-        figures=report_figures(prepared, results, settings),
+        figures=report_figures(prepared, results, settings, source),
         fingerprint=fingerprint,
         filters=filtered.to_dict()["excluded"] if filtered is not None else (),
         warnings=warnings,

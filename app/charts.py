@@ -10,6 +10,7 @@ Tests read the charts as data through ``chart.to_dict()``.
 
 from __future__ import annotations
 
+import itertools
 import math
 import threading
 from collections.abc import Sequence
@@ -81,9 +82,8 @@ def colour_encoding(field: str, colours: dict[str, str], levels: Sequence[str], 
         scale=alt.Scale(domain=domain, range=[colours.get(d, ALL_ROWS_COLOUR) for d in domain]),
         legend=alt.Legend(
             title=title,
-            orient="top",
-            direction="horizontal",
-            columns=min(max(len(domain), 1), 4),
+            orient="right",
+            direction="vertical",
             symbolType="stroke",
             symbolOpacity=1,
             labelLimit=240,
@@ -94,10 +94,29 @@ def colour_encoding(field: str, colours: dict[str, str], levels: Sequence[str], 
     )
 
 
-def nice_ticks(upper: float, count: int = 10) -> list[float]:
-    """Round tick positions from 0 to ``upper`` (1, 2 or 5 times a power of ten apart).
+def group_title(column: object) -> str:
+    """The words naming what the curves are split by: 'Group: arm'."""
+    return f"Group: {column}"
 
-    Both the curve and the numbers-at-risk table use these, so their columns line up.
+
+def tick_format(ticks: Sequence[float]) -> str:
+    """A d3 number format with as many decimals as the tick step needs (a step of 2.5 gives
+    '2.5, 5.0, 7.5', never '3, 5, 8'), thousands separated."""
+    values = [float(t) for t in ticks]
+    steps = [b - a for a, b in itertools.pairwise(values) if b > a]
+    reference = [*steps, *values] if steps else values
+    decimals = 0
+    for value in reference:
+        text = f"{abs(value):.10f}".rstrip("0")
+        decimals = max(decimals, len(text.split(".")[1]) if "." in text else 0)
+    return f",.{min(decimals, 6)}f"
+
+
+def nice_ticks(upper: float, count: int = 10) -> list[float]:
+    """Round tick positions from 0 to ``upper`` (1, 2, 2.5 or 5 times a power of ten apart).
+
+    Both the curve and the numbers-at-risk table use these, so their columns line up; label
+    them with ``tick_format``.
     """
     if not upper > 0 or not math.isfinite(upper):
         return [0.0]
@@ -185,6 +204,78 @@ def axis_extent(style: ChartStyle) -> int:
     return style.font_size * 10
 
 
+CENSOR_SHAPE = "M0,0L0,-1"  # a short pole standing on the curve (Vega symbol path, [-1, 1] box)
+LABEL_GAP_PX = 6  # between a curve's end and its label
+
+
+def _text_width(text: str, font_size: int) -> float:
+    return 0.6 * font_size * len(text)
+
+
+def end_labels(
+    curves: pd.DataFrame,
+    style: ChartStyle,
+    x_domain: tuple[float, float],
+    y_domain: tuple[float, float],
+) -> pd.DataFrame | None:
+    """Where each curve's name goes: just right of its last drawn point, nudged apart
+    vertically by up to two lines. None when the names would still collide (or leave the
+    plot): the chart then uses a legend instead.
+
+    ``curves`` has group, time, estimate; the result has group, time, estimate (the label's
+    anchor, in data units) and y_px (its nudged vertical position in pixels from the top).
+    """
+    x0, x1 = x_domain
+    y0, y1 = y_domain
+    if not x1 > x0 or not y1 > y0:
+        return None
+    rows = []
+    for group, part in curves.groupby("group", sort=False):
+        inside = part.loc[part["time"] <= x1]
+        if inside.empty:
+            continue
+        last = inside.iloc[-1]
+        estimate = float(last["estimate"])
+        if not math.isfinite(estimate):
+            continue
+        rows.append(
+            {
+                "group": str(group),
+                "time": float(min(last["time"], x1)) if len(inside) == len(part) else x1,
+                "estimate": estimate,
+                "y_px": (1 - (min(max(estimate, y0), y1) - y0) / (y1 - y0)) * style.height,
+            }
+        )
+    if not rows:
+        return None
+    labels = pd.DataFrame(rows).sort_values("y_px", kind="stable").reset_index(drop=True)
+    line = style.font_size * 1.25
+    wanted = labels["y_px"].to_numpy(dtype=float)
+    placed = wanted.copy()
+    x_px = (labels["time"].to_numpy(dtype=float) - x0) / (x1 - x0) * style.width
+    widths = [_text_width(g, style.font_size) for g in labels["group"]]
+    for _ in range(50):  # push overlapping neighbours apart, then pull back inside the plot
+        moved = False
+        for i in range(1, len(placed)):
+            overlap_x = abs(x_px[i] - x_px[i - 1]) < max(widths[i], widths[i - 1]) + LABEL_GAP_PX
+            gap = placed[i] - placed[i - 1]
+            if overlap_x and gap < line:
+                shift = (line - gap) / 2
+                placed[i - 1] -= shift
+                placed[i] += shift
+                moved = True
+        placed = placed.clip(line / 2, style.height - line / 2)
+        if not moved:
+            break
+    for i in range(1, len(placed)):
+        overlap_x = abs(x_px[i] - x_px[i - 1]) < max(widths[i], widths[i - 1]) + LABEL_GAP_PX
+        if overlap_x and placed[i] - placed[i - 1] < line * 0.95:
+            return None
+    if (abs(placed - wanted) > 2 * line).any():
+        return None
+    return labels.assign(y_px=placed)
+
+
 def step_curve_chart(
     curves: pd.DataFrame,
     style: ChartStyle,
@@ -198,8 +289,15 @@ def step_curve_chart(
     y_format: str = ".2f",
     legend_title: str | None = "",
     align_with_table: bool = False,
+    label_ends: bool = True,
 ) -> alt.LayerChart:
     """Step lines (one per ``group``) with an optional interval band and censoring marks.
+
+    Hazel's look: each curve is named at its right-hand end in its own colour, with
+    ``legend_title`` (for example "Group: arm") above those names; a legend on the right
+    replaces them only where the names would collide (``end_labels``). The interval is a very
+    light fill edged by thin dotted lines; a censored time is a short pole standing on the
+    curve. Ticks are labelled with as many decimals as their step needs (``tick_format``).
 
     ``curves`` has columns group, time, estimate and, when known, lower, upper, at_risk (one
     row per kept step vertex); ``censored`` has group, time, estimate. Tooltips show time,
@@ -209,7 +307,11 @@ def step_curve_chart(
     levels = list(dict.fromkeys(curves["group"].astype(str)))
     data = curves.assign(group=curves["group"].astype(str))
     x_upper = x_max if x_max is not None else float(data["time"].max() or 1.0)
-    x_axis = alt.Axis(values=list(ticks) if ticks is not None else alt.Undefined, grid=True)
+    x_axis = alt.Axis(
+        values=list(ticks) if ticks is not None else alt.Undefined,
+        format=tick_format(ticks) if ticks is not None else alt.Undefined,
+        grid=True,
+    )
     x = alt.X(
         "time:Q",
         title=style.x_title or "Time",
@@ -222,7 +324,10 @@ def step_curve_chart(
         if align_with_table
         else alt.Axis(format=y_format)
     )
-    colour = colour_encoding("group", colours, levels, legend_title if len(levels) > 1 else None)
+    named = legend_title is not None and len(levels) > 1
+    labels = end_labels(data, style, (0.0, x_upper), y_domain) if named and label_ends else None
+    legend = legend_title if named and labels is None else None
+    colour = colour_encoding("group", colours, levels, legend)
     tooltip = [
         alt.Tooltip(f"{field}:{kind}", title=title, format=fmt)
         for field, kind, title, fmt in (
@@ -239,12 +344,22 @@ def step_curve_chart(
     # on every method call, which for thousands of vertices costs more than drawing them.
     base = alt.Chart().encode(x=x, color=colour)
     layers = []
-    if band:
+    if band and {"lower", "upper"} <= set(data.columns):
         layers.append(
-            base.mark_area(interpolate="step-after", opacity=0.16, clip=True).encode(
+            base.mark_area(interpolate="step-after", opacity=0.07, clip=True).encode(
                 y=alt.Y("lower:Q", scale=y_scale), y2="upper:Q"
             )
         )
+        for edge in ("lower", "upper"):
+            layers.append(
+                base.mark_line(
+                    interpolate="step-after",
+                    strokeWidth=max(style.line_width * 0.4, 0.8),
+                    strokeDash=[1, 2],
+                    opacity=0.8,
+                    clip=True,
+                ).encode(y=alt.Y(f"{edge}:Q", scale=y_scale))
+            )
     layers.append(
         base.mark_line(interpolate="step-after", strokeWidth=style.line_width, clip=True).encode(
             y=alt.Y("estimate:Q", title=style.y_title or "Estimate", scale=y_scale, axis=y_axis)
@@ -257,11 +372,16 @@ def step_curve_chart(
     )
     if censored is not None and not censored.empty:
         marks = censored.assign(group=censored["group"].astype(str))
-        tick = alt.Chart().mark_tick(
-            orient="vertical", size=style.font_size * 0.7, thickness=1.4, clip=True
+        pole = alt.Chart().mark_point(
+            shape=CENSOR_SHAPE,
+            size=(style.font_size * 1.3) ** 2,
+            filled=False,
+            strokeWidth=max(style.line_width * 0.7, 1.2),
+            opacity=1,
+            clip=True,
         )
         layers.append(
-            tick.encode(
+            pole.encode(
                 x="time:Q",
                 y="estimate:Q",
                 color=colour,
@@ -271,6 +391,32 @@ def step_curve_chart(
                 ],
             ).properties(data=marks)
         )
+    if labels is not None:
+        layers.append(
+            alt.Chart(labels)
+            .mark_text(
+                align="left",
+                baseline="middle",
+                dx=LABEL_GAP_PX,
+                fontSize=style.font_size,
+                fontWeight="bold",
+            )
+            .encode(x="time:Q", y=alt.Y("y_px:Q", scale=None), color=colour, text="group:N")
+        )
+        if legend_title:
+            heading = pd.DataFrame({"time": [float(labels["time"].max())], "text": [legend_title]})
+            layers.append(
+                alt.Chart(heading)
+                .mark_text(
+                    align="left",
+                    baseline="bottom",
+                    dx=LABEL_GAP_PX,
+                    dy=-6,
+                    fontSize=style.font_size,
+                    color="#5F6B6B",
+                )
+                .encode(x="time:Q", y=alt.value(0), text="text:N")
+            )
     return alt.layer(*layers, data=data).properties(
         width=style.width, height=style.height, title=chart_title(style)
     )
@@ -283,49 +429,61 @@ def at_risk_chart(
     *,
     x_max: float,
     ticks: Sequence[float],
-    title: str = "Number at risk",
-) -> alt.Chart:
-    """Numbers at risk (columns group, time, at_risk) as text under the curve's own x ticks."""
+    title: str = "Subjects still at risk",
+) -> alt.LayerChart:
+    """Numbers at risk (columns group, time, at_risk) as dark text under the curve's own x
+    ticks, one row per group, each row named on the left after a short line in the group's
+    colour (the key between the table and the curves)."""
     data = table.assign(group=table["group"].astype(str))
     levels = list(dict.fromkeys(data["group"]))
     row_height = style.font_size + 10
-    return (
+    extent = axis_extent(style)
+    x = alt.X(
+        "time:Q",
+        scale=alt.Scale(domain=[0, x_max], nice=False, zero=True),
+        axis=alt.Axis(
+            values=list(ticks), labels=False, ticks=False, domain=False, grid=False, title=None
+        ),
+    )
+    y = alt.Y(
+        "group:N",
+        sort=levels,
+        title=None,
+        axis=alt.Axis(
+            labels=False,
+            minExtent=extent,
+            maxExtent=extent,
+            ticks=False,
+            domain=False,
+        ),
+    )
+    keys = data.drop_duplicates("group")[["group"]]
+    counts = (
         alt.Chart(data)
-        .mark_text(fontSize=style.font_size, fontWeight="bold")
+        .mark_text(fontSize=style.font_size, color=INK)
+        .encode(x=x, y=y, text=alt.Text("at_risk:Q", format=","))
+    )
+    key_line = (
+        alt.Chart(keys)
+        .mark_rule(strokeWidth=max(style.line_width, 2.0))
         .encode(
-            x=alt.X(
-                "time:Q",
-                scale=alt.Scale(domain=[0, x_max], nice=False, zero=True),
-                axis=alt.Axis(
-                    values=list(ticks),
-                    labels=False,
-                    ticks=False,
-                    domain=False,
-                    grid=False,
-                    title=None,
-                ),
-            ),
-            y=alt.Y(
-                "group:N",
-                sort=levels,
-                title=None,
-                axis=alt.Axis(
-                    minExtent=axis_extent(style),
-                    maxExtent=axis_extent(style),
-                    labelLimit=axis_extent(style) - 24,
-                    labelPadding=24,
-                    ticks=False,
-                    domain=False,
-                ),
-            ),
-            text=alt.Text("at_risk:Q", format=","),
+            x=alt.value(-extent + 4),
+            x2=alt.value(-extent + 4 + style.font_size * 1.4),
+            y=y,
             color=colour_encoding("group", colours, levels, None),
         )
-        .properties(
-            width=style.width,
-            height=row_height * max(len(levels), 1),
-            title=alt.TitleParams(title, fontSize=style.font_size + 1, fontWeight="normal"),
-        )
+    )
+    names = (
+        alt.Chart(keys)
+        .mark_text(align="left", fontSize=style.font_size, color=INK, limit=extent - 30)
+        .encode(x=alt.value(-extent + 8 + style.font_size * 1.4), y=y, text="group:N")
+    )
+    return alt.layer(key_line, names, counts).properties(
+        width=style.width,
+        height=row_height * max(len(levels), 1),
+        title=alt.TitleParams(
+            title, fontSize=style.font_size, fontWeight="normal", color="#5F6B6B", anchor="start"
+        ),
     )
 
 

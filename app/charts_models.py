@@ -14,6 +14,7 @@ import altair as alt
 import pandas as pd
 
 from app.charts import ACCENT, INK, PALETTE, ChartStyle, chart_title, colour_encoding
+from engine.wording import term_label
 
 EXTRAPOLATION_SHADE = "#F3EEE4"
 
@@ -22,29 +23,75 @@ EXTRAPOLATION_SHADE = "#F3EEE4"
 # Cox model and proportional-hazards checks
 
 
-def forest_chart(rows: pd.DataFrame, style: ChartStyle) -> alt.LayerChart:
-    """Hazard ratios with intervals on a log axis, one row per term, reference rows marked.
+def forest_labels(rows: pd.DataFrame, format_p) -> pd.DataFrame:
+    """Labels for ``engine.cox_summaries.forest_data`` rows (variable, level, is_reference, …):
+    the Cox table's "variable: level vs reference", the reference row as "variable: level
+    (reference)", and the p-values as text (``format_p``)."""
+    references = {
+        v: lv for v, lv, ref in rows[["variable", "level", "is_reference"]].itertuples(index=False)
+        if ref
+    }  # fmt: skip
+    labels = []
+    for variable, level, is_reference in rows[["variable", "level", "is_reference"]].itertuples(
+        index=False
+    ):
+        if level is None or pd.isna(level):
+            labels.append(str(variable))
+        elif is_reference:
+            labels.append(f"{variable}: {level} (reference)")
+        else:
+            labels.append(term_label(variable, level, references.get(variable)))
+    return rows.assign(
+        label=labels,
+        p_text=[
+            "reference" if ref else format_p(p)
+            for p, ref in rows[["p_value", "is_reference"]].itertuples(index=False)
+        ],
+    )
+
+
+def forest_domain(rows: pd.DataFrame) -> tuple[float, float]:
+    """A log-axis domain holding 1 and every estimate and interval limit, with a margin, so no
+    interval is cut at the axis end."""
+    drawn = rows.loc[~rows["is_reference"].astype(bool), ["lower", "upper", "hazard_ratio"]]
+    values = pd.to_numeric(drawn.stack(), errors="coerce")
+    values = values[(values > 0) & values.map(math.isfinite)]
+    low = min(float(values.min()) if len(values) else 1.0, 1.0)
+    high = max(float(values.max()) if len(values) else 1.0, 1.0)
+    margin = max(math.log(high / low) * 0.06, math.log(1.15))
+    return low / math.exp(margin), high * math.exp(margin)
+
+
+def forest_chart(rows: pd.DataFrame, style: ChartStyle, confidence: float = 0.95):
+    """Hazard ratios as squares with their intervals on a log axis, one row per term, reference
+    rows marked with an open circle at 1, and a text column "HR (95% CI)" on the right.
 
     ``rows`` has columns label, hazard_ratio, lower, upper, is_reference and p_text (and n,
-    events for the tooltips, when known), in the order to draw from top to bottom.
+    events for the tooltips, when known), in the order to draw from top to bottom. Squares, not
+    diamonds: each row is one model's estimate, not a pooled one.
     """
+    from engine.wording import format_confidence, format_ratio
+
+    ci = f"{format_confidence(confidence)} CI"
     data = rows.copy()
     data["label"] = data["label"].astype(str)
+    data["is_reference"] = data["is_reference"].astype(bool)
+    data["hr_text"] = [
+        "1 (reference)" if ref else f"{format_ratio(h)} ({format_ratio(lo)} to {format_ratio(hi)})"
+        for h, lo, hi, ref in data[["hazard_ratio", "lower", "upper", "is_reference"]].itertuples(
+            index=False
+        )
+    ]
     order = list(data["label"])
-    finite = data.loc[~data["is_reference"], ["lower", "upper", "hazard_ratio"]]
-    finite = finite.stack()
-    finite = finite[(finite > 0) & finite.map(math.isfinite)]
-    lo = min(float(finite.min()) if len(finite) else 1.0, 1.0) / 1.25
-    hi = max(float(finite.max()) if len(finite) else 1.0, 1.0) * 1.25
-    x_scale = alt.Scale(type="log", domain=[lo, hi], nice=False)
+    x_scale = alt.Scale(type="log", domain=list(forest_domain(data)), nice=False)
     y = alt.Y("label:N", sort=order, title=None, axis=alt.Axis(labelLimit=260, domain=False))
     base = alt.Chart(data).encode(y=y)
     terms = base.transform_filter("!datum.is_reference")
     tooltip = [
         alt.Tooltip("label:N", title="Term"),
         alt.Tooltip("hazard_ratio:Q", title="Hazard ratio", format=".3f"),
-        alt.Tooltip("lower:Q", title="Interval from", format=".3f"),
-        alt.Tooltip("upper:Q", title="Interval to", format=".3f"),
+        alt.Tooltip("lower:Q", title=f"{ci} from", format=".3f"),
+        alt.Tooltip("upper:Q", title=f"{ci} to", format=".3f"),
         alt.Tooltip("p_text:N", title="p"),
     ]
     tooltip += [
@@ -54,21 +101,44 @@ def forest_chart(rows: pd.DataFrame, style: ChartStyle) -> alt.LayerChart:
     ]
     one = alt.Chart(pd.DataFrame({"x": [1.0]})).mark_rule(color="#7A8585", strokeDash=[4, 3])
     height = max(len(order) * (style.font_size + 14), 80)
-    return alt.layer(
+    x_title = style.x_title or f"Hazard ratio with {ci} (log scale)"
+    plot = alt.layer(
         one.encode(x=alt.X("x:Q", scale=x_scale)),
         terms.mark_rule(color=ACCENT, strokeWidth=style.line_width).encode(
-            x=alt.X("lower:Q", scale=x_scale, title=style.x_title or "Hazard ratio (log scale)"),
+            x=alt.X("lower:Q", scale=x_scale, title=x_title),
             x2="upper:Q",
             tooltip=tooltip,
         ),
-        terms.mark_point(
-            filled=True, shape="diamond", color=ACCENT, size=style.point_size * 3, opacity=1
-        ).encode(x=alt.X("hazard_ratio:Q", scale=x_scale), tooltip=tooltip),
+        terms.mark_square(color=ACCENT, size=style.point_size * 3, opacity=1).encode(
+            x=alt.X("hazard_ratio:Q", scale=x_scale), tooltip=tooltip
+        ),
         base.transform_filter("datum.is_reference")
         .mark_point(shape="circle", color="#7A8585", size=style.point_size * 2, filled=False)
-        .encode(x=alt.value(0), tooltip=[alt.Tooltip("label:N", title="Reference level")])
-        .encode(x=alt.X("hazard_ratio:Q", scale=x_scale)),
-    ).properties(width=style.width, height=height, title=chart_title(style))
+        .encode(
+            x=alt.X("hazard_ratio:Q", scale=x_scale),
+            tooltip=[alt.Tooltip("label:N", title="Reference level")],
+        ),
+    ).properties(width=style.width, height=height)
+    text = (
+        base.mark_text(align="left", fontSize=style.font_size, color=INK)
+        .encode(
+            x=alt.value(0),
+            text="hr_text:N",
+            y=alt.Y("label:N", sort=order, axis=None),
+        )
+        .properties(
+            width=style.font_size * 13,
+            height=height,
+            title=alt.TitleParams(
+                f"HR ({ci})", fontSize=style.font_size, fontWeight="normal", anchor="start"
+            ),
+        )
+    )
+    return (
+        alt.hconcat(plot, text, spacing=12)
+        .resolve_scale(y="shared")
+        .properties(title=chart_title(style))
+    )
 
 
 def residual_chart(
@@ -228,7 +298,9 @@ def power_chart(
         "hazard_ratio:Q",
         title=style.x_title or "Hazard ratio to detect",
         scale=alt.Scale(type="log", nice=False),
-        axis=alt.Axis(values=[0.4, 0.5, 0.6, 0.7, 0.8, 0.9, 1.0, 1.25, 1.5, 2.0, 2.5]),
+        axis=alt.Axis(
+            values=[0.4, 0.5, 0.6, 0.7, 0.8, 0.9, 1.0, 1.25, 1.5, 2.0, 2.5], format=".2~f"
+        ),
     )
     y = alt.Y("power:Q", title=style.y_title or "Power", scale=alt.Scale(domain=[0, 1]))
     layers = [

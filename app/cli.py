@@ -12,15 +12,16 @@ import json
 import sys
 from pathlib import Path
 
-from app.cli_text import analysis_summary, data_summary
+from app.cli_text import analysis_summary, data_summary, event_words
 from engine.analysis import ANALYSIS_DEFAULTS
 from engine.analysis import run_analysis as run_engine_analysis
 from engine.checks import PreparedData, prepare
+from engine.cox_diagnostics import TIME_SCALES
 from engine.errors import HazelError
 from engine.io import ImportedTable, ImportOptions, read_table
 from engine.roles import TIME_UNITS, Roles
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2  # README "Changes from schema 1" lists what changed
 
 
 class UsageError(HazelError):
@@ -84,9 +85,10 @@ def add_analysis_options(parser: argparse.ArgumentParser) -> None:
         "--ties", choices=("efron", "breslow"), help="tied event times (default efron)"
     )
     cox.add_argument(
-        "--ph-transform",
-        choices=("km", "rank", "identity", "log"),
-        help="time scale of the proportional-hazards test (default km)",
+        "--ph-time-scale",
+        choices=TIME_SCALES,
+        help="time scale of the proportional-hazards check: survival (time transformed by the "
+        "Kaplan–Meier estimate, the default), rank, time or log-time",
     )
     more = parser.add_argument_group("beyond the basics (each adds a section)")
     more.add_argument(
@@ -138,7 +140,9 @@ def add_role_options(parser: argparse.ArgumentParser) -> None:
     roles.add_argument("--start", metavar="COL", help="start-date column (with --end)")
     roles.add_argument("--end", metavar="COL", help="end-date column (with --start)")
     roles.add_argument("--date-format", metavar="FMT", help="date format such as %%d/%%m/%%Y")
-    roles.add_argument("--dayfirst", action="store_true", help="dates are day first (31/12/2020)")
+    roles.add_argument("--day-first", action="store_true", help="dates are day first (31/12/2020)")
+    # the former spelling, kept for one release (a deprecation line goes to stderr)
+    roles.add_argument("--dayfirst", action="store_true", help=argparse.SUPPRESS)
     roles.add_argument(
         "--unit", choices=list(TIME_UNITS), default="days", help="unit results are reported in"
     )
@@ -187,7 +191,7 @@ def roles_from_args(args: argparse.Namespace) -> Roles:
         start=args.start,
         end=args.end,
         date_format=args.date_format,
-        dayfirst=args.dayfirst,
+        day_first=args.day_first,
         unit=args.unit,
         source_unit=args.time_unit,
         event=args.event,
@@ -231,7 +235,7 @@ def load_prepared(
 
 
 def write_json(sections: dict, out: str) -> None:
-    """Write ``{"schema": 1, **sections}`` to a file or to stdout ('-')."""
+    """Write ``{"schema": SCHEMA_VERSION, **sections}`` to a file or to stdout ('-')."""
     text = json.dumps({"schema": SCHEMA_VERSION, **sections}, indent=2, allow_nan=False)
     if out == "-":
         sys.stdout.write(text + "\n")
@@ -261,10 +265,10 @@ def _times(text: str) -> list[float]:
 SETTING_OPTIONS = {
     "curves": {"times": "times", "ci_transform": "ci_transform", "confidence": "confidence"},
     "comparison": {"test": "test", "rho": "rho", "gamma": "gamma"},
-    "cox": {"ties": "ties", "ph_transform": "ph_transform", "confidence": "confidence"},
+    "cox": {"ties": "ties", "ph_time_scale": "ph_time_scale", "confidence": "confidence"},
     "parametric": {"horizon": "horizon", "times": "times"},
     "competing": {"times": "times"},
-    "landmark": {"time": "landmark", "test": "test"},
+    "landmark": {"time": "landmark", "test": "test", "rho": "rho", "gamma": "gamma"},
     "sample_size": {
         "hazard_ratio": "power_hr",
         "power": "power",
@@ -315,9 +319,9 @@ def run_analysis(
 
 # Options that set roles or import options: a recipe brings its own, so they cannot be mixed.
 ROLE_OPTIONS = (
-    "sep", "decimal", "encoding", "sheet", "time", "start", "end", "date_format", "time_unit",
-    "event", "event_value", "group", "covariates", "categorical", "reference", "strata", "entry",
-    "id", "competing",
+    "sep", "decimal", "encoding", "sheet", "time", "start", "end", "date_format", "day_first",
+    "time_unit", "event", "event_value", "group", "covariates", "categorical", "reference",
+    "strata", "entry", "id", "competing",
 )  # fmt: skip
 
 
@@ -340,8 +344,8 @@ def run_analyze(args: argparse.Namespace) -> int:
         given = [
             name for name in ROLE_OPTIONS if getattr(args, name, None) not in (None, [], False)
         ]
-        if given or args.dayfirst:
-            shown = ", ".join("--" + name.replace("_", "-") for name in given or ["dayfirst"])
+        if given:
+            shown = ", ".join("--" + name.replace("_", "-") for name in given)
             raise UsageError(
                 f"--recipe brings its own import options and roles; leave out {shown} "
                 "(or drop --recipe and give every role as an option)"
@@ -363,7 +367,14 @@ def run_analyze(args: argparse.Namespace) -> int:
         sections["filters"] = filtered.to_dict()
     if args.json != "-":
         print(data_summary(table, prepared))
-        print(analysis_summary(sections, prepared.report.time_unit))
+        print(
+            analysis_summary(
+                sections,
+                prepared.report.time_unit,
+                confidence=settings["cox"]["confidence"],
+                event=event_words(prepared),
+            )
+        )
     if args.json:
         write_json(sections, args.json)
     if args.report:
@@ -387,6 +398,13 @@ def main(argv: list[str] | None = None) -> int:
     """Entry point; returns the process exit code (0 ok, 2 bad input, 1 a bug)."""
     try:
         args = build_parser().parse_args(argv)
+        if getattr(args, "dayfirst", False):
+            print(
+                "warning: --dayfirst is deprecated and will be removed in the next release; "
+                "use --day-first",
+                file=sys.stderr,
+            )
+            args.day_first = True
         return args.run(args)
     except HazelError as exc:
         message = " ".join(str(exc).split())

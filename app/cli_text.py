@@ -1,11 +1,30 @@
 """The command line's text output: a readable summary of the import and data checks, and of the
 analysis sections (the JSON and the HTML report hold every number; these lines are for a shell).
+
+Numbers are rounded by ``engine.wording``'s rules (the report's and the manuscript sentences'),
+terms are labelled "variable: level vs reference" and results are laid out as short labelled
+blocks, each with its own header line.
 """
 
 from __future__ import annotations
 
 from engine.checks import PreparedData
 from engine.io import ImportedTable
+from engine.parametric import LABELS
+from engine.roles import event_in_words
+from engine.wording import (
+    NOT_REACHED,
+    comparison_sentence,
+    format_confidence,
+    format_number,
+    format_p,
+    format_percent,
+    format_plain,
+    format_ratio,
+    median_name,
+    p_clause,
+    term_label,
+)
 
 
 def data_summary(table: ImportedTable, prepared: PreparedData) -> str:
@@ -25,63 +44,107 @@ def data_summary(table: ImportedTable, prepared: PreparedData) -> str:
     if report.event_coding is not None:
         lines.append(f"Event: {report.event_coding.describe()}")
     lines.append(
-        f"Rows read {report.rows_read}, used {report.rows_used}: "
-        f"{report.events} events, {report.censored} censored"
+        f"Rows read {report.rows_read:,}, used {report.rows_used:,}: "
+        f"{report.events:,} events, {report.censored:,} censored"
     )
     for reason, rows in report.excluded:
-        lines.append(f"  excluded: {rows} row(s), {reason}")
+        lines.append(f"  excluded: {rows:,} row(s), {reason}")
     if roles.group:
-        lines.append(f"By {roles.group}:")
+        lines.append(f"Group: {roles.group}")
+        lines.append(f"  {'level':<20} {'subjects':>9} {'events':>9} {'censored':>9}")
         for _, row in report.group_counts.iterrows():
             lines.append(
-                f"  {row['group']!s:<20} n={row['n']:<7} events={row['events']:<7} "
-                f"censored={row['censored']}"
+                f"  {row['group']!s:<20} {row['n']:>9,} {row['events']:>9,} {row['censored']:>9,}"
             )
     lines += [f"Warning: {warning}" for warning in report.warnings]
     return "\n".join(lines)
 
 
-def _fmt(value, digits: int = 3) -> str:
-    return "n/a" if value is None else f"{value:.{digits}g}" if digits else str(value)
+def _time(value) -> str:
+    return format_number(value, 1, missing=NOT_REACHED)
 
 
-def analysis_summary(sections: dict, unit: str) -> str:
-    """A readable summary of the curves, comparison and Cox sections."""
-    lines = ["", f"Survival ({unit}):"]
+def analysis_summary(
+    sections: dict, unit: str, *, confidence: float = 0.95, event: str | None = None
+) -> str:
+    """A readable summary of the curves, comparison and Cox sections (and the optional ones).
+
+    ``event`` names the event in words (``engine.roles.event_in_words``); ``confidence`` is the
+    hazard ratios' interval level."""
+    lines = ["", f"Curves (times in {unit})"]
+    median = median_name(event)
+    lines.append(f"  {'group':<20} {'subjects':>9} {'events':>9}   {median} (interval)")
     for curve in sections["curves"]:
-        label = "all rows" if curve["group"] is None else curve["group"]
-        median = curve["median"]
+        label = "All rows" if curve["group"] is None else curve["group"]
+        m = curve["median"]
         text = (
-            f"  {label!s:<20} n={curve['n']:<7} events={curve['events']:<7} "
-            f"median {_fmt(median['estimate'], 4)} "
-            f"({_fmt(median['lower'], 4)} to {_fmt(median['upper'], 4)})"
+            f"  {label!s:<20} {curve['n']:>9,} {curve['events']:>9,}   {_time(m['estimate'])} "
+            f"({_time(m['lower'])} to {_time(m['upper'])})"
         )
         for point in curve["at_times"]:
-            text += f"; S({point['time']:g})={_fmt(point['survival'])}"
+            text += f"; at {format_plain(point['time'])}: {format_percent(point['survival'])}"
         lines.append(text)
     comparison = sections["comparison"]
     if comparison is not None:
+        lines += ["", "Group comparison"]
         lines.append(
-            f"{comparison['test']}: chi-square {comparison['statistic']:.2f} on "
-            f"{comparison['df']} df, p = {comparison['p_value']:.3g}"
+            "  "
+            + comparison_sentence(
+                comparison["test"], comparison["statistic"], comparison["df"], comparison["p_value"]
+            )
         )
     cox = sections["cox"]
     if cox is not None:
-        lines.append(f"Cox model ({cox['ties']} ties): n={cox['n']}, events={cox['events']}")
-        for term in cox["terms"]:
-            name = term["variable"] + (f"={term['level']}" if term["level"] is not None else "")
-            lines.append(
-                f"  {name:<28} HR {_fmt(term['hazard_ratio'])} "
-                f"({_fmt(term['lower'])} to {_fmt(term['upper'])}), p = {_fmt(term['p_value'])}"
-            )
-        lr = cox["likelihood_ratio"]
-        lines.append(
-            f"  likelihood ratio {lr['statistic']:.2f} on {lr['df']} df, "
-            f"p = {lr['p_value']:.3g}; concordance {_fmt(cox['concordance'])}"
-        )
-        lines += [f"  Warning: {warning}" for warning in cox["warnings"]]
+        lines += ["", *cox_summary(cox, confidence)]
     lines += extra_summary(sections, unit)
     return "\n".join(lines)
+
+
+def cox_summary(cox: dict, confidence: float = 0.95) -> list[str]:
+    """The Cox model as a block: rows and events, a term table with hazard ratios first, the
+    whole-model tests one per line, concordance and the proportional-hazards check."""
+    ci = f"{format_confidence(confidence)} CI"
+    lines = [
+        f"Cox model ({str(cox['ties']).capitalize()} method for tied times): "
+        f"{cox['n']:,} rows used, {cox['events']:,} events"
+    ]
+    labels = [term_label(t["variable"], t["level"], t["reference"]) for t in cox["terms"]]
+    width = max([len("term"), *(len(label) for label in labels)]) + 2
+    lines.append(f"  {'term':<{width}}{'hazard ratio':>12}   {ci:<20}p")
+    for label, term in zip(labels, cox["terms"], strict=True):
+        interval = f"{format_ratio(term['lower'])} to {format_ratio(term['upper'])}"
+        lines.append(
+            f"  {label:<{width}}{format_ratio(term['hazard_ratio']):>12}   {interval:<20}"
+            f"{format_p(term['p_value'])}"
+        )
+    lr = cox.get("likelihood_ratio") or {}
+    df = lr.get("df")
+    lines.append(
+        "  Tests of the whole model"
+        + (f" ({format_plain(df)} degrees of freedom each):" if df is not None else ":")
+    )
+    for name, key in (
+        ("Likelihood ratio", "likelihood_ratio"),
+        ("Wald", "wald"),
+        ("Score", "score"),
+    ):
+        test = cox.get(key)
+        if test:
+            lines.append(
+                f"    {name:<18}chi-squared {format_number(test['statistic'], 2)}, "
+                f"{p_clause(test['p_value'])}"
+            )
+    if cox.get("concordance") is not None:
+        lines.append(f"  Concordance (Harrell's C): {format_number(cox['concordance'], 3)}")
+    ph = cox.get("ph_check")
+    if ph:
+        joint = ph["all_terms"]
+        lines.append(
+            f"  Proportional hazards, all terms together ({ph['time_scale']} time scale): "
+            f"chi-squared {format_number(joint['statistic'], 2)}, {p_clause(joint['p_value'])}"
+        )
+    lines += [f"  Warning: {warning}" for warning in cox["warnings"]]
+    return lines
 
 
 def extra_summary(sections: dict, unit: str) -> list[str]:
@@ -89,47 +152,62 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
     lines = []
     competing = sections.get("competing")
     if competing:
-        lines.append("Cumulative incidence at the end of follow-up (Aalen–Johansen):")
+        lines += ["", "Cumulative incidence at the end of follow-up (Aalen–Johansen)"]
         for row in competing["at_end"]:
-            label = "all rows" if row["group"] is None else row["group"]
+            label = "All rows" if row["group"] is None else row["group"]
             lines.append(
-                f"  {label!s:<20} {row['cause']!s:<12} {_fmt(row['cumulative_incidence'])} "
-                f"({_fmt(row['lower'])} to {_fmt(row['upper'])}) at {_fmt(row['time'], 4)}"
+                f"  {label!s:<20} {row['cause']!s:<12} "
+                f"{format_percent(row['cumulative_incidence'])} "
+                f"({format_percent(row['lower'])} to {format_percent(row['upper'])}) at "
+                f"{format_number(row['time'], 1)} {unit}"
             )
         if competing["warning"]:
             lines.append(f"  Note: {competing['warning']}")
     parametric = sections.get("parametric")
     if parametric:
-        lines.append("Parametric models by AIC (lower is better):")
+        lines += ["", "Parametric models by AIC (lower is better)"]
         for row in parametric["aic_table"]:
             label = "" if row["group"] is None else f"{row['group']}: "
+            name = LABELS.get(row["distribution"], row["distribution"])
             lines.append(
-                f"  {label}{row['distribution']:<12} AIC {row['aic']:.2f} "
-                f"(Δ {row['delta_aic']:.2f})"
+                f"  {label}{name:<13} AIC {format_number(row['aic'], 2)} "
+                f"(Δ {format_number(row['delta_aic'], 2)})"
             )
     size = sections.get("sample_size")
     if size:
+        lines += ["", "Sample size"]
         for row in size["needed"]:
             lines.append(
-                f"{row['method'].capitalize()}: {row['events']} events, {row['subjects']} "
-                f"subjects for HR {row['hazard_ratio']:g} (power {row['power']:g}, "
-                f"alpha {row['alpha']:g})"
+                f"  {row['method'].capitalize()}: {row['events']:,} events, {row['subjects']:,} "
+                f"subjects for a hazard ratio of {format_plain(row['hazard_ratio'])} "
+                f"(power {format_percent(row['power'])}, alpha {format_plain(row['alpha'])})"
             )
         for row in size["power"] or ():
             lines.append(
-                f"{row['method'].capitalize()}: power {row['power']:.3f} with "
-                f"{row['events']:g} events"
+                f"  {row['method'].capitalize()}: power {format_percent(row['power'])} with "
+                f"{format_plain(row['events'])} events"
             )
     landmark = sections.get("landmark")
     if landmark:
+        lines += ["", f"Landmark at {format_plain(landmark['landmark'])} {unit}"]
         lines.append(
-            f"Landmark at {landmark['landmark']:g} {unit}: {landmark['n_kept']} kept, "
-            f"{landmark['n_excluded']} excluded (event or censored before, or entered after)"
+            f"  {landmark['n_kept']:,} kept, {landmark['n_excluded']:,} left out (event or "
+            "censored before the landmark, or entered after it)"
         )
         comparison = landmark["comparison"]
         if comparison is not None:
             lines.append(
-                f"  {comparison['test']}: chi-square {comparison['statistic']:.2f} on "
-                f"{comparison['df']} df, p = {comparison['p_value']:.3g}"
+                "  After the landmark: "
+                + comparison_sentence(
+                    comparison["test"],
+                    comparison["statistic"],
+                    comparison["df"],
+                    comparison["p_value"],
+                )
             )
     return lines
+
+
+def event_words(prepared: PreparedData) -> str:
+    """The event in words for the summary's headers."""
+    return event_in_words(prepared.roles)

@@ -340,13 +340,13 @@ def cox_model(
 # Residuals have one row per event (Schoenfeld) or per row (martingale): kept as resources, not
 # copied on every rerun.
 @st.cache_resource(max_entries=8, show_spinner="Checking proportional hazards…")
-def ph_check(model_key: tuple, transform: str, _table: ImportedTable) -> tuple:
+def ph_check(model_key: tuple, time_scale: str, _table: ImportedTable) -> tuple:
     """The PH test and the scaled Schoenfeld residuals (for the plots)."""
     from engine.cox_diagnostics import proportional_hazards_test, schoenfeld_residuals
 
     result = cox_model(*model_key, _table)
-    residuals = schoenfeld_residuals(result, transform)
-    test = proportional_hazards_test(result, transform, residuals=residuals)
+    residuals = schoenfeld_residuals(result, time_scale)
+    test = proportional_hazards_test(result, time_scale, residuals=residuals)
     return test, residuals.to_frame()
 
 

@@ -121,11 +121,19 @@ def landmark_curves(
 
 @st.cache_data(max_entries=8, show_spinner="Testing…")
 def landmark_comparison(
-    fingerprint: str, roles_text: str, at: float, test: str, _table: ImportedTable
+    fingerprint: str,
+    roles_text: str,
+    at: float,
+    test: str,
+    rho: float,
+    gamma: float,
+    _table: ImportedTable,
 ):
+    """The group comparison among the subjects kept at the landmark (ρ and γ weigh the
+    Fleming–Harrington test)."""
     from engine.compare import compare_frame
 
     frame = landmark(fingerprint, roles_text, at, _table).frame
     if "_group" not in frame.columns or frame["_group"].nunique(dropna=True) < 2:
         return None
-    return compare_frame(frame, test=test)
+    return compare_frame(frame, test=test, rho=rho, gamma=gamma)

@@ -68,7 +68,7 @@ DEMO_ROLES: dict[str, dict] = {
         "time": None,
         "start": "enrolled",
         "end": "last_visit",
-        "dayfirst": True,
+        "day_first": True,
         "unit": "months",
         "event": "outcome",
         "event_values": ("relapsed",),
@@ -108,6 +108,7 @@ def install_table(session: MutableMapping, table: ImportedTable, label: str, is_
     preset = _demo_roles(table) if is_demo else None
     session[state.ROLES] = suggestions.to_roles(**(preset or {}))
     session[state.ROLES_PRESET] = preset is not None
+    session[state.ROLES_CONFIRMED] = False  # applied at once, flagged until someone checks them
     session[state.DATA_VERSION] = session.get(state.DATA_VERSION, 0) + 1
     session.pop(state.LOAD_ERROR, None)
     state.clear_page_choices(session, ("roles_", "curves_", "compare_", "model_"))
@@ -153,6 +154,16 @@ def roles_key(roles: Roles) -> str:
 
 def set_roles(session: MutableMapping, roles: Roles) -> None:
     session[state.ROLES] = roles
+
+
+def confirm_roles(session: MutableMapping) -> None:
+    """The user has checked the roles in use: the "suggested roles" notice goes away."""
+    session[state.ROLES_CONFIRMED] = True
+
+
+def roles_confirmed(session: MutableMapping) -> bool:
+    """False while suggested roles are in use that nobody has checked."""
+    return bool(session.get(state.ROLES_CONFIRMED, True))
 
 
 def curve_roles(roles: Roles) -> Roles:

@@ -1,6 +1,6 @@
 """One self-contained HTML report of an analysis, to attach to an email or keep with a paper.
 
-The report is built from the same JSON object the command line writes (``schema`` 1: ``data``,
+The report is built from the same JSON object the command line writes (``schema`` 2: ``data``,
 ``curves``, ``comparison``, ``cox``) plus figures, so every number in it is one of the JSON's
 numbers, rounded by ``engine.wording``'s rules; each numeric cell keeps the exact value in a
 ``data-value`` attribute. The file loads nothing: the style sheet is inline, figures are inline
@@ -30,7 +30,9 @@ from app.report_sections import (
     roles_section,
     sample_size_section,
 )
+from engine.cox_diagnostics import TIME_SCALE_WORDS
 from engine.recipe import software_versions
+from engine.roles import Roles, event_in_words
 from engine.wording import format_confidence, format_plain
 
 CAUTIONS = (
@@ -44,12 +46,6 @@ TRANSFORM_WORDS = {
     "log-log": "the log-log (complementary log-log) transform",
     "log": "the log transform",
     "linear": "no transform (linear scale, limits clipped to [0, 1])",
-}
-PH_TRANSFORM_WORDS = {
-    "km": "the Kaplan–Meier transform of time",
-    "rank": "the ranks of the event times",
-    "identity": "time itself",
-    "log": "log time",
 }
 
 STYLE = """
@@ -114,7 +110,7 @@ def methods_paragraph(results: Mapping, settings: Mapping, software: Mapping[str
     text = [
         f"Survival was estimated with the Kaplan–Meier method, with time measured in {unit}. "
         f"Pointwise {ci} confidence intervals used Greenwood's variance with {transform}. "
-        "Median survival and its interval were read from the curve and its confidence band "
+        "Medians and their intervals were read from the curve and its confidence band "
         "(the first time each falls to 0.5 or below); a median is 'not reached' when the curve "
         "stays above 0.5."
     ]
@@ -142,7 +138,7 @@ def methods_paragraph(results: Mapping, settings: Mapping, software: Mapping[str
     cox = results.get("cox")
     if cox:
         ties = cox.get("ties") or settings.get("cox", {}).get("ties", "efron")
-        ph = settings.get("cox", {}).get("ph_transform", "km")
+        ph = settings.get("cox", {}).get("ph_time_scale", "survival")
         text.append(
             "Hazard ratios were estimated with a Cox proportional-hazards model "
             f"({ties.capitalize()} method for tied event times){_model_words(settings)}, "
@@ -150,7 +146,7 @@ def methods_paragraph(results: Mapping, settings: Mapping, software: Mapping[str
             "against their reference level, using complete cases on the model's variables; "
             "intervals and p-values are from Wald statistics. Proportional hazards were checked "
             "with the Grambsch–Therneau test on scaled Schoenfeld residuals against "
-            f"{PH_TRANSFORM_WORDS.get(ph, ph)}."
+            f"{TIME_SCALE_WORDS.get(ph, ph)}."
         )
     names = {"python": "Python", "numpy": "NumPy", "pandas": "pandas", "scipy": "SciPy"}
     versions = ", ".join(f"{names.get(n, n)} {version}" for n, version in software.items())
@@ -176,7 +172,7 @@ def build_report(
 ) -> str:
     """The report as one HTML document (a string).
 
-    ``results`` is the command line's JSON object (schema 1), optionally with ``pairwise`` (a
+    ``results`` is the command line's JSON object (schema 2), optionally with ``pairwise`` (a
     list of records) beside ``comparison`` and ``rmst`` in curve entries; ``settings`` maps each
     analysis to its settings (``Recipe.settings()``); ``roles`` is ``Roles.to_dict()``;
     ``figures`` may hold ``"curves"`` (the Kaplan–Meier figure with numbers at risk) and
@@ -192,6 +188,7 @@ def build_report(
     unit = data.get("time_unit", "")
     confidence = float(settings.get("curves", {}).get("confidence", 0.95))
     cox = results.get("cox")
+    event = event_in_words(Roles.from_dict(roles)) if roles else None
     all_warnings = [
         *warnings,
         *data.get("warnings", []),
@@ -208,10 +205,10 @@ def build_report(
         "</section>",
         data_section(data, fingerprint, filters) if data else "",
         roles_section(roles),
-        curves_section(results.get("curves") or [], unit, confidence, figures.get("curves")),
+        curves_section(results.get("curves") or [], unit, confidence, figures.get("curves"), event),
         comparison_section(results.get("comparison"), results.get("pairwise")),
         cox_section(cox, confidence, figures.get("forest")),
-        ph_section(cox),
+        ph_section(cox, figures.get("residuals"), figures.get("residuals_term")),
         competing_section(
             results.get("competing"), unit, format_confidence(confidence), figures.get("competing")
         ),
@@ -222,7 +219,7 @@ def build_report(
             figures.get("parametric"),
         ),
         sample_size_section(results.get("sample_size")),
-        landmark_section(results.get("landmark"), unit, format_confidence(confidence)),
+        landmark_section(results.get("landmark"), unit, format_confidence(confidence), event),
         "<h2>Warnings</h2>",
         bullets(all_warnings, "warnings") or "<p>None.</p>",
         "<h2>Methods</h2>",

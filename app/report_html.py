@@ -81,7 +81,29 @@ def record_rows(records: Sequence[Mapping]) -> tuple[list[str], list[list[str]]]
             else:
                 row.append(num(value, format_number(value, 2)))
         rows.append(row)
-    return [h.replace("_", " ") for h in headers], rows
+    return [header_words(h) for h in headers], rows
+
+
+HEADER_WORDS = {
+    "group_a": "Group",
+    "group_b": "Against",
+    "statistic": "Chi-squared",
+    "df": "Degrees of freedom",
+    "p_value": "p",
+    "p_holm": "p (Holm)",
+    "p_bh": "p (Benjamini–Hochberg)",
+    "std_err": "Standard error",
+    "se": "Standard error",
+    "n": "Subjects",
+}
+
+
+def header_words(key: str) -> str:
+    """A column header in words for a record key (``p_value`` -> 'p')."""
+    if key in HEADER_WORDS:
+        return HEADER_WORDS[key]
+    text = key.replace("_", " ")
+    return text[:1].upper() + text[1:]
 
 
 def statistics_table(tests: Sequence[tuple[str, Mapping | None]], first: str = "Test") -> str:
@@ -98,7 +120,7 @@ def statistics_table(tests: Sequence[tuple[str, Mapping | None]], first: str = "
                 num(t.get("p_value"), format_p(t.get("p_value"))),
             ]
         )
-    return table([first, "Chi-squared", "df", "p"], rows) if rows else ""
+    return table([first, "Chi-squared", "Degrees of freedom", "p"], rows) if rows else ""
 
 
 def estimate_cells(row: Mapping, estimate: str, fmt) -> list[str]:

@@ -1,7 +1,7 @@
 """The report's sections, one per analysis: data, column roles, curves, comparison, Cox model,
 proportional-hazards checks, competing risks, parametric models, sample size and landmark.
 
-Each takes its part of the command line's JSON (schema 1) and returns an HTML fragment, or ""
+Each takes its part of the command line's JSON (schema 2) and returns an HTML fragment, or ""
 when the analysis was not run; ``app.report.build_report`` puts them in order.
 """
 
@@ -33,6 +33,11 @@ from engine.wording import (
     format_percent,
     format_plain,
     format_ratio,
+    free_name,
+    hazard_ratio_direction,
+    median_name,
+    rmst_name,
+    term_label,
 )
 
 ROLE_WORDS = (
@@ -118,17 +123,29 @@ def roles_section(roles: Mapping | None) -> str:
     return "<h2>Column roles</h2>\n" + table(["Role", "Column or value"], rows)
 
 
-def curves_section(curves: Sequence[Mapping], unit: str, confidence: float, figure) -> str:
+def curves_section(
+    curves: Sequence[Mapping], unit: str, confidence: float, figure, event: str | None = None
+) -> str:
+    """The Kaplan–Meier figure, the summary by group and its sentences; ``event`` names the
+    event in words (``engine.roles.event_in_words``)."""
     if not curves:
         return ""
     ci = format_confidence(confidence)
     times = [p["time"] for p in curves[0].get("at_times", [])]
-    headers = ["Group", "n", "Events", "Censored", "Median", f"{ci} CI"]
+    free = free_name(event).capitalize()
+    headers = [
+        "Group",
+        "Subjects",
+        "Events",
+        "Censored",
+        f"{median_name(event).capitalize()} ({unit})",
+        f"{ci} CI",
+    ]
     for t in times:
-        headers += [f"Survival at {format_plain(t)} {unit}", f"{ci} CI", "At risk"]
+        headers += [f"{free} at {format_plain(t)} {unit}", f"{ci} CI", "At risk"]
     has_rmst = any(c.get("rmst") for c in curves)
     if has_rmst:
-        headers += ["RMST", f"{ci} CI"]
+        headers += [f"{rmst_name(event).capitalize()} ({unit})", f"{ci} CI"]
     rows, sentences = [], []
     for c in curves:
         median = c["median"]
@@ -142,7 +159,7 @@ def curves_section(curves: Sequence[Mapping], unit: str, confidence: float, figu
                 median["lower"], median["upper"], lambda v: format_number(v, missing=NOT_REACHED)
             ),
         ]
-        sentences += curve_sentences(c, unit, confidence)
+        sentences += curve_sentences(c, unit, confidence, event)
         for point in c.get("at_times", []):
             row += [
                 num(point["survival"], format_percent(point["survival"])),
@@ -160,11 +177,16 @@ def curves_section(curves: Sequence[Mapping], unit: str, confidence: float, figu
         "<h2>Survival curves</h2>",
         figure_block(
             figure,
-            f"Kaplan–Meier estimates with pointwise {ci} confidence bands; the table under the "
-            "plot gives the numbers at risk.",
+            f"Kaplan–Meier estimates of the {free_name(event)} with pointwise {ci} confidence "
+            "intervals (dotted edges); a short upright stroke marks each censored time; the "
+            f"table under the plot gives the subjects still at risk. Times in {unit}.",
         ),
         "<h3>Summary by group</h3>",
-        table(headers, rows, caption=f"Times in {unit}; survival in per cent."),
+        table(
+            headers,
+            rows,
+            caption=f"Times in {unit}; probabilities in per cent.",
+        ),
         "<h3>Text for a manuscript</h3>",
         bullets(sentences, "sentences"),
     ]
@@ -194,9 +216,7 @@ def comparison_section(comparison: Mapping | None, pairwise) -> str:
 
 
 def _term_label(term: Mapping) -> str:
-    if term.get("level") is None:
-        return str(term["variable"])
-    return f"{term['variable']}: {term['level']} (vs {term.get('reference')})"
+    return term_label(term["variable"], term.get("level"), term.get("reference"))
 
 
 def cox_section(cox: Mapping | None, confidence: float, forest) -> str:
@@ -208,19 +228,23 @@ def cox_section(cox: Mapping | None, confidence: float, forest) -> str:
         rows.append(
             [
                 cell(_term_label(term)),
-                num(term["coef"], format_number(term["coef"], 3)),
-                num(term["se"], format_number(term["se"], 3)),
                 num(term["hazard_ratio"], format_ratio(term["hazard_ratio"])),
                 interval(term["lower"], term["upper"], format_ratio),
                 num(term["p_value"], format_p(term["p_value"])),
+                num(term["coef"], format_number(term["coef"], 3)),
+                num(term["se"], format_number(term["se"], 3)),
             ]
         )
     parts = [
         "<h2>Cox proportional-hazards model</h2>",
         f'<p class="meta">{cox["n"]:,} rows used, {cox["events"]:,} events; tied times by the '
         f"{escape(str(cox.get('ties', '')).capitalize())} method.</p>",
-        table(["Term", "Coefficient", "SE", "Hazard ratio", f"{ci} CI", "p"], rows),
-        figure_block(forest, "Hazard ratios with their intervals on a log scale."),
+        table(cox_headers(ci), rows),
+        figure_block(
+            forest,
+            f"Hazard ratios (squares) with their {ci}s on a log scale; the dashed line is a "
+            "hazard ratio of 1.",
+        ),
         "<h3>Whole-model tests</h3>",
         statistics_table(
             [
@@ -253,11 +277,11 @@ def cox_section(cox: Mapping | None, confidence: float, forest) -> str:
             + "."
         )
     parts += [f"<p>{line}</p>" for line in model_lines]
-    drop_one = cox.get("drop_one") or []
-    if drop_one:
+    without_each = cox.get("without_each") or []
+    if without_each:
         parts += [
-            "<h3>Each variable removed in turn (likelihood-ratio tests)</h3>",
-            statistics_table([(d["variable"], d) for d in drop_one], "Variable removed"),
+            "<h3>The model without each covariate (likelihood-ratio tests)</h3>",
+            statistics_table([(d["variable"], d) for d in without_each], "Covariate left out"),
         ]
     parts += [
         "<h3>Text for a manuscript</h3>",
@@ -270,16 +294,60 @@ def _quote(value) -> str:
     return '"' + escape("" if value is None else repr(value)) + '"'
 
 
-def ph_section(cox: Mapping | None) -> str:
-    checks = (cox or {}).get("ph_check") or []
-    if not checks:
+def ph_section(cox: Mapping | None, figure=None, plotted: str | None = None) -> str:
+    """The Grambsch–Therneau tests per covariate and for all terms together, the time scale in
+    words, and the scaled Schoenfeld residuals of ``plotted`` (the term with the smallest
+    p-value) when ``figure`` is given."""
+    from engine.cox_diagnostics import ALL_TERMS, TIME_SCALE_WORDS
+
+    check = (cox or {}).get("ph_check")
+    if not check:
         return ""
-    return (
-        "<h2>Proportional-hazards checks</h2>\n"
-        + statistics_table([(c["variable"], c) for c in checks], "Variable")
-        + "<p>A small p-value suggests the hazard ratio of that variable changes over time; look "
-        "at its residual plot before trusting a single hazard ratio.</p>"
-    )
+    scale = check.get("time_scale", "survival")
+    rows = [(c["variable"], c) for c in check["terms"]] + [(ALL_TERMS, check["all_terms"])]
+    parts = [
+        "<h2>Proportional-hazards checks</h2>",
+        statistics_table(rows, "Covariate"),
+        "<p>"
+        + escape(
+            "Grambsch–Therneau tests from scaled Schoenfeld residuals, on the time scale "
+            f"“{scale}”: {TIME_SCALE_WORDS.get(scale, scale)}. A small p-value suggests the "
+            "hazard ratio of that covariate changes over time."
+        )
+        + "</p>",
+    ]
+    if figure is not None and plotted:
+        parts.append(
+            figure_block(
+                figure,
+                f"Scaled Schoenfeld residuals of {plotted} (the term with the smallest p-value) "
+                "against time on that scale, with a smoother; a flat smoother at the dashed line "
+                "(the model's coefficient) is what proportional hazards predicts. The "
+                "Regression page of the app draws every term.",
+            )
+        )
+    else:
+        parts.append(
+            "<p>"
+            + escape(
+                "Before trusting a single hazard ratio, look at the residual plot of each "
+                "covariate on the Regression page of the app (Proportional hazards tab)."
+            )
+            + "</p>"
+        )
+    return "\n".join(parts)
+
+
+def cox_headers(ci: str) -> list[str]:
+    """One order and one set of names for the Cox table, as on the Regression page."""
+    return [
+        "Term",
+        "Hazard ratio",
+        f"{ci} CI",
+        "p",
+        "Coefficient (log hazard ratio)",
+        "Standard error",
+    ]
 
 
 # --- optional analyses (competing risks, parametric, sample size, landmark) ---------------------
@@ -428,6 +496,7 @@ def sample_size_section(section: Mapping | None) -> str:
             num(r["hazard_ratio"], format_plain(r["hazard_ratio"])),
             num(r["power"], format_percent(r["power"])),
             num(r["alpha"], format_plain(r["alpha"])),
+            num(r.get("sides"), "" if r.get("sides") is None else f"{int(r['sides'])}-sided"),
             num(r["allocation_ratio"], format_plain(r["allocation_ratio"])),
             num(r["events"], f"{r['events']:,}"),
             num(r["subjects"], f"{r['subjects']:,}"),
@@ -436,8 +505,21 @@ def sample_size_section(section: Mapping | None) -> str:
     ]
     parts = [
         "<h2>Sample size and power</h2>",
+        "<p>" + escape(hazard_ratio_direction(section["needed"][0]["hazard_ratio"])) + "</p>"
+        if section["needed"]
+        else "",
         table(
-            ["Formula", "Hazard ratio", "Power", "Alpha", "Allocation", "Events", "Subjects"], rows
+            [
+                "Formula",
+                "Hazard ratio (experimental vs control)",
+                "Power",
+                "Alpha",
+                "Sides",
+                "Allocation (experimental : control)",
+                "Events",
+                "Subjects",
+            ],
+            rows,
         ),
     ]
     for r in section.get("power") or ():
@@ -447,10 +529,10 @@ def sample_size_section(section: Mapping | None) -> str:
             f"{escape(format_plain(r['hazard_ratio']))} is "
             f"{escape(format_percent(r['power']))}.</p>"
         )
-    return "\n".join(parts)
+    return "\n".join(p for p in parts if p)
 
 
-def landmark_section(section: Mapping | None, unit: str, ci: str) -> str:
+def landmark_section(section: Mapping | None, unit: str, ci: str, event: str | None = None) -> str:
     if not section:
         return ""
     parts = [
@@ -460,7 +542,14 @@ def landmark_section(section: Mapping | None, unit: str, ci: str) -> str:
         f"{section['n_excluded']:,} are left out (event or censoring before it, or entry "
         "after it). Times are measured from the landmark.</p>",
         table(
-            ["Group", "Rows", "Kept", "Event before", "Censored before", "Entered after"],
+            [
+                "Group",
+                "Subjects",
+                "Kept",
+                "Event before the landmark",
+                "Censored before the landmark",
+                "Entered after the landmark",
+            ],
             (
                 [cell(group_label(r["group"]))]
                 + [
@@ -476,9 +565,29 @@ def landmark_section(section: Mapping | None, unit: str, ci: str) -> str:
                 for r in section["counts"]
             ),
         ),
-        bullets((s for c in section["curves"] for s in curve_sentences(c, unit)), "sentences"),
+        bullets(
+            (
+                s
+                for c in section["curves"]
+                for s in curve_sentences(c, unit, event=event, after="after the landmark")
+            ),
+            "sentences",
+        ),
     ]
     comparison = section.get("comparison")
     if comparison:
         parts.append(statistics_table([(comparison["test"], comparison)]))
+        parts.append(
+            "<p>"
+            + escape(
+                "After the landmark: "
+                + comparison_sentence(
+                    comparison["test"],
+                    comparison["statistic"],
+                    comparison["df"],
+                    comparison["p_value"],
+                )
+            )
+            + "</p>"
+        )
     return "\n".join(p for p in parts if p)

@@ -34,10 +34,10 @@ SOURCE_TABLE = "shared_source_table"  # the table as read, while a filtered copy
 TRANSFORM_LABELS = {"log-log": "log-log (default)", "log": "log", "linear": "linear"}
 TIES_LABELS = {"efron": "Efron (default)", "breslow": "Breslow"}
 PH_LABELS = {
-    "km": "Kaplan–Meier scale (default)",
-    "rank": "rank of time",
-    "identity": "time itself",
-    "log": "log time",
+    "survival": "Survival: time through the Kaplan–Meier estimate (default)",
+    "rank": "Rank of the event times",
+    "time": "Time as recorded",
+    "log-time": "Log of time",
 }
 # Choices of the Group comparison and Regression pages that are not plain widget values: the
 # groups compared (the group role or a numeric column cut at quantiles), the strata, the model's
@@ -184,7 +184,7 @@ WIDGETS = (
     Widget("comparison", "rho", "compare_rho", float, float),
     Widget("comparison", "gamma", "compare_gamma", float, float),
     Widget("cox", "ties", "model_ties", *_labelled(TIES_LABELS)),
-    Widget("cox", "ph_transform", "model_ph_transform", *_labelled(PH_LABELS)),
+    Widget("cox", "ph_time_scale", "model_ph_time_scale", *_labelled(PH_LABELS)),
     Widget("competing", "times", "cr_times", _times_text, _times_from_text),
     Widget("competing", "by_group", "cr_by_group", bool, bool),
     Widget("parametric", "distributions", "param_distributions", list, list),
@@ -201,6 +201,8 @@ WIDGETS = (
     Widget("sample_size", "events", "power_events", _zero_for_none, _optional_number),
     Widget("landmark", "time", "landmark_time", _zero_for_none, float),
     Widget("landmark", "test", "landmark_test", _same, _same),
+    Widget("landmark", "rho", "landmark_rho", float, float),
+    Widget("landmark", "gamma", "landmark_gamma", float, float),
 )
 
 
@@ -290,6 +292,7 @@ def restore_recipe(session: MutableMapping, recipe: Recipe) -> list[str]:
     warnings = check_fingerprint(recipe, table) + import_option_differences(recipe, table)
     state.clear_page_choices(session, PAGE_PREFIXES)
     session[state.ROLES] = roles
+    session[state.ROLES_CONFIRMED] = True  # the recipe's roles were chosen by a person
     session[FILTERS] = tuple(recipe.filters)
     in_use = session[state.TABLE] = filtered_table(table, recipe.filters)
     if in_use is table:
@@ -431,14 +434,17 @@ def manuscript_box(sentences, what: str = "these results") -> None:
         )
 
 
-def curve_text(frame, times, confidence: float, transform: str, unit: str) -> list[str]:
-    """Median and survival-at-time sentences for every curve (engine.summary.curves_json)."""
+def curve_text(
+    frame, times, confidence: float, transform: str, unit: str, event: str | None = None
+) -> list[str]:
+    """Median and survival-at-time sentences for every curve (engine.summary.curves_json),
+    naming the event (``engine.roles.event_in_words``)."""
     from engine.summary import curves_json
     from engine.wording import curve_sentences
 
     sentences = []
     for curve in curves_json(frame, times=times, confidence=confidence, transform=transform):
-        sentences += curve_sentences(curve, unit, confidence)
+        sentences += curve_sentences(curve, unit, confidence, event)
     return sentences
 
 

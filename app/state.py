@@ -18,6 +18,9 @@ DATASET_IS_DEMO = "dataset_is_demo"
 ROLES = "shared_roles"  # engine.roles.Roles in use
 ROLES_PRESET = "shared_roles_preset"  # True when a demo's documented roles were applied
 ROLES_SUGGESTED = "shared_roles_suggested"  # engine.roles.RoleSuggestions for the table in use
+# False while the roles in use are Hazel's suggestions (or a demo's preset) that nobody has
+# checked yet: every page then says "Suggested roles in use — check them".
+ROLES_CONFIRMED = "shared_roles_confirmed"
 DATA_VERSION = "data_version"  # bumps when a new table is loaded: resets page widgets
 PENDING_UPLOAD = "pending_upload"  # (name, bytes) of a file to read on the next run
 LOAD_ERROR = "load_error"  # message from the last failed import, shown on the import page

@@ -13,6 +13,7 @@ import streamlit as st
 
 from app import charts, exports, state
 from engine.errors import HazelError
+from engine.wording import format_number, format_p
 
 log = logging.getLogger("hazel.app")
 
@@ -27,6 +28,13 @@ CAUTIONS = (
 NOT_SIGNIFICANT_CAUTION = (
     "A test that is not significant does not show that the groups are the same: "
     "it may only mean there were too few events to see a difference."
+)
+
+
+SUGGESTED_ROLES_NOTICE = (
+    "**Suggested roles in use — check them.** Hazel guessed the column roles from the names "
+    "and contents and applied them so the pages work at once. Check them on the Column roles "
+    "page and confirm them there."
 )
 
 
@@ -165,10 +173,24 @@ def prepared_or_stop(table, roles, what: str):
 
 
 def fmt_p(p: float | None) -> str:
-    """p-values as people read them: three significant digits, or '< 0.001'."""
+    """p-values as the report prints them (``engine.wording.format_p``: 3 decimals, '< 0.001');
+    '—' when there is none."""
     if p is None or pd.isna(p):
         return "—"
-    return "< 0.001" if p < 0.001 else f"{p:.3f}"
+    return format_p(float(p))
+
+
+def test_table(tests: pd.DataFrame, first: str) -> pd.DataFrame:
+    """Chi-squared tests (columns variable, statistic, df, p_value) with plain-word headers,
+    rounded as in the report; the first column is headed ``first``."""
+    return pd.DataFrame(
+        {
+            first: tests["variable"].astype(str),
+            "Chi-squared": tests["statistic"].map(lambda v: format_number(v, 2)),
+            "Degrees of freedom": tests["df"],
+            "p": tests["p_value"].map(fmt_p),
+        }
+    )
 
 
 def fmt_num(value: float | None, digits: int = 3) -> str:
@@ -221,6 +243,8 @@ def sidebar(roles_page) -> None:
             + ("  \n:orange-badge[Invented demo data]" if demo else "")
         )
         roles = data.current_roles(st.session_state)
+        if not data.roles_confirmed(st.session_state):
+            st.warning(SUGGESTED_ROLES_NOTICE, icon=":material/rule:")
         st.markdown("**Roles**  \n" + "  \n".join(roles_lines(roles)))
         try:
             report = data.prepared(table, roles).report

@@ -7,8 +7,8 @@ Newton–Raphson here, being a Poisson-type likelihood with concave log-likeliho
 
 Covariates come from the prepared frame: numeric columns as they are, categorical columns
 (pandas Categorical, first category the reference) as one indicator per other level, named
-``column[level]``. Rows missing any model variable are dropped (complete cases) and counted per
-variable.
+like the Cox table's terms: ``column: level vs reference``. Rows missing any model variable are
+dropped (complete cases) and counted per variable.
 """
 
 from __future__ import annotations
@@ -26,16 +26,26 @@ from engine.errors import AnalysisError, RoleError, preview_values
 from engine.json_values import frame_records
 from engine.parametric import (
     DISTRIBUTIONS,
+    PARAMETER_WORDS,
     AICComparison,
     log_cumulative_hazard,
     log_quantile,
 )
+from engine.wording import term_label
 
 # lifelines AFT fitter, its location parameter and its shape parameter (modelled on log scale)
 _LIFELINES_AFT = {
     "weibull": (WeibullAFTFitter, "lambda_", "rho_"),
-    "lognormal": (LogNormalAFTFitter, "mu_", "sigma_"),
-    "loglogistic": (LogLogisticAFTFitter, "alpha_", "beta_"),
+    "log-normal": (LogNormalAFTFitter, "mu_", "sigma_"),
+    "log-logistic": (LogLogisticAFTFitter, "alpha_", "beta_"),
+}
+# log T = x'beta + sigma W, stated once for the AFT table
+AFT_PARAMETRISATION = {
+    "exponential": "log T = intercept + x'coefficients + W, W standard extreme value (shape 1)",
+    "weibull": "S(t | x) = exp(−(t / scale(x))^shape), log scale(x) = intercept + x'coefficients",
+    "log-normal": "log T = intercept + x'coefficients + SD × Z, Z standard normal",
+    "log-logistic": "S(t | x) = 1 / (1 + (t / scale(x))^shape), log scale(x) = intercept + "
+    "x'coefficients",
 }
 
 
@@ -50,7 +60,7 @@ class Encoding:
     def terms(self) -> tuple[str, ...]:
         if self.levels is None:
             return (self.column,)
-        return tuple(f"{self.column}[{lv}]" for lv in self.levels[1:])
+        return tuple(term_label(self.column, lv, self.levels[0]) for lv in self.levels[1:])
 
 
 def _encodings(frame: pd.DataFrame, covariates) -> tuple[Encoding, ...]:
@@ -110,7 +120,9 @@ class AFTFit:
     missing_by_covariate: dict  # covariate -> rows missing it (among rows otherwise usable)
     max_time: float
     coefficients: pd.DataFrame  # term, coef, std_error, lower, upper, time_ratio(+bounds), p
-    ancillary: pd.DataFrame  # parameter (log shape / log sigma), estimate, std_error, lower, upper
+    ancillary: (
+        pd.DataFrame
+    )  # parameter (shape, or SD of log time), estimate, std_error, lower, upper
     log_likelihood: float
     aic: float
     confidence_level: float
@@ -121,13 +133,13 @@ class AFTFit:
             raise AnalysisError("Every profile needs a value for every covariate of the model.")
         coef = self.coefficients.set_index("term")["coef"]
         location = coef["Intercept"] + x.to_numpy() @ coef[list(x.columns)].to_numpy()
-        shape = float(np.exp(self.ancillary["estimate"].iloc[0])) if len(self.ancillary) else 1.0
+        shape = float(self.ancillary["estimate"].iloc[0]) if len(self.ancillary) else 1.0
         return location, shape
 
     def _theta(self, location: float, shape: float) -> np.ndarray:
         if self.distribution == "exponential":
             return np.array([-location])
-        if self.distribution == "lognormal":
+        if self.distribution == "log-normal":
             return np.array([location, shape])
         return np.array([np.exp(location), shape])
 
@@ -179,6 +191,7 @@ class AFTFit:
             "log_likelihood": float(self.log_likelihood),
             "aic": float(self.aic),
             "confidence_level": float(self.confidence_level),
+            "parametrisation": AFT_PARAMETRISATION[self.distribution],
             "coefficients": frame_records(self.coefficients),
             "ancillary": frame_records(self.ancillary),
         }
@@ -283,14 +296,16 @@ def fit_aft(
         se = np.sqrt(np.diag(var.loc[index, index].to_numpy(dtype=float)))
         a = float(params.loc[(shape_name, "Intercept")])
         a_se = float(np.sqrt(var.loc[(shape_name, "Intercept"), (shape_name, "Intercept")]))
+        # lifelines models the shape (or SD) on the log scale: shown on its own scale, the
+        # interval transformed back and the standard error by the delta method
         ancillary = pd.DataFrame(
             [
                 {
-                    "parameter": f"log_{shape_name.rstrip('_')}",
-                    "estimate": a,
-                    "std_error": a_se,
-                    "lower": a - z * a_se,
-                    "upper": a + z * a_se,
+                    "parameter": PARAMETER_WORDS[shape_name],
+                    "estimate": float(np.exp(a)),
+                    "std_error": float(np.exp(a) * a_se),
+                    "lower": float(np.exp(a - z * a_se)),
+                    "upper": float(np.exp(a + z * a_se)),
                 }
             ]
         )

@@ -1,4 +1,4 @@
-"""One analysis run from settings: the sections of the schema-1 JSON object.
+"""One analysis run from settings: the sections of the JSON object (schema 2).
 
 The command line, the report and a replayed recipe all call `run_analysis`, so the numbers they
 show come from one place. Settings use the layout a recipe stores:
@@ -39,7 +39,7 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
     "cox": {
         "ties": "efron",
         "confidence": 0.95,
-        "ph_transform": "km",
+        "ph_time_scale": "survival",  # engine.cox_diagnostics.TIME_SCALES
         "covariates": None,
         "strata": None,
         "reference": None,
@@ -47,7 +47,7 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
     # The analyses below run only when the settings name them (a recipe, --competing ...).
     "competing": {"times": [], "by_group": True, "cause_specific_cox": True},
     "parametric": {
-        "distributions": ["exponential", "weibull", "lognormal", "loglogistic"],
+        "distributions": ["exponential", "weibull", "log-normal", "log-logistic"],
         "by_group": False,
         "times": [],
         "horizon": None,
@@ -62,7 +62,8 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
         "event_probability": 1.0,
         "events": None,
     },
-    "landmark": {"time": None, "test": "logrank"},
+    # rho, gamma: the Fleming–Harrington weights when test is "fleming-harrington"
+    "landmark": {"time": None, "test": "logrank", "rho": 0.0, "gamma": 0.0},
 }
 CORE_ANALYSES = ("curves", "comparison", "cox")  # always run (when the roles allow)
 OPTIONAL_ANALYSES = ("competing", "parametric", "sample_size", "landmark")
@@ -230,7 +231,7 @@ def run_analysis(
             reference=cox["reference"],
             source=source,
         )
-        sections["cox"] = cox_json(result, proportional_hazards_test(result, cox["ph_transform"]))
+        sections["cox"] = cox_json(result, proportional_hazards_test(result, cox["ph_time_scale"]))
     from engine.analysis_extra import extra_sections  # the optional analyses
 
     sections.update(extra_sections(prepared, chosen))

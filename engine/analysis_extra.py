@@ -170,5 +170,7 @@ def landmark_section(prepared: PreparedData, chosen: Mapping) -> dict:
             confidence=curves["confidence"],
             transform=curves["ci_transform"],
         ),
-        "comparison": comparison_section(sub, chosen["test"], 0.0, 0.0),
+        "comparison": comparison_section(
+            sub, chosen["test"], float(chosen.get("rho", 0.0)), float(chosen.get("gamma", 0.0))
+        ),
     }

@@ -9,7 +9,7 @@ from __future__ import annotations
 import datetime
 import warnings
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
@@ -281,10 +281,13 @@ def _time_in_unit(frame, roles: Roles, exclude, notes: list[str]) -> np.ndarray:
     missing = (frame[roles.start].isna() | frame[roles.end].isna()).to_numpy()
     exclude(missing, MISSING_TIME)
     exclude(np.isnat(start) | np.isnat(end), UNPARSEABLE_DATE)
+    if not roles.date_format:
+        for column, parsed in ((roles.start, start), (roles.end, end)):
+            notes.extend(_other_order_notes(frame[column], parsed, roles))
     days = (end - start) / np.timedelta64(1, "D")
     with np.errstate(invalid="ignore"):
         exclude(days < 0, END_BEFORE_START)
-    if not roles.dayfirst and not roles.date_format:
+    if not roles.day_first and not roles.date_format:
         notes.extend(_ambiguous_date_notes(frame, roles))
     return convert_time(days, "days", roles.unit)
 
@@ -327,7 +330,7 @@ def _dates(series: pd.Series, roles: Roles) -> np.ndarray:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", UserWarning)
             parsed = pd.to_datetime(
-                text, format=roles.date_format, dayfirst=roles.dayfirst, errors="coerce"
+                text, format=roles.date_format, dayfirst=roles.day_first, errors="coerce"
             )
     if getattr(parsed.dt, "tz", None) is not None:
         parsed = parsed.dt.tz_localize(None)
@@ -348,6 +351,35 @@ def _dates(series: pd.Series, roles: Roles) -> np.ndarray:
 def _holds_date_objects(series: pd.Series) -> bool:
     present = series.iloc[:1000].dropna()
     return len(present) > 0 and all(isinstance(v, datetime.date) for v in present)
+
+
+def _other_order_notes(series: pd.Series, parsed: np.ndarray, roles: Roles) -> list[str]:
+    """A warning when dates that failed in the order used (month first, or day first) would
+    be read in the other order, naming the switch that reads them (app and command line)."""
+    failing = series.notna().to_numpy() & np.isnat(parsed)
+    if not failing.any() or pd.api.types.is_datetime64_any_dtype(series):
+        return []
+    other = replace(roles, day_first=not roles.day_first)
+    try:
+        rescued = ~np.isnat(_dates(series[failing], other))
+    except RoleError:  # none of them reads in the other order either
+        return []
+    count = int(rescued.sum())
+    if count == 0 or count < 0.5 * int(failing.sum()):
+        return []
+    example = preview_values(series[failing][rescued].unique()[:3])
+    used, instead = ("month", "day") if not roles.day_first else ("day", "month")
+    fix = (
+        "switch on 'Dates are day first' on the Column roles page (command line: --day-first)"
+        if not roles.day_first
+        else "switch off 'Dates are day first' on the Column roles page (command line: leave "
+        "out --day-first)"
+    )
+    return [
+        f"{count:,} date(s) in {series.name!r} (such as {example}) could not be read {used} "
+        f"first but can be read {instead} first; they are left out as '{UNPARSEABLE_DATE}'. "
+        f"If the dates are written {instead} first, {fix}."
+    ]
 
 
 def _ambiguous_date_notes(frame, roles: Roles) -> list[str]:

@@ -82,7 +82,7 @@ class CoxResult:
     null_loglik: float
     aic: float
     concordance: ConcordanceResult
-    drop_one: tuple[ChiSquareTest, ...]
+    without_each: tuple[ChiSquareTest, ...]  # likelihood-ratio test of removing each variable
     iterations: int
     converged: bool
     dropped: dict  # variable -> rows dropped because it was missing
@@ -93,7 +93,8 @@ class CoxResult:
     def to_frame(self) -> pd.DataFrame:
         return pd.DataFrame([vars(t) for t in self.terms])
 
-    def to_dict(self, ph_check: Sequence[ChiSquareTest] | None = None) -> dict:
+    def to_dict(self, ph_check: Mapping | None = None) -> dict:
+        """JSON-ready; ``ph_check`` is ``cox_diagnostics.PHTest.to_dict()`` (or None)."""
         return {
             "n": int(self.n),
             "events": int(self.events),
@@ -115,8 +116,8 @@ class CoxResult:
             "concordance_se": json_float(self.concordance.standard_error),
             "rows_dropped": {k: int(v) for k, v in self.dropped.items()},
             "variable_wald": [t.to_dict() for t in self.variable_wald],
-            "drop_one": [t.to_dict() for t in self.drop_one],
-            "ph_check": None if ph_check is None else [t.to_dict() for t in ph_check],
+            "without_each": [t.to_dict() for t in self.without_each],
+            "ph_check": None if ph_check is None else dict(ph_check),
             "warnings": list(self.warnings),
         }
 
@@ -154,7 +155,7 @@ def fit_cox(
     confidence: float = 0.95,
     time_col: str = "_time",
     event_col: str = "_event",
-    drop_one: bool = True,
+    without_each: bool = True,
     max_iterations: int = 50,
 ) -> CoxResult:
     """Fit a Cox model by Newton–Raphson on the complete cases of the model's variables."""
@@ -233,7 +234,7 @@ def fit_cox(
         used_index=frame.index.to_numpy()[used],
     )
     null_loglik = fit.null_loglik
-    drop_tests = tuple(_drop_one(layout, scaled, design, fit, ties) if drop_one else ())
+    removal_tests = tuple(_without_each(layout, scaled, design, fit, ties) if without_each else ())
     return CoxResult(
         n=int(used.sum()),
         events=events,
@@ -248,7 +249,7 @@ def fit_cox(
         null_loglik=null_loglik,
         aic=-2 * fit.loglik + 2 * p,
         concordance=concordance,
-        drop_one=drop_tests,
+        without_each=removal_tests,
         iterations=fit.iterations,
         converged=fit.converged,
         dropped=dict(design.dropped),
@@ -290,7 +291,7 @@ def _variable_wald(design: Design, beta, covariance):
             yield chi_square(variable, statistic, len(cols))
 
 
-def _drop_one(layout, scaled, design: Design, fit, ties):
+def _without_each(layout, scaled, design: Design, fit, ties):
     """Likelihood-ratio test of each variable: refit without it on the same rows (starting from
     the full model's other coefficients, which saves iterations)."""
     for variable in design.variables:
@@ -305,7 +306,9 @@ def _drop_one(layout, scaled, design: Design, fit, ties):
 
 def cox_json(result: CoxResult | None, ph_check=None):
     """The command line's "cox" object, or None without a model. ``ph_check`` is a
-    ``cox_diagnostics.PHTest`` (its per-variable and GLOBAL rows are used) or those rows."""
+    ``cox_diagnostics.PHTest`` (or its ``to_dict()``)."""
     if result is None:
         return None
-    return result.to_dict(getattr(ph_check, "checks", ph_check))
+    if ph_check is not None and not isinstance(ph_check, Mapping):
+        ph_check = ph_check.to_dict()
+    return result.to_dict(ph_check)

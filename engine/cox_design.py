@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 
 from engine.errors import AnalysisError, preview_values
+from engine.wording import term_label
 
 SMALL_LEVEL_ROWS = 5  # common practice: a level this small gives an unstable hazard ratio
 VIF_LIMIT = 10.0  # common practice: variance inflation above 10 signals near-collinearity
@@ -24,7 +25,8 @@ class Term:
 
     @property
     def label(self) -> str:
-        return self.variable if self.level is None else f"{self.variable}: {self.level}"
+        """'variable', or 'variable: level vs reference' (``engine.wording.term_label``)."""
+        return term_label(self.variable, self.level, self.reference)
 
 
 @dataclass(frozen=True)

@@ -4,7 +4,11 @@ The proportional-hazards test is the Grambsch–Therneau (1994) approximation fr
 Schoenfeld residuals r*_k = beta + d V r_k (d events, V the coefficients' covariance): with g the
 transformed event times centred on their mean and u = sum_k g_k r*_k, a set J of terms gives
     T_J = u_J' (V_JJ)^-1 u_J / (d sum_k g_k^2)   on |J| degrees of freedom,
-per term (|J| = 1), per variable (all levels of a categorical) and globally (all terms).
+per term (|J| = 1), per variable (all levels of a categorical) and for all terms together.
+
+The time scale g is named in words: "survival" (1 − the Kaplan–Meier estimate just before each
+event time, the default), "rank" (the ranks of the event times), "time" (time as recorded) and
+"log-time" (its logarithm).
 """
 
 from __future__ import annotations
@@ -20,7 +24,14 @@ from engine.cox_likelihood import baseline_hazard, event_means, row_totals
 from engine.curves import kaplan_meier
 from engine.errors import AnalysisError, preview_values
 
-TRANSFORMS = ("km", "rank", "identity", "log")
+TIME_SCALES = ("survival", "rank", "time", "log-time")
+TIME_SCALE_WORDS = {
+    "survival": "time transformed by the Kaplan–Meier estimate (1 − survival just before it)",
+    "rank": "the ranks of the event times",
+    "time": "time as recorded",
+    "log-time": "the logarithm of time",
+}
+ALL_TERMS = "All terms together"  # the joint test's row label
 FUNCTIONAL_FORM_BINS = 20
 
 
@@ -32,23 +43,24 @@ def _km_step(time: np.ndarray, event: np.ndarray, at: np.ndarray, side: str) -> 
     return survival[np.searchsorted(curve.time, at, side=side)]
 
 
-def transform_times(transform: str, event_times, all_times, all_events) -> np.ndarray:
+def transform_times(time_scale: str, event_times, all_times, all_events) -> np.ndarray:
     """The time scale g(t) at each event time for the proportional-hazards test."""
-    if transform == "identity":
+    if time_scale == "time":
         return np.asarray(event_times, dtype=float)
-    if transform == "log":
+    if time_scale == "log-time":
         if np.any(np.asarray(event_times) <= 0):
             raise AnalysisError(
-                "The log time transform needs positive event times; some events are at time 0. "
-                "Use the km, rank or identity transform."
+                "The log-time scale needs positive event times; some events are at time 0. "
+                "Use the survival, rank or time scale."
             )
         return np.log(event_times)
-    if transform == "rank":
+    if time_scale == "rank":
         return stats.rankdata(event_times)
-    if transform == "km":
+    if time_scale == "survival":
         return 1 - _km_step(np.asarray(all_times), np.asarray(all_events), event_times, "left")
     raise AnalysisError(
-        f"Time transform {transform!r} is not known; use one of {preview_values(TRANSFORMS)}."
+        f"Time scale {time_scale!r} of the proportional-hazards check is not known; use one of "
+        f"{preview_values(TIME_SCALES)}."
     )
 
 
@@ -67,7 +79,7 @@ class SchoenfeldResiduals:
         return {str(k): list(v) for k, v in clean.to_dict(orient="list").items()}
 
 
-def schoenfeld_residuals(result: CoxResult, transform: str = "km") -> SchoenfeldResiduals:
+def schoenfeld_residuals(result: CoxResult, time_scale: str = "survival") -> SchoenfeldResiduals:
     model = result.model
     layout = model.layout
     gamma = model.beta * model.scale
@@ -76,7 +88,7 @@ def schoenfeld_residuals(result: CoxResult, transform: str = "km") -> Schoenfeld
     raw = (model.scaled[ev] - means) * model.scale
     scaled = model.beta + layout.n_events * raw @ model.covariance
     event_times = layout.time[ev]
-    g = transform_times(transform, event_times, layout.time, layout.event)
+    g = transform_times(time_scale, event_times, layout.time, layout.event)
     table = pd.DataFrame(
         {
             "row": model.used_index[layout.order[ev]],
@@ -96,37 +108,44 @@ def schoenfeld_residuals(result: CoxResult, transform: str = "km") -> Schoenfeld
 
 @dataclass(frozen=True)
 class PHTest:
-    transform: str
+    time_scale: str
     terms: tuple[ChiSquareTest, ...]  # one per term, named by its label
     variables: tuple[ChiSquareTest, ...]  # one per variable (joint over a categorical's levels)
-    global_test: ChiSquareTest
+    all_terms: ChiSquareTest  # every term at once
 
     @property
     def checks(self) -> tuple[ChiSquareTest, ...]:
-        """Per variable and GLOBAL: the command line's "ph_check"."""
-        return (*self.variables, self.global_test)
+        """Per variable, then all terms together: the rows a table of the check shows."""
+        return (*self.variables, self.all_terms)
 
     def to_frame(self) -> pd.DataFrame:
         rows = [("term", t) for t in self.terms] + [("variable", t) for t in self.variables]
-        rows.append(("global", self.global_test))
+        rows.append(("all terms", self.all_terms))
         return pd.DataFrame(
-            [{"kind": kind, **vars(t), "transform": self.transform} for kind, t in rows]
+            [{"tested": kind, **vars(t), "time_scale": self.time_scale} for kind, t in rows]
         )
 
     def to_dict(self) -> dict:
+        """The command line's ``cox.ph_check``: the time scale, one test per variable and the
+        joint test of all terms."""
+        all_terms = self.all_terms.to_dict()
+        del all_terms["variable"]
         return {
-            "transform": self.transform,
-            "terms": [t.to_dict() for t in self.terms],
-            "checks": [t.to_dict() for t in self.checks],
+            "time_scale": self.time_scale,
+            "terms": [t.to_dict() for t in self.variables],
+            "all_terms": all_terms,
         }
 
 
 def proportional_hazards_test(
-    result: CoxResult, transform: str = "km", residuals: SchoenfeldResiduals | None = None
+    result: CoxResult,
+    time_scale: str = "survival",
+    residuals: SchoenfeldResiduals | None = None,
 ) -> PHTest:
-    """Grambsch–Therneau test per term, per variable and GLOBAL (see the module docstring)."""
+    """Grambsch–Therneau test per term, per variable and for all terms together (see the
+    module docstring)."""
     if residuals is None:
-        residuals = schoenfeld_residuals(result, transform)
+        residuals = schoenfeld_residuals(result, time_scale)
     g = residuals.table["transformed_time"].to_numpy(dtype=float)
     g = g - g.mean()
     d = result.model.layout.n_events
@@ -144,8 +163,8 @@ def proportional_hazards_test(
 
     terms = tuple(joint(t.label, np.array([j])) for j, t in enumerate(design.terms))
     variables = tuple(joint(v, design.columns_of(v)) for v in design.variables)
-    global_test = joint("GLOBAL", np.arange(len(design.terms)))
-    return PHTest(transform, terms, variables, global_test)
+    all_terms = joint(ALL_TERMS, np.arange(len(design.terms)))
+    return PHTest(time_scale, terms, variables, all_terms)
 
 
 @dataclass(frozen=True)

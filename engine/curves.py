@@ -304,9 +304,10 @@ def survival_at(curve: SurvivalCurve, times) -> SurvivalAtTable:
 
 
 QUANTILE_METHOD = (
-    "Quantile t_p = first time with S(t) <= 1 - p. Interval by inverting the pointwise {transform} "
-    "band: lower limit = first time the band's lower curve is <= 1 - p, upper limit = first time "
-    "the band's upper curve is <= 1 - p (Brookmeyer–Crowley-type test inversion on that scale)."
+    "A quantile (the median: half) is the first time the curve falls to or below the share "
+    "still free of the event that defines it. Its interval is read from the pointwise "
+    "{transform} band: from the first time the lower edge of the band falls that low to the "
+    "first time the upper edge does (the Brookmeyer–Crowley construction on that scale)."
 )
 
 

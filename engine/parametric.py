@@ -29,22 +29,39 @@ from scipy.stats import norm
 from engine.errors import AnalysisError, preview_values
 from engine.json_values import frame_records
 
-DISTRIBUTIONS: tuple[str, ...] = ("exponential", "weibull", "lognormal", "loglogistic")
+DISTRIBUTIONS: tuple[str, ...] = ("exponential", "weibull", "log-normal", "log-logistic")
 LABELS = {
     "exponential": "Exponential",
     "weibull": "Weibull",
-    "lognormal": "Log-normal",
-    "loglogistic": "Log-logistic",
+    "log-normal": "Log-normal",
+    "log-logistic": "Log-logistic",
+}
+# How each family's parameters are defined (stated once, beside the parameter names in words).
+PARAMETRISATION = {
+    "exponential": "S(t) = exp(−rate × t)",
+    "weibull": "S(t) = exp(−(t / scale)^shape)",
+    "log-normal": "log T is normal with the mean and SD of log time: "
+    "S(t) = 1 − Φ((log t − mean) / SD)",
+    "log-logistic": "S(t) = 1 / (1 + (t / scale)^shape)",
 }
 _UNIVARIATE = {
     "weibull": WeibullFitter,
-    "lognormal": LogNormalFitter,
-    "loglogistic": LogLogisticFitter,
+    "log-normal": LogNormalFitter,
+    "log-logistic": LogLogisticFitter,
+}
+# lifelines' parameter names -> Hazel's words (the order of theta is lifelines')
+PARAMETER_WORDS = {
+    "lambda_": "scale",
+    "rho_": "shape",
+    "mu_": "mean of log time",
+    "sigma_": "SD of log time",
+    "alpha_": "scale",
+    "beta_": "shape",
 }
 LN2 = float(np.log(2.0))
 
 
-# --- each family as functions of its parameter vector (lifelines' parameterisation) -----------
+# --- each family as functions of its parameter vector (theta in lifelines' order) -------------
 
 
 def log_cumulative_hazard(distribution: str, theta: np.ndarray, t: np.ndarray) -> np.ndarray:
@@ -54,9 +71,9 @@ def log_cumulative_hazard(distribution: str, theta: np.ndarray, t: np.ndarray) -
         return log_t + theta[0]
     if distribution == "weibull":  # (lambda_ scale, rho_ shape): H = (t / lambda)^rho
         return theta[1] * (log_t - np.log(theta[0]))
-    if distribution == "lognormal":  # (mu_, sigma_): S = 1 - Phi((log t - mu) / sigma)
+    if distribution == "log-normal":  # (mu_, sigma_): S = 1 - Phi((log t - mu) / sigma)
         return np.log(-norm.logsf((log_t - theta[0]) / theta[1]))
-    # loglogistic (alpha_ scale, beta_ shape): S = 1 / (1 + (t / alpha)^beta)
+    # log-logistic (alpha_ scale, beta_ shape): S = 1 / (1 + (t / alpha)^beta)
     return np.log(np.logaddexp(0.0, theta[1] * (log_t - np.log(theta[0]))))
 
 
@@ -67,7 +84,7 @@ def log_quantile(distribution: str, theta: np.ndarray, p: float) -> float:
         return np.log(h) - theta[0]
     if distribution == "weibull":
         return np.log(theta[0]) + np.log(h) / theta[1]
-    if distribution == "lognormal":
+    if distribution == "log-normal":
         return theta[0] + theta[1] * norm.ppf(p)
     return np.log(theta[0]) + np.log(p / (1 - p)) / theta[1]
 
@@ -90,7 +107,8 @@ def _delta_se(fn, theta: np.ndarray, cov: np.ndarray) -> np.ndarray:
 
 @dataclass(frozen=True)
 class ParametricFit:
-    """One family fitted to one set of subjects; ``parameters`` in lifelines' naming."""
+    """One family fitted to one set of subjects; ``parameters`` named in words (``PARAMETER_WORDS``,
+    defined by ``PARAMETRISATION``)."""
 
     distribution: str
     group: str | None
@@ -166,6 +184,7 @@ class ParametricFit:
             "log_likelihood": float(self.log_likelihood),
             "aic": float(self.aic),
             "confidence_level": float(self.confidence_level),
+            "parametrisation": PARAMETRISATION[self.distribution],
             "parameters": frame_records(self.parameters),
         }
 
@@ -276,7 +295,7 @@ def fit_distribution(
         log_rate = np.log(d / exposure)
         theta, cov = np.array([log_rate]), np.array([[1.0 / d]])
         log_lik = d * log_rate - d  # d log(rate) - rate * exposure, with rate * exposure = d
-        params = _param_table(["log_rate"], theta, np.sqrt(np.diag(cov)), z)
+        params = _param_table(["log rate"], theta, np.sqrt(np.diag(cov)), z)
         rate = params.iloc[0][["estimate", "lower", "upper"]].map(np.exp).to_numpy(dtype=float)
         params = pd.concat(
             [
@@ -303,7 +322,8 @@ def fit_distribution(
         theta = fitter.params_.to_numpy(dtype=float)
         cov = fitter.variance_matrix_.to_numpy(dtype=float)
         log_lik = float(fitter.log_likelihood_)
-        params = _param_table(list(fitter.params_.index), theta, np.sqrt(np.diag(cov)), z)
+        names = [PARAMETER_WORDS.get(name, name) for name in fitter.params_.index]
+        params = _param_table(names, theta, np.sqrt(np.diag(cov)), z)
     return ParametricFit(
         distribution=distribution,
         group=group,

@@ -21,7 +21,7 @@ from engine.errors import HazelError
 from engine.filters import RowFilter
 
 VERSION_KEY = "hazel_recipe"
-CURRENT_VERSION = 1
+CURRENT_VERSION = 2
 MAX_RECIPE_BYTES = 1_000_000  # a recipe holds settings only; anything larger is not one
 
 # The analyses a recipe can ask for, with their settings and defaults, live in engine.analysis
@@ -217,7 +217,7 @@ def _migrate_0_to_1(old: dict) -> dict:
     _require(old["file"], ("hash", "n_rows", "columns"), "file")
     settings = dict(old.get("settings", {}))
     analyses: dict[str, dict] = {"curves": {}}
-    owner: dict[str, str] = {}
+    owner: dict[str, str] = {"ph_transform": "cox"}  # its version-1 name (renamed in 2)
     for key in VERSION_0_ANALYSES:  # a name two analyses share belongs to the first (curves)
         for name in ANALYSIS_DEFAULTS[key]:
             owner.setdefault(name, key)
@@ -250,7 +250,43 @@ def _migrate_0_to_1(old: dict) -> dict:
     }
 
 
-MIGRATIONS: dict[int, Callable[[dict], dict]] = {0: _migrate_0_to_1}
+# Version 2 names settings in Hazel's own words: the proportional-hazards time scale and the
+# parametric families (old value -> new value), and the roles' day-first switch.
+PH_TIME_SCALES_BEFORE_2 = {"km": "survival", "rank": "rank", "identity": "time", "log": "log-time"}
+DISTRIBUTIONS_BEFORE_2 = {"lognormal": "log-normal", "loglogistic": "log-logistic"}
+
+
+def _migrate_1_to_2(old: dict) -> dict:
+    """Version 1 -> 2: ``cox.ph_transform`` (km, rank, identity, log) becomes
+    ``cox.ph_time_scale`` (survival, rank, time, log-time); the parametric ids ``lognormal`` and
+    ``loglogistic`` become ``log-normal`` and ``log-logistic``; ``roles.dayfirst`` becomes
+    ``roles.day_first``. Values Hazel never wrote are left for the checks to refuse."""
+    new = copy.deepcopy(old)
+    new[VERSION_KEY] = 2
+    analyses = new.get("analyses")
+    if isinstance(analyses, dict):
+        cox = analyses.get("cox")
+        if isinstance(cox, dict) and "ph_transform" in cox:
+            value = cox.pop("ph_transform")
+            cox.setdefault("ph_time_scale", PH_TIME_SCALES_BEFORE_2.get(value, value))
+        parametric = analyses.get("parametric")
+        if isinstance(parametric, dict):
+            if isinstance(parametric.get("distributions"), list):
+                parametric["distributions"] = [
+                    DISTRIBUTIONS_BEFORE_2.get(d, d) if isinstance(d, str) else d
+                    for d in parametric["distributions"]
+                ]
+            if isinstance(parametric.get("aft_distribution"), str):
+                name = parametric["aft_distribution"]
+                parametric["aft_distribution"] = DISTRIBUTIONS_BEFORE_2.get(name, name)
+    roles = new.get("roles")
+    if isinstance(roles, dict) and "dayfirst" in roles:
+        value = roles.pop("dayfirst")
+        roles.setdefault("day_first", value)
+    return new
+
+
+MIGRATIONS: dict[int, Callable[[dict], dict]] = {0: _migrate_0_to_1, 1: _migrate_1_to_2}
 
 
 def recipe_version(data) -> int:

@@ -166,7 +166,7 @@ def default_tau(curves) -> tuple[float, str]:
     """The smallest of the groups' largest observed times, and a sentence saying so."""
     lasts = [(float(c.time[-1]), c.label) for c in curves if c.time.size]
     tau, label = min(lasts, key=lambda x: x[0])
-    return tau, f"tau = {tau:g}: {DEFAULT_TAU_RULE} (group {label!r})"
+    return tau, f"the {DEFAULT_TAU_RULE} (group {label})"
 
 
 def rmst_by_group(
@@ -208,7 +208,7 @@ def _rmst_table(curves, groups, tau) -> RMSTTable:
     if tau is None:
         tau, rule = default_tau(groups)
     else:
-        rule = f"tau = {float(tau):g}, given by the caller"
+        rule = "chosen by the user"
     estimates = tuple(rmst_from_curve(c, tau) for c in curves)
     by_label = {e.label: e for e in estimates[len(curves) - len(groups) :]}
     contrast = None

@@ -108,11 +108,14 @@ class Roles:
     start: str | None = None
     end: str | None = None
     date_format: str | None = None
-    dayfirst: bool = False
+    day_first: bool = False
     unit: str = "days"
     source_unit: str | None = None
     event: str | None = None
     event_values: tuple = ()  # empty: recognise the coding (0/1, yes/no, dead/alive...)
+    # The event in words for titles and sentences ("relapse"); None: from the event's values
+    # or column name (see ``event_in_words``).
+    event_name: str | None = None
     # (value, cause name) pairs for competing risks. Without event_values the first cause is the
     # event of interest; rows of other causes keep their name in _cause with _event 0.
     event_causes: tuple[tuple[object, str], ...] = ()
@@ -148,6 +151,8 @@ class Roles:
 
     @classmethod
     def from_dict(cls, data: dict) -> Roles:
+        if "dayfirst" in data and "day_first" not in data:  # the name before schema 2
+            data = {**data, "day_first": data["dayfirst"]}
         kwargs = {}
         for f in fields(cls):
             if f.name not in data:
@@ -270,7 +275,7 @@ class RoleSuggestions:
     start: Suggestion | None = None
     end: Suggestion | None = None
     unit: str | None = None
-    dayfirst: bool | None = None
+    day_first: bool | None = None
     event: Suggestion | None = None
     group: Suggestion | None = None
     id: Suggestion | None = None
@@ -283,7 +288,7 @@ class RoleSuggestions:
             "time": self.time.column if self.time else None,
             "start": self.start.column if self.start and not self.time else None,
             "end": self.end.column if self.end and not self.time else None,
-            "dayfirst": bool(self.dayfirst),
+            "day_first": bool(self.day_first),
             "event": self.event.column if self.event else None,
             "group": self.group.column if self.group else None,
             "id": self.id.column if self.id else None,
@@ -303,7 +308,7 @@ class RoleSuggestions:
             "start": one(self.start),
             "end": one(self.end),
             "unit": self.unit,
-            "dayfirst": self.dayfirst,
+            "day_first": self.day_first,
             "event": one(self.event),
             "group": one(self.group),
             "id": one(self.id),
@@ -330,7 +335,7 @@ def suggest_roles(frame: pd.DataFrame, sample_rows: int = 5000) -> RoleSuggestio
 
     time = _first(sample, used, lambda c, s: _TIME_NAMES.search(c) and _duration_like(s))
     time_s = start_s = end_s = None
-    unit = dayfirst = None
+    unit = day_first = None
     if time:
         used.add(time)
         time_s = Suggestion(time, "a name like a duration and non-negative numbers")
@@ -345,8 +350,8 @@ def suggest_roles(frame: pd.DataFrame, sample_rows: int = 5000) -> RoleSuggestio
             used.update((start, end))
             start_s = Suggestion(start, "holds dates and its name suggests a start")
             end_s = Suggestion(end, "holds dates and its name suggests an end")
-            dayfirst = guess_dayfirst(sample[start]) or guess_dayfirst(sample[end])
-            if dayfirst:
+            day_first = guess_day_first(sample[start]) or guess_day_first(sample[end])
+            if day_first:
                 notes.append("Dates have a first part above 12, so they are read day first.")
 
     id_col = _first(
@@ -379,7 +384,7 @@ def suggest_roles(frame: pd.DataFrame, sample_rows: int = 5000) -> RoleSuggestio
         start=start_s,
         end=end_s,
         unit=unit,
-        dayfirst=dayfirst,
+        day_first=day_first,
         event=event_s,
         group=group_s,
         id=id_s,
@@ -427,7 +432,34 @@ def default_reference(series: pd.Series):
     return sorted(top, key=natural_sort_key)[0]
 
 
-def guess_dayfirst(series: pd.Series) -> bool:
+# Common words for an event, as a value or a column name, and the noun a sentence uses.
+_EVENT_NOUNS = {
+    "died": "death", "dead": "death", "death": "death", "deceased": "death",
+    "relapse": "relapse", "relapsed": "relapse", "recurrence": "recurrence",
+    "recurred": "recurrence", "failed": "failure", "failure": "failure", "fail": "failure",
+    "progression": "progression", "progressed": "progression", "sold": "sale", "sale": "sale",
+    "culled": "culling", "readmitted": "readmission", "readmission": "readmission",
+    "infection": "infection", "infected": "infection", "dropout": "dropout",
+    "churned": "churn", "churn": "churn", "discharged": "discharge",
+}  # fmt: skip
+NO_EVENT_NAME = "the event"
+
+
+def event_in_words(roles: Roles) -> str:
+    """The event as a noun for titles and sentences: the name the user typed, else a known
+    word among the event's values ("relapsed" -> "relapse") or in the event column's name
+    ("failed" -> "failure"), else "the event"."""
+    if roles.event_name and str(roles.event_name).strip():
+        return " ".join(str(roles.event_name).split())
+    candidates = [str(v) for v in roles.event_values] + ([str(roles.event)] if roles.event else [])
+    for text in candidates:
+        for word in re.findall(r"[a-z]+", text.casefold()):
+            if word in _EVENT_NOUNS:
+                return _EVENT_NOUNS[word]
+    return NO_EVENT_NAME
+
+
+def guess_day_first(series: pd.Series) -> bool:
     """True when some slash/dot/dash date has a first part above 12 (so it must be the day)."""
     text = series.dropna().astype(str).head(2000)
     first = text.str.extract(r"^\s*(\d{1,2})[/.\-]\d{1,2}[/.\-]\d{2,4}")[0].dropna()

@@ -149,9 +149,9 @@ def group_summary(
     if tau is None:
         last = min(groups, key=lambda c: c.time[-1])
         tau = float(last.time[-1])
-        rule = f"tau = {tau:g}: smallest of the groups' largest observed times"
+        rule = "the smallest of the groups' largest observed times"
     else:
-        rule = f"tau = {float(tau):g}, given by the caller"
+        rule = "chosen by the user"
     rows, method = [], ""
     for curve in curves:
         quantiles = survival_quantiles(curve, (0.5,))

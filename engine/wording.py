@@ -103,6 +103,45 @@ def format_confidence(confidence: float) -> str:
     return format_plain(round_half_up(confidence * 100.0, 6)) + "%"
 
 
+def term_label(variable: object, level: object = None, reference: object = None) -> str:
+    """A model term in words: 'load_kN' for a number, 'lubricant: dry film vs grease' for one
+    level of a category against its reference level (the one label every table and figure uses)."""
+    if level is None:
+        return str(variable)
+    if reference is None:
+        return f"{variable}: {level}"
+    return f"{variable}: {level} vs {reference}"
+
+
+def _plain_survival(event: str | None) -> bool:
+    return event is None or event == "death"
+
+
+def median_name(event: str | None = None) -> str:
+    """'median survival' when the event is death (or not named), else 'median time to relapse'."""
+    return "median survival" if _plain_survival(event) else f"median time to {event}"
+
+
+def free_name(event: str | None = None) -> str:
+    """What a survival curve estimates, in words: 'survival', or 'probability still free of
+    relapse' when the event is not death."""
+    return "survival" if _plain_survival(event) else f"probability still free of {event}"
+
+
+def rmst_name(event: str | None = None) -> str:
+    """'restricted mean survival time', or 'restricted mean time free of relapse'."""
+    if _plain_survival(event):
+        return "restricted mean survival time"
+    return f"restricted mean time free of {event}"
+
+
+def probability_title(event: str | None = None) -> str:
+    """A survival axis title: 'Survival probability' or 'Probability still free of relapse'."""
+    return (
+        "Survival probability" if _plain_survival(event) else f"Probability still free of {event}"
+    )
+
+
 def _unit(value: float, unit: str) -> str:
     """'1 year' but '2 years': time units are stored in the plural."""
     if unit.endswith("s") and Decimal(repr(float(value))) == 1:
@@ -151,9 +190,15 @@ def survival_at_sentence(
     confidence: float = 0.95,
     group: str | None = None,
     at_risk: int | None = None,
+    event: str | None = None,
+    after: str = "",
 ) -> str:
-    """'Survival at 12 months was 64.3% (95% CI 55.1% to 72.0%), with 48 still at risk.'"""
-    subject = _subject(group, f"survival at {format_plain(time)} {_unit(time, unit)}")
+    """'Survival at 12 months was 64.3% (95% CI 55.1% to 72.0%), with 48 still at risk.'
+
+    With ``event`` other than death: 'Probability still free of relapse at 12 months was …';
+    ``after`` follows the time ('… at 12 months after the landmark was …')."""
+    when = f"{format_plain(time)} {_unit(time, unit)}" + (f" {after}" if after else "")
+    subject = _subject(group, f"{free_name(event)} at {when}")
     subject = subject[0].upper() + subject[1:]
     interval = _interval(format_percent(lower), format_percent(upper), confidence)
     sentence = f"{subject} was {format_percent(survival)} ({interval})"
@@ -227,16 +272,42 @@ def rmst_sentence(
     return f"{subject} was {estimate_text} {unit} ({_interval(low, high, confidence)})."
 
 
-# --- sentences for whole results, from their JSON form (the command line's schema 1) ------------
+def hazard_ratio_direction(hazard_ratio: float) -> str:
+    """What a planned hazard ratio means: experimental against control, below 1 fewer events."""
+    ratio = format_plain(hazard_ratio)
+    if hazard_ratio < 1:
+        effect = "fewer events in the experimental group than in the control group"
+    elif hazard_ratio > 1:
+        effect = "more events in the experimental group than in the control group"
+    else:
+        effect = "no difference"
+    return (
+        f"The hazard ratio is the experimental group's hazard divided by the control group's "
+        f"(below 1: fewer events in the experimental group). A hazard ratio of {ratio} means "
+        f"{effect}."
+    )
 
 
-def curve_sentences(curve: dict, unit: str, confidence: float = 0.95) -> list[str]:
-    """The median and each survival-at-time of one ``curves`` entry, as sentences."""
+# --- sentences for whole results, from their JSON form (the command line's schema 2) ------------
+
+
+def curve_sentences(
+    curve: dict, unit: str, confidence: float = 0.95, event: str | None = None, after: str = ""
+) -> list[str]:
+    """The median and each survival-at-time of one ``curves`` entry, as sentences; ``event``
+    names the event (``median_name``), ``after`` adds words such as 'after the landmark'."""
     group = None if curve.get("group") is None else str(curve["group"])
     median = curve["median"]
+    quantity = median_name(event) + (f" {after}" if after else "")
     sentences = [
         median_sentence(
-            median["estimate"], median["lower"], median["upper"], unit, confidence, group
+            median["estimate"],
+            median["lower"],
+            median["upper"],
+            unit,
+            confidence,
+            group,
+            quantity=quantity,
         )
     ]
     for point in curve.get("at_times", []):
@@ -250,6 +321,8 @@ def curve_sentences(curve: dict, unit: str, confidence: float = 0.95) -> list[st
                 confidence,
                 group,
                 point.get("at_risk"),
+                event,
+                after,
             )
         )
     return sentences

@@ -3,12 +3,21 @@ data-quality report of what those roles make of the rows."""
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import pandas as pd
 import streamlit as st
 
 from app import data, state, ui
 from engine.errors import HazelError
-from engine.roles import TIME_UNITS, Roles, covariate_kind, default_reference, describe_event
+from engine.roles import (
+    TIME_UNITS,
+    Roles,
+    covariate_kind,
+    default_reference,
+    describe_event,
+    event_in_words,
+)
 
 NONE = "(none)"
 DURATION, DATES = "One duration column", "Start and end dates"
@@ -58,6 +67,17 @@ st.caption(
     "Hazel has pre-filled its suggestions from the column names and contents; check each one. "
     "Every page uses these roles, and a change here updates the results that depend on it."
 )
+if not data.roles_confirmed(st.session_state):
+    with st.container(border=True):
+        st.warning(ui.SUGGESTED_ROLES_NOTICE, icon=":material/rule:")
+        if st.button(
+            "I have checked these roles",
+            key="roles_confirm_button",
+            icon=":material/check:",
+            help="Removes the notice on every page; the roles stay as they are shown below.",
+        ):
+            data.confirm_roles(st.session_state)
+            st.rerun()
 st.markdown("[Jump to the data-quality report ↓](#data-quality-report)")
 if st.session_state.get(state.ROLES_PRESET):
     st.info(
@@ -87,7 +107,7 @@ with st.container(border=True):
         )
         suggestion_note("time")
     else:
-        default("roles_dayfirst", bool(roles.dayfirst))
+        default("roles_day_first", bool(roles.day_first))
         default("roles_date_format", roles.date_format or "")
         default("roles_unit", roles.unit)
         cols = st.columns(2)
@@ -98,7 +118,7 @@ with st.container(border=True):
         cols[0].selectbox("Express durations in", unit_names, key="roles_unit")
         cols[1].checkbox(
             "Dates are day first (31/12/2024)",
-            key="roles_dayfirst",
+            key="roles_day_first",
             help="Otherwise 01/02/2024 is read as 2 January.",
         )
         cols[2].text_input(
@@ -120,6 +140,14 @@ with st.container(border=True):
         help="Without an event column every row counts as an event (no censoring).",
     )
     suggestion_note("event")
+    default("roles_event_name", roles.event_name or "")
+    st.text_input(
+        "The event in words (for titles and sentences)",
+        key="roles_event_name",
+        placeholder=event_in_words(replace(roles, event_name=None)),
+        help="For example relapse, failure or sale: pages then say 'Median time to relapse' "
+        "and 'Probability still free of relapse'. Left empty, Hazel uses the word shown in grey.",
+    )
     event_values: tuple = ()
     if event_column != NONE:
         coding = describe_event(frame[event_column])
@@ -266,10 +294,11 @@ new_roles = Roles(
     start=chosen("roles_start") if mode_dates else None,
     end=chosen("roles_end") if mode_dates else None,
     date_format=(st.session_state.get("roles_date_format") or None) if mode_dates else None,
-    dayfirst=bool(st.session_state.get("roles_dayfirst")) if mode_dates else False,
+    day_first=bool(st.session_state.get("roles_day_first")) if mode_dates else False,
     unit=st.session_state["roles_unit"],
     event=chosen("roles_event"),
     event_values=event_values,
+    event_name=(st.session_state.get("roles_event_name") or "").strip() or None,
     group=chosen("roles_group"),
     covariates=tuple(covariates),
     categorical=tuple(categorical),

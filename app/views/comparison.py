@@ -9,6 +9,8 @@ import streamlit as st
 from app import charts, compute, data, ui
 from app.share_section import CUT_GROUPS, CUT_SOURCE, NO_COMPARE_STRATA, ROLE_SOURCE
 from engine.compare import TESTS
+from engine.roles import event_in_words
+from engine.wording import format_number, free_name, p_clause, probability_title
 
 TEST_LABELS = {
     "logrank": "Log-rank (equal weight at every time)",
@@ -104,15 +106,11 @@ key = (table.sha256, roles_text, grouping)
 
 def reading(name: str, statistic: float, df: int, p: float, what: str) -> str:
     """One plain sentence for a test result."""
-    figures = f"(χ² = {statistic:.2f} on {df} df, p {_p(p)})"
+    freedom = "degree" if df == 1 else "degrees"
+    figures = f"(χ² = {format_number(statistic, 2)} on {df} {freedom} of freedom, {p_clause(p)})"
     if p < LEVEL:
         return f"The {name} test finds evidence that {what} {figures}."
     return f"The {name} test does not find clear evidence that {what} {figures}."
-
-
-def _p(p: float) -> str:
-    text = ui.fmt_p(p)
-    return text if text.startswith("<") else f"= {text}"
 
 
 # --- curves of the compared groups ----------------------------------------------------------
@@ -130,9 +128,9 @@ with ui.guard("The comparison curves"):
     small = ui.titled_style(
         small,
         "compare_plot",
-        f"Survival by {group_name}",
+        f"{free_name(event_in_words(roles)).capitalize()} by {group_name}",
         f"Time ({prepared.report.time_unit})",
-        "Probability still event-free",
+        probability_title(event_in_words(roles)),
     )
     drawn = compute.comparison_drawing(*key, (small.width, small.height), table)
     levels = levels_source or list(dict.fromkeys(drawn["group"]))
@@ -142,7 +140,7 @@ with ui.guard("The comparison curves"):
         charts.group_colours(levels),
         band=False,
         ticks=charts.nice_ticks(float(drawn["time"].max())),
-        legend_title=str(group_name),
+        legend_title=charts.group_title(group_name),
     )
     ui.figure(chart, small, "comparison-curves", "compare_curves")
 
@@ -157,7 +155,7 @@ with ui.guard("The test"):
     )
     sentence = reading(result.test, result.statistic, result.df, result.p_value, what)
     cols = st.columns(3)
-    cols[0].metric("χ² statistic", f"{result.statistic:.2f}")
+    cols[0].metric("Chi-squared (χ²)", format_number(result.statistic, 2))
     cols[1].metric("Degrees of freedom", result.df)
     cols[2].metric("p-value", ui.fmt_p(result.p_value))
     st.markdown(f"**Reading:** {ui.escape(sentence)}")
@@ -172,7 +170,20 @@ with ui.guard("The test"):
         )
     observed = result.to_frame()[["group", "observed", "expected"]].copy()
     observed["group"] = observed["group"].map(str)
-    ui.table(observed, "observed-expected", "compare_observed")
+    ui.table(
+        observed,
+        "observed-expected",
+        "compare_observed",
+        shown=pd.DataFrame(
+            {
+                "Group": observed["group"],
+                "Events seen": observed["observed"].map(lambda v: format_number(v, 0)),
+                "Events expected if the groups were alike": observed["expected"].map(
+                    lambda v: format_number(v, 1)
+                ),
+            }
+        ),
+    )
 
 # --- trend ----------------------------------------------------------------------------------
 
@@ -232,7 +243,9 @@ if n_levels >= 3 or grouping[0] == "cut":
                     trend.p_value,
                     f"survival gets steadily {direction} along the order {' → '.join(order)}",
                 )
-                st.markdown(f"**Reading:** {ui.escape(sentence)} (z = {trend.z:.2f}.)")
+                st.markdown(
+                    f"**Reading:** {ui.escape(sentence)} (z = {format_number(trend.z, 2)}.)"
+                )
                 st.caption(ui.NOT_SIGNIFICANT_CAUTION)
 
 # --- pairwise -------------------------------------------------------------------------------
@@ -254,7 +267,7 @@ if n_levels >= 3:
             {
                 "Group": pairs["group_a"],
                 "against": pairs["group_b"],
-                "χ²": pairs["statistic"].round(2),
+                "Chi-squared": pairs["statistic"].map(lambda v: format_number(v, 2)),
                 "p (unadjusted)": pairs["p_value"].map(ui.fmt_p),
                 f"p ({adjust_label.split(' ')[0]})": pairs[adjusted].map(ui.fmt_p),
             }
@@ -288,7 +301,7 @@ with ui.guard("The RMST difference"):
     second = cols[1].selectbox("against", labels, key="compare_rmst_b")
     ui.remember("compare_tau", 0.0)
     tau = cols[2].number_input(
-        f"Horizon τ ({prepared.report.time_unit}), 0 = automatic",
+        f"Restricted mean up to ({prepared.report.time_unit}), 0 = automatic",
         min_value=0.0,
         key="compare_tau",
     )
@@ -299,14 +312,34 @@ with ui.guard("The RMST difference"):
         contrast = rmst.contrast
         unit = prepared.report.time_unit
         longer = "longer" if contrast.difference > 0 else "shorter"
+        horizon = f"{format_number(rmst.tau, 1)} {unit}"
         sentence = (
-            f"Over the first {rmst.tau:g} {unit}, the average time free of the event was "
-            f"{ui.fmt_num(abs(contrast.difference))} {unit} {longer} in {second} than in {first} "
-            f"(difference {second} − {first}: {ui.fmt_num(contrast.difference)}, 95% interval "
-            f"{ui.fmt_num(contrast.difference_lower)} to {ui.fmt_num(contrast.difference_upper)}, "
-            f"p {_p(contrast.difference_p)})."
+            f"Over the first {horizon}, the average time free of the event was "
+            f"{format_number(abs(contrast.difference), 2)} {unit} {longer} in {second} than in "
+            f"{first} (difference {second} − {first}: {format_number(contrast.difference, 2)} "
+            f"{unit}, 95% CI {format_number(contrast.difference_lower, 2)} to "
+            f"{format_number(contrast.difference_upper, 2)}, {p_clause(contrast.difference_p)})."
         )
         st.markdown(f"**Reading:** {ui.escape(sentence)}")
-        st.caption(f"RMST {rmst.tau_rule}. " + ui.NOT_SIGNIFICANT_CAUTION)
+        st.caption(f"Horizon {horizon}: {rmst.tau_rule}. " + ui.NOT_SIGNIFICANT_CAUTION)
         estimates = pd.concat([e.to_frame() for e in rmst.estimates], ignore_index=True)
-        ui.table(estimates, "rmst-by-group", "compare_rmst")
+        ui.table(
+            estimates,
+            "rmst-by-group",
+            "compare_rmst",
+            shown=pd.DataFrame(
+                {
+                    "Group": estimates["group"].map(str),
+                    f"Restricted mean to {horizon} ({unit})": estimates["estimate"].map(
+                        lambda v: format_number(v, 2)
+                    ),
+                    "95% CI": [
+                        f"{format_number(lo, 2)} to {format_number(hi, 2)}"
+                        for lo, hi in estimates[["lower", "upper"]].itertuples(index=False)
+                    ],
+                    f"Standard error ({unit})": estimates["std_err"].map(
+                        lambda v: format_number(v, 3)
+                    ),
+                }
+            ),
+        )

@@ -10,7 +10,7 @@ import pandas as pd
 import streamlit as st
 
 from app import charts, compute_beyond, data, share_section, ui
-from engine.wording import format_percent
+from engine.wording import format_percent, format_ratio, term_label
 
 CONFIDENCE = {"95%": 0.95, "90%": 0.90, "99%": 0.99}
 
@@ -134,7 +134,7 @@ with ui.guard("The cumulative incidence"):
         {
             "Group": last["group"].map(compute_beyond.compute.label_text),
             "Cause": last["cause"],
-            f"Time ({unit})": last["time"].map(lambda t: f"{t:,.4g}"),
+            f"Time ({unit})": last["time"].map(lambda t: f"{t:,.1f}"),
             "Cumulative incidence": [
                 f"{format_percent(e)} ({format_percent(lo)} to {format_percent(hi)})"
                 for e, lo, hi in last[["cumulative_incidence", "lower", "upper"]].itertuples(
@@ -168,14 +168,14 @@ else:
             {
                 "Cause": rows["cause"],
                 "Term": [
-                    str(v) if pd.isna(lv) else f"{v}: {lv} vs {ref}"
+                    term_label(v, None if pd.isna(lv) else lv, None if pd.isna(lv) else ref)
                     for v, lv, ref in rows[["variable", "level", "reference"]].itertuples(
                         index=False
                     )
                 ],
-                "Hazard ratio": rows["hazard_ratio"].map(lambda v: f"{v:.3f}"),
-                "Interval": [
-                    f"{lo:.3f} to {hi:.3f}"
+                "Hazard ratio": rows["hazard_ratio"].map(format_ratio),
+                "95% CI": [
+                    f"{format_ratio(lo)} to {format_ratio(hi)}"
                     for lo, hi in rows[["lower", "upper"]].itertuples(index=False)
                 ],
                 "p": rows["p_value"].map(ui.fmt_p),

@@ -7,10 +7,19 @@ import pandas as pd
 import streamlit as st
 
 from app import charts, compute, data, ui
-from engine.roles import TIME_UNITS
+from engine.roles import TIME_UNITS, event_in_words
+from engine.wording import (
+    format_confidence,
+    format_number,
+    format_plain,
+    free_name,
+    median_name,
+    probability_title,
+    rmst_name,
+)
 
 SCALES = {
-    "Survival probability": compute.SURVIVAL,
+    "Probability still free of the event": compute.SURVIVAL,
     "Cumulative incidence (1 − survival)": compute.INCIDENCE,
     "Cumulative hazard (Nelson–Aalen)": compute.HAZARD,
 }
@@ -67,6 +76,7 @@ with st.expander("Estimation settings"):
         )
     ]
 
+event = event_in_words(roles)
 shown_roles = data.curve_roles(roles)
 if unit != base.report.time_unit:
     shown_roles = data.with_unit(shown_roles, unit)
@@ -74,14 +84,14 @@ roles_text = data.roles_key(shown_roles)
 style = ui.chart_style()
 group_label = roles.group if by_group else None
 default_title = {
-    compute.SURVIVAL: "Survival",
-    compute.INCIDENCE: "Cumulative incidence",
-    compute.HAZARD: "Cumulative hazard",
+    compute.SURVIVAL: free_name(event).capitalize(),
+    compute.INCIDENCE: f"Cumulative incidence of {event}",
+    compute.HAZARD: f"Cumulative hazard of {event}",
 }[scale] + (f" by {group_label}" if group_label else ", all rows")
 y_default = {
-    compute.SURVIVAL: "Probability still event-free",
-    compute.INCIDENCE: "Probability of the event by then",
-    compute.HAZARD: "Cumulative hazard",
+    compute.SURVIVAL: probability_title(event),
+    compute.INCIDENCE: f"Probability of {event} by then",
+    compute.HAZARD: "Cumulative hazard (Nelson–Aalen)",
 }[scale]
 style = ui.titled_style(style, "curves", default_title, f"Time ({unit})", y_default)
 
@@ -110,7 +120,7 @@ with ui.guard("The curves"):
         x_max=drawing["x_upper"],
         ticks=ticks,
         y_format=".2f" if scale != compute.HAZARD else ".2~f",
-        legend_title=str(group_label) if group_label else None,
+        legend_title=charts.group_title(group_label) if group_label else None,
         align_with_table=risk,
     )
     risk_chart = None
@@ -149,17 +159,17 @@ with ui.guard("Suggested times"):
     first_ticks = charts.nice_ticks(span, count=4)[1:3]
     ui.remember("curves_times", ", ".join(f"{t:g}" for t in first_ticks))
 times_text = cols[0].text_input(
-    f"Survival at times ({unit}), separated by commas",
+    f"Estimates at times ({unit}), separated by commas",
     key="curves_times",
     placeholder="e.g. 12, 24, 36",
 )
 ui.remember("curves_tau", 0.0)
 tau_value = cols[1].number_input(
-    f"RMST horizon τ ({unit}), 0 = automatic",
+    f"Restricted mean up to ({unit}), 0 = automatic",
     min_value=0.0,
     key="curves_tau",
-    help="Restricted mean survival time: the average event-free time up to τ. Automatic: the "
-    "smallest of the groups' largest observed times.",
+    help="Restricted mean survival time: the average time free of the event up to this time. "
+    "Automatic: the smallest of the groups' largest observed times.",
 )
 
 
@@ -198,10 +208,10 @@ with ui.guard("The summary table"):
     shown = pd.DataFrame(
         {
             "Group": frame["group"],
-            "n": frame["n"],
+            "Subjects": frame["n"],
             "Events": frame["events"],
             "Censored": frame["censored"],
-            f"Median ({unit})": [
+            f"{median_name(event).capitalize()} ({unit})": [
                 interval(e, lo, hi)
                 for e, lo, hi in frame[["median", "median_lower", "median_upper"]].itertuples(
                     index=False
@@ -211,18 +221,20 @@ with ui.guard("The summary table"):
     )
     for t in summary.times:
         key = f"survival_{t:g}"
-        shown[f"Survival at {t:g}"] = [
+        shown[f"{free_name(event).capitalize()} at {format_plain(t)} {unit}"] = [
             interval(e, lo, hi, ".3f", "not estimable")
             for e, lo, hi in frame[[key, f"{key}_lower", f"{key}_upper"]].itertuples(index=False)
         ]
-    shown[f"RMST to {summary.tau:g} ({unit})"] = [
+    horizon = f"{format_number(summary.tau, 1)} {unit}"
+    shown[f"{rmst_name(event).capitalize()} to {horizon} ({unit})"] = [
         interval(e, lo, hi)
         for e, lo, hi in frame[["rmst", "rmst_lower", "rmst_upper"]].itertuples(index=False)
     ]
     ui.table(frame, "curve-summary", "curves_summary", shown=shown)
     st.caption(
-        f"Intervals: {int(confidence * 100)}%, {summary.transform} transform; medians by "
-        f"{summary.quantile_method}. RMST {summary.tau_rule}."
+        f"Each cell: estimate ({format_confidence(confidence)} confidence interval, "
+        f"{summary.transform} scale). {summary.quantile_method} The restricted mean runs to "
+        f"{horizon}: {summary.tau_rule}."
     )
 
 # --- text for a manuscript (app.share_section) -----------------------------------------------
@@ -233,7 +245,7 @@ with ui.guard("The manuscript text"):
     share_section.manuscript_box(
         # the rows and unit the summary above uses (the unit switch converts the times)
         share_section.curve_text(
-            data.prepared(table, shown_roles).frame, times, confidence, transform, unit
+            data.prepared(table, shown_roles).frame, times, confidence, transform, unit, event
         ),
         "medians and survival at the chosen times",
     )

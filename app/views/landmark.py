@@ -7,6 +7,8 @@ import streamlit as st
 
 from app import charts, compute, compute_beyond, data, share_section, ui
 from engine.compare import TESTS
+from engine.roles import event_in_words
+from engine.wording import comparison_sentence, format_number, format_plain, probability_title
 
 st.title("Landmark analysis", anchor=False)
 st.caption(
@@ -19,7 +21,7 @@ prepared = ui.prepared_or_stop(table, roles, "a landmark can be set")
 unit = prepared.report.time_unit
 last_time = float(prepared.frame["_time"].max()) if len(prepared.frame) else 0.0
 
-cols = st.columns([2, 3, 2])
+cols = st.columns([2, 3, 1, 1, 2])
 ui.remember("landmark_time", charts.nice_ticks(last_time, count=5)[1] if last_time else 0.0)
 at = cols[0].number_input(
     f"Landmark time ({unit})",
@@ -33,11 +35,18 @@ TEST_NAMES = {
     "gehan-breslow": "Gehan–Breslow",
     "tarone-ware": "Tarone–Ware",
     "peto-peto": "Peto–Peto",
-    "fleming-harrington": "Fleming–Harrington (ρ = 0, γ = 0)",
+    "fleming-harrington": "Fleming–Harrington (choose ρ and γ)",
 }
 test = cols[1].selectbox("Test", TESTS, format_func=TEST_NAMES.get, key="landmark_test")
+rho = gamma = 0.0
+if test == "fleming-harrington":
+    ui.remember("landmark_rho", 0.0)
+    ui.remember("landmark_gamma", 1.0)
+    rho = cols[2].number_input("ρ (early)", 0.0, 5.0, step=0.5, key="landmark_rho")
+    gamma = cols[3].number_input("γ (late)", 0.0, 5.0, step=0.5, key="landmark_gamma")
 ui.remember("landmark_include", True)
-cols[2].toggle("In the report and recipe", key="landmark_include")
+cols[4].toggle("In the report and recipe", key="landmark_include")
+event = event_in_words(roles)
 roles_text = data.roles_key(data.curve_roles(roles))
 
 with ui.guard("The landmark selection"):
@@ -45,12 +54,12 @@ with ui.guard("The landmark selection"):
     cols = st.columns(3)
     cols[0].metric("Subjects kept", f"{selected.n_kept:,}")
     cols[1].metric("Left out", f"{selected.n_excluded:,}")
-    cols[2].metric("Time now counted from", f"{at:g} {unit}")
+    cols[2].metric("Time now counted from", f"{format_plain(at)} {unit}")
     counts = selected.to_frame()
     shown = counts.assign(group=counts["group"].map(compute.label_text)).rename(
         columns={
             "group": "Group",
-            "n_rows": "Rows",
+            "n_rows": "Subjects",
             "n_kept": "Kept",
             "n_events_before": "Event before the landmark",
             "n_censored_before": "Censored before the landmark",
@@ -63,9 +72,9 @@ with ui.guard("The landmark selection"):
     style = ui.titled_style(
         style,
         "landmark_plot",
-        f"Survival from the landmark at {at:g} {unit}",
+        f"After the landmark at {format_plain(at)} {unit}",
         f"Time since the landmark ({unit})",
-        "Probability still event-free",
+        probability_title(event),
     )
     rows = compute_beyond.landmark_curves(table.sha256, roles_text, float(at), style.height, table)
     levels = list(dict.fromkeys(rows["group"]))
@@ -74,16 +83,22 @@ with ui.guard("The landmark selection"):
         style,
         charts.group_colours([g for g in levels if g != charts.ALL_ROWS_LABEL]),
         ticks=charts.nice_ticks(float(rows["time"].max())),
-        legend_title=str(roles.group) if roles.group else None,
+        legend_title=charts.group_title(roles.group) if roles.group else None,
     )
     ui.figure(chart, style, "landmark-curves", "landmark_figure")
-    result = compute_beyond.landmark_comparison(table.sha256, roles_text, float(at), test, table)
+    result = compute_beyond.landmark_comparison(
+        table.sha256, roles_text, float(at), test, float(rho), float(gamma), table
+    )
     if result is None:
         st.info("Set a group column on the Column roles page to compare groups from the landmark.")
     else:
         cols = st.columns(3)
-        cols[0].metric("χ² statistic", f"{result.statistic:.2f}")
+        cols[0].metric("Chi-squared (χ²)", format_number(result.statistic, 2))
         cols[1].metric("Degrees of freedom", result.df)
         cols[2].metric("p-value", ui.fmt_p(result.p_value))
+        sentence = "After the landmark: " + comparison_sentence(
+            result.test, result.statistic, result.df, result.p_value
+        )
+        st.markdown(f"**Reading:** {ui.escape(sentence)}")
         st.caption(ui.NOT_SIGNIFICANT_CAUTION)
-        share_section.manuscript_box(share_section.comparison_text(result), "the test")
+        share_section.manuscript_box([sentence], "the test after the landmark")

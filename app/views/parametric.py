@@ -8,8 +8,16 @@ import pandas as pd
 import streamlit as st
 
 from app import charts, charts_models, compute, compute_beyond, data, ui
-from engine.parametric import DISTRIBUTIONS, LABELS
-from engine.wording import format_percent
+from engine.aft import AFT_PARAMETRISATION
+from engine.parametric import DISTRIBUTIONS, LABELS, PARAMETRISATION
+from engine.wording import (
+    format_confidence,
+    format_number,
+    format_p,
+    format_percent,
+    format_plain,
+    format_ratio,
+)
 
 st.title("Parametric models", anchor=False)
 st.caption(
@@ -98,6 +106,31 @@ with ui.guard("The parametric fits"):
         "Lower AIC is better; models within about 2 of the best fit about as well (common "
         "practice)."
     )
+    with st.expander("Fitted parameters of each model"):
+        parameters = pd.concat(
+            [f.parameters.assign(distribution=f.distribution, group=f.group) for f in result.fits],
+            ignore_index=True,
+        )
+        ui.table(
+            parameters,
+            "parametric-parameters",
+            "param_parameters",
+            shown=pd.DataFrame(
+                {
+                    "Group": parameters["group"].map(compute.label_text),
+                    "Model": parameters["distribution"].map(LABELS),
+                    "Parameter": parameters["parameter"],
+                    "Estimate": parameters["estimate"].map(lambda v: format_number(v, 4)),
+                    "95% CI": [
+                        f"{format_number(lo, 4)} to {format_number(hi, 4)}"
+                        for lo, hi in parameters[["lower", "upper"]].itertuples(index=False)
+                    ],
+                }
+            ),
+        )
+        st.caption(
+            f"Times in {unit}. " + " ".join(f"{LABELS[d]}: {PARAMETRISATION[d]}." for d in chosen)
+        )
 
     groups = [g for g in dict.fromkeys(result.curves["group"])]
     group = groups[0]
@@ -140,11 +173,11 @@ with ui.guard("The parametric fits"):
             "Group": est["group"].map(compute.label_text),
             "Model": est["distribution"].map(LABELS),
             "Estimate": [
-                "Median" if q == "median" else f"Survival at {t:g}"
+                f"Median ({unit})" if q == "median" else f"Survival at {format_plain(t)} {unit}"
                 for q, t in est[["quantity", "time"]].itertuples(index=False)
             ],
-            "Value (95% interval)": [
-                f"{e:,.3g} ({lo:,.3g} to {hi:,.3g})"
+            "Value (95% CI)": [
+                f"{format_number(e, 1)} ({format_number(lo, 1)} to {format_number(hi, 1)})"
                 if q == "median"
                 else f"{format_percent(e)} ({format_percent(lo)} to {format_percent(hi)})"
                 for q, e, lo, hi in est[["quantity", "estimate", "lower", "upper"]].itertuples(
@@ -173,15 +206,22 @@ with ui.guard("The AFT model"):
         "to come later (time is stretched); below 1, sooner."
     )
     coef = fit.coefficients.loc[fit.coefficients["term"] != "Intercept"]
+    ci = f"{format_confidence(fit.confidence_level)} CI"
     shown = pd.DataFrame(
         {
             "Term": coef["term"],
-            "Time ratio": coef["time_ratio"].map(lambda v: f"{v:.3f}"),
-            "95% interval": [
-                f"{lo:.3f} to {hi:.3f}"
+            "Time ratio": coef["time_ratio"].map(format_ratio),
+            ci: [
+                f"{format_ratio(lo)} to {format_ratio(hi)}"
                 for lo, hi in coef[["time_ratio_lower", "time_ratio_upper"]].itertuples(index=False)
             ],
-            "p": coef["p_value"].map(ui.fmt_p),
+            "p": coef["p_value"].map(format_p),
         }
     )
     ui.table(fit.coefficients, "aft-coefficients", "param_aft", shown=shown)
+    for row in fit.ancillary.itertuples(index=False):
+        st.caption(
+            f"{LABELS[fit.distribution]} {row.parameter}: {format_number(row.estimate, 3)} "
+            f"({ci} {format_number(row.lower, 3)} to {format_number(row.upper, 3)})."
+        )
+    st.caption(f"Model: {AFT_PARAMETRISATION[fit.distribution]}.")

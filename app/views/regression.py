@@ -7,21 +7,18 @@ import pandas as pd
 import streamlit as st
 
 from app import charts, charts_models, compute, data, thinning, ui
-from app.share_section import NO_MODEL_STRATA, REFERENCE_PREFIX
+from app.share_section import NO_MODEL_STRATA, PH_LABELS, REFERENCE_PREFIX
+from engine.cox_diagnostics import TIME_SCALE_WORDS
 from engine.errors import HazelError
+from engine.wording import format_confidence, format_number, format_ratio, p_clause, term_label
 
 TIES = {"Efron (default)": "efron", "Breslow": "breslow"}
-PH_TRANSFORMS = {
-    "Kaplan–Meier scale (default)": "km",
-    "rank of time": "rank",
-    "time itself": "identity",
-    "log time": "log",
-}
-PH_SCALE_NAMES = {
-    "km": "Kaplan–Meier scale",
-    "rank": "rank",
-    "identity": "as recorded",
-    "log": "log scale",
+PH_TIME_SCALES = {label: scale for scale, label in PH_LABELS.items()}
+PH_SCALE_AXIS = {
+    "survival": "1 − Kaplan–Meier survival",
+    "rank": "rank of the event time",
+    "time": "time as recorded",
+    "log-time": "log time",
 }
 NO_STRATA = NO_MODEL_STRATA  # labels and keys the recipe (app.share_section) reads back
 EACH_LEVEL, MY_PROFILES = "Each level of one covariate", "Profiles I set"
@@ -128,17 +125,20 @@ if result.dropped:
         icon=":material/info:",
     )
 
-cols = st.columns(5)
+cols = st.columns(4)
 cols[0].metric("Rows used", f"{result.n:,}")
 cols[1].metric("Events", f"{result.events:,}")
 cols[2].metric(
     "Concordance (C)",
-    f"{result.concordance.concordance:.3f}",
-    help=f"Standard error {result.concordance.standard_error:.3f}. 0.5 = no better than "
-    "chance at ordering who has the event first; 1 = perfect.",
+    format_number(result.concordance.concordance, 3),
+    help=f"Standard error {format_number(result.concordance.standard_error, 3)}. 0.5 = no "
+    "better than chance at ordering who has the event first; 1 = perfect.",
 )
-cols[3].metric("Likelihood-ratio p", ui.fmt_p(result.likelihood_ratio.p_value))
-cols[4].metric("AIC", f"{result.aic:,.1f}")
+cols[3].metric("Likelihood-ratio test", p_clause(result.likelihood_ratio.p_value))
+st.caption(
+    f"AIC {result.aic:,.1f} (Akaike's information criterion: lower is better when comparing "
+    "models fitted to the same rows)."
+)
 from app import share_section  # noqa: E402  (text for a manuscript)
 
 share_section.manuscript_box(share_section.cox_text(result), "hazard ratios")
@@ -195,86 +195,76 @@ tabs = st.tabs(
 
 with tabs[0], ui.guard("The hazard-ratio table"):
     terms = result.to_frame()
+    ci = f"{format_confidence(result.confidence)} CI"
     shown = pd.DataFrame(
         {
-            "Term": [
-                t.variable if t.level is None else f"{t.variable}: {t.level} vs {t.reference}"
-                for t in result.terms
-            ],
-            "Hazard ratio": terms["hazard_ratio"].map(lambda v: f"{v:.3f}"),
-            f"{int(result.confidence * 100)}% interval": [
-                f"{lo:.3f} to {hi:.3f}"
+            "Term": [t.label for t in result.design.terms],
+            "Hazard ratio": terms["hazard_ratio"].map(format_ratio),
+            ci: [
+                f"{format_ratio(lo)} to {format_ratio(hi)}"
                 for lo, hi in zip(terms["lower"], terms["upper"], strict=True)
             ],
             "p": terms["p_value"].map(ui.fmt_p),
-            "Coefficient": terms["coef"].round(4),
-            "SE": terms["se"].round(4),
+            "Coefficient (log hazard ratio)": terms["coef"].map(lambda v: format_number(v, 3)),
+            "Standard error": terms["se"].map(lambda v: format_number(v, 3)),
         }
     )
     ui.table(terms, "cox-hazard-ratios", "model_terms", shown=shown)
     if result.variable_wald:
         st.markdown("**Joint tests for categorical covariates with several levels (Wald)**")
         joint = pd.DataFrame([t.to_dict() for t in result.variable_wald])
-        ui.table(
-            joint,
-            "cox-joint-wald",
-            "model_joint",
-            shown=joint.assign(p_value=joint["p_value"].map(ui.fmt_p)),
-        )
+        ui.table(joint, "cox-joint-wald", "model_joint", shown=ui.test_table(joint, "Covariate"))
     rows = compute.forest(model_key, table)
-    rows = rows.assign(
-        label=[
-            f"{v}" if lv is None or pd.isna(lv) else f"{v}: {lv}" + (" (reference)" if ref else "")
-            for v, lv, ref in rows[["variable", "level", "is_reference"]].itertuples(index=False)
-        ],
-        p_text=rows["p_value"].map(lambda p: ui.fmt_p(p) if p is not None else "reference"),
-    )
+    rows = charts_models.forest_labels(rows, ui.fmt_p)
     title, x_title, _ = ui.label_inputs(
         "model_forest", "Hazard ratios", "Hazard ratio (log scale)", ""
     )
     fstyle = style.titled(title, x_title, "")
     ui.figure(
-        charts_models.forest_chart(rows, fstyle), fstyle, "forest-plot", "model_forest_figure"
+        charts_models.forest_chart(rows, fstyle, confidence=result.confidence),
+        fstyle,
+        "forest-plot",
+        "model_forest_figure",
     )
     st.caption(
-        "A hazard ratio above 1 means a higher hazard (the event tends to come sooner); below 1, "
-        "a lower hazard. Each holds the other covariates fixed."
+        f"Squares: hazard ratios; lines: their {ci}s (log scale). A hazard ratio above 1 means a "
+        "higher hazard (the event tends to come sooner); below 1, a lower hazard. Each holds "
+        "the other covariates fixed."
     )
 
 with tabs[1], ui.guard("The model tests"):
     whole = pd.DataFrame(
         [
-            {"test": "Likelihood ratio", **result.likelihood_ratio.to_dict()},
-            {"test": "Wald", **result.wald.to_dict()},
-            {"test": "Score (log-rank)", **result.score.to_dict()},
+            {**result.likelihood_ratio.to_dict(), "variable": "Likelihood ratio"},
+            {**result.wald.to_dict(), "variable": "Wald"},
+            {**result.score.to_dict(), "variable": "Score"},
         ]
-    ).drop(columns="variable")
-    st.markdown("**Does the model as a whole explain anything?**")
-    ui.table(
-        whole,
-        "cox-whole-model-tests",
-        "model_whole",
-        shown=whole.assign(p_value=whole["p_value"].map(ui.fmt_p)),
     )
+    st.markdown("**Does the model as a whole explain anything?**")
+    ui.table(whole, "cox-whole-model-tests", "model_whole", shown=ui.test_table(whole, "Test"))
     lr = result.likelihood_ratio
+    figures = (
+        f"likelihood ratio χ² = {format_number(lr.statistic, 2)} on {lr.df} degrees of freedom, "
+        f"{p_clause(lr.p_value)}"
+    )
     st.markdown(
         "**Reading:** "
         + (
-            f"the covariates together go with the hazard (likelihood ratio χ² = "
-            f"{lr.statistic:.2f} on {lr.df} df, p {ui.fmt_p(lr.p_value)})."
+            f"the covariates together go with the hazard ({figures})."
             if lr.p_value < 0.05
-            else f"no clear evidence that the covariates together go with the hazard (χ² = "
-            f"{lr.statistic:.2f} on {lr.df} df, p = {ui.fmt_p(lr.p_value)})."
+            else f"no clear evidence that the covariates together go with the hazard ({figures})."
         )
     )
     st.caption(ui.NOT_SIGNIFICANT_CAUTION.replace("the groups are the same", "there is no effect"))
-    st.markdown("**What does each covariate add? (drop one, refit on the same rows)**")
-    drop = pd.DataFrame([t.to_dict() for t in result.drop_one])
+    st.markdown(
+        "**What does each covariate add? (the model without it, refitted on the same rows)**"
+    )
+    without = pd.DataFrame([t.to_dict() for t in result.without_each])
     ui.table(
-        drop,
-        "cox-drop-one-tests",
-        "model_drop",
-        shown=drop.assign(p_value=drop["p_value"].map(ui.fmt_p)),
+        without,
+        "cox-without-each-tests",
+        "model_without_each",
+        shown=ui.test_table(without, "Covariate left out"),
     )
 
 with tabs[2], ui.guard("The univariable screen"):
@@ -286,18 +276,18 @@ with tabs[2], ui.guard("The univariable screen"):
     shown = pd.DataFrame(
         {
             "Covariate": [
-                v if lv is None or pd.isna(lv) else f"{v}: {lv}"
-                for v, lv in screen[["variable", "level"]].itertuples(index=False)
+                term_label(v, None if lv is None or pd.isna(lv) else lv, ref)
+                for v, lv, ref in screen[["variable", "level", "reference"]].itertuples(index=False)
             ],
-            "Alone: HR (interval)": [
-                f"{h:.3f} ({lo:.3f} to {hi:.3f})"
+            "Alone: hazard ratio (95% CI)": [
+                f"{format_ratio(h)} ({format_ratio(lo)} to {format_ratio(hi)})"
                 for h, lo, hi in screen[
                     ["univariable_hazard_ratio", "univariable_lower", "univariable_upper"]
                 ].itertuples(index=False)
             ],
             "Alone: p": screen["univariable_p_value"].map(ui.fmt_p),
-            "In the model: HR (interval)": [
-                f"{h:.3f} ({lo:.3f} to {hi:.3f})"
+            "In the model: hazard ratio (95% CI)": [
+                f"{format_ratio(h)} ({format_ratio(lo)} to {format_ratio(hi)})"
                 for h, lo, hi in screen[
                     ["multivariable_hazard_ratio", "multivariable_lower", "multivariable_upper"]
                 ].itertuples(index=False)
@@ -308,23 +298,23 @@ with tabs[2], ui.guard("The univariable screen"):
     ui.table(screen, "cox-univariable-screen", "model_screen", shown=shown)
 
 with tabs[3], ui.guard("The proportional-hazards check"):
-    transform = PH_TRANSFORMS[
-        st.selectbox("Time scale for the test", list(PH_TRANSFORMS), key="model_ph_transform")
+    time_scale = PH_TIME_SCALES[
+        st.selectbox("Time scale for the check", list(PH_TIME_SCALES), key="model_ph_time_scale")
     ]
-    test, residuals = compute.ph_check(model_key, transform, table)
+    test, residuals = compute.ph_check(model_key, time_scale, table)
     ph = test.to_frame()
-    ui.table(
-        ph,
-        "proportional-hazards-check",
-        "model_ph",
-        shown=ph.assign(p_value=ph["p_value"].map(ui.fmt_p)),
+    checks = pd.DataFrame([t.to_dict() for t in test.checks])
+    ui.table(ph, "proportional-hazards-check", "model_ph", shown=ui.test_table(checks, "Covariate"))
+    st.caption(
+        f"Grambsch–Therneau test of each covariate and of all terms together, on the "
+        f"{TIME_SCALE_WORDS[time_scale]}."
     )
     worst = min(test.checks, key=lambda t: t.p_value)
     st.markdown(
         "**Reading:** "
         + (
             f"the hazard ratio of {ui.escape(worst.variable)} seems to change over time "
-            f"(p {ui.fmt_p(worst.p_value)}); look at its plot below, and consider strata or a "
+            f"({p_clause(worst.p_value)}); look at its plot below, and consider strata or a "
             "time-varying effect."
             if worst.p_value < 0.05
             else "no clear sign that any hazard ratio changes over time."
@@ -345,7 +335,7 @@ with tabs[3], ui.guard("The proportional-hazards check"):
         style,
         "model_ph_plot",
         f"Scaled Schoenfeld residuals: {term}",
-        f"Time ({PH_SCALE_NAMES[transform]})",
+        f"Time scale: {PH_SCALE_AXIS[time_scale]}",
         "β(t) for this term",
     )
     chart = charts_models.residual_chart(
@@ -406,7 +396,7 @@ with tabs[4], ui.guard("The functional-form check"):
             "log(−log survival)",
         )
         chart = charts_models.log_minus_log_chart(
-            lines, lstyle, charts.group_colours(levels), legend_title=variable
+            lines, lstyle, charts.group_colours(levels), legend_title=f"Level of {variable}"
         )
         ui.figure(chart, lstyle, "log-minus-log", "model_lml_figure")
         st.caption(

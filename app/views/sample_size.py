@@ -9,6 +9,7 @@ import streamlit as st
 from app import charts_models, ui
 from engine.errors import HazelError
 from engine.sample_size import METHODS, events_needed, power_curve, power_for_events
+from engine.wording import hazard_ratio_direction
 
 NAMES = {"schoenfeld": "Schoenfeld (1983)", "freedman": "Freedman (1982)"}
 
@@ -31,13 +32,27 @@ for key, value in defaults.items():
 with st.container(border=True):
     cols = st.columns(3)
     hr = cols[0].number_input(
-        "Hazard ratio to detect", min_value=0.05, max_value=20.0, step=0.05, key="power_hr"
+        "Hazard ratio to detect (experimental vs control)",
+        min_value=0.05,
+        max_value=20.0,
+        step=0.05,
+        key="power_hr",
+        help="The experimental group's hazard divided by the control group's: below 1 means "
+        "fewer events in the experimental group, above 1 more.",
     )
     alpha = cols[1].number_input(
         "Alpha (false-positive rate)", min_value=0.001, max_value=0.5, step=0.01,
         key="power_alpha", format="%.3f",
     )  # fmt: skip
-    sides = cols[2].radio("Test", [2, 1], key="power_sides", format_func=lambda s: f"{s}-sided")
+    sides = cols[2].radio(
+        "Sides",
+        [2, 1],
+        key="power_sides",
+        format_func=lambda s: "two-sided" if s == 2 else "one-sided",
+        horizontal=True,
+        help="Two-sided: a difference in either direction counts. One-sided: only the "
+        "direction you expect (the hazard ratio's side of 1).",
+    )
     cols = st.columns(3)
     power = cols[0].number_input(
         "Power wanted", min_value=0.5, max_value=0.99, step=0.05, key="power_power"
@@ -83,6 +98,7 @@ except HazelError as error:
     st.error(f"**These inputs cannot be used.** {ui.escape(error)}")
     st.stop()
 
+st.caption(ui.escape(hazard_ratio_direction(hr)))
 st.subheader("Events and subjects needed", anchor=False)
 cols = st.columns(len(needed))
 for col, result in zip(cols, needed, strict=True):
@@ -119,7 +135,11 @@ with ui.guard("The power"):
     curve = power_curve(given, alpha=alpha, sides=sides, allocation_ratio=allocation)
     style = ui.chart_style()
     style = ui.titled_style(
-        style, "power_plot", f"Power with {given:,.0f} events", "Hazard ratio to detect", "Power"
+        style,
+        "power_plot",
+        f"Power with {given:,.0f} events",
+        "Hazard ratio to detect (experimental vs control)",
+        "Power",
     )
     data = curve.to_frame().assign(method=lambda f: f["method"].map(NAMES))
     chart = charts_models.power_chart(data, style, target_hr=hr, target_power=power)

@@ -27,7 +27,7 @@ JOINT_TRIAL = ROOT / "demo_data" / "joint_trial.csv"
 ROLES = Roles(
     start="enrolled",
     end="last_visit",
-    dayfirst=True,
+    day_first=True,
     unit="months",
     event="outcome",
     event_values=("relapsed",),
@@ -104,7 +104,7 @@ def test_report_of_a_replayed_recipe(recipe_file):
         warnings=["a replay warning"],
     )
     assert text.count("<svg") == 1  # the Kaplan–Meier figure with its numbers at risk
-    assert "Number at risk" in text
+    assert "Subjects still at risk" in text
     assert "https://" not in text and "http://" not in text
     assert "clinic is one of &#x27;Riverside&#x27;, &#x27;Hilltop&#x27;" in text
     assert "a replay warning" in text
@@ -135,7 +135,7 @@ def test_settings_from_command_line_options():
     assert settings["cox"] == {
         "ties": "efron",
         "confidence": 0.95,
-        "ph_transform": "km",
+        "ph_time_scale": "survival",
         "covariates": None,
         "strata": None,
         "reference": None,
@@ -145,7 +145,7 @@ def test_settings_from_command_line_options():
     base = {"curves": {"confidence": 0.9, "times": [3.0]}, "landmark": {"time": 2.0}}
     settings = settings_from_args(args, base=base)
     assert settings["curves"]["confidence"] == 0.9 and settings["curves"]["times"] == [6.0, 12.5]
-    assert settings["landmark"] == {"time": 2.0, "test": "peto-peto"}
+    assert settings["landmark"] == {"time": 2.0, "test": "peto-peto", "rho": 0.0, "gamma": 0.0}
 
 
 def test_forest_rows_add_a_reference_row_per_categorical():
@@ -160,7 +160,7 @@ def test_forest_rows_add_a_reference_row_per_categorical():
         ]
     }  # fmt: skip
     rows = forest_rows(cox)
-    assert rows["label"].tolist() == ["arm: A (reference)", "arm: B", "arm: C", "age"]
+    assert rows["label"].tolist() == ["arm: A (reference)", "arm: B vs A", "arm: C vs A", "age"]
     assert rows["is_reference"].tolist() == [True, False, False, False]
     assert rows["p_text"].tolist() == ["", "0.004", "0.600", "< 0.001"]
 

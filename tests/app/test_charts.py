@@ -41,7 +41,7 @@ def _data(spec: dict, layer: dict) -> list[dict]:
     return spec["datasets"][name]
 
 
-def test_step_curve_has_band_line_tooltips_and_censor_marks():
+def test_step_curve_has_band_line_tooltips_censor_marks_and_end_labels():
     censored = pd.DataFrame({"group": ["A"], "time": [2.5], "estimate": [0.78]})
     chart = charts.step_curve_chart(
         _curves(),
@@ -49,15 +49,19 @@ def test_step_curve_has_band_line_tooltips_and_censor_marks():
         charts.group_colours(["A", "B"]),
         censored=censored,
         ticks=[0, 1, 2, 3, 4, 5],
+        legend_title="Group: arm",
     )
     spec = chart.to_dict()
     marks = [layer["mark"]["type"] for layer in _layers(spec)]
-    assert marks == ["area", "line", "point", "tick"]
-    area, line, hover, tick = _layers(spec)
+    assert marks == ["area", "line", "line", "line", "point", "point", "text", "text"]
+    area, low, high, line, hover, pole, names, heading = _layers(spec)
     assert area["mark"]["interpolate"] == "step-after"
     assert line["mark"]["interpolate"] == "step-after"
     assert area["encoding"]["y"]["field"] == "lower"
     assert area["encoding"]["y2"]["field"] == "upper"
+    # the interval's edges are thin dotted lines
+    assert (low["encoding"]["y"]["field"], high["encoding"]["y"]["field"]) == ("lower", "upper")
+    assert low["mark"]["strokeDash"] == [1, 2]
     assert {t["field"] for t in hover["encoding"]["tooltip"]} == {
         "group",
         "time",
@@ -68,16 +72,96 @@ def test_step_curve_has_band_line_tooltips_and_censor_marks():
     }
     assert line["encoding"]["x"]["axis"]["values"] == [0, 1, 2, 3, 4, 5]
     assert line["encoding"]["color"]["scale"]["range"] == list(charts.PALETTE[:2])
-    assert _data(spec, tick) == [{"group": "A", "time": 2.5, "estimate": 0.78}]
+    # censored times: a short pole standing on the curve, not a cross
+    assert pole["mark"]["shape"] == charts.CENSOR_SHAPE and pole["mark"]["filled"] is False
+    assert _data(spec, pole) == [{"group": "A", "time": 2.5, "estimate": 0.78}]
     assert len(_data(spec, line)) == 10
+    # each curve is named at its right-hand end, under the words "Group: arm"; no legend
+    ends = _data(spec, names)
+    assert [row["group"] for row in ends] == ["A", "B"]  # top to bottom
+    assert all(row["time"] == 5.0 for row in ends)
+    assert names["encoding"]["y"]["scale"] is None  # nudged positions, in pixels
+    assert _data(spec, heading) == [{"time": 5.0, "text": "Group: arm"}]
+    assert line["encoding"]["color"]["legend"] is None
     assert spec["title"]["text"] == "Survival"
+
+
+def test_colliding_end_labels_give_way_to_a_legend_on_the_right():
+    rows = []
+    names = ["first group", "second group", "third", "fourth", "fifth", "sixth"]
+    for label in names:
+        rows.append(
+            pd.DataFrame({"group": label, "time": [0.0, 5.0], "estimate": [1.0, 0.5]})
+        )  # every curve ends at the same point: their names cannot all sit there
+    chart = charts.step_curve_chart(
+        pd.concat(rows),
+        STYLE,
+        charts.group_colours(names),
+        band=False,
+        legend_title="Group: site",
+    )
+    spec = chart.to_dict()
+    assert [layer["mark"]["type"] for layer in _layers(spec)] == ["line", "point"]
+    legend = _layers(spec)[0]["encoding"]["color"]["legend"]
+    assert legend["title"] == "Group: site" and legend["orient"] == "right"
+
+
+def test_end_labels_are_nudged_apart_when_close():
+    curves = pd.DataFrame(
+        {
+            "group": ["A", "A", "B", "B"],
+            "time": [0.0, 5.0, 0.0, 5.0],
+            "estimate": [1.0, 0.50, 1.0, 0.49],
+        }
+    )
+    labels = charts.end_labels(curves, STYLE, (0.0, 5.0), (0.0, 1.0))
+    assert labels is not None
+    gap = labels["y_px"].diff().iloc[1]
+    assert gap >= STYLE.font_size * 1.25 - 1e-9  # at least one line apart
+
+
+@pytest.mark.parametrize(
+    ("ticks", "expected"),
+    [
+        ([0, 2.5, 5, 7.5, 10, 12.5], ",.1f"),  # 2.5 stays 2.5, never "3"
+        ([0, 10, 20, 30], ",.0f"),
+        ([0, 0.25, 0.5, 0.75], ",.2f"),
+        ([0, 0.2, 0.4, 0.6000000000000001], ",.1f"),
+        ([0.0], ",.0f"),
+    ],
+)
+def test_tick_labels_have_the_decimals_of_their_step(ticks, expected):
+    assert charts.tick_format(ticks) == expected
+
+
+def test_half_step_ticks_are_labelled_with_their_half():
+    # A month axis with a 2.5 step: the labels must read 2.5, 7.5, 12.5 (vl-convert renders
+    # the axis as Vega would in the browser).
+    ticks = charts.nice_ticks(13.0, count=7)
+    assert ticks == [0, 2.5, 5.0, 7.5, 10.0, 12.5]
+    chart = charts.step_curve_chart(
+        _curves().assign(time=lambda f: f["time"] * 2.6),
+        STYLE,
+        charts.group_colours(["A", "B"]),
+        ticks=ticks,
+        x_max=13.0,
+        legend_title=None,
+    )
+    svg = exports.figure_svg(charts.finish(chart, STYLE))
+    for label in ("2.5", "7.5", "12.5"):
+        assert f">{label}</text>" in svg
+    assert ">3</text>" not in svg and ">13</text>" not in svg
 
 
 def test_band_and_censor_marks_can_be_switched_off():
     chart = charts.step_curve_chart(
         _curves(), STYLE, charts.group_colours(["A", "B"]), band=False, censored=None
     )
-    assert [layer["mark"]["type"] for layer in _layers(chart.to_dict())] == ["line", "point"]
+    assert [layer["mark"]["type"] for layer in _layers(chart.to_dict())] == [
+        "line",
+        "point",
+        "text",
+    ]  # the curves' names at their ends remain
 
 
 def test_a_group_keeps_its_colour_whatever_is_drawn():
@@ -122,17 +206,27 @@ def test_numbers_at_risk_share_the_curve_ticks_and_axis_width():
     )
     spec = charts.curve_with_risk_table(curve, risk, STYLE).to_dict()
     top, bottom = spec["vconcat"]
-    top_x = top["layer"][1]["encoding"]["x"]
-    bottom_x = bottom["encoding"]["x"]
+    line = [layer for layer in top["layer"] if layer["mark"]["type"] == "line"][-1]
+    key_line, names, counts = bottom["layer"]
+    top_x, bottom_x = line["encoding"]["x"], counts["encoding"]["x"]
     assert top_x["scale"]["domain"] == bottom_x["scale"]["domain"] == [0, 5.0]
     assert top_x["axis"]["values"] == bottom_x["axis"]["values"] == ticks
+    assert top_x["axis"]["format"] == charts.tick_format(ticks)
     assert top["width"] == bottom["width"] == STYLE.width
-    top_y = top["layer"][1]["encoding"]["y"]["axis"]
-    bottom_y = bottom["encoding"]["y"]["axis"]
+    top_y = line["encoding"]["y"]["axis"]
+    bottom_y = counts["encoding"]["y"]["axis"]
     assert (
         top_y["minExtent"] == top_y["maxExtent"] == bottom_y["minExtent"] == bottom_y["maxExtent"]
     )
-    assert bottom["encoding"]["text"]["field"] == "at_risk"
+    # the counts are dark text, not bold and not in the group colours
+    assert counts["encoding"]["text"]["field"] == "at_risk"
+    assert counts["mark"]["color"] == charts.INK and "fontWeight" not in counts["mark"]
+    assert "color" not in counts["encoding"]
+    # each row is named after a short line in its group's colour
+    assert key_line["mark"]["type"] == "rule"
+    assert key_line["encoding"]["color"]["scale"]["range"] == list(charts.PALETTE[:2])
+    assert names["encoding"]["text"]["field"] == "group"
+    assert bottom["title"]["text"] == "Subjects still at risk"
 
 
 @pytest.mark.parametrize(
@@ -155,15 +249,47 @@ def test_forest_plot_uses_a_log_axis_and_marks_reference_rows():
         }
     )
     spec = charts_models.forest_chart(rows, STYLE).to_dict()
+    plot, text = spec["hconcat"]
     scales = [
         layer["encoding"]["x"]["scale"]["type"]
-        for layer in spec["layer"]
+        for layer in plot["layer"]
         if "scale" in layer["encoding"].get("x", {})
     ]
     assert scales and set(scales) == {"log"}
-    filters = [t["filter"] for layer in spec["layer"] for t in layer.get("transform", [])]
+    filters = [t["filter"] for layer in plot["layer"] for t in layer.get("transform", [])]
     assert "datum.is_reference" in filters and "!datum.is_reference" in filters
-    assert spec["layer"][1]["encoding"]["y"]["sort"] == list(rows["label"])
+    assert plot["layer"][1]["encoding"]["y"]["sort"] == list(rows["label"])
+    # single estimates are squares, not the diamonds of pooled estimates
+    marks = [layer["mark"]["type"] for layer in plot["layer"]]
+    assert "square" in marks and all(
+        layer["mark"].get("shape") != "diamond" for layer in plot["layer"]
+    )
+    # the text column states each hazard ratio with its interval, and the confidence level
+    assert text["encoding"]["text"]["field"] == "hr_text"
+    assert text["title"]["text"] == "HR (95% CI)"
+    assert "95% CI" in plot["layer"][1]["encoding"]["x"]["title"]
+
+
+def test_forest_plot_domain_holds_every_interval_limit():
+    # An upper limit past 2 (2.017) must not be cut at the axis end.
+    rows = pd.DataFrame(
+        {
+            "label": ["a", "b"],
+            "hazard_ratio": [1.4, 0.3],
+            "lower": [0.97, 0.05],
+            "upper": [2.017, 1.8],
+            "is_reference": [False, False],
+            "p_text": ["0.07", "0.2"],
+        }
+    )
+    low, high = charts_models.forest_domain(rows)
+    assert low < 0.05 and high > 2.017
+    spec = charts_models.forest_chart(rows, STYLE, confidence=0.9).to_dict()
+    domain = spec["hconcat"][0]["layer"][0]["encoding"]["x"]["scale"]["domain"]
+    assert domain[0] < 0.05 and domain[1] > 2.017
+    assert spec["hconcat"][1]["title"]["text"] == "HR (90% CI)"
+    (drawn,) = [d for d in spec["datasets"].values() if d and "hr_text" in d[0]]
+    assert [row["hr_text"] for row in drawn] == ["1.40 (0.97 to 2.02)", "0.30 (0.050 to 1.80)"]
 
 
 def test_residual_plot_has_dots_and_a_loess_smoother():

@@ -66,7 +66,7 @@ def test_incidence_chart_without_the_comparison_is_the_step_chart(incidence):
     spec = charts.finish(
         charts.incidence_chart(rows, STYLE, charts.group_colours(["died", "sold"])), STYLE
     )
-    assert not any(_mark(layer).get("strokeDash") for layer in _layers(spec))
+    assert not any(_mark(layer).get("strokeDash") == [2, 3] for layer in _layers(spec))
 
 
 def test_parametric_chart_dashes_and_shades_only_the_extrapolation():

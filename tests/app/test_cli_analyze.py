@@ -1,4 +1,4 @@
-"""``python -m app analyze``: the curves, comparison and Cox sections of the schema-1 JSON.
+"""``python -m app analyze``: the curves, comparison and Cox sections of the schema-2 JSON.
 
 The published values are checked through the command line on the Freireich et al. (1963)
 leukaemia remission data (6-MP vs placebo, weeks; as published in Gehan 1965 and reproduced in
@@ -65,7 +65,7 @@ def test_freireich_published_values_through_the_command_line(freireich_csv):
         *("--times", "13", "--covariates", "arm"),
     )
     assert list(result) == ["schema", "data", "curves", "comparison", "cox"]
-    assert result["schema"] == 1
+    assert result["schema"] == 2
     overall, six_mp, placebo = result["curves"]
     assert overall["group"] is None and overall["n"] == 42 and overall["events"] == 30
     assert (six_mp["group"], placebo["group"]) == ("6-MP", "placebo")
@@ -87,12 +87,16 @@ def test_test_and_ties_options_change_the_method(freireich_csv):
     result = analyze_json(
         str(freireich_csv),
         *("--time", "weeks", "--event", "relapse", "--group", "arm", "--covariates", "arm"),
-        *("--test", "gehan-breslow", "--ties", "breslow", "--ph-transform", "rank"),
+        *("--test", "gehan-breslow", "--ties", "breslow", "--ph-time-scale", "rank"),
     )
     assert result["comparison"]["statistic"] == pytest.approx(13.46, abs=5e-3)
     assert result["cox"]["ties"] == "breslow"
     assert result["cox"]["terms"][0]["coef"] == pytest.approx(1.509, abs=5e-4)
-    assert [row["variable"] for row in result["cox"]["ph_check"]] == ["arm", "GLOBAL"]
+    check = result["cox"]["ph_check"]
+    assert check["time_scale"] == "rank"
+    assert [row["variable"] for row in check["terms"]] == ["arm"]
+    assert check["all_terms"]["df"] == 1
+    assert "without_each" in result["cox"] and "drop_one" not in result["cox"]
 
 
 def test_numbers_equal_the_engine_on_a_demo_file():
@@ -147,7 +151,29 @@ def test_text_summary_without_json():
         *("--time", "months_in_service", "--event", "failed", "--group", "supplier"),
     )
     assert done.returncode == 0, done.stderr
-    assert "log-rank: chi-square" in done.stdout and "Kestrel" in done.stdout
+    assert "Log-rank test: chi-squared" in done.stdout and "Kestrel" in done.stdout
+
+
+def test_text_summary_of_the_model_in_hazels_layout():
+    done = run(
+        "analyze",
+        str(DEMO / "pump_bearings.csv"),
+        *("--time", "months_in_service", "--unit", "months", "--event", "failed"),
+        *("--covariates", "load_kN,lubricant", "--categorical", "lubricant"),
+    )
+    assert done.returncode == 0, done.stderr
+    out = done.stdout
+    # the event named from the roles, medians in words, and the Cox block with its own layout
+    assert "median time to failure (interval)" in out
+    assert "Cox model (Efron method for tied times):" in out
+    assert "hazard ratio   95% CI" in out
+    assert "lubricant: dry film vs grease" in out and "lubricant=" not in out
+    assert "Tests of the whole model" in out
+    for name in ("Likelihood ratio", "Wald", "Score"):
+        assert f"    {name}" in out
+    assert "Score (log-rank)" not in out and " on 3 df" not in out
+    assert "Proportional hazards, all terms together (survival time scale)" in out
+    assert "GLOBAL" not in out
 
 
 @pytest.mark.parametrize(

@@ -22,7 +22,7 @@ def run(*args: str) -> subprocess.CompletedProcess:
     )
 
 
-def test_check_writes_schema_1_json_and_a_summary(tmp_path):
+def test_check_writes_schema_2_json_and_a_summary(tmp_path):
     out = tmp_path / "result.json"
     done = run(
         "check",
@@ -31,7 +31,7 @@ def test_check_writes_schema_1_json_and_a_summary(tmp_path):
         "Enrolment date",
         "--end",
         "Last contact",
-        "--dayfirst",
+        "--day-first",
         "--event",
         "Status",
         "--group",
@@ -45,7 +45,7 @@ def test_check_writes_schema_1_json_and_a_summary(tmp_path):
     assert done.stderr == ""
     result = json.loads(out.read_text())
     assert list(result) == ["schema", "data"]
-    assert result["schema"] == 1
+    assert result["schema"] == 2
     data = result["data"]
     assert list(data) == DATA_KEYS
     assert data["rows_read"] == 8 and data["rows_used"] == 4
@@ -206,3 +206,26 @@ def test_in_process_helpers_build_roles_and_options():
     assert (roles.unit, roles.source_unit) == ("years", "weeks")
     options = import_options_from_args(args)
     assert options.sep == "\t" and options.sheet == 2
+
+
+def test_the_former_dayfirst_spelling_still_works_with_a_deprecation_line(tmp_path):
+    args = [
+        "check",
+        str(DATA / "clinic_export_bom_semicolon.csv"),
+        "--start",
+        "Enrolment date",
+        "--end",
+        "Last contact",
+        "--event",
+        "Status",
+        "--json",
+        "-",
+    ]
+    new = run(*args[:6], "--day-first", *args[6:])
+    old = run(*args[:6], "--dayfirst", *args[6:])
+    assert new.returncode == old.returncode == 0
+    assert new.stderr == ""
+    assert old.stderr.strip() == (
+        "warning: --dayfirst is deprecated and will be removed in the next release; use --day-first"
+    )
+    assert json.loads(old.stdout) == json.loads(new.stdout)

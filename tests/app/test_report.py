@@ -65,9 +65,9 @@ def freireich():
         reference={HOSTILE: "6-MP"},
         ties="breslow",
     )
-    checks = proportional_hazards_test(cox, "rank").checks
+    checks = proportional_hazards_test(cox, "rank")
     results = {
-        "schema": 1,
+        "schema": 2,
         "data": prepared.report.to_dict(),
         "curves": curves_json(prepared.frame, times=[10, 20]),
         "comparison": comparison_json(prepared.frame),
@@ -79,7 +79,7 @@ def freireich():
 SETTINGS = {
     "curves": {"times": [10, 20], "ci_transform": "log", "confidence": 0.95},
     "comparison": {"test": "logrank"},
-    "cox": {"ties": "breslow", "ph_transform": "rank"},
+    "cox": {"ties": "breslow", "ph_time_scale": "rank"},
 }
 
 
@@ -230,7 +230,10 @@ def test_curve_numbers_equal_the_json_numbers(freireich, parsed):
     assert medians == {None: 12.0, "6-MP": 23.0, HOSTILE: 8.0}
     assert ("23.0", "23.0") in cells and ("8.0", "8.0") in cells
     text = "".join(parsed.text)
-    assert "Median survival in group 6-MP was 23.0 weeks (95% CI 13.0 to not reached)." in text
+    # the event column is named "relapse", so the sentences name the event
+    assert (
+        "Median time to relapse in group 6-MP was 23.0 weeks (95% CI 13.0 to not reached)." in text
+    )
 
 
 def test_comparison_and_cox_numbers_equal_the_json_numbers(freireich, parsed):
@@ -245,7 +248,7 @@ def test_comparison_and_cox_numbers_equal_the_json_numbers(freireich, parsed):
     assert (repr(term["hazard_ratio"]), format_ratio(term["hazard_ratio"])) in parsed.cells
     assert format_ratio(term["hazard_ratio"]) == "4.52"
     assert (repr(term["p_value"]), format_p(term["p_value"])) in parsed.cells
-    for check in cox["ph_check"]:
+    for check in [*cox["ph_check"]["terms"], cox["ph_check"]["all_terms"]]:
         assert (repr(check["statistic"]), format_number(check["statistic"], 2)) in parsed.cells
         assert (repr(check["p_value"]), format_p(check["p_value"])) in parsed.cells
     for test in ("likelihood_ratio", "wald", "score"):
@@ -346,7 +349,7 @@ def test_pairwise_records_are_tabled_with_p_values_and_escaped_labels(freireich)
     }  # fmt: skip
     text = build_report(results, SETTINGS, software={"python": "3.11"})
     assert "<h3>Pairwise comparisons</h3>" in text
-    assert "<th>group b</th>" in text and "<th>p holm</th>" in text
+    assert "<th>Against</th>" in text and "<th>p (Holm)</th>" in text
     assert '<td class="num" data-value="0.0213">0.021</td>' in text
     assert '<td class="num" data-value="16.7929">16.79</td>' in text
     assert '<td class="num" data-value="3">3</td>' in text  # whole numbers stay whole
@@ -359,5 +362,5 @@ def test_rmst_columns_appear_when_the_curves_carry_them(freireich):
         for c in freireich[2]["curves"]
     ]
     text = build_report({**freireich[2], "curves": curves}, SETTINGS, software={})
-    assert "<th>RMST</th>" in text
+    assert "<th>Restricted mean survival time (weeks)</th>" in text  # no roles: no event name
     assert '<td class="num" data-value="17.25">17.3</td><td class="ci">14.0 to 20.5</td>' in text

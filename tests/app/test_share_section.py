@@ -64,7 +64,7 @@ def test_settings_are_read_from_the_page_widgets(table):
         "cox": {
             "ties": "efron",
             "confidence": 0.95,
-            "ph_transform": "km",
+            "ph_time_scale": "survival",
             "covariates": None,
             "strata": None,
             "reference": None,
@@ -165,7 +165,7 @@ def test_optional_analyses_follow_their_page_switches(table):
     assert settings["competing"]["times"] == [52.0]
     assert settings["sample_size"]["hazard_ratio"] == 0.6
     assert settings["sample_size"]["events"] is None  # 0 on the page: no power figure asked
-    assert settings["landmark"] == {"time": 6.0, "test": "peto-peto"}
+    assert settings["landmark"] == {"time": 6.0, "test": "peto-peto", "rho": 0.0, "gamma": 0.0}
     fresh = {state.TABLE: read_table(PUMPS)}
     restore_recipe(fresh, recipe_from_session(session))
     assert fresh["cr_include"] and fresh["power_include"] and not fresh["param_include"]

@@ -54,7 +54,7 @@ def main(n: int) -> None:
     print(f"{n} rows, {int(frame['_event'].sum())} events, {frame['_time'].nunique()} times")
     result, ours = timed(
         "ours: fit_cox (Efron, with concordance, no drop-one)",
-        lambda: fit_cox(frame, covariates, drop_one=False),
+        lambda: fit_cox(frame, covariates, without_each=False),
     )
     print(f"  iterations: {result.iterations}; concordance {result.concordance.concordance:.4f}")
     _, c_time = timed(

@@ -46,15 +46,15 @@ def test_exponential_aft_matches_statsmodels_poisson_glm(cohort):
         fit.log_likelihood + (cc["_event"] * np.log(cc["_time"])).sum(), glm.llf, rtol=1e-10
     )
     assert fit.rows_dropped == 7 and fit.missing_by_covariate == {"age": 7, "arm": 0}
-    assert list(fit.coefficients["term"]) == ["Intercept", "age", "arm[new]"]
+    assert list(fit.coefficients["term"]) == ["Intercept", "age", "arm: new vs control"]
 
 
 @pytest.mark.parametrize(
     "distribution, fitter",
     [
         ("weibull", WeibullAFTFitter),
-        ("lognormal", LogNormalAFTFitter),
-        ("loglogistic", LogLogisticAFTFitter),
+        ("log-normal", LogNormalAFTFitter),
+        ("log-logistic", LogLogisticAFTFitter),
     ],
 )
 def test_predictions_match_lifelines(cohort, distribution, fitter):
@@ -65,7 +65,7 @@ def test_predictions_match_lifelines(cohort, distribution, fitter):
     data = pd.DataFrame(
         {
             "age": cc["age"],
-            "arm[new]": (cc["arm"] == "new").astype(float),
+            "arm_new": (cc["arm"] == "new").astype(float),
             "_time": cc["_time"],
             "_event": cc["_event"],
         }
@@ -74,14 +74,14 @@ def test_predictions_match_lifelines(cohort, distribution, fitter):
     profiles = pd.DataFrame(
         {"age": [45.0, 70.0], "arm": pd.Categorical(["control", "new"], ["control", "new"])}
     )
-    ref_rows = pd.DataFrame({"age": [45.0, 70.0], "arm[new]": [0.0, 1.0]})
+    ref_rows = pd.DataFrame({"age": [45.0, 70.0], "arm_new": [0.0, 1.0]})
     times = np.array([1.0, 5.0, 12.0])
     ours = fit.survival(profiles, times)
     ref_surv = ref.predict_survival_function(ref_rows, times=times).to_numpy()  # (times, rows)
     assert_allclose(ours["survival"].to_numpy(), ref_surv.T.reshape(-1), rtol=1e-9)
     assert_allclose(fit.median(profiles), ref.predict_median(ref_rows).to_numpy(), rtol=1e-6)
     assert_allclose(fit.log_likelihood, ref.log_likelihood_, rtol=1e-12)
-    assert fit.coefficients.set_index("term").loc["arm[new]", "time_ratio"] > 1
+    assert fit.coefficients.set_index("term").loc["arm: new vs control", "time_ratio"] > 1
 
 
 def test_weibull_aft_nests_exponential(cohort):

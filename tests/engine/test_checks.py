@@ -132,7 +132,7 @@ def test_dates_from_a_real_world_export():
     roles = Roles(
         start="Enrolment date",
         end="Last contact",
-        dayfirst=True,
+        day_first=True,
         event="Status",
         group="Arm",
         covariates=("Weight (kg)",),

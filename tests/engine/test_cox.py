@@ -184,19 +184,19 @@ def test_delayed_entry_matches_lifelines(rng):
     np.testing.assert_allclose(result.to_frame()["coef"], reference.params_, atol=1e-5)
 
 
-def test_drop_one_matches_statsmodels_refits(rng):
+def test_without_each_matches_statsmodels_refits(rng):
     frame = simulated(rng)
     result = fit_cox(frame, ["x1", "group", "x2"], ties="breslow")
     _, full = statsmodels_fit(frame, ["x1", "mid", "high", "x2"], "breslow")
     for test, kept, df in [
-        (result.drop_one[0], ["mid", "high", "x2"], 1),
-        (result.drop_one[1], ["x1", "x2"], 2),
-        (result.drop_one[2], ["x1", "mid", "high"], 1),
+        (result.without_each[0], ["mid", "high", "x2"], 1),
+        (result.without_each[1], ["x1", "x2"], 2),
+        (result.without_each[2], ["x1", "mid", "high"], 1),
     ]:
         _, reduced = statsmodels_fit(frame, kept, "breslow")
         assert test.statistic == pytest.approx(2 * (full.llf - reduced.llf), abs=1e-6)
         assert test.df == df
-    assert [t.variable for t in result.drop_one] == ["x1", "group", "x2"]
+    assert [t.variable for t in result.without_each] == ["x1", "group", "x2"]
 
 
 def test_complete_cases_and_dropped_counts(rng):
@@ -287,7 +287,7 @@ def test_json_contract(rossi):
     json.dumps(out)
     assert set(out) >= {
         "n", "events", "ties", "terms", "likelihood_ratio", "wald", "score", "concordance",
-        "drop_one", "ph_check", "warnings",
+        "without_each", "ph_check", "warnings",
     }  # fmt: skip
     assert set(out["terms"][0]) == {
         "variable", "level", "reference", "coef", "se", "hazard_ratio", "lower", "upper",

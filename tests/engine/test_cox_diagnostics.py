@@ -62,17 +62,23 @@ def test_scaled_schoenfeld_match_lifelines_with_tied_times(rossi_fits):
     np.testing.assert_allclose(mine[COVARIATES], reference + theirs.params_.values, atol=1e-6)
 
 
-@pytest.mark.parametrize("transform", ["identity", "log"])
-def test_ph_statistics_match_lifelines_on_rossi(rossi_fits, transform):
+# Hazel's time scales and the reference library's argument for the same scale.
+REFERENCE_TRANSFORM = {"time": "identity", "log-time": "log", "rank": "rank"}
+
+
+@pytest.mark.parametrize("time_scale", ["time", "log-time"])
+def test_ph_statistics_match_lifelines_on_rossi(rossi_fits, time_scale):
     rossi, ours, theirs = rossi_fits
-    reference = proportional_hazard_test(theirs, rossi, time_transform=transform)
-    mine = proportional_hazards_test(ours, transform)
+    reference = proportional_hazard_test(
+        theirs, rossi, time_transform=REFERENCE_TRANSFORM[time_scale]
+    )
+    mine = proportional_hazards_test(ours, time_scale)
     np.testing.assert_allclose([t.statistic for t in mine.terms], reference.test_statistic, 1e-6)
     np.testing.assert_allclose([t.p_value for t in mine.terms], reference.p_value, 1e-6)
 
 
-@pytest.mark.parametrize("transform", ["rank", "km", "identity"])
-def test_ph_statistics_match_lifelines_without_ties(rng, transform):
+@pytest.mark.parametrize("time_scale", ["rank", "survival", "time"])
+def test_ph_statistics_match_lifelines_without_ties(rng, time_scale):
     frame = untied(rng)
     ours = fit_cox(frame, ["x1", "b", "c"])
     data = frame[["_time", "_event", "x1", "b", "c"]]
@@ -85,9 +91,9 @@ def test_ph_statistics_match_lifelines_without_ties(rng, transform):
         before = km.survival_function_at_times(np.asarray(t) - 1e-9).to_numpy()
         return pd.Series(1 - before, index=t.index)
 
-    lifelines_transform = left_km if transform == "km" else transform
+    lifelines_transform = left_km if time_scale == "survival" else REFERENCE_TRANSFORM[time_scale]
     reference = proportional_hazard_test(theirs, data, time_transform=lifelines_transform)
-    mine = proportional_hazards_test(ours, transform)
+    mine = proportional_hazards_test(ours, time_scale)
     # lifelines stops its Newton iterations a little earlier here (coefficients differ ~1e-6).
     np.testing.assert_allclose([t.statistic for t in mine.terms], reference.test_statistic, 1e-4)
 
@@ -109,17 +115,17 @@ def test_global_and_joint_tests_from_lifelines_residuals(rng):
     raw = theirs.compute_residuals(data, "schoenfeld").sort_index().to_numpy()
     times = data["_time"].sort_index()[data["_event"] == 1].to_numpy()
     covariance = theirs.variance_matrix_.to_numpy()
-    mine = proportional_hazards_test(ours, "identity")
-    expected_global = grambsch_therneau(times, raw, covariance, [0, 1, 2])
-    assert mine.global_test.statistic == pytest.approx(expected_global, rel=1e-5)
-    assert mine.global_test.df == 3
+    mine = proportional_hazards_test(ours, "time")
+    expected_all = grambsch_therneau(times, raw, covariance, [0, 1, 2])
+    assert mine.all_terms.statistic == pytest.approx(expected_all, rel=1e-5)
+    assert mine.all_terms.df == 3
     joint = {t.variable: t for t in mine.variables}
     assert joint["level"].statistic == pytest.approx(
         grambsch_therneau(times, raw, covariance, [1, 2]), rel=1e-5
     )
     assert joint["level"].df == 2
     assert joint["x1"].statistic == pytest.approx(mine.terms[0].statistic)
-    assert [t.variable for t in mine.checks] == ["x1", "level", "GLOBAL"]
+    assert [t.variable for t in mine.checks] == ["x1", "level", "All terms together"]
 
 
 def test_schoenfeld_residuals_within_strata_match_lifelines(rng):
@@ -155,13 +161,13 @@ def test_martingale_residuals_match_lifelines(rossi_fits):
     assert bins["n"].sum() == len(rossi)
 
 
-def test_km_transform_is_left_continuous_km(rng):
+def test_survival_time_scale_is_left_continuous_km(rng):
     time = np.round(rng.exponential(size=100), 1) + 0.1
     event = rng.random(100) < 0.7
     at = np.unique(time[event])
     km = KaplanMeierFitter().fit(time, event)
     expected = 1 - km.survival_function_at_times(at - 1e-9).to_numpy()
-    np.testing.assert_allclose(transform_times("km", at, time, event), expected, atol=1e-12)
+    np.testing.assert_allclose(transform_times("survival", at, time, event), expected, atol=1e-12)
 
 
 def test_log_minus_log_matches_lifelines_kaplan_meier(rossi_fits):
@@ -175,14 +181,17 @@ def test_log_minus_log_matches_lifelines_kaplan_meier(rossi_fits):
         np.testing.assert_allclose(mine["log_minus_log"], np.log(-np.log(expected)))
 
 
-def test_json_ph_check_lists_variables_and_global(rossi_fits):
+def test_json_ph_check_has_time_scale_terms_and_all_terms(rossi_fits):
     _, ours, _ = rossi_fits
     ph = proportional_hazards_test(ours)
-    checks = cox_json(ours, ph)["ph_check"]
-    assert cox_json(ours, ph.checks)["ph_check"] == checks
-    assert [c["variable"] for c in checks] == [*COVARIATES, "GLOBAL"]
-    assert checks[-1]["df"] == 7
-    assert all(set(c) == {"variable", "statistic", "df", "p_value"} for c in checks)
+    check = cox_json(ours, ph)["ph_check"]
+    assert cox_json(ours, ph.to_dict())["ph_check"] == check
+    assert list(check) == ["time_scale", "terms", "all_terms"]
+    assert check["time_scale"] == "survival"
+    assert [c["variable"] for c in check["terms"]] == COVARIATES
+    assert all(set(c) == {"variable", "statistic", "df", "p_value"} for c in check["terms"])
+    assert set(check["all_terms"]) == {"statistic", "df", "p_value"}
+    assert check["all_terms"]["df"] == 7
 
 
 def test_unknown_transform_raises(rossi_fits):

@@ -65,7 +65,7 @@ def _partial_loglik_by_hand(frame: pd.DataFrame, beta: float) -> float:
 
 
 def test_cox_uses_truncated_risk_sets():
-    result = fit_cox(HAND, ["x"], entry="_entry", ties="breslow", drop_one=False)
+    result = fit_cox(HAND, ["x"], entry="_entry", ties="breslow", without_each=False)
     beta = result.terms[0].coef
     assert_allclose(result.loglik, _partial_loglik_by_hand(HAND, beta), rtol=1e-10)
     # The maximiser of the hand-computed likelihood: the derivative vanishes at beta.
@@ -74,7 +74,7 @@ def test_cox_uses_truncated_risk_sets():
         _partial_loglik_by_hand(HAND, beta + step) - _partial_loglik_by_hand(HAND, beta - step)
     ) / (2 * step)
     assert abs(slope) < 1e-5
-    without = fit_cox(HAND.drop(columns="_entry"), ["x"], ties="breslow", drop_one=False)
+    without = fit_cox(HAND.drop(columns="_entry"), ["x"], ties="breslow", without_each=False)
     assert abs(without.terms[0].coef - beta) > 1e-3  # entry changes the risk sets, hence beta
 
 
@@ -85,7 +85,7 @@ def test_cox_with_entry_matches_lifelines(rng):
     entry = time * rng.uniform(0, 0.7, n)
     event = (rng.uniform(size=n) < 0.8).astype(int)
     frame = pd.DataFrame({"_time": time, "_event": event, "_entry": entry, "x": x})
-    ours = fit_cox(frame, ["x"], entry="_entry", drop_one=False)
+    ours = fit_cox(frame, ["x"], entry="_entry", without_each=False)
     ref = CoxPHFitter().fit(frame, "_time", "_event", entry_col="_entry")
     assert_allclose(ours.terms[0].coef, ref.params_["x"], rtol=1e-6)
     assert_allclose(ours.terms[0].se, ref.standard_errors_["x"], rtol=1e-5)

@@ -27,7 +27,7 @@ def _scipy_frozen(fit):
         return stats.expon(scale=np.exp(-th[0]))
     if fit.distribution == "weibull":
         return stats.weibull_min(c=th[1], scale=th[0])
-    if fit.distribution == "lognormal":
+    if fit.distribution == "log-normal":
         return stats.lognorm(s=th[1], scale=np.exp(th[0]))
     return stats.fisk(c=th[1], scale=th[0])
 
@@ -77,7 +77,7 @@ def test_weibull_uncensored_matches_scipy_weibull_min_fit(rng, shape, scale):
 def test_lognormal_uncensored_matches_closed_form_mle(rng):
     data = rng.lognormal(1.0, 0.7, 500)
     logs = np.log(data)
-    fit = fit_distribution(data, np.ones_like(data), "lognormal")
+    fit = fit_distribution(data, np.ones_like(data), "log-normal")
     closed = stats.lognorm(s=logs.std(ddof=0), scale=np.exp(logs.mean()))
     # lifelines' optimiser stops within ~1e-5 of the maximum (log-likelihood within 1e-6).
     assert_allclose(fit.theta, [logs.mean(), logs.std(ddof=0)], rtol=1e-4)
@@ -87,7 +87,7 @@ def test_lognormal_uncensored_matches_closed_form_mle(rng):
 def test_loglogistic_uncensored_matches_scipy_fisk_fit(rng):
     data = stats.fisk(c=2.5, scale=4.0).rvs(size=600, random_state=rng)
     c, _, s = stats.fisk.fit(data, floc=0)
-    fit = fit_distribution(data, np.ones_like(data), "loglogistic")
+    fit = fit_distribution(data, np.ones_like(data), "log-logistic")
     assert_allclose(fit.theta, [s, c], rtol=1e-3)
 
 

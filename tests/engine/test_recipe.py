@@ -120,7 +120,8 @@ def test_reordered_columns_are_reported(imported):
 def test_newer_version_is_refused_with_a_clear_message(imported):
     data = _recipe(imported).to_dict()
     data[VERSION_KEY] = CURRENT_VERSION + 1
-    with pytest.raises(RecipeError, match=r"newer Hazel \(recipe version 2\).*Update Hazel"):
+    newer = rf"newer Hazel \(recipe version {CURRENT_VERSION + 1}\).*Update Hazel"
+    with pytest.raises(RecipeError, match=newer):
         Recipe.from_dict(data)
 
 
@@ -186,3 +187,56 @@ def test_version_0_with_an_unknown_setting_is_refused():
     old = {**VERSION_0, "settings": {"colour": "red"}}
     with pytest.raises(RecipeError, match="setting 'colour'"):
         migrate(old)
+
+
+def test_version_1_setting_names_are_migrated_to_version_2(imported):
+    # Version 1 used the names of the proportional-hazards transform and of the parametric
+    # families that version 2 replaced with its own words; replaying must give the new ones.
+    old = _recipe(imported).to_dict()
+    old[VERSION_KEY] = 1
+    old["roles"] = {**old["roles"], "dayfirst": True}
+    old["roles"].pop("day_first", None)
+    old["analyses"] = {
+        "curves": {},
+        "cox": {"ties": "efron", "ph_transform": "km"},
+        "parametric": {
+            "distributions": ["exponential", "weibull", "lognormal", "loglogistic"],
+            "aft_distribution": "loglogistic",
+        },
+    }
+    recipe = Recipe.from_dict(old)
+    settings = recipe.settings()
+    assert settings["cox"]["ph_time_scale"] == "survival"
+    assert "ph_transform" not in settings["cox"]
+    assert settings["parametric"]["distributions"] == [
+        "exponential",
+        "weibull",
+        "log-normal",
+        "log-logistic",
+    ]
+    assert settings["parametric"]["aft_distribution"] == "log-logistic"
+    assert recipe.roles["day_first"] is True and "dayfirst" not in recipe.roles
+    assert recipe.to_dict()[VERSION_KEY] == CURRENT_VERSION == 2
+
+
+@pytest.mark.parametrize(
+    ("old", "new"),
+    [("km", "survival"), ("rank", "rank"), ("identity", "time"), ("log", "log-time")],
+)
+def test_each_old_time_scale_maps_to_its_new_name(imported, old, new):
+    data = _recipe(imported).to_dict()
+    data[VERSION_KEY] = 1
+    data["analyses"] = {"curves": {}, "cox": {"ph_transform": old}}
+    assert Recipe.from_dict(data).settings()["cox"]["ph_time_scale"] == new
+
+
+def test_version_0_ph_transform_reaches_version_2(imported):
+    data = {
+        VERSION_KEY: 0,
+        "file": {"name": "x.csv", "hash": "0" * 64, "n_rows": 3, "columns": ["a"]},
+        "import": {},
+        "roles": {"time": "a", "covariates": ["a"]},
+        "settings": {"ph_transform": "identity", "ties": "breslow"},
+    }
+    settings = Recipe.from_dict(data).settings()
+    assert settings["cox"]["ph_time_scale"] == "time" and settings["cox"]["ties"] == "breslow"

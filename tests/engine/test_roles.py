@@ -20,7 +20,7 @@ from engine.roles import (
     covariate_kind,
     default_reference,
     describe_event,
-    guess_dayfirst,
+    guess_day_first,
     natural_sort_key,
     suggest_roles,
     value_key,
@@ -154,7 +154,7 @@ def test_roles_round_trip_through_json():
     roles = Roles(
         start="a",
         end="b",
-        dayfirst=True,
+        day_first=True,
         unit="months",
         event="e",
         event_values=("dead", 2),
@@ -223,14 +223,14 @@ def test_suggest_start_and_end_dates_and_day_first():
     suggestions = suggest_roles(frame)
     assert suggestions.start.column == "diagnosis_date"
     assert suggestions.end.column == "last_seen"
-    assert suggestions.dayfirst is True
+    assert suggestions.day_first is True
     assert suggestions.time is None
 
 
-def test_guess_dayfirst():
-    assert guess_dayfirst(pd.Series(["13/01/2020", "01/02/2020"]))
-    assert not guess_dayfirst(pd.Series(["01/13/2020", "01/02/2020"]))
-    assert not guess_dayfirst(pd.Series(["2020-01-13"]))
+def test_guess_day_first():
+    assert guess_day_first(pd.Series(["13/01/2020", "01/02/2020"]))
+    assert not guess_day_first(pd.Series(["01/13/2020", "01/02/2020"]))
+    assert not guess_day_first(pd.Series(["2020-01-13"]))
 
 
 # --- covariates and levels ----------------------------------------------------------------------
