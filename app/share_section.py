@@ -462,13 +462,14 @@ def cox_text(result) -> list[str]:
     return cox_sentences(result.to_dict(), result.confidence)
 
 
-def analysis_text(sections: dict, settings: dict) -> list[str]:
-    """Every sentence of a run_analysis result (the report's "Text for a manuscript")."""
+def analysis_text(sections: dict, settings: dict, event: str | None = None) -> list[str]:
+    """Every sentence of a run_analysis result (the report's "Text for a manuscript");
+    ``event`` names the event in words."""
     from engine.wording import comparison_sentence, cox_sentences, curve_sentences
 
     unit = sections["data"]["time_unit"]
     confidence = settings["curves"]["confidence"]
-    sentences = [s for c in sections["curves"] for s in curve_sentences(c, unit, confidence)]
+    sentences = [s for c in sections["curves"] for s in curve_sentences(c, unit, confidence, event)]
     comparison = sections.get("comparison")
     if comparison:
         sentences.append(
@@ -489,4 +490,7 @@ def recipe_text(recipe_json: str, fingerprint: str, _table) -> str:
 
     run = apply_recipe(Recipe.from_json(recipe_json), _table)
     sections = run_analysis(run.prepared, run.settings, run.source)
-    return "\n".join(analysis_text(sections, run.settings))
+    from engine.roles import event_in_words
+
+    event = event_in_words(run.prepared.roles)
+    return "\n".join(analysis_text(sections, run.settings, event))

@@ -20,6 +20,7 @@ from engine.cox import fit_cox
 from engine.io import read_table
 from engine.roles import Roles, suggest_roles
 from engine.summary import group_summary
+from engine.wording import format_number, format_ratio
 
 ROOT = Path(__file__).resolve().parents[2]
 ENTRY = str(ROOT / "app" / "hazel.py")
@@ -181,7 +182,10 @@ def test_curves_summary_equals_the_engine(pumps):
     assert not at.exception
     expected = group_summary(prepared.frame, (12.0, 24.0)).to_frame()
     shown = at.dataframe[0].value
-    assert list(shown["n"]) == list(expected["n"])
+    assert list(shown["Subjects"]) == list(expected["n"])
+    # the event ("failed") named in words, and units on every time
+    assert "Median time to failure (months)" in shown.columns
+    assert "Probability still free of failure at 12 months" in shown.columns
     assert list(shown["Events"]) == list(expected["events"])
     for row, (_, want) in zip(shown.itertuples(index=False), expected.iterrows(), strict=True):
         assert row[4].startswith(f"{want['median']:.3g} (")
@@ -213,7 +217,7 @@ def test_comparison_shows_the_engine_statistic(pumps, test):
     at.selectbox(key="compare_test").set_value(test).run()
     assert not at.exception
     expected = compare_frame(prepared.frame, test=test)
-    assert _metric(at, "χ² statistic") == f"{expected.statistic:.2f}"
+    assert _metric(at, "Chi-squared (χ²)") == format_number(expected.statistic, 2)
     assert _metric(at, "Degrees of freedom") == str(expected.df)
     text = _texts(at)
     assert "Reading:" in text
@@ -239,7 +243,10 @@ def test_cox_model_numbers_equal_the_engine(pumps):
     assert _metric(at, "Events") == f"{expected.events:,}"
     assert _metric(at, "Concordance (C)") == f"{expected.concordance.concordance:.3f}"
     terms = at.dataframe[0].value
-    assert list(terms["Hazard ratio"]) == [f"{t.hazard_ratio:.3f}" for t in expected.terms]
+    assert list(terms["Hazard ratio"]) == [format_ratio(t.hazard_ratio) for t in expected.terms]
+    # one order for the Cox table: the hazard ratio first, its interval named "95% CI"
+    assert list(terms.columns)[:4] == ["Term", "Hazard ratio", "95% CI", "p"]
+    assert "lubricant: dry film vs grease" in list(terms["Term"])
     # Breslow ties refit the model.
     at.radio(key="model_ties").set_value("Breslow").run()
     breslow = fit_cox(
@@ -250,7 +257,7 @@ def test_cox_model_numbers_equal_the_engine(pumps):
     )
     assert not at.exception
     terms = at.dataframe[0].value
-    assert list(terms["Hazard ratio"]) == [f"{t.hazard_ratio:.3f}" for t in breslow.terms]
+    assert list(terms["Hazard ratio"]) == [format_ratio(t.hazard_ratio) for t in breslow.terms]
 
 
 def test_cox_model_with_one_covariate_and_a_new_reference(pumps):
@@ -329,7 +336,7 @@ def test_import_options_read_the_file_again():
 
 def test_removing_a_covariate_keeps_the_regression_page_working():
     at = _open("views/regression.py")
-    at.selectbox(key="model_ph_term").set_value("lubricant: oil bath").run()
+    at.selectbox(key="model_ph_term").set_value("lubricant: oil bath vs grease").run()
     at.selectbox(key="model_profile_variable").set_value("lubricant").run()
     at.multiselect(key="model_covariates").set_value(["load_kN"]).run()
     assert not at.exception
@@ -362,15 +369,16 @@ def test_trend_pairwise_and_rmst_equal_the_engine(pumps):
     assert not at.exception
     trend = trend_test(frame["_time"], frame["_event"], frame["_group"])
     text = _texts(at)
-    assert f"χ² = {trend.statistic:.2f} on 1 df" in text
+    assert f"χ² = {format_number(trend.statistic, 2)} on 1 degree of freedom" in text
     pairs = pairwise_comparisons(frame["_time"], frame["_event"], frame["_group"]).to_frame()
     shown = next(d.value for d in at.dataframe if "against" in d.value.columns)
-    assert list(shown["χ²"]) == list(pairs["statistic"].round(2))
+    assert list(shown["Chi-squared"]) == [format_number(v, 2) for v in pairs["statistic"]]
     two = frame[frame["_group"].isin(["Ashford", "Brightmoor"])]
     group = pd.Categorical(two["_group"].astype(object), categories=["Ashford", "Brightmoor"])
     rmst = rmst_by_group(two["_time"], two["_event"], pd.Series(group, index=two.index))
-    assert f"{rmst.contrast.difference:.3g}" in text
-    assert f"{rmst.contrast.difference_lower:.3g} to {rmst.contrast.difference_upper:.3g}" in text
+    assert format_number(rmst.contrast.difference, 2) in text
+    low, high = rmst.contrast.difference_lower, rmst.contrast.difference_upper
+    assert f"95% CI {format_number(low, 2)} to {format_number(high, 2)}" in text
 
 
 def test_predicted_curves_for_profiles_i_set(pumps):

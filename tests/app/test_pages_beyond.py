@@ -22,7 +22,7 @@ from engine.landmark import landmark
 from engine.recipe import Recipe
 from engine.roles import suggest_roles
 from engine.sample_size import events_needed
-from engine.wording import format_percent
+from engine.wording import format_number, format_percent, format_ratio
 
 ROOT = Path(__file__).resolve().parents[2]
 ENTRY = str(ROOT / "app" / "hazel.py")
@@ -172,14 +172,15 @@ def test_restored_recipe_gives_the_pages_the_cli_numbers(tmp_path, restore_filte
     assert warnings == []
     at.switch_page("views/comparison.py").run()
     assert not at.exception, [e.message for e in at.exception]
-    assert _metric(at, "χ² statistic") == f"{cli['comparison']['statistic']:.2f}"
+    assert _metric(at, "Chi-squared (χ²)") == format_number(cli["comparison"]["statistic"], 2)
     at.switch_page("views/curves.py").run()
     assert not at.exception
     shown = at.dataframe[0].value
-    assert list(shown["n"]) == [c["n"] for c in cli["curves"]]
+    assert list(shown["Subjects"]) == [c["n"] for c in cli["curves"]]
     assert list(shown["Events"]) == [c["events"] for c in cli["curves"]]
     expected = cli["curves"][0]["at_times"][0]
-    assert shown["Survival at 12"].iloc[0].startswith(f"{expected['survival']:.3f}")
+    at_12 = shown["Probability still free of failure at 12 months"]
+    assert at_12.iloc[0].startswith(f"{expected['survival']:.3f}")
     # the recipe downloaded again is the one restored
     again = share_section.recipe_from_session(at.session_state)
     assert again.fingerprint == recipe.fingerprint and again.filters == recipe.filters
@@ -188,7 +189,7 @@ def test_restored_recipe_gives_the_pages_the_cli_numbers(tmp_path, restore_filte
 def test_share_page_offers_the_recipe_and_the_text():
     at = _open("views/share.py")
     assert not _errors(at)
-    assert any("Median survival" in c.value for c in at.code)
+    assert any("Median time to failure" in c.value for c in at.code)
 
 
 def test_entry_time_role_is_honoured_by_the_curves_page():
@@ -219,7 +220,8 @@ def test_entry_time_role_is_honoured_by_the_curves_page():
     at.switch_page("views/curves.py").run()
     assert not at.exception
     at.text_input(key="curves_times").set_value("10").run()
-    shown = at.dataframe[0].value["Survival at 10"].iloc[0]
+    # the event column "status" names no event: the words say "the event"
+    shown = at.dataframe[0].value["Probability still free of the event at 10 days"].iloc[0]
     table = read_table(content, name="late.csv")
     with_entry = group_summary(prepare(table.frame, roles).frame, (10.0,)).to_frame()
     without = group_summary(
@@ -231,13 +233,13 @@ def test_entry_time_role_is_honoured_by_the_curves_page():
 
 def test_restored_ties_and_ph_scale_show_on_the_regression_page():
     at, session = _share_page_with_pumps(
-        {"model_ties": "Breslow", "model_ph_transform": "rank of time"}
+        {"model_ties": "Breslow", "model_ph_time_scale": "Rank of the event times"}
     )
     recipe = share_section.recipe_from_session(session)
     assert recipe.settings()["cox"] == {
         "ties": "breslow",
         "confidence": 0.95,
-        "ph_transform": "rank",
+        "ph_time_scale": "rank",
         "covariates": None,
         "strata": None,
         "reference": None,
@@ -246,7 +248,7 @@ def test_restored_ties_and_ph_scale_show_on_the_regression_page():
     at.switch_page("views/regression.py").run()
     assert not at.exception, [e.message for e in at.exception]
     assert at.radio(key="model_ties").value == "Breslow"
-    assert at.session_state["model_ph_transform"] == "rank of time"
+    assert at.session_state["model_ph_time_scale"] == "Rank of the event times"
     run = run_analysis(prepare(session[state.TABLE].frame, session[state.ROLES]), recipe.settings())
     assert run["cox"]["ties"] == "breslow"
 
@@ -255,7 +257,7 @@ def test_curves_manuscript_text_follows_the_unit_switch():
     at = _open("views/curves.py")
     at.selectbox(key="curves_unit").set_value("years").run()
     assert not at.exception
-    text = next(c.value for c in at.code if "Median survival" in c.value)
+    text = next(c.value for c in at.code if "Median time to failure" in c.value)
     assert " years (95% CI" in text and "months" not in text
 
 
@@ -302,7 +304,7 @@ def test_restored_cut_strata_and_model_choices_give_the_pages_the_cli_numbers(tm
     assert at.selectbox(key="compare_strata").value == "site"
     comparison = cli["comparison"]
     assert comparison["df"] == 2
-    assert _metric(at, "χ² statistic") == f"{comparison['statistic']:.2f}"
+    assert _metric(at, "Chi-squared (χ²)") == format_number(comparison["statistic"], 2)
     assert _metric(at, "Degrees of freedom") == str(comparison["df"])
     assert _metric(at, "p-value") == ui.fmt_p(comparison["p_value"])
 
@@ -319,8 +321,9 @@ def test_restored_cut_strata_and_model_choices_give_the_pages_the_cli_numbers(tm
         for t in cox["terms"]
     ]
     assert list(shown["Term"]) == expected
-    assert list(shown["Hazard ratio"]) == [f"{t['hazard_ratio']:.3f}" for t in cox["terms"]]
-    assert list(shown["Coefficient"]) == pytest.approx([round(t["coef"], 4) for t in cox["terms"]])
+    assert list(shown["Hazard ratio"]) == [format_ratio(t["hazard_ratio"]) for t in cox["terms"]]
+    coefficients = shown["Coefficient (log hazard ratio)"]
+    assert list(coefficients) == [format_number(t["coef"], 3) for t in cox["terms"]]
     assert all(t["reference"] == "oil bath" for t in cox["terms"] if t["level"] is not None)
 
     # the recipe downloaded again from the restored pages is the one restored
