@@ -45,7 +45,14 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
         "reference": None,
     },
     # The analyses below run only when the settings name them (a recipe, --competing ...).
-    "competing": {"times": [], "by_group": True, "cause_specific_cox": True},
+    # gray_test: Gray's test per cause across the groups; fine_gray: a cause name (or None)
+    "competing": {
+        "times": [],
+        "by_group": True,
+        "cause_specific_cox": True,
+        "gray_test": True,
+        "fine_gray": None,
+    },
     "parametric": {
         "distributions": ["exponential", "weibull", "lognormal", "loglogistic"],
         "by_group": False,
@@ -63,9 +70,20 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
         "events": None,
     },
     "landmark": {"time": None, "test": "logrank"},
+    # performance of the Cox model: AUC and Brier score at times, tau of Uno's C (None: the
+    # largest time), calibration at a time (None: the first of times), bootstrap of optimism
+    # (replicates 0: none)
+    "performance": {
+        "times": [],
+        "tau": None,
+        "calibration_time": None,
+        "risk_groups": 5,
+        "replicates": 100,
+        "seed": 20261202,
+    },
 }
 CORE_ANALYSES = ("curves", "comparison", "cox")  # always run (when the roles allow)
-OPTIONAL_ANALYSES = ("competing", "parametric", "sample_size", "landmark")
+OPTIONAL_ANALYSES = ("competing", "parametric", "sample_size", "landmark", "performance")
 
 
 def resolved_settings(settings: Mapping | None) -> dict[str, dict]:
