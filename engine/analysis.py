@@ -168,6 +168,22 @@ def fit_cox_from_roles(
     )
 
 
+def fit_cox_from_settings(
+    prepared: PreparedData, cox: Mapping, source: pd.DataFrame | None = None, **options
+):
+    """The Cox model of resolved ``"cox"`` settings (the model the Regression page shows)."""
+    return fit_cox_from_roles(
+        prepared,
+        ties=cox["ties"],
+        confidence=cox["confidence"],
+        covariates=cox["covariates"],
+        strata=cox["strata"],
+        reference=cox["reference"],
+        source=source,
+        **options,
+    )
+
+
 def comparison_frame(
     prepared: PreparedData, *, cut=None, strata=None, source: pd.DataFrame | None = None
 ) -> pd.DataFrame | None:
@@ -239,15 +255,7 @@ def run_analysis(
     }
     model = prepared.roles.covariates if cox["covariates"] is None else cox["covariates"]
     if prepared.roles.covariates and model:
-        result = fit_cox_from_roles(
-            prepared,
-            ties=cox["ties"],
-            confidence=cox["confidence"],
-            covariates=cox["covariates"],
-            strata=cox["strata"],
-            reference=cox["reference"],
-            source=source,
-        )
+        result = fit_cox_from_settings(prepared, cox, source=source)
         sections["cox"] = cox_json(result, proportional_hazards_test(result, cox["ph_transform"]))
     from engine.analysis_extra import extra_sections  # the optional analyses
 

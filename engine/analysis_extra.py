@@ -132,7 +132,7 @@ def fine_gray_section(prepared: PreparedData, chosen: Mapping) -> dict:
 def performance_section(prepared: PreparedData, chosen: Mapping) -> dict:
     """Discrimination, accuracy and calibration of the Cox model the settings describe, and
     the bootstrap correction for optimism (unless replicates is 0)."""
-    from engine.analysis import fit_cox_from_roles
+    from engine.analysis import fit_cox_from_settings
     from engine.optimism import bootstrap_optimism
     from engine.performance import prediction_performance
 
@@ -141,16 +141,7 @@ def performance_section(prepared: PreparedData, chosen: Mapping) -> dict:
             "Prediction performance is measured on a Cox model, which needs covariates; set "
             "them (--covariates A,B) or leave out --performance."
         )
-    cox = chosen["cox"]
-    model = fit_cox_from_roles(
-        prepared,
-        ties=cox["ties"],
-        confidence=cox["confidence"],
-        covariates=cox["covariates"],
-        strata=cox["strata"],
-        reference=cox["reference"],
-        drop_one=False,
-    )
+    model = fit_cox_from_settings(prepared, chosen["cox"], drop_one=False)
     result = prediction_performance(
         model,
         chosen["times"],
