@@ -86,18 +86,38 @@ def analysis_summary(
         lines.append(text)
     comparison = sections["comparison"]
     if comparison is not None:
-        lines += ["", "Group comparison"]
-        lines.append(
-            "  "
-            + comparison_sentence(
-                comparison["test"], comparison["statistic"], comparison["df"], comparison["p_value"]
+        lines += ["", "Group comparison", "  " + _test_sentence(comparison)]
+        if comparison.get("rows_excluded"):
+            lines.append(
+                f"  {comparison['rows_excluded']:,} row(s) without a group left out of the "
+                "comparison (they are in the all-rows curve)"
             )
-        )
     cox = sections["cox"]
     if cox is not None:
         lines += ["", *cox_summary(cox, confidence)]
     lines += extra_summary(sections, unit)
     return "\n".join(lines)
+
+
+def _test_sentence(test: dict) -> str:
+    """'Log-rank test: chi-squared 3.21 on 1 degree of freedom, p = 0.073' ("not estimable"
+    where a value is null)."""
+    return comparison_sentence(test["test"], test["statistic"], test["df"], test["p_value"])
+
+
+def _terms_block(terms: list[dict], ratio_name: str, ci: str) -> list[str]:
+    """Rows of a model's terms, the ratio first: label, ratio, interval, p."""
+    labels = [term_label(t["variable"], t["level"], t["reference"]) for t in terms]
+    width = max([len("term"), *(len(label) for label in labels)]) + 2
+    ratio_width = max(len(ratio_name), 12)
+    lines = [f"  {'term':<{width}}{ratio_name:>{ratio_width}}   {ci:<20}p"]
+    for label, term in zip(labels, terms, strict=True):
+        interval = f"{format_ratio(term['lower'])} to {format_ratio(term['upper'])}"
+        lines.append(
+            f"  {label:<{width}}{format_ratio(term['hazard_ratio']):>{ratio_width}}   "
+            f"{interval:<20}{format_p(term['p_value'])}"
+        )
+    return lines
 
 
 def cox_summary(cox: dict, confidence: float = 0.95) -> list[str]:
@@ -108,15 +128,7 @@ def cox_summary(cox: dict, confidence: float = 0.95) -> list[str]:
         f"Cox model ({str(cox['ties']).capitalize()} method for tied times): "
         f"{cox['n']:,} rows used, {cox['events']:,} events"
     ]
-    labels = [term_label(t["variable"], t["level"], t["reference"]) for t in cox["terms"]]
-    width = max([len("term"), *(len(label) for label in labels)]) + 2
-    lines.append(f"  {'term':<{width}}{'hazard ratio':>12}   {ci:<20}p")
-    for label, term in zip(labels, cox["terms"], strict=True):
-        interval = f"{format_ratio(term['lower'])} to {format_ratio(term['upper'])}"
-        lines.append(
-            f"  {label:<{width}}{format_ratio(term['hazard_ratio']):>12}   {interval:<20}"
-            f"{format_p(term['p_value'])}"
-        )
+    lines += _terms_block(cox["terms"], "hazard ratio", ci)
     lr = cox.get("likelihood_ratio") or {}
     df = lr.get("df")
     lines.append(
@@ -163,6 +175,16 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
             )
         if competing["warning"]:
             lines.append(f"  Note: {competing['warning']}")
+        for row in competing.get("gray_test") or ():
+            lines.append(f"  {row['cause']}: " + _test_sentence({**row, "test": "Gray's"}))
+        fine_gray = competing.get("fine_gray")
+        if fine_gray:
+            lines += [
+                "",
+                f"Fine–Gray model of {fine_gray['cause']}: {fine_gray['n']:,} rows, "
+                f"{fine_gray['events']:,} events; robust standard errors",
+                *_terms_block(fine_gray["terms"], "subdistribution HR", "95% CI"),
+            ]
     parametric = sections.get("parametric")
     if parametric:
         lines += ["", "Parametric models by AIC (lower is better)"]
@@ -196,14 +218,30 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
         )
         comparison = landmark["comparison"]
         if comparison is not None:
+            lines.append("  After the landmark: " + _test_sentence(comparison))
+    performance = sections.get("performance")
+    if performance:
+        lines += [
+            "",
+            f"Prediction performance (up to {format_plain(performance['tau'])} {unit})",
+            f"  Harrell's C {format_number(performance['harrell_c'], 3)}, Uno's C "
+            f"{format_number(performance['uno_c'], 3)}; integrated Brier score "
+            f"{format_number(performance['integrated_brier'], 3)} (Kaplan–Meier alone "
+            f"{format_number(performance['integrated_brier_km'], 3)})",
+        ]
+        for t, auc, brier in zip(
+            performance["times"], performance["auc"], performance["brier"], strict=True
+        ):
             lines.append(
-                "  After the landmark: "
-                + comparison_sentence(
-                    comparison["test"],
-                    comparison["statistic"],
-                    comparison["df"],
-                    comparison["p_value"],
-                )
+                f"  at {format_plain(t)} {unit}: AUC {format_number(auc, 3)}, Brier score "
+                f"{format_number(brier, 3)}"
+            )
+        optimism = performance["optimism"]
+        if optimism:
+            lines.append(
+                f"  Optimism-corrected C {format_number(optimism['c'], 3)}, calibration slope "
+                f"{format_number(optimism['slope'], 3)} ({optimism['replicates']} bootstrap "
+                f"replicates, seed {optimism['seed']})"
             )
     return lines
 
