@@ -129,23 +129,28 @@ def cox_summary(cox: dict, confidence: float = 0.95) -> list[str]:
         f"{cox['n']:,} rows used, {cox['events']:,} events"
     ]
     lines += _terms_block(cox["terms"], "hazard ratio", ci)
-    lr = cox.get("likelihood_ratio") or {}
-    df = lr.get("df")
-    lines.append(
-        "  Tests of the whole model"
-        + (f" ({format_plain(df)} degrees of freedom each):" if df is not None else ":")
-    )
-    for name, key in (
-        ("Likelihood ratio", "likelihood_ratio"),
-        ("Wald", "wald"),
-        ("Score", "score"),
-    ):
-        test = cox.get(key)
-        if test:
-            lines.append(
-                f"    {name:<18}chi-squared {format_number(test['statistic'], 2)}, "
-                f"{p_clause(test['p_value'])}"
-            )
+    tests = [
+        (name, cox.get(key))
+        for name, key in (
+            ("Likelihood ratio", "likelihood_ratio"),
+            ("Wald", "wald"),
+            ("Score", "score"),
+        )
+        if cox.get(key)
+    ]
+    if not tests:
+        lines.append("  Tests of the whole model: not computed")
+    else:
+        df = tests[0][1].get("df")
+        lines.append(
+            "  Tests of the whole model"
+            + (f" ({format_plain(df)} degree(s) of freedom each):" if df is not None else ":")
+        )
+    for name, test in tests:
+        lines.append(
+            f"    {name:<18}chi-squared {format_number(test['statistic'], 2)}, "
+            f"{p_clause(test['p_value'])}"
+        )
     if cox.get("concordance") is not None:
         lines.append(f"  Concordance (Harrell's C): {format_number(cox['concordance'], 3)}")
     ph = cox.get("ph_check")

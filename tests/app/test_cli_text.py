@@ -39,6 +39,9 @@ def test_null_statistics_and_aic_are_written_as_not_available():
         },
     }
     text = analysis_summary(sections, "days")
-    assert "log-rank: chi-square n/a on 1 df, p = n/a" in text
-    assert "likelihood ratio n/a on n/a df, p = n/a" in text
-    assert "weibull      AIC n/a (Δ n/a)" in text
+    assert (
+        "Log-rank test: chi-squared not estimable on 1 degree of freedom, p not estimable." in text
+    )
+    assert "Tests of the whole model: not computed" in text
+    assert "Weibull       AIC not estimable (Δ not estimable)" in text
+    assert "After the landmark: Log-rank test: statistic not estimable, p not estimable." in text
