@@ -111,3 +111,25 @@ def test_bad_covariates_raise_clear_errors(cohort):
     unknown = pd.DataFrame({"arm": ["placebo"]})
     with pytest.raises(RoleError, match="placebo"):
         fit.median(unknown)
+
+
+def test_aft_shape_is_on_its_own_scale_as_lifelines_fits_it(cohort):
+    # lifelines models the Weibull shape on the log scale (rho_ intercept); Hazel reports
+    # exp() of it, named "shape", with the interval transformed back.
+    fit = fit_aft(cohort, ["age", "arm"], "weibull")
+    cc = cohort.dropna()
+    data = pd.DataFrame(
+        {
+            "age": cc["age"],
+            "arm_new": (cc["arm"] == "new").astype(float),
+            "_time": cc["_time"],
+            "_event": cc["_event"],
+        }
+    )
+    ref = WeibullAFTFitter().fit(data, "_time", "_event")
+    log_shape = float(ref.params_.loc[("rho_", "Intercept")])
+    (row,) = fit.ancillary.itertuples(index=False)
+    assert row.parameter == "shape"
+    assert_allclose(row.estimate, np.exp(log_shape), rtol=1e-6)
+    assert row.lower < row.estimate < row.upper
+    assert "shape" in fit.to_dict()["parametrisation"]

@@ -343,3 +343,37 @@ def test_iso_dates_read_by_pyarrow_as_date_objects():
     table = read_table(b"a,b,e\n2020-01-01,2020-03-01,1\n2021-06-30,2021-07-01,0\n")
     prepared = prepare(table.frame, Roles(start="a", end="b", event="e"))
     assert prepared.frame["_time"].tolist() == [60.0, 1.0]  # 2020 is a leap year
+
+
+def test_dates_failing_month_first_that_read_day_first_are_named_with_the_fix():
+    # Day-first dates read month first: 13/01 and later fail; the checks say they would read
+    # day first and name the switch and the option (not only "unparseable date").
+    start = ["01/02/2020", "13/01/2020", "25/03/2020", "28/02/2020", "15/06/2020"]
+    end = ["05/02/2020", "20/01/2020", "30/03/2020", "02/03/2020", "20/06/2020"]
+    frame = pd.DataFrame({"a": start, "b": end, "e": [1, 0, 1, 1, 0]})
+    prepared = prepare(frame, Roles(start="a", end="b", event="e"))
+    assert _excluded(prepared)["unparseable date"] == 4
+    note = next(w for w in prepared.report.warnings if "can be read day first" in w)
+    assert "could not be read month first" in note
+    assert "'Dates are day first'" in note and "--day-first" in note
+    fixed = prepare(frame, Roles(start="a", end="b", event="e", day_first=True))
+    assert "unparseable date" not in _excluded(fixed)
+    assert not any("can be read" in w for w in fixed.report.warnings)
+
+
+def test_dates_failing_day_first_that_read_month_first_are_named_with_the_fix():
+    start = ["02/01/2020", "01/13/2020", "03/25/2020"]
+    end = ["02/05/2020", "01/20/2020", "03/30/2020"]
+    frame = pd.DataFrame({"a": start, "b": end, "e": [1, 0, 1]})
+    prepared = prepare(frame, Roles(start="a", end="b", event="e", day_first=True))
+    note = next(w for w in prepared.report.warnings if "can be read month first" in w)
+    assert "switch off 'Dates are day first'" in note and "leave out --day-first" in note
+
+
+def test_dates_unreadable_either_way_give_no_day_first_hint():
+    frame = pd.DataFrame(
+        {"a": ["01/02/2020", "not a date"], "b": ["05/02/2020", "06/02/2020"], "e": [1, 0]}
+    )
+    prepared = prepare(frame, Roles(start="a", end="b", event="e"))
+    assert _excluded(prepared) == {"unparseable date": 1}
+    assert not any("can be read" in w for w in prepared.report.warnings)

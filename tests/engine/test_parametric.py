@@ -190,3 +190,27 @@ def test_prepared_frame_wrapper_keeps_group_order(rng):
     assert [f.group for f in result.fits] == ["low", "high"]
     overall = fit_parametric(frame, distributions=("weibull",))
     assert overall.fits[0].group is None and overall.fits[0].n == 300
+
+
+def test_parameters_are_named_in_words_with_their_parametrisation(rng):
+    # Weibull S(t) = exp(-(t / scale)^shape): the fitted scale and shape reproduce the curve
+    # (scipy's weibull_min with c = shape, scale = scale, as the reference).
+    from engine.parametric import PARAMETRISATION
+
+    time, event = _censored_weibull(rng)
+    fit = fit_distribution(time, event, "weibull")
+    params = fit.parameters.set_index("parameter")["estimate"]
+    assert list(params.index) == ["scale", "shape"]
+    grid = np.array([1.0, 5.0, 20.0])
+    expected = stats.weibull_min(c=params["shape"], scale=params["scale"]).sf(grid)
+    assert_allclose(fit.survival(grid)["survival"], expected, rtol=1e-9)
+    assert fit.to_dict()["parametrisation"] == PARAMETRISATION["weibull"]
+    names = {
+        d: list(fit_distribution(time, event, d).parameters["parameter"]) for d in DISTRIBUTIONS
+    }
+    assert names == {
+        "exponential": ["log rate", "rate"],
+        "weibull": ["scale", "shape"],
+        "log-normal": ["mean of log time", "SD of log time"],
+        "log-logistic": ["scale", "shape"],
+    }

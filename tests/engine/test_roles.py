@@ -273,3 +273,24 @@ def test_default_reference_is_most_frequent_with_natural_tie_break():
     assert default_reference(pd.Series(["b", "a", "b", None, None, None])) == "b"
     assert default_reference(pd.Series(["g10", "g2", "g10", "g2"])) == "g2"
     assert default_reference(pd.Series([None, None], dtype=object)) is None
+
+
+@pytest.mark.parametrize(
+    ("roles", "expected"),
+    [
+        (Roles(time="t", event="outcome", event_values=("relapsed",)), "relapse"),
+        (Roles(time="t", event="failed"), "failure"),
+        (Roles(time="t", event="status", event_values=("died",)), "death"),
+        (Roles(time="t", event="status", event_values=("1",)), "the event"),
+        (Roles(time="t", event="status", event_name="  first  sale "), "first sale"),
+    ],
+)
+def test_the_event_in_words(roles, expected):
+    from engine.roles import event_in_words
+
+    assert event_in_words(roles) == expected
+
+
+def test_roles_read_the_former_dayfirst_key():
+    assert Roles.from_dict({"time": "t", "dayfirst": True}).day_first is True
+    assert "day_first" in Roles().to_dict() and "dayfirst" not in Roles().to_dict()

@@ -269,3 +269,56 @@ def test_labels_with_direction_controls_are_shown_as_codes_in_sentences():
     assert "\u202e" not in sentence and "group [U+202E]B" in sentence
     hr = hazard_ratio_sentence(0.5, 0.4, 0.6, 0.01, "arm\u2066", "new\x1b[2J", "old")
     assert "\u2066" not in hr and "\x1b" not in hr and "arm[U+2066] new[U+001B][2J" in hr
+
+
+def test_term_labels_name_the_reference_level():
+    from engine.wording import term_label
+
+    assert term_label("lubricant", "dry film", "grease") == "lubricant: dry film vs grease"
+    assert term_label("load_kN") == "load_kN"
+    assert term_label("arm", "B") == "arm: B"
+
+
+@pytest.mark.parametrize(
+    ("event", "median", "free", "title"),
+    [
+        (None, "median survival", "survival", "Survival probability"),
+        ("death", "median survival", "survival", "Survival probability"),
+        (
+            "relapse",
+            "median time to relapse",
+            "probability still free of relapse",
+            "Probability still free of relapse",
+        ),
+    ],
+)
+def test_the_event_is_named_in_words(event, median, free, title):
+    from engine.wording import free_name, median_name, probability_title
+
+    assert median_name(event) == median
+    assert free_name(event) == free
+    assert probability_title(event) == title
+
+
+def test_curve_sentences_name_the_event_and_the_landmark():
+    curve = {
+        "group": "A",
+        "median": {"estimate": 5.0, "lower": 3.0, "upper": None},
+        "at_times": [{"time": 12, "survival": 0.643, "lower": 0.551, "upper": 0.72, "at_risk": 48}],
+    }
+    sentences = curve_sentences(curve, "months", event="relapse", after="after the landmark")
+    assert sentences == [
+        "Median time to relapse after the landmark in group A was 5.0 months "
+        "(95% CI 3.0 to not reached).",
+        "Probability still free of relapse at 12 months after the landmark in group A was 64.3% "
+        "(95% CI 55.1% to 72.0%), with 48 still at risk.",
+    ]
+
+
+@pytest.mark.parametrize(("ratio", "words"), [(0.7, "fewer events"), (1.4, "more events")])
+def test_planned_hazard_ratio_states_its_direction(ratio, words):
+    from engine.wording import hazard_ratio_direction
+
+    text = hazard_ratio_direction(ratio)
+    assert "experimental group's hazard divided by the control group's" in text
+    assert f"{words} in the experimental group" in text
