@@ -122,6 +122,12 @@ def add_analysis_options(parser: argparse.ArgumentParser) -> None:
         "interest): cumulative incidence per cause and cause-specific Cox models",
     )
     more.add_argument(
+        "--fine-gray",
+        metavar="CAUSE",
+        help="Fine–Gray model of the cumulative incidence of CAUSE on the covariates (with "
+        "--competing; Gray's test per cause is added whenever there are groups)",
+    )
+    more.add_argument(
         "--parametric",
         action="store_true",
         help="exponential, Weibull, log-normal and log-logistic fits (AFT with --covariates)",
@@ -159,6 +165,24 @@ def add_analysis_options(parser: argparse.ArgumentParser) -> None:
         metavar="K",
         help="quantile groups for a numeric subgroup column (default 2)",
     )
+    perf = parser.add_argument_group("prediction performance of the Cox model (with --covariates)")
+    perf.add_argument(
+        "--performance",
+        metavar="T1,T2",
+        help="Harrell's and Uno's C, time-dependent AUC and Brier score at these times, "
+        "integrated Brier score, calibration and the bootstrap correction for optimism",
+    )
+    perf.add_argument("--tau", type=float, help="Uno's C up to this time (default: the last)")
+    perf.add_argument(
+        "--calibration-time", type=float, metavar="T", help="calibration at T (default: T1)"
+    )
+    perf.add_argument(
+        "--risk-groups", type=int, help="groups of predicted risk for calibration (default 5)"
+    )
+    perf.add_argument(
+        "--bootstrap", type=int, metavar="B", help="bootstrap replicates (default 100; 0: none)"
+    )
+    perf.add_argument("--seed", type=int, help="seed of the bootstrap (default 20261202)")
 
 
 def add_role_options(parser: argparse.ArgumentParser) -> None:
@@ -305,7 +329,15 @@ SETTING_OPTIONS = {
     },
     "subgroups": {"groups": "subgroup_groups"},
     "parametric": {"horizon": "horizon", "times": "times"},
-    "competing": {"times": "times"},
+    "competing": {"times": "times", "fine_gray": "fine_gray"},
+    "performance": {
+        "times": "performance",
+        "tau": "tau",
+        "calibration_time": "calibration_time",
+        "risk_groups": "risk_groups",
+        "replicates": "bootstrap",
+        "seed": "seed",
+    },
     "landmark": {"time": "landmark", "test": "test"},
     "sample_size": {
         "hazard_ratio": "power_hr",
@@ -331,17 +363,29 @@ def settings_from_args(args: argparse.Namespace, base: dict | None = None) -> di
         "landmark": getattr(args, "landmark", None) is not None,
         "sample_size": getattr(args, "power_hr", None) is not None,
         "subgroups": bool(getattr(args, "subgroups", None)),
+        "performance": getattr(args, "performance", None) is not None,
     }
     for name, on in switched.items():
         if on and name not in settings:
             settings[name] = dict(ANALYSIS_DEFAULTS[name])
+    if getattr(args, "fine_gray", None) is not None and "competing" not in settings:
+        raise UsageError(
+            "--fine-gray needs causes: map the event values with --competing VALUE=CAUSE "
+            "(or replay a recipe that maps them)"
+        )
     for name, options in SETTING_OPTIONS.items():
         if name not in settings:
             continue
         for setting, option in options.items():
             given = getattr(args, option, None)
             if given is not None:
-                settings[name][setting] = _times(given) if setting == "times" else given
+                settings[name][setting] = (
+                    _times(given, "--" + option.replace("_", "-")) if setting == "times" else given
+                )
+    if "performance" in settings:
+        chosen = settings["performance"]
+        if chosen["replicates"] is not None and chosen["replicates"] < 0:
+            raise UsageError(f"--bootstrap must be 0 or more, got {chosen['replicates']}")
     _model_options(args, settings)
     confidence = settings["curves"]["confidence"]
     if not 0 < confidence < 1:

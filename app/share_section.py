@@ -115,6 +115,7 @@ INCLUDE_KEYS = {
     "sample_size": "power_include",
     "landmark": "landmark_include",
     "subgroups": "effects_subgroups_include",
+    "performance": "perf_include",
 }
 
 

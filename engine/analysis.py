@@ -51,7 +51,14 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
         "split": None,
     },
     # The analyses below run only when the settings name them (a recipe, --competing ...).
-    "competing": {"times": [], "by_group": True, "cause_specific_cox": True},
+    # gray_test: Gray's test per cause across the groups; fine_gray: a cause name (or None)
+    "competing": {
+        "times": [],
+        "by_group": True,
+        "cause_specific_cox": True,
+        "gray_test": True,
+        "fine_gray": None,
+    },
     "parametric": {
         "distributions": ["exponential", "weibull", "lognormal", "loglogistic"],
         "by_group": False,
@@ -71,9 +78,22 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
     "landmark": {"time": None, "test": "logrank"},
     # variables: subgroup columns; groups: quantile groups for a numeric one
     "subgroups": {"variables": [], "groups": 2},
+    # performance of the Cox model: AUC and Brier score at times, tau of Uno's C (None: the
+    # largest time), calibration at a time (None: the first of times), bootstrap of optimism
+    # (replicates 0: none)
+    "performance": {
+        "times": [],
+        "tau": None,
+        "calibration_time": None,
+        "risk_groups": 5,
+        "replicates": 100,
+        "seed": 20261202,
+    },
 }
 CORE_ANALYSES = ("curves", "comparison", "cox")  # always run (when the roles allow)
-OPTIONAL_ANALYSES = ("competing", "parametric", "sample_size", "landmark", "subgroups")
+OPTIONAL_ANALYSES = (
+    "competing", "parametric", "sample_size", "landmark", "performance", "subgroups",
+)  # fmt: skip
 
 
 def resolved_settings(settings: Mapping | None) -> dict[str, dict]:
@@ -177,6 +197,22 @@ def cox_model_inputs(
     )
 
 
+def fit_cox_from_settings(
+    prepared: PreparedData, cox: Mapping, source: pd.DataFrame | None = None, **options
+):
+    """The Cox model of resolved ``"cox"`` settings (the model the Regression page shows)."""
+    return fit_cox_from_roles(
+        prepared,
+        ties=cox["ties"],
+        confidence=cox["confidence"],
+        covariates=cox["covariates"],
+        strata=cox["strata"],
+        reference=cox["reference"],
+        source=source,
+        **{"variance": cox.get("variance", "auto"), **options},
+    )
+
+
 def comparison_frame(
     prepared: PreparedData, *, cut=None, strata=None, source: pd.DataFrame | None = None
 ) -> pd.DataFrame | None:
@@ -248,16 +284,7 @@ def run_analysis(
     }
     model = prepared.roles.covariates if cox["covariates"] is None else cox["covariates"]
     if prepared.roles.covariates and model:
-        result = fit_cox_from_roles(
-            prepared,
-            ties=cox["ties"],
-            confidence=cox["confidence"],
-            covariates=cox["covariates"],
-            strata=cox["strata"],
-            reference=cox["reference"],
-            source=source,
-            variance=cox["variance"],
-        )
+        result = fit_cox_from_settings(prepared, cox, source=source)
         sections["cox"] = cox_json(result, proportional_hazards_test(result, cox["ph_transform"]))
         sections["cox"].update(cox_additions(prepared, cox, source))
     from engine.analysis_extra import extra_sections  # the optional analyses
