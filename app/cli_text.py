@@ -94,8 +94,9 @@ def analysis_summary(
             )
     cox = sections["cox"]
     if cox is not None:
-        lines += ["", *cox_summary(cox, confidence)]
+        lines += ["", *cox_summary(cox, confidence), *model_variant_summary(cox)]
     lines += extra_summary(sections, unit)
+    lines += subgroup_summary(sections)
     return "\n".join(lines)
 
 
@@ -254,3 +255,46 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
 def event_words(prepared: PreparedData) -> str:
     """The event in words for the summary's headers."""
     return event_in_words(prepared.roles)
+
+
+def model_variant_summary(cox: dict) -> list[str]:
+    """Short lines for the robust variance, the splines, the split follow-up; subgroups are
+    summarised by ``subgroup_summary``."""
+    lines = []
+    if cox.get("variance") == "robust":
+        lines.append(f"  Standard errors: robust, {cox['clusters']:,} clusters (subjects)")
+    for spline in cox.get("splines") or ():
+        test = spline["nonlinearity"]
+        lines.append(
+            f"  Spline of {spline['variable']} ({len(spline['knots'])} knots), non-linearity: "
+            + _test_sentence({**test, "test": "likelihood-ratio"})
+        )
+    split = cox.get("time_split")
+    if split:
+        check = split["model"]["ph_check"]
+        joint = check["all_terms"] if isinstance(check, dict) else check[-1]
+        lines.append(
+            f"  Follow-up split at {', '.join(format_plain(t) for t in split['times'])} "
+            f"({split['episodes']:,} episodes); proportional hazards after the split, all terms "
+            f"together: chi-squared {format_number(joint['statistic'], 2)}, "
+            f"{p_clause(joint['p_value'])}"
+        )
+    return lines
+
+
+def subgroup_summary(sections: dict) -> list[str]:
+    subgroups = sections.get("subgroups")
+    if not subgroups:
+        return []
+    lines = ["", f"Subgroups ({subgroups['treatment']}), exploratory"]
+    lines.append(f"  {'subgroup':<30} {'subjects':>9} {'events':>9}   hazard ratio (95% CI)")
+    for row in subgroups["rows"]:
+        label = f"{row['variable']}: {row['level']}"
+        lines.append(
+            f"  {label:<30} {row['n']:>9,} {row['events']:>9,}   "
+            f"{format_ratio(row['hazard_ratio'])} ({format_ratio(row['lower'])} to "
+            f"{format_ratio(row['upper'])})"
+        )
+    for test in subgroups["interactions"]:
+        lines.append(f"  interaction with {test['variable']}: {p_clause(test['p_value'])}")
+    return lines

@@ -35,16 +35,18 @@ ALL_TERMS = "All terms together"  # the joint test's row label
 FUNCTIONAL_FORM_BINS = 20
 
 
-def _km_step(time: np.ndarray, event: np.ndarray, at: np.ndarray, side: str) -> np.ndarray:
+def _km_step(time: np.ndarray, event: np.ndarray, at: np.ndarray, side: str, entry=None):
     """Kaplan–Meier survival at each time in ``at``: just before it (``side="left"``) or at it
-    (``side="right"``), from the shared estimator."""
-    curve = kaplan_meier(time, event)
+    (``side="right"``), from the shared estimator (rows at risk on (entry, time] with ``entry``)."""
+    curve = kaplan_meier(time, event, entry=entry)
     survival = np.concatenate([[1.0], curve.survival])
     return survival[np.searchsorted(curve.time, at, side=side)]
 
 
-def transform_times(time_scale: str, event_times, all_times, all_events) -> np.ndarray:
-    """The time scale g(t) at each event time for the proportional-hazards test."""
+def transform_times(time_scale: str, event_times, all_times, all_events, entry=None) -> np.ndarray:
+    """The time scale g(t) at each event time for the proportional-hazards test; the survival
+    scale counts a row at risk on (entry, time] when entry times are given (episodes, delayed
+    entry), so splitting follow-up into episodes leaves it unchanged."""
     if time_scale == "time":
         return np.asarray(event_times, dtype=float)
     if time_scale == "log-time":
@@ -57,7 +59,9 @@ def transform_times(time_scale: str, event_times, all_times, all_events) -> np.n
     if time_scale == "rank":
         return stats.rankdata(event_times)
     if time_scale == "survival":
-        return 1 - _km_step(np.asarray(all_times), np.asarray(all_events), event_times, "left")
+        return 1 - _km_step(
+            np.asarray(all_times), np.asarray(all_events), event_times, "left", entry
+        )
     raise AnalysisError(
         f"Time scale {time_scale!r} of the proportional-hazards check is not known; use one of "
         f"{preview_values(TIME_SCALES)}."
@@ -88,7 +92,7 @@ def schoenfeld_residuals(result: CoxResult, time_scale: str = "survival") -> Sch
     raw = (model.scaled[ev] - means) * model.scale
     scaled = model.beta + layout.n_events * raw @ model.covariance
     event_times = layout.time[ev]
-    g = transform_times(time_scale, event_times, layout.time, layout.event)
+    g = transform_times(time_scale, event_times, layout.time, layout.event, model.entry)
     table = pd.DataFrame(
         {
             "row": model.used_index[layout.order[ev]],
