@@ -364,7 +364,7 @@ def step_curve_chart(
     layers = []
     if band and {"lower", "upper"} <= set(data.columns):
         layers.append(
-            base.mark_area(interpolate="step-after", opacity=0.07, clip=True).encode(
+            base.mark_area(interpolate="step-after", opacity=0.07, clip=True, tooltip=None).encode(
                 y=alt.Y("lower:Q", scale=y_scale), y2="upper:Q"
             )
         )
@@ -376,6 +376,7 @@ def step_curve_chart(
                     strokeDash=[1, 2],
                     opacity=0.8,
                     clip=True,
+                    tooltip=None,  # the hover points carry the tooltip
                 ).encode(y=alt.Y(f"{edge}:Q", scale=y_scale))
             )
     layers.append(
@@ -383,10 +384,9 @@ def step_curve_chart(
             y=alt.Y("estimate:Q", title=style.y_title or "Estimate", scale=y_scale, axis=y_axis)
         )
     )
-    layers.append(
-        base.mark_point(size=style.point_size * 3, opacity=0, clip=True).encode(
-            y="estimate:Q", tooltip=tooltip
-        )
+    # invisible points on every vertex carry the tooltip; drawn last, they sit on top
+    hover = base.mark_point(size=style.point_size * 3, opacity=0, clip=True).encode(
+        y="estimate:Q", tooltip=tooltip
     )
     if censored is not None and not censored.empty:
         marks = censored.assign(group=censored["group"].astype(str))
@@ -435,6 +435,7 @@ def step_curve_chart(
                 )
                 .encode(x="time:Q", y=alt.value(0), text="text:N")
             )
+    layers.append(hover)
     return alt.layer(*layers, data=data).properties(
         width=style.width, height=style.height, title=chart_title(style)
     )

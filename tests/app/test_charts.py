@@ -53,8 +53,8 @@ def test_step_curve_has_band_line_tooltips_censor_marks_and_end_labels():
     )
     spec = chart.to_dict()
     marks = [layer["mark"]["type"] for layer in _layers(spec)]
-    assert marks == ["area", "line", "line", "line", "point", "point", "text", "text"]
-    area, low, high, line, hover, pole, names, heading = _layers(spec)
+    assert marks == ["area", "line", "line", "line", "point", "text", "text", "point"]
+    area, low, high, line, pole, names, heading, hover = _layers(spec)
     assert area["mark"]["interpolate"] == "step-after"
     assert line["mark"]["interpolate"] == "step-after"
     assert area["encoding"]["y"]["field"] == "lower"
@@ -101,7 +101,7 @@ def test_colliding_end_labels_give_way_to_a_legend_on_the_right():
         legend_title="Group: site",
     )
     spec = chart.to_dict()
-    assert [layer["mark"]["type"] for layer in _layers(spec)] == ["line", "point"]
+    assert [layer["mark"]["type"] for layer in _layers(spec)] == ["line", "point"]  # no names
     legend = _layers(spec)[0]["encoding"]["color"]["legend"]
     assert legend["title"] == "Group: site" and legend["orient"] == "right"
 
@@ -159,8 +159,8 @@ def test_band_and_censor_marks_can_be_switched_off():
     )
     assert [layer["mark"]["type"] for layer in _layers(chart.to_dict())] == [
         "line",
-        "point",
         "text",
+        "point",
     ]  # the curves' names at their ends remain
 
 
