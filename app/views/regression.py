@@ -217,7 +217,7 @@ with tabs[0], ui.guard("The hazard-ratio table"):
     rows = compute.forest(model_key, table)
     rows = charts_models.forest_labels(rows, ui.fmt_p)
     title, x_title, _ = ui.label_inputs(
-        "model_forest", "Hazard ratios", "Hazard ratio (log scale)", ""
+        "model_forest", "Hazard ratios", f"Hazard ratio with {ci} (log scale)", ""
     )
     fstyle = style.titled(title, x_title, "")
     ui.figure(
