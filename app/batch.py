@@ -412,20 +412,11 @@ def residual_figure(
     smallest p-value, against time on the check's scale, as on the Regression page; None
     without a model. Returns the term's label and the figure."""
     from app import charts, charts_models
-    from engine.analysis import fit_cox_from_roles
+    from engine.analysis import fit_cox_from_settings
     from engine.cox_diagnostics import proportional_hazards_test, schoenfeld_residuals
 
     cox = {**ANALYSIS_DEFAULTS["cox"], **(settings.get("cox") or {})}
-    result = fit_cox_from_roles(
-        prepared,
-        ties=cox["ties"],
-        confidence=cox["confidence"],
-        covariates=cox["covariates"],
-        strata=cox["strata"],
-        reference=cox["reference"],
-        source=source,
-        without_each=False,
-    )
+    result = fit_cox_from_settings(prepared, cox, source=source, without_each=False)
     residuals = schoenfeld_residuals(result, cox["ph_time_scale"])
     test = proportional_hazards_test(result, cox["ph_time_scale"], residuals=residuals)
     finite = [t for t in test.terms if t.p_value == t.p_value]

@@ -49,6 +49,19 @@ def test_exponential_aft_matches_statsmodels_poisson_glm(cohort):
     assert list(fit.coefficients["term"]) == ["Intercept", "age", "arm: new vs control"]
 
 
+def _reference_design(cohort) -> pd.DataFrame:
+    """The complete cases with the arm as a 0/1 column, for the reference library's fitters."""
+    cc = cohort.dropna()
+    return pd.DataFrame(
+        {
+            "age": cc["age"],
+            "arm_new": (cc["arm"] == "new").astype(float),
+            "_time": cc["_time"],
+            "_event": cc["_event"],
+        }
+    )
+
+
 @pytest.mark.parametrize(
     "distribution, fitter",
     [
@@ -61,15 +74,7 @@ def test_predictions_match_lifelines(cohort, distribution, fitter):
     # Our survival and median predictions are rebuilt from the coefficients; lifelines'
     # predict_survival_function / predict_median on the same rows are the reference.
     fit = fit_aft(cohort, ["age", "arm"], distribution)
-    cc = cohort.dropna()
-    data = pd.DataFrame(
-        {
-            "age": cc["age"],
-            "arm_new": (cc["arm"] == "new").astype(float),
-            "_time": cc["_time"],
-            "_event": cc["_event"],
-        }
-    )
+    data = _reference_design(cohort)
     ref = fitter().fit(data, "_time", "_event")
     profiles = pd.DataFrame(
         {"age": [45.0, 70.0], "arm": pd.Categorical(["control", "new"], ["control", "new"])}
@@ -117,15 +122,7 @@ def test_aft_shape_is_on_its_own_scale_as_lifelines_fits_it(cohort):
     # lifelines models the Weibull shape on the log scale (rho_ intercept); Hazel reports
     # exp() of it, named "shape", with the interval transformed back.
     fit = fit_aft(cohort, ["age", "arm"], "weibull")
-    cc = cohort.dropna()
-    data = pd.DataFrame(
-        {
-            "age": cc["age"],
-            "arm_new": (cc["arm"] == "new").astype(float),
-            "_time": cc["_time"],
-            "_event": cc["_event"],
-        }
-    )
+    data = _reference_design(cohort)
     ref = WeibullAFTFitter().fit(data, "_time", "_event")
     log_shape = float(ref.params_.loc[("rho_", "Intercept")])
     (row,) = fit.ancillary.itertuples(index=False)
