@@ -16,6 +16,7 @@ from app.cli_text import analysis_summary, data_summary
 from engine.analysis import ANALYSIS_DEFAULTS
 from engine.analysis import run_analysis as run_engine_analysis
 from engine.checks import PreparedData, prepare
+from engine.dates import IMPLAUSIBLE_CHOICES
 from engine.errors import HazelError
 from engine.io import ImportedTable, ImportOptions, read_table
 from engine.roles import TIME_UNITS, Roles
@@ -140,6 +141,12 @@ def add_role_options(parser: argparse.ArgumentParser) -> None:
     roles.add_argument("--date-format", metavar="FMT", help="date format such as %%d/%%m/%%Y")
     roles.add_argument("--dayfirst", action="store_true", help="dates are day first (31/12/2020)")
     roles.add_argument(
+        "--implausible-dates",
+        choices=IMPLAUSIBLE_CHOICES,
+        help="dates before 1900 (1900-01-01 included) or after today: warn with counts "
+        "(default) or exclude those rows",
+    )
+    roles.add_argument(
         "--unit", choices=list(TIME_UNITS), default="days", help="unit results are reported in"
     )
     roles.add_argument(
@@ -188,6 +195,7 @@ def roles_from_args(args: argparse.Namespace) -> Roles:
         end=args.end,
         date_format=args.date_format,
         dayfirst=args.dayfirst,
+        implausible_dates=args.implausible_dates or "warn",
         unit=args.unit,
         source_unit=args.time_unit,
         event=args.event,
@@ -315,7 +323,8 @@ def run_analysis(
 
 # Options that set roles or import options: a recipe brings its own, so they cannot be mixed.
 ROLE_OPTIONS = (
-    "sep", "decimal", "encoding", "sheet", "time", "start", "end", "date_format", "time_unit",
+    "sep", "decimal", "encoding", "sheet", "time", "start", "end", "date_format",
+    "implausible_dates", "time_unit",
     "event", "event_value", "group", "covariates", "categorical", "reference", "strata", "entry",
     "id", "competing",
 )  # fmt: skip

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import json
 import re
+import unicodedata
 
 import altair as alt
 import pandas as pd
@@ -14,18 +15,30 @@ import vl_convert
 
 # OWASP, "CSV Injection": a spreadsheet treats a cell beginning with one of these as a formula.
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+_FORMULA_SIGNS = frozenset("=+-@")
 
 
 def safe_cell(value: object) -> object:
     """A text cell that cannot run as a formula; every other value unchanged.
 
     Text beginning with = + - @ tab or carriage return gets a leading apostrophe, as OWASP advises,
-    so it shows as the text it is. Numbers (including negative ones) are never text here, so they
-    stay numbers.
+    so it shows as the text it is. So does text whose first visible character is one of those
+    signs after blanks or invisible characters (spaces, a no-break or zero-width space, a
+    byte-order mark), or is a fullwidth or small form of them (＝, ﹦, ＋, －, ＠): some
+    spreadsheets skip the first and read the second as the plain sign. Numbers (including
+    negative ones) are never text here, so they stay numbers.
     """
-    if isinstance(value, str) and value.startswith(_FORMULA_START):
+    if isinstance(value, str) and (value.startswith(_FORMULA_START) or _hidden_formula(value)):
         return "'" + value
     return value
+
+
+def _hidden_formula(text: str) -> bool:
+    for char in text:
+        if char.isspace() or unicodedata.category(char) == "Cf":  # blanks, zero-width, BOM
+            continue
+        return unicodedata.normalize("NFKC", char) in _FORMULA_SIGNS
+    return False
 
 
 def table_csv(frame: pd.DataFrame) -> bytes:

@@ -37,6 +37,7 @@ ONE_TWO_ASSUMPTION = (
     "If your file means otherwise, name the event value explicitly."
 )
 FEW_DISTINCT = 5  # a numeric covariate with at most this many values may be a coded category
+MAX_LEVELS = 100  # most levels a group or categorical covariate may have (one term per level)
 
 _TIME_NAMES = re.compile(
     r"(^|_)(time|times|duration|follow|fu|futime|survival|surv|os|pfs|dfs|efs|months|days|"
@@ -123,6 +124,9 @@ class Roles:
     strata: str | None = None
     entry: str | None = None
     id: str | None = None
+    # Dates before 1900 (1900-01-01 included) or after today: "warn" keeps the rows and says
+    # how many, "exclude" leaves them out under the reason "implausible date".
+    implausible_dates: str = "warn"
 
     @property
     def duration_unit(self) -> str:
@@ -388,15 +392,39 @@ def suggest_roles(frame: pd.DataFrame, sample_rows: int = 5000) -> RoleSuggestio
     )
 
 
+def numbers_in_text(series: pd.Series) -> np.ndarray:
+    """Float per cell of a text column ('3,5' and ' 3.5 ' are 3.5); NaN where it is no number."""
+    text = series.astype("string").str.strip().str.replace(",", ".", regex=False)
+    return pd.to_numeric(text, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+
+
+def mostly_numbers(series: pd.Series) -> bool:
+    """A text column whose cells are mostly numbers with many distinct values: a measurement
+    with a few stray words ('unknown', 'n/k'), not a category. Judged on the first cells."""
+    head = series.iloc[:20_000].dropna().iloc[:2000]
+    if not _is_text(series) or head.empty:
+        return False
+    numbers = numbers_in_text(head)
+    found = numbers[np.isfinite(numbers)]
+    return len(found) > 0.5 * len(head) and len(np.unique(found)) > FEW_DISTINCT
+
+
 def covariate_kind(series: pd.Series) -> str:
-    """'numeric', 'categorical' or 'possibly categorical' (numeric with few distinct values)."""
-    if pd.api.types.is_bool_dtype(series) or not pd.api.types.is_numeric_dtype(series):
+    """'numeric', 'categorical' or 'possibly categorical' (numeric with few distinct values).
+
+    A text column that mostly holds numbers is 'numeric': its other cells are treated as
+    missing, with a warning naming them (``engine.checks``)."""
+    if pd.api.types.is_bool_dtype(series):
         return "categorical"
+    if not pd.api.types.is_numeric_dtype(series):
+        return "numeric" if mostly_numbers(series) else "categorical"
     head = series.iloc[:2000].dropna().unique()  # most numeric columns show many values early
-    if len(head) > FEW_DISTINCT or not np.all(np.mod(head, 1) == 0):
-        return "numeric"
-    distinct = series.dropna().unique()
-    if len(distinct) <= FEW_DISTINCT and np.all(np.mod(distinct, 1) == 0):
+    with np.errstate(invalid="ignore"):
+        if len(head) > FEW_DISTINCT or not np.all(np.mod(head, 1) == 0):
+            return "numeric"
+        distinct = series.dropna().unique()
+        whole = np.all(np.mod(distinct, 1) == 0)
+    if len(distinct) <= FEW_DISTINCT and whole:
         return "possibly categorical"
     return "numeric"
 
@@ -414,8 +442,9 @@ def natural_sort_key(value) -> tuple:
     """Sort 'dose 2' before 'dose 10' and numbers by value."""
     if isinstance(value, int | float | np.integer | np.floating) and not isinstance(value, bool):
         return (0, float(value), ())
-    parts = re.split(r"(\d+)", str(value).casefold())
-    return (1, 0.0, tuple((0, int(p), "") if p.isdigit() else (1, 0, p) for p in parts if p))
+    parts = re.split(r"([0-9]+)", str(value).casefold())  # ASCII digits: int() reads them all
+    keys = ((0, int(p), "") if p.isascii() and p.isdigit() else (1, 0, p) for p in parts if p)
+    return (1, 0.0, tuple(keys))
 
 
 def default_reference(series: pd.Series):
@@ -430,7 +459,7 @@ def default_reference(series: pd.Series):
 def guess_dayfirst(series: pd.Series) -> bool:
     """True when some slash/dot/dash date has a first part above 12 (so it must be the day)."""
     text = series.dropna().astype(str).head(2000)
-    first = text.str.extract(r"^\s*(\d{1,2})[/.\-]\d{1,2}[/.\-]\d{2,4}")[0].dropna()
+    first = text.str.extract(r"^\s*([0-9]{1,2})[/.\-][0-9]{1,2}[/.\-][0-9]{2,4}")[0].dropna()
     return bool(len(first)) and bool((first.astype(int) > 12).any())
 
 
@@ -472,7 +501,8 @@ def _date_like(series: pd.Series) -> bool:
     text = series.dropna().astype(str).head(200)
     if text.empty:
         return False
-    pattern = r"^\s*(\d{4}-\d{1,2}-\d{1,2}|\d{1,2}[/.\-]\d{1,2}[/.\-]\d{2,4})([ T].*)?$"
+    iso, other = r"[0-9]{4}-[0-9]{1,2}-[0-9]{1,2}", r"[0-9]{1,2}[/.\-][0-9]{1,2}[/.\-][0-9]{2,4}"
+    pattern = rf"^\s*({iso}|{other})([ T].*)?$"
     return bool(text.str.match(pattern).mean() > 0.9)
 
 
