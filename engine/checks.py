@@ -12,6 +12,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from engine.column_kinds import MAX_LEVELS, natural_sort_key, numbers_in_text
 from engine.data_warnings import group_counts, warnings_on_used
 from engine.dates import (
     check_date_format,
@@ -23,15 +24,12 @@ from engine.dates import (
 )
 from engine.errors import EventCodingError, RoleError, preview_values
 from engine.roles import (
-    MAX_LEVELS,
     TIME_UNITS,
     EventCoding,
     Roles,
     classify_covariates,
     convert_time,
     describe_event,
-    natural_sort_key,
-    numbers_in_text,
     value_key,
 )
 
