@@ -13,6 +13,8 @@ import altair as alt
 import pandas as pd
 import vl_convert
 
+from engine.text_safety import visible_text
+
 # OWASP, "CSV Injection": a spreadsheet treats a cell beginning with one of these as a formula.
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 _FORMULA_SIGNS = frozenset("=+-@")
@@ -54,33 +56,32 @@ def table_csv(frame: pd.DataFrame) -> bytes:
     return out.to_csv(index=False, lineterminator="\r\n").encode("utf-8")
 
 
-# Characters XML 1.0 forbids: the SVG renderer aborts the whole process on one of them in a label.
-_NOT_XML = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\ud800-\udfff\ufffe\uffff]")
+# What the SVG renderer cannot take and aborts the whole process on: characters XML 1.0 forbids
+# (control characters are shown as codes, the rest as U+FFFD) and whole numbers past 2**53.
+_NOT_XML = re.compile("[\ud800-\udfff\ufffe\uffff]")
 
 
 def json_spec(figure: alt.TopLevelMixin | dict) -> dict:
-    """A Vega-Lite spec with every dataset as JSON rows (missing values as null); control
-    characters in any text (a group label, a title) are shown as U+FFFD."""
+    """A Vega-Lite spec with every dataset as JSON rows (missing values as null), safe for the
+    renderer whichever way it was built."""
     if not isinstance(figure, dict):
-        return _xml_safe(figure.to_dict())
+        return _renderer_safe(figure.to_dict())
     datasets = {
         name: json.loads(rows.to_json(orient="records")) if isinstance(rows, pd.DataFrame) else rows
         for name, rows in figure.get("datasets", {}).items()
     }
-    return _xml_safe({**figure, "datasets": datasets})
+    return _renderer_safe({**figure, "datasets": datasets})
 
 
-def _xml_safe(value):
-    """Also: whole numbers past 2**53 (a label such as 10**30) as floats, which the renderer's
-    JSON reader takes."""
+def _renderer_safe(value):
     if isinstance(value, int) and not isinstance(value, bool) and abs(value) > 2**53:
         return float(value)
     if isinstance(value, str):
-        return _NOT_XML.sub("\ufffd", value)
+        return _NOT_XML.sub("\ufffd", visible_text(value))
     if isinstance(value, dict):
-        return {_xml_safe(k): _xml_safe(v) for k, v in value.items()}
+        return {_renderer_safe(k): _renderer_safe(v) for k, v in value.items()}
     if isinstance(value, list):
-        return [_xml_safe(v) for v in value]
+        return [_renderer_safe(v) for v in value]
     return value
 
 

@@ -36,7 +36,7 @@ from engine.roles import TIME_UNITS, Roles, suggest_roles
 HANG_SECONDS = 20  # a case still running after this is cut off and counted as a hang
 # The report's rounding rules cannot yet print values of 1e27 and more (issue 10 item 4, on the
 # analysis side); until that lands, the report stage is skipped when the JSON holds such a value.
-REPORT_VALUE_LIMIT = 1e26
+REPORT_VALUE_LIMIT = float("inf")
 
 # --- cell values ----------------------------------------------------------------------------------
 
