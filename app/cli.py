@@ -91,6 +91,30 @@ def add_analysis_options(parser: argparse.ArgumentParser) -> None:
         choices=("km", "rank", "identity", "log"),
         help="time scale of the proportional-hazards test (default km)",
     )
+    cox.add_argument(
+        "--variance",
+        choices=("auto", "model", "robust"),
+        help="standard errors: model-based, or robust (sandwich) clustered by --id; default "
+        "auto = robust when ids repeat (episodes, recurrent events)",
+    )
+    cox.add_argument(
+        "--spline",
+        metavar="VAR[:K]",
+        action="append",
+        default=[],
+        help="a numeric covariate as a restricted cubic spline with K knots (3-7, default 4), "
+        "with its test of non-linearity (repeatable)",
+    )
+    cox.add_argument(
+        "--split-at",
+        metavar="T1,T2",
+        help="refit the model with follow-up split at these times (and the PH check repeated)",
+    )
+    cox.add_argument(
+        "--changing",
+        metavar="A,B",
+        help="with --split-at: covariates whose effect may differ before and after each time",
+    )
     more = parser.add_argument_group("beyond the basics (each adds a section)")
     more.add_argument(
         "--competing",
@@ -132,6 +156,18 @@ def add_analysis_options(parser: argparse.ArgumentParser) -> None:
         help="expected share of subjects with the event (default 1)",
     )
     more.add_argument("--events", type=float, help="power of this many events for --power-hr")
+    more.add_argument(
+        "--subgroups",
+        metavar="A,B",
+        help="with a two-level --group as the treatment: its hazard ratio within each level of "
+        "these columns, and interaction tests",
+    )
+    more.add_argument(
+        "--subgroup-groups",
+        type=int,
+        metavar="K",
+        help="quantile groups for a numeric subgroup column (default 2)",
+    )
     perf = parser.add_argument_group("prediction performance of the Cox model (with --covariates)")
     perf.add_argument(
         "--performance",
@@ -301,7 +337,13 @@ def _times(text: str, option: str = "--times") -> list[float]:
 SETTING_OPTIONS = {
     "curves": {"times": "times", "ci_transform": "ci_transform", "confidence": "confidence"},
     "comparison": {"test": "test", "rho": "rho", "gamma": "gamma"},
-    "cox": {"ties": "ties", "ph_transform": "ph_transform", "confidence": "confidence"},
+    "cox": {
+        "ties": "ties",
+        "ph_transform": "ph_transform",
+        "confidence": "confidence",
+        "variance": "variance",
+    },
+    "subgroups": {"groups": "subgroup_groups"},
     "parametric": {"horizon": "horizon", "times": "times"},
     "competing": {"times": "times", "fine_gray": "fine_gray"},
     "performance": {
@@ -336,6 +378,7 @@ def settings_from_args(args: argparse.Namespace, base: dict | None = None) -> di
         "parametric": bool(getattr(args, "parametric", False)),
         "landmark": getattr(args, "landmark", None) is not None,
         "sample_size": getattr(args, "power_hr", None) is not None,
+        "subgroups": bool(getattr(args, "subgroups", None)),
         "performance": getattr(args, "performance", None) is not None,
     }
     for name, on in switched.items():
@@ -357,7 +400,40 @@ def settings_from_args(args: argparse.Namespace, base: dict | None = None) -> di
             check_setting(name, setting, value, flag)
             if name in settings:
                 settings[name][setting] = value
+    _model_options(args, settings)
     return settings
+
+
+def _model_options(args: argparse.Namespace, settings: dict[str, dict]) -> None:
+    """--spline, --split-at / --changing and --subgroups into the settings."""
+    splines = getattr(args, "spline", None) or []
+    if splines:
+        settings["cox"]["splines"] = [_spline(text) for text in splines]
+    if getattr(args, "changing", None) and not getattr(args, "split_at", None):
+        raise UsageError("--changing needs --split-at (the times after which effects may change)")
+    if getattr(args, "split_at", None):
+        times = _times(args.split_at, "--split-at")
+        if not times:
+            raise UsageError(f"--split-at expects times separated by commas, got {args.split_at!r}")
+        settings["cox"]["split"] = {"times": times, "changing": list(_names(args.changing))}
+    if getattr(args, "subgroups", None):
+        settings["subgroups"]["variables"] = list(_names(args.subgroups))
+
+
+def _spline(text: str) -> dict:
+    """``VAR`` or ``VAR:K`` as a spline setting."""
+    variable, sep, knots = text.rpartition(":") if ":" in text else (text, "", "")
+    if not variable.strip():
+        raise UsageError(f"--spline expects VAR or VAR:K, got {text!r}")
+    if not sep:
+        return {"variable": variable.strip(), "knots": 4}
+    try:
+        count = int(knots)
+    except ValueError:
+        raise UsageError(f"--spline expects VAR:K with K a whole number, got {text!r}") from None
+    if not 3 <= count <= 7:
+        raise UsageError(f"--spline {text!r}: the number of knots must be 3 to 7, got {count}")
+    return {"variable": variable.strip(), "knots": count}
 
 
 def run_analysis(

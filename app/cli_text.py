@@ -95,7 +95,9 @@ def analysis_summary(sections: dict, unit: str) -> str:
             f"p = {_fmt(lr['p_value'])}; concordance {_fmt(cox['concordance'])}"
         )
         lines += [f"  Warning: {warning}" for warning in cox["warnings"]]
+        lines += model_variant_summary(cox)
     lines += extra_summary(sections, unit)
+    lines += subgroup_summary(sections)
     return "\n".join(lines)
 
 
@@ -183,4 +185,42 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
                 f"{_fmt(optimism['slope'])} ({optimism['replicates']} bootstrap replicates, "
                 f"seed {optimism['seed']})"
             )
+    return lines
+
+
+def model_variant_summary(cox: dict) -> list[str]:
+    """Short lines for the robust variance, the splines, the split follow-up; subgroups are
+    summarised by ``subgroup_summary``."""
+    lines = []
+    if cox.get("variance") == "robust":
+        lines.append(f"  Standard errors: robust, {cox['clusters']} clusters (subjects)")
+    for spline in cox.get("splines") or ():
+        test = spline["nonlinearity"]
+        lines.append(
+            f"  Spline of {spline['variable']} ({len(spline['knots'])} knots): non-linearity "
+            f"chi-square {test['statistic']:.2f} on {test['df']} df, p = {_fmt(test['p_value'])}"
+        )
+    split = cox.get("time_split")
+    if split:
+        ph = split["model"]["ph_check"][-1]
+        lines.append(
+            f"  Follow-up split at {', '.join(f'{t:g}' for t in split['times'])} "
+            f"({split['episodes']} episodes); PH check after the split: chi-square "
+            f"{ph['statistic']:.2f} on {ph['df']} df, p = {_fmt(ph['p_value'])}"
+        )
+    return lines
+
+
+def subgroup_summary(sections: dict) -> list[str]:
+    subgroups = sections.get("subgroups")
+    if not subgroups:
+        return []
+    lines = [f"Subgroups ({subgroups['treatment']}), exploratory:"]
+    for row in subgroups["rows"]:
+        lines.append(
+            f"  {row['variable']}: {row['level']!s:<22} n={row['n']:<6} events={row['events']:<6}"
+            f" HR {_fmt(row['hazard_ratio'])} ({_fmt(row['lower'])} to {_fmt(row['upper'])})"
+        )
+    for test in subgroups["interactions"]:
+        lines.append(f"  interaction with {test['variable']}: p = {_fmt(test['p_value'])}")
     return lines

@@ -114,6 +114,7 @@ INCLUDE_KEYS = {
     "parametric": "param_include",
     "sample_size": "power_include",
     "landmark": "landmark_include",
+    "subgroups": "effects_subgroups_include",
     "performance": "perf_include",
 }
 
@@ -309,7 +310,9 @@ def restore_recipe(session: MutableMapping, recipe: Recipe) -> list[str]:
     return warnings
 
 
-PAGE_PREFIXES = ("roles_", "curves_", "compare_", "model_", "cr_", "param_", "power_", "landmark_")
+PAGE_PREFIXES = (
+    "roles_", "curves_", "compare_", "model_", "cr_", "param_", "power_", "landmark_", "effects_",
+)  # fmt: skip
 
 
 def _role_columns(roles: Roles) -> list[str]:

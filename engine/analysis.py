@@ -43,6 +43,12 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
         "covariates": None,
         "strata": None,
         "reference": None,
+        # variance: "auto" (robust, clustered by id, when ids repeat), "model" or "robust";
+        # splines: [{"variable", "knots" (3-7), "reference" (None: the median)}];
+        # split: None or {"times": [...], "changing": [covariates whose effect may change]}
+        "variance": "auto",
+        "splines": [],
+        "split": None,
     },
     # The analyses below run only when the settings name them (a recipe, --competing ...).
     # gray_test: Gray's test per cause across the groups; fine_gray: a cause name (or None)
@@ -70,6 +76,8 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
         "events": None,
     },
     "landmark": {"time": None, "test": "logrank"},
+    # variables: subgroup columns; groups: quantile groups for a numeric one
+    "subgroups": {"variables": [], "groups": 2},
     # performance of the Cox model: AUC and Brier score at times, tau of Uno's C (None: the
     # largest time), calibration at a time (None: the first of times), bootstrap of optimism
     # (replicates 0: none)
@@ -83,7 +91,9 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
     },
 }
 CORE_ANALYSES = ("curves", "comparison", "cox")  # always run (when the roles allow)
-OPTIONAL_ANALYSES = ("competing", "parametric", "sample_size", "landmark", "performance")
+OPTIONAL_ANALYSES = (
+    "competing", "parametric", "sample_size", "landmark", "performance", "subgroups",
+)  # fmt: skip
 
 
 def resolved_settings(settings: Mapping | None) -> dict[str, dict]:
@@ -138,7 +148,26 @@ def fit_cox_from_roles(
     **options,
 ):
     """The Cox model the roles describe (their covariates, reference levels, strata, entry),
-    or a variant of it: a subset of the covariates, other reference levels, other strata."""
+    or a variant of it: a subset of the covariates, other reference levels, other strata.
+    With an id role the variance is robust, clustered by id, when ids repeat (``variance``
+    "auto", the default; "model" or "robust" force one)."""
+    frame, chosen, arguments = cox_model_inputs(
+        prepared, covariates=covariates, strata=strata, reference=reference, source=source
+    )
+    return fit_cox(frame, chosen, ties=ties, confidence=confidence, **arguments, **options)
+
+
+def cox_model_inputs(
+    prepared: PreparedData,
+    *,
+    covariates=None,
+    strata=None,
+    reference=None,
+    source: pd.DataFrame | None = None,
+) -> tuple[pd.DataFrame, list[str], dict]:
+    """The frame, covariates and ``fit_cox`` keywords (categorical, reference, strata, entry,
+    clusters) of the model the roles and these choices describe; shared by the model and the
+    analyses built on it (splines, follow-up split, subgroups)."""
     frame, roles = prepared.frame, prepared.roles
     chosen = list(roles.covariates) if covariates is None else [str(c) for c in covariates]
     outside = [c for c in chosen if c not in roles.covariates]
@@ -155,16 +184,16 @@ def fit_cox_from_roles(
         strata_column = "_strata" if strata is None else MODEL_STRATA
         if strata_column == MODEL_STRATA:
             frame = frame.assign(**{MODEL_STRATA: stratum.to_numpy()})
-    return fit_cox(
+    return (
         frame,
         chosen,
-        categorical=categorical_covariates(frame, chosen),
-        reference={c: levels[c] for c in chosen if c in levels} or None,
-        strata=strata_column,
-        entry="_entry" if "_entry" in frame.columns else None,
-        ties=ties,
-        confidence=confidence,
-        **options,
+        {
+            "categorical": categorical_covariates(frame, chosen),
+            "reference": {c: levels[c] for c in chosen if c in levels} or None,
+            "strata": strata_column,
+            "entry": "_entry" if "_entry" in frame.columns else None,
+            "clusters": "_id" if "_id" in frame.columns else None,
+        },
     )
 
 
@@ -180,7 +209,7 @@ def fit_cox_from_settings(
         strata=cox["strata"],
         reference=cox["reference"],
         source=source,
-        **options,
+        **{"variance": cox.get("variance", "auto"), **options},
     )
 
 
@@ -257,7 +286,40 @@ def run_analysis(
     if prepared.roles.covariates and model:
         result = fit_cox_from_settings(prepared, cox, source=source)
         sections["cox"] = cox_json(result, proportional_hazards_test(result, cox["ph_transform"]))
+        sections["cox"].update(cox_additions(prepared, cox, source))
     from engine.analysis_extra import extra_sections  # the optional analyses
 
-    sections.update(extra_sections(prepared, chosen))
+    sections.update(extra_sections(prepared, chosen, source))
     return sections
+
+
+def cox_additions(prepared: PreparedData, cox: Mapping, source: pd.DataFrame | None) -> dict:
+    """The "splines" and "time_split" entries of the "cox" object: the same model with the
+    chosen covariates as splines, and refitted on follow-up split at times."""
+    from engine.episodes import fit_split
+    from engine.splines import fit_splines
+
+    frame, chosen, arguments = cox_model_inputs(
+        prepared,
+        covariates=cox["covariates"],
+        strata=cox["strata"],
+        reference=cox["reference"],
+        source=source,
+    )
+    common = {"ties": cox["ties"], "confidence": cox["confidence"], "variance": cox["variance"]}
+    out: dict = {"splines": [], "time_split": None}
+    if cox["splines"]:
+        out["splines"] = fit_splines(frame, chosen, cox["splines"], **arguments, **common).to_dict()
+    if cox["split"]:
+        split = dict(cox["split"])
+        arguments = {k: v for k, v in arguments.items() if k not in ("entry", "clusters")}
+        out["time_split"] = fit_split(
+            frame,
+            chosen,
+            split.get("times") or (),
+            split.get("changing") or (),
+            ph_transform=cox["ph_transform"],
+            **arguments,
+            **common,
+        ).to_dict()
+    return out

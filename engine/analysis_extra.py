@@ -15,14 +15,16 @@ from engine.errors import AnalysisError
 from engine.json_values import frame_records, json_value
 
 
-def extra_sections(prepared: PreparedData, settings: Mapping[str, dict]) -> dict:
-    """A section per optional analysis present in ``settings`` (already resolved)."""
+def extra_sections(prepared: PreparedData, settings: Mapping[str, dict], source=None) -> dict:
+    """A section per optional analysis present in ``settings`` (already resolved); ``source``
+    is the frame ``prepare`` was given (a subgroup column may come from it)."""
     makers = {
         "competing": competing_section,
         "parametric": parametric_section,
         "sample_size": lambda _prepared, chosen: sample_size_section(chosen),
         "landmark": landmark_section,
         "performance": performance_section,
+        "subgroups": lambda prepared, chosen: subgroups_section(prepared, chosen, source),
     }
     confidence = settings["curves"]["confidence"]
     out = {}
@@ -31,9 +33,9 @@ def extra_sections(prepared: PreparedData, settings: Mapping[str, dict]) -> dict
             chosen = {**settings[name], "confidence": confidence}
             if name == "landmark":
                 chosen = {**chosen, "curves": settings["curves"]}
-            if name == "competing":
+            if name in ("competing", "subgroups"):
                 chosen = {**chosen, "ties": settings["cox"]["ties"]}
-            if name == "performance":
+            if name in ("performance", "subgroups"):
                 chosen = {**chosen, "cox": settings["cox"]}
             out[name] = maker(prepared, chosen)
     return out
@@ -251,3 +253,43 @@ def landmark_section(prepared: PreparedData, chosen: Mapping) -> dict:
         ),
         "comparison": comparison_section(sub, chosen["test"], 0.0, 0.0),
     }
+
+
+def subgroups_section(prepared: PreparedData, chosen: Mapping, source=None) -> dict:
+    """The group role as a two-level treatment: its hazard ratio within each level of the
+    chosen variables, with the interaction tests (``engine.subgroups``)."""
+    from engine.analysis import cox_model_inputs, source_column
+    from engine.subgroups import fit_subgroups
+
+    if "_group" not in prepared.frame.columns:
+        raise AnalysisError(
+            "Subgroup effects need a group column with two levels as the treatment; set the "
+            "group role."
+        )
+    names = [str(v) for v in chosen["variables"]]
+    if not names:
+        raise AnalysisError(
+            "Subgroup effects need at least one subgroup variable (settings 'subgroups': "
+            "{'variables': [...]})."
+        )
+    cox = chosen["cox"]
+    frame, _, arguments = cox_model_inputs(
+        prepared, covariates=[], strata=cox["strata"], source=source
+    )
+    variables = {
+        name: frame[name] if name in frame.columns else source_column(prepared, source, name)
+        for name in names
+    }
+    result = fit_subgroups(
+        frame,
+        variables,
+        treatment_name=prepared.roles.group,
+        groups=int(chosen["groups"]),
+        strata=arguments["strata"],
+        entry=arguments["entry"],
+        clusters=arguments["clusters"],
+        ties=chosen["ties"],
+        confidence=cox["confidence"],
+        variance=cox["variance"],
+    )
+    return result.to_dict()

@@ -15,7 +15,13 @@ from scipy import stats
 
 from engine.concordance import ConcordanceResult, harrell_c
 from engine.cox_design import Design, Term, build_design
-from engine.cox_likelihood import TIES, RiskSetLayout, build_layout, newton_raphson
+from engine.cox_likelihood import (
+    TIES,
+    RiskSetLayout,
+    build_layout,
+    newton_raphson,
+    score_residuals,
+)
 from engine.errors import AnalysisError, preview_values
 from engine.json_values import json_float
 
@@ -35,6 +41,7 @@ class TermEstimate:
     upper: float
     z: float
     p_value: float
+    se_model: float  # the model-based (inverse information) SE; equals se unless robust
 
 
 @dataclass(frozen=True)
@@ -65,6 +72,8 @@ class FittedModel:
     covariance: np.ndarray  # original units
     strata_levels: tuple
     used_index: np.ndarray  # frame index labels of the rows used, in the frame's order
+    entry: np.ndarray | None = None  # entry times in layout (sorted) order, with delayed entry
+    robust_covariance: np.ndarray | None = None  # original units; None for model variance
 
 
 @dataclass(frozen=True)
@@ -89,6 +98,15 @@ class CoxResult:
     warnings: tuple[str, ...]
     design: Design = field(repr=False)
     model: FittedModel = field(repr=False)
+    variance: str = "model"  # "model" (inverse information) or "robust" (sandwich by cluster)
+    clusters: int | None = None  # number of clusters of the robust variance
+
+    @property
+    def covariance(self) -> np.ndarray:
+        """The coefficients' covariance the terms and Wald tests use (robust when chosen)."""
+        if self.model.robust_covariance is not None:
+            return self.model.robust_covariance
+        return self.model.covariance
 
     def to_frame(self) -> pd.DataFrame:
         return pd.DataFrame([vars(t) for t in self.terms])
@@ -98,6 +116,8 @@ class CoxResult:
             "n": int(self.n),
             "events": int(self.events),
             "ties": self.ties,
+            "variance": self.variance,
+            "clusters": None if self.clusters is None else int(self.clusters),
             "terms": [
                 {
                     "variable": t.variable,
@@ -121,7 +141,8 @@ class CoxResult:
         }
 
 
-_TERM_NUMBERS = ("coef", "se", "hazard_ratio", "lower", "upper", "p_value")
+_TERM_NUMBERS = ("coef", "se", "se_model", "hazard_ratio", "lower", "upper", "p_value")
+VARIANCES = ("auto", "model", "robust")
 
 
 def _test_dict(test: ChiSquareTest) -> dict:
@@ -156,15 +177,25 @@ def fit_cox(
     event_col: str = "_event",
     drop_one: bool = True,
     max_iterations: int = 50,
+    clusters: str | None = None,
+    variance: str = "auto",
 ) -> CoxResult:
-    """Fit a Cox model by Newton–Raphson on the complete cases of the model's variables."""
+    """Fit a Cox model by Newton–Raphson on the complete cases of the model's variables.
+
+    ``variance``: "model" (inverse information), "robust" (the sandwich of Lin and Wei 1989,
+    summed within the ``clusters`` column's values, or per row without one) or "auto": robust
+    when the ``clusters`` column repeats a value among the rows used (several rows per subject:
+    episodes or recurrent events), else model-based.
+    """
+    if variance not in VARIANCES:
+        raise AnalysisError(f"Variance {variance!r} is not known; use 'auto', 'model' or 'robust'.")
     if ties not in TIES:
         raise AnalysisError(f"Ties method {ties!r} is not known; use 'efron' or 'breslow'.")
     if not 0 < confidence < 1:
         raise AnalysisError(f"Confidence level {confidence!r} must be between 0 and 1.")
     if not covariates:
         raise AnalysisError("A Cox model needs at least one covariate; choose one or more.")
-    required = [c for c in (time_col, event_col, strata, entry) if c is not None]
+    required = [c for c in (time_col, event_col, strata, entry, clusters) if c is not None]
     design = build_design(
         frame, covariates, categorical=categorical, reference=reference, required=required
     )
@@ -219,7 +250,12 @@ def fit_cox(
             f"fewer than {EVENTS_PER_PARAMETER} (a common rule of thumb, after Peduzzi et al. "
             "1995); the estimates may be biased and the tests unreliable. Use fewer covariates."
         )
-    terms = term_estimates(design.terms, beta, covariance, confidence)
+    cluster_codes = _cluster_codes(frame, used, clusters, variance)
+    robust = None
+    if cluster_codes is not None:
+        robust = robust_covariance(layout, scaled, fit.beta, ties, cov_scaled, cluster_codes)
+        robust = robust / np.outer(scale, scale)
+    terms = term_estimates(design.terms, beta, covariance, confidence, robust)
     eta = scaled @ fit.beta
     concordance = harrell_c(layout.time, layout.event, eta, layout.stratum if strata else None)
     model = FittedModel(
@@ -231,6 +267,8 @@ def fit_cox(
         covariance=covariance,
         strata_levels=strata_levels,
         used_index=frame.index.to_numpy()[used],
+        entry=None if entry_values is None else entry_values[layout.order],
+        robust_covariance=robust,
     )
     null_loglik = fit.null_loglik
     drop_tests = tuple(_drop_one(layout, scaled, design, fit, ties) if drop_one else ())
@@ -240,9 +278,15 @@ def fit_cox(
         ties=ties,
         confidence=confidence,
         terms=terms,
-        variable_wald=tuple(_variable_wald(design, beta, covariance)),
+        variable_wald=tuple(_variable_wald(design, beta, covariance if robust is None else robust)),
         likelihood_ratio=chi_square("model", 2 * (fit.loglik - null_loglik), p),
-        wald=chi_square("model", fit.beta @ fit.information @ fit.beta, p),
+        wald=chi_square(
+            "model",
+            fit.beta @ fit.information @ fit.beta
+            if robust is None
+            else beta @ np.linalg.solve(robust, beta),
+            p,
+        ),
         score=chi_square("model", fit.null_score_statistic, p),
         loglik=fit.loglik,
         null_loglik=null_loglik,
@@ -255,11 +299,39 @@ def fit_cox(
         warnings=tuple(warnings),
         design=design,
         model=model,
+        variance="model" if robust is None else "robust",
+        clusters=None if cluster_codes is None else int(cluster_codes.max()) + 1,
     )
 
 
-def term_estimates(terms: Sequence[Term], beta, covariance, confidence):
-    se = np.sqrt(np.diag(covariance))
+def _cluster_codes(frame, used, clusters, variance) -> np.ndarray | None:
+    """Cluster code per used row (frame order) for the robust variance, or None for the model's."""
+    if variance == "model" or (variance == "auto" and clusters is None):
+        return None
+    if clusters is None:
+        return np.arange(int(used.sum()))
+    codes, _ = pd.factorize(frame[clusters].to_numpy()[used])
+    if variance == "auto" and codes.max() + 1 == len(codes):
+        return None  # every subject has one row: the model's variance
+    return codes
+
+
+def robust_covariance(layout, scaled, beta, ties, information_inverse, codes) -> np.ndarray:
+    """Sandwich I^-1 (sum over clusters of U_c U_c') I^-1 in the scaled units, U_c the sum of the
+    cluster's score residuals (``codes``: cluster per row in the frame's order)."""
+    residuals = score_residuals(layout, scaled, beta, ties)
+    sorted_codes = codes[layout.order]
+    n_clusters = int(codes.max()) + 1
+    summed = np.column_stack(
+        [np.bincount(sorted_codes, residuals[:, j], n_clusters) for j in range(scaled.shape[1])]
+    )
+    middle = summed.T @ summed
+    return information_inverse @ middle @ information_inverse
+
+
+def term_estimates(terms: Sequence[Term], beta, covariance, confidence, robust=None):
+    se_model = np.sqrt(np.diag(covariance))
+    se = se_model if robust is None else np.sqrt(np.diag(robust))
     quantile = stats.norm.ppf(0.5 + confidence / 2)
     with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
         z = beta / se
@@ -275,6 +347,7 @@ def term_estimates(terms: Sequence[Term], beta, covariance, confidence):
                 upper=float(np.exp(beta[j] + quantile * se[j])),
                 z=float(z[j]),
                 p_value=float(2 * stats.norm.sf(abs(z[j]))),
+                se_model=float(se_model[j]),
             )
             for j, t in enumerate(terms)
         )

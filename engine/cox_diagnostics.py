@@ -24,16 +24,18 @@ TRANSFORMS = ("km", "rank", "identity", "log")
 FUNCTIONAL_FORM_BINS = 20
 
 
-def _km_step(time: np.ndarray, event: np.ndarray, at: np.ndarray, side: str) -> np.ndarray:
+def _km_step(time: np.ndarray, event: np.ndarray, at: np.ndarray, side: str, entry=None):
     """Kaplan–Meier survival at each time in ``at``: just before it (``side="left"``) or at it
-    (``side="right"``), from the shared estimator."""
-    curve = kaplan_meier(time, event)
+    (``side="right"``), from the shared estimator (rows at risk on (entry, time] with ``entry``)."""
+    curve = kaplan_meier(time, event, entry=entry)
     survival = np.concatenate([[1.0], curve.survival])
     return survival[np.searchsorted(curve.time, at, side=side)]
 
 
-def transform_times(transform: str, event_times, all_times, all_events) -> np.ndarray:
-    """The time scale g(t) at each event time for the proportional-hazards test."""
+def transform_times(transform: str, event_times, all_times, all_events, entry=None) -> np.ndarray:
+    """The time scale g(t) at each event time for the proportional-hazards test; the km scale
+    counts a row at risk on (entry, time] when entry times are given (episodes, delayed entry),
+    so splitting follow-up into episodes leaves it unchanged."""
     if transform == "identity":
         return np.asarray(event_times, dtype=float)
     if transform == "log":
@@ -46,7 +48,9 @@ def transform_times(transform: str, event_times, all_times, all_events) -> np.nd
     if transform == "rank":
         return stats.rankdata(event_times)
     if transform == "km":
-        return 1 - _km_step(np.asarray(all_times), np.asarray(all_events), event_times, "left")
+        return 1 - _km_step(
+            np.asarray(all_times), np.asarray(all_events), event_times, "left", entry
+        )
     raise AnalysisError(
         f"Time transform {transform!r} is not known; use one of {preview_values(TRANSFORMS)}."
     )
@@ -76,7 +80,7 @@ def schoenfeld_residuals(result: CoxResult, transform: str = "km") -> Schoenfeld
     raw = (model.scaled[ev] - means) * model.scale
     scaled = model.beta + layout.n_events * raw @ model.covariance
     event_times = layout.time[ev]
-    g = transform_times(transform, event_times, layout.time, layout.event)
+    g = transform_times(transform, event_times, layout.time, layout.event, model.entry)
     table = pd.DataFrame(
         {
             "row": model.used_index[layout.order[ev]],

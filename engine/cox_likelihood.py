@@ -136,8 +136,11 @@ def _group_sums(layout: RiskSetLayout, values: np.ndarray) -> tuple[np.ndarray, 
 
 
 def row_totals(layout: RiskSetLayout, per_group: np.ndarray) -> np.ndarray:
-    """For each sorted row, the sum of ``per_group`` over the groups the row is at risk in."""
-    cumulative = np.concatenate([[0.0], np.cumsum(per_group)])
+    """For each sorted row, the sum of ``per_group`` (1-D, or 2-D with one row per group) over
+    the groups the row is at risk in."""
+    per_group = np.asarray(per_group, dtype=float)
+    cumulative = np.zeros((len(per_group) + 1, *per_group.shape[1:]))
+    np.cumsum(per_group, axis=0, out=cumulative[1:])
     return cumulative[layout.row_end_group] - cumulative[layout.row_first_group]
 
 
@@ -277,3 +280,32 @@ def baseline_hazard(layout: RiskSetLayout, eta: np.ndarray) -> np.ndarray:
     the group divided by the risk-set sum of exp(eta)."""
     s0, _ = _group_sums(layout, np.exp(eta))
     return layout.group_size / s0
+
+
+def score_residuals(layout: RiskSetLayout, x: np.ndarray, beta: np.ndarray, ties: str):
+    """Per sorted row, its share of the score vector (n x p; the rows sum to the score at any
+    ``beta``): U_i = d_i (x_i - m_i) - w_i sum_k c_ik (x_i - v_k) / den_k over the events k whose
+    risk set holds row i, with v_k and den_k the event's (Efron-adjusted) mean and denominator,
+    m_i the mean of v over the row's own tied events, and c_ik = 1 - l/d when row i is one of
+    event k's tied events (Efron), else 1. With Breslow ties this is the usual score residual.
+    Summed within clusters they give the sandwich (cluster-robust) variance.
+    """
+    p = x.shape[1]
+    eta = x @ beta if p else np.zeros(len(x))
+    weights = np.exp(eta - (eta.max() if len(eta) else 0.0))
+    _den, a, b = _event_weights(layout, weights, ties)
+    g, offsets = layout.event_group, layout.group_offsets
+    s1, d1 = _group_sums(layout, x * weights[:, None])
+    v = s1[g] * a[:, None] - d1[g] * b[:, None]  # each event's mean covariate
+    sum_a, sum_b = np.add.reduceat(a, offsets), np.add.reduceat(b, offsets)
+    sum_av = np.add.reduceat(v * a[:, None], offsets, axis=0)
+    sum_bv = np.add.reduceat(v * b[:, None], offsets, axis=0)
+    own_mean = np.add.reduceat(v, offsets, axis=0) / layout.group_size[:, None]
+    ev = layout.event_rows
+    total_a = row_totals(layout, sum_a)
+    total_v = row_totals(layout, sum_av)
+    total_a[ev] -= sum_b[g]
+    total_v[ev] -= sum_bv[g]
+    residuals = -weights[:, None] * (x * total_a[:, None] - total_v)
+    residuals[ev] += x[ev] - own_mean[g]
+    return residuals

@@ -8,7 +8,6 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from engine.errors import preview_values
 from engine.roles import Roles, convert_time
 from engine.text_safety import hidden_characters_warning
 
@@ -71,13 +70,16 @@ def warnings_on_used(prepared, frame, roles: Roles, time, counts) -> list[str]:
     if hidden:
         notes.append(hidden)
     if roles.id and _may_repeat(frame[roles.id]):
-        ids = frame[roles.id]
-        duplicated = ids[ids.duplicated(keep=False) & ids.notna()]
-        if len(duplicated):
-            notes.append(
-                f"Column {roles.id!r} repeats {duplicated.nunique()} id(s) "
-                f"({preview_values(duplicated.unique())}); each subject should appear once."
-            )
+        from engine.episodes import episode_summary, episode_warnings
+
+        used = prepared[prepared["_id"].notna()]
+        summary = episode_summary(
+            used["_id"],
+            used["_time"],
+            used["_event"],
+            used["_entry"] if "_entry" in used.columns else None,
+        )
+        notes.extend(episode_warnings(summary, roles.id, "_entry" in used.columns))
     return notes
 
 

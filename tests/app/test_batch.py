@@ -139,6 +139,9 @@ def test_settings_from_command_line_options():
         "covariates": None,
         "strata": None,
         "reference": None,
+        "variance": "auto",
+        "splines": [],
+        "split": None,
     }
     assert set(settings) == {"curves", "comparison", "cox"}
     # a recipe's settings are the base; options given override them

@@ -241,6 +241,9 @@ def test_restored_ties_and_ph_scale_show_on_the_regression_page():
         "covariates": None,
         "strata": None,
         "reference": None,
+        "variance": "auto",
+        "splines": [],
+        "split": None,
     }
     share_section.restore_recipe(at.session_state, recipe)
     at.switch_page("views/regression.py").run()

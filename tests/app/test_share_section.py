@@ -68,6 +68,9 @@ def test_settings_are_read_from_the_page_widgets(table):
             "covariates": None,
             "strata": None,
             "reference": None,
+            "variance": "auto",
+            "splines": [],
+            "split": None,
         },
     }
 

@@ -231,7 +231,7 @@ def test_warnings_duplicates_few_events_tiny_groups_and_units():
     )
     warnings = prepare(frame, Roles(time="t", event="e", group="g", id="id")).report.warnings
     text = "\n".join(warnings)
-    assert "repeats 1 id(s) (2)" in text
+    assert "repeats 1 id(s) (2; 8 rows, 7 subjects) and no entry-time column" in text
     assert "Group 'a' has 4 event(s)" in text and "common practice" in text
     assert "Group 'b' has only 1 row(s)" in text
     assert "1 row(s) have no value in the group column 'g'" in text

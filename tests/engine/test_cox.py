@@ -290,9 +290,10 @@ def test_json_contract(rossi):
         "drop_one", "ph_check", "warnings",
     }  # fmt: skip
     assert set(out["terms"][0]) == {
-        "variable", "level", "reference", "coef", "se", "hazard_ratio", "lower", "upper",
-        "p_value",
+        "variable", "level", "reference", "coef", "se", "se_model", "hazard_ratio", "lower",
+        "upper", "p_value",
     }  # fmt: skip
+    assert out["variance"] == "model" and out["clusters"] is None
     assert out["n"] == 432 and out["events"] == 114 and out["ties"] == "efron"
     assert set(out["likelihood_ratio"]) == {"statistic", "df", "p_value"}
     assert cox_json(None) is None
