@@ -17,6 +17,7 @@ from engine.analysis import ANALYSIS_DEFAULTS
 from engine.analysis import run_analysis as run_engine_analysis
 from engine.checks import PreparedData, prepare
 from engine.cox_diagnostics import TIME_SCALES
+from engine.dates import IMPLAUSIBLE_CHOICES
 from engine.errors import HazelError
 from engine.io import ImportedTable, ImportOptions, read_table
 from engine.recipe_schema import check_setting
@@ -206,6 +207,12 @@ def add_role_options(parser: argparse.ArgumentParser) -> None:
     # the former spelling, kept for one release (a deprecation line goes to stderr)
     roles.add_argument("--dayfirst", action="store_true", help=argparse.SUPPRESS)
     roles.add_argument(
+        "--implausible-dates",
+        choices=IMPLAUSIBLE_CHOICES,
+        help="dates before 1900 (1900-01-01 included) or after today: warn with counts "
+        "(default) or exclude those rows",
+    )
+    roles.add_argument(
         "--unit", choices=list(TIME_UNITS), default="days", help="unit results are reported in"
     )
     roles.add_argument(
@@ -254,6 +261,7 @@ def roles_from_args(args: argparse.Namespace) -> Roles:
         end=args.end,
         date_format=args.date_format,
         day_first=args.day_first,
+        implausible_dates=args.implausible_dates or "warn",
         unit=args.unit,
         source_unit=args.time_unit,
         event=args.event,
@@ -443,8 +451,8 @@ def run_analysis(
 # Options that set roles or import options: a recipe brings its own, so they cannot be mixed.
 ROLE_OPTIONS = (
     "sep", "decimal", "encoding", "sheet", "time", "start", "end", "date_format", "day_first",
-    "time_unit", "event", "event_value", "group", "covariates", "categorical", "reference",
-    "strata", "entry", "id", "competing",
+    "implausible_dates", "time_unit", "event", "event_value", "group", "covariates",
+    "categorical", "reference", "strata", "entry", "id", "competing",
 )  # fmt: skip
 
 

@@ -7,25 +7,40 @@ from __future__ import annotations
 
 import json
 import re
+import unicodedata
 
 import altair as alt
 import pandas as pd
 import vl_convert
 
+from engine.text_safety import visible_text
+
 # OWASP, "CSV Injection": a spreadsheet treats a cell beginning with one of these as a formula.
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+_FORMULA_SIGNS = frozenset("=+-@")
 
 
 def safe_cell(value: object) -> object:
     """A text cell that cannot run as a formula; every other value unchanged.
 
     Text beginning with = + - @ tab or carriage return gets a leading apostrophe, as OWASP advises,
-    so it shows as the text it is. Numbers (including negative ones) are never text here, so they
-    stay numbers.
+    so it shows as the text it is. So does text whose first visible character is one of those
+    signs after blanks or invisible characters (spaces, a no-break or zero-width space, a
+    byte-order mark), or is a fullwidth or small form of them (＝, ﹦, ＋, －, ＠): some
+    spreadsheets skip the first and read the second as the plain sign. Numbers (including
+    negative ones) are never text here, so they stay numbers.
     """
-    if isinstance(value, str) and value.startswith(_FORMULA_START):
+    if isinstance(value, str) and (value.startswith(_FORMULA_START) or _hidden_formula(value)):
         return "'" + value
     return value
+
+
+def _hidden_formula(text: str) -> bool:
+    for char in text:
+        if char.isspace() or unicodedata.category(char) == "Cf":  # blanks, zero-width, BOM
+            continue
+        return unicodedata.normalize("NFKC", char) in _FORMULA_SIGNS
+    return False
 
 
 def table_csv(frame: pd.DataFrame) -> bytes:
@@ -41,15 +56,33 @@ def table_csv(frame: pd.DataFrame) -> bytes:
     return out.to_csv(index=False, lineterminator="\r\n").encode("utf-8")
 
 
+# What the SVG renderer cannot take and aborts the whole process on: characters XML 1.0 forbids
+# (control characters are shown as codes, the rest as U+FFFD) and whole numbers past 2**53.
+_NOT_XML = re.compile("[\ud800-\udfff\ufffe\uffff]")
+
+
 def json_spec(figure: alt.TopLevelMixin | dict) -> dict:
-    """A Vega-Lite spec with every dataset as JSON rows (missing values as null)."""
+    """A Vega-Lite spec with every dataset as JSON rows (missing values as null), safe for the
+    renderer whichever way it was built."""
     if not isinstance(figure, dict):
-        return figure.to_dict()
+        return _renderer_safe(figure.to_dict())
     datasets = {
         name: json.loads(rows.to_json(orient="records")) if isinstance(rows, pd.DataFrame) else rows
         for name, rows in figure.get("datasets", {}).items()
     }
-    return {**figure, "datasets": datasets}
+    return _renderer_safe({**figure, "datasets": datasets})
+
+
+def _renderer_safe(value):
+    if isinstance(value, int) and not isinstance(value, bool) and abs(value) > 2**53:
+        return float(value)
+    if isinstance(value, str):
+        return _NOT_XML.sub("\ufffd", visible_text(value))
+    if isinstance(value, dict):
+        return {_renderer_safe(k): _renderer_safe(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_renderer_safe(v) for v in value]
+    return value
 
 
 def figure_svg(figure: alt.TopLevelMixin | dict) -> str:

@@ -6,15 +6,22 @@ categoricals whose first level is the reference. No row disappears without a rea
 
 from __future__ import annotations
 
-import datetime
-import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
 
+from engine.column_kinds import MAX_LEVELS, natural_sort_key, numbers_in_text
 from engine.data_warnings import group_counts, warnings_on_used
+from engine.dates import (
+    check_date_format,
+    check_implausible_choice,
+    duration_days,
+    implausible,
+    implausible_note,
+    parse_dates,
+)
 from engine.errors import EventCodingError, RoleError, preview_values
 from engine.roles import (
     TIME_UNITS,
@@ -23,14 +30,15 @@ from engine.roles import (
     classify_covariates,
     convert_time,
     describe_event,
-    natural_sort_key,
     value_key,
 )
 
 # Exclusion reasons, in the order they are tested (a row counts under its first reason).
 MISSING_TIME = "missing time"
 NON_NUMERIC_TIME = "non-numeric time"
+TIME_NOT_FINITE = "time not finite"  # an infinite duration or entry time
 UNPARSEABLE_DATE = "unparseable date"
+IMPLAUSIBLE_DATE = "implausible date"  # only when roles.implausible_dates == "exclude"
 NEGATIVE_TIME = "negative time"
 END_BEFORE_START = "end before start"
 MISSING_EVENT = "missing event"
@@ -43,7 +51,9 @@ REASONS = (
     MALFORMED_LINE,
     MISSING_TIME,
     NON_NUMERIC_TIME,
+    TIME_NOT_FINITE,
     UNPARSEABLE_DATE,
+    IMPLAUSIBLE_DATE,
     NEGATIVE_TIME,
     END_BEFORE_START,
     MISSING_EVENT,
@@ -129,6 +139,7 @@ def prepare(
         entry = _numbers(frame[roles.entry], roles.entry, "entry time")
         entry = convert_time(entry, roles.duration_unit, roles.unit)
         exclude(np.isnan(entry), MISSING_ENTRY)
+        exclude(np.isinf(entry), TIME_NOT_FINITE)
         with np.errstate(invalid="ignore"):
             exclude(entry >= time, ENTRY_AFTER_EXIT)
         out["_entry"] = entry
@@ -141,7 +152,7 @@ def prepare(
                 "add it to the categorical covariates or drop the reference.",
                 column=column,
             )
-        values, missing = _covariate(frame[column], column, kinds[column], roles)
+        values, missing = _covariate(frame[column], column, kinds[column], roles, notes)
         covariates[column] = values
         if require_covariates:
             exclude(missing, MISSING_COVARIATE)
@@ -167,7 +178,8 @@ def prepare(
         columns["_cause"] = kept(cause)
     for role, column in (("_group", roles.group), ("_strata", roles.strata)):
         if column:
-            columns[role] = kept(_natural_categorical(frame[column]))
+            what = f"group column {column!r}" if role == "_group" else ""
+            columns[role] = kept(_natural_categorical(frame[column], role=what))
     if roles.entry:
         columns["_entry"] = kept(out["_entry"])
     if roles.id:
@@ -241,6 +253,9 @@ def _validate_roles(frame: pd.DataFrame, roles: Roles) -> None:
                 f"A reference level is given for {column!r}, which is not a covariate.",
                 column=column,
             )
+    if roles.start or roles.end:
+        check_date_format(roles.date_format)
+    check_implausible_choice(roles.implausible_dates)
     if roles.time and (roles.start or roles.end):
         raise RoleError("Give either a time column or start and end date columns, not both.")
     if not roles.time and not (roles.start and roles.end):
@@ -273,6 +288,7 @@ def _time_in_unit(frame, roles: Roles, exclude, notes: list[str]) -> np.ndarray:
         missing = raw.isna().to_numpy()
         exclude(missing, MISSING_TIME)
         exclude(np.isnan(values) & ~missing, NON_NUMERIC_TIME)
+        exclude(np.isinf(values), TIME_NOT_FINITE)
         with np.errstate(invalid="ignore"):
             exclude(values < 0, NEGATIVE_TIME)
         return convert_time(values, roles.duration_unit, roles.unit)
@@ -284,7 +300,14 @@ def _time_in_unit(frame, roles: Roles, exclude, notes: list[str]) -> np.ndarray:
     if not roles.date_format:
         for column, parsed in ((roles.start, start), (roles.end, end)):
             notes.extend(_other_order_notes(frame[column], parsed, roles))
-    days = (end - start) / np.timedelta64(1, "D")
+    odd = implausible(start) | implausible(end)
+    if odd.any():
+        excluding = roles.implausible_dates == "exclude"
+        if excluding:
+            exclude(odd, IMPLAUSIBLE_DATE)
+        dates = {roles.start: start, roles.end: end}
+        notes.append(implausible_note(dates, int(odd.sum()), excluding))
+    days = duration_days(start, end)
     with np.errstate(invalid="ignore"):
         exclude(days < 0, END_BEFORE_START)
     if not roles.day_first and not roles.date_format:
@@ -306,8 +329,7 @@ def _numbers(series: pd.Series, column: str, role: str) -> np.ndarray:
             "Use start and end date columns instead of a duration column.",
             column=column,
         )
-    text = series.astype("string").str.strip().str.replace(",", ".", regex=False)
-    values = pd.to_numeric(text, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+    values = numbers_in_text(series)
     present = series.notna().to_numpy()
     if present.any() and np.isnan(values[present]).all():
         raise RoleError(
@@ -321,20 +343,8 @@ def _numbers(series: pd.Series, column: str, role: str) -> np.ndarray:
 
 
 def _dates(series: pd.Series, roles: Roles) -> np.ndarray:
-    if pd.api.types.is_datetime64_any_dtype(series):
-        parsed = series
-    elif _holds_date_objects(series):  # pyarrow reads ISO dates as datetime.date objects
-        parsed = pd.to_datetime(series, errors="coerce")
-    else:
-        text = series.where(series.isna(), series.astype(str).str.strip())
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", UserWarning)
-            parsed = pd.to_datetime(
-                text, format=roles.date_format, dayfirst=roles.day_first, errors="coerce"
-            )
-    if getattr(parsed.dt, "tz", None) is not None:
-        parsed = parsed.dt.tz_localize(None)
-    values = parsed.to_numpy(dtype="datetime64[ns]")
+    """``datetime64[s]`` per row: see ``engine.dates`` (no nanosecond range limit)."""
+    values = parse_dates(series, roles.date_format, roles.day_first)
     present = series.notna().to_numpy()
     if present.any() and np.isnat(values[present]).all():
         shown = preview_values(series[present].unique())
@@ -346,11 +356,6 @@ def _dates(series: pd.Series, roles: Roles) -> np.ndarray:
             values=list(series[present].unique()[:5]),
         )
     return values
-
-
-def _holds_date_objects(series: pd.Series) -> bool:
-    present = series.iloc[:1000].dropna()
-    return len(present) > 0 and all(isinstance(v, datetime.date) for v in present)
 
 
 def _other_order_notes(series: pd.Series, parsed: np.ndarray, roles: Roles) -> list[str]:
@@ -391,7 +396,7 @@ def _ambiguous_date_notes(frame, roles: Roles) -> list[str]:
             series.dropna()
             .astype(str)
             .head(5000)
-            .str.extract(r"^\s*(\d{1,2})[/.\-](\d{1,2})[/.\-]\d{2,4}")
+            .str.extract(r"^\s*([0-9]{1,2})[/.\-]([0-9]{1,2})[/.\-][0-9]{2,4}")
             .dropna()
         )
         if len(parts) and (parts.astype(int) <= 12).all().all():
@@ -468,23 +473,51 @@ def _counts_text(coding: EventCoding) -> str:
 # --- covariates and groups ----------------------------------------------------------------------
 
 
-def _covariate(series: pd.Series, column: str, kind: str, roles: Roles):
+def _covariate(series: pd.Series, column: str, kind: str, roles: Roles, notes: list[str]):
     if kind == "numeric" or (kind == "possibly categorical" and column not in roles.categorical):
         values = _numbers(series, column, "covariate")
+        not_numbers = ~np.isfinite(values) & series.notna().to_numpy()
+        if not_numbers.any():
+            values[not_numbers] = np.nan
+            notes.append(_not_numbers_note(series, column, not_numbers))
         return values, np.isnan(values)
     reference = roles.reference_for(column)
     categorical = _natural_categorical(series, reference, column)
     return categorical, np.asarray(categorical.codes) < 0
 
 
-def _natural_categorical(series: pd.Series, reference=None, column: str | None = None):
+def _not_numbers_note(series: pd.Series, column: str, bad: np.ndarray) -> str:
+    """Which cells of a numeric covariate are not (finite) numbers, by value and data row."""
+    where = np.flatnonzero(bad)
+    shown = [f"{series.iloc[i]!r} in data row {i + 1}" for i in where[:5]]
+    rest = f" and {len(where) - 5} more" if len(where) > 5 else ""
+    return (
+        f"Covariate {column!r} is numeric, but {len(where)} cell(s) are not finite numbers "
+        f"({', '.join(shown)}{rest}); they are treated as missing. Correct them, or mark the "
+        "column categorical if it is a category."
+    )
+
+
+def _natural_categorical(series: pd.Series, reference=None, column: str | None = None, *, role=""):
     """Categorical with levels in natural order; for a covariate the reference level comes first.
 
     The default reference follows ``roles.default_reference`` (most frequent, natural-order tie
     break) but is counted from the codes already at hand rather than hashing the column again.
+    More than ``MAX_LEVELS`` levels (a name or id column chosen by mistake) are refused before
+    the levels are sorted: each would be a curve or a model term.
     """
     codes, uniques = pd.factorize(series, use_na_sentinel=True, sort=False)
     levels = list(uniques)
+    if (column is not None or role) and len(levels) > MAX_LEVELS:
+        what = f"categorical covariate {column!r}" if column is not None else role
+        raise RoleError(
+            f"The {what} has {len(levels):,} distinct values (such as "
+            f"{preview_values(levels[:3])}); Hazel allows at most {MAX_LEVELS}, since each value "
+            "is a group of its own. Choose a column with fewer values, group rare values "
+            "together, or (for numbers) use it as a numeric covariate.",
+            column=column or str(series.name),
+            values=levels[:5],
+        )
     order = sorted(range(len(levels)), key=lambda i: natural_sort_key(levels[i]))
     if column is not None:
         if reference is None:

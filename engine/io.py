@@ -10,13 +10,16 @@ from __future__ import annotations
 
 import hashlib
 import io
+import json
 import zipfile
+import zlib
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
 import pandas as pd
 import pyarrow as pa
+import pyarrow.parquet as pq
 
 from engine.errors import FileReadError, FileTooLargeError, preview_values
 from engine.io_text import (
@@ -181,14 +184,30 @@ def _detect_format(name: str, head: bytes) -> str:
 
 # --- Excel and Parquet --------------------------------------------------------------------------
 
+# What a damaged workbook makes openpyxl raise: a bad zip directory or deflate stream, a cut-off
+# member, broken XML (SyntaxError), missing parts (KeyError) or values of the wrong shape.
+_BROKEN_WORKBOOK = (
+    zipfile.BadZipFile,
+    zlib.error,
+    EOFError,
+    KeyError,
+    IndexError,
+    AttributeError,
+    ValueError,
+    OSError,
+    TypeError,
+    SyntaxError,
+    UnicodeError,
+)
+
 
 def _read_excel(path, data, options: ImportOptions, name: str):
     source = path if path is not None else io.BytesIO(data)
     try:
         book = pd.ExcelFile(source, engine="openpyxl")
-    except (zipfile.BadZipFile, KeyError, ValueError, OSError, TypeError, SyntaxError) as exc:
+    except _BROKEN_WORKBOOK as exc:
         raise FileReadError(
-            f"{name} is not a readable Excel .xlsx workbook ({type(exc).__name__}). "
+            f"{name} is not a readable Excel .xlsx workbook ({_problem(exc)}). "
             "Open it in a spreadsheet program and save it as .xlsx or CSV."
         ) from None
     with book:
@@ -200,8 +219,12 @@ def _read_excel(path, data, options: ImportOptions, name: str):
                 na_values=missing_token_variants(options.missing_tokens),
                 keep_default_na=False,
             )
-        except (KeyError, ValueError, TypeError, OSError) as exc:
-            raise FileReadError(f"Sheet {sheet!r} of {name} could not be read: {exc}.") from None
+        except _BROKEN_WORKBOOK as exc:
+            raise FileReadError(
+                f"Sheet {sheet!r} of {name} could not be read ({_problem(exc)}); the "
+                "workbook may be damaged. Open it in a spreadsheet program and save it again as "
+                ".xlsx or CSV."
+            ) from None
     raw = raw.dropna(how="all").dropna(axis=1, how="all")
     if raw.empty:
         raise FileReadError(f"Sheet {sheet!r} of {name} is empty. Pick another sheet.")
@@ -216,6 +239,15 @@ def _read_excel(path, data, options: ImportOptions, name: str):
         sheet=sheet, missing_tokens=options.missing_tokens, max_bytes=options.max_bytes
     )
     return frame, used, notes, True
+
+
+def _problem(exc: BaseException) -> str:
+    """'zlib.error: Error -3 while decompressing data' rather than a bare 'error'."""
+    kind = type(exc).__name__
+    if kind == "error":
+        kind = f"{type(exc).__module__}.error"
+    text = " ".join(str(exc).split())[:200]
+    return f"{kind}: {text}" if text else kind
 
 
 def _resolve_sheet(sheet, names: list[str], name: str) -> str:
@@ -236,14 +268,61 @@ def _resolve_sheet(sheet, names: list[str], name: str) -> str:
 def _read_parquet(path, data, options: ImportOptions, name: str):
     source = str(path) if path is not None else io.BytesIO(data)
     try:
-        frame = pd.read_parquet(source)
+        table = pq.read_table(source)
+        table, notes = _nested_as_text(table)
+        frame = table.to_pandas()
     except (pa.ArrowException, OSError, ValueError, TypeError) as exc:
         raise FileReadError(
             f"{name} is not a readable Parquet file ({exc}). Export it again or use CSV."
         ) from None
-    frame = frame.reset_index(drop=isinstance(frame.index, pd.RangeIndex))
+    if not isinstance(frame.index, pd.RangeIndex):
+        frame, index_notes = _index_as_columns(frame)
+        notes += index_notes
     used = ImportOptions(missing_tokens=options.missing_tokens, max_bytes=options.max_bytes)
-    return frame, used, [], True
+    return frame, used, notes, True
+
+
+def _nested_as_text(table: pa.Table) -> tuple[pa.Table, list[str]]:
+    """Lists, records and maps cannot be compared or counted as values: show each as JSON text."""
+    nested = [
+        i for i, f in enumerate(table.schema) if pa.types.is_nested(f.type)
+    ]  # list, large list, fixed-size list, struct, map, union
+    for i in nested:
+        texts = [
+            None if v is None else json.dumps(v, default=str, ensure_ascii=False)
+            for v in table.column(i).to_pylist()
+        ]
+        table = table.set_column(i, table.schema[i].name, pa.array(texts, type=pa.string()))
+    if not nested:
+        return table, []
+    names = [table.schema[i].name for i in nested]
+    return table, [
+        f"Column(s) {preview_values(names)} hold lists or records; they were read as text."
+    ]
+
+
+def _index_as_columns(frame: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
+    """A stored index becomes ordinary columns; a name a column already has gets ' (index)'."""
+    taken = {str(c) for c in frame.columns}
+    names, renamed = [], []
+    for position, level in enumerate(frame.index.names):
+        label = "index" if level is None and frame.index.nlevels == 1 else level
+        label = f"level_{position}" if label is None else str(label)
+        if label in taken:
+            renamed.append(label)
+            label = f"{label} (index)"
+        taken.add(label)
+        names.append(label)
+    frame = frame.rename_axis(names).reset_index()
+    notes = (
+        [
+            f"The file's stored index {preview_values(renamed)} has the name of a column; it was "
+            "read as a column of its own with ' (index)' added to the name."
+        ]
+        if renamed
+        else []
+    )
+    return frame, notes
 
 
 # --- after any reader -----------------------------------------------------------------------------

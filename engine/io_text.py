@@ -6,6 +6,7 @@ Also here: the rules every reader shares for missing-value tokens and column nam
 
 from __future__ import annotations
 
+import codecs
 import csv
 import io
 import re
@@ -25,6 +26,9 @@ if TYPE_CHECKING:
 
 SEPARATORS = (",", ";", "\t", "|")
 SAMPLE_BYTES = 256 * 1024
+MAX_COLUMNS = 16_384  # the most columns a spreadsheet sheet holds; more is not a table of cases
+_CHUNK_BYTES = 16 * 1024 * 1024
+_CP1252_UNDEFINED = re.compile(b"[\x81\x8d\x8f\x90\x9d]")
 FALLBACK_ENCODING = "cp1252"
 _SEPARATOR_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}
 _DECIMAL_COMMA = re.compile(r"^[+-]?\d+,\d+$")
@@ -86,32 +90,73 @@ def read_text(path, data, options: ImportOptions, name: str):
     confident = sniffed.confident
     encoding = sniffed.encoding
     parse_notes: list[str] = []
+    if truncated and options.encoding is None and encoding in ("utf-8", "utf-8-sig"):
+        encoding = _rest_of_file_encoding(path, data, encoding)
+        if encoding != sniffed.encoding:
+            # The sample was valid UTF-8 but a later part of the file is not.
+            confident = False
+            parse_notes.append(
+                f"Part of the file is not valid UTF-8; it was read as {encoding}. "
+                "Check accented characters."
+            )
     frame = _parse_text(
         path, data, sniffed.sep, sniffed.decimal, encoding, options, parse_notes, name
     )
-    guessed_utf8 = options.encoding is None and encoding not in (FALLBACK_ENCODING, "latin-1")
-    if guessed_utf8 and _has_undecoded(frame):
-        # The sample was valid UTF-8 but a later part of the file is not.
-        confident = False
-        for encoding in (FALLBACK_ENCODING, "latin-1"):
-            parse_notes = [
-                f"Part of the file is not valid UTF-8; it was read as {encoding}. "
-                "Check accented characters."
-            ]
-            try:
-                frame = _parse_text(
-                    path, data, sniffed.sep, sniffed.decimal, encoding, options, parse_notes, name
-                )
-                break
-            except FileReadError:
-                if encoding == "latin-1":
-                    raise
     notes = [*sniffed.notes, *parse_notes]
     if any("malformed" in note for note in notes):
         confident = False
     # every field set: the other two (missing tokens, size limit) are kept as given
     used = replace(options, sep=sniffed.sep, decimal=sniffed.decimal, encoding=encoding, sheet=None)
     return frame, used, notes, confident
+
+
+def _rest_of_file_encoding(path, data, encoding: str) -> str:
+    """Decode the whole file in chunks (nothing kept): UTF-8 throughout, or the fallback.
+
+    Knowing this before parsing reads the file once, with the right encoding, instead of
+    parsing it as UTF-8 and again when some later cell turns out not to be."""
+    decoder = codecs.getincrementaldecoder("utf-8")()
+    try:
+        for chunk in _chunks(path, data):
+            decoder.decode(chunk)
+        decoder.decode(b"", final=True)
+    except UnicodeDecodeError:
+        gaps = any(_CP1252_UNDEFINED.search(chunk) for chunk in _chunks(path, data))
+        return "latin-1" if gaps else FALLBACK_ENCODING  # latin-1 maps every byte
+    return encoding
+
+
+def _chunks(path, data):
+    if data is not None:
+        for start in range(0, len(data), _CHUNK_BYTES):
+            yield data[start : start + _CHUNK_BYTES]
+        return
+    with path.open("rb") as handle:
+        while chunk := handle.read(_CHUNK_BYTES):
+            yield chunk
+
+
+def _check_width(text: str, lines: list[str], sep: str | None, truncated: bool, name: str):
+    """Refuse a header of more than MAX_COLUMNS fields, or a header with no rows, before the
+    whole file is parsed (a header of a million fields took minutes to reach the same message)."""
+    header = lines[0] if lines else ""
+    if truncated and "\n" not in text and "\r" not in text:
+        header = text  # the first line is longer than the sample
+    seps = [sep] if sep else list(SEPARATORS)
+    fields = max(header.count(s) for s in seps) + 1
+    if fields > MAX_COLUMNS:
+        more = "at least " if header is text else ""
+        raise FileReadError(
+            f"{name} has {more}{fields:,} columns; Hazel reads at most {MAX_COLUMNS:,} (the most "
+            "a spreadsheet sheet holds). Keep only the columns the analysis needs, or check the "
+            "separator."
+        )
+    if not truncated and len(lines) == 1:
+        shown = preview_values(next(csv.reader([header], delimiter=sep or ","), []))
+        raise FileReadError(
+            f"{name} has a header ({shown}) but no data rows. Check that the file is complete, "
+            "or pick another sheet."
+        )
 
 
 def _sniff(sample: bytes, truncated: bool, options: ImportOptions, name: str) -> _Sniffed:
@@ -143,6 +188,7 @@ def _sniff(sample: bytes, truncated: bool, options: ImportOptions, name: str) ->
     if truncated and len(lines) > 1:
         lines = lines[:-1]
     lines = [line for line in lines if line.strip()][:200]
+    _check_width(text, lines, options.sep, truncated, name)
     if options.sep:
         sep = options.sep
     else:
@@ -303,16 +349,3 @@ def _parse_text_python(path, data, encoding, kwargs, malformed, name) -> pd.Data
             f"{name} could not be read as a table: {exc}. Check the separator, quoting and "
             "encoding, or export the file again."
         ) from None
-
-
-def _has_undecoded(frame: pd.DataFrame) -> bool:
-    """pyarrow keeps invalid UTF-8 as bytes: one bytes value means the encoding was wrong."""
-    for position in range(frame.shape[1]):
-        series = frame.iloc[:, position]
-        if series.dtype == object:
-            present = series.iloc[:1000].dropna()
-            if present.empty:
-                present = series.dropna()
-            if len(present) and isinstance(present.iloc[0], bytes):
-                return True
-    return False

@@ -25,7 +25,9 @@ def json_label(value):
     if value is None:
         return None
     if isinstance(value, np.generic):
-        return value.item()
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return str(value)  # a label 'inf' stays a label: JSON has no Infinity
     if isinstance(value, (str, int, float, bool)):
         return value
     return str(value)

@@ -108,7 +108,7 @@ class Recipe:
     def settings(self) -> dict[str, dict]:
         """Each chosen analysis's settings, with defaults filled in for what the recipe omits."""
         return {
-            name: {**ANALYSIS_DEFAULTS.get(name, {}), **copy.deepcopy(values)}
+            name: {**ANALYSIS_DEFAULTS.get(name, {}), **copy.deepcopy(values or {})}
             for name, values in self.analyses.items()
         }
 

@@ -14,6 +14,13 @@ from dataclasses import dataclass, field, fields
 import numpy as np
 import pandas as pd
 
+from engine.column_kinds import FEW_DISTINCT as FEW_DISTINCT
+from engine.column_kinds import MAX_LEVELS as MAX_LEVELS
+from engine.column_kinds import ColumnProfile, covariate_kind, guess_day_first
+from engine.column_kinds import default_reference as default_reference
+from engine.column_kinds import mostly_numbers as mostly_numbers
+from engine.column_kinds import natural_sort_key as natural_sort_key
+from engine.column_kinds import numbers_in_text as numbers_in_text
 from engine.errors import RoleError
 
 TIME_UNITS: dict[str, float] = {"days": 1.0, "weeks": 7.0, "months": 30.4375, "years": 365.25}
@@ -36,7 +43,6 @@ ONE_TWO_ASSUMPTION = (
     "Assumed 1 = censored and 2 = event (a common coding for 1/2 columns). "
     "If your file means otherwise, name the event value explicitly."
 )
-FEW_DISTINCT = 5  # a numeric covariate with at most this many values may be a coded category
 
 _TIME_NAMES = re.compile(
     r"(^|_)(time|times|duration|follow|fu|futime|survival|surv|os|pfs|dfs|efs|months|days|"
@@ -126,6 +132,9 @@ class Roles:
     strata: str | None = None
     entry: str | None = None
     id: str | None = None
+    # Dates before 1900 (1900-01-01 included) or after today: "warn" keeps the rows and says
+    # how many, "exclude" leaves them out under the reason "implausible date".
+    implausible_dates: str = "warn"
 
     @property
     def duration_unit(self) -> str:
@@ -317,33 +326,44 @@ class RoleSuggestions:
         }
 
 
+SUGGESTION_CELLS = 2_000_000  # cells sampled for suggestions: fewer rows when a file is wide
+
+
 def suggest_roles(frame: pd.DataFrame, sample_rows: int = 5000) -> RoleSuggestions:
-    """Propose roles from column names and contents (a sample of rows is enough)."""
-    sample = frame.head(sample_rows)
+    """Propose roles from column names and contents (a sample of rows is enough).
+
+    Each column's facts are computed once and only when a rule asks for them, and a wide file is
+    sampled on fewer rows, so the cost grows with the size of the file, not faster."""
+    rows = min(sample_rows, max(200, SUGGESTION_CELLS // max(frame.shape[1], 1)))
+    sample = frame.head(rows)
+    profiles = [ColumnProfile(c, sample.iloc[:, i]) for i, c in enumerate(sample.columns)]
     used: set[str] = set()
     notes: list[str] = []
 
-    event = _first(sample, used, lambda c, s: _EVENT_NAMES.search(c) and _event_like(s))
-    event = event or _first(sample, used, lambda c, s: _EVENT_NAMES.search(c) and _few(s, 6))
-    event = event or _first(sample, used, lambda c, s: _event_like(s) and s.nunique() == 2)
+    def first(test) -> ColumnProfile | None:
+        return next((p for p in profiles if p.name not in used and test(p)), None)
+
+    event = first(lambda p: _EVENT_NAMES.search(p.name) and _event_like(p))
+    event = event or first(lambda p: _EVENT_NAMES.search(p.name) and 0 < p.distinct <= 6)
+    event = event or first(lambda p: p.distinct == 2 and _event_like(p))
     event_s = None
     if event:
-        coding = describe_event(sample[event])
+        coding = describe_event(event.series)
         how = "its values look like an event coding" if not coding.needs_choice else "its name"
-        event_s = Suggestion(event, f"{how} ({_join([v for v, _ in coding.counts][:4])})")
-        used.add(event)
+        event_s = Suggestion(event.name, f"{how} ({_join([v for v, _ in coding.counts][:4])})")
+        used.add(event.name)
 
-    time = _first(sample, used, lambda c, s: _TIME_NAMES.search(c) and _duration_like(s))
+    time = first(lambda p: _TIME_NAMES.search(p.name) and p.duration_like)
     time_s = start_s = end_s = None
     unit = day_first = None
     if time:
-        used.add(time)
-        time_s = Suggestion(time, "a name like a duration and non-negative numbers")
-        unit = next((u for u, pat in _UNIT_NAMES.items() if re.search(pat, time, re.I)), None)
+        used.add(time.name)
+        time_s = Suggestion(time.name, "a name like a duration and non-negative numbers")
+        unit = next((u for u, pat in _UNIT_NAMES.items() if re.search(pat, time.name, re.I)), None)
     else:
-        dates = [c for c in sample.columns if c not in used and _date_like(sample[c])]
-        start = next((c for c in dates if _START_NAMES.search(str(c))), None)
-        end = next((c for c in dates if c != start and _END_NAMES.search(str(c))), None)
+        dates = [p.name for p in profiles if p.name not in used and p.dates]
+        start = next((c for c in dates if _START_NAMES.search(c)), None)
+        end = next((c for c in dates if c != start and _END_NAMES.search(c)), None)
         if start is None and end is None and len(dates) == 2:
             start, end = dates
         if start and end:
@@ -354,31 +374,28 @@ def suggest_roles(frame: pd.DataFrame, sample_rows: int = 5000) -> RoleSuggestio
             if day_first:
                 notes.append("Dates have a first part above 12, so they are read day first.")
 
-    id_col = _first(
-        sample, used, lambda c, s: _ID_NAMES.search(c) and s.nunique() >= 0.9 * len(s) > 0
-    )
+    id_col = first(lambda p: _ID_NAMES.search(p.name) and p.distinct >= 0.9 * len(sample) > 0)
     id_s = None
     if id_col:
-        id_s = Suggestion(id_col, "a name like an identifier and (nearly) one value per row")
-    if id_col:
-        used.add(id_col)
+        id_s = Suggestion(id_col.name, "a name like an identifier and (nearly) one value per row")
+        used.add(id_col.name)
 
-    group = _first(
-        sample, used, lambda c, s: _GROUP_NAMES.search(c) and 2 <= s.nunique() <= 12
-    ) or _first(sample, used, lambda c, s: _is_text(s) and 2 <= s.nunique() <= 6)
-    group_s = Suggestion(group, "few distinct values and a name like a group") if group else None
+    group = first(lambda p: _GROUP_NAMES.search(p.name) and 2 <= p.distinct <= 12) or first(
+        lambda p: p.text and 2 <= p.distinct <= 6
+    )
+    group_s = None
     if group:
-        used.add(group)
+        group_s = Suggestion(group.name, "few distinct values and a name like a group")
+        used.add(group.name)
 
-    covariates = []
-    for column in sample.columns:
-        if column in used:
-            continue
-        s = sample[column]
-        if s.notna().sum() == 0 or _date_like(s):
-            continue
-        if pd.api.types.is_numeric_dtype(s) or (_is_text(s) and s.nunique() <= 20):
-            covariates.append(Suggestion(str(column), covariate_kind(s)))
+    covariates = [
+        Suggestion(p.name, p.kind)
+        for p in profiles
+        if p.name not in used
+        and p.present
+        and not p.dates
+        and (p.numeric or (p.text and 0 < p.distinct <= 20) or (p.text and p.kind == "numeric"))
+    ]
     return RoleSuggestions(
         time=time_s,
         start=start_s,
@@ -393,19 +410,6 @@ def suggest_roles(frame: pd.DataFrame, sample_rows: int = 5000) -> RoleSuggestio
     )
 
 
-def covariate_kind(series: pd.Series) -> str:
-    """'numeric', 'categorical' or 'possibly categorical' (numeric with few distinct values)."""
-    if pd.api.types.is_bool_dtype(series) or not pd.api.types.is_numeric_dtype(series):
-        return "categorical"
-    head = series.iloc[:2000].dropna().unique()  # most numeric columns show many values early
-    if len(head) > FEW_DISTINCT or not np.all(np.mod(head, 1) == 0):
-        return "numeric"
-    distinct = series.dropna().unique()
-    if len(distinct) <= FEW_DISTINCT and np.all(np.mod(distinct, 1) == 0):
-        return "possibly categorical"
-    return "numeric"
-
-
 def classify_covariates(frame: pd.DataFrame, roles: Roles) -> dict[str, str]:
     """Kind of each covariate as it will be modelled, with caller's categorical choices applied."""
     out = {}
@@ -413,23 +417,6 @@ def classify_covariates(frame: pd.DataFrame, roles: Roles) -> dict[str, str]:
         kind = covariate_kind(frame[column])
         out[column] = "categorical" if column in roles.categorical else kind
     return out
-
-
-def natural_sort_key(value) -> tuple:
-    """Sort 'dose 2' before 'dose 10' and numbers by value."""
-    if isinstance(value, int | float | np.integer | np.floating) and not isinstance(value, bool):
-        return (0, float(value), ())
-    parts = re.split(r"(\d+)", str(value).casefold())
-    return (1, 0.0, tuple((0, int(p), "") if p.isdigit() else (1, 0, p) for p in parts if p))
-
-
-def default_reference(series: pd.Series):
-    """Most frequent level; ties go to the first level in natural order."""
-    counts = series.dropna().value_counts()
-    if counts.empty:
-        return None
-    top = counts[counts == counts.max()].index
-    return sorted(top, key=natural_sort_key)[0]
 
 
 # Common words for an event, as a value or a column name, and the noun a sentence uses.
@@ -459,53 +446,11 @@ def event_in_words(roles: Roles) -> str:
     return NO_EVENT_NAME
 
 
-def guess_day_first(series: pd.Series) -> bool:
-    """True when some slash/dot/dash date has a first part above 12 (so it must be the day)."""
-    text = series.dropna().astype(str).head(2000)
-    first = text.str.extract(r"^\s*(\d{1,2})[/.\-]\d{1,2}[/.\-]\d{2,4}")[0].dropna()
-    return bool(len(first)) and bool((first.astype(int) > 12).any())
-
-
 # --- helpers ------------------------------------------------------------------------------------
 
 
-def _first(sample: pd.DataFrame, used: set, test) -> str | None:
-    for column in sample.columns:
-        if column not in used and test(str(column), sample[column]):
-            return str(column)
-    return None
-
-
-def _is_text(series: pd.Series) -> bool:
-    return series.dtype == object or isinstance(series.dtype, pd.CategoricalDtype | pd.StringDtype)
-
-
-def _few(series: pd.Series, most: int) -> bool:
-    return 0 < series.nunique() <= most
-
-
-def _event_like(series: pd.Series) -> bool:
-    present = series.dropna()
-    return len(present) > 0 and present.nunique() <= 6 and not describe_event(series).needs_choice
-
-
-def _duration_like(series: pd.Series) -> bool:
-    if not pd.api.types.is_numeric_dtype(series) or pd.api.types.is_bool_dtype(series):
-        return False
-    present = series.dropna()
-    return len(present) > 0 and bool((present >= 0).mean() > 0.95) and present.nunique() > 2
-
-
-def _date_like(series: pd.Series) -> bool:
-    if pd.api.types.is_datetime64_any_dtype(series):
-        return True
-    if not _is_text(series):
-        return False
-    text = series.dropna().astype(str).head(200)
-    if text.empty:
-        return False
-    pattern = r"^\s*(\d{4}-\d{1,2}-\d{1,2}|\d{1,2}[/.\-]\d{1,2}[/.\-]\d{2,4})([ T].*)?$"
-    return bool(text.str.match(pattern).mean() > 0.9)
+def _event_like(profile: ColumnProfile) -> bool:
+    return 0 < profile.distinct <= 6 and not describe_event(profile.series).needs_choice
 
 
 def _is_missing(value) -> bool:

@@ -109,6 +109,7 @@ with st.container(border=True):
     else:
         default("roles_day_first", bool(roles.day_first))
         default("roles_date_format", roles.date_format or "")
+        default("roles_exclude_implausible", roles.implausible_dates == "exclude")
         default("roles_unit", roles.unit)
         cols = st.columns(2)
         column_choice(cols[0], "Start date", "roles_start", roles.start)
@@ -126,6 +127,13 @@ with st.container(border=True):
             key="roles_date_format",
             placeholder="e.g. %d.%m.%Y",
             help="Only needed when dates are not read correctly.",
+        )
+        st.checkbox(
+            "Leave out rows with a date before 1900 or after today",
+            key="roles_exclude_implausible",
+            help="Placeholders such as 1900-01-01 or 9999-12-31 are common in registry exports. "
+            "Unticked, such rows are kept and the data-quality report counts them; ticked, they "
+            "are left out under the reason “implausible date”.",
         )
 
 # --- event ----------------------------------------------------------------------------------
@@ -295,6 +303,9 @@ new_roles = Roles(
     end=chosen("roles_end") if mode_dates else None,
     date_format=(st.session_state.get("roles_date_format") or None) if mode_dates else None,
     day_first=bool(st.session_state.get("roles_day_first")) if mode_dates else False,
+    implausible_dates="exclude"
+    if mode_dates and st.session_state.get("roles_exclude_implausible")
+    else "warn",
     unit=st.session_state["roles_unit"],
     event=chosen("roles_event"),
     event_values=event_values,

@@ -39,7 +39,35 @@ def test_formula_cells_are_prefixed_with_a_quote(text):
     assert safe_cell(text) == "'" + text
 
 
-@pytest.mark.parametrize("text", ["group A", "", "3 = three", "a+b", "x@y.org", " =1", "'=1"])
+# A formula behind characters a spreadsheet may skip, or written with a fullwidth / small sign.
+HIDDEN_PAYLOADS = [
+    " =1+1",
+    "   +1+1",
+    "\u00a0=1+1",  # no-break space
+    "\u200b=1+1",  # zero-width space
+    "\ufeff=1+1",  # byte-order mark
+    "\u2060@SUM(1+1)",  # word joiner
+    "\u3000-1+1",  # ideographic space
+    "\uff1d1+1",  # fullwidth equals sign
+    "\ufe661+1",  # small equals sign
+    "\uff0b1+1",  # fullwidth plus
+    "\uff0d1+1",  # fullwidth hyphen-minus
+    "\uff20SUM(1)",  # fullwidth commercial at
+    " \u200b\u00a0\uff1dcmd|' /C calc'!A0",
+]
+
+
+@pytest.mark.parametrize("text", HIDDEN_PAYLOADS)
+def test_formula_after_invisible_characters_or_in_fullwidth_is_prefixed(text):
+    assert safe_cell(text) == "'" + text
+    rows = _rows(table_csv(pd.DataFrame({"label": [text], text: [1]})))
+    assert rows[0][1] == "'" + text
+    assert rows[1][0] == "'" + text
+
+
+@pytest.mark.parametrize(
+    "text", ["group A", "", "3 = three", "a+b", "x@y.org", "'=1", " a=1", "\u00a0", "\u200bok"]
+)
 def test_harmless_text_is_unchanged(text):
     assert safe_cell(text) == text
 

@@ -74,6 +74,11 @@ def _with(path: str, value) -> dict:
         ("roles.unit", "fortnights", r'roles\.unit must be "days", "weeks", "months" or "years"'),
         ("roles.covariates", "a,b", r"roles\.covariates must be a list"),
         ("roles.day_first", "yes", r"roles\.day_first must be true/false"),
+        (
+            "roles.implausible_dates",
+            "drop",
+            r'roles\.implausible_dates must be "warn" or "exclude"',
+        ),
         ("import_options.sep", ",,", r"import_options\.sep must have at most 1 character"),
         ("import_options.max_bytes", 1e30, r"import_options\.max_bytes must be a whole number"),
         ("data.rows", "12", r"data\.rows must be a whole number"),
