@@ -268,7 +268,7 @@ def role_choices(draw, columns: list[str], suggested: Roles) -> Roles:
             "start": take(False),
             "end": take(False),
             "date_format": draw(st.sampled_from(DATE_FORMATS)),
-            "dayfirst": draw(st.booleans()),
+            "day_first": draw(st.booleans()),
             "implausible_dates": draw(st.sampled_from(["warn", "exclude"])),
         }
     if None in timing.values() and "time" not in timing:

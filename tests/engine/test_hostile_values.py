@@ -256,7 +256,7 @@ def test_far_dates_with_a_format_and_day_first(tmp_path):
     frame["e"] = [1, 1]
     imported = _csv(tmp_path, frame)
     for roles in (
-        Roles(start="s", end="f", event="e", dayfirst=True),
+        Roles(start="s", end="f", event="e", day_first=True),
         Roles(start="s", end="f", event="e", date_format="%d/%m/%Y"),
     ):
         assert prepare(imported.frame, roles).frame["_time"].tolist() == [3652058.0, 1.0]
