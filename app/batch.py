@@ -450,6 +450,7 @@ def report_from_json_and_results(
         filters=filtered.to_dict()["excluded"] if filtered is not None else (),
         warnings=warnings,
         software=software_versions(),
+        column_labels=imported.column_labels if imported is not None else None,
     )
 
 

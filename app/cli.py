@@ -127,7 +127,12 @@ def add_analysis_options(parser: argparse.ArgumentParser) -> None:
 
 def add_role_options(parser: argparse.ArgumentParser) -> None:
     """The data file, import options, role options and ``--json``; shared by every subcommand."""
-    parser.add_argument("data", metavar="DATA", help="CSV/TSV/semicolon/pipe, .xlsx or .parquet")
+    parser.add_argument(
+        "data",
+        metavar="DATA",
+        help="CSV/TSV/semicolon/pipe, .xlsx, .parquet, SPSS .sav/.zsav, Stata .dta, SAS "
+        ".sas7bdat/.xpt",
+    )
     read = parser.add_argument_group("reading the file")
     read.add_argument("--sep", help="column separator (default: detected); use '\\t' for tab")
     read.add_argument("--decimal", help="decimal mark, '.' or ',' (default: detected)")

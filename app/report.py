@@ -173,6 +173,7 @@ def build_report(
     warnings: Sequence[str] = (),
     software: Mapping[str, str] | None = None,
     generated: dt.datetime | None = None,
+    column_labels: Mapping[str, str] | None = None,
 ) -> str:
     """The report as one HTML document (a string).
 
@@ -183,7 +184,8 @@ def build_report(
     ``"forest"`` as Altair charts, Vega-Lite dicts or SVG text; ``fingerprint`` is
     ``ImportedTable.fingerprint()`` plus ``file_name``; ``filters`` is
     ``FilterOutcome.to_dict()["excluded"]``; ``warnings`` are extra warnings such as
-    fingerprint differences from a replayed recipe.
+    fingerprint differences from a replayed recipe; ``column_labels`` the variable labels of an
+    SPSS, Stata or SAS file, shown beside the column names.
     """
     figures = dict(figures or {})
     software = dict(software or software_versions())
@@ -207,7 +209,7 @@ def build_report(
         bullets(CAUTIONS),
         "</section>",
         data_section(data, fingerprint, filters) if data else "",
-        roles_section(roles),
+        roles_section(roles, column_labels),
         curves_section(results.get("curves") or [], unit, confidence, figures.get("curves")),
         comparison_section(results.get("comparison"), results.get("pairwise")),
         cox_section(cox, confidence, figures.get("forest")),

@@ -240,6 +240,32 @@ def sidebar(roles_page) -> None:
         st.caption("Data stays on this computer. For research and exploration only.")
 
 
+def column_title(column, labels) -> str:
+    """``column`` with its variable label (``ImportedTable.column_labels``) beside it."""
+    label = (labels or {}).get(str(column), "")
+    return f"{column} — {label}" if label else str(column)
+
+
+def value_label_frame(table) -> pd.DataFrame:
+    """The value labels of a statistical-package file: column, code, label, and whether the
+    column shows the labels (every value present labelled) or keeps its codes."""
+    rows = []
+    for column, pairs in table.value_labels.items():
+        shown = column in table.frame.columns and not pd.api.types.is_numeric_dtype(
+            table.frame[column]
+        )
+        for code, label in pairs:
+            rows.append(
+                {
+                    "column": column,
+                    "code": code,
+                    "label": label,
+                    "shown as": "label" if shown else "code",
+                }
+            )
+    return pd.DataFrame(rows, columns=["column", "code", "label", "shown as"])
+
+
 def remember(key: str, value) -> None:
     """Give a widget its first value through session state (never as a widget argument too:
     that clashes with the values kept across page switches)."""
