@@ -32,6 +32,7 @@ pages = {
             "views/data_import.py", title="Data import", icon=":material/upload_file:", default=True
         ),
         st.Page("views/column_roles.py", title="Column roles", icon=":material/view_column:"),
+        st.Page("views/row_filters.py", title="Row filters", icon=":material/filter_alt:"),
     ],
     "Analyses": [
         st.Page("views/curves.py", title="Curves", icon=":material/show_chart:"),

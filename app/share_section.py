@@ -241,10 +241,17 @@ def source_table(session: MutableMapping):
 
 def filtered_table(table, filters):
     """``table`` with only the rows the filters keep, under a fingerprint of its own (so every
-    cached result of the pages is keyed on the filtered rows), or ``table`` without filters."""
+    cached result of the pages is keyed on the filtered rows), or ``table`` without filters.
+    Filters that keep no row are refused (a HazelError), so no page sees an empty table."""
     if not filters:
         return table
     outcome = apply_filters(table.frame, filters)
+    if len(outcome.frame) == 0:
+        steps = "; ".join(f"{text}: {rows:,} removed" for text, rows in outcome.excluded)
+        raise HazelError(
+            f"These filters would remove every row ({steps}), so they were not applied. "
+            "Widen the last filter or remove one."
+        )
     key = json.dumps([f.to_dict() for f in filters], sort_keys=True, default=str)
     digest = hashlib.sha256(key.encode("utf-8")).hexdigest()[:16]
     return replace(table, frame=outcome.frame, sha256=f"{table.sha256}:filters:{digest}")
@@ -288,10 +295,11 @@ def restore_recipe(session: MutableMapping, recipe: Recipe) -> list[str]:
             + ". Open the file the recipe was made for."
         )
     warnings = check_fingerprint(recipe, table) + import_option_differences(recipe, table)
+    in_use = filtered_table(table, recipe.filters)  # refused before anything changes
     state.clear_page_choices(session, PAGE_PREFIXES)
     session[state.ROLES] = roles
     session[FILTERS] = tuple(recipe.filters)
-    in_use = session[state.TABLE] = filtered_table(table, recipe.filters)
+    session[state.TABLE] = in_use
     if in_use is table:
         if SOURCE_TABLE in session:  # (AppTest's session state has no pop)
             del session[SOURCE_TABLE]
