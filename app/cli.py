@@ -123,6 +123,34 @@ def add_analysis_options(parser: argparse.ArgumentParser) -> None:
         help="expected share of subjects with the event (default 1)",
     )
     more.add_argument("--events", type=float, help="power of this many events for --power-hr")
+    base = parser.add_argument_group("baseline table (each option switches it on)")
+    base.add_argument(
+        "--baseline",
+        action="store_true",
+        help="baseline table by group: counts and percentages, medians (quartiles) or means (SD), "
+        "missing per column",
+    )
+    base.add_argument(
+        "--baseline-group",
+        metavar="COL",
+        help="column whose groups the table compares (default: --group; 'none' for all rows only)",
+    )
+    base.add_argument(
+        "--baseline-variables",
+        metavar="A,B",
+        help="columns to describe (default: the covariates, else every column without a role)",
+    )
+    base.add_argument(
+        "--baseline-summary",
+        choices=("median", "mean"),
+        help="numeric columns as median (quartiles) or mean (SD) (default median)",
+    )
+    base.add_argument(
+        "--baseline-compare",
+        choices=("smd", "test"),
+        help="add standardised differences (Austin 2009) or a test per column (not advised "
+        "for randomised trials)",
+    )
 
 
 def add_role_options(parser: argparse.ArgumentParser) -> None:
@@ -278,6 +306,12 @@ SETTING_OPTIONS = {
         "event_probability": "event_probability",
         "events": "events",
     },
+    "baseline": {
+        "group": "baseline_group",
+        "variables": "baseline_variables",
+        "summary": "baseline_summary",
+        "compare": "baseline_compare",
+    },
 }
 
 
@@ -293,6 +327,10 @@ def settings_from_args(args: argparse.Namespace, base: dict | None = None) -> di
         "parametric": bool(getattr(args, "parametric", False)),
         "landmark": getattr(args, "landmark", None) is not None,
         "sample_size": getattr(args, "power_hr", None) is not None,
+        "baseline": any(
+            getattr(args, option, None) not in (None, False)
+            for option in ("baseline", *SETTING_OPTIONS["baseline"].values())
+        ),
     }
     for name, on in switched.items():
         if on and name not in settings:
@@ -302,8 +340,15 @@ def settings_from_args(args: argparse.Namespace, base: dict | None = None) -> di
             continue
         for setting, option in options.items():
             given = getattr(args, option, None)
-            if given is not None:
-                settings[name][setting] = _times(given) if setting == "times" else given
+            if given is None:
+                continue
+            if setting == "times":
+                given = _times(given)
+            elif name == "baseline" and setting == "variables":
+                given = list(_names(given))
+            elif name == "baseline" and setting == "group" and given.strip().lower() == "none":
+                given = False
+            settings[name][setting] = given
     confidence = settings["curves"]["confidence"]
     if not 0 < confidence < 1:
         raise UsageError(f"--confidence must lie between 0 and 1, got {confidence}")

@@ -132,4 +132,13 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
                 f"  {comparison['test']}: chi-square {comparison['statistic']:.2f} on "
                 f"{comparison['df']} df, p = {comparison['p_value']:.3g}"
             )
+    baseline = sections.get("baseline")
+    if baseline:
+        variables = list(dict.fromkeys(row["variable"] for row in baseline["rows"]))
+        by = f" by {baseline['group']}" if baseline["group"] else ""
+        lines.append(
+            f"Baseline table{by}: {len(variables)} column(s) ({', '.join(variables[:8])}"
+            + (", …" if len(variables) > 8 else "")
+            + "); every row is in the JSON and the report"
+        )
     return lines

@@ -17,6 +17,7 @@ from __future__ import annotations
 import datetime as dt
 from collections.abc import Mapping, Sequence
 
+from app.report_baseline import baseline_section
 from app.report_html import bullets, escape
 from app.report_sections import (
     comparison_section,
@@ -210,6 +211,7 @@ def build_report(
         "</section>",
         data_section(data, fingerprint, filters) if data else "",
         roles_section(roles, column_labels),
+        baseline_section(results.get("baseline"), settings, column_labels),
         curves_section(results.get("curves") or [], unit, confidence, figures.get("curves")),
         comparison_section(results.get("comparison"), results.get("pairwise")),
         cox_section(cox, confidence, figures.get("forest")),

@@ -108,12 +108,22 @@ def _restore_page_choices(session: MutableMapping, roles: Roles, settings: dict)
         session[REFERENCE_PREFIX + str(column)] = str(level)
 
 
+# The baseline table page's labels (value -> label).
+BASELINE_ALL_ROWS = "(all rows, no groups)"
+BASELINE_SUMMARIES = {"median": "Median (quartiles)", "mean": "Mean (SD)"}
+BASELINE_COMPARISONS = {
+    None: "Nothing more",
+    "smd": "Standardised differences",
+    "test": "A test per variable",
+}
+
 # An optional analysis goes into the recipe (and the report) while its page's switch is on.
 INCLUDE_KEYS = {
     "competing": "cr_include",
     "parametric": "param_include",
     "sample_size": "power_include",
     "landmark": "landmark_include",
+    "baseline": "baseline_include",
 }
 
 
@@ -201,6 +211,11 @@ WIDGETS = (
     Widget("sample_size", "events", "power_events", _zero_for_none, _optional_number),
     Widget("landmark", "time", "landmark_time", _zero_for_none, float),
     Widget("landmark", "test", "landmark_test", _same, _same),
+    Widget("baseline", "group", "baseline_group", *_labelled({False: BASELINE_ALL_ROWS})),
+    Widget("baseline", "variables", "baseline_variables", list, list),
+    Widget("baseline", "categorical", "baseline_categorical", list, list),
+    Widget("baseline", "summary", "baseline_summary", *_labelled(BASELINE_SUMMARIES)),
+    Widget("baseline", "compare", "baseline_compare", *_labelled(BASELINE_COMPARISONS)),
 )
 
 
@@ -316,7 +331,9 @@ def restore_recipe(session: MutableMapping, recipe: Recipe) -> list[str]:
     return warnings
 
 
-PAGE_PREFIXES = ("roles_", "curves_", "compare_", "model_", "cr_", "param_", "power_", "landmark_")
+PAGE_PREFIXES = (
+    "roles_", "curves_", "compare_", "model_", "cr_", "param_", "power_", "landmark_", "baseline_",
+)  # fmt: skip
 
 
 def _role_columns(roles: Roles) -> list[str]:

@@ -63,9 +63,20 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
         "events": None,
     },
     "landmark": {"time": None, "test": "logrank"},
+    # group: None (the group role), False (all rows only) or a column; variables: None (the
+    # covariates, or every column without a role when there are none) or a list; categorical:
+    # numeric columns to describe by their levels (besides the roles' categorical covariates);
+    # summary: "median" (quartiles) or "mean" (SD); compare: None, "smd" or "test"
+    "baseline": {
+        "group": None,
+        "variables": None,
+        "categorical": [],
+        "summary": "median",
+        "compare": None,
+    },
 }
 CORE_ANALYSES = ("curves", "comparison", "cox")  # always run (when the roles allow)
-OPTIONAL_ANALYSES = ("competing", "parametric", "sample_size", "landmark")
+OPTIONAL_ANALYSES = ("competing", "parametric", "sample_size", "landmark", "baseline")
 
 
 def resolved_settings(settings: Mapping | None) -> dict[str, dict]:
@@ -233,5 +244,5 @@ def run_analysis(
         sections["cox"] = cox_json(result, proportional_hazards_test(result, cox["ph_transform"]))
     from engine.analysis_extra import extra_sections  # the optional analyses
 
-    sections.update(extra_sections(prepared, chosen))
+    sections.update(extra_sections(prepared, chosen, source))
     return sections
