@@ -454,6 +454,14 @@ def report_from_json_and_results(
     )
 
 
+def write_bytes(path: str | Path, content: bytes) -> None:
+    """Write a binary file (a Word or Excel report), or an OutputError (exit 2)."""
+    try:
+        Path(path).write_bytes(content)
+    except OSError as exc:
+        raise OutputError(f"cannot write {path}: {exc.strerror or exc}") from None
+
+
 def write_text(path: str | Path, text: str) -> None:
     """Write a report or recipe, or an OutputError (exit 2 on the command line)."""
     try:

@@ -53,7 +53,12 @@ def build_parser() -> argparse.ArgumentParser:
         help="replay a recipe saved by the app: its import options, roles, filters and settings "
         "(analysis options given here override the recipe's settings)",
     )
-    replay.add_argument("--report", metavar="OUT.html", help="write a self-contained HTML report")
+    replay.add_argument(
+        "--report",
+        metavar="OUT.html",
+        help="write the report: self-contained HTML (.html), one Word document with its figures "
+        "(.docx), or its tables as an Excel workbook (.xlsx)",
+    )
     analyze.set_defaults(run=run_analyze)
     return parser
 
@@ -427,7 +432,15 @@ def run_analyze(args: argparse.Namespace) -> int:
             filtered=filtered,
             warnings=warnings,
         )
-        write_text(args.report, html_text)
+        suffix = Path(args.report).suffix.lower()
+        if suffix in (".docx", ".xlsx"):
+            from app import exports_office
+            from app.batch import write_bytes
+
+            make = exports_office.report_docx if suffix == ".docx" else exports_office.report_xlsx
+            write_bytes(args.report, make(html_text))
+        else:
+            write_text(args.report, html_text)
         if args.json != "-":
             print(f"Report written to {args.report}")
     return 0

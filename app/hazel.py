@@ -54,6 +54,6 @@ pages = {
     "Share": [st.Page("views/share.py", title="Save and share", icon=":material/ios_share:")],
     "Help": pages["Help"],
 }
-current = st.navigation(pages)
+current = st.navigation(pages, expanded=True)  # every page in view (more than ten)
 ui.sidebar(pages["Data"][1])
 current.run()

@@ -402,12 +402,35 @@ def _report_download(column, recipe, table, run_analysis, report_builder) -> Non
     key = recipe.to_json()
     built = st.session_state.get(REPORT_HTML)
     if built is not None and built[0] == key:
+        from functools import partial
+
+        from app import exports_office
+
+        stem = f"{file_stem(table.source_name)}-report"
         column.download_button(
             "Download report (HTML)",
             built[1].encode("utf-8"),
-            file_name=f"{file_stem(table.source_name)}-report.html",
+            file_name=f"{stem}.html",
             mime="text/html",
             key="share_report_download",
+        )
+        column.download_button(
+            "Report as Word (.docx)",
+            partial(exports_office.report_docx, built[1]),
+            file_name=f"{stem}.docx",
+            mime=exports_office.DOCX_MIME,
+            key="share_report_docx_download",
+            on_click="ignore",
+            help="The same report as one Word document, its figures as pictures.",
+        )
+        column.download_button(
+            "Report tables (Excel)",
+            partial(exports_office.report_xlsx, built[1]),
+            file_name=f"{stem}-tables.xlsx",
+            mime=exports_office.XLSX_MIME,
+            key="share_report_xlsx_download",
+            on_click="ignore",
+            help="Every table of the report, one sheet each, rounded as in the report.",
         )
         return
     clicked = column.button(

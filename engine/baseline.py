@@ -97,10 +97,8 @@ class BaselineTable:
         the rows (a numeric column has no level), group sizes as values plus missing."""
         rows = tuple(BaselineRow(**{k: r[k] for k in ROW_KEYS}) for r in section["rows"])
         variables = tuple(dict.fromkeys(r.variable for r in rows))
-        kinds = {
-            v: "numeric" if any(r.variable == v and r.level is None for r in rows) else "categorical"
-            for v in variables
-        }
+        numeric = {r.variable for r in rows if r.level is None}
+        kinds = {v: "numeric" if v in numeric else "categorical" for v in variables}
         groups = tuple(dict.fromkeys(r.group for r in rows if r.group is not None))
         first = [r for r in rows if r.variable == variables[0]] if variables else []
         sizes = []

@@ -103,7 +103,7 @@ with ui.guard("The baseline table"):
         "count under all rows only."
     )
     shown = display_frame(result, labels=table.column_labels)
-    ui.table(result.to_frame(), "baseline-table", "baseline_table", shown=shown)
+    ui.table(result.to_frame(), "baseline-table", "baseline_table", shown=shown, manuscript=shown)
     if result.compare == "test":
         st.warning(TEST_CAUTION, icon=":material/warning:")
     elif result.compare == "smd":

@@ -80,7 +80,8 @@ def test_choices_change_the_table_and_the_caution_shows_for_tests(used):
     shown = _shown(at)
     row = shown[(shown["Variable"] == "load_kN") & (shown["Level"] == "mean (SD)")].iloc[0]
     values = used["load_kN"].dropna()
-    assert row[shown.columns[2]] == f"{format_number(values.mean())} ({format_number(values.std())})"
+    expected = f"{format_number(values.mean())} ({format_number(values.std())})"
+    assert row[shown.columns[2]] == expected
     at.selectbox(key="baseline_compare").set_value("A test per variable").run()
     assert not at.exception
     assert any(TEST_CAUTION in w.value for w in at.warning)

@@ -206,7 +206,8 @@ def test_run_analysis_adds_the_baseline_section(cohort):
     alone = run_analysis(prepared, {"baseline": {"group": False, "variables": ["score"]}}, cohort)
     assert alone["baseline"]["group"] is None
     assert {r["group"] for r in alone["baseline"]["rows"]} == {None}
-    by_stage = run_analysis(prepared, {"baseline": {"group": "stage", "variables": ["age"]}}, cohort)
+    chosen = {"baseline": {"group": "stage", "variables": ["age"]}}
+    by_stage = run_analysis(prepared, chosen, cohort)
     assert [r["group"] for r in by_stage["baseline"]["rows"]] == [None, "I", "II", "III"]
     # without covariates: every column without a role
     bare = prepare(cohort, Roles(time="weeks", event="died", group="arm"))
