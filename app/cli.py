@@ -103,6 +103,12 @@ def add_analysis_options(parser: argparse.ArgumentParser) -> None:
         "interest): cumulative incidence per cause and cause-specific Cox models",
     )
     more.add_argument(
+        "--fine-gray",
+        metavar="CAUSE",
+        help="Fine–Gray model of the cumulative incidence of CAUSE on the covariates (with "
+        "--competing; Gray's test per cause is added whenever there are groups)",
+    )
+    more.add_argument(
         "--parametric",
         action="store_true",
         help="exponential, Weibull, log-normal and log-logistic fits (AFT with --covariates)",
@@ -128,6 +134,24 @@ def add_analysis_options(parser: argparse.ArgumentParser) -> None:
         help="expected share of subjects with the event (default 1)",
     )
     more.add_argument("--events", type=float, help="power of this many events for --power-hr")
+    perf = parser.add_argument_group("prediction performance of the Cox model (with --covariates)")
+    perf.add_argument(
+        "--performance",
+        metavar="T1,T2",
+        help="Harrell's and Uno's C, time-dependent AUC and Brier score at these times, "
+        "integrated Brier score, calibration and the bootstrap correction for optimism",
+    )
+    perf.add_argument("--tau", type=float, help="Uno's C up to this time (default: the last)")
+    perf.add_argument(
+        "--calibration-time", type=float, metavar="T", help="calibration at T (default: T1)"
+    )
+    perf.add_argument(
+        "--risk-groups", type=int, help="groups of predicted risk for calibration (default 5)"
+    )
+    perf.add_argument(
+        "--bootstrap", type=int, metavar="B", help="bootstrap replicates (default 100; 0: none)"
+    )
+    perf.add_argument("--seed", type=int, help="seed of the bootstrap (default 20261202)")
     base = parser.add_argument_group("baseline table (each option switches it on)")
     base.add_argument(
         "--baseline",
@@ -289,11 +313,11 @@ def run_check(args: argparse.Namespace) -> int:
     return 0
 
 
-def _times(text: str) -> list[float]:
+def _times(text: str, option: str = "--times") -> list[float]:
     try:
         return [float(part) for part in _names(text)]
     except ValueError:
-        raise UsageError(f"--times expects numbers separated by commas, got {text!r}") from None
+        raise UsageError(f"{option} expects numbers separated by commas, got {text!r}") from None
 
 
 SETTING_OPTIONS = {
@@ -301,7 +325,15 @@ SETTING_OPTIONS = {
     "comparison": {"test": "test", "rho": "rho", "gamma": "gamma"},
     "cox": {"ties": "ties", "ph_transform": "ph_transform", "confidence": "confidence"},
     "parametric": {"horizon": "horizon", "times": "times"},
-    "competing": {"times": "times"},
+    "competing": {"times": "times", "fine_gray": "fine_gray"},
+    "performance": {
+        "times": "performance",
+        "tau": "tau",
+        "calibration_time": "calibration_time",
+        "risk_groups": "risk_groups",
+        "replicates": "bootstrap",
+        "seed": "seed",
+    },
     "landmark": {"time": "landmark", "test": "test"},
     "sample_size": {
         "hazard_ratio": "power_hr",
@@ -332,6 +364,7 @@ def settings_from_args(args: argparse.Namespace, base: dict | None = None) -> di
         "parametric": bool(getattr(args, "parametric", False)),
         "landmark": getattr(args, "landmark", None) is not None,
         "sample_size": getattr(args, "power_hr", None) is not None,
+        "performance": getattr(args, "performance", None) is not None,
         "baseline": any(
             getattr(args, option, None) not in (None, False)
             for option in ("baseline", *SETTING_OPTIONS["baseline"].values())
@@ -340,6 +373,11 @@ def settings_from_args(args: argparse.Namespace, base: dict | None = None) -> di
     for name, on in switched.items():
         if on and name not in settings:
             settings[name] = dict(ANALYSIS_DEFAULTS[name])
+    if getattr(args, "fine_gray", None) is not None and "competing" not in settings:
+        raise UsageError(
+            "--fine-gray needs causes: map the event values with --competing VALUE=CAUSE "
+            "(or replay a recipe that maps them)"
+        )
     for name, options in SETTING_OPTIONS.items():
         if name not in settings:
             continue
@@ -348,12 +386,16 @@ def settings_from_args(args: argparse.Namespace, base: dict | None = None) -> di
             if given is None:
                 continue
             if setting == "times":
-                given = _times(given)
+                given = _times(given, "--" + option.replace("_", "-"))
             elif name == "baseline" and setting == "variables":
                 given = list(_names(given))
             elif name == "baseline" and setting == "group" and given.strip().lower() == "none":
                 given = False
             settings[name][setting] = given
+    if "performance" in settings:
+        chosen = settings["performance"]
+        if chosen["replicates"] is not None and chosen["replicates"] < 0:
+            raise UsageError(f"--bootstrap must be 0 or more, got {chosen['replicates']}")
     confidence = settings["curves"]["confidence"]
     if not 0 < confidence < 1:
         raise UsageError(f"--confidence must lie between 0 and 1, got {confidence}")

@@ -98,6 +98,26 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
             )
         if competing["warning"]:
             lines.append(f"  Note: {competing['warning']}")
+        for row in competing.get("gray_test") or ():
+            lines.append(
+                f"  Gray's test, {row['cause']}: chi-square {row['statistic']:.2f} on "
+                f"{row['df']} df, p = {row['p_value']:.3g}"
+            )
+        fine_gray = competing.get("fine_gray")
+        if fine_gray:
+            lines.append(
+                f"Fine–Gray model of {fine_gray['cause']} ({fine_gray['n']} rows, "
+                f"{fine_gray['events']} events; robust standard errors):"
+            )
+            for term in fine_gray["terms"]:
+                label = term["variable"] + (
+                    f": {term['level']} vs {term['reference']}" if term["level"] else ""
+                )
+                lines.append(
+                    f"  {label:<32} subdistribution HR {_fmt(term['hazard_ratio'])} "
+                    f"({_fmt(term['lower'])} to {_fmt(term['upper'])}), "
+                    f"p = {_fmt(term['p_value'])}"
+                )
     parametric = sections.get("parametric")
     if parametric:
         lines.append("Parametric models by AIC (lower is better):")
@@ -141,4 +161,23 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
             + (", …" if len(variables) > 8 else "")
             + "); every row is in the JSON and the report"
         )
+    performance = sections.get("performance")
+    if performance:
+        lines.append(
+            f"Prediction performance: Harrell's C {_fmt(performance['harrell_c'])}, Uno's C "
+            f"{_fmt(performance['uno_c'])} (up to {performance['tau']:g} {unit}), integrated "
+            f"Brier score {_fmt(performance['integrated_brier'])} (Kaplan–Meier alone "
+            f"{_fmt(performance['integrated_brier_km'])})"
+        )
+        for t, auc, brier in zip(
+            performance["times"], performance["auc"], performance["brier"], strict=True
+        ):
+            lines.append(f"  at {t:g} {unit}: AUC {_fmt(auc)}, Brier score {_fmt(brier)}")
+        optimism = performance["optimism"]
+        if optimism:
+            lines.append(
+                f"  Optimism-corrected C {_fmt(optimism['c'])}, calibration slope "
+                f"{_fmt(optimism['slope'])} ({optimism['replicates']} bootstrap replicates, "
+                f"seed {optimism['seed']})"
+            )
     return lines

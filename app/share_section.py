@@ -124,6 +124,7 @@ INCLUDE_KEYS = {
     "sample_size": "power_include",
     "landmark": "landmark_include",
     "baseline": "baseline_include",
+    "performance": "perf_include",
 }
 
 

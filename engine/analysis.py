@@ -45,7 +45,14 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
         "reference": None,
     },
     # The analyses below run only when the settings name them (a recipe, --competing ...).
-    "competing": {"times": [], "by_group": True, "cause_specific_cox": True},
+    # gray_test: Gray's test per cause across the groups; fine_gray: a cause name (or None)
+    "competing": {
+        "times": [],
+        "by_group": True,
+        "cause_specific_cox": True,
+        "gray_test": True,
+        "fine_gray": None,
+    },
     "parametric": {
         "distributions": ["exponential", "weibull", "lognormal", "loglogistic"],
         "by_group": False,
@@ -63,6 +70,17 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
         "events": None,
     },
     "landmark": {"time": None, "test": "logrank"},
+    # performance of the Cox model: AUC and Brier score at times, tau of Uno's C (None: the
+    # largest time), calibration at a time (None: the first of times), bootstrap of optimism
+    # (replicates 0: none)
+    "performance": {
+        "times": [],
+        "tau": None,
+        "calibration_time": None,
+        "risk_groups": 5,
+        "replicates": 100,
+        "seed": 20261202,
+    },
     # group: None (the group role), False (all rows only) or a column; variables: None (the
     # covariates, or every column without a role when there are none) or a list; categorical:
     # numeric columns to describe by their levels (besides the roles' categorical covariates);
@@ -76,7 +94,9 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
     },
 }
 CORE_ANALYSES = ("curves", "comparison", "cox")  # always run (when the roles allow)
-OPTIONAL_ANALYSES = ("competing", "parametric", "sample_size", "landmark", "baseline")
+OPTIONAL_ANALYSES = (
+    "competing", "parametric", "sample_size", "landmark", "performance", "baseline",
+)  # fmt: skip
 
 
 def resolved_settings(settings: Mapping | None) -> dict[str, dict]:
@@ -161,6 +181,22 @@ def fit_cox_from_roles(
     )
 
 
+def fit_cox_from_settings(
+    prepared: PreparedData, cox: Mapping, source: pd.DataFrame | None = None, **options
+):
+    """The Cox model of resolved ``"cox"`` settings (the model the Regression page shows)."""
+    return fit_cox_from_roles(
+        prepared,
+        ties=cox["ties"],
+        confidence=cox["confidence"],
+        covariates=cox["covariates"],
+        strata=cox["strata"],
+        reference=cox["reference"],
+        source=source,
+        **options,
+    )
+
+
 def comparison_frame(
     prepared: PreparedData, *, cut=None, strata=None, source: pd.DataFrame | None = None
 ) -> pd.DataFrame | None:
@@ -232,15 +268,7 @@ def run_analysis(
     }
     model = prepared.roles.covariates if cox["covariates"] is None else cox["covariates"]
     if prepared.roles.covariates and model:
-        result = fit_cox_from_roles(
-            prepared,
-            ties=cox["ties"],
-            confidence=cox["confidence"],
-            covariates=cox["covariates"],
-            strata=cox["strata"],
-            reference=cox["reference"],
-            source=source,
-        )
+        result = fit_cox_from_settings(prepared, cox, source=source)
         sections["cox"] = cox_json(result, proportional_hazards_test(result, cox["ph_transform"]))
     from engine.analysis_extra import extra_sections  # the optional analyses
 
