@@ -93,3 +93,30 @@ def test_pages_show_labels_and_codes_of_an_uploaded_sav(files):
     arm = shown[shown["column"] == "arm"]
     assert arm["code"].tolist() == ["1", "2"]
     assert arm["label"].tolist() == ["standard", "new drug"]
+
+
+def test_a_recipe_made_on_a_sav_file_replays_without_differences(files, tmp_path):
+    from engine.filters import RowFilter
+    from engine.io import read_table
+    from engine.recipe import make_recipe
+
+    table = read_table(files["sav"])
+    roles = Roles(time="weeks", unit="weeks", event="status", event_values=("relapsed",))
+    recipe = make_recipe(
+        table,
+        roles,
+        {"curves": {"times": [12]}, "baseline": {"group": "arm", "variables": ["sex", "age"]}},
+        filters=(RowFilter("sex", "in", ("female",)),),
+    )
+    assert recipe.fingerprint.sha256 == table.sha256 and recipe.fingerprint.rows == 60
+    path = tmp_path / "trial.recipe.json"
+    path.write_text(recipe.to_json(), encoding="utf-8")
+    done = run("analyze", str(files["sav"]), "--recipe", str(path), "--json", "-")
+    assert done.returncode == 0, done.stderr
+    assert "warning:" not in done.stderr  # same file, same fingerprint
+    result = json.loads(done.stdout)
+    females = int((table.frame["sex"] == "female").sum())
+    assert result["data"]["rows_read"] == females
+    assert result["filters"]["rows_kept"] == females
+    sexes = {r["level"] for r in result["baseline"]["rows"] if r["variable"] == "sex"}
+    assert sexes == {"female"}
