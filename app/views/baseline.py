@@ -30,7 +30,7 @@ def named(column) -> str:
 
 
 defaults = baseline_columns(prepared, source)
-top = st.columns([2, 2, 2, 1])
+top = st.columns([2, 2, 2, 2])
 group_options = [share_section.BASELINE_ALL_ROWS, *columns]
 ui.remember_choice("baseline_group", group_options, roles.group or share_section.BASELINE_ALL_ROWS)
 group = top[0].selectbox(
@@ -98,7 +98,12 @@ with ui.guard("The baseline table"):
     result = compute_beyond.baseline(table.sha256, data.roles_key(roles), settings_text, table)
     st.caption(
         f"{len(prepared.frame):,} rows"
-        + (f" in {len(result.groups)} groups of {ui.escape(named(group))}" if result.group else "")
+        + (
+            f" in {len(result.groups)} group{'s' if len(result.groups) != 1 else ''} of "
+            f"{ui.escape(named(group))}"
+            if result.group
+            else ""
+        )
         + ". Percentages are of the non-missing values in each group; rows without a group "
         "count under all rows only."
     )
