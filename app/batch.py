@@ -508,7 +508,16 @@ def report_from_json_and_results(
         filters=filtered.to_dict()["excluded"] if filtered is not None else (),
         warnings=warnings,
         software=software_versions(),
+        column_labels=imported.column_labels if imported is not None else None,
     )
+
+
+def write_bytes(path: str | Path, content: bytes) -> None:
+    """Write a binary file (a Word or Excel report), or an OutputError (exit 2)."""
+    try:
+        Path(path).write_bytes(content)
+    except OSError as exc:
+        raise OutputError(f"cannot write {path}: {exc.strerror or exc}") from None
 
 
 def write_text(path: str | Path, text: str) -> None:

@@ -57,7 +57,12 @@ def build_parser() -> argparse.ArgumentParser:
         help="replay a recipe saved by the app: its import options, roles, filters and settings "
         "(analysis options given here override the recipe's settings)",
     )
-    replay.add_argument("--report", metavar="OUT.html", help="write a self-contained HTML report")
+    replay.add_argument(
+        "--report",
+        metavar="OUT.html",
+        help="write the report: self-contained HTML (.html), one Word document with its figures "
+        "(.docx), or its tables as an Excel workbook (.xlsx)",
+    )
     analyze.set_defaults(run=run_analyze)
     return parser
 
@@ -188,11 +193,44 @@ def add_analysis_options(parser: argparse.ArgumentParser) -> None:
         "--bootstrap", type=int, metavar="B", help="bootstrap replicates (default 100; 0: none)"
     )
     perf.add_argument("--seed", type=int, help="seed of the bootstrap (default 20261202)")
+    base = parser.add_argument_group("baseline table (each option switches it on)")
+    base.add_argument(
+        "--baseline",
+        action="store_true",
+        help="baseline table by group: counts and percentages, medians (quartiles) or means (SD), "
+        "missing per column",
+    )
+    base.add_argument(
+        "--baseline-group",
+        metavar="COL",
+        help="column whose groups the table compares (default: --group; 'none' for all rows only)",
+    )
+    base.add_argument(
+        "--baseline-variables",
+        metavar="A,B",
+        help="columns to describe (default: the covariates, else every column without a role)",
+    )
+    base.add_argument(
+        "--baseline-summary",
+        choices=("median", "mean"),
+        help="numeric columns as median (quartiles) or mean (SD) (default median)",
+    )
+    base.add_argument(
+        "--baseline-compare",
+        choices=("smd", "test"),
+        help="add standardised differences (Austin 2009) or a test per column (not advised "
+        "for randomised trials)",
+    )
 
 
 def add_role_options(parser: argparse.ArgumentParser) -> None:
     """The data file, import options, role options and ``--json``; shared by every subcommand."""
-    parser.add_argument("data", metavar="DATA", help="CSV/TSV/semicolon/pipe, .xlsx or .parquet")
+    parser.add_argument(
+        "data",
+        metavar="DATA",
+        help="CSV/TSV/semicolon/pipe, .xlsx, .parquet, SPSS .sav/.zsav, Stata .dta, SAS "
+        ".sas7bdat/.xpt",
+    )
     read = parser.add_argument_group("reading the file")
     read.add_argument("--sep", help="column separator (default: detected); use '\\t' for tab")
     read.add_argument("--decimal", help="decimal mark, '.' or ',' (default: detected)")
@@ -367,6 +405,12 @@ SETTING_OPTIONS = {
         "event_probability": "event_probability",
         "events": "events",
     },
+    "baseline": {
+        "group": "baseline_group",
+        "variables": "baseline_variables",
+        "summary": "baseline_summary",
+        "compare": "baseline_compare",
+    },
 }
 
 
@@ -384,6 +428,10 @@ def settings_from_args(args: argparse.Namespace, base: dict | None = None) -> di
         "sample_size": getattr(args, "power_hr", None) is not None,
         "subgroups": bool(getattr(args, "subgroups", None)),
         "performance": getattr(args, "performance", None) is not None,
+        "baseline": any(
+            getattr(args, option, None) not in (None, False)
+            for option in ("baseline", *SETTING_OPTIONS["baseline"].values())
+        ),
     }
     for name, on in switched.items():
         if on and name not in settings:
@@ -399,7 +447,14 @@ def settings_from_args(args: argparse.Namespace, base: dict | None = None) -> di
             if given is None:
                 continue
             flag = "--" + option.replace("_", "-")
-            value = _times(given, flag) if setting == "times" else given
+            if setting == "times":
+                value = _times(given, flag)
+            elif name == "baseline" and setting == "variables":
+                value = list(_names(given))
+            elif name == "baseline" and setting == "group" and given.strip().lower() == "none":
+                value = False
+            else:
+                value = given
             # the recipe schema's range for the setting, named by the option
             check_setting(name, setting, value, flag)
             if name in settings:
@@ -519,7 +574,15 @@ def run_analyze(args: argparse.Namespace) -> int:
             filtered=filtered,
             warnings=warnings,
         )
-        write_text(args.report, html_text)
+        suffix = Path(args.report).suffix.lower()
+        if suffix in (".docx", ".xlsx"):
+            from app import exports_office
+            from app.batch import write_bytes
+
+            make = exports_office.report_docx if suffix == ".docx" else exports_office.report_xlsx
+            write_bytes(args.report, make(html_text))
+        else:
+            write_text(args.report, html_text)
         if args.json != "-":
             show(f"Report written to {args.report}")
     return 0

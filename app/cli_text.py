@@ -225,6 +225,15 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
         comparison = landmark["comparison"]
         if comparison is not None:
             lines.append("  After the landmark: " + _test_sentence(comparison))
+    baseline = sections.get("baseline")
+    if baseline:
+        variables = list(dict.fromkeys(row["variable"] for row in baseline["rows"]))
+        by = f" by {baseline['group']}" if baseline["group"] else ""
+        lines.append(
+            f"Baseline table{by}: {len(variables)} column(s) ({', '.join(variables[:8])}"
+            + (", …" if len(variables) > 8 else "")
+            + "); every row is in the JSON and the report"
+        )
     performance = sections.get("performance")
     if performance:
         lines += [

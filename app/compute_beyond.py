@@ -137,3 +137,17 @@ def landmark_comparison(
     if "_group" not in frame.columns or frame["_group"].nunique(dropna=True) < 2:
         return None
     return compare_frame(frame, test=test, rho=rho, gamma=gamma)
+
+
+@st.cache_resource(max_entries=8, show_spinner="Building the baseline table…")
+def baseline(fingerprint: str, roles_text: str, settings_text: str, _table: ImportedTable):
+    """The baseline table (``engine.baseline.BaselineTable``) of the prepared rows, describing the
+    columns as read; ``settings_text`` is the JSON of the page's baseline settings."""
+    import json
+
+    from app import data
+    from engine.analysis_extra import baseline_table_from_settings
+    from engine.roles import Roles
+
+    prepared = data.prepared(_table, Roles.from_dict(json.loads(roles_text)))
+    return baseline_table_from_settings(prepared, json.loads(settings_text), _table.frame)

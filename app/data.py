@@ -111,7 +111,10 @@ def install_table(session: MutableMapping, table: ImportedTable, label: str, is_
     session[state.ROLES_CONFIRMED] = False  # applied at once, flagged until someone checks them
     session[state.DATA_VERSION] = session.get(state.DATA_VERSION, 0) + 1
     session.pop(state.LOAD_ERROR, None)
-    state.clear_page_choices(session, ("roles_", "curves_", "compare_", "model_"))
+    from app.row_filters import forget_filters
+
+    forget_filters(session)  # filters chose rows of the previous table
+    state.clear_page_choices(session, ("roles_", "curves_", "compare_", "model_", "filter_"))
 
 
 def open_demo(session: MutableMapping, path: Path) -> None:

@@ -32,6 +32,7 @@ pages = {
             "views/data_import.py", title="Data import", icon=":material/upload_file:", default=True
         ),
         st.Page("views/column_roles.py", title="Column roles", icon=":material/view_column:"),
+        st.Page("views/row_filters.py", title="Row filters", icon=":material/filter_alt:"),
     ],
     "Analyses": [
         st.Page("views/curves.py", title="Curves", icon=":material/show_chart:"),
@@ -48,10 +49,11 @@ pages = {
         st.Page("views/parametric.py", title="Parametric models", icon=":material/functions:"),
         st.Page("views/landmark.py", title="Landmark analysis", icon=":material/flag:"),
         st.Page("views/sample_size.py", title="Sample size and power", icon=":material/calculate:"),
+        st.Page("views/baseline.py", title="Baseline table", icon=":material/table_chart:"),
     ],
     "Share": [st.Page("views/share.py", title="Save and share", icon=":material/ios_share:")],
     "Help": pages["Help"],
 }
-current = st.navigation(pages)
+current = st.navigation(pages, expanded=True)  # every page in view (more than ten)
 ui.sidebar(pages["Data"][1])
 current.run()

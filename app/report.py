@@ -17,6 +17,7 @@ from __future__ import annotations
 import datetime as dt
 from collections.abc import Mapping, Sequence
 
+from app.report_baseline import baseline_section
 from app.report_html import bullets, escape
 from app.report_sections import (
     comparison_section,
@@ -169,6 +170,7 @@ def build_report(
     warnings: Sequence[str] = (),
     software: Mapping[str, str] | None = None,
     generated: dt.datetime | None = None,
+    column_labels: Mapping[str, str] | None = None,
 ) -> str:
     """The report as one HTML document (a string).
 
@@ -179,7 +181,8 @@ def build_report(
     ``"forest"`` as Altair charts, Vega-Lite dicts or SVG text; ``fingerprint`` is
     ``ImportedTable.fingerprint()`` plus ``file_name``; ``filters`` is
     ``FilterOutcome.to_dict()["excluded"]``; ``warnings`` are extra warnings such as
-    fingerprint differences from a replayed recipe.
+    fingerprint differences from a replayed recipe; ``column_labels`` the variable labels of an
+    SPSS, Stata or SAS file, shown beside the column names.
     """
     figures = dict(figures or {})
     software = dict(software or software_versions())
@@ -204,7 +207,8 @@ def build_report(
         bullets(CAUTIONS),
         "</section>",
         data_section(data, fingerprint, filters) if data else "",
-        roles_section(roles),
+        roles_section(roles, column_labels),
+        baseline_section(results.get("baseline"), settings, column_labels),
         curves_section(results.get("curves") or [], unit, confidence, figures.get("curves"), event),
         comparison_section(results.get("comparison"), results.get("pairwise")),
         cox_section(cox, confidence, figures.get("forest")),

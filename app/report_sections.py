@@ -107,9 +107,19 @@ def data_section(data: Mapping, fingerprint: Mapping | None, filters: Sequence[M
     return "\n".join(parts)
 
 
-def roles_section(roles: Mapping | None) -> str:
+LABELLED_ROLES = ("time", "start", "end", "event", "group", "covariates", "strata", "entry", "id")
+
+
+def roles_section(roles: Mapping | None, column_labels: Mapping[str, str] | None = None) -> str:
+    """The roles; a column's variable label (SPSS, Stata or SAS files) in brackets after it."""
     if not roles:
         return ""
+    labels = dict(column_labels or {})
+
+    def named(column) -> str:
+        label = labels.get(str(column))
+        return f"{column} ({label})" if label else str(column)
+
     rows = []
     for key, words in ROLE_WORDS:
         value = roles.get(key)
@@ -117,8 +127,12 @@ def roles_section(roles: Mapping | None) -> str:
             continue
         if key == "reference":
             value = ", ".join(f"{column} = {level}" for column, level in value)
+        elif key in LABELLED_ROLES and isinstance(value, list | tuple):
+            value = ", ".join(named(v) for v in value)
         elif isinstance(value, list | tuple):
             value = ", ".join(str(v) for v in value)
+        elif key in LABELLED_ROLES:
+            value = named(value)
         rows.append([cell(words), cell(value)])
     return "<h2>Column roles</h2>\n" + table(["Role", "Column or value"], rows)
 

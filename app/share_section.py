@@ -108,6 +108,15 @@ def _restore_page_choices(session: MutableMapping, roles: Roles, settings: dict)
         session[REFERENCE_PREFIX + str(column)] = str(level)
 
 
+# The baseline table page's labels (value -> label).
+BASELINE_ALL_ROWS = "(all rows, no groups)"
+BASELINE_SUMMARIES = {"median": "Median (quartiles)", "mean": "Mean (SD)"}
+BASELINE_COMPARISONS = {
+    None: "Nothing more",
+    "smd": "Standardised differences",
+    "test": "A test per variable",
+}
+
 # An optional analysis goes into the recipe (and the report) while its page's switch is on.
 INCLUDE_KEYS = {
     "competing": "cr_include",
@@ -115,6 +124,7 @@ INCLUDE_KEYS = {
     "sample_size": "power_include",
     "landmark": "landmark_include",
     "subgroups": "effects_subgroups_include",
+    "baseline": "baseline_include",
     "performance": "perf_include",
 }
 
@@ -205,6 +215,11 @@ WIDGETS = (
     Widget("landmark", "test", "landmark_test", _same, _same),
     Widget("landmark", "rho", "landmark_rho", float, float),
     Widget("landmark", "gamma", "landmark_gamma", float, float),
+    Widget("baseline", "group", "baseline_group", *_labelled({False: BASELINE_ALL_ROWS})),
+    Widget("baseline", "variables", "baseline_variables", list, list),
+    Widget("baseline", "categorical", "baseline_categorical", list, list),
+    Widget("baseline", "summary", "baseline_summary", *_labelled(BASELINE_SUMMARIES)),
+    Widget("baseline", "compare", "baseline_compare", *_labelled(BASELINE_COMPARISONS)),
 )
 
 
@@ -245,10 +260,17 @@ def source_table(session: MutableMapping):
 
 def filtered_table(table, filters):
     """``table`` with only the rows the filters keep, under a fingerprint of its own (so every
-    cached result of the pages is keyed on the filtered rows), or ``table`` without filters."""
+    cached result of the pages is keyed on the filtered rows), or ``table`` without filters.
+    Filters that keep no row are refused (a HazelError), so no page sees an empty table."""
     if not filters:
         return table
     outcome = apply_filters(table.frame, filters)
+    if len(outcome.frame) == 0:
+        steps = "; ".join(f"{text}: {rows:,} removed" for text, rows in outcome.excluded)
+        raise HazelError(
+            f"These filters would remove every row ({steps}), so they were not applied. "
+            "Widen the last filter or remove one."
+        )
     key = json.dumps([f.to_dict() for f in filters], sort_keys=True, default=str)
     digest = hashlib.sha256(key.encode("utf-8")).hexdigest()[:16]
     return replace(table, frame=outcome.frame, sha256=f"{table.sha256}:filters:{digest}")
@@ -292,11 +314,12 @@ def restore_recipe(session: MutableMapping, recipe: Recipe) -> list[str]:
             + ". Open the file the recipe was made for."
         )
     warnings = check_fingerprint(recipe, table) + import_option_differences(recipe, table)
+    in_use = filtered_table(table, recipe.filters)  # refused before anything changes
     state.clear_page_choices(session, PAGE_PREFIXES)
     session[state.ROLES] = roles
     session[state.ROLES_CONFIRMED] = True  # the recipe's roles were chosen by a person
     session[FILTERS] = tuple(recipe.filters)
-    in_use = session[state.TABLE] = filtered_table(table, recipe.filters)
+    session[state.TABLE] = in_use
     if in_use is table:
         if SOURCE_TABLE in session:  # (AppTest's session state has no pop)
             del session[SOURCE_TABLE]
@@ -315,6 +338,7 @@ def restore_recipe(session: MutableMapping, recipe: Recipe) -> list[str]:
 
 PAGE_PREFIXES = (
     "roles_", "curves_", "compare_", "model_", "cr_", "param_", "power_", "landmark_", "effects_",
+    "baseline_",
 )  # fmt: skip
 
 
@@ -384,12 +408,35 @@ def _report_download(column, recipe, table, run_analysis, report_builder) -> Non
     key = recipe.to_json()
     built = st.session_state.get(REPORT_HTML)
     if built is not None and built[0] == key:
+        from functools import partial
+
+        from app import exports_office
+
+        stem = f"{file_stem(table.source_name)}-report"
         column.download_button(
             "Download report (HTML)",
             built[1].encode("utf-8"),
-            file_name=f"{file_stem(table.source_name)}-report.html",
+            file_name=f"{stem}.html",
             mime="text/html",
             key="share_report_download",
+        )
+        column.download_button(
+            "Report as Word (.docx)",
+            partial(exports_office.report_docx, built[1]),
+            file_name=f"{stem}.docx",
+            mime=exports_office.DOCX_MIME,
+            key="share_report_docx_download",
+            on_click="ignore",
+            help="The same report as one Word document, its figures as pictures.",
+        )
+        column.download_button(
+            "Report tables (Excel)",
+            partial(exports_office.report_xlsx, built[1]),
+            file_name=f"{stem}-tables.xlsx",
+            mime=exports_office.XLSX_MIME,
+            key="share_report_xlsx_download",
+            on_click="ignore",
+            help="Every table of the report, one sheet each, rounded as in the report.",
         )
         return
     clicked = column.button(

@@ -92,10 +92,12 @@ def figure(chart: alt.TopLevelMixin, style: charts.ChartStyle, name: str, key: s
     _download(svg, "svg", partial(exports.figure_svg, finished), stem, svg_mime, key, svg_help)
 
 
-def _download(where, kind: str, make, stem: str, mime: str, key: str, help_text: str) -> None:
+def _download(
+    where, kind: str, make, stem: str, mime: str, key: str, help_text: str, label: str = ""
+) -> None:
     """A download button in ``where`` whose file ``make()`` builds only when it is clicked."""
     where.download_button(
-        kind.upper(),
+        label or kind.upper(),
         data=make,
         file_name=f"{stem}.{kind}",
         mime=mime,
@@ -113,17 +115,32 @@ def table(
     *,
     shown: pd.DataFrame | None = None,
     column_config: dict | None = None,
+    manuscript: pd.DataFrame | None = None,
 ) -> None:
-    """Show a table (``shown`` may be a rounded view) and offer the exact values as CSV."""
+    """Show a table (``shown`` may be a rounded view) and offer the exact values as CSV, and
+    the table rounded for a manuscript as an Excel sheet and a Word table (``manuscript``: a
+    page's own worded table, else ``frame`` rounded by ``engine.manuscript_tables``)."""
+    from app import exports_office
+
     st.dataframe(
         visible_frame(frame if shown is None else shown),
         hide_index=True,
         column_config=column_config,
         width="stretch",
     )
-    csv_help = "Every exact value, safe to open in a spreadsheet."
     stem = exports.file_stem(name)
-    _download(st, "csv", partial(exports.table_csv, frame), stem, "text/csv", key, csv_help)
+    title = name.replace("-", " ").capitalize()
+    csv, xlsx, docx, _ = st.columns([1, 1, 1, 5])
+    csv_help = "Every exact value, safe to open in a spreadsheet."
+    _download(csv, "csv", partial(exports.table_csv, frame), stem, "text/csv", key, csv_help)
+    make_xlsx = partial(exports_office.table_xlsx, frame, title, manuscript)
+    xlsx_help = "Rounded as in a manuscript on the first sheet; every exact value on the second."
+    mime = exports_office.XLSX_MIME
+    _download(xlsx, "xlsx", make_xlsx, stem, mime, key, xlsx_help, label="Excel")
+    make_docx = partial(exports_office.table_docx, frame, title, manuscript)
+    docx_help = "A Word table rounded by the rules of the manuscript sentences."
+    mime = exports_office.DOCX_MIME
+    _download(docx, "docx", make_docx, stem, mime, key, docx_help, label="Word")
 
 
 @contextlib.contextmanager
@@ -263,6 +280,32 @@ def sidebar(roles_page) -> None:
                 st.caption(f"{len(report.warnings)} data warning(s)")
         st.page_link(roles_page, label="Data-quality report", icon=":material/fact_check:")
         st.caption("Data stays on this computer. For research and exploration only.")
+
+
+def column_title(column, labels) -> str:
+    """``column`` with its variable label (``ImportedTable.column_labels``) beside it."""
+    label = (labels or {}).get(str(column), "")
+    return f"{column} — {label}" if label else str(column)
+
+
+def value_label_frame(table) -> pd.DataFrame:
+    """The value labels of a statistical-package file: column, code, label, and whether the
+    column shows the labels (every value present labelled) or keeps its codes."""
+    rows = []
+    for column, pairs in table.value_labels.items():
+        shown = column in table.frame.columns and not pd.api.types.is_numeric_dtype(
+            table.frame[column]
+        )
+        for code, label in pairs:
+            rows.append(
+                {
+                    "column": column,
+                    "code": code,
+                    "label": label,
+                    "shown as": "label" if shown else "code",
+                }
+            )
+    return pd.DataFrame(rows, columns=["column", "code", "label", "shown as"])
 
 
 def remember(key: str, value) -> None:

@@ -90,10 +90,21 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
         "replicates": 100,
         "seed": 20261202,
     },
+    # group: None (the group role), False (all rows only) or a column; variables: None (the
+    # covariates, or every column without a role when there are none) or a list; categorical:
+    # numeric columns to describe by their levels (besides the roles' categorical covariates);
+    # summary: "median" (quartiles) or "mean" (SD); compare: None, "smd" or "test"
+    "baseline": {
+        "group": None,
+        "variables": None,
+        "categorical": [],
+        "summary": "median",
+        "compare": None,
+    },
 }
 CORE_ANALYSES = ("curves", "comparison", "cox")  # always run (when the roles allow)
 OPTIONAL_ANALYSES = (
-    "competing", "parametric", "sample_size", "landmark", "performance", "subgroups",
+    "competing", "parametric", "sample_size", "landmark", "performance", "subgroups", "baseline",
 )  # fmt: skip
 
 

@@ -9,6 +9,7 @@ from collections.abc import Mapping
 from dataclasses import replace
 
 import numpy as np
+import pandas as pd
 
 from engine.checks import PreparedData
 from engine.errors import AnalysisError
@@ -17,7 +18,8 @@ from engine.json_values import frame_records, json_value
 
 def extra_sections(prepared: PreparedData, settings: Mapping[str, dict], source=None) -> dict:
     """A section per optional analysis present in ``settings`` (already resolved); ``source``
-    is the frame ``prepare`` was given (a subgroup column may come from it)."""
+    is the frame ``prepare`` was given (a subgroup column may come from it;
+    the baseline table describes its columns as read)."""
     makers = {
         "competing": competing_section,
         "parametric": parametric_section,
@@ -25,6 +27,7 @@ def extra_sections(prepared: PreparedData, settings: Mapping[str, dict], source=
         "landmark": landmark_section,
         "performance": performance_section,
         "subgroups": lambda prepared, chosen: subgroups_section(prepared, chosen, source),
+        "baseline": lambda prepared, chosen: baseline_section(prepared, chosen, source),
     }
     confidence = settings["curves"]["confidence"]
     out = {}
@@ -295,3 +298,59 @@ def subgroups_section(prepared: PreparedData, chosen: Mapping, source=None) -> d
         variance=cox["variance"],
     )
     return result.to_dict()
+
+
+def baseline_columns(prepared: PreparedData, source) -> list[str]:
+    """The columns a baseline table describes by default: the covariates, or, without any,
+    every column of the file that has no role and holds no dates."""
+    roles = prepared.roles
+    if roles.covariates:
+        return list(roles.covariates)
+    frame = source if source is not None else prepared.frame
+    taken = {
+        roles.time, roles.start, roles.end, roles.event, roles.group, roles.strata, roles.entry,
+        roles.id,
+    }  # fmt: skip
+    return [
+        str(c)
+        for c in frame.columns
+        if str(c) not in taken
+        and not str(c).startswith("_")
+        and not pd.api.types.is_datetime64_any_dtype(frame[c])
+    ]
+
+
+def baseline_table_from_settings(prepared: PreparedData, chosen: Mapping, source=None):
+    """The ``engine.baseline.BaselineTable`` the settings describe, on the prepared rows."""
+    from engine.analysis import source_column
+    from engine.baseline import baseline_table
+
+    variables = chosen.get("variables")
+    variables = baseline_columns(prepared, source) if variables is None else list(variables)
+    values = pd.DataFrame(
+        {str(v): source_column(prepared, source, str(v)).to_numpy() for v in variables},
+        index=prepared.frame.index,
+    )
+    group, group_name = chosen.get("group"), None
+    if group is None and "_group" in prepared.frame.columns:
+        groups, group_name = prepared.frame["_group"], prepared.roles.group
+    elif group in (None, False, ""):
+        groups = None
+    else:
+        groups = source_column(prepared, source, str(group))
+        groups = pd.Series(groups.to_numpy(), index=prepared.frame.index)
+        group_name = str(group)
+    categorical = {*prepared.roles.categorical, *(chosen.get("categorical") or ())}
+    return baseline_table(
+        values,
+        groups,
+        group_name=group_name,
+        categorical=sorted(categorical),
+        summary=chosen.get("summary", "median"),
+        compare=chosen.get("compare"),
+    )
+
+
+def baseline_section(prepared: PreparedData, chosen: Mapping, source=None) -> dict:
+    """``{"group": column or None, "rows": [...]}`` (and ``balance`` when asked for)."""
+    return baseline_table_from_settings(prepared, chosen, source).to_dict()

@@ -22,6 +22,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from engine.errors import FileReadError, FileTooLargeError, preview_values
+from engine.io_stats import HEAD_BYTES, detect_stats_format, read_stats
 from engine.io_text import (
     check_columns,
     check_duplicates,
@@ -77,6 +78,14 @@ class ImportedTable:
     notes: tuple[str, ...] = field(default_factory=tuple)
     # Lines skipped for having the wrong number of fields; `prepare` counts them as excluded rows.
     malformed_lines: tuple[str, ...] = field(default_factory=tuple)
+    # From statistical-package files (engine.io_stats): variable labels by column, and the value
+    # labels as stored in the file (column -> ((code, label), ...)).
+    column_labels: dict[str, str] = field(default_factory=dict)
+    value_labels: dict[str, tuple[tuple[str, str], ...]] = field(default_factory=dict)
+
+    def label_of(self, column) -> str:
+        """The variable label a statistical-package file gave ``column`` ('' if none)."""
+        return self.column_labels.get(str(column), "")
 
     def fingerprint(self) -> dict:
         """Identify the data a result was computed from (for recipes and reports)."""
@@ -100,12 +109,16 @@ class ImportedTable:
 def read_table(
     source: str | Path | bytes, options: ImportOptions | None = None, *, name: str | None = None
 ) -> ImportedTable:
-    """Read CSV/TSV/semicolon/pipe text, Excel .xlsx or Parquet into an ``ImportedTable``."""
+    """Read CSV/TSV/semicolon/pipe text, Excel .xlsx, Parquet, or an SPSS, Stata or SAS file
+    (``engine.io_stats``) into an ``ImportedTable``."""
     options = options or ImportOptions()
     path, data = _open_source(source, options.max_bytes)
     source_name = name or (path.name if path is not None else "uploaded file")
-    head = data[:16] if data is not None else read_head(path, 16)
-    file_format = _detect_format(source_name, head)
+    head = data[:HEAD_BYTES] if data is not None else read_head(path, HEAD_BYTES)
+    stats_format, stats_notes = detect_stats_format(source_name, head)
+    if stats_format is not None:
+        return _read_stats_table(path, data, options, source_name, stats_format, stats_notes)
+    file_format = _detect_format(source_name, head[:16])
     # hashlib releases the GIL, so the fingerprint is computed while the file is parsed.
     with ThreadPoolExecutor(max_workers=1) as pool:
         sha256 = pool.submit(_sha256, path, data)
@@ -323,6 +336,36 @@ def _index_as_columns(frame: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
         else []
     )
     return frame, notes
+
+
+def _read_stats_table(path, data, options: ImportOptions, name: str, file_format: str, notes):
+    """An SPSS, Stata or SAS file: the same checks and fingerprint as any other reader."""
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        sha256 = pool.submit(_sha256, path, data)
+        read = read_stats(path, data, file_format, options.encoding, options.missing_tokens, name)
+        sha256 = sha256.result()
+    frame = read.frame
+    check_columns(frame, name)
+    if len(frame) == 0:
+        raise FileReadError(
+            f"{name} has variables ({preview_values(frame.columns)}) but no data rows. "
+            "Check that the file is complete."
+        )
+    used = ImportOptions(
+        encoding=options.encoding,
+        missing_tokens=options.missing_tokens,
+        max_bytes=options.max_bytes,
+    )
+    return ImportedTable(
+        frame=frame,
+        source_name=name,
+        file_format=file_format,
+        options=used,
+        sha256=sha256,
+        notes=tuple(notes) + read.notes,
+        column_labels=read.column_labels,
+        value_labels=read.value_labels,
+    )
 
 
 # --- after any reader -----------------------------------------------------------------------------

@@ -52,10 +52,15 @@ def optional(column: str | None) -> str:
     return column if column in columns else NONE
 
 
+def named(column: str) -> str:
+    """A column with its variable label from an SPSS, Stata or SAS file beside it."""
+    return ui.column_title(column, table.column_labels)
+
+
 def column_choice(where, label: str, key: str, column: str | None, **options) -> str:
     """A column picker with a "none" choice, pre-filled with the role's column."""
     default(key, optional(column))
-    return where.selectbox(label, [NONE, *columns], key=key, **options)
+    return where.selectbox(label, [NONE, *columns], key=key, format_func=named, **options)
 
 
 def chosen(key: str) -> str | None:
@@ -85,6 +90,14 @@ if st.session_state.get(state.ROLES_PRESET):
         "are noted under each choice.",
         icon=":material/science:",
     )
+
+if table.value_labels:
+    with st.expander("Codes and their value labels, as stored in the file"):
+        st.caption(
+            "The file gave these codes names (value labels). Where every value of a column has "
+            "a name, Hazel shows the names instead of the codes; otherwise the codes are kept."
+        )
+        ui.table(ui.value_label_frame(table), "value-labels", "roles_value_labels")
 
 # --- time -----------------------------------------------------------------------------------
 
@@ -235,7 +248,10 @@ with st.container(border=True):
         c for c in st.session_state["roles_covariates"] if c in candidates
     ]
     covariates = st.multiselect(
-        "Covariates (for the Regression page)", candidates, key="roles_covariates"
+        "Covariates (for the Regression page)",
+        candidates,
+        key="roles_covariates",
+        format_func=named,
     )
     if suggested is not None and suggested.covariates:
         st.caption(
@@ -253,7 +269,7 @@ with st.container(border=True):
         for column in covariates:
             kind = covariate_kind(frame[column])
             row = st.columns([2, 2, 3])
-            row[0].markdown(ui.escape(column))
+            row[0].markdown(ui.escape(named(column)))
             kind_key = f"roles_kind_{column}"
             default(
                 kind_key,

@@ -44,8 +44,9 @@ left, right = st.columns(2, gap="large")
 with left:
     st.subheader("Upload your file", anchor=False)
     upload = st.file_uploader(
-        "CSV, TSV, Excel (.xlsx) or Parquet",
-        type=["csv", "tsv", "txt", "xlsx", "parquet"],
+        "CSV, TSV, Excel (.xlsx), Parquet, SPSS (.sav, .zsav), Stata (.dta) or SAS "
+        "(.sas7bdat, .xpt)",
+        type=["csv", "tsv", "txt", "xlsx", "parquet", "sav", "zsav", "dta", "sas7bdat", "xpt"],
         key="import_file_upload",
         help="The file is read on this computer and never sent anywhere.",
     )
@@ -173,12 +174,15 @@ st.dataframe(frame.head(200), hide_index=True, height=280)
 
 
 @st.cache_data(max_entries=4, show_spinner=False)
-def column_overview(fingerprint: str, _frame: pd.DataFrame) -> pd.DataFrame:
-    return column_profile(_frame)
+def column_overview(fingerprint: str, _frame: pd.DataFrame, labels: dict) -> pd.DataFrame:
+    profile = column_profile(_frame)
+    if labels:  # variable labels of an SPSS, Stata or SAS file, beside the names
+        profile.insert(1, "label", [labels.get(c, "") for c in profile["column"]])
+    return profile
 
 
 st.subheader("Columns", anchor=False)
-ui.table(column_overview(table.sha256, frame), "columns", "import_columns")
+ui.table(column_overview(table.sha256, frame, table.column_labels), "columns", "import_columns")
 st.page_link(
     "views/column_roles.py",
     label="Next: say which column is which",

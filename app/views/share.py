@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import streamlit as st
 
-from app import data, share_section, state, ui
+from app import data, row_filters, share_section, ui
 from engine.errors import HazelError
 
 st.title("Save and share", anchor=False)
@@ -25,10 +25,9 @@ if filters:
     in_use = data.current_table(st.session_state)
     if in_use is not None and table is not None:
         st.caption(f"{len(in_use.frame):,} of {len(table.frame):,} rows pass the filters.")
+    st.page_link("views/row_filters.py", label="Change the filters", icon=":material/filter_alt:")
     if st.button("Remove the filters", key="share_filters_clear_button"):
-        st.session_state[share_section.FILTERS] = ()
-        st.session_state[state.TABLE] = table
-        st.session_state.pop(share_section.SOURCE_TABLE, None)
+        row_filters.set_filters(st.session_state, ())
         st.rerun()
 
 if table is None or roles is None:
