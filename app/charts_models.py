@@ -330,3 +330,81 @@ def power_chart(
     return alt.layer(*layers).properties(
         width=style.width, height=int(style.height * 0.8), title=chart_title(style)
     )
+
+
+# ---------------------------------------------------------------------------------------------
+# Non-linear effects
+
+
+def spline_chart(
+    curve: pd.DataFrame,
+    style: ChartStyle,
+    *,
+    knots=(),
+    reference: float | None = None,
+    band: bool = True,
+    log_scale: bool = True,
+) -> alt.LayerChart:
+    """The hazard ratio against a covariate (columns x, hazard_ratio, lower, upper) with its
+    band, a dashed line at 1 and the knots as short marks along the bottom."""
+    data = curve[["x", "hazard_ratio", "lower", "upper"]].copy()
+    values = data[["hazard_ratio", "lower", "upper"]] if band else data[["hazard_ratio"]]
+    positive = values.stack()
+    positive = positive[(positive > 0) & positive.map(math.isfinite)]
+    lo = min(float(positive.min()) if len(positive) else 1.0, 1.0)
+    hi = max(float(positive.max()) if len(positive) else 1.0, 1.0)
+    y_scale = (
+        alt.Scale(type="log", domain=[lo / 1.1, hi * 1.1], nice=False)
+        if log_scale
+        else alt.Scale(domain=[0, hi * 1.05], nice=False)
+    )
+    x = alt.X("x:Q", title=style.x_title or "Covariate", scale=alt.Scale(zero=False, nice=False))
+    y_title = style.y_title or "Hazard ratio" + (" (log scale)" if log_scale else "")
+    tooltip = [
+        alt.Tooltip("x:Q", title="Value", format=".4g"),
+        alt.Tooltip("hazard_ratio:Q", title="Hazard ratio", format=".3f"),
+        alt.Tooltip("lower:Q", title="Interval from", format=".3f"),
+        alt.Tooltip("upper:Q", title="Interval to", format=".3f"),
+    ]
+    base = alt.Chart(data).encode(x=x)
+    layers = []
+    if band:
+        layers.append(
+            base.mark_area(color=ACCENT, opacity=0.18).encode(
+                y=alt.Y("lower:Q", scale=y_scale, title=y_title), y2="upper:Q"
+            )
+        )
+    layers.append(
+        base.mark_line(color=ACCENT, strokeWidth=style.line_width).encode(
+            y=alt.Y("hazard_ratio:Q", scale=y_scale, title=y_title), tooltip=tooltip
+        )
+    )
+    one = pd.DataFrame({"one": [1.0]})
+    layers.append(
+        alt.Chart(one).mark_rule(color="#7A8585", strokeDash=[4, 3]).encode(y=alt.Y("one:Q"))
+    )
+    if reference is not None:
+        point = pd.DataFrame({"x": [float(reference)], "hazard_ratio": [1.0]})
+        layers.append(
+            alt.Chart(point)
+            .mark_point(shape="circle", color=INK, filled=True, size=style.point_size * 2)
+            .encode(
+                x="x:Q",
+                y=alt.Y("hazard_ratio:Q", scale=y_scale),
+                tooltip=[alt.Tooltip("x:Q", title="Reference value", format=".4g")],
+            )
+        )
+    if len(knots):
+        marks = pd.DataFrame({"x": [float(k) for k in knots]})
+        layers.append(
+            alt.Chart(marks)
+            .mark_tick(color=INK, thickness=2, size=style.font_size)
+            .encode(
+                x="x:Q",
+                y=alt.value(style.height - style.font_size / 2),
+                tooltip=[alt.Tooltip("x:Q", title="Knot", format=".4g")],
+            )
+        )
+    return alt.layer(*layers).properties(
+        width=style.width, height=style.height, title=chart_title(style)
+    )

@@ -319,11 +319,12 @@ def cox_model(
     reference: tuple[tuple[str, str], ...],
     strata_column: str | None,
     ties: str,
+    variance: str,
     _table: ImportedTable,
 ):
     """The model builder's Cox model (``engine.analysis.fit_cox_from_roles``, as the recipe
     replay fits it); the roles have no strata here (``data.model_roles``), so the page's
-    strata column is the only one."""
+    strata column is the only one. ``variance``: "auto", "model" or "robust"."""
     from engine.analysis import fit_cox_from_roles
 
     return fit_cox_from_roles(
@@ -334,6 +335,7 @@ def cox_model(
         reference=reference,
         strata=strata_column or False,
         source=_table.frame,
+        variance=variance,
     )
 
 

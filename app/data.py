@@ -76,6 +76,17 @@ DEMO_ROLES: dict[str, dict] = {
         "covariates": ("age_years", "weight_kg", "breed_size"),
         "categorical": ("breed_size",),
     },
+    "compressor_service.csv": {
+        "time": "to_day",
+        "entry": "from_day",
+        "id": "unit_id",
+        "unit": "days",
+        "event": "failed",
+        "event_values": (1,),
+        "group": "coating",
+        "covariates": ("vibration_mm_s", "ambient_C", "firmware", "site"),
+        "categorical": ("firmware", "site"),
+    },
     "dairy_herd.csv": {
         "time": "weeks",
         "unit": "weeks",

@@ -48,6 +48,7 @@ pages = {
         st.Page("views/competing.py", title="Competing risks", icon=":material/call_split:"),
         st.Page("views/parametric.py", title="Parametric models", icon=":material/functions:"),
         st.Page("views/landmark.py", title="Landmark analysis", icon=":material/flag:"),
+        st.Page("views/effects.py", title="Effects in depth", icon=":material/insights:"),
         st.Page("views/sample_size.py", title="Sample size and power", icon=":material/calculate:"),
         st.Page("views/baseline.py", title="Baseline table", icon=":material/table_chart:"),
     ],

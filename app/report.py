@@ -18,6 +18,7 @@ import datetime as dt
 from collections.abc import Mapping, Sequence
 
 from app.report_baseline import baseline_section
+from app.report_effects import model_variants_section, subgroups_section
 from app.report_html import bullets, escape
 from app.report_sections import (
     comparison_section,
@@ -224,6 +225,8 @@ def build_report(
         ),
         sample_size_section(results.get("sample_size")),
         landmark_section(results.get("landmark"), unit, format_confidence(confidence), event),
+        model_variants_section(cox, format_confidence(confidence)),
+        subgroups_section(results.get("subgroups"), format_confidence(confidence)),
         "<h2>Warnings</h2>",
         bullets(all_warnings, "warnings") or "<p>None.</p>",
         "<h2>Methods</h2>",

@@ -15,6 +15,7 @@ from dataclasses import dataclass, replace
 import streamlit as st
 
 from app import state
+from app.effects_settings import effects_choices, restore_effects
 from app.exports import file_stem
 from engine.analysis import ANALYSIS_DEFAULTS, OPTIONAL_ANALYSES
 from engine.errors import HazelError
@@ -38,6 +39,11 @@ PH_LABELS = {
     "rank": "Rank of the event times",
     "time": "Time as recorded",
     "log-time": "Log of time",
+}
+VARIANCE_LABELS = {
+    "auto": "Automatic (robust when ids repeat)",
+    "model": "Model-based",
+    "robust": "Robust, clustered by id",
 }
 # Choices of the Group comparison and Regression pages that are not plain widget values: the
 # groups compared (the group role or a numeric column cut at quantiles), the strata, the model's
@@ -86,6 +92,7 @@ def _page_choices(session: MutableMapping, roles: Roles, settings: dict) -> None
             and str(session[REFERENCE_PREFIX + column]) != str(roles.reference_for(column))
         ]
         cox["reference"] = changed or None
+    effects_choices(session, settings)
 
 
 def _restore_page_choices(session: MutableMapping, roles: Roles, settings: dict) -> None:
@@ -106,6 +113,7 @@ def _restore_page_choices(session: MutableMapping, roles: Roles, settings: dict)
         session["model_strata"] = _strata_widget(cox["strata"], NO_MODEL_STRATA)
     for column, level in cox.get("reference") or ():
         session[REFERENCE_PREFIX + str(column)] = str(level)
+    restore_effects(session, settings)
 
 
 # The baseline table page's labels (value -> label).
@@ -197,6 +205,7 @@ WIDGETS = (
     Widget("comparison", "gamma", "compare_gamma", float, float),
     Widget("cox", "ties", "model_ties", *_labelled(TIES_LABELS)),
     Widget("cox", "ph_time_scale", "model_ph_time_scale", *_labelled(PH_LABELS)),
+    Widget("cox", "variance", "model_variance", *_labelled(VARIANCE_LABELS)),
     Widget("competing", "times", "cr_times", _times_text, _times_from_text),
     Widget("competing", "by_group", "cr_by_group", bool, bool),
     Widget("parametric", "distributions", "param_distributions", list, list),

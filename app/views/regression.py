@@ -7,12 +7,13 @@ import pandas as pd
 import streamlit as st
 
 from app import charts, charts_models, compute, data, thinning, ui
-from app.share_section import NO_MODEL_STRATA, PH_LABELS, REFERENCE_PREFIX
+from app.share_section import NO_MODEL_STRATA, PH_LABELS, REFERENCE_PREFIX, VARIANCE_LABELS
 from engine.cox_diagnostics import TIME_SCALE_WORDS
 from engine.errors import HazelError
 from engine.wording import format_confidence, format_number, format_ratio, p_clause, term_label
 
 TIES = {"Efron (default)": "efron", "Breslow": "breslow"}
+VARIANCES = {label: value for value, label in VARIANCE_LABELS.items()}
 PH_TIME_SCALES = {label: scale for scale, label in PH_LABELS.items()}
 PH_SCALE_AXIS = {
     "survival": "1 − Kaplan–Meier survival",
@@ -90,6 +91,17 @@ with st.container(border=True):
             help="Efron's method is more accurate when many events share a time.",
         )
     ]
+    variance = VARIANCES[
+        st.radio(
+            "Standard errors",
+            list(VARIANCES),
+            key="model_variance",
+            horizontal=True,
+            help="Several rows per subject (episodes, recurrent events) are not independent: "
+            "robust (sandwich) standard errors, summed within each id, allow for that. "
+            "Automatic uses them whenever an id repeats.",
+        )
+    ]
 
 if not covariates:
     st.info("Choose at least one covariate to fit a model.")
@@ -102,6 +114,7 @@ model_key = (
     tuple(reference),
     None if strata == NO_STRATA else strata,
     ties,
+    variance,
 )
 try:
     result = compute.cox_model(*model_key, table)
@@ -209,6 +222,13 @@ with tabs[0], ui.guard("The hazard-ratio table"):
             "Standard error": terms["se"].map(lambda v: format_number(v, 3)),
         }
     )
+    if result.variance == "robust":
+        shown["SE (model-based)"] = terms["se_model"].round(4)
+        st.caption(
+            f"Standard errors, intervals and p-values are robust, clustered by "
+            f"{ui.escape(roles.id or 'row')} ({result.clusters:,} clusters): the rows of one "
+            "subject are not independent. The model-based SE is shown beside them."
+        )
     ui.table(terms, "cox-hazard-ratios", "model_terms", shown=shown)
     if result.variable_wald:
         st.markdown("**Joint tests for categorical covariates with several levels (Wald)**")

@@ -133,3 +133,20 @@ def test_subgroups_need_a_two_level_group(episode_file):
         "--subgroups", "age", "--json", "-",
     )  # fmt: skip
     assert done.returncode == 2 and "exactly two levels" in done.stderr
+
+
+def test_report_has_the_variants_and_subgroup_sections(episode_file, tmp_path):
+    import html.parser
+
+    report = tmp_path / "report.html"
+    done = _run(
+        "analyze", str(episode_file), *ROLE_ARGS, "--spline", "age", "--split-at", "5",
+        "--subgroups", "site", "--report", str(report), "--json", str(tmp_path / "o.json"),
+    )  # fmt: skip
+    assert done.returncode == 0, done.stderr
+    text = report.read_text(encoding="utf-8")
+    html.parser.HTMLParser().feed(text)
+    assert "<h2>The Cox model's variants</h2>" in text and "Non-linear effect of age" in text
+    assert "clustered by subject: 300 clusters" in text
+    assert "<h2>Subgroup effects: arm: standard vs new</h2>" in text
+    assert "exploratory" in text and text.count("<svg") >= 4
