@@ -48,6 +48,7 @@ pages = {
         st.Page("views/parametric.py", title="Parametric models", icon=":material/functions:"),
         st.Page("views/landmark.py", title="Landmark analysis", icon=":material/flag:"),
         st.Page("views/sample_size.py", title="Sample size and power", icon=":material/calculate:"),
+        st.Page("views/performance.py", title="Prediction performance", icon=":material/target:"),
     ],
     "Share": [st.Page("views/share.py", title="Save and share", icon=":material/ios_share:")],
     "Help": pages["Help"],

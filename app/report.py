@@ -18,6 +18,7 @@ import datetime as dt
 from collections.abc import Mapping, Sequence
 
 from app.report_html import bullets, escape
+from app.report_prediction import performance_section
 from app.report_sections import (
     comparison_section,
     competing_section,
@@ -213,7 +214,11 @@ def build_report(
         cox_section(cox, confidence, figures.get("forest")),
         ph_section(cox),
         competing_section(
-            results.get("competing"), unit, format_confidence(confidence), figures.get("competing")
+            results.get("competing"),
+            unit,
+            format_confidence(confidence),
+            figures.get("competing"),
+            figures.get("fine_gray_forest"),
         ),
         parametric_section(
             results.get("parametric"),
@@ -223,6 +228,7 @@ def build_report(
         ),
         sample_size_section(results.get("sample_size")),
         landmark_section(results.get("landmark"), unit, format_confidence(confidence)),
+        performance_section(results.get("performance"), unit, figures.get("calibration")),
         "<h2>Warnings</h2>",
         bullets(all_warnings, "warnings") or "<p>None.</p>",
         "<h2>Methods</h2>",

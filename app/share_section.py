@@ -158,6 +158,13 @@ def _zero_for_none(value):
     return float(value or 0.0)
 
 
+NO_FINE_GRAY = "(none)"  # the Competing risks page's choice for "no Fine–Gray model"
+
+
+def _cause_or_none(value):
+    return None if value in (None, "", NO_FINE_GRAY) else str(value)
+
+
 WIDGETS = (
     Widget(
         "curves",
@@ -202,6 +209,13 @@ WIDGETS = (
     Widget("sample_size", "events", "power_events", _zero_for_none, _optional_number),
     Widget("landmark", "time", "landmark_time", _zero_for_none, float),
     Widget("landmark", "test", "landmark_test", _same, _same),
+    Widget("competing", "fine_gray", "cr_fine_gray", _same, _cause_or_none),
+    Widget("performance", "times", "perf_times", _times_text, _times_from_text),
+    Widget("performance", "tau", "perf_tau", _zero_for_none, _optional_number),
+    Widget("performance", "calibration_time", "perf_calibration_time", format_plain, float),
+    Widget("performance", "risk_groups", "perf_risk_groups", int, int),
+    Widget("performance", "replicates", "perf_replicates", int, int),
+    Widget("performance", "seed", "perf_seed", int, int),
 )
 
 
@@ -310,6 +324,7 @@ def restore_recipe(session: MutableMapping, recipe: Recipe) -> list[str]:
 
 
 PAGE_PREFIXES = ("roles_", "curves_", "compare_", "model_", "cr_", "param_", "power_", "landmark_")
+PAGE_PREFIXES = (*PAGE_PREFIXES, "perf_")
 
 
 def _role_columns(roles: Roles) -> list[str]:
