@@ -187,6 +187,50 @@ else:
         for cause, model in models.models:
             share_section.manuscript_box(share_section.cox_text(model), f"cause {cause}")
 
+
+@st.fragment
+def predicted_incidence(table, roles, model_text: str, chosen_cause: str, unit: str) -> None:
+    """The predicted-incidence curves of the Fine–Gray model; a fragment, so switching the
+    covariate reruns only this part of the page."""
+    st.markdown("**Predicted cumulative incidence**")
+    ui.remember_choice("cr_fg_profile", list(roles.covariates), roles.covariates[0])
+    variable = st.selectbox(
+        "Curves for each level of",
+        list(roles.covariates),
+        key="cr_fg_profile",
+        help="The other covariates are held at their mean (numeric) or reference level.",
+    )
+    pstyle = ui.titled_style(
+        ui.chart_style(),
+        "cr_fg_pred",
+        f"Predicted cumulative incidence of {chosen_cause}",
+        f"Time ({unit})",
+        "Probability of the event by then",
+    )
+    drawn = compute_beyond.fine_gray_drawing(
+        table.sha256, model_text, chosen_cause, "efron", variable, pstyle.height,
+        table, roles,
+    )  # fmt: skip
+    levels = list(dict.fromkeys(drawn["group"]))
+    top = float(drawn["estimate"].max()) if len(drawn) else 0.0
+    chart = charts.step_curve_chart(
+        drawn,
+        pstyle,
+        charts.group_colours(levels),
+        band=False,
+        y_domain=(0.0, min(1.0, max(top * 1.15, 0.05))),
+        ticks=charts.nice_ticks(float(drawn["time"].max())),
+        legend_title="Profile",
+    )
+    ui.figure(chart, pstyle, "fine-gray-incidence", "cr_fg_pred_figure")
+    with st.expander("Predicted values (every time)"):
+        if st.toggle("Show the table", key="cr_fg_show_values"):
+            curves = compute_beyond.fine_gray_profiles(
+                table.sha256, model_text, chosen_cause, "efron", variable, table, roles
+            )
+            ui.table(curves, "fine-gray-incidence", "cr_fg_pred_values")
+
+
 # --- Gray's test ----------------------------------------------------------------------------
 
 st.subheader("Gray's test: is the cumulative incidence the same in every group?", anchor=False)
@@ -301,40 +345,4 @@ else:
                 charts_models.forest_chart(forest, fstyle), fstyle, "fine-gray-forest", "cr_fg_fig"
             )
 
-            st.markdown("**Predicted cumulative incidence**")
-            ui.remember_choice("cr_fg_profile", list(roles.covariates), roles.covariates[0])
-            variable = st.selectbox(
-                "Curves for each level of",
-                list(roles.covariates),
-                key="cr_fg_profile",
-                help="The other covariates are held at their mean (numeric) or reference level.",
-            )
-            pstyle = ui.titled_style(
-                ui.chart_style(),
-                "cr_fg_pred",
-                f"Predicted cumulative incidence of {chosen_cause}",
-                f"Time ({unit})",
-                "Probability of the event by then",
-            )
-            drawn = compute_beyond.fine_gray_drawing(
-                table.sha256, model_text, chosen_cause, "efron", variable, pstyle.height,
-                table, roles,
-            )  # fmt: skip
-            levels = list(dict.fromkeys(drawn["group"]))
-            top = float(drawn["estimate"].max()) if len(drawn) else 0.0
-            chart = charts.step_curve_chart(
-                drawn,
-                pstyle,
-                charts.group_colours(levels),
-                band=False,
-                y_domain=(0.0, min(1.0, max(top * 1.15, 0.05))),
-                ticks=charts.nice_ticks(float(drawn["time"].max())),
-                legend_title="Profile",
-            )
-            ui.figure(chart, pstyle, "fine-gray-incidence", "cr_fg_pred_figure")
-            with st.expander("Predicted values (every time)"):
-                if st.toggle("Show the table", key="cr_fg_show_values"):
-                    curves = compute_beyond.fine_gray_profiles(
-                        table.sha256, model_text, chosen_cause, "efron", variable, table, roles
-                    )
-                    ui.table(curves, "fine-gray-incidence", "cr_fg_pred_values")
+            predicted_incidence(table, roles, model_text, chosen_cause, unit)
