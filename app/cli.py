@@ -18,7 +18,9 @@ from engine.analysis import run_analysis as run_engine_analysis
 from engine.checks import PreparedData, prepare
 from engine.errors import HazelError
 from engine.io import ImportedTable, ImportOptions, read_table
+from engine.recipe_schema import check_setting
 from engine.roles import TIME_UNITS, Roles
+from engine.text_safety import visible_text
 
 SCHEMA_VERSION = 1
 
@@ -254,6 +256,12 @@ def load_prepared(
     return table, prepared
 
 
+def show(text: str, stream=None) -> None:
+    """Print text for a person: control characters and direction controls from file names and
+    labels are shown as codes ([U+001B]), so no escape sequence reaches the terminal raw."""
+    print(visible_text(text), file=stream or sys.stdout)
+
+
 def write_json(sections: dict, out: str) -> None:
     """Write ``{"schema": 1, **sections}`` to a file or to stdout ('-')."""
     text = json.dumps({"schema": SCHEMA_VERSION, **sections}, indent=2, allow_nan=False)
@@ -269,7 +277,7 @@ def write_json(sections: dict, out: str) -> None:
 def run_check(args: argparse.Namespace) -> int:
     table, prepared = load_prepared(args)
     if args.json != "-":
-        print(data_summary(table, prepared))
+        show(data_summary(table, prepared))
     if args.json:
         write_json({"data": prepared.report.to_dict()}, args.json)
     return 0
@@ -331,21 +339,16 @@ def settings_from_args(args: argparse.Namespace, base: dict | None = None) -> di
             "(or replay a recipe that maps them)"
         )
     for name, options in SETTING_OPTIONS.items():
-        if name not in settings:
-            continue
         for setting, option in options.items():
             given = getattr(args, option, None)
-            if given is not None:
-                settings[name][setting] = (
-                    _times(given, "--" + option.replace("_", "-")) if setting == "times" else given
-                )
-    if "performance" in settings:
-        chosen = settings["performance"]
-        if chosen["replicates"] is not None and chosen["replicates"] < 0:
-            raise UsageError(f"--bootstrap must be 0 or more, got {chosen['replicates']}")
-    confidence = settings["curves"]["confidence"]
-    if not 0 < confidence < 1:
-        raise UsageError(f"--confidence must lie between 0 and 1, got {confidence}")
+            if given is None:
+                continue
+            flag = "--" + option.replace("_", "-")
+            value = _times(given, flag) if setting == "times" else given
+            # the recipe schema's range for the setting, named by the option
+            check_setting(name, setting, value, flag)
+            if name in settings:
+                settings[name][setting] = value
     return settings
 
 
@@ -395,7 +398,7 @@ def run_analyze(args: argparse.Namespace) -> int:
         source = run.source
         settings = settings_from_args(args, base=run.settings)
         for warning in warnings:
-            print(f"warning: {' '.join(warning.split())}", file=sys.stderr)
+            show(f"warning: {' '.join(warning.split())}", sys.stderr)
     else:
         causes = causes_from_args(args)
         if causes:
@@ -406,8 +409,8 @@ def run_analyze(args: argparse.Namespace) -> int:
     if filtered is not None and filtered.excluded:
         sections["filters"] = filtered.to_dict()
     if args.json != "-":
-        print(data_summary(table, prepared))
-        print(analysis_summary(sections, prepared.report.time_unit))
+        show(data_summary(table, prepared))
+        show(analysis_summary(sections, prepared.report.time_unit))
     if args.json:
         write_json(sections, args.json)
     if args.report:
@@ -423,7 +426,7 @@ def run_analyze(args: argparse.Namespace) -> int:
         )
         write_text(args.report, html_text)
         if args.json != "-":
-            print(f"Report written to {args.report}")
+            show(f"Report written to {args.report}")
     return 0
 
 
@@ -433,6 +436,5 @@ def main(argv: list[str] | None = None) -> int:
         args = build_parser().parse_args(argv)
         return args.run(args)
     except HazelError as exc:
-        message = " ".join(str(exc).split())
-        print(f"error: {message}", file=sys.stderr)
+        show(f"error: {' '.join(str(exc).split())}", sys.stderr)
         return 2

@@ -45,6 +45,19 @@ def _fmt(value, digits: int = 3) -> str:
     return "n/a" if value is None else f"{value:.{digits}g}" if digits else str(value)
 
 
+def _fixed(value, digits: int = 2) -> str:
+    """A statistic or AIC to fixed decimals; "n/a" when it could not be computed (null)."""
+    return "n/a" if value is None else f"{value:.{digits}f}"
+
+
+def _test_line(test: dict) -> str:
+    """'log-rank: chi-square 3.21 on 1 df, p = 0.073' (n/a where a value is null)."""
+    return (
+        f"{test['test']}: chi-square {_fixed(test['statistic'])} on {_fmt(test['df'], 0)} df, "
+        f"p = {_fmt(test['p_value'])}"
+    )
+
+
 def analysis_summary(sections: dict, unit: str) -> str:
     """A readable summary of the curves, comparison and Cox sections."""
     lines = ["", f"Survival ({unit}):"]
@@ -61,10 +74,12 @@ def analysis_summary(sections: dict, unit: str) -> str:
         lines.append(text)
     comparison = sections["comparison"]
     if comparison is not None:
-        lines.append(
-            f"{comparison['test']}: chi-square {comparison['statistic']:.2f} on "
-            f"{comparison['df']} df, p = {comparison['p_value']:.3g}"
-        )
+        lines.append(_test_line(comparison))
+        if comparison.get("rows_excluded"):
+            lines.append(
+                f"  {comparison['rows_excluded']} row(s) without a group left out of the "
+                "comparison (they are in the all-rows curve)"
+            )
     cox = sections["cox"]
     if cox is not None:
         lines.append(f"Cox model ({cox['ties']} ties): n={cox['n']}, events={cox['events']}")
@@ -74,10 +89,10 @@ def analysis_summary(sections: dict, unit: str) -> str:
                 f"  {name:<28} HR {_fmt(term['hazard_ratio'])} "
                 f"({_fmt(term['lower'])} to {_fmt(term['upper'])}), p = {_fmt(term['p_value'])}"
             )
-        lr = cox["likelihood_ratio"]
+        lr = cox["likelihood_ratio"] or {"statistic": None, "df": None, "p_value": None}
         lines.append(
-            f"  likelihood ratio {lr['statistic']:.2f} on {lr['df']} df, "
-            f"p = {lr['p_value']:.3g}; concordance {_fmt(cox['concordance'])}"
+            f"  likelihood ratio {_fixed(lr['statistic'])} on {_fmt(lr['df'], 0)} df, "
+            f"p = {_fmt(lr['p_value'])}; concordance {_fmt(cox['concordance'])}"
         )
         lines += [f"  Warning: {warning}" for warning in cox["warnings"]]
     lines += extra_summary(sections, unit)
@@ -124,8 +139,8 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
         for row in parametric["aic_table"]:
             label = "" if row["group"] is None else f"{row['group']}: "
             lines.append(
-                f"  {label}{row['distribution']:<12} AIC {row['aic']:.2f} "
-                f"(Δ {row['delta_aic']:.2f})"
+                f"  {label}{row['distribution']:<12} AIC {_fixed(row['aic'])} "
+                f"(Δ {_fixed(row['delta_aic'])})"
             )
     size = sections.get("sample_size")
     if size:
@@ -137,8 +152,8 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
             )
         for row in size["power"] or ():
             lines.append(
-                f"{row['method'].capitalize()}: power {row['power']:.3f} with "
-                f"{row['events']:g} events"
+                f"{row['method'].capitalize()}: power {_fixed(row['power'], 3)} with "
+                f"{_fmt(row['events'], 0)} events"
             )
     landmark = sections.get("landmark")
     if landmark:
@@ -148,10 +163,7 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
         )
         comparison = landmark["comparison"]
         if comparison is not None:
-            lines.append(
-                f"  {comparison['test']}: chi-square {comparison['statistic']:.2f} on "
-                f"{comparison['df']} df, p = {comparison['p_value']:.3g}"
-            )
+            lines.append("  " + _test_line(comparison))
     performance = sections.get("performance")
     if performance:
         lines.append(

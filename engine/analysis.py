@@ -26,7 +26,7 @@ from engine.compare import compare_frame
 from engine.cox import cox_json, fit_cox
 from engine.cox_diagnostics import proportional_hazards_test
 from engine.errors import RoleError
-from engine.summary import curves_json
+from engine.summary import COMPARISON_KEYS, curves_json
 
 ANALYSIS_DEFAULTS: dict[str, dict] = {
     "curves": {"times": [], "ci_transform": "log-log", "confidence": 0.95, "rmst_horizon": None},
@@ -221,7 +221,7 @@ def comparison_section(
     if frame is None or frame["_group"].nunique(dropna=True) < 2:
         return None
     result = compare_frame(frame, test=test, rho=rho, gamma=gamma).to_dict()
-    return {k: result[k] for k in ("test", "statistic", "df", "p_value")}
+    return {k: result[k] for k in COMPARISON_KEYS}
 
 
 def run_analysis(

@@ -10,6 +10,7 @@ import pandas as pd
 
 from engine.errors import preview_values
 from engine.roles import Roles, convert_time
+from engine.text_safety import hidden_characters_warning
 
 FEW_EVENTS = 10  # common practice: fewer than ~10 events per group gives unstable estimates
 TINY_GROUP = 5
@@ -66,6 +67,9 @@ def warnings_on_used(prepared, frame, roles: Roles, time, counts) -> list[str]:
                 f"{no_group} row(s) have no value in the group column {roles.group!r}; they "
                 "appear in overall results but in no group."
             )
+    hidden = _hidden_characters_warning(prepared)
+    if hidden:
+        notes.append(hidden)
     if roles.id and _may_repeat(frame[roles.id]):
         ids = frame[roles.id]
         duplicated = ids[ids.duplicated(keep=False) & ids.notna()]
@@ -75,6 +79,19 @@ def warnings_on_used(prepared, frame, roles: Roles, time, counts) -> list[str]:
                 f"({preview_values(duplicated.unique())}); each subject should appear once."
             )
     return notes
+
+
+def _hidden_characters_warning(prepared: pd.DataFrame) -> str | None:
+    """Labels (column names, group, strata and category levels, causes) holding direction
+    controls or control characters, which every display shows as codes (engine.text_safety)."""
+    labels = [str(c) for c in prepared.columns]
+    for column in prepared.columns:
+        values = prepared[column]
+        if isinstance(values.dtype, pd.CategoricalDtype):
+            labels.extend(str(v) for v in values.cat.categories)
+        elif column == "_cause":
+            labels.extend(str(v) for v in pd.unique(values) if v is not None)
+    return hidden_characters_warning(labels, "the data (names, groups or levels)")
 
 
 def _may_repeat(ids: pd.Series) -> bool:

@@ -82,8 +82,8 @@ def test_sections_hold_the_engine_numbers(tmp_path):
         ((*CAUSES, "--fine-gray", "stroke"), "'stroke'"),
         ((*DIED, "--performance", "50,1e6"), "outside the follow-up"),
         ((*DIED, "--performance", "fifty"), "--performance expects numbers"),
-        ((*DIED, "--performance", "50", "--bootstrap", "-1"), "--bootstrap must be 0 or more"),
-        ((*DIED, "--performance", "50", "--risk-groups", "1"), "risk groups"),
+        ((*DIED, "--performance", "50", "--bootstrap", "-1"), "--bootstrap must be a whole"),
+        ((*DIED, "--performance", "50", "--risk-groups", "1"), "--risk-groups must be a whole"),
     ],
     ids=[
         "no causes",
