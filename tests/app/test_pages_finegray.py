@@ -3,8 +3,6 @@ page, in Streamlit's AppTest: the numbers shown are the engine's on the same dem
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import pytest
 from streamlit.testing.v1 import AppTest
 
@@ -17,31 +15,11 @@ from engine.gray_test import gray_tests
 from engine.io import read_table
 from engine.optimism import bootstrap_optimism
 from engine.performance import prediction_performance
-
-ROOT = Path(__file__).resolve().parents[2]
-ENTRY = str(ROOT / "app" / "hazel.py")
-DEMO = ROOT / "demo_data"
-TIMEOUT = 180
-
-
-def _open(page: str, demo: str) -> AppTest:
-    at = AppTest.from_file(ENTRY, default_timeout=TIMEOUT).run()
-    fresh: dict = {}
-    data.open_demo(fresh, DEMO / demo)
-    for key, value in fresh.items():
-        at.session_state[key] = value
-    at.run()
-    at.switch_page(page).run()
-    assert not at.exception, [e.message for e in at.exception]
-    return at
+from tests.app.test_pages_beyond import DEMO, _metric, _open
 
 
 def _table(at: AppTest, column: str):
     return next(d.value for d in at.dataframe if column in d.value.columns)
-
-
-def _metric(at: AppTest, label: str) -> str:
-    return next(m.value for m in at.metric if m.label == label)
 
 
 @pytest.fixture(scope="module")
