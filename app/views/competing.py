@@ -294,6 +294,13 @@ else:
             )
             for warning in fg.warnings:
                 st.warning(ui.escape(warning), icon=":material/warning:")
+            if roles.strata:
+                st.info(
+                    f"The strata role ({ui.escape(roles.strata)}) is not used by the Fine–Gray "
+                    "model: it has one baseline for all rows. Add the strata column as a "
+                    "covariate to adjust for it.",
+                    icon=":material/info:",
+                )
             cols = st.columns(4)
             cols[0].metric("Rows used", f"{fg.n:,}")
             cols[1].metric(f"Events of {chosen_cause}", f"{fg.events:,}")
