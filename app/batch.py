@@ -283,14 +283,27 @@ def forest_rows(cox: Mapping) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def forest_figure(cox: Mapping | None, confidence: float = 0.95):
-    """The forest plot of the Cox terms, or None without a model."""
+def forest_figure(cox: Mapping | None, confidence: float = 0.95, x_title: str = ""):
+    """The forest plot of the Cox terms (or a Fine–Gray model's), or None without a model."""
     if not cox or not cox.get("terms"):
         return None
     from app import charts, charts_models
 
     style = charts.ChartStyle(width=int(REPORT_SIZE[0] * 0.7), height=REPORT_SIZE[1])
+    if x_title:
+        style = style.titled("", x_title)
     chart = charts_models.forest_chart(forest_rows(cox), style, confidence=confidence)
+    return charts.finish(chart, style)
+
+
+def calibration_figure(performance: Mapping | None):
+    """Observed against predicted survival per risk group, from the JSON, or None."""
+    if not performance or not performance.get("calibration"):
+        return None
+    from app import charts, charts_models
+
+    style = charts.ChartStyle(width=REPORT_SIZE[0], height=REPORT_SIZE[1])
+    chart = charts_models.calibration_chart(pd.DataFrame(performance["calibration"]), style)
     return charts.finish(chart, style)
 
 
@@ -467,6 +480,16 @@ def report_figures(
     forest = forest_figure(results.get("cox"), cox_confidence)
     if forest is not None:
         figures["forest"] = forest
+    fine_gray = forest_figure(
+        (results.get("competing") or {}).get("fine_gray"),
+        cox_confidence,
+        x_title="Subdistribution hazard ratio (log scale)",
+    )
+    if fine_gray is not None:
+        figures["fine_gray_forest"] = fine_gray
+    calibration = calibration_figure(results.get("performance"))
+    if calibration is not None:
+        figures["calibration"] = calibration
     return figures
 
 

@@ -408,3 +408,42 @@ def spline_chart(
     return alt.layer(*layers).properties(
         width=style.width, height=style.height, title=chart_title(style)
     )
+
+
+# Prediction performance
+
+
+def calibration_chart(rows: pd.DataFrame, style: ChartStyle) -> alt.LayerChart:
+    """Observed (Kaplan–Meier, with interval) against mean predicted survival per risk group
+    (columns risk_group, n, events, predicted, observed, lower, upper), with the line of
+    perfect calibration dashed."""
+    data = rows.assign(group=rows["risk_group"].map(lambda g: f"group {g}"))
+    values = data[["predicted", "observed", "lower", "upper"]].stack()
+    lo = max(0.0, float(values.min()) - 0.05)
+    hi = min(1.0, float(values.max()) + 0.05)
+    scale = alt.Scale(domain=[lo, hi], nice=False)
+    x = alt.X("predicted:Q", scale=scale, title=style.x_title or "Predicted survival")
+    tooltip = [
+        alt.Tooltip("group:N", title="Risk group"),
+        alt.Tooltip("n:Q", title="Subjects", format=","),
+        alt.Tooltip("events:Q", title="Events", format=","),
+        alt.Tooltip("predicted:Q", title="Predicted", format=".3f"),
+        alt.Tooltip("observed:Q", title="Observed", format=".3f"),
+        alt.Tooltip("lower:Q", title="Interval from", format=".3f"),
+        alt.Tooltip("upper:Q", title="Interval to", format=".3f"),
+    ]
+    diagonal = pd.DataFrame({"predicted": [lo, hi], "observed": [lo, hi]})
+    base = alt.Chart(data).encode(x=x)
+    size = min(style.width, style.height)
+    return alt.layer(
+        alt.Chart(diagonal)
+        .mark_line(color="#7A8585", strokeDash=[4, 3])
+        .encode(x=x, y=alt.Y("observed:Q", scale=scale)),
+        base.mark_rule(color=ACCENT, strokeWidth=style.line_width).encode(
+            y=alt.Y("lower:Q", scale=scale), y2="upper:Q", tooltip=tooltip
+        ),
+        base.mark_point(filled=True, color=ACCENT, size=style.point_size * 2.5, opacity=1).encode(
+            y=alt.Y("observed:Q", scale=scale, title=style.y_title or "Observed survival"),
+            tooltip=tooltip,
+        ),
+    ).properties(width=size, height=size, title=chart_title(style))

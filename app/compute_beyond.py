@@ -151,3 +151,91 @@ def baseline(fingerprint: str, roles_text: str, settings_text: str, _table: Impo
 
     prepared = data.prepared(_table, Roles.from_dict(json.loads(roles_text)))
     return baseline_table_from_settings(prepared, json.loads(settings_text), _table.frame)
+
+
+# --- Gray's test, Fine–Gray model, prediction performance -------------------------------------
+
+
+@st.cache_data(max_entries=8, show_spinner="Testing each cause…")
+def gray_tests(fingerprint: str, roles_text: str, _table: ImportedTable) -> pd.DataFrame | None:
+    """Gray's test per cause (None without two groups)."""
+    from engine.gray_test import gray_tests as tests
+
+    frame = _frame(fingerprint, roles_text, _table)
+    if "_group" not in frame.columns or frame["_group"].nunique(dropna=True) < 2:
+        return None
+    return pd.DataFrame([t.to_dict() for t in tests(frame)])
+
+
+@st.cache_resource(max_entries=4, show_spinner="Fitting the Fine–Gray model…")
+def fine_gray(fingerprint: str, roles_text: str, cause: str, ties: str, _table, _roles):
+    from engine.analysis import categorical_covariates
+    from engine.fine_gray import fit_fine_gray
+
+    frame = _frame(fingerprint, roles_text, _table)
+    return fit_fine_gray(
+        frame,
+        list(_roles.covariates),
+        cause,
+        categorical=categorical_covariates(frame, _roles.covariates),
+        reference=dict(_roles.reference),
+        ties=ties,
+    )
+
+
+@st.cache_data(max_entries=8, show_spinner="Predicting the cumulative incidence…")
+def fine_gray_profiles(
+    fingerprint: str, roles_text: str, cause: str, ties: str, variable: str, _table, _roles
+) -> pd.DataFrame:
+    """Predicted cumulative incidence of the cause for each level (or quartile) of a covariate,
+    the others at their mean or reference level."""
+    from engine.cox_summaries import level_profiles
+
+    result = fine_gray(fingerprint, roles_text, cause, ties, _table, _roles)
+    return result.predict_incidence(level_profiles(result, variable))
+
+
+@st.cache_data(max_entries=8, show_spinner=False)
+def fine_gray_drawing(
+    fingerprint: str,
+    roles_text: str,
+    cause: str,
+    ties: str,
+    variable: str,
+    height_px: int,
+    _table,
+    _roles,
+) -> pd.DataFrame:
+    """Thinned vertices of the predicted-incidence curves (group = profile)."""
+    curves = fine_gray_profiles(fingerprint, roles_text, cause, ties, variable, _table, _roles)
+    rows = pd.DataFrame(
+        {
+            "group": curves["profile"],
+            "time": curves["time"],
+            "estimate": curves["cumulative_incidence"],
+        }
+    )
+    return thinning.thin_step_frame(rows, ["estimate"], (0.0, 1.0), height_px, group="group")
+
+
+@st.cache_resource(max_entries=4, show_spinner="Measuring how well the model predicts…")
+def performance(model_key: tuple, times: tuple, tau, _table):
+    """Every measure at the chosen times (calibration at the first; the page draws its own)."""
+    from engine.performance import prediction_performance
+
+    return prediction_performance(compute.cox_model(*model_key, _table), list(times), tau=tau)
+
+
+@st.cache_resource(max_entries=4, show_spinner=False)
+def predictions(model_key: tuple, _table):
+    from engine.performance import cox_predictions
+
+    return cox_predictions(compute.cox_model(*model_key, _table))
+
+
+@st.cache_data(max_entries=16, show_spinner=False)
+def calibration(model_key: tuple, at: float, groups: int, _table) -> pd.DataFrame:
+    """Predicted against observed survival at ``at`` in ``groups`` risk groups."""
+    from engine.performance import calibration_table
+
+    return calibration_table(predictions(model_key, _table), at, groups=groups)

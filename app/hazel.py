@@ -51,6 +51,7 @@ pages = {
         st.Page("views/effects.py", title="Effects in depth", icon=":material/insights:"),
         st.Page("views/sample_size.py", title="Sample size and power", icon=":material/calculate:"),
         st.Page("views/baseline.py", title="Baseline table", icon=":material/table_chart:"),
+        st.Page("views/performance.py", title="Prediction performance", icon=":material/target:"),
     ],
     "Share": [st.Page("views/share.py", title="Save and share", icon=":material/ios_share:")],
     "Help": pages["Help"],

@@ -20,6 +20,7 @@ from collections.abc import Mapping, Sequence
 from app.report_baseline import baseline_section
 from app.report_effects import model_variants_section, subgroups_section
 from app.report_html import bullets, escape
+from app.report_prediction import performance_section
 from app.report_sections import (
     comparison_section,
     competing_section,
@@ -215,7 +216,11 @@ def build_report(
         cox_section(cox, confidence, figures.get("forest")),
         ph_section(cox, figures.get("residuals"), figures.get("residuals_term")),
         competing_section(
-            results.get("competing"), unit, format_confidence(confidence), figures.get("competing")
+            results.get("competing"),
+            unit,
+            format_confidence(confidence),
+            figures.get("competing"),
+            figures.get("fine_gray_forest"),
         ),
         parametric_section(
             results.get("parametric"),
@@ -227,6 +232,7 @@ def build_report(
         landmark_section(results.get("landmark"), unit, format_confidence(confidence), event),
         model_variants_section(cox, format_confidence(confidence)),
         subgroups_section(results.get("subgroups"), format_confidence(confidence)),
+        performance_section(results.get("performance"), unit, figures.get("calibration")),
         "<h2>Warnings</h2>",
         bullets(all_warnings, "warnings") or "<p>None.</p>",
         "<h2>Methods</h2>",

@@ -22,6 +22,7 @@ from app.report_html import (
     statistics_table,
     table,
 )
+from app.report_prediction import competing_regression_block
 from engine.wording import (
     NOT_REACHED,
     comparison_sentence,
@@ -373,7 +374,9 @@ def cox_headers(ci: str) -> list[str]:
 # --- optional analyses (competing risks, parametric, sample size, landmark) ---------------------
 
 
-def competing_section(section: Mapping | None, unit: str, ci: str, figure) -> str:
+def competing_section(
+    section: Mapping | None, unit: str, ci: str, figure, fine_gray_forest=None
+) -> str:
     if not section:
         return ""
     rows = [
@@ -413,6 +416,7 @@ def competing_section(section: Mapping | None, unit: str, ci: str, figure) -> st
                 ),
             )
         )
+    parts.append(competing_regression_block(section, unit, ci, fine_gray_forest))
     for model in section.get("cause_specific_cox") or ():
         parts.append(
             f"<h3>Cause-specific Cox model: {escape(model['cause'])}</h3>"

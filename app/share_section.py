@@ -177,6 +177,13 @@ def _zero_for_none(value):
     return float(value or 0.0)
 
 
+NO_FINE_GRAY = "(none)"  # the Competing risks page's choice for "no Fine–Gray model"
+
+
+def _cause_or_none(value):
+    return None if value in (None, "", NO_FINE_GRAY) else str(value)
+
+
 WIDGETS = (
     Widget(
         "curves",
@@ -229,6 +236,13 @@ WIDGETS = (
     Widget("baseline", "categorical", "baseline_categorical", list, list),
     Widget("baseline", "summary", "baseline_summary", *_labelled(BASELINE_SUMMARIES)),
     Widget("baseline", "compare", "baseline_compare", *_labelled(BASELINE_COMPARISONS)),
+    Widget("competing", "fine_gray", "cr_fine_gray", _same, _cause_or_none),
+    Widget("performance", "times", "perf_times", _times_text, _times_from_text),
+    Widget("performance", "tau", "perf_tau", _zero_for_none, _optional_number),
+    Widget("performance", "calibration_time", "perf_calibration_time", format_plain, float),
+    Widget("performance", "risk_groups", "perf_risk_groups", int, int),
+    Widget("performance", "replicates", "perf_replicates", int, int),
+    Widget("performance", "seed", "perf_seed", int, int),
 )
 
 
@@ -349,6 +363,7 @@ PAGE_PREFIXES = (
     "roles_", "curves_", "compare_", "model_", "cr_", "param_", "power_", "landmark_", "effects_",
     "baseline_",
 )  # fmt: skip
+PAGE_PREFIXES = (*PAGE_PREFIXES, "perf_")
 
 
 def _role_columns(roles: Roles) -> list[str]:

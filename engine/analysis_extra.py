@@ -131,7 +131,13 @@ def fine_gray_section(prepared: PreparedData, chosen: Mapping) -> dict:
         {"time": float(t), "cumulative_incidence": json_value(curve["cumulative_incidence"][i])}
         for t, i in zip(times, idx, strict=True)
     ]
-    return {**result.to_dict(), "meaning": MEANING, "typical_at_times": at_times}
+    out = {**result.to_dict(), "meaning": MEANING, "typical_at_times": at_times}
+    if roles.strata:
+        out["warnings"].append(
+            f"The strata role ({roles.strata}) is not used by the Fine–Gray model: it has one "
+            "baseline for all rows. Add the strata column as a covariate to adjust for it."
+        )
+    return out
 
 
 def performance_section(prepared: PreparedData, chosen: Mapping) -> dict:

@@ -82,19 +82,24 @@ class ForestData:
 
 
 def forest_data(result: CoxResult) -> ForestData:
-    design, layout = result.design, result.model.layout
-    event_sorted = layout.event
-    used_x = design.matrix[layout.order]
+    layout = result.model.layout
+    event_by_row = np.empty(len(layout.event), dtype=bool)
+    event_by_row[layout.order] = layout.event
+    return forest_rows(result.design, result.terms, event_by_row, result.n, result.events)
+
+
+def forest_rows(design, terms, event_by_row, n: int, events: int) -> ForestData:
+    """Forest-plot rows of any model on a treatment-coded design (Cox, Fine–Gray): ``terms``
+    hold the estimates, ``event_by_row`` says which design rows had the event."""
     rows = []
     for variable in design.variables:
         cols = design.columns_of(variable)
-        estimates = [result.terms[j] for j in cols]
+        estimates = [terms[j] for j in cols]
         if variable not in design.levels:
-            est = estimates[0]
-            rows.append(_forest_row(est, result.n, result.events, False))
+            rows.append(_forest_row(estimates[0], n, events, False))
             continue
         reference = design.levels[variable][0]
-        in_reference = ~used_x[:, cols].astype(bool).any(axis=1)
+        in_reference = ~design.matrix[:, cols].astype(bool).any(axis=1)
         rows.append(
             {
                 "variable": variable,
@@ -105,12 +110,12 @@ def forest_data(result: CoxResult) -> ForestData:
                 "upper": None,
                 "p_value": None,
                 "n": int(in_reference.sum()),
-                "events": int(event_sorted[in_reference].sum()),
+                "events": int(event_by_row[in_reference].sum()),
             }
         )
         for j, est in zip(cols, estimates, strict=True):
-            here = used_x[:, j] == 1
-            rows.append(_forest_row(est, int(here.sum()), int(event_sorted[here].sum()), True))
+            here = design.matrix[:, j] == 1
+            rows.append(_forest_row(est, int(here.sum()), int(event_by_row[here].sum()), True))
     return ForestData(pd.DataFrame(rows))
 
 
@@ -150,7 +155,7 @@ def typical_profile(result: CoxResult) -> dict:
         if variable in design.levels:
             profile[variable] = design.levels[variable][0]
         else:
-            profile[variable] = float(result.model.center[design.columns_of(variable)[0]])
+            profile[variable] = float(design.center[design.columns_of(variable)[0]])
     return profile
 
 

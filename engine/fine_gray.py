@@ -35,7 +35,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from engine.competing import _cause_codes
 from engine.cox import TermEstimate, chi_square, term_estimates
@@ -262,6 +261,15 @@ class FineGrayResult:
             "warnings": list(self.warnings),
         }
 
+    def forest(self) -> pd.DataFrame:
+        """Forest-plot rows (engine.cox_summaries.forest_rows): one per term, and a reference
+        row per categorical variable, with the rows and events of the cause in each."""
+        from engine.cox_summaries import forest_rows
+
+        estimates = [t.estimate for t in self.terms]
+        table = forest_rows(self.design, estimates, self.events_by_row, self.n, self.events)
+        return table.to_frame()
+
     def profile_vector(self, profile: Mapping) -> np.ndarray:
         """The design row of a profile: numeric covariates as given (else at their mean),
         categorical ones at the level given (else the reference)."""
@@ -411,7 +419,3 @@ def fit_fine_gray(
         baseline_cumulative=np.cumsum(hazard),
         events_by_row=is_cause_by_row,
     )
-
-
-def wald_p(statistic: float, df: int) -> float:
-    return float(stats.chi2.sf(statistic, df))

@@ -1,6 +1,7 @@
 """Competing risks: name the causes behind the event column's values, then cumulative incidence
-per cause (Aalen–Johansen) by group with bands, the 1 − KM comparison and cause-specific Cox
-models."""
+per cause (Aalen–Johansen) by group with bands, the 1 − KM comparison, cause-specific Cox
+models, Gray's test per cause and the Fine–Gray model of a chosen cause with its predicted
+cumulative incidence."""
 
 from __future__ import annotations
 
@@ -9,7 +10,8 @@ from dataclasses import replace
 import pandas as pd
 import streamlit as st
 
-from app import charts, compute_beyond, data, share_section, ui
+from app import charts, charts_models, compute_beyond, data, share_section, ui
+from app.share_section import NO_FINE_GRAY
 from engine.wording import format_percent, format_ratio, term_label
 
 CONFIDENCE = {"95%": 0.95, "90%": 0.90, "99%": 0.99}
@@ -184,3 +186,170 @@ else:
         ui.table(rows, "cause-specific-cox", "cr_cox", shown=shown)
         for cause, model in models.models:
             share_section.manuscript_box(share_section.cox_text(model), f"cause {cause}")
+
+
+@st.fragment
+def predicted_incidence(table, roles, model_text: str, chosen_cause: str, unit: str) -> None:
+    """The predicted-incidence curves of the Fine–Gray model; a fragment, so switching the
+    covariate reruns only this part of the page."""
+    st.markdown("**Predicted cumulative incidence**")
+    ui.remember_choice("cr_fg_profile", list(roles.covariates), roles.covariates[0])
+    variable = st.selectbox(
+        "Curves for each level of",
+        list(roles.covariates),
+        key="cr_fg_profile",
+        help="The other covariates are held at their mean (numeric) or reference level.",
+    )
+    pstyle = ui.titled_style(
+        ui.chart_style(),
+        "cr_fg_pred",
+        f"Predicted cumulative incidence of {chosen_cause}",
+        f"Time ({unit})",
+        "Probability of the event by then",
+    )
+    drawn = compute_beyond.fine_gray_drawing(
+        table.sha256, model_text, chosen_cause, "efron", variable, pstyle.height,
+        table, roles,
+    )  # fmt: skip
+    levels = list(dict.fromkeys(drawn["group"]))
+    top = float(drawn["estimate"].max()) if len(drawn) else 0.0
+    chart = charts.step_curve_chart(
+        drawn,
+        pstyle,
+        charts.group_colours(levels),
+        band=False,
+        y_domain=(0.0, min(1.0, max(top * 1.15, 0.05))),
+        ticks=charts.nice_ticks(float(drawn["time"].max())),
+        legend_title="Profile",
+    )
+    ui.figure(chart, pstyle, "fine-gray-incidence", "cr_fg_pred_figure")
+    with st.expander("Predicted values (every time)"):
+        if st.toggle("Show the table", key="cr_fg_show_values"):
+            curves = compute_beyond.fine_gray_profiles(
+                table.sha256, model_text, chosen_cause, "efron", variable, table, roles
+            )
+            ui.table(curves, "fine-gray-incidence", "cr_fg_pred_values")
+
+
+# --- Gray's test ----------------------------------------------------------------------------
+
+st.subheader("Gray's test: is the cumulative incidence the same in every group?", anchor=False)
+if not has_group:
+    st.info("Set a group column on the Column roles page to compare the groups' incidence.")
+else:
+    with ui.guard("Gray's test"):
+        tests = compute_beyond.gray_tests(table.sha256, roles_text, table)
+        if tests is None:
+            st.info("Gray's test needs at least two groups with rows.")
+        else:
+            shown = pd.DataFrame(
+                {
+                    "Cause": tests["cause"],
+                    "χ² statistic": tests["statistic"].map(lambda v: f"{v:.2f}"),
+                    "Degrees of freedom": tests["df"],
+                    "p-value": tests["p_value"].map(ui.fmt_p),
+                }
+            )
+            ui.table(tests, "gray-test", "cr_gray", shown=shown)
+            st.caption(
+                "One test per cause, of equal cumulative incidence of that cause across the "
+                f"levels of {ui.escape(roles.group)} (Gray 1988, log-rank weights), the other "
+                "causes counted as competing events. " + ui.NOT_SIGNIFICANT_CAUTION
+            )
+
+# --- Fine–Gray model ------------------------------------------------------------------------
+
+st.subheader("Fine–Gray model: covariates and the incidence of one cause", anchor=False)
+if not roles.covariates:
+    st.info("Choose covariates on the Column roles page to fit a Fine–Gray model.")
+elif "_entry" in prepared.frame.columns:
+    st.info(
+        "The Fine–Gray model is not available with an entry-time role (delayed entry): its "
+        "censoring weights assume everyone is followed from time 0."
+    )
+else:
+    cause_names = list(dict.fromkeys(name for _, name in causes))
+    options = [NO_FINE_GRAY, *cause_names]
+    ui.remember_choice("cr_fine_gray", options, NO_FINE_GRAY)
+    cols = st.columns([2, 3])
+    chosen_cause = cols[0].selectbox(
+        "Cause modelled",
+        options,
+        key="cr_fine_gray",
+        help="The cause whose cumulative incidence the covariates are related to; the other "
+        "causes compete. “(none)” leaves the model out of the report and recipe.",
+    )
+    if chosen_cause == NO_FINE_GRAY:
+        cols[1].caption(
+            "Choose a cause to relate the covariates to its cumulative incidence, the chance of "
+            "having had it by each time when the other causes compete."
+        )
+    if chosen_cause != NO_FINE_GRAY:
+        from engine.fine_gray import MEANING
+
+        with ui.guard("The Fine–Gray model"):
+            model_text = data.roles_key(roles)
+            fg = compute_beyond.fine_gray(
+                table.sha256, model_text, chosen_cause, "efron", table, roles
+            )
+            for warning in fg.warnings:
+                st.warning(ui.escape(warning), icon=":material/warning:")
+            if roles.strata:
+                st.info(
+                    f"The strata role ({ui.escape(roles.strata)}) is not used by the Fine–Gray "
+                    "model: it has one baseline for all rows. Add the strata column as a "
+                    "covariate to adjust for it.",
+                    icon=":material/info:",
+                )
+            cols = st.columns(4)
+            cols[0].metric("Rows used", f"{fg.n:,}")
+            cols[1].metric(f"Events of {chosen_cause}", f"{fg.events:,}")
+            cols[2].metric("Competing events", f"{fg.competing_events:,}")
+            cols[3].metric("Censored", f"{fg.censored:,}")
+            st.info(MEANING, icon=":material/lightbulb:")
+            rows = fg.to_frame()
+            shown = pd.DataFrame(
+                {
+                    "Term": [
+                        str(v) if lv is None or pd.isna(lv) else f"{v}: {lv} vs {ref}"
+                        for v, lv, ref in rows[["variable", "level", "reference"]].itertuples(
+                            index=False
+                        )
+                    ],
+                    "Subdistribution hazard ratio": rows["hazard_ratio"].map(lambda v: f"{v:.3f}"),
+                    "95% interval": [
+                        f"{lo:.3f} to {hi:.3f}"
+                        for lo, hi in rows[["lower", "upper"]].itertuples(index=False)
+                    ],
+                    "p-value": rows["p_value"].map(ui.fmt_p),
+                    "Standard error (robust)": rows["se"].map(lambda v: f"{v:.4f}"),
+                    "Standard error (model)": rows["se_model"].map(lambda v: f"{v:.4f}"),
+                }
+            )
+            ui.table(rows, "fine-gray", "cr_fg_table", shown=shown)
+            forest = fg.forest()
+            forest = forest.assign(
+                label=[
+                    f"{v}"
+                    if lv is None or pd.isna(lv)
+                    else f"{v}: {lv}" + (" (reference)" if r else "")
+                    for v, lv, r in forest[["variable", "level", "is_reference"]].itertuples(
+                        index=False
+                    )
+                ],
+                p_text=forest["p_value"].map(
+                    lambda p: ui.fmt_p(p) if p is not None else "reference"
+                ),
+            )
+            fstyle = ui.titled_style(
+                ui.chart_style(),
+                "cr_fg_forest",
+                f"Subdistribution hazard ratios for {chosen_cause}",
+                "Subdistribution hazard ratio (log scale)",
+                "",
+            )
+            ui.figure(
+                charts_models.forest_chart(forest, fstyle), fstyle, "fine-gray-forest", "cr_fg_fig"
+            )
+
+            predicted_incidence(table, roles, model_text, chosen_cause, unit)

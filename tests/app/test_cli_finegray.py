@@ -106,3 +106,26 @@ def test_performance_needs_covariates():
         "analyze", str(DAIRY), "--time", "weeks", "--event", "status", *DIED, "--performance", "50"
     )
     assert done.returncode == 2 and "needs covariates" in done.stderr
+
+
+def test_report_has_the_sections_with_the_json_numbers(tmp_path):
+    import html.parser
+
+    hostile = "<b>sold</b>"
+    out, report = tmp_path / "out.json", tmp_path / "out.html"
+    done = _run(
+        *BASE, "--competing", "died=died", "--competing", f"sold={hostile}", "--group", "housing",
+        "--fine-gray", hostile, "--performance", "50,100", "--bootstrap", "3",
+        "--json", str(out), "--report", str(report),
+    )  # fmt: skip
+    assert done.returncode == 0, done.stderr
+    results = json.loads(out.read_text(encoding="utf-8"))
+    text = report.read_text(encoding="utf-8")
+    html.parser.HTMLParser().feed(text)
+    assert hostile not in text and "Fine–Gray model: &lt;b&gt;sold&lt;/b&gt;" in text
+    assert "<h3>Gray's test of equal cumulative incidence across groups</h3>" in text
+    assert "<h2>Prediction performance of the Cox model</h2>" in text
+    first = results["competing"]["fine_gray"]["terms"][0]
+    assert f'data-value="{first["coef"]!r}"' in text
+    assert f'data-value="{results["performance"]["auc"][0]!r}"' in text
+    assert text.count("<svg") >= 4  # curves, incidence, Fine–Gray forest, calibration

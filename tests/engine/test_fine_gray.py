@@ -171,3 +171,12 @@ def test_errors_name_the_problem(rng):
         fit_fine_gray(frame.assign(_entry=0.0), ["x0"], "relapse")
     with pytest.raises(AnalysisError, match="causes"):
         fit_fine_gray(frame.drop(columns="_cause"), ["x0"], "relapse")
+
+
+def test_forest_rows_count_rows_and_events_per_level(rng):
+    frame, status = _sample(rng)
+    rows = fit_fine_gray(frame, ["x0", "arm"], "relapse").forest()
+    control, new = rows[rows.variable == "arm"].itertuples(index=False)
+    assert control.is_reference and control.hazard_ratio == 1.0
+    assert control.n == int((frame["arm"] == "control").sum())
+    assert new.events == int(((frame["arm"] == "new") & (status == 1)).sum())

@@ -1,0 +1,48 @@
+"""The Prediction performance page and the Fine–Gray model of the Competing risks page, in a
+real headless Chromium: no exception, the bootstrap's progress bar runs to its result, and the
+figures are drawn. Screenshots go to tests/artifacts/."""
+
+from __future__ import annotations
+
+import pytest
+
+from tests.app.browser import ARTIFACTS, demo_page, wait_until_idle
+
+pytestmark = pytest.mark.browser
+
+
+def test_performance_page_and_fine_gray_model(server):
+    with demo_page(server) as (page, errors):
+        page.get_by_role("link", name="Prediction performance").first.click()
+        page.get_by_text("Discrimination", exact=False).first.wait_for(timeout=60_000)
+        wait_until_idle(page)
+        replicates = page.get_by_label("Replicates")
+        replicates.fill("5")
+        replicates.press("Enter")
+        wait_until_idle(page)
+        page.get_by_role("button", name="Run the bootstrap").click()
+        page.get_by_text("Optimism-corrected C").first.wait_for(timeout=120_000)
+        wait_until_idle(page)
+        assert page.locator('[data-testid="stException"]').count() == 0
+        assert page.locator("canvas, svg.marks").count() >= 1  # the calibration figure
+        page.screenshot(path=str(ARTIFACTS / "finegray_performance.png"), full_page=True)
+
+        page.get_by_role("link", name="Data import").first.click()
+        page.get_by_role("button", name="Dairy herd").first.click()
+        wait_until_idle(page)
+        page.get_by_role("link", name="Competing risks").first.click()
+        page.get_by_text("Causes", exact=False).first.wait_for(timeout=60_000)
+        wait_until_idle(page)
+        box = page.get_by_role("textbox", name="Cause for sold")
+        box.fill("sold")
+        box.press("Enter")
+        page.get_by_text("Gray's test", exact=False).first.wait_for(timeout=60_000)
+        wait_until_idle(page)
+        page.get_by_role("combobox", name="Cause modelled").click()
+        page.get_by_role("option", name="died").click()
+        page.get_by_text("Predicted cumulative incidence of died").first.wait_for(timeout=60_000)
+        wait_until_idle(page)
+        assert page.locator('[data-testid="stException"]').count() == 0
+        assert page.get_by_text("does not say by how much").count() >= 1
+        page.screenshot(path=str(ARTIFACTS / "finegray_competing.png"), full_page=True)
+        assert errors == []
