@@ -197,3 +197,25 @@ def test_json_ph_check_has_time_scale_terms_and_all_terms(rossi_fits):
 def test_unknown_transform_raises(rossi_fits):
     with pytest.raises(AnalysisError, match="squared"):
         proportional_hazards_test(rossi_fits[1], "squared")
+
+
+def test_a_singular_block_gives_no_test_instead_of_an_error():
+    """Found by the fuzz suite: a covariate equal to the time makes the PH check's information
+    block singular; the check then reports no test (NaN, shown as not estimable)."""
+    from engine.analysis import run_analysis
+    from engine.checks import prepare
+    from engine.roles import Roles
+
+    times = np.round(np.arange(1, 16) / 3, 3)
+    frame = pd.DataFrame(
+        {
+            "futime": times,
+            "status": [1, 0, 0, 0, 1, 1, 0, 0, 0, 1, 1, 0, 0, 0, 1],
+            "arm": [1.0] + [0.0] * 14,
+            "start": times,
+        }
+    )
+    roles = Roles(time="futime", event="status", group="arm", covariates=("start",))
+    sections = run_analysis(prepare(frame, roles), None, frame)
+    all_terms = sections["cox"]["ph_check"]["all_terms"]
+    assert all_terms["statistic"] is None and all_terms["p_value"] is None
