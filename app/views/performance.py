@@ -9,7 +9,7 @@ import pandas as pd
 import streamlit as st
 
 from app import charts, charts_models, compute, compute_beyond, data, ui
-from app.share_section import NO_MODEL_STRATA, REFERENCE_PREFIX
+from app.share_section import NO_MODEL_STRATA, REFERENCE_PREFIX, VARIANCE_LABELS
 from engine.errors import HazelError
 from engine.optimism import DEFAULT_REPLICATES, DEFAULT_SEED
 
@@ -64,6 +64,10 @@ model_key = (
     tuple(reference),
     None if strata in (None, NO_MODEL_STRATA) else strata,
     ties,
+    # the Regression page keeps the label of its standard-errors choice
+    {label: value for value, label in VARIANCE_LABELS.items()}.get(
+        session.get("model_variance"), "auto"
+    ),
 )
 st.caption(
     "Model: "

@@ -38,8 +38,11 @@ def test_performance_page_and_fine_gray_model(server):
         box.press("Enter")
         page.get_by_text("Gray's test", exact=False).first.wait_for(timeout=60_000)
         wait_until_idle(page)
-        page.get_by_role("combobox", name="Cause modelled").click()
-        page.get_by_role("option", name="died").click()
+        cause = page.get_by_role("combobox", name="Cause modelled")
+        cause.scroll_into_view_if_needed()
+        cause.click()
+        page.keyboard.type("died")
+        page.keyboard.press("Enter")
         page.get_by_text("Predicted cumulative incidence of died").first.wait_for(timeout=60_000)
         wait_until_idle(page)
         assert page.locator('[data-testid="stException"]').count() == 0
