@@ -13,6 +13,7 @@ from collections.abc import Mapping
 import pandas as pd
 
 from app.report_html import cell, escape, figure_block, interval, num, statistics_table, table
+from app.report_sections import ph_check_rows
 from engine.wording import format_number, format_p, format_plain, format_ratio
 
 REPORT_SIZE = (640, 360)
@@ -89,7 +90,7 @@ def model_variants_section(cox: Mapping | None, ci: str) -> str:
             f"{escape(', '.join(split['changing']) or 'none (the same model)')}.</p>",
             table(["Term", "Hazard ratio", f"{ci} CI", "p"], _term_rows(model["terms"])),
             "<h4>Proportional-hazards check after the split</h4>",
-            statistics_table([(c["variable"], c) for c in model["ph_check"] or []], "Variable"),
+            statistics_table(ph_check_rows(model["ph_check"]), "Variable"),
         ]
     if not parts:
         return ""

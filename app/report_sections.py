@@ -315,17 +315,26 @@ def _quote(value) -> str:
     return '"' + escape("" if value is None else repr(value)) + '"'
 
 
+def ph_check_rows(check: Mapping | None) -> list[tuple[str, Mapping]]:
+    """(label, test) rows of a JSON ``ph_check``: each term, then all terms together."""
+    from engine.cox_diagnostics import ALL_TERMS
+
+    if not check:
+        return []
+    return [(c["variable"], c) for c in check["terms"]] + [(ALL_TERMS, check["all_terms"])]
+
+
 def ph_section(cox: Mapping | None, figure=None, plotted: str | None = None) -> str:
     """The Grambsch–Therneau tests per covariate and for all terms together, the time scale in
     words, and the scaled Schoenfeld residuals of ``plotted`` (the term with the smallest
     p-value) when ``figure`` is given."""
-    from engine.cox_diagnostics import ALL_TERMS, TIME_SCALE_WORDS
+    from engine.cox_diagnostics import TIME_SCALE_WORDS
 
     check = (cox or {}).get("ph_check")
     if not check:
         return ""
     scale = check.get("time_scale", "survival")
-    rows = [(c["variable"], c) for c in check["terms"]] + [(ALL_TERMS, check["all_terms"])]
+    rows = ph_check_rows(check)
     parts = [
         "<h2>Proportional-hazards checks</h2>",
         statistics_table(rows, "Covariate"),

@@ -11,6 +11,7 @@ import streamlit as st
 
 from app import charts_models, compute_effects, data, share_section, ui
 from app import effects_settings as keys
+from engine.cox_diagnostics import ALL_TERMS
 from engine.subgroups import CAUTION
 
 st.title("Effects in depth", anchor=False)
@@ -241,15 +242,17 @@ with tabs[1]:
                 chart = charts_models.forest_chart(rows, fstyle)
                 ui.figure(chart, fstyle, "split-forest", "effects_split_figure")
                 st.markdown("**Proportional-hazards check after the split**")
+                check = refit["ph_check"]
+                check_rows = [*check["terms"], {**check["all_terms"], "variable": ALL_TERMS}]
                 ui.table(
-                    pd.DataFrame(refit["ph_check"]),
+                    pd.DataFrame(check_rows),
                     "split-ph-check",
                     "effects_split_ph",
-                    shown=_tests_frame(refit["ph_check"], "Variable"),
+                    shown=_tests_frame(check_rows, "Variable"),
                 )
                 st.caption(
                     "A small p-value suggests a hazard ratio still changes within the periods; "
-                    "GLOBAL tests every term at once."
+                    f"“{ALL_TERMS}” tests every term at once."
                 )
 
 # --- subgroups --------------------------------------------------------------------------------
