@@ -444,24 +444,33 @@ def _report_download(column, recipe, table, run_analysis, report_builder) -> Non
             mime="text/html",
             key="share_report_download",
         )
-        column.download_button(
-            "Report as Word (.docx)",
-            partial(exports_office.report_docx, built[1]),
-            file_name=f"{stem}.docx",
-            mime=exports_office.DOCX_MIME,
-            key="share_report_docx_download",
-            on_click="ignore",
-            help="The same report as one Word document, its figures as pictures.",
-        )
-        column.download_button(
-            "Report tables (Excel)",
-            partial(exports_office.report_xlsx, built[1]),
-            file_name=f"{stem}-tables.xlsx",
-            mime=exports_office.XLSX_MIME,
-            key="share_report_xlsx_download",
-            on_click="ignore",
-            help="Every table of the report, one sheet each, rounded as in the report.",
-        )
+        for label, build, suffix, mime, key, help_text in (
+            (
+                "Report as Word (.docx)",
+                exports_office.report_docx,
+                ".docx",
+                exports_office.DOCX_MIME,
+                "share_report_docx_download",
+                "The same report as one Word document, its figures as pictures.",
+            ),
+            (
+                "Report tables (Excel)",
+                exports_office.report_xlsx,
+                "-tables.xlsx",
+                exports_office.XLSX_MIME,
+                "share_report_xlsx_download",
+                "Every table of the report, one sheet each, rounded as in the report.",
+            ),
+        ):
+            column.download_button(
+                label,
+                partial(build, built[1]),
+                file_name=f"{stem}{suffix}",
+                mime=mime,
+                key=key,
+                on_click="ignore",
+                help=help_text,
+            )
         return
     clicked = column.button(
         "Build the report",

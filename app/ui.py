@@ -315,6 +315,12 @@ def remember(key: str, value) -> None:
         st.session_state[key] = value
 
 
+def remember_choices(key: str, options, value: list) -> None:
+    """``remember`` for a multiselect, keeping only the kept choices still among the options."""
+    remember(key, value)
+    st.session_state[key] = [v for v in st.session_state[key] if v in options]
+
+
 def remember_choice(key: str, options: list, value) -> None:
     """Like ``remember``, and reset a kept choice that is no longer among the options."""
     if st.session_state.get(key) not in options:

@@ -64,10 +64,7 @@ with tabs[0]:
         st.info("The model has no numeric covariate; choose one on the Regression page.")
     else:
         cols = st.columns([3, 1, 2])
-        ui.remember(keys.SPLINE_VARIABLES, numeric[:1])
-        st.session_state[keys.SPLINE_VARIABLES] = [
-            v for v in st.session_state[keys.SPLINE_VARIABLES] if v in numeric
-        ]
+        ui.remember_choices(keys.SPLINE_VARIABLES, numeric, numeric[:1])
         chosen = cols[0].multiselect("Covariates as splines", numeric, key=keys.SPLINE_VARIABLES)
         ui.remember(keys.SPLINE_KNOTS, 4)
         cols[1].selectbox(
@@ -178,10 +175,7 @@ with tabs[1]:
             key=keys.SPLIT_TIMES,
             help="One or more times, separated by commas.",
         )
-        ui.remember(keys.SPLIT_CHANGING, [])
-        st.session_state[keys.SPLIT_CHANGING] = [
-            v for v in st.session_state[keys.SPLIT_CHANGING] if v in model
-        ]
+        ui.remember_choices(keys.SPLIT_CHANGING, model, [])
         cols[1].multiselect(
             "Effects allowed to change",
             model,
@@ -272,10 +266,8 @@ with tabs[2]:
         taken = {roles.time, roles.start, roles.end, roles.event, roles.group, roles.entry}
         taken |= {roles.id}
         options = [str(c) for c in table.frame.columns if str(c) not in taken]
-        ui.remember(keys.SUBGROUP_VARIABLES, [c for c in model if c in options][:2])
-        st.session_state[keys.SUBGROUP_VARIABLES] = [
-            v for v in st.session_state[keys.SUBGROUP_VARIABLES] if v in options
-        ]
+        first_two = [c for c in model if c in options][:2]
+        ui.remember_choices(keys.SUBGROUP_VARIABLES, options, first_two)
         cols = st.columns([3, 1, 2])
         chosen = cols[0].multiselect("Subgroup columns", options, key=keys.SUBGROUP_VARIABLES)
         ui.remember(keys.SUBGROUP_GROUPS, 2)
