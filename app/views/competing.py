@@ -311,13 +311,13 @@ else:
             shown = pd.DataFrame(
                 {
                     "Term": [
-                        str(v) if lv is None or pd.isna(lv) else f"{v}: {lv} vs {ref}"
+                        term_label(v, None if lv is None or pd.isna(lv) else lv, ref)
                         for v, lv, ref in rows[["variable", "level", "reference"]].itertuples(
                             index=False
                         )
                     ],
                     "Subdistribution hazard ratio": rows["hazard_ratio"].map(lambda v: f"{v:.3f}"),
-                    "95% interval": [
+                    "95% CI": [
                         f"{lo:.3f} to {hi:.3f}"
                         for lo, hi in rows[["lower", "upper"]].itertuples(index=False)
                     ],

@@ -13,6 +13,7 @@ from app import charts_models, compute_effects, data, share_section, ui
 from app import effects_settings as keys
 from engine.cox_diagnostics import ALL_TERMS
 from engine.subgroups import CAUTION
+from engine.wording import format_confidence, term_label
 
 st.title("Effects in depth", anchor=False)
 st.caption(
@@ -205,14 +206,14 @@ with tabs[1]:
                 )
                 terms = pd.DataFrame(refit["terms"])
                 label = [
-                    t["variable"] if t["level"] is None else f"{t['variable']}: {t['level']}"
+                    term_label(t["variable"], t["level"], t.get("reference"))
                     for t in refit["terms"]
                 ]
                 shown = pd.DataFrame(
                     {
                         "Term": label,
                         "Hazard ratio": terms["hazard_ratio"].map(_ratio_text),
-                        "95% interval": [
+                        f"{format_confidence(cox.get('confidence', 0.95))} CI": [
                             f"{_ratio_text(lo)} to {_ratio_text(hi)}"
                             for lo, hi in zip(terms["lower"], terms["upper"], strict=True)
                         ],
@@ -305,7 +306,7 @@ with tabs[2]:
                         "Subjects": records["n"],
                         "Events": records["events"],
                         "Hazard ratio": records["hazard_ratio"].map(_ratio_text),
-                        "95% interval": [
+                        f"{format_confidence(cox.get('confidence', 0.95))} CI": [
                             f"{_ratio_text(lo)} to {_ratio_text(hi)}"
                             for lo, hi in zip(records["lower"], records["upper"], strict=True)
                         ],
