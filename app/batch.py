@@ -402,14 +402,24 @@ def parametric_figure(prepared: PreparedData, settings: Mapping):
 def report_figures(prepared: PreparedData | None, results: Mapping, settings: Mapping) -> dict:
     """The report's figures: ``curves`` (and ``competing``, ``parametric`` when those analyses
     ran) from the prepared data, ``forest`` from the JSON."""
+    from engine.analysis import computed, is_not_computed
+
+    drawers = {
+        "curves": curve_figure,
+        "competing": incidence_figure,
+        "parametric": parametric_figure,
+    }
     figures = {}
     if prepared is not None and len(prepared.frame):
-        figures["curves"] = curve_figure(prepared, settings)
-        if results.get("competing"):
-            figures["competing"] = incidence_figure(prepared, settings)
-        if results.get("parametric"):
-            figures["parametric"] = parametric_figure(prepared, settings)
-    forest = forest_figure(results.get("cox"))
+        for name, draw in drawers.items():
+            section = results.get(name)
+            if section and not is_not_computed(section):
+                # a figure that cannot be drawn is left out; its section says what it can
+                figure = computed(draw, prepared, settings)
+                if not is_not_computed(figure):
+                    figures[name] = figure
+    cox = results.get("cox")
+    forest = None if is_not_computed(cox) else forest_figure(cox)
     if forest is not None:
         figures["forest"] = forest
     return figures

@@ -4,6 +4,7 @@ analysis sections (the JSON and the HTML report hold every number; these lines a
 
 from __future__ import annotations
 
+from engine.analysis import NOT_COMPUTED, is_not_computed
 from engine.checks import PreparedData
 from engine.io import ImportedTable
 
@@ -50,18 +51,60 @@ def _fixed(value, digits: int = 2) -> str:
     return "n/a" if value is None else f"{value:.{digits}f}"
 
 
-def _test_line(test: dict) -> str:
-    """'log-rank: chi-square 3.21 on 1 df, p = 0.073' (n/a where a value is null)."""
+def _chi_square(test: dict) -> str:
+    """'chi-square 3.21 on 1 df, p = 0.073' (n/a where a value is null)."""
     return (
-        f"{test['test']}: chi-square {_fixed(test['statistic'])} on {_fmt(test['df'], 0)} df, "
-        f"p = {_fmt(test['p_value'])}"
+        f"chi-square {_fixed(test.get('statistic'))} on {_fmt(test.get('df'), 0)} df, "
+        f"p = {_fmt(test.get('p_value'))}"
     )
 
 
+def _test_line(test: dict) -> str:
+    """'log-rank: chi-square 3.21 on 1 df, p = 0.073'."""
+    return f"{test['test']}: {_chi_square(test)}"
+
+
+SECTION_TITLES = {
+    "curves": "Survival curves",
+    "comparison": "Group comparison",
+    "cox": "Cox model",
+    "ph_check": "proportional-hazards check",
+    "competing": "Competing risks",
+    "cause_specific_cox": "cause-specific Cox models",
+    "gray_test": "Gray's test",
+    "fine_gray": "Fine–Gray model",
+    "parametric": "Parametric models",
+    "sample_size": "Sample size and power",
+    "landmark": "Landmark analysis",
+    "performance": "Prediction performance",
+}
+
+
+def not_computed_lines(sections: dict) -> tuple[list[str], dict]:
+    """A line per section (or part of one) that could not be computed, with its reason, and
+    the sections with those parts set to None so the summaries below skip them."""
+    lines, shown = [], {}
+    for name, section in sections.items():
+        if is_not_computed(section):
+            lines.append(f"{SECTION_TITLES.get(name, name)}: not computed. {section[NOT_COMPUTED]}")
+            shown[name] = None
+            continue
+        if isinstance(section, dict):
+            parts = {k: v for k, v in section.items() if is_not_computed(v)}
+            for part, value in parts.items():
+                title = f"{SECTION_TITLES.get(name, name)}, {SECTION_TITLES.get(part, part)}"
+                lines.append(f"{title}: not computed. {value[NOT_COMPUTED]}")
+            section = {**section, **dict.fromkeys(parts)}
+        shown[name] = section
+    return lines, shown
+
+
 def analysis_summary(sections: dict, unit: str) -> str:
-    """A readable summary of the curves, comparison and Cox sections."""
+    """A readable summary of the curves, comparison and Cox sections (and the optional ones);
+    a section that could not be computed is one line saying why."""
+    reasons, sections = not_computed_lines(sections)
     lines = ["", f"Survival ({unit}):"]
-    for curve in sections["curves"]:
+    for curve in sections["curves"] or ():
         label = "all rows" if curve["group"] is None else curve["group"]
         median = curve["median"]
         text = (
@@ -96,7 +139,7 @@ def analysis_summary(sections: dict, unit: str) -> str:
         )
         lines += [f"  Warning: {warning}" for warning in cox["warnings"]]
     lines += extra_summary(sections, unit)
-    return "\n".join(lines)
+    return "\n".join(lines + reasons)
 
 
 def extra_summary(sections: dict, unit: str) -> list[str]:
@@ -114,10 +157,7 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
         if competing["warning"]:
             lines.append(f"  Note: {competing['warning']}")
         for row in competing.get("gray_test") or ():
-            lines.append(
-                f"  Gray's test, {row['cause']}: chi-square {row['statistic']:.2f} on "
-                f"{row['df']} df, p = {row['p_value']:.3g}"
-            )
+            lines.append(f"  Gray's test, {row['cause']}: {_chi_square(row)}")
         fine_gray = competing.get("fine_gray")
         if fine_gray:
             lines.append(
@@ -136,6 +176,11 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
     parametric = sections.get("parametric")
     if parametric:
         lines.append("Parametric models by AIC (lower is better):")
+        if parametric.get("rows_time_zero"):
+            lines.append(
+                f"  {parametric['rows_time_zero']} row(s) with time 0 left out of these fits "
+                "(no density at 0)"
+            )
         for row in parametric["aic_table"]:
             label = "" if row["group"] is None else f"{row['group']}: "
             lines.append(

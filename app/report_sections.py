@@ -7,6 +7,7 @@ when the analysis was not run; ``app.report.build_report`` puts them in order.
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Mapping, Sequence
 
 from app.report_html import (
@@ -22,6 +23,7 @@ from app.report_html import (
     statistics_table,
     table,
 )
+from engine.analysis import NOT_COMPUTED, is_not_computed
 from engine.wording import (
     NOT_REACHED,
     comparison_sentence,
@@ -53,6 +55,31 @@ ROLE_WORDS = (
 
 
 # --- sections ----------------------------------------------------------------------------------
+
+
+def not_computed_block(title: str, section: Mapping, level: int = 2) -> str:
+    """A section (or part) that could not be computed: its title and the reason, in place."""
+    return (
+        f"<h{level}>{escape(title)}</h{level}>\n"
+        f'<p class="not-computed"><strong>Not computed.</strong> '
+        f"{escape(section[NOT_COMPUTED])}</p>"
+    )
+
+
+def or_reason(title: str):
+    """Decorate a section writer: when its JSON part is ``{"not_computed": reason}`` the report
+    shows the title and the reason instead, and every other section is still written."""
+
+    def decorate(write):
+        @functools.wraps(write)
+        def section(part, *args, **kwargs):
+            if is_not_computed(part):
+                return not_computed_block(title, part)
+            return write(part, *args, **kwargs)
+
+        return section
+
+    return decorate
 
 
 def data_section(data: Mapping, fingerprint: Mapping | None, filters: Sequence[Mapping]) -> str:
@@ -118,6 +145,7 @@ def roles_section(roles: Mapping | None) -> str:
     return "<h2>Column roles</h2>\n" + table(["Role", "Column or value"], rows)
 
 
+@or_reason("Survival curves")
 def curves_section(curves: Sequence[Mapping], unit: str, confidence: float, figure) -> str:
     if not curves:
         return ""
@@ -171,6 +199,7 @@ def curves_section(curves: Sequence[Mapping], unit: str, confidence: float, figu
     return "\n".join(p for p in parts if p)
 
 
+@or_reason("Group comparison")
 def comparison_section(comparison: Mapping | None, pairwise) -> str:
     if not comparison:
         return ""
@@ -205,6 +234,7 @@ def _term_label(term: Mapping) -> str:
     return f"{term['variable']}: {term['level']} (vs {term.get('reference')})"
 
 
+@or_reason("Cox proportional-hazards model")
 def cox_section(cox: Mapping | None, confidence: float, forest) -> str:
     if not cox:
         return ""
@@ -278,7 +308,9 @@ def _quote(value) -> str:
 
 def ph_section(cox: Mapping | None) -> str:
     checks = (cox or {}).get("ph_check") or []
-    if not checks:
+    if is_not_computed(checks):
+        return not_computed_block("Proportional-hazards checks", checks)
+    if is_not_computed(cox) or not checks:
         return ""
     return (
         "<h2>Proportional-hazards checks</h2>\n"
@@ -291,6 +323,7 @@ def ph_section(cox: Mapping | None) -> str:
 # --- optional analyses (competing risks, parametric, sample size, landmark) ---------------------
 
 
+@or_reason("Competing risks")
 def competing_section(section: Mapping | None, unit: str, ci: str, figure) -> str:
     if not section:
         return ""
@@ -331,7 +364,11 @@ def competing_section(section: Mapping | None, unit: str, ci: str, figure) -> st
                 ),
             )
         )
-    for model in section.get("cause_specific_cox") or ():
+    models = section.get("cause_specific_cox") or ()
+    if is_not_computed(models):
+        parts.append(not_computed_block("Cause-specific Cox models", models, level=3))
+        models = ()
+    for model in models:
         parts.append(
             f"<h3>Cause-specific Cox model: {escape(model['cause'])}</h3>"
             f'<p class="meta">{model["n"]:,} rows, {model["events"]:,} events of this cause; '
@@ -354,6 +391,7 @@ def competing_section(section: Mapping | None, unit: str, ci: str, figure) -> st
     return "\n".join(p for p in parts if p)
 
 
+@or_reason("Parametric models")
 def parametric_section(section: Mapping | None, unit: str, ci: str, figure) -> str:
     if not section:
         return ""
@@ -397,7 +435,16 @@ def parametric_section(section: Mapping | None, unit: str, ci: str, figure) -> s
             caption=f"Medians in {unit}; survival in per cent.",
         ),
     ]
+    if section.get("rows_time_zero"):
+        parts.append(
+            f"<p>{section['rows_time_zero']:,} row(s) with time 0 are left out of these fits: "
+            "none of the four families has a density at time 0. The Kaplan–Meier curve keeps "
+            "them.</p>"
+        )
     aft = section.get("aft")
+    if is_not_computed(aft):
+        parts.append(not_computed_block("Accelerated failure time model", aft, level=3))
+        aft = None
     if aft:
         parts.append(
             "<h3>Accelerated failure time model "
@@ -425,6 +472,7 @@ def parametric_section(section: Mapping | None, unit: str, ci: str, figure) -> s
     return "\n".join(p for p in parts if p)
 
 
+@or_reason("Sample size and power")
 def sample_size_section(section: Mapping | None) -> str:
     if not section:
         return ""
@@ -456,6 +504,7 @@ def sample_size_section(section: Mapping | None) -> str:
     return "\n".join(parts)
 
 
+@or_reason("Landmark analysis")
 def landmark_section(section: Mapping | None, unit: str, ci: str) -> str:
     if not section:
         return ""
@@ -485,6 +534,8 @@ def landmark_section(section: Mapping | None, unit: str, ci: str) -> str:
         bullets((s for c in section["curves"] for s in curve_sentences(c, unit)), "sentences"),
     ]
     comparison = section.get("comparison")
-    if comparison:
+    if is_not_computed(comparison):
+        parts.append(not_computed_block("Comparison from the landmark", comparison, level=3))
+    elif comparison:
         parts.append(statistics_table([(comparison["test"], comparison)]))
     return "\n".join(p for p in parts if p)

@@ -16,7 +16,7 @@ stratification, a column name that column. Those columns are read from ``source`
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 
 import pandas as pd
 
@@ -25,7 +25,7 @@ from engine.columns import cut_at_quantiles
 from engine.compare import compare_frame
 from engine.cox import cox_json, fit_cox
 from engine.cox_diagnostics import proportional_hazards_test
-from engine.errors import RoleError
+from engine.errors import HazelError, RoleError
 from engine.summary import COMPARISON_KEYS, curves_json
 
 ANALYSIS_DEFAULTS: dict[str, dict] = {
@@ -236,13 +236,15 @@ def run_analysis(
     curves, comparison, cox = chosen["curves"], chosen["comparison"], chosen["cox"]
     sections: dict = {
         "data": prepared.report.to_dict(),
-        "curves": curves_json(
+        "curves": computed(
+            curves_json,
             prepared.frame,
             times=curves["times"] or (),
             confidence=curves["confidence"],
             transform=curves["ci_transform"],
         ),
-        "comparison": comparison_section(
+        "comparison": computed(
+            comparison_section,
             prepared,
             comparison["test"],
             comparison["rho"],
@@ -255,9 +257,43 @@ def run_analysis(
     }
     model = prepared.roles.covariates if cox["covariates"] is None else cox["covariates"]
     if prepared.roles.covariates and model:
-        result = fit_cox_from_settings(prepared, cox, source=source)
-        sections["cox"] = cox_json(result, proportional_hazards_test(result, cox["ph_transform"]))
+        sections["cox"] = computed(cox_section, prepared, cox, source)
     from engine.analysis_extra import extra_sections  # the optional analyses
 
     sections.update(extra_sections(prepared, chosen))
     return sections
+
+
+def cox_section(prepared: PreparedData, cox: Mapping, source: pd.DataFrame | None) -> dict:
+    """The "cox" object; a proportional-hazards check that cannot be computed says why in its
+    own place (``ph_check``) while the model's estimates stay."""
+    result = fit_cox_from_settings(prepared, cox, source=source)
+    check = computed(proportional_hazards_test, result, cox["ph_transform"])
+    if is_not_computed(check):
+        return {**cox_json(result), "ph_check": check}
+    return cox_json(result, check)
+
+
+# --- sections that cannot be computed -------------------------------------------------------------
+
+NOT_COMPUTED = "not_computed"
+
+
+def not_computed(reason: object) -> dict:
+    """The JSON form of a section that cannot be computed on these data: ``{"not_computed":
+    reason}``, the reason being the engine's own message (what is wrong and what to try)."""
+    return {NOT_COMPUTED: " ".join(str(reason).split())}
+
+
+def is_not_computed(section: object) -> bool:
+    return isinstance(section, Mapping) and NOT_COMPUTED in section
+
+
+def computed(make: Callable, *args, **kwargs):
+    """``make(*args, **kwargs)``, or ``not_computed(reason)`` when the data or settings do not
+    allow it (a ``HazelError``): one section's failure never costs the run its other sections.
+    Anything else is a bug in Hazel and is not hidden."""
+    try:
+        return make(*args, **kwargs)
+    except HazelError as error:
+        return not_computed(error)
