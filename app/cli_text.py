@@ -6,11 +6,14 @@ from __future__ import annotations
 
 from engine.analysis import NOT_COMPUTED, is_not_computed
 from engine.checks import PreparedData
+from engine.filters import FilterOutcome
 from engine.io import ImportedTable
 
 
-def data_summary(table: ImportedTable, prepared: PreparedData) -> str:
-    """A readable summary of the import and the data checks."""
+def data_summary(
+    table: ImportedTable, prepared: PreparedData, filtered: FilterOutcome | None = None
+) -> str:
+    """A readable summary of the import, the row filters and the data checks."""
     report = prepared.report
     roles = prepared.roles
     options = table.options
@@ -21,13 +24,16 @@ def data_summary(table: ImportedTable, prepared: PreparedData) -> str:
             f"encoding {options.encoding}" + ("" if table.confident else " (detection unsure)")
         )
     lines += [f"  note: {note}" for note in table.notes]
+    for text, rows in filtered.excluded if filtered is not None else ():
+        lines.append(f"Filter {text}: {rows} row(s) left out")
     time = roles.time or f"{roles.start} -> {roles.end}"
     lines.append(f"Time: {time} (reported in {report.time_unit})")
     if report.event_coding is not None:
         lines.append(f"Event: {report.event_coding.describe()}")
+    competing = f", {report.competing_events} competing events" if report.competing_events else ""
     lines.append(
         f"Rows read {report.rows_read}, used {report.rows_used}: "
-        f"{report.events} events, {report.censored} censored"
+        f"{report.events} events{competing}, {report.censored} censored"
     )
     for reason, rows in report.excluded:
         lines.append(f"  excluded: {rows} row(s), {reason}")
@@ -36,7 +42,8 @@ def data_summary(table: ImportedTable, prepared: PreparedData) -> str:
         for _, row in report.group_counts.iterrows():
             lines.append(
                 f"  {row['group']!s:<20} n={row['n']:<7} events={row['events']:<7} "
-                f"censored={row['censored']}"
+                + (f"competing={row['competing']:<7} " if report.competing_events else "")
+                + f"censored={row['censored']}"
             )
     lines += [f"Warning: {warning}" for warning in report.warnings]
     return "\n".join(lines)

@@ -177,7 +177,7 @@ def build_report(
 ) -> str:
     """The report as one HTML document (a string).
 
-    ``results`` is the command line's JSON object (schema 1), optionally with ``pairwise`` (a
+    ``results`` is the command line's JSON object (schema 2), optionally with ``pairwise`` (a
     list of records) beside ``comparison`` and ``rmst`` in curve entries; ``settings`` maps each
     analysis to its settings (``Recipe.settings()``); ``roles`` is ``Roles.to_dict()``;
     ``figures`` may hold ``"curves"`` (the Kaplan–Meier figure with numbers at risk) and

@@ -1,7 +1,7 @@
 """The report's sections, one per analysis: data, column roles, curves, comparison, Cox model,
 proportional-hazards checks, competing risks, parametric models, sample size and landmark.
 
-Each takes its part of the command line's JSON (schema 1) and returns an HTML fragment, or ""
+Each takes its part of the command line's JSON (schema 2) and returns an HTML fragment, or ""
 when the analysis was not run; ``app.report.build_report`` puts them in order.
 """
 
@@ -98,6 +98,7 @@ def data_section(data: Mapping, fingerprint: Mapping | None, filters: Sequence[M
         ("Rows read", data["rows_read"]),
         ("Rows used", data["rows_used"]),
         ("Events", data["events"]),
+        *([("Competing events", data["competing_events"])] if data.get("competing_events") else []),
         ("Censored", data["censored"]),
     ]
     parts.append(

@@ -1,4 +1,4 @@
-"""One analysis run from settings: the sections of the schema-1 JSON object.
+"""One analysis run from settings: the sections of the schema-2 JSON object.
 
 The command line, the report and a replayed recipe all call `run_analysis`, so the numbers they
 show come from one place. Settings use the layout a recipe stores:

@@ -255,7 +255,7 @@ def rmst_sentence(
     return f"{subject} was {estimate_text} {unit} ({_interval(low, high, confidence)})."
 
 
-# --- sentences for whole results, from their JSON form (the command line's schema 1) ------------
+# --- sentences for whole results, from their JSON form (the command line's schema 2) ------------
 
 
 def curve_sentences(curve: dict, unit: str, confidence: float = 0.95) -> list[str]:

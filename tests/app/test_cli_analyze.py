@@ -65,7 +65,7 @@ def test_freireich_published_values_through_the_command_line(freireich_csv):
         *("--times", "13", "--covariates", "arm"),
     )
     assert list(result) == ["schema", "data", "curves", "comparison", "cox"]
-    assert result["schema"] == 1
+    assert result["schema"] == 2
     overall, six_mp, placebo = result["curves"]
     assert overall["group"] is None and overall["n"] == 42 and overall["events"] == 30
     assert (six_mp["group"], placebo["group"]) == ("6-MP", "placebo")
