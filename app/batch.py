@@ -464,30 +464,48 @@ def report_figures(
 ) -> dict:
     """The report's figures: ``curves`` (and ``competing``, ``parametric`` when those analyses
     ran, ``residuals`` with the model, labelled by ``residuals_term``) from the prepared data,
-    ``forest`` from the JSON."""
+    ``forest`` from the JSON. A section that was not computed has no figure, and a figure that
+    cannot be drawn is left out (its section says what it can)."""
+    from engine.analysis import computed, is_not_computed
+
+    def usable(section) -> bool:
+        return bool(section) and not is_not_computed(section)
+
+    drawers = {
+        "curves": curve_figure,
+        "competing": incidence_figure,
+        "parametric": parametric_figure,
+    }
     figures = {}
     if prepared is not None and len(prepared.frame):
-        figures["curves"] = curve_figure(prepared, settings)
-        if results.get("cox") and results["cox"].get("ph_check"):
-            found = residual_figure(prepared, settings, source)
-            if found is not None:
+        for name, draw in drawers.items():
+            if usable(results.get(name)):
+                figure = computed(draw, prepared, settings)
+                if not is_not_computed(figure):
+                    figures[name] = figure
+        cox_section = results.get("cox")
+        if usable(cox_section) and usable(cox_section.get("ph_check")):
+            found = computed(residual_figure, prepared, settings, source)
+            if found is not None and not is_not_computed(found):
                 figures["residuals_term"], figures["residuals"] = found
-        if results.get("competing"):
-            figures["competing"] = incidence_figure(prepared, settings)
-        if results.get("parametric"):
-            figures["parametric"] = parametric_figure(prepared, settings)
     cox_confidence = {**ANALYSIS_DEFAULTS["cox"], **(settings.get("cox") or {})}["confidence"]
-    forest = forest_figure(results.get("cox"), cox_confidence)
+    cox = results.get("cox")
+    forest = forest_figure(cox, cox_confidence) if usable(cox) else None
     if forest is not None:
         figures["forest"] = forest
-    fine_gray = forest_figure(
-        (results.get("competing") or {}).get("fine_gray"),
-        cox_confidence,
-        x_title="Subdistribution hazard ratio (log scale)",
+    competing = results.get("competing")
+    fine_gray_section = competing.get("fine_gray") if usable(competing) else None
+    fine_gray = (
+        forest_figure(
+            fine_gray_section, cox_confidence, x_title="Subdistribution hazard ratio (log scale)"
+        )
+        if usable(fine_gray_section)
+        else None
     )
     if fine_gray is not None:
         figures["fine_gray_forest"] = fine_gray
-    calibration = calibration_figure(results.get("performance"))
+    performance = results.get("performance")
+    calibration = calibration_figure(performance) if usable(performance) else None
     if calibration is not None:
         figures["calibration"] = calibration
     return figures

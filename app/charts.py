@@ -126,7 +126,8 @@ def nice_ticks(upper: float, count: int = 10) -> list[float]:
     power = 10 ** math.floor(math.log10(raw))
     step = next(m * power for m in (1, 2, 2.5, 5, 10) if m * power >= raw)
     n = math.floor(upper / step + 1e-9)
-    return [round(i * step, 10) for i in range(n + 1)]
+    # 12 significant figures, not 10 decimals: times of 1e-310 keep distinct ticks
+    return [float(f"{i * step:.12g}") for i in range(n + 1)]
 
 
 def house_config(style: ChartStyle) -> dict:

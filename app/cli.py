@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 from pathlib import Path
 
@@ -19,6 +20,7 @@ from engine.checks import PreparedData, prepare
 from engine.cox_diagnostics import TIME_SCALES
 from engine.dates import IMPLAUSIBLE_CHOICES
 from engine.errors import HazelError
+from engine.filters import FilterError, FilterOutcome, RowFilter, apply_filters
 from engine.io import ImportedTable, ImportOptions, read_table
 from engine.recipe_schema import check_setting
 from engine.roles import TIME_UNITS, Roles
@@ -279,6 +281,16 @@ def add_role_options(parser: argparse.ArgumentParser) -> None:
     roles.add_argument("--strata", metavar="COL", help="strata column")
     roles.add_argument("--entry", metavar="COL", help="entry-time column (delayed entry)")
     roles.add_argument("--id", metavar="COL", help="subject id column")
+    rows = parser.add_argument_group("rows")
+    rows.add_argument(
+        "--filter",
+        metavar="COL:RULE[:V1,V2]",
+        action="append",
+        default=[],
+        help="keep only rows that pass (repeatable, applied in order before the data checks): "
+        "rules in, not_in, between, at_least, at_most, not_missing; e.g. age:between:18,80, "
+        "site:in:north,south, stage:not_missing",
+    )
     parser.add_argument("--json", metavar="OUT", help="write JSON results to OUT ('-' = stdout)")
 
 
@@ -329,17 +341,29 @@ def import_options_from_args(args: argparse.Namespace) -> ImportOptions:
     return ImportOptions(sep=sep, decimal=args.decimal, encoding=args.encoding, sheet=sheet)
 
 
+def filters_from_args(args: argparse.Namespace) -> tuple[RowFilter, ...]:
+    """``--filter COL:RULE[:VALUES]`` options, in the order given (engine.filters' rules)."""
+    try:
+        return tuple(RowFilter.from_text(text) for text in getattr(args, "filter", None) or ())
+    except FilterError as error:
+        raise UsageError(f"--filter: {error}") from None
+
+
 def load_prepared(
     args: argparse.Namespace, *, require_covariates: bool = False
-) -> tuple[ImportedTable, PreparedData]:
+) -> tuple[ImportedTable, PreparedData, FilterOutcome]:
+    """The table, its prepared rows and what the ``--filter`` options removed (before the data
+    checks, as a recipe's filters are)."""
+    filters = filters_from_args(args)
     table = read_table(Path(args.data), import_options_from_args(args))
+    filtered = apply_filters(table.frame, filters)
     prepared = prepare(
-        table.frame,
+        filtered.frame,
         roles_from_args(args),
         require_covariates=require_covariates,
         malformed_lines=table.malformed_lines,
     )
-    return table, prepared
+    return table, prepared, filtered
 
 
 def show(text: str, stream=None) -> None:
@@ -361,11 +385,14 @@ def write_json(sections: dict, out: str) -> None:
 
 
 def run_check(args: argparse.Namespace) -> int:
-    table, prepared = load_prepared(args)
+    table, prepared, filtered = load_prepared(args)
+    sections = {"data": prepared.report.to_dict()}
+    if filtered.excluded:
+        sections["filters"] = filtered.to_dict()
     if args.json != "-":
-        show(data_summary(table, prepared))
+        show(data_summary(table, prepared, filtered))
     if args.json:
-        write_json({"data": prepared.report.to_dict()}, args.json)
+        write_json(sections, args.json)
     return 0
 
 
@@ -507,7 +534,7 @@ def run_analysis(
 ROLE_OPTIONS = (
     "sep", "decimal", "encoding", "sheet", "time", "start", "end", "date_format", "day_first",
     "implausible_dates", "time_unit", "event", "event_value", "group", "covariates",
-    "categorical", "reference", "strata", "entry", "id", "competing",
+    "categorical", "reference", "strata", "entry", "id", "competing", "filter",
 )  # fmt: skip
 
 
@@ -533,7 +560,7 @@ def run_analyze(args: argparse.Namespace) -> int:
         if given:
             shown = ", ".join("--" + name.replace("_", "-") for name in given)
             raise UsageError(
-                f"--recipe brings its own import options and roles; leave out {shown} "
+                f"--recipe brings its own import options, roles and filters; leave out {shown} "
                 "(or drop --recipe and give every role as an option)"
             )
         run = load_recipe_run(args.recipe, args.data)
@@ -546,13 +573,14 @@ def run_analyze(args: argparse.Namespace) -> int:
         causes = causes_from_args(args)
         if causes:
             args.event_causes = causes
-        table, prepared = load_prepared(args)
+        table, prepared, filtered = load_prepared(args)
+        source = filtered.frame
         settings = settings_from_args(args)
     sections = run_analysis(table, prepared, settings, source)
     if filtered is not None and filtered.excluded:
         sections["filters"] = filtered.to_dict()
     if args.json != "-":
-        show(data_summary(table, prepared))
+        show(data_summary(table, prepared, filtered))
         show(
             analysis_summary(
                 sections,
@@ -603,3 +631,6 @@ def main(argv: list[str] | None = None) -> int:
     except HazelError as exc:
         show(f"error: {' '.join(str(exc).split())}", sys.stderr)
         return 2
+    except BrokenPipeError:  # the reader stopped early (| head): not an error of Hazel's
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0

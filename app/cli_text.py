@@ -8,7 +8,9 @@ blocks, each with its own header line.
 
 from __future__ import annotations
 
+from engine.analysis import NOT_COMPUTED, is_not_computed
 from engine.checks import PreparedData
+from engine.filters import FilterOutcome
 from engine.io import ImportedTable
 from engine.parametric import LABELS
 from engine.roles import event_in_words
@@ -27,8 +29,10 @@ from engine.wording import (
 )
 
 
-def data_summary(table: ImportedTable, prepared: PreparedData) -> str:
-    """A readable summary of the import and the data checks."""
+def data_summary(
+    table: ImportedTable, prepared: PreparedData, filtered: FilterOutcome | None = None
+) -> str:
+    """A readable summary of the import, the row filters and the data checks."""
     report = prepared.report
     roles = prepared.roles
     options = table.options
@@ -39,22 +43,30 @@ def data_summary(table: ImportedTable, prepared: PreparedData) -> str:
             f"encoding {options.encoding}" + ("" if table.confident else " (detection unsure)")
         )
     lines += [f"  note: {note}" for note in table.notes]
+    for text, rows in filtered.excluded if filtered is not None else ():
+        lines.append(f"Filter {text}: {rows} row(s) left out")
     time = roles.time or f"{roles.start} -> {roles.end}"
     lines.append(f"Time: {time} (reported in {report.time_unit})")
     if report.event_coding is not None:
         lines.append(f"Event: {report.event_coding.describe()}")
+    competing = f", {report.competing_events} competing events" if report.competing_events else ""
     lines.append(
         f"Rows read {report.rows_read:,}, used {report.rows_used:,}: "
-        f"{report.events:,} events, {report.censored:,} censored"
+        f"{report.events:,} events{competing}, {report.censored:,} censored"
     )
     for reason, rows in report.excluded:
         lines.append(f"  excluded: {rows:,} row(s), {reason}")
     if roles.group:
         lines.append(f"Group: {roles.group}")
-        lines.append(f"  {'level':<20} {'subjects':>9} {'events':>9} {'censored':>9}")
+        competing_header = f" {'competing':>9}" if report.competing_events else ""
+        lines.append(
+            f"  {'level':<20} {'subjects':>9} {'events':>9}{competing_header} {'censored':>9}"
+        )
         for _, row in report.group_counts.iterrows():
             lines.append(
-                f"  {row['group']!s:<20} {row['n']:>9,} {row['events']:>9,} {row['censored']:>9,}"
+                f"  {row['group']!s:<20} {row['n']:>9,} {row['events']:>9,}"
+                + (f" {row['competing']:>9,}" if report.competing_events else "")
+                + f" {row['censored']:>9,}"
             )
     lines += [f"Warning: {warning}" for warning in report.warnings]
     return "\n".join(lines)
@@ -64,17 +76,57 @@ def _time(value) -> str:
     return format_number(value, 1, missing=NOT_REACHED)
 
 
+SECTION_TITLES = {
+    "curves": "Survival curves",
+    "comparison": "Group comparison",
+    "cox": "Cox model",
+    "ph_check": "proportional-hazards check",
+    "competing": "Competing risks",
+    "cause_specific_cox": "cause-specific Cox models",
+    "gray_test": "Gray's test",
+    "fine_gray": "Fine–Gray model",
+    "parametric": "Parametric models",
+    "sample_size": "Sample size and power",
+    "landmark": "Landmark analysis",
+    "performance": "Prediction performance",
+    "subgroups": "Subgroup effects",
+    "baseline": "Baseline table",
+    "splines": "non-linear effects",
+    "time_split": "follow-up split",
+}
+
+
+def not_computed_lines(sections: dict) -> tuple[list[str], dict]:
+    """A line per section (or part of one) that could not be computed, with its reason, and
+    the sections with those parts set to None so the summaries below skip them."""
+    lines, shown = [], {}
+    for name, section in sections.items():
+        if is_not_computed(section):
+            lines.append(f"{SECTION_TITLES.get(name, name)}: not computed. {section[NOT_COMPUTED]}")
+            shown[name] = None
+            continue
+        if isinstance(section, dict):
+            parts = {k: v for k, v in section.items() if is_not_computed(v)}
+            for part, value in parts.items():
+                title = f"{SECTION_TITLES.get(name, name)}, {SECTION_TITLES.get(part, part)}"
+                lines.append(f"{title}: not computed. {value[NOT_COMPUTED]}")
+            section = {**section, **dict.fromkeys(parts)}
+        shown[name] = section
+    return lines, shown
+
+
 def analysis_summary(
     sections: dict, unit: str, *, confidence: float = 0.95, event: str | None = None
 ) -> str:
     """A readable summary of the curves, comparison and Cox sections (and the optional ones).
 
     ``event`` names the event in words (``engine.roles.event_in_words``); ``confidence`` is the
-    hazard ratios' interval level."""
+    hazard ratios' interval level. A section that could not be computed is one line saying why."""
+    reasons, sections = not_computed_lines(sections)
     lines = ["", f"Curves (times in {unit})"]
     median = median_name(event)
     lines.append(f"  {'group':<20} {'subjects':>9} {'events':>9}   {median} (interval)")
-    for curve in sections["curves"]:
+    for curve in sections["curves"] or ():
         label = "All rows" if curve["group"] is None else curve["group"]
         m = curve["median"]
         text = (
@@ -97,6 +149,8 @@ def analysis_summary(
         lines += ["", *cox_summary(cox, confidence), *model_variant_summary(cox)]
     lines += extra_summary(sections, unit)
     lines += subgroup_summary(sections)
+    if reasons:
+        lines += ["", *reasons]
     return "\n".join(lines)
 
 
@@ -194,6 +248,11 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
     parametric = sections.get("parametric")
     if parametric:
         lines += ["", "Parametric models by AIC (lower is better)"]
+        if parametric.get("rows_time_zero"):
+            lines.append(
+                f"  {parametric['rows_time_zero']:,} row(s) with time 0 left out of these fits "
+                "(no density at 0)"
+            )
         for row in parametric["aic_table"]:
             label = "" if row["group"] is None else f"{row['group']}: "
             name = LABELS.get(row["distribution"], row["distribution"])

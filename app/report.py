@@ -33,6 +33,7 @@ from app.report_sections import (
     roles_section,
     sample_size_section,
 )
+from engine.analysis import is_not_computed
 from engine.cox_diagnostics import TIME_SCALE_WORDS
 from engine.recipe import software_versions
 from engine.roles import Roles, event_in_words
@@ -124,7 +125,7 @@ def methods_paragraph(results: Mapping, settings: Mapping, software: Mapping[str
             f"({data['events']:,} events); rows left out are listed by reason under Data."
         )
     comparison = results.get("comparison")
-    if comparison:
+    if comparison and not is_not_computed(comparison):
         df = format_plain(comparison["df"])
         freedom = "degree" if df == "1" else "degrees"
         chosen = settings.get("comparison", {})
@@ -139,7 +140,7 @@ def methods_paragraph(results: Mapping, settings: Mapping, software: Mapping[str
             f"({df} {freedom} of freedom){_strata_words(strata)}."
         )
     cox = results.get("cox")
-    if cox:
+    if cox and not is_not_computed(cox):
         ties = cox.get("ties") or settings.get("cox", {}).get("ties", "efron")
         ph = settings.get("cox", {}).get("ph_time_scale", "survival")
         text.append(
@@ -197,7 +198,7 @@ def build_report(
     all_warnings = [
         *warnings,
         *data.get("warnings", []),
-        *((cox or {}).get("warnings", [])),
+        *((cox or {}).get("warnings", []) if not is_not_computed(cox) else []),
     ]
     body = [
         "<header>",

@@ -5,10 +5,11 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
-from app.report_html import cell, escape, num, table
+from app.report_html import cell, escape, num, or_reason, table
 from engine.baseline import SMD_NOTE, TEST_CAUTION, BaselineTable, display_frame
 
 
+@or_reason("Baseline table")
 def baseline_section(
     section: Mapping | None, settings: Mapping, labels: Mapping[str, str] | None = None
 ) -> str:

@@ -12,8 +12,19 @@ from collections.abc import Mapping
 
 import pandas as pd
 
-from app.report_html import cell, escape, figure_block, interval, num, statistics_table, table
+from app.report_html import (
+    cell,
+    escape,
+    figure_block,
+    interval,
+    not_computed_block,
+    num,
+    or_reason,
+    statistics_table,
+    table,
+)
 from app.report_sections import ph_check_rows
+from engine.analysis import is_not_computed
 from engine.wording import format_number, format_p, format_plain, format_ratio
 
 REPORT_SIZE = (640, 360)
@@ -50,7 +61,7 @@ def spline_figure(spline: Mapping):
 
 def model_variants_section(cox: Mapping | None, ci: str) -> str:
     """Robust errors, splines and the split model, or "" when none of them was asked for."""
-    if not cox:
+    if not cox or is_not_computed(cox):
         return ""
     parts = []
     if cox.get("variance") == "robust":
@@ -60,7 +71,11 @@ def model_variants_section(cox: Mapping | None, ci: str) -> str:
             "several rows. The likelihood-ratio tests and the proportional-hazards checks are "
             "model-based.</p>"
         )
-    for spline in cox.get("splines") or ():
+    splines = cox.get("splines") or ()
+    if is_not_computed(splines):
+        parts.append(not_computed_block("Non-linear effects", splines, level=3))
+        splines = ()
+    for spline in splines:
         knots = ", ".join(format_number(k, 4) for k in spline["knots"])
         parts += [
             f"<h3>Non-linear effect of {escape(spline['variable'])}</h3>",
@@ -81,7 +96,9 @@ def model_variants_section(cox: Mapping | None, ci: str) -> str:
             ),
         ]
     split = cox.get("time_split")
-    if split:
+    if is_not_computed(split):
+        parts.append(not_computed_block("Follow-up split", split, level=3))
+    elif split:
         times = ", ".join(format_plain(t) for t in split["times"])
         model = split["model"]
         parts += [
@@ -112,6 +129,7 @@ def subgroup_figure(section: Mapping):
     return charts.finish(charts_models.forest_chart(rows, style), style)
 
 
+@or_reason("Subgroup effects")
 def subgroups_section(section: Mapping | None, ci: str) -> str:
     if not section:
         return ""

@@ -6,10 +6,12 @@ Everything here writes HTML text; every string that came from the user or the da
 
 from __future__ import annotations
 
+import functools
 import html
 import re
 from collections.abc import Iterable, Mapping, Sequence
 
+from engine.analysis import NOT_COMPUTED, is_not_computed
 from engine.text_safety import visible_text
 from engine.wording import format_number, format_p, format_plain
 
@@ -189,3 +191,31 @@ def figure_block(figure, caption: str) -> str:
     if figure is None:
         return ""
     return f"<figure>{figure_svg(figure)}<figcaption>{escape(caption)}</figcaption></figure>"
+
+
+# --- sections that could not be computed -----------------------------------------------------
+
+
+def not_computed_block(title: str, section: Mapping, level: int = 2) -> str:
+    """A section (or part) that could not be computed: its title and the reason, in place."""
+    return (
+        f"<h{level}>{escape(title)}</h{level}>\n"
+        f'<p class="not-computed"><strong>Not computed.</strong> '
+        f"{escape(section[NOT_COMPUTED])}</p>"
+    )
+
+
+def or_reason(title: str):
+    """Decorate a section writer: when its JSON part is ``{"not_computed": reason}`` the report
+    shows the title and the reason instead, and every other section is still written."""
+
+    def decorate(write):
+        @functools.wraps(write)
+        def section(part, *args, **kwargs):
+            if is_not_computed(part):
+                return not_computed_block(title, part)
+            return write(part, *args, **kwargs)
+
+        return section
+
+    return decorate

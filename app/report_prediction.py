@@ -5,7 +5,18 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
-from app.report_html import cell, escape, figure_block, interval, num, statistics_table, table
+from app.report_html import (
+    cell,
+    escape,
+    figure_block,
+    interval,
+    not_computed_block,
+    num,
+    or_reason,
+    statistics_table,
+    table,
+)
+from engine.analysis import is_not_computed
 from engine.wording import format_number, format_p, format_plain, format_ratio
 
 
@@ -19,7 +30,9 @@ def competing_regression_block(section: Mapping, unit: str, ci: str, forest) -> 
     """Gray's test per cause and the Fine–Gray model, inside the competing-risks section."""
     parts = []
     tests = section.get("gray_test")
-    if tests:
+    if is_not_computed(tests):
+        parts.append(not_computed_block("Gray's test", tests, level=3))
+    elif tests:
         parts += [
             "<h3>Gray's test of equal cumulative incidence across groups</h3>",
             statistics_table([(t["cause"], t) for t in tests], "Cause"),
@@ -27,7 +40,9 @@ def competing_regression_block(section: Mapping, unit: str, ci: str, forest) -> 
             "competing events. A large p-value is not evidence that the groups are alike.</p>",
         ]
     model = section.get("fine_gray")
-    if model:
+    if is_not_computed(model):
+        parts.append(not_computed_block("Fine–Gray model", model, level=3))
+    elif model:
         rows = [
             [
                 cell(_term_label(t)),
@@ -74,6 +89,7 @@ def competing_regression_block(section: Mapping, unit: str, ci: str, forest) -> 
     return "\n".join(p for p in parts if p)
 
 
+@or_reason("Prediction performance of the Cox model")
 def performance_section(section: Mapping | None, unit: str, figure) -> str:
     if not section:
         return ""

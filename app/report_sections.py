@@ -17,12 +17,15 @@ from app.report_html import (
     figure_block,
     group_label,
     interval,
+    not_computed_block,
     num,
+    or_reason,
     record_rows,
     statistics_table,
     table,
 )
 from app.report_prediction import competing_regression_block
+from engine.analysis import is_not_computed
 from engine.wording import (
     NOT_REACHED,
     comparison_sentence,
@@ -77,6 +80,7 @@ def data_section(data: Mapping, fingerprint: Mapping | None, filters: Sequence[M
         ("Rows read", data["rows_read"]),
         ("Rows used", data["rows_used"]),
         ("Events", data["events"]),
+        *([("Competing events", data["competing_events"])] if data.get("competing_events") else []),
         ("Censored", data["censored"]),
     ]
     parts.append(
@@ -138,6 +142,7 @@ def roles_section(roles: Mapping | None, column_labels: Mapping[str, str] | None
     return "<h2>Column roles</h2>\n" + table(["Role", "Column or value"], rows)
 
 
+@or_reason("Survival curves")
 def curves_section(
     curves: Sequence[Mapping], unit: str, confidence: float, figure, event: str | None = None
 ) -> str:
@@ -208,6 +213,7 @@ def curves_section(
     return "\n".join(p for p in parts if p)
 
 
+@or_reason("Group comparison")
 def comparison_section(comparison: Mapping | None, pairwise) -> str:
     if not comparison:
         return ""
@@ -240,6 +246,7 @@ def _term_label(term: Mapping) -> str:
     return term_label(term["variable"], term.get("level"), term.get("reference"))
 
 
+@or_reason("Cox proportional-hazards model")
 def cox_section(cox: Mapping | None, confidence: float, forest) -> str:
     if not cox:
         return ""
@@ -330,7 +337,11 @@ def ph_section(cox: Mapping | None, figure=None, plotted: str | None = None) -> 
     p-value) when ``figure`` is given."""
     from engine.cox_diagnostics import TIME_SCALE_WORDS
 
+    if is_not_computed(cox):
+        return ""
     check = (cox or {}).get("ph_check")
+    if is_not_computed(check):
+        return not_computed_block("Proportional-hazards checks", check)
     if not check:
         return ""
     scale = check.get("time_scale", "survival")
@@ -383,6 +394,7 @@ def cox_headers(ci: str) -> list[str]:
 # --- optional analyses (competing risks, parametric, sample size, landmark) ---------------------
 
 
+@or_reason("Competing risks")
 def competing_section(
     section: Mapping | None, unit: str, ci: str, figure, fine_gray_forest=None
 ) -> str:
@@ -426,7 +438,11 @@ def competing_section(
             )
         )
     parts.append(competing_regression_block(section, unit, ci, fine_gray_forest))
-    for model in section.get("cause_specific_cox") or ():
+    models = section.get("cause_specific_cox") or ()
+    if is_not_computed(models):
+        parts.append(not_computed_block("Cause-specific Cox models", models, level=3))
+        models = ()
+    for model in models:
         parts.append(
             f"<h3>Cause-specific Cox model: {escape(model['cause'])}</h3>"
             f'<p class="meta">{model["n"]:,} rows, {model["events"]:,} events of this cause; '
@@ -449,6 +465,7 @@ def competing_section(
     return "\n".join(p for p in parts if p)
 
 
+@or_reason("Parametric models")
 def parametric_section(section: Mapping | None, unit: str, ci: str, figure) -> str:
     if not section:
         return ""
@@ -492,7 +509,16 @@ def parametric_section(section: Mapping | None, unit: str, ci: str, figure) -> s
             caption=f"Medians in {unit}; survival in per cent.",
         ),
     ]
+    if section.get("rows_time_zero"):
+        parts.append(
+            f"<p>{section['rows_time_zero']:,} row(s) with time 0 are left out of these fits: "
+            "none of the four families has a density at time 0. The Kaplan–Meier curve keeps "
+            "them.</p>"
+        )
     aft = section.get("aft")
+    if is_not_computed(aft):
+        parts.append(not_computed_block("Accelerated failure time model", aft, level=3))
+        aft = None
     if aft:
         parts.append(
             "<h3>Accelerated failure time model "
@@ -520,6 +546,7 @@ def parametric_section(section: Mapping | None, unit: str, ci: str, figure) -> s
     return "\n".join(p for p in parts if p)
 
 
+@or_reason("Sample size and power")
 def sample_size_section(section: Mapping | None) -> str:
     if not section:
         return ""
@@ -565,6 +592,7 @@ def sample_size_section(section: Mapping | None) -> str:
     return "\n".join(p for p in parts if p)
 
 
+@or_reason("Landmark analysis")
 def landmark_section(section: Mapping | None, unit: str, ci: str, event: str | None = None) -> str:
     if not section:
         return ""
@@ -608,7 +636,9 @@ def landmark_section(section: Mapping | None, unit: str, ci: str, event: str | N
         ),
     ]
     comparison = section.get("comparison")
-    if comparison:
+    if is_not_computed(comparison):
+        parts.append(not_computed_block("Comparison from the landmark", comparison, level=3))
+    elif comparison:
         parts.append(statistics_table([(comparison["test"], comparison)]))
         parts.append(
             "<p>"

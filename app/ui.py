@@ -274,7 +274,7 @@ def sidebar(roles_page) -> None:
                 f"**Rows used** {report.rows_used:,} of {report.rows_read:,}  \n"
                 f"**Events** {report.events:,} · "
                 + (f"**competing events** {competing:,} · " if competing else "")
-                + f"**censored** {report.censored - competing:,}"
+                + f"**censored** {report.censored:,}"
             )
             if report.warnings:
                 st.caption(f"{len(report.warnings)} data warning(s)")

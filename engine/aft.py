@@ -126,6 +126,7 @@ class AFTFit:
     log_likelihood: float
     aic: float
     confidence_level: float
+    rows_time_zero: int = 0  # rows at time 0, left out (no distribution here allows them)
 
     def _linear_and_shape(self, profiles: pd.DataFrame):
         x = design_matrix(profiles, self.encodings)
@@ -187,6 +188,7 @@ class AFTFit:
             "n": self.n,
             "n_events": self.n_events,
             "rows_dropped": self.rows_dropped,
+            "rows_time_zero": self.rows_time_zero,
             "missing_by_covariate": {k: int(v) for k, v in self.missing_by_covariate.items()},
             "log_likelihood": float(self.log_likelihood),
             "aic": float(self.aic),
@@ -250,16 +252,14 @@ def fit_aft(
     encodings = _encodings(frame, covariates)
     x = design_matrix(frame, encodings)
     missing = {c: int(frame[c].isna().sum()) for c in covariates}
-    keep = x.notna().all(axis=1).to_numpy()
+    complete = x.notna().all(axis=1).to_numpy()
+    # A time of 0 has no density under any of these families: such rows are left out, counted.
+    at_zero = complete & (frame["_time"].to_numpy(dtype=float) <= 0)
+    keep = complete & ~at_zero
     time = frame["_time"].to_numpy(dtype=float)[keep]
     event = frame["_event"].to_numpy()[keep].astype(bool)
     entry = frame["_entry"].to_numpy(dtype=float)[keep] if "_entry" in frame.columns else None
     x = x[keep]
-    if (time <= 0).any():
-        raise AnalysisError(
-            f"AFT models need times > 0; column '_time' has {int((time <= 0).sum())} rows at 0. "
-            "Exclude them or correct the times."
-        )
     if event.sum() <= x.shape[1] + 1:
         raise AnalysisError(
             f"Only {int(event.sum())} events for {x.shape[1]} model terms; the AFT model cannot be "
@@ -329,7 +329,8 @@ def fit_aft(
         encodings=encodings,
         n=int(keep.sum()),
         n_events=int(event.sum()),
-        rows_dropped=int((~keep).sum()),
+        rows_dropped=int((~complete).sum()),
+        rows_time_zero=int(at_zero.sum()),
         missing_by_covariate=missing,
         max_time=float(time.max()),
         coefficients=coefs,

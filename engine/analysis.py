@@ -16,7 +16,7 @@ stratification, a column name that column. Those columns are read from ``source`
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 
 import pandas as pd
 
@@ -25,7 +25,7 @@ from engine.columns import cut_at_quantiles
 from engine.compare import compare_frame
 from engine.cox import cox_json, fit_cox
 from engine.cox_diagnostics import proportional_hazards_test
-from engine.errors import RoleError
+from engine.errors import HazelError, RoleError
 from engine.summary import COMPARISON_KEYS, curves_json
 
 ANALYSIS_DEFAULTS: dict[str, dict] = {
@@ -277,13 +277,15 @@ def run_analysis(
     curves, comparison, cox = chosen["curves"], chosen["comparison"], chosen["cox"]
     sections: dict = {
         "data": prepared.report.to_dict(),
-        "curves": curves_json(
+        "curves": computed(
+            curves_json,
             prepared.frame,
             times=curves["times"] or (),
             confidence=curves["confidence"],
             transform=curves["ci_transform"],
         ),
-        "comparison": comparison_section(
+        "comparison": computed(
+            comparison_section,
             prepared,
             comparison["test"],
             comparison["rho"],
@@ -296,13 +298,24 @@ def run_analysis(
     }
     model = prepared.roles.covariates if cox["covariates"] is None else cox["covariates"]
     if prepared.roles.covariates and model:
-        result = fit_cox_from_settings(prepared, cox, source=source)
-        sections["cox"] = cox_json(result, proportional_hazards_test(result, cox["ph_time_scale"]))
-        sections["cox"].update(cox_additions(prepared, cox, source))
+        sections["cox"] = computed(cox_section, prepared, cox, source)
     from engine.analysis_extra import extra_sections  # the optional analyses
 
     sections.update(extra_sections(prepared, chosen, source))
     return sections
+
+
+def cox_section(prepared: PreparedData, cox: Mapping, source: pd.DataFrame | None) -> dict:
+    """The "cox" object; a proportional-hazards check that cannot be computed says why in its
+    own place (``ph_check``) while the model's estimates stay."""
+    result = fit_cox_from_settings(prepared, cox, source=source)
+    check = computed(proportional_hazards_test, result, cox["ph_time_scale"])
+    if is_not_computed(check):
+        section = {**cox_json(result), "ph_check": check}
+    else:
+        section = cox_json(result, check)
+    section.update(cox_additions(prepared, cox, source))
+    return section
 
 
 def cox_additions(prepared: PreparedData, cox: Mapping, source: pd.DataFrame | None) -> dict:
@@ -321,17 +334,46 @@ def cox_additions(prepared: PreparedData, cox: Mapping, source: pd.DataFrame | N
     common = {"ties": cox["ties"], "confidence": cox["confidence"], "variance": cox["variance"]}
     out: dict = {"splines": [], "time_split": None}
     if cox["splines"]:
-        out["splines"] = fit_splines(frame, chosen, cox["splines"], **arguments, **common).to_dict()
+        out["splines"] = computed(
+            lambda: fit_splines(frame, chosen, cox["splines"], **arguments, **common).to_dict()
+        )
     if cox["split"]:
         split = dict(cox["split"])
         arguments = {k: v for k, v in arguments.items() if k not in ("entry", "clusters")}
-        out["time_split"] = fit_split(
-            frame,
-            chosen,
-            split.get("times") or (),
-            split.get("changing") or (),
-            ph_time_scale=cox["ph_time_scale"],
-            **arguments,
-            **common,
-        ).to_dict()
+        out["time_split"] = computed(
+            lambda: fit_split(
+                frame,
+                chosen,
+                split.get("times") or (),
+                split.get("changing") or (),
+                ph_time_scale=cox["ph_time_scale"],
+                **arguments,
+                **common,
+            ).to_dict()
+        )
     return out
+
+
+# --- sections that cannot be computed -------------------------------------------------------------
+
+NOT_COMPUTED = "not_computed"
+
+
+def not_computed(reason: object) -> dict:
+    """The JSON form of a section that cannot be computed on these data: ``{"not_computed":
+    reason}``, the reason being the engine's own message (what is wrong and what to try)."""
+    return {NOT_COMPUTED: " ".join(str(reason).split())}
+
+
+def is_not_computed(section: object) -> bool:
+    return isinstance(section, Mapping) and NOT_COMPUTED in section
+
+
+def computed(make: Callable, *args, **kwargs):
+    """``make(*args, **kwargs)``, or ``not_computed(reason)`` when the data or settings do not
+    allow it (a ``HazelError``): one section's failure never costs the run its other sections.
+    Anything else is a bug in Hazel and is not hidden."""
+    try:
+        return make(*args, **kwargs)
+    except HazelError as error:
+        return not_computed(error)

@@ -17,9 +17,12 @@ from engine.json_values import frame_records, json_value
 
 
 def extra_sections(prepared: PreparedData, settings: Mapping[str, dict], source=None) -> dict:
-    """A section per optional analysis present in ``settings`` (already resolved); ``source``
-    is the frame ``prepare`` was given (a subgroup column may come from it;
-    the baseline table describes its columns as read)."""
+    """A section per optional analysis present in ``settings`` (already resolved); one that
+    cannot be computed is ``{"not_computed": reason}``. ``source`` is the frame ``prepare`` was
+    given (a subgroup column may come from it; the baseline table describes its columns as
+    read)."""
+    from engine.analysis import computed
+
     makers = {
         "competing": competing_section,
         "parametric": parametric_section,
@@ -40,15 +43,15 @@ def extra_sections(prepared: PreparedData, settings: Mapping[str, dict], source=
                 chosen = {**chosen, "ties": settings["cox"]["ties"]}
             if name in ("performance", "subgroups"):
                 chosen = {**chosen, "cox": settings["cox"]}
-            out[name] = maker(prepared, chosen)
+            out[name] = computed(maker, prepared, chosen)
     return out
 
 
 def competing_section(prepared: PreparedData, chosen: Mapping) -> dict:
     """Aalen–Johansen incidence per cause (and group) at the chosen times and at the end of
     follow-up, the 1 − KM warning, and cause-specific Cox models when covariates are set."""
-    from engine.analysis import categorical_covariates
-    from engine.competing import cause_specific_cox, cumulative_incidence
+    from engine.analysis import computed
+    from engine.competing import cumulative_incidence
 
     frame, roles = prepared.frame, prepared.roles
     result = cumulative_incidence(
@@ -67,28 +70,35 @@ def competing_section(prepared: PreparedData, chosen: Mapping) -> dict:
         "cause_specific_cox": None,
     }
     if chosen["cause_specific_cox"] and roles.covariates and "_cause" in frame.columns:
-        models = cause_specific_cox(
-            frame,
-            list(roles.covariates),
-            categorical=categorical_covariates(frame, roles.covariates),
-            reference=dict(roles.reference),
-            ties=chosen["ties"],
-            confidence=chosen["confidence"],
-        )
-        section["cause_specific_cox"] = [
-            {
-                "cause": cause,
-                "n": model.n,
-                "events": model.events,
-                "terms": model.to_dict()["terms"],
-            }
-            for cause, model in models.models
-        ]
-    section["gray_test"] = gray_test_section(prepared) if chosen.get("gray_test", True) else None
+        section["cause_specific_cox"] = computed(cause_specific_section, prepared, chosen)
+    # the parts below can fail on their own (a cause with no events...): each says why in place
+    section["gray_test"] = (
+        computed(gray_test_section, prepared) if chosen.get("gray_test", True) else None
+    )
     section["fine_gray"] = None
     if chosen.get("fine_gray"):
-        section["fine_gray"] = fine_gray_section(prepared, chosen)
+        section["fine_gray"] = computed(fine_gray_section, prepared, chosen)
     return section
+
+
+def cause_specific_section(prepared: PreparedData, chosen: Mapping) -> list[dict]:
+    """A Cox model per cause on the roles' covariates (the other causes censored)."""
+    from engine.analysis import categorical_covariates
+    from engine.competing import cause_specific_cox
+
+    frame, roles = prepared.frame, prepared.roles
+    models = cause_specific_cox(
+        frame,
+        list(roles.covariates),
+        categorical=categorical_covariates(frame, roles.covariates),
+        reference=dict(roles.reference),
+        ties=chosen["ties"],
+        confidence=chosen["confidence"],
+    )
+    return [
+        {"cause": cause, "n": model.n, "events": model.events, "terms": model.to_dict()["terms"]}
+        for cause, model in models.models
+    ]
 
 
 def gray_test_section(prepared: PreparedData) -> list[dict] | None:
@@ -173,6 +183,7 @@ def parametric_section(prepared: PreparedData, chosen: Mapping) -> dict:
     """AIC table, median and survival at times (extrapolation flagged), and with covariates the
     chosen family as an accelerated failure time model."""
     from engine.aft import fit_aft
+    from engine.analysis import computed
     from engine.parametric import fit_parametric
 
     frame, roles = prepared.frame, prepared.roles
@@ -188,17 +199,19 @@ def parametric_section(prepared: PreparedData, chosen: Mapping) -> dict:
         "aic_table": frame_records(result.aic_table),
         "estimates": frame_records(result.estimates),
         "failed": [{"distribution": d, "group": g, "reason": r} for d, g, r in result.failed],
+        "rows_time_zero": result.rows_time_zero,  # left out: no family has a density at 0
         "max_time": json_value(float(np.nanmax(frame["_time"].to_numpy(float)))),
         "aft": None,
     }
     if roles.covariates and chosen["aft_distribution"]:
-        aft = fit_aft(
-            frame,
-            list(roles.covariates),
-            chosen["aft_distribution"],
-            confidence_level=chosen["confidence"],
+        section["aft"] = computed(
+            lambda: fit_aft(
+                frame,
+                list(roles.covariates),
+                chosen["aft_distribution"],
+                confidence_level=chosen["confidence"],
+            ).to_dict()
         )
-        section["aft"] = aft.to_dict()
     return section
 
 
@@ -241,7 +254,7 @@ def sample_size_section(chosen: Mapping) -> dict:
 
 def landmark_section(prepared: PreparedData, chosen: Mapping) -> dict:
     """Curves and the group comparison among subjects still at risk at the landmark time."""
-    from engine.analysis import comparison_section
+    from engine.analysis import comparison_section, computed
     from engine.landmark import landmark
     from engine.summary import curves_json
 
@@ -260,8 +273,12 @@ def landmark_section(prepared: PreparedData, chosen: Mapping) -> dict:
             confidence=curves["confidence"],
             transform=curves["ci_transform"],
         ),
-        "comparison": comparison_section(
-            sub, chosen["test"], float(chosen.get("rho", 0.0)), float(chosen.get("gamma", 0.0))
+        "comparison": computed(
+            comparison_section,
+            sub,
+            chosen["test"],
+            float(chosen.get("rho", 0.0)),
+            float(chosen.get("gamma", 0.0)),
         ),
     }
 

@@ -80,15 +80,17 @@ class DataReport:
     group_counts: pd.DataFrame
     event_coding: EventCoding | None = None
     covariate_kinds: dict = field(default_factory=dict)
-    # Rows counted in `censored` whose event was a competing cause (named causes only).
+    # Rows whose event was a competing cause (named causes only); not counted in `censored`.
     competing_events: int = 0
 
     def to_dict(self) -> dict:
-        """The ``data`` object of the JSON contract (schema 1); keys are fixed."""
+        """The ``data`` object of the JSON contract (schema 2); keys are fixed. ``events`` +
+        ``competing_events`` + ``censored`` = ``rows_used``."""
         return {
             "rows_read": int(self.rows_read),
             "rows_used": int(self.rows_used),
             "events": int(self.events),
+            "competing_events": int(self.competing_events),
             "censored": int(self.censored),
             "time_unit": self.time_unit,
             "excluded": [{"reason": r, "rows": int(n)} for r, n in self.excluded],
@@ -200,12 +202,13 @@ def prepare(
         skipped = pd.DataFrame({REASON_COLUMN: MALFORMED_LINE, RAW_LINE_COLUMN: malformed_lines})
         excluded_rows = pd.concat([skipped, excluded_rows], ignore_index=True)
     events = int(prepared["_event"].sum())
+    competing = _competing_events(prepared)
     report = DataReport(
         rows_read=n + len(malformed_lines),
         rows_used=int(used.sum()),
         events=events,
-        censored=int(used.sum()) - events,
-        competing_events=_competing_events(prepared),
+        censored=int(used.sum()) - events - competing,
+        competing_events=competing,
         time_unit=roles.unit,
         excluded=excluded,
         warnings=tuple(notes),

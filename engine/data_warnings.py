@@ -16,25 +16,34 @@ TINY_GROUP = 5
 
 
 def group_counts(prepared: pd.DataFrame) -> pd.DataFrame:
-    """Rows, events and censored per group (one row "all" without a group role)."""
-    event = prepared["_event"]
+    """Rows, events, competing events and censored per group (one row "all" without a group
+    role). A competing event (a row of another named cause) is not counted as censored."""
+    event = prepared["_event"].to_numpy()
+    competing = np.zeros(len(event), dtype=np.int64)
+    if "_cause" in prepared:
+        competing = (prepared["_cause"].notna().to_numpy() & (event == 0)).astype(np.int64)
     if "_group" in prepared:
         groups = prepared["_group"].cat
         codes = groups.codes.to_numpy()
         has_group = codes >= 0
         size = len(groups.categories)
+
+        def per_group(weights=None):
+            chosen = None if weights is None else weights[has_group]
+            return np.bincount(codes[has_group], chosen, size).astype(np.int64)
+
         table = pd.DataFrame(
-            {
-                "n": np.bincount(codes[has_group], minlength=size),
-                "events": np.bincount(codes[has_group], event.to_numpy()[has_group], size),
-            },
+            {"n": per_group(), "events": per_group(event), "competing": per_group(competing)},
             index=pd.Index(list(groups.categories), dtype=object),
         )
     else:
-        table = pd.DataFrame({"n": [len(event)], "events": [int(event.sum())]}, index=["all"])
-    table["censored"] = table["n"] - table["events"]
+        table = pd.DataFrame(
+            {"n": [len(event)], "events": [int(event.sum())], "competing": [int(competing.sum())]},
+            index=["all"],
+        )
+    table["censored"] = table["n"] - table["events"] - table["competing"]
     table = table.rename_axis("group").reset_index()
-    return table.astype({"n": "int64", "events": "int64", "censored": "int64"})
+    return table.astype({c: "int64" for c in ("n", "events", "competing", "censored")})
 
 
 def warnings_on_used(prepared, frame, roles: Roles, time, counts) -> list[str]:

@@ -6,6 +6,8 @@ every row it removes is counted so the report can say how many rows each filter 
 
 from __future__ import annotations
 
+import math
+import re
 from dataclasses import dataclass
 
 import numpy as np
@@ -14,6 +16,10 @@ import pandas as pd
 from engine.errors import HazelError, preview_values
 
 RULES = ("in", "not_in", "between", "at_least", "at_most", "not_missing")
+# COLUMN:RULE[:VALUES]; the non-greedy column lets a column name hold colons
+_FILTER_TEXT = re.compile(
+    rf"^(?P<column>.+?):(?P<rule>{'|'.join(RULES)})(?::(?P<values>.*))?$", re.S
+)
 
 
 class FilterError(HazelError):
@@ -48,6 +54,28 @@ class RowFilter:
             values = [values]
         row_filter = cls(column=str(data["column"]), rule=str(data["rule"]), values=tuple(values))
         row_filter._check_shape()
+        return row_filter
+
+    @classmethod
+    def from_text(cls, text: str) -> RowFilter:
+        """A filter written as ``COLUMN:RULE[:V1,V2,...]`` (the command line's ``--filter``):
+        ``age:between:18,80``, ``site:in:north,south``, ``stage:not_missing``. The column is
+        everything before the last ``:RULE`` (so a column name may hold colons); values are
+        separated by commas and kept as text (``in`` compares a numeric column as numbers)."""
+        found = _FILTER_TEXT.match(text.strip())
+        if not found:
+            raise FilterError(
+                f"A filter is written COLUMN:RULE[:VALUES] with RULE one of {', '.join(RULES)} "
+                f"(for example age:between:18,80 or site:in:north,south); got {text!r}."
+            )
+        values = found["values"]
+        parts = [] if values is None or not values.strip() else values.split(",")
+        row_filter = cls(found["column"].strip(), found["rule"], tuple(v.strip() for v in parts))
+        row_filter._check_shape()
+        if row_filter.rule in ("between", "at_least", "at_most"):  # limits as numbers
+            limits = _numbers(row_filter.column, row_filter.values)
+            whole = tuple(int(v) if v.is_integer() else v for v in limits)
+            row_filter = cls(row_filter.column, row_filter.rule, whole)
         return row_filter
 
     def describe(self) -> str:
@@ -110,13 +138,17 @@ class RowFilter:
 
 
 def _numbers(column: str, values) -> list[float]:
+    """The limits as finite numbers (a limit of 'x', NaN or infinity is refused)."""
     try:
-        return [float(v) for v in values]
-    except (TypeError, ValueError):
+        numbers = [float(v) for v in values]
+    except (TypeError, ValueError, OverflowError):
+        numbers = [math.nan]
+    if not all(math.isfinite(v) for v in numbers):
         raise FilterError(
-            f"Filter on column '{column}': the limits must be numbers; got "
+            f"Filter on column '{column}': the limits must be finite numbers; got "
             f"{preview_values(values)}."
-        ) from None
+        )
+    return numbers
 
 
 def _membership(series: pd.Series, values) -> np.ndarray:

@@ -18,7 +18,7 @@ bounds exp(-exp(.)) stay within (0, 1)) and for log median (bounds stay positive
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 import pandas as pd
@@ -215,6 +215,7 @@ class ParametricComparison(AICComparison):
     aic_table: pd.DataFrame  # group, distribution, n_parameters, log_likelihood, aic, delta_aic
     curves: pd.DataFrame  # ParametricFit.survival rows for every fit on the grid
     estimates: pd.DataFrame  # median and survival at chosen times, with intervals
+    rows_time_zero: int = 0  # rows at time 0 left out by fit_parametric (no density at 0)
 
     def fit(self, distribution: str, group: str | None = None) -> ParametricFit:
         for f in self.fits:
@@ -228,6 +229,7 @@ class ParametricComparison(AICComparison):
             "failed": [{"distribution": d, "group": g, "reason": r} for d, g, r in self.failed],
             "curves": frame_records(self.curves),
             "estimates": frame_records(self.estimates),
+            "rows_time_zero": self.rows_time_zero,
         }
 
 
@@ -460,21 +462,27 @@ def fit_parametric(
     """compare_distributions on a prepared frame (``_time``, ``_event``, optional ``_entry``).
 
     With ``by_group`` each level of ``_group`` gets its own fits (rows with a missing group are
-    then left out), ready to overlay on that group's Kaplan–Meier curve.
+    then left out), ready to overlay on that group's Kaplan–Meier curve. Rows at time 0 are left
+    out (none of the families has a density there) and counted in ``rows_time_zero``.
     """
+    at_zero = frame["_time"].to_numpy(dtype=float) <= 0
+    if at_zero.any():  # no family here has a density at 0: left out and counted
+        frame = frame.loc[~at_zero]
     group = None
     if by_group and "_group" in frame.columns:
         missing = frame["_group"].isna().to_numpy()
         frame = frame.loc[~missing]
         group = frame["_group"]
-    return compare_distributions(
-        frame["_time"].to_numpy(dtype=float),
-        frame["_event"].to_numpy(),
-        entry=frame["_entry"].to_numpy(dtype=float) if "_entry" in frame.columns else None,
-        group=group,
-        distributions=distributions,
-        times=times,
-        horizon=horizon,
-        grid_points=grid_points,
-        confidence_level=confidence_level,
-    )
+    with np.errstate(all="ignore"):  # extreme times overflow inside a failing fit, reported
+        result = compare_distributions(
+            frame["_time"].to_numpy(dtype=float),
+            frame["_event"].to_numpy(),
+            entry=frame["_entry"].to_numpy(dtype=float) if "_entry" in frame.columns else None,
+            group=group,
+            distributions=distributions,
+            times=times,
+            horizon=horizon,
+            grid_points=grid_points,
+            confidence_level=confidence_level,
+        )
+    return replace(result, rows_time_zero=int(at_zero.sum()))

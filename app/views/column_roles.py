@@ -350,11 +350,13 @@ except HazelError as error:
     st.stop()
 
 report = prepared.report
-cols = st.columns(4)
+cols = st.columns(5 if report.competing_events else 4)
 cols[0].metric("Rows read", f"{report.rows_read:,}")
 cols[1].metric("Rows used", f"{report.rows_used:,}")
 cols[2].metric("Events", f"{report.events:,}")
-cols[3].metric("Censored", f"{report.censored:,}")
+if report.competing_events:
+    cols[3].metric("Competing events", f"{report.competing_events:,}")
+cols[-1].metric("Censored", f"{report.censored:,}")
 
 if report.warnings:
     for note in report.warnings:

@@ -83,6 +83,11 @@ with ui.guard("The parametric fits"):
     )
     for dist, group, reason in result.failed:
         st.warning(f"{LABELS[dist]}{f' ({group})' if group else ''}: {ui.escape(reason)}")
+    if result.rows_time_zero:
+        st.info(
+            f"{result.rows_time_zero:,} row(s) with time 0 are left out of these fits: none of "
+            "the four families has a density at time 0. The Kaplan–Meier curve keeps them."
+        )
     st.subheader("Which shape fits best", anchor=False)
     aic = result.aic_table
     shown = aic.assign(
@@ -202,7 +207,9 @@ with ui.guard("The AFT model"):
         table.sha256, data.roles_key(roles), aft_dist, 0.95, table, tuple(roles.covariates)
     )
     st.caption(
-        f"{fit.n:,} rows, {fit.n_events:,} events. A time ratio above 1 means the event tends "
+        f"{fit.n:,} rows, {fit.n_events:,} events"
+        + (f" ({fit.rows_time_zero:,} at time 0 left out)" if fit.rows_time_zero else "")
+        + ". A time ratio above 1 means the event tends "
         "to come later (time is stretched); below 1, sooner."
     )
     coef = fit.coefficients.loc[fit.coefficients["term"] != "Intercept"]

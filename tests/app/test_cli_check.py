@@ -13,7 +13,10 @@ import pytest
 ROOT = Path(__file__).resolve().parents[2]
 DATA = ROOT / "tests" / "engine" / "data"
 DEMO = ROOT / "demo_data"
-DATA_KEYS = ["rows_read", "rows_used", "events", "censored", "time_unit", "excluded", "warnings"]
+DATA_KEYS = [
+    "rows_read", "rows_used", "events", "competing_events", "censored", "time_unit", "excluded",
+    "warnings",
+]  # fmt: skip
 
 
 def run(*args: str) -> subprocess.CompletedProcess:
@@ -86,7 +89,7 @@ def test_json_to_stdout_is_pure_json():
     frame = pd.read_csv(DEMO / "pump_bearings.csv")
     assert data["rows_read"] == len(frame)
     assert data["events"] == int(frame["failed"].sum())
-    assert data["events"] + data["censored"] == data["rows_used"]
+    assert data["events"] + data["competing_events"] + data["censored"] == data["rows_used"]
 
 
 def test_event_values_and_sheet(tmp_path):

@@ -79,16 +79,12 @@ def test_sections_hold_the_engine_numbers(tmp_path):
     "extra, message",
     [
         ((*DIED, "--fine-gray", "died"), "--fine-gray needs causes"),
-        ((*CAUSES, "--fine-gray", "stroke"), "'stroke'"),
-        ((*DIED, "--performance", "50,1e6"), "outside the follow-up"),
         ((*DIED, "--performance", "fifty"), "--performance expects numbers"),
         ((*DIED, "--performance", "50", "--bootstrap", "-1"), "--bootstrap must be a whole"),
         ((*DIED, "--performance", "50", "--risk-groups", "1"), "--risk-groups must be a whole"),
     ],
     ids=[
         "no causes",
-        "unknown cause",
-        "time past follow-up",
         "not a number",
         "bootstrap",
         "groups",
@@ -101,11 +97,37 @@ def test_bad_options_exit_2_with_one_line(extra, message):
     assert len(lines) == 1 and lines[0].startswith("error: ") and message in lines[0]
 
 
-def test_performance_needs_covariates():
+@pytest.mark.parametrize(
+    "extra, section, part, message",
+    [
+        ((*CAUSES, "--fine-gray", "stroke"), "competing", "fine_gray", "'stroke'"),
+        ((*DIED, "--performance", "50,1e6"), "performance", None, "outside the follow-up"),
+    ],
+    ids=["unknown cause", "time past follow-up"],
+)
+def test_a_part_the_data_do_not_allow_says_why_in_its_section(
+    tmp_path, extra, section, part, message
+):
+    """Issue 10 item 12: the reason is in the section; every other section is still there."""
+    out = tmp_path / "out.json"
+    done = _run(*BASE, *extra, "--json", str(out))
+    assert done.returncode == 0, done.stderr
+    results = json.loads(out.read_text(encoding="utf-8"))
+    found = results[section] if part is None else results[section][part]
+    assert message in found["not_computed"]
+    assert results["cox"]["terms"] and results["curves"][0]["n"]
+    assert "not computed" in done.stdout and message in done.stdout
+
+
+def test_performance_needs_covariates(tmp_path):
+    out = tmp_path / "out.json"
     done = _run(
-        "analyze", str(DAIRY), "--time", "weeks", "--event", "status", *DIED, "--performance", "50"
-    )
-    assert done.returncode == 2 and "needs covariates" in done.stderr
+        "analyze", str(DAIRY), "--time", "weeks", "--event", "status", *DIED, "--performance", "50",
+        "--json", str(out),
+    )  # fmt: skip
+    assert done.returncode == 0, done.stderr
+    performance = json.loads(out.read_text(encoding="utf-8"))["performance"]
+    assert "needs covariates" in performance["not_computed"]
 
 
 def test_report_has_the_sections_with_the_json_numbers(tmp_path):

@@ -8,6 +8,7 @@ directly, so the settings reach the same functions the pages call.
 
 from __future__ import annotations
 
+import re
 from dataclasses import replace
 from pathlib import Path
 
@@ -22,7 +23,6 @@ from engine.checks import prepare
 from engine.columns import cut_at_quantiles
 from engine.compare import compare_frame
 from engine.cox import fit_cox
-from engine.errors import RoleError
 from engine.io import read_table
 from engine.recipe import Recipe, make_recipe
 from engine.roles import Roles
@@ -161,12 +161,14 @@ def test_an_empty_covariate_subset_fits_no_model(table, prepared):
     assert run_analysis(prepared, {"cox": {"covariates": []}}, table.frame)["cox"] is None
 
 
-def test_unknown_columns_are_named(table, prepared):
+def test_unknown_columns_are_named_in_the_section_they_stop(table, prepared):
     cut = {"comparison": {"cut": {"column": "nowhere", "groups": 2}}}
-    with pytest.raises(RoleError, match="'nowhere'"):
-        run_analysis(prepared, cut, table.frame)
-    with pytest.raises(RoleError, match=r"'site'.*not among the covariates"):
-        run_analysis(prepared, {"cox": {"covariates": ["site"]}}, table.frame)
+    sections = run_analysis(prepared, cut, table.frame)
+    assert "'nowhere'" in sections["comparison"]["not_computed"]
+    assert sections["cox"]["terms"]  # the other sections are still computed
+    sections = run_analysis(prepared, {"cox": {"covariates": ["site"]}}, table.frame)
+    assert re.search(r"'site'.*not among the covariates", sections["cox"]["not_computed"])
+    assert sections["comparison"]["statistic"] > 0
 
 
 def test_a_recipe_without_the_new_keys_replays_as_before(table, prepared):

@@ -127,9 +127,10 @@ def test_landmark_section_counts_and_curves(dairy):
     assert section["comparison"]["df"] == 1
 
 
-def test_landmark_without_a_time_is_a_clear_error(dairy):
-    with pytest.raises(ValueError, match="needs a landmark time"):
-        run_analysis(dairy[1], {"landmark": {}})
+def test_landmark_without_a_time_is_a_clear_reason_in_its_section(dairy):
+    sections = run_analysis(dairy[1], {"landmark": {}})
+    assert "needs a landmark time" in sections["landmark"]["not_computed"]
+    assert sections["curves"][0]["n"] == len(dairy[1].frame)  # the rest is still there
 
 
 def test_recipe_keeps_the_optional_analyses_and_their_defaults(dairy):

@@ -83,6 +83,7 @@ def test_to_dict_has_exactly_the_contract_keys(trial):
         "rows_read",
         "rows_used",
         "events",
+        "competing_events",
         "censored",
         "time_unit",
         "excluded",
