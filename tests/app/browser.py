@@ -105,6 +105,22 @@ def wait_until_idle(page) -> None:
     page.wait_for_timeout(800)
 
 
+def click_when_settled(page, locator, attempts: int = 4) -> None:
+    """Click ``locator`` once the page is idle; a widget redrawn by a rerun in between (detached
+    from the page) is looked up again, so a slow machine does not fail the test."""
+    from playwright.sync_api import Error
+
+    for attempt in range(attempts):
+        wait_until_idle(page)
+        try:
+            locator.scroll_into_view_if_needed(timeout=10_000)
+            locator.click(timeout=10_000)
+            return
+        except Error:
+            if attempt == attempts - 1:
+                raise
+
+
 def walk_pages(page, pages, prefix: str = "") -> Iterator[str]:
     """Open each (slug, link title, marker text) page from the navigation, check it shows no
     exception and save a screenshot; yields each slug so the caller can look further there."""

@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import pytest
 
-from tests.app.browser import ARTIFACTS, demo_page, wait_until_idle
+from tests.app.browser import ARTIFACTS, click_when_settled, demo_page, wait_until_idle
 
 pytestmark = pytest.mark.browser
 
@@ -38,9 +38,7 @@ def test_performance_page_and_fine_gray_model(server):
         box.press("Enter")
         page.get_by_text("Gray's test", exact=False).first.wait_for(timeout=60_000)
         wait_until_idle(page)
-        cause = page.get_by_role("combobox", name="Cause modelled")
-        cause.scroll_into_view_if_needed()
-        cause.click()
+        click_when_settled(page, page.get_by_role("combobox", name="Cause modelled"))
         page.keyboard.type("died")
         page.keyboard.press("Enter")
         page.get_by_text("Predicted cumulative incidence of died").first.wait_for(timeout=60_000)
