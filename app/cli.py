@@ -538,6 +538,40 @@ ROLE_OPTIONS = (
 )  # fmt: skip
 
 
+# Settings that name columns, and the option that sets each on the command line.
+COLUMN_SETTINGS = {
+    ("baseline", "variables"): "--baseline-variables",
+    ("baseline", "group"): "--baseline-group",
+    ("subgroups", "variables"): "--subgroups",
+    ("cox", "splines"): "--spline",
+    ("cox", "split"): "--changing",
+}
+
+
+def check_named_columns(settings: dict, columns) -> None:
+    """A column named by an option (or the recipe's matching setting) that the data does not
+    have is a usage error before any analysis runs, not a section left uncomputed."""
+    available = list(dict.fromkeys(str(c) for c in columns))
+    for (analysis, setting), option in COLUMN_SETTINGS.items():
+        value = (settings.get(analysis) or {}).get(setting)
+        if setting == "splines":
+            names = [item.get("variable") for item in value or ()]
+        elif setting == "split":
+            names = list((value or {}).get("changing") or ())
+        elif isinstance(value, str):
+            names = [value]
+        else:
+            names = list(value or ())
+        unknown = [str(name) for name in names if str(name) not in available]
+        if unknown:
+            shown = ", ".join(repr(visible_text(name)) for name in unknown)
+            raise UsageError(
+                f"{option} names column(s) {shown} that the data does not have; columns: "
+                f"{', '.join(visible_text(c) for c in available[:12])}"
+                + (" ..." if len(available) > 12 else "")
+            )
+
+
 def causes_from_args(args: argparse.Namespace) -> tuple[tuple[str, str], ...]:
     """``--competing VALUE=CAUSE`` pairs, in the order given."""
     pairs = []
@@ -576,6 +610,7 @@ def run_analyze(args: argparse.Namespace) -> int:
         table, prepared, filtered = load_prepared(args)
         source = filtered.frame
         settings = settings_from_args(args)
+    check_named_columns(settings, (table.frame if source is None else source).columns)
     sections = run_analysis(table, prepared, settings, source)
     if filtered is not None and filtered.excluded:
         sections["filters"] = filtered.to_dict()

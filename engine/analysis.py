@@ -25,7 +25,7 @@ from engine.columns import cut_at_quantiles
 from engine.compare import compare_frame
 from engine.cox import cox_json, fit_cox
 from engine.cox_diagnostics import proportional_hazards_test
-from engine.errors import HazelError, RoleError
+from engine.errors import HazelError, RoleError, SettingError
 from engine.summary import COMPARISON_KEYS, curves_json
 
 ANALYSIS_DEFAULTS: dict[str, dict] = {
@@ -372,8 +372,11 @@ def is_not_computed(section: object) -> bool:
 def computed(make: Callable, *args, **kwargs):
     """``make(*args, **kwargs)``, or ``not_computed(reason)`` when the data or settings do not
     allow it (a ``HazelError``): one section's failure never costs the run its other sections.
-    Anything else is a bug in Hazel and is not hidden."""
+    A ``SettingError`` (the request itself is wrong) still stops the run, and anything else is a
+    bug in Hazel and is not hidden."""
     try:
         return make(*args, **kwargs)
+    except SettingError:
+        raise
     except HazelError as error:
         return not_computed(error)

@@ -14,7 +14,7 @@ import pandas as pd
 from scipy import stats
 
 from engine.concordance import ConcordanceResult, harrell_c
-from engine.cox_design import Design, Term, build_design
+from engine.cox_design import Design, Term, build_design, within_strata_constant, without_terms
 from engine.cox_likelihood import (
     TIES,
     RiskSetLayout,
@@ -100,6 +100,7 @@ class CoxResult:
     model: FittedModel = field(repr=False)
     variance: str = "model"  # "model" (inverse information) or "robust" (sandwich by cluster)
     clusters: int | None = None  # number of clusters of the robust variance
+    not_estimable: tuple[str, ...] = ()  # terms left out: constant within every stratum
 
     @property
     def covariance(self) -> np.ndarray:
@@ -135,6 +136,7 @@ class CoxResult:
             "concordance": json_float(self.concordance.concordance),
             "concordance_se": json_float(self.concordance.standard_error),
             "rows_dropped": {k: int(v) for k, v in self.dropped.items()},
+            "not_estimable": list(self.not_estimable),
             "variable_wald": [t.to_dict() for t in self.variable_wald],
             "without_each": [t.to_dict() for t in self.without_each],
             "ph_check": None if ph_check is None else dict(ph_check),
@@ -162,6 +164,23 @@ def _strata_codes(frame, used, strata):
         return None, ()
     values = pd.Categorical(frame[strata].to_numpy()[used])
     return values.codes.astype(np.int64), tuple(str(c) for c in values.categories)
+
+
+def _drop_within_strata_constant(
+    design: Design, codes: np.ndarray, strata: str
+) -> tuple[Design, tuple[str, ...]]:
+    """The design without the terms that do not vary within any stratum, and their labels."""
+    constant = within_strata_constant(design, codes)
+    if not constant:
+        return design, ()
+    labels = tuple(design.terms[j].label for j in constant)
+    if len(constant) == len(design.terms):
+        raise AnalysisError(
+            f"Every covariate term ({preview_values(labels)}) takes a single value within each "
+            f"stratum of '{strata}', so a model stratified by '{strata}' cannot estimate any of "
+            "them. Drop the strata, or choose covariates that vary within strata."
+        )
+    return without_terms(design, constant), labels
 
 
 def fit_cox(
@@ -204,6 +223,9 @@ def fit_cox(
     time = frame[time_col].to_numpy(dtype=float)[used]
     event = frame[event_col].to_numpy(dtype=float)[used] == 1
     codes, strata_levels = _strata_codes(frame, used, strata)
+    not_estimable: tuple[str, ...] = ()
+    if codes is not None:
+        design, not_estimable = _drop_within_strata_constant(design, codes, strata)
     entry_values = None if entry is None else frame[entry].to_numpy(dtype=float)[used]
     if entry_values is not None and np.any(entry_values >= time):
         bad = np.flatnonzero(entry_values >= time)
@@ -222,6 +244,12 @@ def fit_cox(
     scaled = (design.matrix[layout.order] - center) / scale
     fit = newton_raphson(layout, scaled, ties, max_iter=max_iterations)
     warnings = list(design.warnings)
+    if not_estimable:
+        warnings.append(
+            f"Covariate term(s) {preview_values(not_estimable)} take a single value within every "
+            f"stratum of '{strata}', so the stratified model cannot estimate their effect; they "
+            "are left out of the model and of its tests' degrees of freedom."
+        )
     p = scaled.shape[1]
     try:
         cov_scaled = np.linalg.inv(fit.information)
@@ -243,6 +271,14 @@ def fit_cox(
             f"Coefficient(s) for {', '.join(runaway)} run off to infinity (monotone likelihood, "
             "e.g. a level with no events or a covariate that separates events perfectly); their "
             "hazard ratios and tests are not meaningful. Merge or remove those levels."
+        )
+    finite_estimates = len(runaway) < p
+    no_test = ChiSquareTest("model", float("nan"), p, float("nan"))
+    if not finite_estimates:
+        warnings.append(
+            "The likelihood-ratio and Wald tests of the whole model are not reported: every "
+            "coefficient runs off to infinity, so there is no finite estimate to test. The score "
+            "test, computed at zero, still holds."
         )
     events = int(event.sum())
     if events / p < EVENTS_PER_PARAMETER:
@@ -280,14 +316,18 @@ def fit_cox(
         confidence=confidence,
         terms=terms,
         variable_wald=tuple(_variable_wald(design, beta, covariance if robust is None else robust)),
-        likelihood_ratio=chi_square("model", 2 * (fit.loglik - null_loglik), p),
+        likelihood_ratio=chi_square("model", 2 * (fit.loglik - null_loglik), p)
+        if finite_estimates
+        else no_test,
         wald=chi_square(
             "model",
             fit.beta @ fit.information @ fit.beta
             if robust is None
             else beta @ np.linalg.solve(robust, beta),
             p,
-        ),
+        )
+        if finite_estimates
+        else no_test,
         score=chi_square("model", fit.null_score_statistic, p),
         loglik=fit.loglik,
         null_loglik=null_loglik,
@@ -302,6 +342,7 @@ def fit_cox(
         model=model,
         variance="model" if robust is None else "robust",
         clusters=None if cluster_codes is None else int(cluster_codes.max()) + 1,
+        not_estimable=not_estimable,
     )
 
 

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 import pandas as pd
@@ -167,6 +167,45 @@ def build_design(
     return Design(
         tuple(terms), matrix, used, dropped, levels, level_counts, tuple(warnings), center, scale
     )
+
+
+def without_terms(design: Design, drop: Sequence[int]) -> Design:
+    """The design with the term columns ``drop`` left out (levels and counts follow)."""
+    keep = np.setdiff1d(np.arange(len(design.terms)), np.asarray(drop, dtype=int))
+    terms = tuple(design.terms[j] for j in keep)
+    variables = {t.variable for t in terms}
+    levels = {}
+    for variable, (ref, *rest) in design.levels.items():
+        kept = [level for level in rest if Term(variable, level, ref) in terms]
+        if kept:
+            levels[variable] = (ref, *kept)
+    counts = {k: v for k, v in design.level_counts.items() if k in levels}
+    return replace(
+        design,
+        terms=terms,
+        matrix=design.matrix[:, keep],
+        levels={k: v for k, v in levels.items() if k in variables},
+        level_counts=counts,
+        center=design.center[keep],
+        scale=design.scale[keep],
+    )
+
+
+def within_strata_constant(design: Design, codes: np.ndarray) -> list[int]:
+    """Columns of the design that take one value within every stratum (``codes``: the stratum
+    of each used row). A stratified partial likelihood compares subjects only within their
+    stratum, so such a term has no information: its coefficient is not estimable."""
+    if len(design.terms) == 0:
+        return []
+    order = np.argsort(codes, kind="stable")
+    sorted_codes = codes[order]
+    starts = np.flatnonzero(np.r_[True, sorted_codes[1:] != sorted_codes[:-1]])
+    matrix = design.matrix[order]
+    spread = np.maximum.reduceat(matrix, starts, axis=0) - np.minimum.reduceat(
+        matrix, starts, axis=0
+    )
+    tolerance = 1e-12 * (1 + np.abs(design.center))
+    return [int(j) for j in np.flatnonzero(np.all(spread <= tolerance, axis=0))]
 
 
 def check_collinearity(design: Design, covariance: np.ndarray) -> list[str]:

@@ -83,6 +83,7 @@ class SurvivalCurve:
     lower: np.ndarray
     upper: np.ndarray
     greenwood: np.ndarray  # Greenwood's sum, Var(log S); kept for quantiles and RMST
+    entry: np.ndarray | None = None  # with delayed entry: the rows' entry times, ascending
 
     @property
     def total_events(self) -> int:
@@ -174,6 +175,7 @@ def curve_from_table(
         lower=lower,
         upper=upper,
         greenwood=greenwood,
+        entry=None if table.entries is None else table.entries[0],
     )
 
 
@@ -231,9 +233,8 @@ def _with_group(frame: pd.DataFrame, label: object) -> pd.DataFrame:
 
 @dataclass(frozen=True)
 class SurvivalAtTable:
-    """Survival at chosen times. ``at_risk`` counts subjects with time >= t (with delayed entry:
-    at risk at the first observed time >= t); events and censorings are those strictly before t.
-    """
+    """Survival at chosen times. ``at_risk`` counts the subjects at risk at t: time >= t, and
+    with delayed entry also entry < t; events and censorings are those strictly before t."""
 
     label: object
     confidence: float
@@ -287,6 +288,14 @@ def survival_at(curve: SurvivalCurve, times) -> SurvivalAtTable:
         lower = np.where(beyond, np.nan, lower)
         upper = np.where(beyond, np.nan, upper)
     at_risk_full = np.append(curve.at_risk, 0)
+    at_risk = at_risk_full[before]
+    if curve.entry is not None:
+        # at the first observed time s >= t the count holds those entering in [t, s) too
+        next_time = np.append(curve.time, np.inf)[before]
+        entering = np.searchsorted(curve.entry, next_time, side="left") - np.searchsorted(
+            curve.entry, t, side="left"
+        )
+        at_risk = at_risk - entering
     cum_events = np.concatenate(([0], np.cumsum(curve.events)))
     cum_censored = np.concatenate(([0], np.cumsum(curve.censored)))
     frame = pd.DataFrame(
@@ -295,7 +304,7 @@ def survival_at(curve: SurvivalCurve, times) -> SurvivalAtTable:
             "survival": survival,
             "lower": lower,
             "upper": upper,
-            "at_risk": at_risk_full[before],
+            "at_risk": at_risk,
             "events_before": cum_events[before],
             "censored_before": cum_censored[before],
         }

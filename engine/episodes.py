@@ -24,7 +24,7 @@ import pandas as pd
 
 from engine.cox import CoxResult, cox_json, fit_cox
 from engine.cox_diagnostics import PHTest, proportional_hazards_test
-from engine.errors import AnalysisError, preview_values
+from engine.errors import SettingError, preview_values
 
 PERIOD = "_period"  # the period index of an episode after a split (0 before the first cut)
 
@@ -128,7 +128,7 @@ def split_at_times(
     """
     cuts = np.unique(np.asarray(list(times), dtype=float))
     if len(cuts) == 0 or not np.all(np.isfinite(cuts)) or np.any(cuts <= 0):
-        raise AnalysisError(
+        raise SettingError(
             f"Split times {list(times)!r} must be positive numbers (at least one); give the "
             "times, in the data's time unit, after which an effect may change."
         )
@@ -231,7 +231,7 @@ def fit_split(
     strata, ties, confidence, variance); ``entry`` and ``clusters`` are set here."""
     unknown = [v for v in changing if v not in covariates]
     if unknown:
-        raise AnalysisError(
+        raise SettingError(
             f"The effects allowed to change, {preview_values(unknown)}, must be covariates of the "
             f"model ({preview_values(list(covariates), 8)}); choose among those."
         )

@@ -36,6 +36,12 @@ class AnalysisError(HazelError):
     """An analysis cannot be computed on this data (too few rows, no events, a model that fails)."""
 
 
+class SettingError(AnalysisError):
+    """The settings ask for something the roles cannot give (a spline of a column that is not a
+    numeric covariate, an effect allowed to change that is not in the model): the request, not
+    the data, is wrong, so a run stops with the message instead of leaving a section out."""
+
+
 def preview_values(values, limit: int = 5) -> str:
     """Show a few offending values in a message, quoted, with a count of the rest."""
     values = [_plain(v) for v in values]

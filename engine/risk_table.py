@@ -28,6 +28,7 @@ class RiskTable:
     censored: np.ndarray  # (T, k) int64
     labels: tuple  # group labels (None for a single unlabelled group); a last, unlabelled
     # column, when present, holds rows without a group (they count only in `pooled`)
+    entries: tuple | None = None  # with delayed entry: each column's entry times, ascending
 
     def column(self, g: int) -> RiskTable:
         """One group's counts, keeping only the times at which that group has an observation."""
@@ -38,6 +39,7 @@ class RiskTable:
             events=self.events[keep, g : g + 1],
             censored=self.censored[keep, g : g + 1],
             labels=(self.labels[g],),
+            entries=None if self.entries is None else (self.entries[g],),
         )
 
     def pooled(self, label=None) -> RiskTable:
@@ -48,6 +50,7 @@ class RiskTable:
             events=self.events.sum(axis=1, keepdims=True),
             censored=self.censored.sum(axis=1, keepdims=True),
             labels=(label,),
+            entries=None if self.entries is None else (np.sort(np.concatenate(self.entries)),),
         )
 
 
@@ -171,10 +174,12 @@ def build_risk_table(time, event, codes=None, labels=(None,), entry=None) -> Ris
         # subjects with entered_after > j are not yet at risk at t_j
         not_yet = np.cumsum(counts[::-1], axis=0)[::-1][1:]
         at_risk = at_risk - not_yet
+        entries = tuple(np.sort(entry[codes == g]) for g in range(k))
     return RiskTable(
         times=times,
         at_risk=np.ascontiguousarray(at_risk),
         events=events,
         censored=censored,
         labels=tuple(labels),
+        entries=None if entry is None else entries,
     )

@@ -29,7 +29,7 @@ from scipy import stats
 
 from engine.cox import ChiSquareTest, CoxResult, chi_square, fit_cox
 from engine.cox_likelihood import newton_raphson
-from engine.errors import AnalysisError, preview_values
+from engine.errors import AnalysisError, SettingError, preview_values
 
 KNOT_QUANTILES = {
     3: (0.10, 0.50, 0.90),
@@ -46,7 +46,7 @@ CURVE_RANGE = (0.01, 0.99)  # the figure spans the 1st to the 99th percentile
 def knot_positions(values, knots: int = DEFAULT_KNOTS, name: str = "x") -> np.ndarray:
     """Knots at Harrell's standard quantiles of ``values`` (finite numbers)."""
     if knots not in KNOT_QUANTILES:
-        raise AnalysisError(
+        raise SettingError(
             f"A spline for '{name}' needs 3 to 7 knots, got {knots!r}; 4 is a common choice."
         )
     x = np.sort(np.asarray(values, dtype=float))
@@ -168,24 +168,24 @@ def _validated(frame, covariates, splines, categorical):
     for spec in splines:
         variable = str(spec.get("variable", ""))
         if variable not in covariates:
-            raise AnalysisError(
+            raise SettingError(
                 f"A spline is asked for '{variable}', which is not a covariate of the model "
                 f"({preview_values(list(covariates), 8)}); add it to the covariates first."
             )
         if variable in categorical or not pd.api.types.is_numeric_dtype(frame[variable]):
-            raise AnalysisError(
+            raise SettingError(
                 f"A spline needs a numeric covariate; '{variable}' is categorical. Choose a "
                 "continuous covariate."
             )
         knots = spec.get("knots") or DEFAULT_KNOTS
         if isinstance(knots, bool) or not isinstance(knots, int | np.integer):
-            raise AnalysisError(
+            raise SettingError(
                 f"The number of spline knots for '{variable}' must be a whole number from 3 to "
                 f"7, got {knots!r}."
             )
         chosen.append((variable, int(knots), spec.get("reference")))
     if len({v for v, _, _ in chosen}) < len(chosen):
-        raise AnalysisError("Each variable can have one spline; a variable is named twice.")
+        raise SettingError("Each variable can have one spline; a variable is named twice.")
     return chosen
 
 
@@ -204,7 +204,7 @@ def _effect(result, variable, knots, reference, names, frame) -> SplineEffect:
     if reference is None:
         reference = float(np.median(values))
     elif not isinstance(reference, int | float) or not np.isfinite(reference):
-        raise AnalysisError(
+        raise SettingError(
             f"The spline's reference value for '{variable}' must be a number, got {reference!r}."
         )
     low, high = np.quantile(values, CURVE_RANGE)

@@ -207,3 +207,40 @@ def test_report_with_missing_group_values_in_a_subprocess(tmp_path):
     assert sum(c["n"] for c in results["curves"][1:]) == 54
     assert "6 row(s) without a group" in done.stdout
     assert "6 row(s) without a group" in report.read_text(encoding="utf-8")
+
+
+def test_term_constant_within_strata_is_left_out_on_the_command_line(capsys, tmp_path):
+    """Issue 10 item 7, end to end: the term is listed as not estimable, the tests have one
+    degree of freedom, and the text summary carries the warning."""
+    frame = _frame(120, seed=3).assign(site=lambda f: np.arange(len(f)) % 3)
+    frame["budget"] = 10.0 * frame["site"] + 5
+    path = tmp_path / "sites.csv"
+    frame.to_csv(path, index=False)
+    argv = ["analyze", path, *BASE, "--covariates", "x,budget", "--strata", "site"]
+    code, out, _ = _contract(capsys, [*argv, "--json", "-"])
+    assert code == 0
+    cox = json.loads(out)["cox"]
+    assert cox["not_estimable"] == ["budget"] and [t["variable"] for t in cox["terms"]] == ["x"]
+    assert cox["likelihood_ratio"]["df"] == 1
+    code, out, _ = _contract(capsys, argv)
+    assert code == 0 and "'budget'" in out and "within every stratum" in out
+
+
+def test_runaway_coefficients_give_no_whole_model_p_on_the_command_line(capsys, tmp_path):
+    """Issue 10 item 10, end to end: no likelihood-ratio p of 0.0 when nothing is estimable."""
+    n = 40
+    frame = pd.DataFrame(
+        {
+            "t": np.arange(1, n + 1, dtype=float),
+            "e": np.r_[np.ones(n // 2), np.zeros(n // 2)].astype(int),
+            "x": np.r_[np.ones(n // 2), np.zeros(n // 2)],
+        }
+    )
+    path = tmp_path / "separated.csv"
+    frame.to_csv(path, index=False)
+    code, out, _ = _contract(capsys, ["analyze", path, *BASE, "--covariates", "x", "--json", "-"])
+    assert code == 0
+    cox = json.loads(out)["cox"]
+    assert cox["likelihood_ratio"]["p_value"] is None and cox["wald"]["p_value"] is None
+    code, out, _ = _contract(capsys, ["analyze", path, *BASE, "--covariates", "x"])
+    assert "Likelihood ratio  chi-squared not estimable, p not estimable" in out

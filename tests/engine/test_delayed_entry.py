@@ -12,8 +12,9 @@ from numpy.testing import assert_allclose
 
 from engine.competing import aalen_johansen
 from engine.cox import fit_cox
-from engine.curves import curves_by_group, kaplan_meier
+from engine.curves import curves_by_group, kaplan_meier, survival_at
 from engine.landmark import landmark
+from engine.summary import curves_json, numbers_at_risk_frame
 
 # A enters at 0 and dies at 3; B enters at 0, dies at 6; C enters at 5, dies at 8; D enters at 0,
 # censored at 10; E enters at 3 (the moment A dies), dies at 9.
@@ -111,3 +112,25 @@ def test_landmark_on_original_scale_gives_conditional_km(rng):
     s_at = full.survival[np.searchsorted(full.time, at, side="right") - 1]
     expected = full.survival[full.time > at] / s_at
     assert_allclose(after.survival, expected, atol=1e-12)
+
+
+def test_survival_at_counts_at_risk_as_entry_before_t_and_time_from_t(rng):
+    """Issue 10 item 9: with an entry time, ``at_risk`` at t counts entry < t <= time (the risk
+    set's definition), also at times between observed times where someone enters; the same
+    count as the numbers-at-risk table under the figure (an exact property)."""
+    n = 300
+    entry = rng.uniform(0, 5, n).round(1)
+    time = entry + rng.exponential(5, n).round(1) + 0.1
+    event = rng.integers(0, 2, n)
+    group = rng.choice(["a", "b"], n)
+    ticks = np.unique(np.r_[np.arange(0.0, 12, 0.37), entry[:25], time[:25]])
+    direct = [int(((entry < t) & (t <= time)).sum()) for t in ticks]
+    curve = kaplan_meier(time, event, entry=entry)
+    assert survival_at(curve, ticks).frame["at_risk"].tolist() == direct
+    frame = pd.DataFrame({"_time": time, "_event": event, "_entry": entry, "_group": group})
+    table = numbers_at_risk_frame(frame, ticks).frame
+    for curve in curves_by_group(frame).curves[1:]:
+        rows = table[table["group"] == curve.label]
+        assert survival_at(curve, ticks).frame["at_risk"].tolist() == rows["at_risk"].tolist()
+    json_curve = curves_json(frame, times=ticks[:5])[0]
+    assert [p["at_risk"] for p in json_curve["at_times"]] == direct[:5]

@@ -313,8 +313,10 @@ def test_property_any_split_leaves_the_fit_unchanged(cuts, ties):
     data = episodes(3, subjects=60)
     whole = fit_cox(data, ["lab", "treated"], entry="_entry", clusters="_id", ties=ties)
     refit = fit_split(data, ["lab", "treated"], cuts, ties=ties).result
-    assert_allclose(refit.model.beta, whole.model.beta, rtol=1e-8, atol=1e-10)
-    assert_allclose(refit.covariance, whole.covariance, rtol=1e-7, atol=1e-12)
+    # exact in exact arithmetic; the two fits stop at the Newton-Raphson tolerance (a relative
+    # log-likelihood change of 1e-11), which leaves the coefficients equal to about 1e-7
+    assert_allclose(refit.model.beta, whole.model.beta, rtol=1e-6, atol=1e-9)
+    assert_allclose(refit.covariance, whole.covariance, rtol=1e-6, atol=1e-12)
 
 
 @settings(
