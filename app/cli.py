@@ -666,6 +666,13 @@ def main(argv: list[str] | None = None) -> int:
     except HazelError as exc:
         show(f"error: {' '.join(str(exc).split())}", sys.stderr)
         return 2
+    except MemoryError:  # past the import's own check (which names the file and the figures)
+        show(
+            "error: Hazel ran out of memory; keep only the columns and rows the analysis needs, "
+            "or use a computer with more memory",
+            sys.stderr,
+        )
+        return 2
     except BrokenPipeError:  # the reader stopped early (| head): not an error of Hazel's
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 0

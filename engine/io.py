@@ -30,6 +30,7 @@ from engine.io_text import (
     read_head,
     read_text,
 )
+from engine.memory import out_of_memory
 
 DEFAULT_MISSING_TOKENS: tuple[str, ...] = ("", "NA", "N/A", ".", "-", "null", "NaN", "missing")
 DEFAULT_MAX_BYTES = 1024 * 1024 * 1024  # matches server.maxUploadSize (1024 MB)
@@ -120,15 +121,19 @@ def read_table(
         return _read_stats_table(path, data, options, source_name, stats_format, stats_notes)
     file_format = _detect_format(source_name, head[:16])
     # hashlib releases the GIL, so the fingerprint is computed while the file is parsed.
-    with ThreadPoolExecutor(max_workers=1) as pool:
-        sha256 = pool.submit(_sha256, path, data)
-        if file_format == "xlsx":
-            frame, used, notes, confident = _read_excel(path, data, options, source_name)
-        elif file_format == "parquet":
-            frame, used, notes, confident = _read_parquet(path, data, options, source_name)
-        else:
-            frame, used, notes, confident = read_text(path, data, options, source_name)
-        sha256 = sha256.result()
+    try:
+        with ThreadPoolExecutor(max_workers=1) as pool:
+            sha256 = pool.submit(_sha256, path, data)
+            if file_format == "xlsx":
+                frame, used, notes, confident = _read_excel(path, data, options, source_name)
+            elif file_format == "parquet":
+                frame, used, notes, confident = _read_parquet(path, data, options, source_name)
+            else:
+                frame, used, notes, confident = read_text(path, data, options, source_name)
+            sha256 = sha256.result()
+    except MemoryError:
+        size = len(data) if data is not None else path.stat().st_size
+        raise out_of_memory(source_name, size) from None
     malformed_lines = tuple(frame.attrs.pop("malformed_lines", ()))
     frame, dropped_note = _drop_empty_unnamed_columns(frame)
     notes = notes + dropped_note

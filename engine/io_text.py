@@ -20,6 +20,7 @@ import pyarrow as pa
 import pyarrow.csv as pa_csv
 
 from engine.errors import FileReadError, preview_values
+from engine.memory import check_memory_for_import, out_of_memory
 
 if TYPE_CHECKING:
     from engine.io import ImportOptions
@@ -87,6 +88,8 @@ def read_text(path, data, options: ImportOptions, name: str):
     sample = data[:SAMPLE_BYTES] if data is not None else read_head(path, SAMPLE_BYTES)
     truncated = len(sample) == SAMPLE_BYTES
     sniffed = _sniff(sample, truncated, options, name)
+    size = len(data) if data is not None else path.stat().st_size
+    check_memory_for_import(size, sample, sniffed.sep, name)
     confident = sniffed.confident
     encoding = sniffed.encoding
     parse_notes: list[str] = []
@@ -300,6 +303,9 @@ def _parse_text(path, data, sep, decimal, encoding, options, notes, name) -> pd.
     source = str(path) if path is not None else io.BytesIO(data)
     try:
         frame = _parse_with_pyarrow(source, sep, decimal, arrow_encoding, kwargs, skip_malformed)
+    except MemoryError:  # pyarrow's own (ArrowMemoryError) too: the python parser needs more
+        size = len(data) if data is not None else path.stat().st_size
+        raise out_of_memory(name, size) from None
     except (pa.ArrowException, ValueError, OverflowError, TypeError):
         # pyarrow cannot cope with some quoting and line-ending mixes; the python parser can.
         malformed.clear()
