@@ -1,0 +1,134 @@
+"""The large fuzz run (issue 10): 10,000 or more hostile inputs through the whole pipeline, and a
+share of them through the command line, with the counts recorded in DEVELOPERS.md.
+
+Run by hand: ``.venv/bin/python tests/benchmarks/bench_fuzz.py [--examples N] [--seed S]
+[--cli-every K]``. The default test run replays the same generators on a few hundred seeded
+examples (``tests/test_fuzz.py``); a new ``--seed`` draws inputs the project has not seen.
+
+Counted: results, clean errors (``HazelError``), crashes (anything else, grouped by the place they
+were raised), hangs (past ``HANG_SECONDS``), row-accounting failures, and the time per case. Every
+``--cli-every``-th input is also written to a file and run as ``analyze`` in process: the exit
+status must be 0, or 2 with exactly one ``error:`` line on standard error.
+"""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import io
+import sys
+import tempfile
+import time
+from collections import Counter
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(ROOT))
+
+from hypothesis import HealthCheck, Phase, given, seed, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+from app.cli import main as cli_main  # noqa: E402
+from tests.fuzz_pipeline import files, role_choices, run_case, seconds_text  # noqa: E402
+
+
+def cli_options(roles) -> list[str]:
+    """The command-line options for a set of roles (the ones ``analyze`` takes)."""
+    options = []
+    if roles.time:
+        options += ["--time", roles.time]
+    if roles.start and roles.end:
+        options += ["--start", roles.start, "--end", roles.end]
+    if roles.event:
+        options += ["--event", roles.event]
+    if roles.group:
+        options += ["--group", roles.group]
+    if roles.covariates:
+        options += ["--covariates", ",".join(roles.covariates)]
+    return options
+
+
+def cli_case(content: bytes, name: str, roles, folder: Path) -> tuple[int, str]:
+    """Run ``analyze`` on the input; (exit status, what was wrong with the contract or "")."""
+    path = folder / Path(name).name
+    path.write_bytes(content)
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        try:
+            code = cli_main(["analyze", str(path), *cli_options(roles), "--json", "-"])
+        except SystemExit as exit_:  # argparse: an option value it refuses
+            code = exit_.code if isinstance(exit_.code, int) else 2
+        except Exception as exc:
+            return 1, f"escaped: {type(exc).__name__}: {exc}"[:200]
+    lines = err.getvalue().strip().splitlines()
+    if code == 2 and not (len(lines) >= 1 and lines[-1].startswith("error: ")):
+        return code, f"exit 2 without one error line: {err.getvalue()[:200]!r}"
+    if code not in (0, 2):
+        return code, f"exit {code}: {err.getvalue()[-300:]!r}"
+    if "Traceback" in err.getvalue():
+        return code, "traceback on stderr"
+    return code, ""
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--examples", type=int, default=10_000)
+    parser.add_argument("--seed", type=int, default=20261202)
+    parser.add_argument("--cli-every", type=int, default=25)
+    args = parser.parse_args()
+
+    outcomes, cli, places = [], Counter(), Counter()
+    cli_problems: list[str] = []
+    folder = Path(tempfile.mkdtemp(prefix="hazel-fuzz-"))
+    started = time.perf_counter()
+
+    @seed(args.seed)
+    @settings(
+        max_examples=args.examples,
+        deadline=None,
+        database=None,
+        phases=[Phase.generate],
+        suppress_health_check=list(HealthCheck),
+    )
+    @given(file=files(), data=st.data())
+    def one(file, data):
+        content, name = file
+        chosen = {}
+
+        def choose(columns, suggested):
+            chosen["roles"] = data.draw(role_choices(columns, suggested))
+            return chosen["roles"]
+
+        outcome = run_case(content, name, choose)
+        outcomes.append(outcome)
+        if outcome.kind == "crash":
+            places[outcome.detail.strip().splitlines()[-1][:160]] += 1
+        if len(outcomes) % args.cli_every == 0 and "roles" in chosen:
+            code, problem = cli_case(content, name, chosen["roles"], folder)
+            cli[code] += 1
+            if problem:
+                cli_problems.append(problem)
+        if len(outcomes) % 500 == 0:
+            print(f"  {len(outcomes):,} cases, {time.perf_counter() - started:.0f} s", flush=True)
+
+    one()
+    kinds = Counter(o.kind for o in outcomes)
+    hangs = sum(1 for o in outcomes if "still running" in o.detail)
+    slow = sum(1 for o in outcomes if o.seconds > 10)
+    accounting = sum(1 for o in outcomes if not o.accounting_ok)
+    stages = Counter(o.stage for o in outcomes if o.kind == "result")
+    print(f"examples {len(outcomes):,} (seed {args.seed}), {time.perf_counter() - started:.0f} s")
+    print(f"results {kinds['result']:,}, clean errors {kinds['error']:,}, crashes {kinds['crash']}")
+    print(f"hangs (> HANG_SECONDS) {hangs}, over 10 s {slow}, accounting failures {accounting}")
+    print(f"results by last stage: {dict(stages)}")
+    print("time per case:", seconds_text([o.seconds for o in outcomes]))
+    print(f"command line: {sum(cli.values())} runs, exit codes {dict(cli)}, "
+          f"contract broken {len(cli_problems)}")  # fmt: skip
+    for place, count in places.most_common(20):
+        print(f"  crash x{count}: {place}")
+    for problem in cli_problems[:20]:
+        print(f"  cli: {problem}")
+
+
+if __name__ == "__main__":
+    main()
