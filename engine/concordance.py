@@ -13,6 +13,13 @@ Every comparable pair is split at exactly one level, so each level costs one nea
 The standard error is the delta-method (infinitesimal jackknife) approximation for a ratio of
 two U-statistics: with c_i the concordant-pair count and p_i the comparable-pair count each
 subject takes part in, var(C) = sum_i (c_i - C p_i)^2 / N^2, N the number of comparable pairs.
+
+With entry times (delayed entry, or episodes of (entry, time]), a row is compared with an event
+at t only while it is at risk there, entry < t <= time: the pairs whose later row had not yet
+entered (entry >= t) are counted by the same merge, with a "not yet entered" copy of each such row
+at its entry time, and taken away. Splitting a subject's follow-up into episodes with the same
+score then leaves C unchanged. With ``clusters`` (the subject of each row) the standard error
+sums each subject's counts over its rows.
 """
 
 from __future__ import annotations
@@ -153,9 +160,54 @@ def _count_level(new_block, score, later, event, conc, comp, earlier_only=False)
     return float(np.dot(early_f, later_in_run))
 
 
-def harrell_c(time, event, risk, strata=None) -> ConcordanceResult:
-    """Harrell's C for a risk score (higher score = expected to fail sooner)."""
+def _not_yet_entered_pairs(time, event, risk, strata, entry):
+    """Per row, the concordant (half for tied scores) and comparable pairs of ``pair_counts``
+    whose later row had not entered at the event time (entry >= t), and their tied-score
+    pairs: the difference between counting the events with and without a copy of each late
+    row placed, censored, at its entry time."""
+    time = np.asarray(time, dtype=float)
+    event = np.asarray(event).astype(bool)
+    risk = np.asarray(risk, dtype=float)
+    entry = np.asarray(entry, dtype=float)
+    n = len(time)
+    events = np.flatnonzero(event)
+    late = np.flatnonzero(entry >= time[events].min()) if len(events) else np.array([], int)
+    conc = np.zeros(n)
+    comp = np.zeros(n)
+    if len(events) == 0 or len(late) == 0:
+        return conc, comp, 0.0
+    rows = np.concatenate([events, late])
+    mixed_time = np.concatenate([time[events], entry[late]])
+    mixed_event = np.r_[np.ones(len(events), bool), np.zeros(len(late), bool)]
+    mixed_strata = None if strata is None else np.asarray(strata)[rows]
+    with_late = pair_counts(mixed_time, mixed_event, risk[rows], mixed_strata)
+    alone = pair_counts(
+        time[events],
+        np.ones(len(events), bool),
+        risk[events],
+        None if strata is None else np.asarray(strata)[events],
+    )
+    k = len(events)
+    np.add.at(conc, events, with_late[0][:k] - alone[0])
+    np.add.at(comp, events, with_late[1][:k] - alone[1])
+    np.add.at(conc, late, with_late[0][k:])
+    np.add.at(comp, late, with_late[1][k:])
+    return conc, comp, with_late[2] - alone[2]
+
+
+def harrell_c(time, event, risk, strata=None, entry=None, clusters=None) -> ConcordanceResult:
+    """Harrell's C for a risk score (higher score = expected to fail sooner); ``entry`` the
+    rows' entry times, ``clusters`` the subject of each row (see the module's note)."""
     concordant_i, comparable_i, tied_pairs = pair_counts(time, event, risk, strata)
+    if entry is not None:
+        late_conc, late_comp, late_tied = _not_yet_entered_pairs(time, event, risk, strata, entry)
+        concordant_i = concordant_i - late_conc
+        comparable_i = comparable_i - late_comp
+        tied_pairs -= late_tied
+    if clusters is not None:
+        codes = np.unique(np.asarray(clusters), return_inverse=True)[1]
+        concordant_i = np.bincount(codes, concordant_i)
+        comparable_i = np.bincount(codes, comparable_i)
     pairs = comparable_i.sum() / 2
     if pairs == 0:
         raise AnalysisError(

@@ -294,7 +294,15 @@ def fit_cox(
         robust = robust / np.outer(scale, scale)
     terms = term_estimates(design.terms, beta, covariance, confidence, robust)
     eta = scaled @ fit.beta
-    concordance = harrell_c(layout.time, layout.event, eta, layout.stratum if strata else None)
+    subjects = None if clusters is None else pd.factorize(frame[clusters].to_numpy()[used])[0]
+    concordance = harrell_c(
+        layout.time,
+        layout.event,
+        eta,
+        layout.stratum if strata else None,
+        entry=None if entry_values is None else entry_values[layout.order],
+        clusters=None if subjects is None else subjects[layout.order],
+    )
     model = FittedModel(
         layout=layout,
         scaled=scaled,
