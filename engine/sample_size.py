@@ -11,6 +11,9 @@ with k the allocation ratio (experimental : control subjects), z_a the normal qu
 divided by the expected probability that a subject has the event during the study. Both formulas
 ignore the negligible chance of rejecting in the wrong direction, so power and events needed are
 exact inverses of each other.
+
+Every error here is a ``SettingError``: the numbers come from the settings alone, so a run
+stops with the message rather than leaving the section out.
 """
 
 from __future__ import annotations
@@ -23,7 +26,7 @@ import numpy as np
 import pandas as pd
 from scipy.stats import norm
 
-from engine.errors import AnalysisError
+from engine.errors import SettingError
 
 Method = Literal["schoenfeld", "freedman"]
 METHODS: tuple[str, ...] = ("schoenfeld", "freedman")
@@ -87,17 +90,17 @@ class PowerCurve:
 
 def _check_design(hazard_ratio, alpha, sides, allocation_ratio, method) -> None:
     if method not in METHODS:
-        raise AnalysisError(f"Unknown sample-size method {method!r}; choose one of {METHODS}.")
+        raise SettingError(f"Unknown sample-size method {method!r}; choose one of {METHODS}.")
     if not (np.isfinite(hazard_ratio) and hazard_ratio > 0 and hazard_ratio != 1):
-        raise AnalysisError(
+        raise SettingError(
             f"The target hazard ratio must be a positive number other than 1; got {hazard_ratio!r}."
         )
     if not 0 < alpha < 1:
-        raise AnalysisError(f"Alpha must lie strictly between 0 and 1; got {alpha!r}.")
+        raise SettingError(f"Alpha must lie strictly between 0 and 1; got {alpha!r}.")
     if sides not in (1, 2):
-        raise AnalysisError(f"The test must be one- or two-sided (1 or 2); got {sides!r}.")
+        raise SettingError(f"The test must be one- or two-sided (1 or 2); got {sides!r}.")
     if not (np.isfinite(allocation_ratio) and allocation_ratio > 0):
-        raise AnalysisError(
+        raise SettingError(
             "The allocation ratio (experimental : control subjects) must be a positive number; "
             f"got {allocation_ratio!r}."
         )
@@ -129,23 +132,23 @@ def events_needed(
     """Events (and subjects, given the expected event probability) for a two-group comparison."""
     _check_design(hazard_ratio, alpha, sides, allocation_ratio, method)
     if not 0 < power < 1:
-        raise AnalysisError(f"Power must lie strictly between 0 and 1; got {power!r}.")
+        raise SettingError(f"Power must lie strictly between 0 and 1; got {power!r}.")
     if not 0 < event_probability <= 1:
-        raise AnalysisError(
+        raise SettingError(
             "The expected event probability (share of subjects who have the event during the "
             f"study) must lie in (0, 1]; got {event_probability!r}."
         )
     z_a = norm.isf(alpha / sides)  # not ppf(1 - a): 1 - 1e-300 is 1.0 in floating point
     z_b = norm.ppf(power)
     if z_a + z_b <= 0:
-        raise AnalysisError(
+        raise SettingError(
             f"Power {power} is below the false-positive rate {alpha / sides}; ask for more power."
         )
     with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
         exact = float((z_a + z_b) ** 2 / _effect_factor(hazard_ratio, allocation_ratio, method))
         total = exact / event_probability
     if not (math.isfinite(total) and total <= MAX_SUBJECTS):
-        raise AnalysisError(
+        raise SettingError(
             f"This design needs more than {MAX_SUBJECTS:,.0f} subjects ({method}: hazard ratio "
             f"{hazard_ratio:g}, alpha {alpha:g}, power {power:g}, allocation {allocation_ratio:g}, "
             f"event probability {event_probability:g}): no study can be that large. Choose a "
@@ -185,7 +188,7 @@ def power_for_events(
     for hr in hrs:
         _check_design(float(hr), alpha, sides, allocation_ratio, method)
     if not (np.isfinite(events) and events > 0):
-        raise AnalysisError(f"The number of events must be positive; got {events!r}.")
+        raise SettingError(f"The number of events must be positive; got {events!r}.")
     z_a = norm.isf(alpha / sides)
     with np.errstate(over="ignore", invalid="ignore"):
         power = norm.cdf(np.sqrt(events * _effect_factor(hrs, allocation_ratio, method)) - z_a)
