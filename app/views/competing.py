@@ -83,73 +83,82 @@ if "_cause" not in prepared.frame.columns:
 # --- settings -------------------------------------------------------------------------------
 
 has_group = "_group" in prepared.frame.columns
-cols = st.columns(4)
-ui.remember("cr_by_group", has_group)
-by_group = cols[0].toggle("Each group", key="cr_by_group", disabled=not has_group) and has_group
-ui.remember("cr_show_km", True)
-show_km = cols[1].toggle(
-    "Show 1 − KM",
-    key="cr_show_km",
-    help="One minus the Kaplan–Meier curve that treats the other causes as censored, dotted.",
-)
-confidence = CONFIDENCE[cols[2].selectbox("Confidence level", list(CONFIDENCE), key="cr_conf")]
-ui.remember("cr_include", True)
-cols[3].toggle("In the report and recipe", key="cr_include")
 roles_text = data.roles_key(data.curve_roles(roles))
 unit = prepared.report.time_unit
 
-with ui.guard("The cumulative incidence"):
-    result = compute_beyond.incidence(table.sha256, roles_text, by_group, confidence, table)
-    if result.warning:
-        st.warning(result.warning, icon=":material/warning:")
-    style = ui.chart_style()
-    style = ui.titled_style(
-        style,
-        "cr_plot",
-        "Cumulative incidence by cause" + (f" and {roles.group}" if by_group else ""),
-        f"Time ({unit})",
-        "Probability of the event by then",
-    )
-    cif, km = compute_beyond.incidence_drawing(
-        table.sha256, roles_text, by_group, confidence, style.height, table
-    )
-    series = list(dict.fromkeys(cif["group"]))
-    top = float(max(cif["upper"].max(), km["estimate"].max() if show_km else 0, 0.05))
-    chart = charts.incidence_chart(
-        cif,
-        style,
-        charts.group_colours(series),
-        one_minus_km=km if show_km else None,
-        y_domain=(0.0, min(1.0, top * 1.05)),
-        legend_title="Group: cause" if by_group else "Cause",
-    )
-    ui.figure(chart, style, "cumulative-incidence", "cr_figure")
-    st.caption(
-        f"Solid: Aalen–Johansen estimate with pointwise {format_percent(confidence, 0)} bands"
-        + ("; dotted: 1 − Kaplan–Meier with the other causes censored." if show_km else ".")
-    )
 
-    st.subheader("At the end of follow-up", anchor=False)
-    frame = result.to_frame()
-    last = frame.groupby(["group", "cause"], sort=False, dropna=False).tail(1)
-    shown = pd.DataFrame(
-        {
-            "Group": last["group"].map(compute_beyond.compute.label_text),
-            "Cause": last["cause"],
-            f"Time ({unit})": last["time"].map(lambda t: f"{t:,.1f}"),
-            "Cumulative incidence": [
-                f"{format_percent(e)} ({format_percent(lo)} to {format_percent(hi)})"
-                for e, lo, hi in last[["cumulative_incidence", "lower", "upper"]].itertuples(
-                    index=False
-                )
-            ],
-            "1 − KM": last["one_minus_km"].map(format_percent),
-        }
+@st.fragment
+def incidence_block(table, roles, roles_text: str, unit: str, has_group: bool) -> None:
+    """The settings, figure and tables of the cumulative incidence; a fragment, so a display
+    switch (1 − KM, each group, the confidence level) reruns only this part of the page."""
+    cols = st.columns(4)
+    ui.remember("cr_by_group", has_group)
+    by_group = cols[0].toggle("Each group", key="cr_by_group", disabled=not has_group) and has_group
+    ui.remember("cr_show_km", True)
+    show_km = cols[1].toggle(
+        "Show 1 − KM",
+        key="cr_show_km",
+        help="One minus the Kaplan–Meier curve that treats the other causes as censored, dotted.",
     )
-    ui.table(last, "cumulative-incidence-final", "cr_final", shown=shown)
-    with st.expander("Every step of the estimate (exact values)"):
-        if st.toggle("Show the table", key="cr_show_steps"):
-            ui.table(frame, "cumulative-incidence", "cr_steps")
+    confidence = CONFIDENCE[cols[2].selectbox("Confidence level", list(CONFIDENCE), key="cr_conf")]
+    ui.remember("cr_include", True)
+    cols[3].toggle("In the report and recipe", key="cr_include")
+
+    with ui.guard("The cumulative incidence"):
+        result = compute_beyond.incidence(table.sha256, roles_text, by_group, confidence, table)
+        if result.warning:
+            st.warning(result.warning, icon=":material/warning:")
+        style = ui.chart_style()
+        style = ui.titled_style(
+            style,
+            "cr_plot",
+            "Cumulative incidence by cause" + (f" and {roles.group}" if by_group else ""),
+            f"Time ({unit})",
+            "Probability of the event by then",
+        )
+        cif, km = compute_beyond.incidence_drawing(
+            table.sha256, roles_text, by_group, confidence, style.height, table
+        )
+        series = list(dict.fromkeys(cif["group"]))
+        top = float(max(cif["upper"].max(), km["estimate"].max() if show_km else 0, 0.05))
+        chart = charts.incidence_chart(
+            cif,
+            style,
+            charts.group_colours(series),
+            one_minus_km=km if show_km else None,
+            y_domain=(0.0, min(1.0, top * 1.05)),
+            legend_title="Group: cause" if by_group else "Cause",
+        )
+        ui.figure(chart, style, "cumulative-incidence", "cr_figure")
+        st.caption(
+            f"Solid: Aalen–Johansen estimate with pointwise {format_percent(confidence, 0)} bands"
+            + ("; dotted: 1 − Kaplan–Meier with the other causes censored." if show_km else ".")
+        )
+
+        st.subheader("At the end of follow-up", anchor=False)
+        frame = result.to_frame()
+        last = frame.groupby(["group", "cause"], sort=False, dropna=False).tail(1)
+        shown = pd.DataFrame(
+            {
+                "Group": last["group"].map(compute_beyond.compute.label_text),
+                "Cause": last["cause"],
+                f"Time ({unit})": last["time"].map(lambda t: f"{t:,.1f}"),
+                "Cumulative incidence": [
+                    f"{format_percent(e)} ({format_percent(lo)} to {format_percent(hi)})"
+                    for e, lo, hi in last[["cumulative_incidence", "lower", "upper"]].itertuples(
+                        index=False
+                    )
+                ],
+                "1 − KM": last["one_minus_km"].map(format_percent),
+            }
+        )
+        ui.table(last, "cumulative-incidence-final", "cr_final", shown=shown)
+        with st.expander("Every step of the estimate (exact values)"):
+            if st.toggle("Show the table", key="cr_show_steps"):
+                ui.table(frame, "cumulative-incidence", "cr_steps")
+
+
+incidence_block(table, roles, roles_text, unit, has_group)
 
 # --- cause-specific Cox models --------------------------------------------------------------
 
@@ -188,10 +197,9 @@ else:
             share_section.manuscript_box(share_section.cox_text(model), f"cause {cause}")
 
 
-@st.fragment
 def predicted_incidence(table, roles, model_text: str, chosen_cause: str, unit: str) -> None:
-    """The predicted-incidence curves of the Fine–Gray model; a fragment, so switching the
-    covariate reruns only this part of the page."""
+    """The predicted-incidence curves of the Fine–Gray model (inside the Fine–Gray fragment, so
+    switching the covariate reruns only that block)."""
     st.markdown("**Predicted cumulative incidence**")
     ui.remember_choice("cr_fg_profile", list(roles.covariates), roles.covariates[0])
     variable = st.selectbox(
@@ -257,17 +265,11 @@ else:
                 "causes counted as competing events. " + ui.NOT_SIGNIFICANT_CAUTION
             )
 
-# --- Fine–Gray model ------------------------------------------------------------------------
 
-st.subheader("Fine–Gray model: covariates and the incidence of one cause", anchor=False)
-if not roles.covariates:
-    st.info("Choose covariates on the Column roles page to fit a Fine–Gray model.")
-elif "_entry" in prepared.frame.columns:
-    st.info(
-        "The Fine–Gray model is not available with an entry-time role (delayed entry): its "
-        "censoring weights assume everyone is followed from time 0."
-    )
-else:
+@st.fragment
+def fine_gray_block(table, roles, causes, unit: str) -> None:
+    """The cause chooser, table, forest figure and predicted incidence of the Fine–Gray model; a
+    fragment, so choosing the cause or a profile reruns only this block."""
     cause_names = list(dict.fromkeys(name for _, name in causes))
     options = [NO_FINE_GRAY, *cause_names]
     ui.remember_choice("cr_fine_gray", options, NO_FINE_GRAY)
@@ -353,3 +355,17 @@ else:
             )
 
             predicted_incidence(table, roles, model_text, chosen_cause, unit)
+
+
+# --- Fine–Gray model ------------------------------------------------------------------------
+
+st.subheader("Fine–Gray model: covariates and the incidence of one cause", anchor=False)
+if not roles.covariates:
+    st.info("Choose covariates on the Column roles page to fit a Fine–Gray model.")
+elif "_entry" in prepared.frame.columns:
+    st.info(
+        "The Fine–Gray model is not available with an entry-time role (delayed entry): its "
+        "censoring weights assume everyone is followed from time 0."
+    )
+else:
+    fine_gray_block(table, roles, causes, unit)

@@ -1,0 +1,88 @@
+"""Display switches of the Competing risks page as a user sees them, in headless Chromium (a
+measurement, not a test): ``.venv/bin/python tests/benchmarks/bench_competing_browser.py``.
+
+Opens the Dairy herd demo, names the second cause, and times from the click to the moment the
+page shows the switched state: the "Show 1 − KM" toggle (the figure's caption changes), and the
+Fine–Gray cause (the predicted-incidence heading appears, the model's fit cached after its first
+time). Both blocks are fragments, so in the browser only they rerun.
+"""
+
+from __future__ import annotations
+
+import statistics
+import sys
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(ROOT))
+
+from tests.app.browser import demo_page, run_server, wait_until_idle  # noqa: E402
+
+KM_CAPTION = "dotted: 1 − Kaplan–Meier"
+
+
+def timed(page, action, done) -> float:
+    start = time.perf_counter()
+    action()
+    page.wait_for_function(done, timeout=60_000)
+    return time.perf_counter() - start
+
+
+def main() -> None:
+    server = run_server()
+    url = next(server)
+    try:
+        with demo_page(url) as (page, _errors):
+            page.get_by_role("button", name="Dairy herd").first.click()
+            wait_until_idle(page)
+            page.get_by_role("link", name="Competing risks").first.click()
+            page.get_by_text("Causes", exact=False).first.wait_for(timeout=60_000)
+            wait_until_idle(page)
+            box = page.get_by_role("textbox", name="Cause for sold")
+            box.fill("sold")
+            box.press("Enter")
+            page.get_by_text("Gray's test", exact=False).first.wait_for(timeout=60_000)
+            wait_until_idle(page)
+            toggle = page.get_by_text("Show 1 − KM", exact=True)
+            has_km = f"() => document.body.innerText.includes({KM_CAPTION!r})"
+            no_km = f"() => !document.body.innerText.includes({KM_CAPTION!r})"
+            km = []
+            for _ in range(3):
+                km.append(timed(page, toggle.click, no_km))
+                wait_until_idle(page)
+                km.append(timed(page, toggle.click, has_km))
+                wait_until_idle(page)
+            cause = page.get_by_role("combobox", name="Cause modelled")
+            shown = "() => document.body.innerText.includes('Predicted cumulative incidence of')"
+            hidden = "() => !document.body.innerText.includes('Predicted cumulative incidence of')"
+
+            def choose(value):
+                def act():
+                    cause.click()
+                    page.keyboard.type(value)
+                    page.keyboard.press("Enter")
+
+                return act
+
+            fine_gray = []
+            for _ in range(3):
+                fine_gray.append(timed(page, choose("died"), shown))
+                wait_until_idle(page)
+                fine_gray.append(timed(page, choose("(none)"), hidden))
+                wait_until_idle(page)
+    finally:
+        next(server, None)
+    print("Competing risks page, Dairy herd demo, headless Chromium (click to switched state)")
+    print(
+        "  Show 1 − KM: " + ", ".join(f"{s:.2f}" for s in km) + f" s; median "
+        f"{statistics.median(km):.2f} s"
+    )
+    print(
+        "  Fine–Gray cause shown / not shown: " + ", ".join(f"{s:.2f}" for s in fine_gray)
+        + f" s; median {statistics.median(fine_gray):.2f} s (the first includes the fit)"
+    )  # fmt: skip
+
+
+if __name__ == "__main__":
+    main()
