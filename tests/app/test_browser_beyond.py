@@ -10,7 +10,13 @@ from pathlib import Path
 
 import pytest
 
-from tests.app.browser import ARTIFACTS, demo_page, wait_until_idle, walk_pages
+from tests.app.browser import (
+    ARTIFACTS,
+    demo_page,
+    open_dairy_competing_risks,
+    wait_until_idle,
+    walk_pages,
+)
 
 pytestmark = pytest.mark.browser
 
@@ -36,17 +42,7 @@ def test_walk_the_pages_beyond_the_basics(server):
         text = Path(download.value.path()).read_text(encoding="utf-8")
         assert text.startswith("<!DOCTYPE html>") and "Landmark analysis" in text
         # competing risks on the demo with two kinds of event
-        page.get_by_role("link", name="Data import").first.click()
-        page.get_by_role("button", name="Dairy herd").first.click()
-        wait_until_idle(page)
-        page.get_by_role("link", name="Competing risks").first.click()
-        page.get_by_text("Causes", exact=False).first.wait_for(timeout=60_000)
-        wait_until_idle(page)
-        box = page.get_by_role("textbox", name="Cause for sold")
-        box.fill("sold")
-        box.press("Enter")
-        page.get_by_text("overstates the cumulative incidence").first.wait_for(timeout=60_000)
-        wait_until_idle(page)
+        open_dairy_competing_risks(page, "overstates the cumulative incidence")
         assert page.locator('[data-testid="stException"]').count() == 0
         page.screenshot(path=str(ARTIFACTS / "beyond_competing_two_causes.png"), full_page=True)
     assert not errors, errors

@@ -6,7 +6,13 @@ from __future__ import annotations
 
 import pytest
 
-from tests.app.browser import ARTIFACTS, click_when_settled, demo_page, wait_until_idle
+from tests.app.browser import (
+    ARTIFACTS,
+    click_when_settled,
+    demo_page,
+    open_dairy_competing_risks,
+    wait_until_idle,
+)
 
 pytestmark = pytest.mark.browser
 
@@ -27,17 +33,7 @@ def test_performance_page_and_fine_gray_model(server):
         assert page.locator("canvas, svg.marks").count() >= 1  # the calibration figure
         page.screenshot(path=str(ARTIFACTS / "finegray_performance.png"), full_page=True)
 
-        page.get_by_role("link", name="Data import").first.click()
-        page.get_by_role("button", name="Dairy herd").first.click()
-        wait_until_idle(page)
-        page.get_by_role("link", name="Competing risks").first.click()
-        page.get_by_text("Causes", exact=False).first.wait_for(timeout=60_000)
-        wait_until_idle(page)
-        box = page.get_by_role("textbox", name="Cause for sold")
-        box.fill("sold")
-        box.press("Enter")
-        page.get_by_text("Gray's test", exact=False).first.wait_for(timeout=60_000)
-        wait_until_idle(page)
+        open_dairy_competing_risks(page)
         click_when_settled(page, page.get_by_role("combobox", name="Cause modelled"))
         page.keyboard.type("died")
         page.keyboard.press("Enter")

@@ -16,6 +16,7 @@ import pytest
 
 from app.cli import main
 from tests.app.demo_files import ROOT
+from tests.app.test_cli_hostile import _frame
 
 
 def _run_in_process(capsys, *argv) -> tuple[int, str, str]:
@@ -28,21 +29,13 @@ def _run_in_process(capsys, *argv) -> tuple[int, str, str]:
     return code, out, err
 
 
-def _frame(n: int = 90, seed: int = 4) -> pd.DataFrame:
-    rng = np.random.default_rng(seed)
-    return pd.DataFrame(
-        {
-            "t": rng.exponential(10, n).round(2) + 0.01,
-            "e": rng.integers(0, 2, n),
-            "g": rng.choice(["a", "b"], n),
-            "x": rng.normal(size=n).round(3),
-            "age": rng.integers(20, 90, n),
-        }
-    )
+def _cohort(n: int = 90, seed: int = 4) -> pd.DataFrame:
+    """The hostile tests' small cohort with an age column to filter on."""
+    return _frame(n, seed).assign(age=np.random.default_rng(seed).integers(20, 90, n))
 
 
 def test_competing_events_are_counted_apart_from_censored(capsys, tmp_path):
-    frame = _frame().assign(outcome=lambda f: np.arange(len(f)) % 3)  # 0 censored, 1, 2
+    frame = _cohort().assign(outcome=lambda f: np.arange(len(f)) % 3)  # 0 censored, 1, 2
     path = tmp_path / "causes.csv"
     frame.to_csv(path, index=False)
     argv = ["analyze", path, "--time", "t", "--event", "outcome", "--event-value", "1",
@@ -63,7 +56,7 @@ def test_competing_events_are_counted_apart_from_censored(capsys, tmp_path):
 
 def test_all_censored_data_with_a_group_still_gives_curves(capsys, tmp_path):
     path = tmp_path / "quiet.csv"
-    _frame().assign(e=0).to_csv(path, index=False)
+    _cohort().assign(e=0).to_csv(path, index=False)
     argv = ["analyze", path, "--time", "t", "--event", "e", "--group", "g", "--covariates", "x"]
     code, out, _ = _run_in_process(capsys, *argv, "--json", "-")
     assert code == 0
@@ -78,7 +71,7 @@ def test_all_censored_data_with_a_group_still_gives_curves(capsys, tmp_path):
 
 
 def test_parametric_fits_leave_out_time_zero_rows_with_a_count(capsys, tmp_path):
-    frame = _frame()
+    frame = _cohort()
     frame.loc[:2, ["t", "e"]] = [0.0, 1]  # three events on day 0
     path = tmp_path / "day0.csv"
     frame.to_csv(path, index=False)
@@ -92,7 +85,7 @@ def test_parametric_fits_leave_out_time_zero_rows_with_a_count(capsys, tmp_path)
 
 
 def test_filters_on_the_command_line_keep_the_rows_that_pass(capsys, tmp_path):
-    frame = _frame()
+    frame = _cohort()
     path = tmp_path / "ages.csv"
     frame.to_csv(path, index=False)
     argv = ["analyze", path, "--time", "t", "--event", "e", "--group", "g",
@@ -116,7 +109,7 @@ def test_filters_on_the_command_line_keep_the_rows_that_pass(capsys, tmp_path):
 )
 def test_a_bad_filter_is_one_error_line(capsys, tmp_path, value, named):
     path = tmp_path / "ages.csv"
-    _frame().to_csv(path, index=False)
+    _cohort().to_csv(path, index=False)
     code, _, err = _run_in_process(
         capsys, "check", path, "--time", "t", "--event", "e", "--filter", value
     )
@@ -127,7 +120,7 @@ def test_a_closed_pipe_ends_quietly(tmp_path):
     """About 570 kB of JSON (survival at 1,000 times in three curves), far more than a pipe
     holds, so the writer meets the closed pipe."""
     path = tmp_path / "long.csv"
-    _frame(3000).to_csv(path, index=False)
+    _cohort(3000).to_csv(path, index=False)
     times = ",".join(f"{0.01 * i:.2f}" for i in range(1, 1001))
     command = [sys.executable, "-m", "app", "analyze", str(path), "--time", "t", "--event", "e",
                "--group", "g", "--times", times, "--json", "-"]  # fmt: skip

@@ -17,7 +17,12 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-from tests.app.browser import demo_page, run_server, wait_until_idle  # noqa: E402
+from tests.app.browser import (  # noqa: E402
+    demo_page,
+    open_dairy_competing_risks,
+    run_server,
+    wait_until_idle,
+)
 
 KM_CAPTION = "dotted: 1 − Kaplan–Meier"
 
@@ -34,16 +39,7 @@ def main() -> None:
     url = next(server)
     try:
         with demo_page(url) as (page, _errors):
-            page.get_by_role("button", name="Dairy herd").first.click()
-            wait_until_idle(page)
-            page.get_by_role("link", name="Competing risks").first.click()
-            page.get_by_text("Causes", exact=False).first.wait_for(timeout=60_000)
-            wait_until_idle(page)
-            box = page.get_by_role("textbox", name="Cause for sold")
-            box.fill("sold")
-            box.press("Enter")
-            page.get_by_text("Gray's test", exact=False).first.wait_for(timeout=60_000)
-            wait_until_idle(page)
+            open_dairy_competing_risks(page)
             toggle = page.get_by_text("Show 1 − KM", exact=True)
             has_km = f"() => document.body.innerText.includes({KM_CAPTION!r})"
             no_km = f"() => !document.body.innerText.includes({KM_CAPTION!r})"
