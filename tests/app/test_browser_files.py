@@ -54,7 +54,7 @@ def test_filter_builder_and_baseline_table_in_the_browser(server):
         assert "of 421" in sidebar.replace("\u202f", " "), sidebar  # Ashford's 421 bearings
 
         _open(page, "Baseline table", "Percentages are of the non-missing values")
-        assert page.get_by_text("All rows (n = ", exact=False).count() >= 1
+        page.get_by_text("All rows (n = ", exact=False).first.wait_for(timeout=60_000)
         page.screenshot(path=str(ARTIFACTS / "files_baseline.png"), full_page=True)
         book = openpyxl.load_workbook(io.BytesIO(_download(page, "Excel")))
         assert book.sheetnames == ["Table", "Exact values"]
