@@ -39,16 +39,38 @@ def group_counts(prepared: pd.DataFrame) -> pd.DataFrame:
 
 def warnings_on_used(prepared, frame, roles: Roles, time, counts) -> list[str]:
     """Zero times, unit hints, no events, small groups, rows without a group, repeated ids."""
+    repeated = None
+    if roles.id and _may_repeat(frame[roles.id]):
+        ids = frame[roles.id]
+        duplicated = ids[ids.duplicated(keep=False) & ids.notna()]
+        if len(duplicated):
+            repeated = (duplicated.nunique(), duplicated.unique())
+    return warnings_from_summary(
+        roles,
+        zeros=int((time == 0).sum()),
+        times=time,
+        events=int(prepared["_event"].sum()) if len(prepared) else None,
+        counts=counts,
+        no_group=int(prepared["_group"].isna().sum()) if roles.group else 0,
+        repeated_ids=repeated,
+    )
+
+
+def warnings_from_summary(
+    roles: Roles, *, zeros: int, times, events, counts, no_group: int, repeated_ids
+) -> list[str]:
+    """The warnings from what they depend on: rows at time 0, the times (distinct values are
+    enough), events among the rows used (None without rows), rows per group, rows without a
+    group, and repeated ids as (how many, examples) or None; a database computes these."""
     notes = []
-    zeros = int((time == 0).sum())
     if zeros:
         notes.append(
             f"{zeros} row(s) have time 0; they are kept, but check whether they are real "
             "(an event on the first day) or data-entry placeholders."
         )
-    if roles.time and len(time):
-        notes.extend(_unit_hints(time, roles))
-    if len(prepared) and prepared["_event"].sum() == 0:
+    if roles.time and len(times):
+        notes.extend(_unit_hints(np.asarray(times, dtype=float), roles))
+    if events == 0:
         notes.append("There are no events among the rows used; curves stay at 1.")
     if roles.group:
         for _, row in counts.iterrows():
@@ -60,20 +82,17 @@ def warnings_on_used(prepared, frame, roles: Roles, time, counts) -> list[str]:
                     f"Group {label!r} has {row['events']} event(s); with fewer than "
                     f"{FEW_EVENTS} events its estimates are unstable (common practice rule)."
                 )
-        no_group = int(prepared["_group"].isna().sum())
         if no_group:
             notes.append(
                 f"{no_group} row(s) have no value in the group column {roles.group!r}; they "
                 "appear in overall results but in no group."
             )
-    if roles.id and _may_repeat(frame[roles.id]):
-        ids = frame[roles.id]
-        duplicated = ids[ids.duplicated(keep=False) & ids.notna()]
-        if len(duplicated):
-            notes.append(
-                f"Column {roles.id!r} repeats {duplicated.nunique()} id(s) "
-                f"({preview_values(duplicated.unique())}); each subject should appear once."
-            )
+    if repeated_ids is not None:
+        count, examples = repeated_ids
+        notes.append(
+            f"Column {roles.id!r} repeats {count} id(s) "
+            f"({preview_values(examples)}); each subject should appear once."
+        )
     return notes
 
 

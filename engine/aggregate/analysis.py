@@ -1,0 +1,130 @@
+"""`run_analysis` for data that stay in a database: the same sections from per-time sums.
+
+Sections that need the rows themselves (a comparison cut at a column's quantiles, strata from a
+column without a role, competing risks, parametric and landmark analyses, Harrell's C) say so in
+one sentence as ``{"not_computed": reason}`` instead of silently changing meaning.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+
+from engine.aggregate.cox_fit import fit_cox_from_sums
+from engine.aggregate.estimators import compare_from_counts, curves_from_counts
+from engine.aggregate.sql_checks import AggregatedData
+from engine.aggregate.sql_cox import SqlCoxSource, sql_design
+from engine.analysis import resolved_settings
+from engine.cox import cox_json
+from engine.errors import RoleError
+from engine.summary import curve_set_json
+
+NEEDS_ROWS = {
+    "competing": "Competing-risk incidence is not yet computed from per-time sums",
+    "parametric": "Parametric fits need the rows, which stay in the database",
+    "landmark": "A landmark analysis is not yet computed from per-time sums",
+}
+SAMPLE_HINT = "; run it with --backend memory on a random sample of the rows (--sample ROWS)."
+
+
+def not_computed(reason: str) -> dict:
+    return {"not_computed": reason}
+
+
+def comparison_from_data(data: AggregatedData, chosen: Mapping) -> dict | None:
+    if chosen["cut"]:
+        return not_computed(
+            "A comparison of a column cut at its quantiles is not computed from per-time sums"
+            + SAMPLE_HINT
+        )
+    strata = chosen["strata"]
+    if strata not in (None, False, ""):
+        return not_computed(
+            f"Strata from the column {strata!r}, which has no role, are not computed from "
+            "per-time sums; give it the strata role instead."
+        )
+    counts = data.counts
+    if counts.group_labels is None:
+        return None
+    groups = counts.exits.loc[counts.exits["group"] >= 0, "group"].nunique()
+    if groups < 2:
+        return None
+    stratified = counts.strata_labels is not None and strata is None
+    result = compare_from_counts(
+        counts,
+        test=chosen["test"],
+        rho=chosen["rho"],
+        gamma=chosen["gamma"],
+        stratified=stratified,
+    ).to_dict()
+    return {k: result[k] for k in ("test", "statistic", "df", "p_value")}
+
+
+def cox_from_data(data: AggregatedData, chosen: Mapping, *, drop_one: bool = True):
+    """The Cox model of the roles (or the settings' variant of it) from per-time sums; the
+    ``CoxResult``, its PH test and the SQL source (which counts its passes)."""
+    roles = data.roles
+    covariates = list(roles.covariates) if chosen["covariates"] is None else chosen["covariates"]
+    outside = [c for c in covariates if c not in roles.covariates]
+    if outside:
+        raise RoleError(
+            f"The model's covariates {outside!r} are not among the covariates of the roles "
+            f"{list(roles.covariates)!r}; add them to the roles first.",
+            column=outside[0],
+        )
+    strata = chosen["strata"]
+    use_strata = strata is None and roles.strata is not None
+    levels = {**dict(roles.reference), **{str(c): v for c, v in (chosen["reference"] or ())}}
+    categorical = [c for c in covariates if data.kinds[c] == "categorical"]
+    design, rows, bounds = sql_design(
+        data,
+        covariates,
+        categorical=categorical,
+        reference={c: levels[c] for c in covariates if c in levels} or None,
+        strata=use_strata,
+    )
+    strata_keys = data.levels["_strata"].keys if use_strata else None
+    source = SqlCoxSource(data, rows, bounds, strata_keys)
+    result, ph = fit_cox_from_sums(
+        source,
+        design,
+        ties=chosen["ties"],
+        confidence=chosen["confidence"],
+        drop_one=drop_one,
+        ph_transform=chosen["ph_transform"],
+    )
+    return result, ph, source
+
+
+def run_aggregate_analysis(data: AggregatedData, settings: Mapping | None = None) -> dict:
+    """The sections of ``engine.analysis.run_analysis`` from the database's per-time sums."""
+    chosen = resolved_settings(settings)
+    curves, comparison, cox = chosen["curves"], chosen["comparison"], chosen["cox"]
+    curve_set = curves_from_counts(
+        data.counts, confidence=curves["confidence"], transform=curves["ci_transform"]
+    )
+    sections: dict = {
+        "data": data.report.to_dict(),
+        "curves": curve_set_json(curve_set, curves["times"] or ()),
+        "comparison": comparison_from_data(data, comparison),
+        "cox": None,
+    }
+    model = data.roles.covariates if cox["covariates"] is None else cox["covariates"]
+    if data.roles.covariates and model:
+        if cox["strata"] not in (None, False, ""):
+            sections["cox"] = not_computed(
+                f"A model stratified by the column {cox['strata']!r}, which has no role, is not "
+                "computed from per-time sums; give it the strata role instead."
+            )
+        else:
+            result, ph, _ = cox_from_data(data, cox)
+            sections["cox"] = cox_json(result, ph)
+    for name in chosen:
+        if name in NEEDS_ROWS:
+            sections[name] = not_computed(NEEDS_ROWS[name] + SAMPLE_HINT)
+    if "sample_size" in chosen:
+        from engine.analysis_extra import sample_size_section
+
+        sections["sample_size"] = sample_size_section(
+            {**chosen["sample_size"], "confidence": curves["confidence"]}
+        )
+    return sections
