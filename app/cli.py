@@ -12,6 +12,16 @@ import json
 import sys
 from pathlib import Path
 
+from app.cli_scale import (
+    add_backend_options,
+    chosen_backend,
+    computed_with,
+    memory_computed_with,
+    open_source,
+    printable,
+    refuse_row_options,
+    source_summary,
+)
 from app.cli_text import analysis_summary, data_summary
 from engine.analysis import ANALYSIS_DEFAULTS
 from engine.analysis import run_analysis as run_engine_analysis
@@ -127,7 +137,13 @@ def add_analysis_options(parser: argparse.ArgumentParser) -> None:
 
 def add_role_options(parser: argparse.ArgumentParser) -> None:
     """The data file, import options, role options and ``--json``; shared by every subcommand."""
-    parser.add_argument("data", metavar="DATA", help="CSV/TSV/semicolon/pipe, .xlsx or .parquet")
+    parser.add_argument(
+        "data",
+        metavar="DATA",
+        help="CSV/TSV/semicolon/pipe, .xlsx or .parquet; a folder of .parquet files; or a "
+        "database address postgresql://USER@HOST:PORT/DB with --table or --query",
+    )
+    add_backend_options(parser)
     read = parser.add_argument_group("reading the file")
     read.add_argument("--sep", help="column separator (default: detected); use '\\t' for tab")
     read.add_argument("--decimal", help="decimal mark, '.' or ',' (default: detected)")
@@ -243,6 +259,9 @@ def write_json(sections: dict, out: str) -> None:
 
 
 def run_check(args: argparse.Namespace) -> int:
+    backend = chosen_backend(args)
+    if backend != "memory":
+        return run_aggregated(args, backend, check_only=True)
     table, prepared = load_prepared(args)
     if args.json != "-":
         print(data_summary(table, prepared))
@@ -332,8 +351,43 @@ def causes_from_args(args: argparse.Namespace) -> tuple[tuple[str, str], ...]:
     return tuple(pairs)
 
 
+def run_aggregated(args: argparse.Namespace, backend: str, *, check_only: bool = False) -> int:
+    """check or analyze with the rows aggregated where they are (DuckDB, PostgreSQL)."""
+    from engine.aggregate.analysis import run_aggregate_analysis
+    from engine.aggregate.sql_checks import aggregate_checks
+
+    refuse_row_options(args, backend)
+    roles = roles_from_args(args)
+    settings = None if check_only else settings_from_args(args)
+    source = open_source(args, backend)
+    try:
+        data = aggregate_checks(source, roles)
+        if check_only:
+            sections = {"data": data.report.to_dict()}
+        else:
+            sections = {
+                **run_aggregate_analysis(data, settings),
+                "computed_with": computed_with(source),
+            }
+    finally:
+        source.close()
+    if args.json != "-":
+        print(source_summary(source, data.report, roles))
+        if not check_only:
+            shown, lines = printable(sections)
+            print(analysis_summary(shown, data.report.time_unit))
+            print("\n".join(lines))
+    if args.json:
+        write_json(sections, args.json)
+    return 0
+
+
 def run_analyze(args: argparse.Namespace) -> int:
     from app.batch import load_recipe_run
+
+    backend = chosen_backend(args)
+    if backend != "memory":
+        return run_aggregated(args, backend)
 
     filtered, warnings, source = None, [], None
     if args.recipe:
@@ -359,6 +413,7 @@ def run_analyze(args: argparse.Namespace) -> int:
         table, prepared = load_prepared(args)
         settings = settings_from_args(args)
     sections = run_analysis(table, prepared, settings, source)
+    sections["computed_with"] = memory_computed_with()
     if filtered is not None and filtered.excluded:
         sections["filters"] = filtered.to_dict()
     if args.json != "-":

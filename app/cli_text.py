@@ -20,6 +20,13 @@ def data_summary(table: ImportedTable, prepared: PreparedData) -> str:
             f"encoding {options.encoding}" + ("" if table.confident else " (detection unsure)")
         )
     lines += [f"  note: {note}" for note in table.notes]
+    return "\n".join([*lines, report_summary(report, roles)])
+
+
+def report_summary(report, roles) -> str:
+    """The data checks' summary (time, event, rows read and used, exclusions, groups,
+    warnings), the same whether the rows were checked in memory or in a database."""
+    lines = []
     time = roles.time or f"{roles.start} -> {roles.end}"
     lines.append(f"Time: {time} (reported in {report.time_unit})")
     if report.event_coding is not None:
