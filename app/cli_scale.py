@@ -57,11 +57,6 @@ def chosen_backend(args: argparse.Namespace) -> str:
             "--table and --query need DATA to be a database address such as "
             "postgresql://USER@HOST:5432/DB."
         )
-    if backend == "spark":
-        raise BackendUsageError(
-            "The Spark backend is not available in this version of Hazel; use --backend "
-            "duckdb for big files on one machine."
-        )
     path = Path(data)
     if backend == "auto":
         if path.is_dir():  # a partitioned dataset; any other folder is refused as not a file
@@ -78,10 +73,12 @@ def chosen_backend(args: argparse.Namespace) -> str:
 
 
 def open_source(args: argparse.Namespace, backend: str):
-    from engine.aggregate.sources import open_duckdb, open_postgres
+    from engine.aggregate.sources import open_duckdb, open_postgres, open_spark
 
     if backend == "postgresql":
         return open_postgres(str(args.data), table=args.table, query=args.query)
+    if backend == "spark":
+        return open_spark(args.data, master=args.spark_master)
     return open_duckdb(args.data, sep=args.sep, decimal=args.decimal)
 
 

@@ -8,6 +8,7 @@ user name or password.
 
 from __future__ import annotations
 
+import os
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -15,10 +16,11 @@ from urllib.parse import urlsplit
 
 import pandas as pd
 
-from engine.aggregate.sql import DUCKDB, POSTGRES, Dialect, literal, quoted
+from engine.aggregate.sql import DUCKDB, POSTGRES, SPARK, Dialect, literal, quoted
 from engine.errors import HazelError
 
 SAMPLE_ROWS = 2000
+DUCKDB_MEMORY_LIMIT = "3GB"  # DuckDB spills to a temporary folder beyond this
 TEXT_SUFFIXES = {".csv", ".tsv", ".txt", ".tab"}
 PARQUET_SUFFIXES = {".parquet", ".pq"}
 
@@ -42,6 +44,8 @@ class SqlSource:
         try:
             if self.backend == "duckdb":
                 return self.connection.execute(sql).df()
+            if self.backend == "spark":
+                return self.connection.sql(sql).toPandas()
             with self.connection.cursor() as cursor:
                 cursor.execute(sql)
                 rows = cursor.fetchall()
@@ -63,6 +67,9 @@ class SqlSource:
         return self.query(f"SELECT * FROM {self.relation} LIMIT {SAMPLE_ROWS}")
 
     def close(self) -> None:
+        if self.backend == "spark":  # the session lives on for the process (one per run)
+            self.connection.catalog.dropTempView(self.relation)
+            return
         self.connection.close()
 
 
@@ -101,7 +108,13 @@ def open_duckdb(path: str | Path, *, sep: str | None = None, decimal: str | None
             f"The DuckDB backend reads Parquet files, folders of them and text files; "
             f"{path.name!r} is neither. Use --backend memory for spreadsheets."
         )
-    connection = duckdb.connect(":memory:")
+    import tempfile
+
+    config = {
+        "memory_limit": DUCKDB_MEMORY_LIMIT,
+        "temp_directory": str(Path(tempfile.gettempdir()) / "hazel-duckdb"),
+    }
+    connection = duckdb.connect(":memory:", config=config)
     return SqlSource("duckdb", duckdb.__version__, DUCKDB, relation, path.name, connection)
 
 
@@ -178,3 +191,53 @@ def open_postgres(url: str, *, table: str | None = None, query: str | None = Non
     source = SqlSource("postgresql", version, POSTGRES, relation, shown, connection)
     source.sample()  # a missing table or a bad query fails here, with the database's reason
     return source
+
+
+SPARK_VIEW = "hazel_source"
+
+
+def open_spark(path: str | Path, *, master: str = "local[*]") -> SqlSource:
+    """A Parquet file or folder read by Spark (a local session by default, or the cluster at
+    ``master``); one session per process, reused by later calls."""
+    import shutil
+
+    remote = str(path).startswith(("hdfs:", "s3a:", "abfss:", "gs:", "file:"))
+    path = Path(path)
+    if not remote and not path.exists():
+        raise SourceError(f"The data path {str(path)!r} does not exist; check the name.")
+    if not remote and path.is_file() and path.suffix.lower() not in PARQUET_SUFFIXES:
+        raise SourceError(
+            f"The Spark backend reads Parquet files and folders of them; {path.name!r} is not "
+            "one. Use --backend duckdb for text files."
+        )
+    if shutil.which("java") is None and not os.environ.get("JAVA_HOME"):
+        raise SourceError(
+            "Spark needs Java (17 or later), which is not installed; install the Debian package "
+            "openjdk-17-jre-headless or use --backend duckdb."
+        )
+    try:
+        from pyspark.sql import SparkSession
+    except ImportError as exc:  # pragma: no cover - installed with the requirements
+        raise SourceError("The Spark backend needs the pyspark package.") from exc
+    try:
+        builder = SparkSession.builder.master(master)
+        if master.startswith("local"):  # small aggregates: a few shuffle partitions, not 200
+            builder = builder.config("spark.sql.shuffle.partitions", "4")
+        session = (
+            builder.appName("hazel")
+            .config("spark.ui.enabled", "false")
+            .config("spark.driver.bindAddress", "127.0.0.1")
+            .config("spark.driver.host", "127.0.0.1")
+            .config("spark.sql.ansi.enabled", "true")
+            .config("spark.sql.ansi.doubleQuotedIdentifiers", "true")
+            .config("spark.sql.session.timeZone", "UTC")
+            .getOrCreate()
+        )
+        session.sparkContext.setLogLevel("ERROR")
+        reader = session.read.option("mergeSchema", "true")
+        frame = reader.parquet(str(path))
+        frame.createOrReplaceTempView(SPARK_VIEW)
+    except Exception as exc:
+        message = " ".join(str(exc).split())[:300]
+        raise SourceError(f"Spark could not read {path.name!r}: {message}") from exc
+    return SqlSource("spark", session.version, SPARK, SPARK_VIEW, path.name, session)

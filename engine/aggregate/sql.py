@@ -24,27 +24,35 @@ def literal(text: str) -> str:
 
 
 def number(value: float) -> str:
-    """A float literal that reads back as exactly the same double."""
-    return f"CAST({float(value)!r} AS DOUBLE PRECISION)"
+    """A float literal that reads back as exactly the same double (an exponent makes it a
+    double, not a decimal, in DuckDB, PostgreSQL and Spark alike)."""
+    text = repr(float(value))
+    if "e" not in text and "n" not in text:
+        text += "e0"
+    return f"({text})"
 
 
 @dataclass(frozen=True)
 class Dialect:
-    name: str
+    name: str  # duckdb, postgres or spark
+
+    @property
+    def double(self) -> str:
+        return "DOUBLE PRECISION" if self.name == "postgres" else "DOUBLE"
 
     def text(self, expr: str) -> str:
-        return f"CAST({expr} AS VARCHAR)"
+        return f"CAST({expr} AS {'STRING' if self.name == 'spark' else 'VARCHAR'})"
 
     def to_number(self, expr: str) -> str:
         """Text to double, NULL when it is not a number (after trimming, decimal comma ok)."""
         cleaned = f"REPLACE(TRIM({self.text(expr)}), ',', '.')"
-        if self.name == "duckdb":
+        if self.name in ("duckdb", "spark"):
             return f"TRY_CAST({cleaned} AS DOUBLE)"
         pattern = r"'^[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?$'"
         return f"(CASE WHEN {cleaned} ~ {pattern} THEN CAST({cleaned} AS DOUBLE PRECISION) END)"
 
     def is_nan(self, expr: str) -> str:
-        if self.name == "duckdb":
+        if self.name in ("duckdb", "spark"):
             return f"isnan({expr})"
         return f"({expr} = CAST('NaN' AS DOUBLE PRECISION))"
 
@@ -54,6 +62,11 @@ class Dialect:
             if date_format:
                 return f"TRY_STRPTIME(TRIM({self.text(expr)}), {literal(date_format)})"
             return f"TRY_CAST(TRIM({self.text(expr)}) AS TIMESTAMP)"
+        if self.name == "spark":
+            if date_format:
+                pattern = literal(_java_format(date_format))
+                return f"TRY_TO_TIMESTAMP(TRIM({self.text(expr)}), {pattern})"
+            return f"TRY_CAST(TRIM({self.text(expr)}) AS TIMESTAMP)"
         if date_format:
             return f"TO_TIMESTAMP(TRIM({self.text(expr)}), {literal(_pg_format(date_format))})"
         iso = r"'^[0-9]{4}-[0-9]{1,2}-[0-9]{1,2}([ T][0-9:.]+)?$'"
@@ -61,6 +74,8 @@ class Dialect:
         return f"(CASE WHEN {cleaned} ~ {iso} THEN CAST({cleaned} AS TIMESTAMP) END)"
 
     def epoch_days(self, expr: str) -> str:
+        if self.name == "spark":
+            return f"(UNIX_MICROS(CAST({expr} AS TIMESTAMP)) / 86400000000.0)"
         return f"(EXTRACT(EPOCH FROM CAST({expr} AS TIMESTAMP)) / 86400.0)"
 
     def total(self, expr: str) -> str:
@@ -79,5 +94,14 @@ def _pg_format(date_format: str) -> str:
     return out
 
 
+def _java_format(date_format: str) -> str:
+    table = {"%Y": "yyyy", "%m": "MM", "%d": "dd", "%H": "HH", "%M": "mm", "%S": "ss", "%y": "yy"}
+    out = date_format
+    for key, value in table.items():
+        out = out.replace(key, value)
+    return out
+
+
 DUCKDB = Dialect("duckdb")
+SPARK = Dialect("spark")
 POSTGRES = Dialect("postgres")

@@ -106,7 +106,7 @@ class _Columns:
                 column=column,
             )
         if pd.api.types.is_numeric_dtype(series):
-            value = f"CAST({col} AS DOUBLE PRECISION)"
+            value = f"CAST({col} AS {self.d.double})"
             nan = self.d.is_nan(value)
             return (
                 f"(CASE WHEN {nan} THEN NULL ELSE {value} END)",
@@ -317,7 +317,7 @@ def _full_kind(source: SqlSource, column: str, roles: Roles) -> str:
     col = quoted(column)
     sql = (
         f"SELECT COUNT(*) AS n, SUM(CASE WHEN v = FLOOR(v) THEN 1 ELSE 0 END) AS whole FROM "
-        f"(SELECT DISTINCT CAST({col} AS DOUBLE PRECISION) AS v FROM {source.relation} "
+        f"(SELECT DISTINCT CAST({col} AS {source.dialect.double}) AS v FROM {source.relation} "
         f"WHERE {col} IS NOT NULL LIMIT {FEW_DISTINCT + 1}) AS distinct_values"
     )
     row = source.query(sql).iloc[0]

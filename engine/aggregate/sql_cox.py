@@ -158,7 +158,7 @@ def sql_design(
     with np.errstate(divide="ignore", invalid="ignore"):
         bounds = np.column_stack([(low - center) / scale, (high - center) / scale])
     bounds = np.nan_to_num(bounds, nan=0.0, posinf=0.0, neginf=0.0)
-    strata_column = "_strata" if strata else "CAST(NULL AS VARCHAR)"
+    strata_column = "_strata" if strata else data.source.dialect.text("NULL")
     entry = ", _entry" if "_entry" in data.clean else ""
     z = ", ".join(f"{c} AS z{i}" for i, c in enumerate(scaled))
     rows = (

@@ -62,7 +62,7 @@ def test_text_output_names_the_backend(data, capsys):
 @pytest.mark.parametrize(
     ("extra", "message"),
     [
-        (["--backend", "spark"], "Spark backend is not available"),
+        (["--backend", "memory", "--query", "SELECT 1"], "need DATA to be a database address"),
         (["--table", "t"], "need DATA to be a database address"),
         (["--backend", "duckdb", "--report", "x.html"], "--report is not available"),
     ],
