@@ -18,6 +18,8 @@ from dataclasses import dataclass, replace
 import altair as alt
 import pandas as pd
 
+from engine.text_safety import visible_frame, visible_text
+
 # Thinning bounds what a chart carries (a few thousand vertices per curve); Altair's default
 # limit of 5,000 rows per chart would refuse several thinned curves drawn together.
 alt.data_transformers.disable_max_rows()
@@ -164,11 +166,27 @@ def finish(chart: alt.TopLevelMixin, style: ChartStyle) -> dict:
     with _DATA_LOCK, alt.data_transformers.enable("hazel_frames", frames=frames):
         spec = chart.to_dict(validate=False)
     spec["datasets"] = {**spec.get("datasets", {}), **frames}
+    spec = visible_spec(spec)
     spec["config"] = house_config(style)
     # Width and height are the plot's own; axes, legend and title add to them (the page would
     # otherwise squeeze the whole figure, labels included, into the plot's size).
     spec["autosize"] = {"type": "pad"}
     return spec
+
+
+def visible_spec(value):
+    """The spec with direction controls and control characters in any label (titles, legend
+    entries, the data's text columns) shown as codes (``engine.text_safety``): a U+202E would
+    reverse a legend, and an ESC makes the SVG renderer of the exports abort."""
+    if isinstance(value, str):
+        return visible_text(value)
+    if isinstance(value, dict):
+        return {key: visible_spec(item) for key, item in value.items()}
+    if isinstance(value, list):
+        return [visible_spec(item) for item in value]
+    if isinstance(value, pd.DataFrame):
+        return visible_frame(value)
+    return value
 
 
 def chart_title(style: ChartStyle) -> alt.TitleParams | str:

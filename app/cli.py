@@ -28,7 +28,9 @@ from engine.analysis import run_analysis as run_engine_analysis
 from engine.checks import PreparedData, prepare
 from engine.errors import HazelError
 from engine.io import ImportedTable, ImportOptions, read_table
+from engine.recipe_schema import check_setting
 from engine.roles import TIME_UNITS, Roles
+from engine.text_safety import visible_text
 
 SCHEMA_VERSION = 1
 
@@ -108,6 +110,12 @@ def add_analysis_options(parser: argparse.ArgumentParser) -> None:
         "interest): cumulative incidence per cause and cause-specific Cox models",
     )
     more.add_argument(
+        "--fine-gray",
+        metavar="CAUSE",
+        help="Fine–Gray model of the cumulative incidence of CAUSE on the covariates (with "
+        "--competing; Gray's test per cause is added whenever there are groups)",
+    )
+    more.add_argument(
         "--parametric",
         action="store_true",
         help="exponential, Weibull, log-normal and log-logistic fits (AFT with --covariates)",
@@ -133,6 +141,24 @@ def add_analysis_options(parser: argparse.ArgumentParser) -> None:
         help="expected share of subjects with the event (default 1)",
     )
     more.add_argument("--events", type=float, help="power of this many events for --power-hr")
+    perf = parser.add_argument_group("prediction performance of the Cox model (with --covariates)")
+    perf.add_argument(
+        "--performance",
+        metavar="T1,T2",
+        help="Harrell's and Uno's C, time-dependent AUC and Brier score at these times, "
+        "integrated Brier score, calibration and the bootstrap correction for optimism",
+    )
+    perf.add_argument("--tau", type=float, help="Uno's C up to this time (default: the last)")
+    perf.add_argument(
+        "--calibration-time", type=float, metavar="T", help="calibration at T (default: T1)"
+    )
+    perf.add_argument(
+        "--risk-groups", type=int, help="groups of predicted risk for calibration (default 5)"
+    )
+    perf.add_argument(
+        "--bootstrap", type=int, metavar="B", help="bootstrap replicates (default 100; 0: none)"
+    )
+    perf.add_argument("--seed", type=int, help="seed of the bootstrap (default 20261202)")
 
 
 def add_role_options(parser: argparse.ArgumentParser) -> None:
@@ -246,6 +272,12 @@ def load_prepared(
     return table, prepared
 
 
+def show(text: str, stream=None) -> None:
+    """Print text for a person: control characters and direction controls from file names and
+    labels are shown as codes ([U+001B]), so no escape sequence reaches the terminal raw."""
+    print(visible_text(text), file=stream or sys.stdout)
+
+
 def write_json(sections: dict, out: str) -> None:
     """Write ``{"schema": 1, **sections}`` to a file or to stdout ('-')."""
     text = json.dumps({"schema": SCHEMA_VERSION, **sections}, indent=2, allow_nan=False)
@@ -264,17 +296,17 @@ def run_check(args: argparse.Namespace) -> int:
         return run_aggregated(args, backend, check_only=True)
     table, prepared = load_prepared(args)
     if args.json != "-":
-        print(data_summary(table, prepared))
+        show(data_summary(table, prepared))
     if args.json:
         write_json({"data": prepared.report.to_dict()}, args.json)
     return 0
 
 
-def _times(text: str) -> list[float]:
+def _times(text: str, option: str = "--times") -> list[float]:
     try:
         return [float(part) for part in _names(text)]
     except ValueError:
-        raise UsageError(f"--times expects numbers separated by commas, got {text!r}") from None
+        raise UsageError(f"{option} expects numbers separated by commas, got {text!r}") from None
 
 
 SETTING_OPTIONS = {
@@ -282,7 +314,15 @@ SETTING_OPTIONS = {
     "comparison": {"test": "test", "rho": "rho", "gamma": "gamma"},
     "cox": {"ties": "ties", "ph_transform": "ph_transform", "confidence": "confidence"},
     "parametric": {"horizon": "horizon", "times": "times"},
-    "competing": {"times": "times"},
+    "competing": {"times": "times", "fine_gray": "fine_gray"},
+    "performance": {
+        "times": "performance",
+        "tau": "tau",
+        "calibration_time": "calibration_time",
+        "risk_groups": "risk_groups",
+        "replicates": "bootstrap",
+        "seed": "seed",
+    },
     "landmark": {"time": "landmark", "test": "test"},
     "sample_size": {
         "hazard_ratio": "power_hr",
@@ -307,20 +347,27 @@ def settings_from_args(args: argparse.Namespace, base: dict | None = None) -> di
         "parametric": bool(getattr(args, "parametric", False)),
         "landmark": getattr(args, "landmark", None) is not None,
         "sample_size": getattr(args, "power_hr", None) is not None,
+        "performance": getattr(args, "performance", None) is not None,
     }
     for name, on in switched.items():
         if on and name not in settings:
             settings[name] = dict(ANALYSIS_DEFAULTS[name])
+    if getattr(args, "fine_gray", None) is not None and "competing" not in settings:
+        raise UsageError(
+            "--fine-gray needs causes: map the event values with --competing VALUE=CAUSE "
+            "(or replay a recipe that maps them)"
+        )
     for name, options in SETTING_OPTIONS.items():
-        if name not in settings:
-            continue
         for setting, option in options.items():
             given = getattr(args, option, None)
-            if given is not None:
-                settings[name][setting] = _times(given) if setting == "times" else given
-    confidence = settings["curves"]["confidence"]
-    if not 0 < confidence < 1:
-        raise UsageError(f"--confidence must lie between 0 and 1, got {confidence}")
+            if given is None:
+                continue
+            flag = "--" + option.replace("_", "-")
+            value = _times(given, flag) if setting == "times" else given
+            # the recipe schema's range for the setting, named by the option
+            check_setting(name, setting, value, flag)
+            if name in settings:
+                settings[name][setting] = value
     return settings
 
 
@@ -405,7 +452,7 @@ def run_analyze(args: argparse.Namespace) -> int:
         source = run.source
         settings = settings_from_args(args, base=run.settings)
         for warning in warnings:
-            print(f"warning: {' '.join(warning.split())}", file=sys.stderr)
+            show(f"warning: {' '.join(warning.split())}", sys.stderr)
     else:
         causes = causes_from_args(args)
         if causes:
@@ -417,8 +464,8 @@ def run_analyze(args: argparse.Namespace) -> int:
     if filtered is not None and filtered.excluded:
         sections["filters"] = filtered.to_dict()
     if args.json != "-":
-        print(data_summary(table, prepared))
-        print(analysis_summary(sections, prepared.report.time_unit))
+        show(data_summary(table, prepared))
+        show(analysis_summary(sections, prepared.report.time_unit))
     if args.json:
         write_json(sections, args.json)
     if args.report:
@@ -434,7 +481,7 @@ def run_analyze(args: argparse.Namespace) -> int:
         )
         write_text(args.report, html_text)
         if args.json != "-":
-            print(f"Report written to {args.report}")
+            show(f"Report written to {args.report}")
     return 0
 
 
@@ -444,6 +491,5 @@ def main(argv: list[str] | None = None) -> int:
         args = build_parser().parse_args(argv)
         return args.run(args)
     except HazelError as exc:
-        message = " ".join(str(exc).split())
-        print(f"error: {message}", file=sys.stderr)
+        show(f"error: {' '.join(str(exc).split())}", sys.stderr)
         return 2

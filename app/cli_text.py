@@ -52,6 +52,19 @@ def _fmt(value, digits: int = 3) -> str:
     return "n/a" if value is None else f"{value:.{digits}g}" if digits else str(value)
 
 
+def _fixed(value, digits: int = 2) -> str:
+    """A statistic or AIC to fixed decimals; "n/a" when it could not be computed (null)."""
+    return "n/a" if value is None else f"{value:.{digits}f}"
+
+
+def _test_line(test: dict) -> str:
+    """'log-rank: chi-square 3.21 on 1 df, p = 0.073' (n/a where a value is null)."""
+    return (
+        f"{test['test']}: chi-square {_fixed(test['statistic'])} on {_fmt(test['df'], 0)} df, "
+        f"p = {_fmt(test['p_value'])}"
+    )
+
+
 def analysis_summary(sections: dict, unit: str) -> str:
     """A readable summary of the curves, comparison and Cox sections."""
     lines = ["", f"Survival ({unit}):"]
@@ -68,10 +81,12 @@ def analysis_summary(sections: dict, unit: str) -> str:
         lines.append(text)
     comparison = sections["comparison"]
     if comparison is not None:
-        lines.append(
-            f"{comparison['test']}: chi-square {comparison['statistic']:.2f} on "
-            f"{comparison['df']} df, p = {comparison['p_value']:.3g}"
-        )
+        lines.append(_test_line(comparison))
+        if comparison.get("rows_excluded"):
+            lines.append(
+                f"  {comparison['rows_excluded']} row(s) without a group left out of the "
+                "comparison (they are in the all-rows curve)"
+            )
     cox = sections["cox"]
     if cox is not None:
         lines.append(f"Cox model ({cox['ties']} ties): n={cox['n']}, events={cox['events']}")
@@ -81,10 +96,10 @@ def analysis_summary(sections: dict, unit: str) -> str:
                 f"  {name:<28} HR {_fmt(term['hazard_ratio'])} "
                 f"({_fmt(term['lower'])} to {_fmt(term['upper'])}), p = {_fmt(term['p_value'])}"
             )
-        lr = cox["likelihood_ratio"]
+        lr = cox["likelihood_ratio"] or {"statistic": None, "df": None, "p_value": None}
         lines.append(
-            f"  likelihood ratio {lr['statistic']:.2f} on {lr['df']} df, "
-            f"p = {lr['p_value']:.3g}; concordance {_fmt(cox['concordance'])}"
+            f"  likelihood ratio {_fixed(lr['statistic'])} on {_fmt(lr['df'], 0)} df, "
+            f"p = {_fmt(lr['p_value'])}; concordance {_fmt(cox['concordance'])}"
         )
         lines += [f"  Warning: {warning}" for warning in cox["warnings"]]
     lines += extra_summary(sections, unit)
@@ -105,14 +120,34 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
             )
         if competing["warning"]:
             lines.append(f"  Note: {competing['warning']}")
+        for row in competing.get("gray_test") or ():
+            lines.append(
+                f"  Gray's test, {row['cause']}: chi-square {row['statistic']:.2f} on "
+                f"{row['df']} df, p = {row['p_value']:.3g}"
+            )
+        fine_gray = competing.get("fine_gray")
+        if fine_gray:
+            lines.append(
+                f"Fine–Gray model of {fine_gray['cause']} ({fine_gray['n']} rows, "
+                f"{fine_gray['events']} events; robust standard errors):"
+            )
+            for term in fine_gray["terms"]:
+                label = term["variable"] + (
+                    f": {term['level']} vs {term['reference']}" if term["level"] else ""
+                )
+                lines.append(
+                    f"  {label:<32} subdistribution HR {_fmt(term['hazard_ratio'])} "
+                    f"({_fmt(term['lower'])} to {_fmt(term['upper'])}), "
+                    f"p = {_fmt(term['p_value'])}"
+                )
     parametric = sections.get("parametric")
     if parametric:
         lines.append("Parametric models by AIC (lower is better):")
         for row in parametric["aic_table"]:
             label = "" if row["group"] is None else f"{row['group']}: "
             lines.append(
-                f"  {label}{row['distribution']:<12} AIC {row['aic']:.2f} "
-                f"(Δ {row['delta_aic']:.2f})"
+                f"  {label}{row['distribution']:<12} AIC {_fixed(row['aic'])} "
+                f"(Δ {_fixed(row['delta_aic'])})"
             )
     size = sections.get("sample_size")
     if size:
@@ -124,8 +159,8 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
             )
         for row in size["power"] or ():
             lines.append(
-                f"{row['method'].capitalize()}: power {row['power']:.3f} with "
-                f"{row['events']:g} events"
+                f"{row['method'].capitalize()}: power {_fixed(row['power'], 3)} with "
+                f"{_fmt(row['events'], 0)} events"
             )
     landmark = sections.get("landmark")
     if landmark:
@@ -135,8 +170,24 @@ def extra_summary(sections: dict, unit: str) -> list[str]:
         )
         comparison = landmark["comparison"]
         if comparison is not None:
+            lines.append("  " + _test_line(comparison))
+    performance = sections.get("performance")
+    if performance:
+        lines.append(
+            f"Prediction performance: Harrell's C {_fmt(performance['harrell_c'])}, Uno's C "
+            f"{_fmt(performance['uno_c'])} (up to {performance['tau']:g} {unit}), integrated "
+            f"Brier score {_fmt(performance['integrated_brier'])} (Kaplan–Meier alone "
+            f"{_fmt(performance['integrated_brier_km'])})"
+        )
+        for t, auc, brier in zip(
+            performance["times"], performance["auc"], performance["brier"], strict=True
+        ):
+            lines.append(f"  at {t:g} {unit}: AUC {_fmt(auc)}, Brier score {_fmt(brier)}")
+        optimism = performance["optimism"]
+        if optimism:
             lines.append(
-                f"  {comparison['test']}: chi-square {comparison['statistic']:.2f} on "
-                f"{comparison['df']} df, p = {comparison['p_value']:.3g}"
+                f"  Optimism-corrected C {_fmt(optimism['c'])}, calibration slope "
+                f"{_fmt(optimism['slope'])} ({optimism['replicates']} bootstrap replicates, "
+                f"seed {optimism['seed']})"
             )
     return lines

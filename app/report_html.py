@@ -10,6 +10,7 @@ import html
 import re
 from collections.abc import Iterable, Mapping, Sequence
 
+from engine.text_safety import visible_text
 from engine.wording import format_number, format_p, format_plain
 
 # --- escaping and small pieces -----------------------------------------------------------------
@@ -21,7 +22,8 @@ def escape(value: object) -> str:
     Addresses (``http://``, ``https://``) are broken with a zero-width space so nothing in the
     report can be read as a link or a resource to fetch, even where user text contains one.
     """
-    text = html.escape("" if value is None else str(value), quote=True)
+    shown = "" if value is None else visible_text(value)  # direction controls as [U+202E]
+    text = html.escape(shown, quote=True)
     return re.sub(r"(?i)(https?|ftp):(//)", r"\1:&#8203;\2", text)
 
 

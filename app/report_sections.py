@@ -187,6 +187,12 @@ def comparison_section(comparison: Mapping | None, pairwise) -> str:
         + " A test that does not reach significance does not show that the groups are the "
         "same.</p>",
     ]
+    left_out = comparison.get("rows_excluded") or 0
+    if left_out:
+        parts.append(
+            f"<p>{left_out:,} row(s) without a group (or stratum) are in the all-rows curve but "
+            "left out of this comparison.</p>"
+        )
     if pairwise:
         headers, rows = record_rows(pairwise)
         parts += ["<h3>Pairwise comparisons</h3>", table(headers, rows)]

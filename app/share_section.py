@@ -114,6 +114,7 @@ INCLUDE_KEYS = {
     "parametric": "param_include",
     "sample_size": "power_include",
     "landmark": "landmark_include",
+    "performance": "perf_include",
 }
 
 

@@ -55,3 +55,4 @@ def clear_page_choices(session: MutableMapping, prefixes: tuple[str, ...]) -> No
 
 # --- pages beyond the basics and the share page (appended; prefixes of their widget keys) ------
 PERSISTENT_PREFIXES = (*PERSISTENT_PREFIXES, "cr_", "param_", "power_", "landmark_")
+PERSISTENT_PREFIXES = (*PERSISTENT_PREFIXES, "perf_")  # the prediction-performance page

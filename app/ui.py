@@ -13,6 +13,7 @@ import streamlit as st
 
 from app import charts, exports, state
 from engine.errors import HazelError
+from engine.text_safety import visible_frame, visible_text
 
 log = logging.getLogger("hazel.app")
 
@@ -37,7 +38,7 @@ def show_cautions() -> None:
 def escape(text: object) -> str:
     """User text (column names, labels) shown literally in markdown (Streamlit never renders
     raw HTML in markdown here, so markdown's own characters are the ones to neutralise)."""
-    escaped = str(text)
+    escaped = visible_text(text)  # direction controls and control characters as [U+XXXX]
     for ch in "\\`*_[]{}#|~<>$:":
         escaped = escaped.replace(ch, "\\" + ch)
     return escaped
@@ -107,7 +108,7 @@ def table(
 ) -> None:
     """Show a table (``shown`` may be a rounded view) and offer the exact values as CSV."""
     st.dataframe(
-        frame if shown is None else shown,
+        visible_frame(frame if shown is None else shown),
         hide_index=True,
         column_config=column_config,
         width="stretch",

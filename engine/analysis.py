@@ -26,7 +26,7 @@ from engine.compare import compare_frame
 from engine.cox import cox_json, fit_cox
 from engine.cox_diagnostics import proportional_hazards_test
 from engine.errors import RoleError
-from engine.summary import curves_json
+from engine.summary import COMPARISON_KEYS, curves_json
 
 ANALYSIS_DEFAULTS: dict[str, dict] = {
     "curves": {"times": [], "ci_transform": "log-log", "confidence": 0.95, "rmst_horizon": None},
@@ -45,7 +45,14 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
         "reference": None,
     },
     # The analyses below run only when the settings name them (a recipe, --competing ...).
-    "competing": {"times": [], "by_group": True, "cause_specific_cox": True},
+    # gray_test: Gray's test per cause across the groups; fine_gray: a cause name (or None)
+    "competing": {
+        "times": [],
+        "by_group": True,
+        "cause_specific_cox": True,
+        "gray_test": True,
+        "fine_gray": None,
+    },
     "parametric": {
         "distributions": ["exponential", "weibull", "lognormal", "loglogistic"],
         "by_group": False,
@@ -63,9 +70,20 @@ ANALYSIS_DEFAULTS: dict[str, dict] = {
         "events": None,
     },
     "landmark": {"time": None, "test": "logrank"},
+    # performance of the Cox model: AUC and Brier score at times, tau of Uno's C (None: the
+    # largest time), calibration at a time (None: the first of times), bootstrap of optimism
+    # (replicates 0: none)
+    "performance": {
+        "times": [],
+        "tau": None,
+        "calibration_time": None,
+        "risk_groups": 5,
+        "replicates": 100,
+        "seed": 20261202,
+    },
 }
 CORE_ANALYSES = ("curves", "comparison", "cox")  # always run (when the roles allow)
-OPTIONAL_ANALYSES = ("competing", "parametric", "sample_size", "landmark")
+OPTIONAL_ANALYSES = ("competing", "parametric", "sample_size", "landmark", "performance")
 
 
 def resolved_settings(settings: Mapping | None) -> dict[str, dict]:
@@ -150,6 +168,22 @@ def fit_cox_from_roles(
     )
 
 
+def fit_cox_from_settings(
+    prepared: PreparedData, cox: Mapping, source: pd.DataFrame | None = None, **options
+):
+    """The Cox model of resolved ``"cox"`` settings (the model the Regression page shows)."""
+    return fit_cox_from_roles(
+        prepared,
+        ties=cox["ties"],
+        confidence=cox["confidence"],
+        covariates=cox["covariates"],
+        strata=cox["strata"],
+        reference=cox["reference"],
+        source=source,
+        **options,
+    )
+
+
 def comparison_frame(
     prepared: PreparedData, *, cut=None, strata=None, source: pd.DataFrame | None = None
 ) -> pd.DataFrame | None:
@@ -187,7 +221,7 @@ def comparison_section(
     if frame is None or frame["_group"].nunique(dropna=True) < 2:
         return None
     result = compare_frame(frame, test=test, rho=rho, gamma=gamma).to_dict()
-    return {k: result[k] for k in ("test", "statistic", "df", "p_value")}
+    return {k: result[k] for k in COMPARISON_KEYS}
 
 
 def run_analysis(
@@ -221,15 +255,7 @@ def run_analysis(
     }
     model = prepared.roles.covariates if cox["covariates"] is None else cox["covariates"]
     if prepared.roles.covariates and model:
-        result = fit_cox_from_roles(
-            prepared,
-            ties=cox["ties"],
-            confidence=cox["confidence"],
-            covariates=cox["covariates"],
-            strata=cox["strata"],
-            reference=cox["reference"],
-            source=source,
-        )
+        result = fit_cox_from_settings(prepared, cox, source=source)
         sections["cox"] = cox_json(result, proportional_hazards_test(result, cox["ph_transform"]))
     from engine.analysis_extra import extra_sections  # the optional analyses
 

@@ -22,6 +22,7 @@ def extra_sections(prepared: PreparedData, settings: Mapping[str, dict]) -> dict
         "parametric": parametric_section,
         "sample_size": lambda _prepared, chosen: sample_size_section(chosen),
         "landmark": landmark_section,
+        "performance": performance_section,
     }
     confidence = settings["curves"]["confidence"]
     out = {}
@@ -32,6 +33,8 @@ def extra_sections(prepared: PreparedData, settings: Mapping[str, dict]) -> dict
                 chosen = {**chosen, "curves": settings["curves"]}
             if name == "competing":
                 chosen = {**chosen, "ties": settings["cox"]["ties"]}
+            if name == "performance":
+                chosen = {**chosen, "cox": settings["cox"]}
             out[name] = maker(prepared, chosen)
     return out
 
@@ -76,6 +79,82 @@ def competing_section(prepared: PreparedData, chosen: Mapping) -> dict:
             }
             for cause, model in models.models
         ]
+    section["gray_test"] = gray_test_section(prepared) if chosen.get("gray_test", True) else None
+    section["fine_gray"] = None
+    if chosen.get("fine_gray"):
+        section["fine_gray"] = fine_gray_section(prepared, chosen)
+    return section
+
+
+def gray_test_section(prepared: PreparedData) -> list[dict] | None:
+    """Gray's test per cause across the groups; None without causes or two groups."""
+    from engine.gray_test import gray_tests
+
+    frame = prepared.frame
+    if "_cause" not in frame.columns or "_group" not in frame.columns:
+        return None
+    if frame["_group"].nunique(dropna=True) < 2:
+        return None
+    return [test.to_dict() for test in gray_tests(frame)]
+
+
+def fine_gray_section(prepared: PreparedData, chosen: Mapping) -> dict:
+    """The Fine–Gray model of the chosen cause on the roles' covariates, with the predicted
+    cumulative incidence of the typical subject at the chosen times."""
+    from engine.analysis import categorical_covariates
+    from engine.fine_gray import MEANING, fit_fine_gray
+
+    frame, roles = prepared.frame, prepared.roles
+    if not roles.covariates:
+        raise AnalysisError(
+            "The Fine–Gray model needs covariates; set them (--covariates A,B) or leave out "
+            "--fine-gray."
+        )
+    result = fit_fine_gray(
+        frame,
+        list(roles.covariates),
+        str(chosen["fine_gray"]),
+        categorical=categorical_covariates(frame, roles.covariates),
+        reference=dict(roles.reference),
+        ties=chosen["ties"],
+        confidence=chosen["confidence"],
+    )
+    curve = result.predict_incidence({"typical": {}})
+    times = np.asarray(chosen["times"] or [], dtype=float)
+    idx = np.searchsorted(curve["time"].to_numpy(), times, side="right") - 1
+    at_times = [
+        {"time": float(t), "cumulative_incidence": json_value(curve["cumulative_incidence"][i])}
+        for t, i in zip(times, idx, strict=True)
+    ]
+    return {**result.to_dict(), "meaning": MEANING, "typical_at_times": at_times}
+
+
+def performance_section(prepared: PreparedData, chosen: Mapping) -> dict:
+    """Discrimination, accuracy and calibration of the Cox model the settings describe, and
+    the bootstrap correction for optimism (unless replicates is 0)."""
+    from engine.analysis import fit_cox_from_settings
+    from engine.optimism import bootstrap_optimism
+    from engine.performance import prediction_performance
+
+    if not prepared.roles.covariates:
+        raise AnalysisError(
+            "Prediction performance is measured on a Cox model, which needs covariates; set "
+            "them (--covariates A,B) or leave out --performance."
+        )
+    model = fit_cox_from_settings(prepared, chosen["cox"], drop_one=False)
+    result = prediction_performance(
+        model,
+        chosen["times"],
+        tau=chosen["tau"],
+        calibration_time=chosen["calibration_time"],
+        risk_groups=int(chosen["risk_groups"]),
+        confidence=chosen["confidence"],
+    )
+    section = result.to_dict()
+    if int(chosen["replicates"]) > 0:
+        section["optimism"] = bootstrap_optimism(
+            model, replicates=int(chosen["replicates"]), seed=int(chosen["seed"])
+        ).to_dict()
     return section
 
 

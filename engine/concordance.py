@@ -49,9 +49,12 @@ class ConcordanceResult:
         return pd.DataFrame([self.to_dict()])
 
 
-def pair_counts(time, event, risk, strata=None) -> tuple[np.ndarray, np.ndarray, float]:
+def pair_counts(
+    time, event, risk, strata=None, *, earlier_only: bool = False
+) -> tuple[np.ndarray, np.ndarray, float]:
     """Per subject: concordant pairs (half for tied scores) and comparable pairs; and the total
-    number of pairs with tied scores."""
+    number of pairs with tied scores. With ``earlier_only`` a pair counts only for its earlier
+    member (the one with the event), as censoring-weighted concordance needs."""
     time = np.asarray(time, dtype=float)
     event = np.asarray(event).astype(bool)
     risk = np.asarray(risk, dtype=float)
@@ -89,15 +92,15 @@ def pair_counts(time, event, risk, strata=None) -> tuple[np.ndarray, np.ndarray,
         )
         later = ((full_key >> level) & 1).astype(bool)
         if n_scores == n:
-            _count_level_distinct(new_block, later, event, conc, comp)
+            _count_level_distinct(new_block, later, event, conc, comp, earlier_only)
         else:
-            tied_pairs += _count_level(new_block, score, later, event, conc, comp)
+            tied_pairs += _count_level(new_block, score, later, event, conc, comp, earlier_only)
     concordant[order] = conc
     comparable[order] = comp
     return concordant, comparable, tied_pairs
 
 
-def _count_level_distinct(new_block, later, event, conc, comp) -> None:
+def _count_level_distinct(new_block, later, event, conc, comp, earlier_only=False) -> None:
     """``_count_level`` when no two scores are equal (every run is a single row)."""
     block_start = np.flatnonzero(new_block)
     block_len = np.diff(np.append(block_start, len(later)))
@@ -110,11 +113,14 @@ def _count_level_distinct(new_block, later, event, conc, comp) -> None:
     early_below = early_before[:-1] - np.repeat(early_before[block_start], block_len)
     later_in_block = np.repeat(later_before[block_end] - later_before[block_start], block_len)
     early_in_block = np.repeat(early_before[block_end] - early_before[block_start], block_len)
-    conc += early_f * later_below + later_f * (early_in_block - early_below)
-    comp += early_f * later_in_block + later_f * early_in_block
+    conc += early_f * later_below
+    comp += early_f * later_in_block
+    if not earlier_only:
+        conc += later_f * (early_in_block - early_below)
+        comp += later_f * early_in_block
 
 
-def _count_level(new_block, score, later, event, conc, comp) -> float:
+def _count_level(new_block, score, later, event, conc, comp, earlier_only=False) -> float:
     """Add this level's pairs to the per-row counts (rows sorted by block, then score)."""
     new_run = new_block.copy()
     new_run[1:] |= score[1:] != score[:-1]
@@ -139,10 +145,11 @@ def _count_level(new_block, score, later, event, conc, comp) -> float:
 
     # An earlier event is concordant with later subjects of lower score; a later subject with
     # earlier events of higher score; tied scores count one half.
-    conc += early_f * (later_below + 0.5 * later_in_run) + later_f * (
-        early_in_block - early_below - 0.5 * early_in_run
-    )
-    comp += early_f * later_in_block + later_f * early_in_block
+    conc += early_f * (later_below + 0.5 * later_in_run)
+    comp += early_f * later_in_block
+    if not earlier_only:
+        conc += later_f * (early_in_block - early_below - 0.5 * early_in_run)
+        comp += later_f * early_in_block
     return float(np.dot(early_f, later_in_run))
 
 

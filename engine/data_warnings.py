@@ -10,6 +10,7 @@ import pandas as pd
 
 from engine.errors import preview_values
 from engine.roles import Roles, convert_time
+from engine.text_safety import hidden_characters_warning
 
 FEW_EVENTS = 10  # common practice: fewer than ~10 events per group gives unstable estimates
 TINY_GROUP = 5
@@ -52,16 +53,18 @@ def warnings_on_used(prepared, frame, roles: Roles, time, counts) -> list[str]:
         events=int(prepared["_event"].sum()) if len(prepared) else None,
         counts=counts,
         no_group=int(prepared["_group"].isna().sum()) if roles.group else 0,
+        hidden=_hidden_characters_warning(prepared),
         repeated_ids=repeated,
     )
 
 
 def warnings_from_summary(
-    roles: Roles, *, zeros: int, times, events, counts, no_group: int, repeated_ids
+    roles: Roles, *, zeros: int, times, events, counts, no_group: int, hidden, repeated_ids
 ) -> list[str]:
     """The warnings from what they depend on: rows at time 0, the times (distinct values are
     enough), events among the rows used (None without rows), rows per group, rows without a
-    group, and repeated ids as (how many, examples) or None; a database computes these."""
+    group, the hidden-characters warning (or None) and repeated ids as (how many, examples) or
+    None; a database computes these."""
     notes = []
     if zeros:
         notes.append(
@@ -87,6 +90,8 @@ def warnings_from_summary(
                 f"{no_group} row(s) have no value in the group column {roles.group!r}; they "
                 "appear in overall results but in no group."
             )
+    if hidden:
+        notes.append(hidden)
     if repeated_ids is not None:
         count, examples = repeated_ids
         notes.append(
@@ -94,6 +99,24 @@ def warnings_from_summary(
             f"({preview_values(examples)}); each subject should appear once."
         )
     return notes
+
+
+def labels_warning(labels) -> str | None:
+    """The hidden-characters warning over the data's names, groups and levels."""
+    return hidden_characters_warning(labels, "the data (names, groups or levels)")
+
+
+def _hidden_characters_warning(prepared: pd.DataFrame) -> str | None:
+    """Labels (column names, group, strata and category levels, causes) holding direction
+    controls or control characters, which every display shows as codes (engine.text_safety)."""
+    labels = [str(c) for c in prepared.columns]
+    for column in prepared.columns:
+        values = prepared[column]
+        if isinstance(values.dtype, pd.CategoricalDtype):
+            labels.extend(str(v) for v in values.cat.categories)
+        elif column == "_cause":
+            labels.extend(str(v) for v in pd.unique(values) if v is not None)
+    return labels_warning(labels)
 
 
 def _may_repeat(ids: pd.Series) -> bool:

@@ -17,8 +17,8 @@ from dataclasses import dataclass, field
 from importlib import metadata
 
 from engine.analysis import ANALYSIS_DEFAULTS
-from engine.errors import HazelError
 from engine.filters import RowFilter
+from engine.recipe_schema import RecipeError, check_layout, check_plain_json
 
 VERSION_KEY = "hazel_recipe"
 CURRENT_VERSION = 1
@@ -31,10 +31,6 @@ MAX_RECIPE_BYTES = 1_000_000  # a recipe holds settings only; anything larger is
 VERSION_0_ANALYSES = ("curves", "comparison", "cox")
 
 SOFTWARE = ("python", "numpy", "pandas", "scipy", "lifelines")
-
-
-class RecipeError(HazelError):
-    """The file is not a recipe Hazel can read (not JSON, unknown version, missing parts)."""
 
 
 def software_versions() -> dict[str, str]:
@@ -133,13 +129,11 @@ class Recipe:
 
     @classmethod
     def from_dict(cls, data: dict) -> Recipe:
+        """Every field is checked against ``engine/recipe.schema.json`` before it is used."""
+        check_plain_json(data)
+        check_layout(data, recipe_version(data))
         data = migrate(data)
-        _require(data, ("data", "roles", "analyses"), "recipe")
-        for key in ("import_options", "roles", "analyses", "software"):
-            if not isinstance(data.get(key, {}), dict):
-                raise RecipeError(f"The recipe's '{key}' must be an object, not {data[key]!r}.")
-        if not isinstance(data.get("filters", []), list):
-            raise RecipeError("The recipe's 'filters' must be a list of filter objects.")
+        check_layout(data, CURRENT_VERSION)
         return cls(
             fingerprint=DataFingerprint.from_dict(data["data"]),
             import_options=data.get("import_options", {}),
@@ -170,6 +164,11 @@ class Recipe:
             raise RecipeError(
                 f"This file is not a Hazel recipe: it is not valid JSON ({err.msg} at line "
                 f"{err.lineno}, column {err.colno})."
+            ) from None
+        except RecursionError:
+            raise RecipeError(
+                "This file is not a Hazel recipe: it is nested thousands of levels deep (a "
+                "recipe is only a few levels deep)."
             ) from None
         return cls.from_dict(data)
 

@@ -27,6 +27,7 @@ from engine.errors import AnalysisError
 
 Method = Literal["schoenfeld", "freedman"]
 METHODS: tuple[str, ...] = ("schoenfeld", "freedman")
+MAX_SUBJECTS = 1e12  # beyond any study; keeps the counts exact whole numbers
 
 
 @dataclass(frozen=True)
@@ -103,12 +104,16 @@ def _check_design(hazard_ratio, alpha, sides, allocation_ratio, method) -> None:
 
 
 def _effect_factor(hazard_ratio, allocation_ratio: float, method: str):
-    """Per-event information for the chosen formula: D * factor = (z_a + z_b)^2."""
-    k = allocation_ratio
+    """Per-event information for the chosen formula: D * factor = (z_a + z_b)^2.
+
+    Written so that extreme inputs cannot overflow: k / (1 + k)^2 as 1 / (k + 2 + 1/k), and
+    Freedman's (1 - HR)^2 / (1 + k HR)^2 as the square of the ratio."""
+    k = np.float64(allocation_ratio)
     hr = np.asarray(hazard_ratio, dtype=float)
-    if method == "schoenfeld":
-        return k * np.log(hr) ** 2 / (1 + k) ** 2
-    return k * (1 - hr) ** 2 / (1 + k * hr) ** 2
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+        if method == "schoenfeld":
+            return np.log(hr) ** 2 / (k + 2 + 1 / k)
+        return k * ((1 - hr) / (1 + k * hr)) ** 2
 
 
 def events_needed(
@@ -130,16 +135,24 @@ def events_needed(
             "The expected event probability (share of subjects who have the event during the "
             f"study) must lie in (0, 1]; got {event_probability!r}."
         )
-    z_a = norm.ppf(1 - alpha / sides)
+    z_a = norm.isf(alpha / sides)  # not ppf(1 - a): 1 - 1e-300 is 1.0 in floating point
     z_b = norm.ppf(power)
     if z_a + z_b <= 0:
         raise AnalysisError(
             f"Power {power} is below the false-positive rate {alpha / sides}; ask for more power."
         )
-    exact = float((z_a + z_b) ** 2 / _effect_factor(hazard_ratio, allocation_ratio, method))
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+        exact = float((z_a + z_b) ** 2 / _effect_factor(hazard_ratio, allocation_ratio, method))
+        total = exact / event_probability
+    if not (math.isfinite(total) and total <= MAX_SUBJECTS):
+        raise AnalysisError(
+            f"This design needs more than {MAX_SUBJECTS:,.0f} subjects ({method}: hazard ratio "
+            f"{hazard_ratio:g}, alpha {alpha:g}, power {power:g}, allocation {allocation_ratio:g}, "
+            f"event probability {event_probability:g}): no study can be that large. Choose a "
+            "hazard ratio further from 1, a larger alpha or a larger event probability."
+        )
     events = math.ceil(exact)
     # Subjects per arm are rounded up separately so the total honours the allocation ratio.
-    total = exact / event_probability
     control = math.ceil(total / (1 + allocation_ratio))
     experimental = math.ceil(total * allocation_ratio / (1 + allocation_ratio))
     return SampleSize(
@@ -173,8 +186,9 @@ def power_for_events(
         _check_design(float(hr), alpha, sides, allocation_ratio, method)
     if not (np.isfinite(events) and events > 0):
         raise AnalysisError(f"The number of events must be positive; got {events!r}.")
-    z_a = norm.ppf(1 - alpha / sides)
-    power = norm.cdf(np.sqrt(events * _effect_factor(hrs, allocation_ratio, method)) - z_a)
+    z_a = norm.isf(alpha / sides)
+    with np.errstate(over="ignore", invalid="ignore"):
+        power = norm.cdf(np.sqrt(events * _effect_factor(hrs, allocation_ratio, method)) - z_a)
     return float(power[0]) if np.ndim(hazard_ratio) == 0 else power
 
 

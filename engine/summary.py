@@ -23,7 +23,8 @@ from engine.rmst import rmst_from_curve
 @dataclass(frozen=True)
 class NumbersAtRiskTable:
     """Per group and tick: at risk at the tick (time >= tick; with delayed entry also
-    entry < tick), and events and censorings in [tick, next tick) (the last to the end)."""
+    entry < tick), and events and censorings in [tick, next tick) (the last to the end). Rows
+    without a group are in no group's rows (the all-rows table, without a grouping, has them)."""
 
     frame: pd.DataFrame  # group, tick, interval_end, at_risk, events, censored
 
@@ -53,8 +54,9 @@ def numbers_at_risk(time, event, group=None, ticks=(0.0,), *, entry=None) -> Num
     ticks = check_times(ticks, "ticks")
     if ticks.size == 0 or np.any(np.diff(ticks) <= 0):
         raise AnalysisError(f"Ticks must be increasing and non-empty; got {ticks.tolist()}.")
-    codes, labels = group_codes(group, time.shape[0])
-    k, m = len(labels), ticks.size
+    # Rows without a group get the code one past the last label: counted in no group's row.
+    codes, labels = group_codes(group, time.shape[0], missing_as_extra=True)
+    k, m = len(labels) + 1, ticks.size
     key = (np.searchsorted(ticks, time, side="right") * k + codes).astype(np.intp)
     cells = (m + 1) * k
     everyone = np.bincount(key, minlength=cells).reshape(m + 1, k)
@@ -66,6 +68,8 @@ def numbers_at_risk(time, event, group=None, ticks=(0.0,), *, entry=None) -> Num
         late = np.bincount(entry_key, minlength=cells).reshape(m + 1, k)
         at_risk = at_risk - np.cumsum(late[::-1], axis=0)[::-1][1:]
     ends = np.append(ticks[1:], np.nan)
+    k = len(labels)
+    everyone, events, at_risk = everyone[:, :k], events[:, :k], at_risk[:, :k]
     frame = pd.DataFrame(
         {
             "group": np.repeat(np.array(labels, dtype=object), m),
@@ -210,9 +214,14 @@ def curve_set_json(curve_set, times=()) -> list[dict]:
     return out
 
 
+# The JSON "comparison" object's keys; rows_excluded counts rows without a group or stratum,
+# which are in the all-rows curve but not in the comparison.
+COMPARISON_KEYS = ("test", "statistic", "df", "p_value", "rows_excluded")
+
+
 def comparison_json(frame: pd.DataFrame, test: str = "logrank") -> dict | None:
     """The CLI's "comparison" entry, or None without a group column or with one group only."""
     if "_group" not in frame.columns or frame["_group"].nunique(dropna=True) < 2:
         return None
     result = compare_frame(frame, test=test).to_dict()
-    return {k: result[k] for k in ("test", "statistic", "df", "p_value")}
+    return {k: result[k] for k in COMPARISON_KEYS}

@@ -19,7 +19,9 @@ Rules (house conventions, common practice in medical journals):
 from __future__ import annotations
 
 import math
-from decimal import ROUND_HALF_UP, Decimal
+from decimal import ROUND_HALF_UP, Context, Decimal
+
+from engine.text_safety import visible_text
 
 NOT_REACHED = "not reached"
 NOT_ESTIMABLE = "not estimable"
@@ -31,8 +33,23 @@ def _is_missing(value: float | None) -> bool:
 
 def round_half_up(value: float, digits: int) -> Decimal:
     """Round the shortest decimal form of ``value`` half-up (0.125 -> 0.13), never the float."""
-    quantum = Decimal(1).scaleb(-digits)
-    return Decimal(repr(float(value))).quantize(quantum, rounding=ROUND_HALF_UP)
+    return _quantize(Decimal(repr(float(value))), digits)
+
+
+def _quantize(number: Decimal, digits: int) -> Decimal:
+    """Half-up to ``digits`` places with as many significant digits as the number needs (the
+    default context's 28 would refuse 1e27 to one decimal place)."""
+    context = Context(prec=max(28, number.adjusted() + digits + 2))
+    return number.quantize(Decimal(1).scaleb(-digits), rounding=ROUND_HALF_UP, context=context)
+
+
+HUGE = 1e15  # from here on a number is written in powers of ten: 1.00e+27, not 28 digits
+TINY = 1e-6  # and below this, where significant figures are wanted (ratios, typed values)
+
+
+def _scientific(value: float) -> str:
+    """Three significant figures and a power of ten, for numbers no reader counts digit by digit."""
+    return f"{value:.2e}"
 
 
 def format_number(value: float | None, digits: int = 1, missing: str = NOT_ESTIMABLE) -> str:
@@ -41,6 +58,8 @@ def format_number(value: float | None, digits: int = 1, missing: str = NOT_ESTIM
         return missing
     if math.isinf(value):
         return "infinite" if value > 0 else "minus infinite"
+    if abs(value) >= HUGE:
+        return _scientific(value)
     text = f"{round_half_up(value, digits):f}"
     if text.startswith("-") and Decimal(text) == 0:
         text = text[1:]
@@ -49,6 +68,8 @@ def format_number(value: float | None, digits: int = 1, missing: str = NOT_ESTIM
 
 def format_plain(value: float) -> str:
     """A caller-chosen value such as a time point: as typed, without trailing zeros (12, 2.5)."""
+    if math.isfinite(value) and (abs(value) >= HUGE or 0 < abs(value) < TINY):
+        return _scientific(value)
     text = format(Decimal(repr(float(value))).normalize(), "f")
     return text
 
@@ -57,8 +78,10 @@ def format_percent(value: float | None, digits: int = 1, missing: str = NOT_ESTI
     """A proportion in [0, 1] as a percentage: 0.6432 -> '64.3%'."""
     if _is_missing(value):
         return missing
-    percent = Decimal(repr(float(value))) * 100  # no float multiplication before rounding
-    return f"{percent.quantize(Decimal(1).scaleb(-digits), rounding=ROUND_HALF_UP):f}%"
+    if math.isinf(value) or abs(value) * 100 >= HUGE:
+        return format_number(value * 100, digits) + "%"
+    percent = Decimal(repr(float(value))).scaleb(2)  # no float multiplication before rounding
+    return f"{_quantize(percent, digits):f}%"
 
 
 def format_ratio(value: float | None, missing: str = NOT_ESTIMABLE) -> str:
@@ -67,6 +90,8 @@ def format_ratio(value: float | None, missing: str = NOT_ESTIMABLE) -> str:
         return missing
     if math.isinf(value) or value <= 0:
         return format_number(value, 2)
+    if value < TINY:
+        return _scientific(value)
     if value < 0.1:
         digits = 1 - math.floor(math.log10(value))  # 2 significant figures
         text = format_number(value, digits)
@@ -78,7 +103,7 @@ def format_ratio(value: float | None, missing: str = NOT_ESTIMABLE) -> str:
 
 def format_p(p: float | None) -> str:
     """A p-value: 3 decimals, '< 0.001' below 0.001, '> 0.999' when it would round to 1."""
-    if _is_missing(p):
+    if _is_missing(p) or not 0 <= p <= 1:  # outside [0, 1] it is no probability
         return NOT_ESTIMABLE
     if p < 0.001:
         return "< 0.001"
@@ -111,7 +136,7 @@ def _unit(value: float, unit: str) -> str:
 
 
 def _subject(group: str | None, what: str) -> str:
-    return f"{what} in group {group}" if group is not None else what
+    return f"{what} in group {visible_text(group)}" if group is not None else what
 
 
 def _interval(lower: str, upper: str, confidence: float) -> str:
@@ -177,6 +202,9 @@ def hazard_ratio_sentence(
 
     For a numeric covariate, the ratio is per one unit (or per ``unit_of_change``) increase.
     """
+    variable = visible_text(variable)  # labels come from the file: direction controls as codes
+    level = None if level is None else visible_text(level)
+    reference = None if reference is None else visible_text(reference)
     if level is not None:
         what = f"{variable} {level} versus {reference}" if reference else f"{variable} {level}"
     else:

@@ -35,7 +35,7 @@ from engine.checks import (
     _validate_roles,
     event_coding,
 )
-from engine.data_warnings import warnings_from_summary
+from engine.data_warnings import labels_warning, warnings_from_summary
 from engine.errors import RoleError, preview_values
 from engine.roles import (
     TIME_UNITS,
@@ -286,7 +286,8 @@ def aggregate_checks(
                 "category, mark it categorical."
             )
     by_group = _group_counts(counts)
-    notes.extend(_warnings(source, counts, by_group, roles))
+    labels = [*_prepared_columns(roles), *(v for lv in levels.values() for v in lv.labels)]
+    notes.extend(_warnings(source, counts, by_group, roles, labels_warning(labels)))
     events = counts.events
     report = DataReport(
         rows_read=rows_read,
@@ -501,7 +502,16 @@ def _group_counts(counts: CountTable) -> pd.DataFrame:
     return table.astype({"n": "int64", "events": "int64", "censored": "int64"})
 
 
-def _warnings(source: SqlSource, counts: CountTable, by_group, roles: Roles) -> list[str]:
+def _prepared_columns(roles: Roles) -> list[str]:
+    """The prepared frame's column names (``checks.prepare``), for the labels warning."""
+    names = ["_time", "_event"]
+    names += [n for n, c in (("_group", roles.group), ("_strata", roles.strata)) if c]
+    names += ["_entry"] if roles.entry else []
+    names += ["_id"] if roles.id else []
+    return [*names, *roles.covariates]
+
+
+def _warnings(source: SqlSource, counts: CountTable, by_group, roles: Roles, hidden) -> list[str]:
     ex = counts.exits
     times = ex["time"].to_numpy()
     zeros = int((ex.loc[times == 0, "events"] + ex.loc[times == 0, "censored"]).sum())
@@ -527,5 +537,6 @@ def _warnings(source: SqlSource, counts: CountTable, by_group, roles: Roles) -> 
         events=counts.events if counts.rows else None,
         counts=by_group,
         no_group=no_group,
+        hidden=hidden,
         repeated_ids=repeated,
     )

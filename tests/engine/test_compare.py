@@ -229,7 +229,7 @@ def test_one_group_and_unknown_test_are_refused():
 
 def test_comparison_json_keys_and_null_without_group(freireich):
     out = comparison_json(freireich)
-    assert set(out) == {"test", "statistic", "df", "p_value"}
+    assert set(out) == {"test", "statistic", "df", "p_value", "rows_excluded"}
     assert out["test"] == "log-rank" and out["df"] == 1
     json.dumps(out, allow_nan=False)
     assert comparison_json(freireich.drop(columns="_group")) is None

@@ -143,3 +143,31 @@ def test_result_is_json_ready():
     d = events_needed(0.7).to_dict()
     assert isinstance(d["events_exact"], float) and isinstance(d["events"], int)
     assert np.isfinite(d["events_exact"])
+
+
+@pytest.mark.parametrize(
+    "design",
+    [
+        {"alpha": 1e-300},  # 1 - alpha / 2 is 1.0 in floating point: isf, not ppf
+        {"allocation_ratio": 1e308},
+        {"allocation_ratio": 1e-308},
+        {"event_probability": 1e-308},
+        {"hazard_ratio": 1e308},
+        {"hazard_ratio": 1e-308},
+        {"hazard_ratio": 1 + 1e-15},
+    ],
+)
+@pytest.mark.parametrize("method", ["schoenfeld", "freedman"])
+def test_extreme_designs_give_counts_or_a_clear_error_never_an_overflow(design, method):
+    """Issue 10 item 4; where a count comes back, power for it is back at the target (exact
+    inverse, the module's stated property)."""
+    hazard_ratio = design.pop("hazard_ratio", 0.7)
+    try:
+        result = events_needed(hazard_ratio, method=method, **design)
+    except AnalysisError as error:
+        assert "subjects" in str(error)
+        return
+    assert 0 < result.events <= 1e12 and result.subjects >= result.events
+    design.pop("event_probability", None)
+    back = power_for_events(result.events_exact, hazard_ratio, method=method, **design)
+    assert back == pytest.approx(0.8, abs=1e-6)

@@ -7,6 +7,7 @@ docstring (half-up on the printed decimal value), not produced by the code under
 from __future__ import annotations
 
 import math
+from decimal import Decimal
 
 import pytest
 from hypothesis import given
@@ -238,3 +239,33 @@ def test_cox_sentences_from_the_json_object():
         "The hazard ratio for each one-unit increase in age was 1.00 "
         "(95% CI 0.97 to 1.02; p = 0.684).",
     ]
+
+
+@pytest.mark.parametrize("value", [1e27, 1e28, 1e308, -1e300, 1.7976931348623157e308])
+def test_huge_values_are_worded_in_powers_of_ten_without_error(value):
+    """Issue 10 item 4: 1e27 and more used to raise decimal.InvalidOperation (28-digit context)."""
+    for text in (
+        format_number(value, 1),
+        format_ratio(value),
+        format_plain(value),
+        comparison_sentence("log-rank", value, 1, 0.5),
+        median_sentence(value, value, None, "days"),
+    ):
+        assert "e+" in text
+    ratio = Decimal(format_number(value, 2)) / Decimal(repr(value))
+    assert abs(ratio - 1) < Decimal("0.01")
+
+
+def test_values_below_1e15_keep_fixed_decimals_and_tiny_ratios_keep_significant_figures():
+    assert format_number(123456789012345.06, 1) == "123456789012345.1"
+    assert format_ratio(5e-324) == "4.94e-324"
+    assert format_percent(1e300) == "1.00e+302%"
+    assert format_p(1e27) == "not estimable"  # no probability
+    assert format_p(-0.1) == "not estimable"
+
+
+def test_labels_with_direction_controls_are_shown_as_codes_in_sentences():
+    sentence = median_sentence(12.0, 10.0, 14.0, "days", group="\u202eB")
+    assert "\u202e" not in sentence and "group [U+202E]B" in sentence
+    hr = hazard_ratio_sentence(0.5, 0.4, 0.6, 0.01, "arm\u2066", "new\x1b[2J", "old")
+    assert "\u2066" not in hr and "\x1b" not in hr and "arm[U+2066] new[U+001B][2J" in hr

@@ -1,0 +1,173 @@
+"""Fine–Gray regression against a weighted Cox fit of lifelines on the expanded data of Geskus
+(2011, Biometrics 67:39–49), and exact properties."""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pandas as pd
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from lifelines import CoxPHFitter
+from numpy.testing import assert_allclose
+
+from engine.cox import fit_cox
+from engine.errors import AnalysisError
+from engine.fine_gray import fit_fine_gray
+
+TIGHT = {"precision": 1e-12, "max_steps": 200}
+
+
+def _sample(rng, n=300, tied=False, competing=True):
+    """Relapse depends on x0, death (the competing cause) on the group; uniform censoring."""
+    x0 = rng.normal(size=n)
+    arm = rng.choice(["control", "new"], n)
+    t1 = rng.exponential(10.0 * np.exp(-0.5 * x0))
+    t2 = rng.exponential(12.0 * np.exp(0.4 * (arm == "new"))) if competing else np.inf
+    censor = rng.uniform(0.0, 25.0, n)
+    time = np.minimum.reduce([t1, np.broadcast_to(t2, n), censor])
+    status = np.select([time == t1, time == t2], [1, 2], 0)
+    if tied:
+        time = np.ceil(time)
+    cause = np.where(status == 1, "relapse", np.where(status == 2, "death", None))
+    frame = pd.DataFrame(
+        {"_time": time, "_cause": cause, "x0": x0, "arm": pd.Categorical(arm, ["control", "new"])}
+    )
+    return frame, status
+
+
+def geskus_expanded(time, status, x):
+    """The expanded data, written out independently of the engine with plain loops.
+
+    Censoring distribution G: Kaplan–Meier of the censoring times, events taken to come first
+    at tied times. A subject with the cause or censored keeps one row (0, T]. A subject with a
+    competing event at T has the row (0, T] of weight 1 and then rows from T up to and between
+    the later censoring times, each of weight G(start) / G(T-), where G(start) is G just after
+    the interval's start, the value G(t-) holds for every t in the interval."""
+    n = len(time)
+    distinct = np.unique(time)
+    survival, g = [], 1.0
+    for t in distinct:
+        at_risk = np.sum(time >= t) - np.sum((time == t) & (status > 0))
+        censored = np.sum((time == t) & (status == 0))
+        if censored:
+            g *= 1.0 - censored / at_risk
+        survival.append(g)
+
+    def g_after(t):
+        i = np.searchsorted(distinct, t, side="right") - 1
+        return 1.0 if i < 0 else survival[i]
+
+    def g_before(t):
+        i = np.searchsorted(distinct, t, side="left") - 1
+        return 1.0 if i < 0 else survival[i]
+
+    censor_times = np.unique(time[status == 0])
+    end = time.max() + 1.0
+    rows = []
+    for i in range(n):
+        rows.append((i, 0.0, time[i], int(status[i] == 1), 1.0))
+        if status[i] != 2:
+            continue
+        starts = [time[i], *[c for c in censor_times if c > time[i]]]
+        for start, stop in zip(starts, [*starts[1:], end], strict=True):
+            weight = g_after(start) / g_before(time[i])
+            if weight > 0:
+                rows.append((i, start, stop, 0, weight))
+    out = pd.DataFrame(rows, columns=["id", "start", "stop", "event", "weight"])
+    for j in range(x.shape[1]):
+        out[f"x{j}"] = x[out["id"].to_numpy(), j]
+    return out
+
+
+def _lifelines_expanded(frame, status):
+    x = np.column_stack([frame["x0"], (frame["arm"] == "new").astype(float)])
+    data = geskus_expanded(frame["_time"].to_numpy(), status, x)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # non-integer weights: lifelines suggests robust SEs
+        return CoxPHFitter().fit(
+            data.drop(columns="id"),
+            "stop",
+            "event",
+            weights_col="weight",
+            entry_col="start",
+            fit_options=TIGHT,
+        )
+
+
+@pytest.mark.parametrize("tied", [False, True], ids=["no ties", "tied times (Efron)"])
+def test_equals_a_weighted_delayed_entry_cox_fit_of_the_expanded_data(rng, tied):
+    frame, status = _sample(rng, tied=tied)
+    ours = fit_fine_gray(frame, ["x0", "arm"], "relapse").to_frame()
+    reference = _lifelines_expanded(frame, status)
+    assert_allclose(ours["coef"], reference.params_.to_numpy(), atol=1e-6)
+    # the model-based standard error is the weighted fit's inverse information
+    assert_allclose(ours["se_model"], reference.standard_errors_.to_numpy(), rtol=1e-6)
+
+
+def test_without_competing_events_it_is_the_cox_model_with_robust_errors(rng):
+    """No competing events: the Fine–Gray model is the Cox model; its robust standard errors are
+    lifelines' sandwich estimate (no tied times, where the two agree on the score residuals)."""
+    frame, _ = _sample(rng, competing=False)
+    ours = fit_fine_gray(frame, ["x0", "arm"], "relapse").to_frame()
+    cox = fit_cox(frame.assign(_event=(frame["_cause"] == "relapse").astype(int)), ["x0", "arm"])
+    assert_allclose(ours["coef"], cox.to_frame()["coef"], atol=1e-8)
+    assert_allclose(ours["se_model"], cox.to_frame()["se"], rtol=1e-7)
+    data = pd.DataFrame(
+        {
+            "T": frame["_time"],
+            "E": (frame["_cause"] == "relapse").astype(int),
+            "x0": frame["x0"],
+            "arm": (frame["arm"] == "new").astype(float),
+        }
+    )
+    reference = CoxPHFitter().fit(data, "T", "E", robust=True, fit_options=TIGHT)
+    assert_allclose(ours["se"], reference.standard_errors_.to_numpy(), rtol=1e-6)
+
+
+def test_predicted_incidence_follows_the_baseline(rng):
+    frame, _ = _sample(rng)
+    result = fit_fine_gray(frame, ["x0", "arm"], "relapse")
+    curves = result.predict_incidence({"low": {"x0": -1.0}, "high": {"x0": 1.0, "arm": "new"}})
+    low = curves[curves.profile == "low"]["cumulative_incidence"].to_numpy()
+    high = curves[curves.profile == "high"]["cumulative_incidence"].to_numpy()
+    assert low[0] == 0 and np.all(np.diff(low) >= 0) and np.all(high >= low)
+    # proportional subdistribution hazards: log(-log(1 - F)) differ by a constant, x'b
+    beta = result.beta
+    gap = np.log(-np.log(1 - high[1:])) - np.log(-np.log(1 - low[1:]))
+    assert_allclose(gap, 2 * beta[0] + beta[1], rtol=1e-9)
+
+
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 10_000), split=st.floats(0.1, 0.9))
+def test_how_competing_causes_are_named_does_not_matter(seed, split):
+    """Splitting the competing events into two named causes leaves the model of the cause of
+    interest unchanged: every competing event is treated alike."""
+    rng = np.random.default_rng(seed)
+    frame, status = _sample(rng, n=120, tied=True)
+    first = fit_fine_gray(frame, ["x0", "arm"], "relapse").to_frame()
+    other = np.where((status == 2) & (rng.random(len(frame)) < split), "moved", frame["_cause"])
+    second = fit_fine_gray(frame.assign(_cause=other), ["x0", "arm"], "relapse").to_frame()
+    assert_allclose(second[["coef", "se", "se_model"]], first[["coef", "se", "se_model"]])
+
+
+def test_json_has_the_documented_keys(rng):
+    frame, _ = _sample(rng)
+    out = fit_fine_gray(frame, ["x0", "arm"], "relapse").to_dict()
+    assert {"cause", "n", "events", "terms"} <= set(out)
+    assert out["n"] == len(frame) and out["events"] == int((frame["_cause"] == "relapse").sum())
+    assert [t["variable"] for t in out["terms"]] == ["x0", "arm"]
+    assert out["terms"][1]["level"] == "new" and out["terms"][1]["reference"] == "control"
+    assert {"se", "se_model", "hazard_ratio", "lower", "upper", "p_value"} <= set(out["terms"][0])
+
+
+def test_errors_name_the_problem(rng):
+    frame, _ = _sample(rng, n=60)
+    with pytest.raises(AnalysisError, match="'stroke'"):
+        fit_fine_gray(frame, ["x0"], "stroke")
+    with pytest.raises(AnalysisError, match="delayed entry"):
+        fit_fine_gray(frame.assign(_entry=0.0), ["x0"], "relapse")
+    with pytest.raises(AnalysisError, match="causes"):
+        fit_fine_gray(frame.drop(columns="_cause"), ["x0"], "relapse")
