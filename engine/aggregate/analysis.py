@@ -16,7 +16,7 @@ from engine.aggregate.sql_cox import SqlCoxSource, sql_design
 from engine.analysis import resolved_settings
 from engine.cox import cox_json
 from engine.errors import RoleError
-from engine.summary import curve_set_json
+from engine.summary import COMPARISON_KEYS, curve_set_json
 
 NEEDS_ROWS = {
     "competing": "Competing-risk incidence is not yet computed from per-time sums",
@@ -56,7 +56,7 @@ def comparison_from_data(data: AggregatedData, chosen: Mapping) -> dict | None:
         gamma=chosen["gamma"],
         stratified=stratified,
     ).to_dict()
-    return {k: result[k] for k in ("test", "statistic", "df", "p_value")}
+    return {k: result[k] for k in COMPARISON_KEYS}
 
 
 def cox_from_data(data: AggregatedData, chosen: Mapping, *, drop_one: bool = True):
