@@ -303,17 +303,22 @@ def trend_test(
     else:
         c = np.arange(1.0, len(labels) + 1.0)
     u, v, _, _ = _combined_scores(time, event, codes, labels, strata, entry, test, rho, gamma)
+    return trend_from_scores(u, v, c, labels, display_name(test, rho, gamma))
+
+
+def trend_from_scores(u, v, c, labels, name: str) -> TrendResult:
+    """Z = c'U / sqrt(c'Vc) from the summed scores U and their covariance V."""
     variance = float(c @ v @ c)
     if variance <= 0:
         raise AnalysisError("The trend test has no variance: the scores or events do not vary.")
     z = float(c @ u) / np.sqrt(variance)
     return TrendResult(
-        test=f"{display_name(test, rho, gamma)} test for trend",
+        test=f"{name} test for trend",
         statistic=z * z,
         z=z,
         df=1,
         p_value=float(chi2.sf(z * z, 1)),
-        groups=labels,
+        groups=tuple(labels),
         scores=tuple(float(x) for x in c),
     )
 

@@ -189,36 +189,9 @@ def fit_cox(
     center, scale = design.center, design.scale
     scaled = (design.matrix[layout.order] - center) / scale
     fit = newton_raphson(layout, scaled, ties, max_iter=max_iterations)
-    warnings = list(design.warnings)
     p = scaled.shape[1]
-    try:
-        cov_scaled = np.linalg.inv(fit.information)
-    except np.linalg.LinAlgError as exc:
-        raise AnalysisError(
-            "The Cox model's information matrix is singular: some covariates carry no "
-            "information about the events. Remove covariates with few distinct values or events."
-        ) from exc
-    beta = fit.beta / scale
-    covariance = cov_scaled / np.outer(scale, scale)
-    if not fit.converged:
-        warnings.append(
-            f"The fit did not converge after {fit.iterations} iterations; the estimates may be "
-            "unreliable. Remove sparse covariates or merge small levels."
-        )
-    runaway = [design.terms[j].label for j in np.flatnonzero(np.abs(fit.last_step) > RUNAWAY_STEP)]
-    if runaway:
-        warnings.append(
-            f"Coefficient(s) for {', '.join(runaway)} run off to infinity (monotone likelihood, "
-            "e.g. a level with no events or a covariate that separates events perfectly); their "
-            "hazard ratios and tests are not meaningful. Merge or remove those levels."
-        )
     events = int(event.sum())
-    if events / p < EVENTS_PER_PARAMETER:
-        warnings.append(
-            f"Only {events / p:.1f} events per model parameter ({events} events, {p} parameters): "
-            f"fewer than {EVENTS_PER_PARAMETER} (a common rule of thumb, after Peduzzi et al. "
-            "1995); the estimates may be biased and the tests unreliable. Use fewer covariates."
-        )
+    beta, covariance, warnings = original_units(fit, design, events)
     terms = term_estimates(design.terms, beta, covariance, confidence)
     eta = scaled @ fit.beta
     concordance = harrell_c(layout.time, layout.event, eta, layout.stratum if strata else None)
@@ -256,6 +229,42 @@ def fit_cox(
         design=design,
         model=model,
     )
+
+
+def original_units(fit, design: Design, events: int) -> tuple[np.ndarray, np.ndarray, list]:
+    """Coefficients and covariance in the covariates' own units, and the fit's warnings (the
+    design's, not converged, running off to infinity, few events per parameter)."""
+    try:
+        cov_scaled = np.linalg.inv(fit.information)
+    except np.linalg.LinAlgError as exc:
+        raise AnalysisError(
+            "The Cox model's information matrix is singular: some covariates carry no "
+            "information about the events. Remove covariates with few distinct values or events."
+        ) from exc
+    scale = design.scale
+    p = len(scale)
+    beta = fit.beta / scale
+    covariance = cov_scaled / np.outer(scale, scale)
+    warnings = list(design.warnings)
+    if not fit.converged:
+        warnings.append(
+            f"The fit did not converge after {fit.iterations} iterations; the estimates may be "
+            "unreliable. Remove sparse covariates or merge small levels."
+        )
+    runaway = [design.terms[j].label for j in np.flatnonzero(np.abs(fit.last_step) > RUNAWAY_STEP)]
+    if runaway:
+        warnings.append(
+            f"Coefficient(s) for {', '.join(runaway)} run off to infinity (monotone likelihood, "
+            "e.g. a level with no events or a covariate that separates events perfectly); their "
+            "hazard ratios and tests are not meaningful. Merge or remove those levels."
+        )
+    if events / p < EVENTS_PER_PARAMETER:
+        warnings.append(
+            f"Only {events / p:.1f} events per model parameter ({events} events, {p} parameters): "
+            f"fewer than {EVENTS_PER_PARAMETER} (a common rule of thumb, after Peduzzi et al. "
+            "1995); the estimates may be biased and the tests unreliable. Use fewer covariates."
+        )
+    return beta, covariance, warnings
 
 
 def term_estimates(terms: Sequence[Term], beta, covariance, confidence):

@@ -15,14 +15,7 @@ import numpy as np
 
 from engine.aggregate.cox_sums import CoxSumsSource, EventGroups, likelihood_from_sums
 from engine.concordance import ConcordanceResult
-from engine.cox import (
-    EVENTS_PER_PARAMETER,
-    RUNAWAY_STEP,
-    CoxResult,
-    _variable_wald,
-    chi_square,
-    term_estimates,
-)
+from engine.cox import CoxResult, _variable_wald, chi_square, original_units, term_estimates
 from engine.cox_design import Design
 from engine.cox_diagnostics import TRANSFORMS, PHTest, ph_test_from_sums
 from engine.cox_likelihood import TIES, maximise
@@ -75,35 +68,7 @@ def fit_cox_from_sums(
     fit = maximise(likelihood(everything), p, max_iter=max_iterations)
     # ``maximise`` evaluates the accepted step last, so these are the sums at the estimate.
     final_groups = last["groups"]
-    try:
-        cov_scaled = np.linalg.inv(fit.information)
-    except np.linalg.LinAlgError as exc:
-        raise AnalysisError(
-            "The Cox model's information matrix is singular: some covariates carry no "
-            "information about the events. Remove covariates with few distinct values or events."
-        ) from exc
-    scale = design.scale
-    beta = fit.beta / scale
-    covariance = cov_scaled / np.outer(scale, scale)
-    warnings = list(design.warnings)
-    if not fit.converged:
-        warnings.append(
-            f"The fit did not converge after {fit.iterations} iterations; the estimates may be "
-            "unreliable. Remove sparse covariates or merge small levels."
-        )
-    runaway = [design.terms[j].label for j in np.flatnonzero(np.abs(fit.last_step) > RUNAWAY_STEP)]
-    if runaway:
-        warnings.append(
-            f"Coefficient(s) for {', '.join(runaway)} run off to infinity (monotone likelihood, "
-            "e.g. a level with no events or a covariate that separates events perfectly); their "
-            "hazard ratios and tests are not meaningful. Merge or remove those levels."
-        )
-    if events / p < EVENTS_PER_PARAMETER:
-        warnings.append(
-            f"Only {events / p:.1f} events per model parameter ({events} events, {p} parameters): "
-            f"fewer than {EVENTS_PER_PARAMETER} (a common rule of thumb, after Peduzzi et al. "
-            "1995); the estimates may be biased and the tests unreliable. Use fewer covariates."
-        )
+    beta, covariance, warnings = original_units(fit, design, events)
     if concordance is None:
         c = NOT_COUNTED
         warnings.append(CONCORDANCE_NOT_COMPUTED)

@@ -23,6 +23,7 @@ from engine.compare import (
     bh_adjust,
     display_name,
     holm_adjust,
+    trend_from_scores,
 )
 from engine.curves import CurveSet, check_times, curve_from_table
 from engine.errors import AnalysisError
@@ -171,19 +172,8 @@ def trend_from_counts(
     if c.shape != (len(groups),) or not np.isfinite(c).all():
         raise AnalysisError(f"Give one finite score per group ({len(groups)}); got {scores!r}.")
     u, v, _, _, _ = _combined(counts, groups, strata, test, rho, gamma)
-    variance = float(c @ v @ c)
-    if variance <= 0:
-        raise AnalysisError("The trend test has no variance: the scores or events do not vary.")
-    z = float(c @ u) / np.sqrt(variance)
-    return TrendResult(
-        test=f"{display_name(test, rho, gamma)} test for trend",
-        statistic=z * z,
-        z=z,
-        df=1,
-        p_value=float(chi2.sf(z * z, 1)),
-        groups=tuple(counts.group_labels[g] for g in groups),
-        scores=tuple(float(x) for x in c),
-    )
+    labels = tuple(counts.group_labels[g] for g in groups)
+    return trend_from_scores(u, v, c, labels, display_name(test, rho, gamma))
 
 
 def pairwise_from_counts(
