@@ -65,6 +65,9 @@ def test_text_output_names_the_backend(data, capsys):
         (["--backend", "memory", "--query", "SELECT 1"], "need DATA to be a database address"),
         (["--table", "t"], "need DATA to be a database address"),
         (["--backend", "duckdb", "--report", "x.html"], "--report is not available"),
+        (["--backend", "duckdb", "--filter", "age:at_least:50"], "--filter is not available"),
+        (["--backend", "duckdb", "--id", "ward"], "'ward'"),
+        (["--backend", "duckdb", "--competing", "alive=other"], "named competing causes"),
     ],
 )
 def test_bad_backend_options_exit_2(data, capsys, extra, message):
@@ -78,3 +81,20 @@ def test_memory_backend_refuses_a_folder(data, capsys):
     code = main(["analyze", str(data / "parts"), "--backend", "memory", *ROLE_ARGS])
     assert code == 2
     assert "--backend duckdb" in capsys.readouterr().err
+
+
+def test_infinite_times_are_excluded_as_in_memory(tmp_path, capsys):
+    """An infinite duration or entry time is its own exclusion reason, counted as in memory."""
+    import numpy as np
+
+    frame = messy_frame(9, n=600)
+    frame.loc[[3, 4, 5], "days"] = [np.inf, -np.inf, np.inf]
+    frame.loc[[7, 8], "enrolled"] = np.inf
+    path = tmp_path / "inf.parquet"
+    frame.to_parquet(path)
+    memory = analyze(capsys, str(path), "--backend", "memory")
+    duck = analyze(capsys, str(path), "--backend", "duckdb")
+    reasons = dict((e["reason"], e["rows"]) for e in memory["data"]["excluded"])
+    assert reasons["time not finite"] >= 4
+    assert duck["data"] == memory["data"]
+    assert_same_json(memory, duck, skip=NOT_FROM_SUMS)
