@@ -13,6 +13,15 @@ import os
 import sys
 from pathlib import Path
 
+from app.cli_scale import (
+    add_backend_options,
+    chosen_backend,
+    computed_with,
+    memory_computed_with,
+    open_source,
+    refuse_row_options,
+    source_summary,
+)
 from app.cli_text import analysis_summary, data_summary, event_words
 from engine.analysis import ANALYSIS_DEFAULTS
 from engine.analysis import run_analysis as run_engine_analysis
@@ -23,7 +32,7 @@ from engine.errors import HazelError
 from engine.filters import FilterError, FilterOutcome, RowFilter, apply_filters
 from engine.io import ImportedTable, ImportOptions, read_table
 from engine.recipe_schema import check_setting
-from engine.roles import TIME_UNITS, Roles
+from engine.roles import TIME_UNITS, Roles, event_in_words
 from engine.text_safety import visible_text
 
 SCHEMA_VERSION = 2  # README "Changes from schema 1" lists what changed
@@ -231,8 +240,10 @@ def add_role_options(parser: argparse.ArgumentParser) -> None:
         "data",
         metavar="DATA",
         help="CSV/TSV/semicolon/pipe, .xlsx, .parquet, SPSS .sav/.zsav, Stata .dta, SAS "
-        ".sas7bdat/.xpt",
+        ".sas7bdat/.xpt; a folder of .parquet files; or a database address "
+        "postgresql://USER@HOST:PORT/DB with --table or --query",
     )
+    add_backend_options(parser)
     read = parser.add_argument_group("reading the file")
     read.add_argument("--sep", help="column separator (default: detected); use '\\t' for tab")
     read.add_argument("--decimal", help="decimal mark, '.' or ',' (default: detected)")
@@ -385,6 +396,9 @@ def write_json(sections: dict, out: str) -> None:
 
 
 def run_check(args: argparse.Namespace) -> int:
+    backend = chosen_backend(args)
+    if backend != "memory":
+        return run_aggregated(args, backend, check_only=True)
     table, prepared, filtered = load_prepared(args)
     sections = {"data": prepared.report.to_dict()}
     if filtered.excluded:
@@ -583,8 +597,51 @@ def causes_from_args(args: argparse.Namespace) -> tuple[tuple[str, str], ...]:
     return tuple(pairs)
 
 
+def run_aggregated(args: argparse.Namespace, backend: str, *, check_only: bool = False) -> int:
+    """check or analyze with the rows aggregated where they are (DuckDB, PostgreSQL)."""
+    from engine.aggregate.analysis import run_aggregate_analysis
+    from engine.aggregate.sql_checks import aggregate_checks
+
+    refuse_row_options(args, backend)
+    causes = causes_from_args(args)
+    if causes:
+        args.event_causes = causes
+    roles = roles_from_args(args)
+    settings = None if check_only else settings_from_args(args)
+    source = open_source(args, backend)
+    try:
+        data = aggregate_checks(source, roles)
+        if check_only:
+            sections = {"data": data.report.to_dict()}
+        else:
+            sections = {
+                **run_aggregate_analysis(data, settings),
+                "computed_with": computed_with(source),
+            }
+    finally:
+        source.close()
+    if args.json != "-":
+        show(source_summary(source, data.report, roles))
+        if not check_only:
+            show(
+                analysis_summary(
+                    sections,
+                    data.report.time_unit,
+                    confidence=settings["cox"]["confidence"],
+                    event=event_in_words(roles),
+                )
+            )
+    if args.json:
+        write_json(sections, args.json)
+    return 0
+
+
 def run_analyze(args: argparse.Namespace) -> int:
     from app.batch import load_recipe_run
+
+    backend = chosen_backend(args)
+    if backend != "memory":
+        return run_aggregated(args, backend)
 
     filtered, warnings, source = None, [], None
     if args.recipe:
@@ -612,6 +669,7 @@ def run_analyze(args: argparse.Namespace) -> int:
         settings = settings_from_args(args)
     check_named_columns(settings, (table.frame if source is None else source).columns)
     sections = run_analysis(table, prepared, settings, source)
+    sections["computed_with"] = memory_computed_with()
     if filtered is not None and filtered.excluded:
         sections["filters"] = filtered.to_dict()
     if args.json != "-":

@@ -45,6 +45,13 @@ def data_summary(
     lines += [f"  note: {note}" for note in table.notes]
     for text, rows in filtered.excluded if filtered is not None else ():
         lines.append(f"Filter {text}: {rows} row(s) left out")
+    return "\n".join([*lines, report_summary(report, roles)])
+
+
+def report_summary(report, roles) -> str:
+    """The data checks' summary (time, event, rows read and used, exclusions, groups,
+    warnings), the same whether the rows were checked in memory or in a database."""
+    lines = []
     time = roles.time or f"{roles.start} -> {roles.end}"
     lines.append(f"Time: {time} (reported in {report.time_unit})")
     if report.event_coding is not None:

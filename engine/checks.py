@@ -29,7 +29,7 @@ from engine.roles import (
     Roles,
     classify_covariates,
     convert_time,
-    describe_event,
+    describe_event_counts,
     value_key,
 )
 
@@ -420,11 +420,36 @@ def _event_codes(frame, roles: Roles, notes: list[str]):
         notes.append("No event column: every row is treated as an event (no censoring).")
         return np.ones(n, dtype=np.int8), None, None
     series = frame[roles.event]
+    coding = event_coding(
+        roles, series.value_counts(dropna=False, sort=True), notes, column=str(series.name)
+    )
+    codes, uniques = pd.factorize(series, use_na_sentinel=True)
+    events = {value_key(v) for v in coding.event_values}
+    censored = {value_key(v) for v in coding.censored_values}
+    keys = [value_key(v) for v in uniques]
+    lookup = np.array(
+        [1 if k in events else 0 if k in censored else -2 for k in keys] + [-1], dtype=np.int8
+    )
+    event = lookup[codes]  # code -1 (missing) picks the last entry
+    cause = None
+    if roles.event_causes:
+        names = {value_key(v): name for v, name in roles.event_causes}
+        cause_lookup = np.array([names.get(k) for k in keys] + [None], dtype=object)
+        cause = cause_lookup[codes]
+        cause[event < 0] = None  # competing causes keep their name with _event == 0
+        missing_cause = (event == 1) & pd.isna(cause)
+        cause[missing_cause] = "event"
+    return event, cause, coding
+
+
+def event_coding(roles: Roles, counts: pd.Series, notes: list[str], *, column: str):
+    """The event coding from the event column's value counts, refusing a coding Hazel cannot
+    read; adds the notes on values treated as censored. Shared by the rows in memory and the
+    databases (which send only these counts)."""
     chosen = tuple(roles.event_values)
     if not chosen and roles.event_causes:
         chosen = tuple(v for v, name in roles.event_causes if name == roles.event_causes[0][1])
-    coding = describe_event(series, chosen)
-    column = roles.event
+    coding = describe_event_counts(column, counts, chosen)
     if coding.needs_choice:
         raise EventCodingError(
             f"The event column {column!r} has values {_counts_text(coding)}, which are not a "
@@ -439,14 +464,6 @@ def _event_codes(frame, roles: Roles, notes: list[str]):
             column=column,
             values=[v for v, _ in coding.counts],
         )
-    codes, uniques = pd.factorize(series, use_na_sentinel=True)
-    events = {value_key(v) for v in coding.event_values}
-    censored = {value_key(v) for v in coding.censored_values}
-    keys = [value_key(v) for v in uniques]
-    lookup = np.array(
-        [1 if k in events else 0 if k in censored else -2 for k in keys] + [-1], dtype=np.int8
-    )
-    event = lookup[codes]  # code -1 (missing) picks the last entry
     cause_keys = {value_key(v) for v, _ in roles.event_causes}
     censored_only = [v for v in coding.censored_values if value_key(v) not in cause_keys]
     if chosen and len(censored_only) > 1:
@@ -456,15 +473,7 @@ def _event_codes(frame, roles: Roles, notes: list[str]):
         )
     if coding.assumption:
         notes.append(coding.assumption)
-    cause = None
-    if roles.event_causes:
-        names = {value_key(v): name for v, name in roles.event_causes}
-        cause_lookup = np.array([names.get(k) for k in keys] + [None], dtype=object)
-        cause = cause_lookup[codes]
-        cause[event < 0] = None  # competing causes keep their name with _event == 0
-        missing_cause = (event == 1) & pd.isna(cause)
-        cause[missing_cause] = "event"
-    return event, cause, coding
+    return coding
 
 
 def _counts_text(coding: EventCoding) -> str:

@@ -156,7 +156,12 @@ def proportional_hazards_test(
     covariance = result.model.covariance
     u = d * (g @ residuals.raw) @ covariance  # sum_k g_k r*_k (beta drops out: sum g_k = 0)
     denominator = d * float(g @ g)
-    design = result.design
+    return ph_test_from_sums(u, denominator, covariance, result.design, time_scale)
+
+
+def ph_test_from_sums(u, denominator, covariance, design, time_scale: str) -> PHTest:
+    """The per-term, per-variable and GLOBAL tests from u = Σ g_k r*_k and d Σ g_k² (rows in
+    memory and per-time sums give the same two quantities)."""
 
     def joint(name, cols):
         if denominator <= 0:

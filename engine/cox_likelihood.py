@@ -211,9 +211,21 @@ def newton_raphson(
 
     The null log-likelihood and score statistic are filled in only when starting from 0.
     """
-    p = x.shape[1]
+    return maximise(
+        lambda beta: partial_likelihood(layout, x, beta, ties),
+        x.shape[1],
+        start=start,
+        max_iter=max_iter,
+        tol=tol,
+        step_tol=step_tol,
+    )
+
+
+def maximise(likelihood, p, *, start=None, max_iter=50, tol=1e-11, step_tol=1e-9) -> NewtonResult:
+    """Newton–Raphson with step halving on ``likelihood(beta) -> LikelihoodTerms`` (p terms):
+    the one loop for rows in memory and for per-time sums computed by a database."""
     beta = np.zeros(p) if start is None else np.asarray(start, dtype=float)
-    terms = partial_likelihood(layout, x, beta, ties)
+    terms = likelihood(beta)
     null_loglik = terms.loglik if start is None else float("nan")
     if p == 0:
         return NewtonResult(beta, terms.loglik, terms.information, 0, True, beta, null_loglik, 0.0)
@@ -227,13 +239,13 @@ def newton_raphson(
     iterations = 0
     for iterations in range(1, max_iter + 1):  # noqa: B007
         step = _solve(terms.information, terms.score)
-        candidate = partial_likelihood(layout, x, beta + step, ties)
+        candidate = likelihood(beta + step)
         halvings = 0
         while (not np.isfinite(candidate.loglik) or candidate.loglik < terms.loglik - 1e-12) and (
             halvings < 30
         ):
             step = step / 2
-            candidate = partial_likelihood(layout, x, beta + step, ties)
+            candidate = likelihood(beta + step)
             halvings += 1
         change = candidate.loglik - terms.loglik
         beta = beta + step

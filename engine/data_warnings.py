@@ -48,16 +48,46 @@ def group_counts(prepared: pd.DataFrame) -> pd.DataFrame:
 
 def warnings_on_used(prepared, frame, roles: Roles, time, counts) -> list[str]:
     """Zero times, unit hints, no events, small groups, rows without a group, repeated ids."""
+    id_notes = []
+    if roles.id and _may_repeat(frame[roles.id]):
+        from engine.episodes import episode_summary, episode_warnings
+
+        used = prepared[prepared["_id"].notna()]
+        summary = episode_summary(
+            used["_id"],
+            used["_time"],
+            used["_event"],
+            used["_entry"] if "_entry" in used.columns else None,
+        )
+        id_notes = episode_warnings(summary, roles.id, "_entry" in used.columns)
+    return warnings_from_summary(
+        roles,
+        zeros=int((time == 0).sum()),
+        times=time,
+        events=int(prepared["_event"].sum()) if len(prepared) else None,
+        counts=counts,
+        no_group=int(prepared["_group"].isna().sum()) if roles.group else 0,
+        hidden=_hidden_characters_warning(prepared),
+        id_notes=id_notes,
+    )
+
+
+def warnings_from_summary(
+    roles: Roles, *, zeros: int, times, events, counts, no_group: int, hidden, id_notes=()
+) -> list[str]:
+    """The warnings from what they depend on: rows at time 0, the times (distinct values are
+    enough), events among the rows used (None without rows), rows per group, rows without a
+    group, the hidden-characters warning (or None) and the notes on the id column's episodes;
+    a database computes these."""
     notes = []
-    zeros = int((time == 0).sum())
     if zeros:
         notes.append(
             f"{zeros} row(s) have time 0; they are kept, but check whether they are real "
             "(an event on the first day) or data-entry placeholders."
         )
-    if roles.time and len(time):
-        notes.extend(_unit_hints(time, roles))
-    if len(prepared) and prepared["_event"].sum() == 0:
+    if roles.time and len(times):
+        notes.extend(_unit_hints(np.asarray(times, dtype=float), roles))
+    if events == 0:
         notes.append("There are no events among the rows used; curves stay at 1.")
     if roles.group:
         for _, row in counts.iterrows():
@@ -69,27 +99,20 @@ def warnings_on_used(prepared, frame, roles: Roles, time, counts) -> list[str]:
                     f"Group {label!r} has {row['events']} event(s); with fewer than "
                     f"{FEW_EVENTS} events its estimates are unstable (common practice rule)."
                 )
-        no_group = int(prepared["_group"].isna().sum())
         if no_group:
             notes.append(
                 f"{no_group} row(s) have no value in the group column {roles.group!r}; they "
                 "appear in overall results but in no group."
             )
-    hidden = _hidden_characters_warning(prepared)
     if hidden:
         notes.append(hidden)
-    if roles.id and _may_repeat(frame[roles.id]):
-        from engine.episodes import episode_summary, episode_warnings
-
-        used = prepared[prepared["_id"].notna()]
-        summary = episode_summary(
-            used["_id"],
-            used["_time"],
-            used["_event"],
-            used["_entry"] if "_entry" in used.columns else None,
-        )
-        notes.extend(episode_warnings(summary, roles.id, "_entry" in used.columns))
+    notes.extend(id_notes)
     return notes
+
+
+def labels_warning(labels) -> str | None:
+    """The hidden-characters warning over the data's names, groups and levels."""
+    return hidden_characters_warning(labels, "the data (names, groups or levels)")
 
 
 def _hidden_characters_warning(prepared: pd.DataFrame) -> str | None:
@@ -102,7 +125,7 @@ def _hidden_characters_warning(prepared: pd.DataFrame) -> str | None:
             labels.extend(str(v) for v in values.cat.categories)
         elif column == "_cause":
             labels.extend(str(v) for v in pd.unique(values) if v is not None)
-    return hidden_characters_warning(labels, "the data (names, groups or levels)")
+    return labels_warning(labels)
 
 
 def _may_repeat(ids: pd.Series) -> bool:

@@ -240,8 +240,14 @@ def describe_event(series: pd.Series, event_values=()) -> EventCoding:
     value is censored. Without, common codings are recognised (0/1, true/false, yes/no, words such
     as dead/alive); 1/2 is read as 1 = censored, 2 = event only as a stated assumption.
     """
-    column = str(series.name)
-    counts_series = series.value_counts(dropna=False, sort=True)
+    return describe_event_counts(
+        str(series.name), series.value_counts(dropna=False, sort=True), event_values
+    )
+
+
+def describe_event_counts(column: str, counts_series: pd.Series, event_values=()) -> EventCoding:
+    """`describe_event` from the column's value counts (value -> rows, most frequent first), as
+    a database returns them without sending the rows."""
     counts = tuple(
         (None if _is_missing(v) else _plain(v), int(c)) for v, c in counts_series.items()
     )

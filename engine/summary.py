@@ -189,9 +189,15 @@ def curves_json(
     frame: pd.DataFrame, times=(), confidence: float = 0.95, transform: str = "log-log"
 ) -> list[dict]:
     """The CLI's "curves" entry: all rows first ("group": null), then each group."""
+    curve_set = curves_by_group(frame, confidence=confidence, transform=transform)
+    return curve_set_json(curve_set, times)
+
+
+def curve_set_json(curve_set, times=()) -> list[dict]:
+    """The "curves" entry of a ``CurveSet`` (from rows or from per-time counts)."""
     times = check_times(times)
     out = []
-    for curve in curves_by_group(frame, confidence=confidence, transform=transform).curves:
+    for curve in curve_set.curves:
         median = survival_quantiles(curve, (0.5,)).row(0.5)
         at = survival_at(curve, times).to_dict()["at_times"]
         out.append(

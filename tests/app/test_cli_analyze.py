@@ -64,7 +64,7 @@ def test_freireich_published_values_through_the_command_line(freireich_csv):
         *("--time", "weeks", "--unit", "weeks", "--event", "relapse", "--group", "arm"),
         *("--times", "13", "--covariates", "arm"),
     )
-    assert list(result) == ["schema", "data", "curves", "comparison", "cox"]
+    assert list(result) == ["schema", "data", "curves", "comparison", "cox", "computed_with"]
     assert result["schema"] == 2
     overall, six_mp, placebo = result["curves"]
     assert overall["group"] is None and overall["n"] == 42 and overall["events"] == 30

@@ -1,0 +1,111 @@
+"""Command-line pieces for data too big for memory: ``--backend``, databases, ``computed_with``.
+
+``auto`` keeps files up to ``AUTO_MEMORY_BYTES`` in memory (the row-level engine, fastest for
+them) and hands bigger files and folders of Parquet files to DuckDB; a ``postgresql://`` address
+always aggregates inside the database. The engine's ``engine.aggregate`` layer does the work;
+this module only chooses, opens and prints.
+"""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from engine.errors import HazelError
+
+BACKENDS = ("auto", "memory", "duckdb", "spark")
+AUTO_MEMORY_BYTES = 256 * 1024 * 1024  # files above this go to DuckDB under --backend auto
+
+
+class BackendUsageError(HazelError):
+    """A backend option that does not fit the data given."""
+
+
+def add_backend_options(parser: argparse.ArgumentParser) -> None:
+    group = parser.add_argument_group("big data: where the rows are aggregated")
+    group.add_argument(
+        "--backend",
+        choices=BACKENDS,
+        default="auto",
+        help=f"memory, DuckDB (out of core) or Spark; auto: memory up to "
+        f"{AUTO_MEMORY_BYTES // 2**20} MB, DuckDB beyond and for folders (default auto)",
+    )
+    group.add_argument("--table", metavar="NAME", help="database table (DATA is a database URL)")
+    group.add_argument(
+        "--query", metavar="SELECT", help="read-only database query (DATA is a database URL)"
+    )
+    group.add_argument(
+        "--spark-master", metavar="URL", default="local[*]", help="Spark master (default local[*])"
+    )
+
+
+def chosen_backend(args: argparse.Namespace) -> str:
+    """memory, duckdb or postgresql for these options and this DATA."""
+    from engine.aggregate.sources import PARQUET_SUFFIXES, TEXT_SUFFIXES, is_database_url
+
+    backend = getattr(args, "backend", "auto") or "auto"
+    data = str(args.data)
+    if is_database_url(data):
+        if backend not in ("auto", "duckdb"):
+            raise BackendUsageError(
+                f"A database address is aggregated inside the database; --backend {backend} "
+                "does not apply to it (leave --backend out)."
+            )
+        return "postgresql"
+    if getattr(args, "table", None) or getattr(args, "query", None):
+        raise BackendUsageError(
+            "--table and --query need DATA to be a database address such as "
+            "postgresql://USER@HOST:5432/DB."
+        )
+    path = Path(data)
+    if backend == "auto":
+        if path.is_dir():  # a partitioned dataset; any other folder is refused as not a file
+            has_parquet = any(p.suffix.lower() in PARQUET_SUFFIXES for p in path.rglob("*"))
+            return "duckdb" if has_parquet else "memory"
+        suffix = path.suffix.lower()
+        big = path.is_file() and path.stat().st_size > AUTO_MEMORY_BYTES
+        return "duckdb" if big and suffix in PARQUET_SUFFIXES | TEXT_SUFFIXES else "memory"
+    if backend == "memory" and path.is_dir():
+        raise BackendUsageError(
+            f"{data!r} is a folder: a partitioned Parquet dataset needs --backend duckdb (or auto)."
+        )
+    return backend
+
+
+def open_source(args: argparse.Namespace, backend: str):
+    from engine.aggregate.sources import open_duckdb, open_postgres, open_spark
+
+    if backend == "postgresql":
+        return open_postgres(str(args.data), table=args.table, query=args.query)
+    if backend == "spark":
+        return open_spark(args.data, master=args.spark_master)
+    return open_duckdb(args.data, sep=args.sep, decimal=args.decimal)
+
+
+def memory_computed_with() -> dict:
+    import pandas as pd
+
+    return {"backend": "memory", "version": f"pandas {pd.__version__}", "sample": None}
+
+
+def computed_with(source) -> dict:
+    return {"backend": source.backend, "version": source.version, "sample": None}
+
+
+def refuse_row_options(args: argparse.Namespace, backend: str) -> None:
+    """Options that need the rows in memory, refused with the reason."""
+    for option, name in (("recipe", "--recipe"), ("report", "--report"), ("filter", "--filter")):
+        if getattr(args, option, None):
+            raise BackendUsageError(
+                f"{name} is not available with the {backend} backend yet (it needs the rows in "
+                "memory); use --backend memory, or leave it out."
+            )
+    if getattr(args, "sheet", None) is not None:
+        raise BackendUsageError(f"--sheet applies to Excel files, not to the {backend} backend.")
+
+
+def source_summary(source, report, roles) -> str:
+    from app.cli_text import report_summary
+
+    header = f"Source: {source.name} (aggregated by {source.backend} {source.version})"
+    return "\n".join([header, report_summary(report, roles)])

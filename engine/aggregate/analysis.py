@@ -1,0 +1,164 @@
+"""`run_analysis` for data that stay in a database: the same sections from per-time sums.
+
+Sections that need the rows themselves (a comparison cut at a column's quantiles, strata from a
+column without a role, competing risks, parametric and landmark analyses, Harrell's C) say so in
+one sentence as ``{"not_computed": reason}`` instead of silently changing meaning.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+
+from engine.aggregate.cox_fit import fit_cox_from_sums
+from engine.aggregate.estimators import compare_from_counts, curves_from_counts
+from engine.aggregate.sql_checks import AggregatedData
+from engine.aggregate.sql_cox import SqlCoxSource, sql_design
+from engine.analysis import (
+    CORE_ANALYSES,
+    computed,
+    is_not_computed,
+    not_computed,
+    resolved_settings,
+)
+from engine.cox import cox_json
+from engine.errors import RoleError
+from engine.summary import COMPARISON_KEYS, curve_set_json
+
+SAMPLE_HINT = "; run it with --backend memory on the rows (or on a random sample of them)."
+NEEDS_ROWS = {
+    "competing": "Competing-risk incidence is not yet computed from per-time sums",
+    "parametric": "Parametric fits need the rows, which stay in the database",
+    "landmark": "A landmark analysis is not yet computed from per-time sums",
+    "performance": "Prediction performance needs each row's risk score",
+    "subgroups": "Subgroup effects are not yet computed from per-time sums",
+    "baseline": "A baseline table needs the rows, which stay in the database",
+}
+
+
+def comparison_from_data(data: AggregatedData, chosen: Mapping) -> dict | None:
+    if chosen["cut"]:
+        return not_computed(
+            "A comparison of a column cut at its quantiles is not computed from per-time sums"
+            + SAMPLE_HINT
+        )
+    strata = chosen["strata"]
+    if strata not in (None, False, ""):
+        return not_computed(
+            f"Strata from the column {strata!r}, which has no role, are not computed from "
+            "per-time sums; give it the strata role instead."
+        )
+    counts = data.counts
+    if counts.group_labels is None:
+        return None
+    groups = counts.exits.loc[counts.exits["group"] >= 0, "group"].nunique()
+    if groups < 2:
+        return None
+    stratified = counts.strata_labels is not None and strata is None
+    result = compare_from_counts(
+        counts,
+        test=chosen["test"],
+        rho=chosen["rho"],
+        gamma=chosen["gamma"],
+        stratified=stratified,
+    ).to_dict()
+    return {k: result[k] for k in COMPARISON_KEYS}
+
+
+def cox_from_data(data: AggregatedData, chosen: Mapping, *, drop_one: bool = True):
+    """The Cox model of the roles (or the settings' variant of it) from per-time sums; the
+    ``CoxResult``, its PH test (or ``{"not_computed": reason}``) and the SQL source (which
+    counts its passes)."""
+    roles = data.roles
+    covariates = list(roles.covariates) if chosen["covariates"] is None else chosen["covariates"]
+    outside = [c for c in covariates if c not in roles.covariates]
+    if outside:
+        raise RoleError(
+            f"The model's covariates {outside!r} are not among the covariates of the roles "
+            f"{list(roles.covariates)!r}; add them to the roles first.",
+            column=outside[0],
+        )
+    strata = chosen["strata"]
+    use_strata = strata is None and roles.strata is not None
+    levels = {**dict(roles.reference), **{str(c): v for c, v in (chosen["reference"] or ())}}
+    categorical = [c for c in covariates if data.kinds[c] == "categorical"]
+    design, rows, bounds = sql_design(
+        data,
+        covariates,
+        categorical=categorical,
+        reference={c: levels[c] for c in covariates if c in levels} or None,
+        strata=use_strata,
+    )
+    strata_keys = data.levels["_strata"].keys if use_strata else None
+    source = SqlCoxSource(data, rows, bounds, strata_keys)
+    result, ph = fit_cox_from_sums(
+        source,
+        design,
+        ties=chosen["ties"],
+        confidence=chosen["confidence"],
+        drop_one=drop_one,
+        ph_time_scale=chosen["ph_time_scale"],
+    )
+    return result, ph, source
+
+
+def cox_section(data: AggregatedData, cox: Mapping) -> dict:
+    """The "cox" object with the keys memory gives; what needs the rows says so."""
+    if cox["strata"] not in (None, False, ""):
+        return not_computed(
+            f"A model stratified by the column {cox['strata']!r}, which has no role, is not "
+            "computed from per-time sums; give it the strata role instead."
+        )
+    if cox.get("variance", "auto") == "robust":
+        return not_computed(
+            "The robust (sandwich) variance needs each row's score residuals, which per-time "
+            "sums do not keep" + SAMPLE_HINT
+        )
+    result, ph, _ = cox_from_data(data, cox)
+    section = {**cox_json(result), "ph_check": ph} if is_not_computed(ph) else cox_json(result, ph)
+    section["splines"] = (
+        not_computed("Splines are not yet computed from per-time sums" + SAMPLE_HINT)
+        if cox.get("splines")
+        else []
+    )
+    section["time_split"] = (
+        not_computed("A follow-up split is not yet computed from per-time sums" + SAMPLE_HINT)
+        if cox.get("split")
+        else None
+    )
+    return section
+
+
+def run_aggregate_analysis(data: AggregatedData, settings: Mapping | None = None) -> dict:
+    """The sections of ``engine.analysis.run_analysis`` from the database's per-time sums."""
+    chosen = resolved_settings(settings)
+    curves, comparison, cox = chosen["curves"], chosen["comparison"], chosen["cox"]
+
+    def curve_sections():
+        curve_set = curves_from_counts(
+            data.counts, confidence=curves["confidence"], transform=curves["ci_transform"]
+        )
+        return curve_set_json(curve_set, curves["times"] or ())
+
+    sections: dict = {
+        "data": data.report.to_dict(),
+        "curves": computed(curve_sections),
+        "comparison": computed(comparison_from_data, data, comparison),
+        "cox": None,
+    }
+    model = data.roles.covariates if cox["covariates"] is None else cox["covariates"]
+    if data.roles.covariates and model:
+        sections["cox"] = computed(cox_section, data, cox)
+    for name in chosen:
+        if name in CORE_ANALYSES:
+            continue
+        if name == "sample_size":
+            from engine.analysis_extra import sample_size_section
+
+            sections[name] = computed(
+                sample_size_section, {**chosen[name], "confidence": curves["confidence"]}
+            )
+        else:
+            sections[name] = not_computed(
+                NEEDS_ROWS.get(name, f"{name} is not computed from per-time sums") + SAMPLE_HINT
+            )
+    return sections

@@ -1,0 +1,243 @@
+"""Where the rows are: a DuckDB file or folder, or a PostgreSQL table or query.
+
+A source answers SQL with small pandas frames; it never returns the rows themselves except a
+sample of the first rows for the column types. Connection details other than the database
+name stay inside the connection: ``name`` (shown in results, recipes and reports) carries no
+user name or password.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from urllib.parse import urlsplit
+
+import pandas as pd
+
+from engine.aggregate.sql import DUCKDB, POSTGRES, SPARK, Dialect, literal, quoted
+from engine.errors import HazelError
+
+SAMPLE_ROWS = 2000
+DUCKDB_MEMORY_LIMIT = "3GB"  # DuckDB spills to a temporary folder beyond this
+TEXT_SUFFIXES = {".csv", ".tsv", ".txt", ".tab"}
+PARQUET_SUFFIXES = {".parquet", ".pq"}
+
+
+class SourceError(HazelError):
+    """A data source that cannot be opened or queried."""
+
+
+@dataclass
+class SqlSource:
+    """A connection, the SQL text naming the rows (``relation``) and how to describe them."""
+
+    backend: str
+    version: str
+    dialect: Dialect
+    relation: str
+    name: str
+    connection: object = field(repr=False)
+
+    def query(self, sql: str) -> pd.DataFrame:
+        try:
+            if self.backend == "duckdb":
+                return self.connection.execute(sql).df()
+            if self.backend == "spark":
+                return self.connection.sql(sql).toPandas()
+            with self.connection.cursor() as cursor:
+                cursor.execute(sql)
+                rows = cursor.fetchall()
+                columns = [c.name for c in cursor.description]
+            return _typed(pd.DataFrame(rows, columns=columns))
+        except HazelError:
+            raise
+        except Exception as exc:  # the database's own message says what failed
+            if self.backend == "postgresql":
+                self.connection.rollback()
+            message = " ".join(str(exc).split())
+            raise SourceError(
+                f"The {self.backend} query on {self.name} failed: {message}. Check the table "
+                "or query and the column roles."
+            ) from exc
+
+    def sample(self) -> pd.DataFrame:
+        """The first rows, for the column types and the examples in messages."""
+        return self.query(f"SELECT * FROM {self.relation} LIMIT {SAMPLE_ROWS}")
+
+    def close(self) -> None:
+        if self.backend == "spark":  # the session lives on for the process (one per run)
+            self.connection.catalog.dropTempView(self.relation)
+            return
+        self.connection.close()
+
+
+def _typed(frame: pd.DataFrame) -> pd.DataFrame:
+    """Decimal columns (PostgreSQL numeric) as floats, as a file reader would give them."""
+    for column in frame.columns:
+        if frame[column].dtype == object:
+            present = frame[column].dropna()
+            if len(present) and all(type(v).__name__ == "Decimal" for v in present.head(50)):
+                frame[column] = pd.to_numeric(frame[column], errors="coerce")
+    return frame
+
+
+def open_duckdb(path: str | Path, *, sep: str | None = None, decimal: str | None = None):
+    """A Parquet file, a folder of Parquet files (a partitioned dataset) or a text file."""
+    import duckdb
+
+    path = Path(path)
+    if not path.exists():
+        raise SourceError(f"The data path {str(path)!r} does not exist; check the name.")
+    if path.is_dir():
+        files = sorted(p for p in path.rglob("*") if p.suffix.lower() in PARQUET_SUFFIXES)
+        if not files:
+            raise SourceError(
+                f"The folder {str(path)!r} holds no .parquet files; give a Parquet file, a "
+                "folder of Parquet files or a CSV file."
+            )
+        pattern = literal(str(path / "**" / "*.parquet"))
+        relation = f"read_parquet({pattern}, hive_partitioning = true, union_by_name = true)"
+    elif path.suffix.lower() in PARQUET_SUFFIXES:
+        relation = f"read_parquet({literal(str(path))})"
+    elif path.suffix.lower() in TEXT_SUFFIXES:
+        relation = _csv_relation(path, sep, decimal)
+    else:
+        raise SourceError(
+            f"The DuckDB backend reads Parquet files, folders of them and text files; "
+            f"{path.name!r} is neither. Use --backend memory for spreadsheets."
+        )
+    import tempfile
+
+    config = {
+        "memory_limit": DUCKDB_MEMORY_LIMIT,
+        "temp_directory": str(Path(tempfile.gettempdir()) / "hazel-duckdb"),
+    }
+    connection = duckdb.connect(":memory:", config=config)
+    return SqlSource("duckdb", duckdb.__version__, DUCKDB, relation, path.name, connection)
+
+
+def _csv_relation(path: Path, sep: str | None, decimal: str | None) -> str:
+    """read_csv with the separator, decimal mark and missing-value tokens Hazel's reader uses."""
+    from engine.io import ImportOptions
+    from engine.io_text import SAMPLE_BYTES, _sniff, missing_token_variants, read_head
+
+    options = ImportOptions(sep=sep, decimal=decimal)
+    head = read_head(path, SAMPLE_BYTES)
+    sniffed = _sniff(head, path.stat().st_size > SAMPLE_BYTES, options, path.name)
+    tokens = ", ".join(literal(t) for t in missing_token_variants(options.missing_tokens))
+    utf8 = sniffed.encoding.lower().replace("-", "").replace("_", "") in ("utf8", "utf8sig")
+    encoding = "utf-8" if utf8 else "latin-1"
+    return (
+        f"read_csv({literal(str(path))}, delim = {literal(sniffed.sep)}, header = true, "
+        f"decimal_separator = {literal(sniffed.decimal)}, nullstr = [{tokens}], "
+        f"encoding = {literal(encoding)})"
+    )
+
+
+POSTGRES_URL = re.compile(r"^postgres(ql)?://")
+WRITING = re.compile(
+    r"\b(insert|update|delete|drop|alter|create|truncate|grant|revoke|copy|merge|call|do|"
+    r"vacuum|reindex|cluster|comment|lock|refresh|set|reset)\b",
+    re.IGNORECASE,
+)
+
+
+def is_database_url(text: str) -> bool:
+    return bool(POSTGRES_URL.match(str(text)))
+
+
+def open_postgres(url: str, *, table: str | None = None, query: str | None = None) -> SqlSource:
+    """A table or a read-only query of a PostgreSQL database (``postgresql://USER@HOST:PORT/DB``);
+    the session is read-only, so nothing can be written through Hazel."""
+    if (table is None) == (query is None):
+        raise SourceError(
+            'A database needs exactly one of --table NAME or --query "SELECT ..."; got '
+            f"{'both' if table else 'neither'}."
+        )
+    if query is not None:
+        text = query.strip().rstrip(";")
+        if not re.match(r"^(select|with)\b", text, re.IGNORECASE) or WRITING.search(text):
+            raise SourceError(
+                f"The query must only read (SELECT or WITH ... SELECT); got {query[:60]!r}. "
+                "Hazel never writes to a database."
+            )
+        if ";" in text:
+            raise SourceError("Give a single query (no ';' inside it).")
+        relation = f"({text}) AS hazel_source"
+    else:
+        relation = ".".join(quoted(part) for part in table.split("."))
+    try:
+        import psycopg
+    except ImportError as exc:  # pragma: no cover - installed with the requirements
+        raise SourceError(
+            "Reading PostgreSQL needs the psycopg package; install the requirements."
+        ) from exc
+    parts = urlsplit(url)
+    name = f"{parts.hostname or 'localhost'}:{parts.port or 5432}/{parts.path.lstrip('/')}"
+    try:
+        connection = psycopg.connect(url, connect_timeout=10)
+        connection.execute("SET SESSION CHARACTERISTICS AS TRANSACTION READ ONLY")
+        connection.commit()
+        version = connection.execute("SHOW server_version").fetchone()[0]
+    except psycopg.Error as exc:
+        message = " ".join(str(exc).split()) or type(exc).__name__
+        raise SourceError(
+            f"Could not connect to the database {name}: {message}. Check the address, the "
+            "port, the user and that the server is running."
+        ) from exc
+    shown = f"{name} {table}" if table else f"{name} (query)"
+    source = SqlSource("postgresql", version, POSTGRES, relation, shown, connection)
+    source.sample()  # a missing table or a bad query fails here, with the database's reason
+    return source
+
+
+SPARK_VIEW = "hazel_source"
+
+
+def open_spark(path: str | Path, *, master: str = "local[*]") -> SqlSource:
+    """A Parquet file or folder read by Spark (a local session by default, or the cluster at
+    ``master``); one session per process, reused by later calls."""
+    import shutil
+
+    remote = str(path).startswith(("hdfs:", "s3a:", "abfss:", "gs:", "file:"))
+    path = Path(path)
+    if not remote and not path.exists():
+        raise SourceError(f"The data path {str(path)!r} does not exist; check the name.")
+    if not remote and path.is_file() and path.suffix.lower() not in PARQUET_SUFFIXES:
+        raise SourceError(
+            f"The Spark backend reads Parquet files and folders of them; {path.name!r} is not "
+            "one. Use --backend duckdb for text files."
+        )
+    if shutil.which("java") is None and not os.environ.get("JAVA_HOME"):
+        raise SourceError(
+            "Spark needs Java (17 or later), which is not installed; install the Debian package "
+            "openjdk-17-jre-headless or use --backend duckdb."
+        )
+    try:
+        from pyspark.sql import SparkSession
+    except ImportError as exc:  # pragma: no cover - installed with the requirements
+        raise SourceError("The Spark backend needs the pyspark package.") from exc
+    try:
+        builder = SparkSession.builder.master(master)
+        if master.startswith("local"):  # small aggregates: a few shuffle partitions, not 200
+            builder = builder.config("spark.sql.shuffle.partitions", "4")
+        session = (
+            builder.appName("hazel")
+            .config("spark.ui.enabled", "false")
+            .config("spark.driver.bindAddress", "127.0.0.1")
+            .config("spark.driver.host", "127.0.0.1")
+            .config("spark.sql.ansi.enabled", "true")
+            .config("spark.sql.ansi.doubleQuotedIdentifiers", "true")
+            .config("spark.sql.session.timeZone", "UTC")
+            .getOrCreate()
+        )
+        session.sparkContext.setLogLevel("ERROR")
+        reader = session.read.option("mergeSchema", "true")
+        frame = reader.parquet(str(path))
+        frame.createOrReplaceTempView(SPARK_VIEW)
+    except Exception as exc:
+        message = " ".join(str(exc).split())[:300]
+        raise SourceError(f"Spark could not read {path.name!r}: {message}") from exc
+    return SqlSource("spark", session.version, SPARK, SPARK_VIEW, path.name, session)

@@ -1,0 +1,524 @@
+"""The data checks of ``engine.checks.prepare`` run inside a database, with the same rules,
+reasons and texts: rows read, used and excluded per reason (the first reason a row meets),
+the event coding from the event column's value counts, levels in natural order with the most
+frequent as reference, and the warnings on the rows used. Roles whose checks are so far written
+only for rows in memory (start and end dates, an id column's episodes, named competing causes)
+are refused with a ``SettingError`` naming the column.
+
+Nothing but small tables comes back: value counts of the coded columns, a few totals, and the
+counts per (reason, group, stratum, time, event) and per (group, stratum, entry time).
+The SQL of the checked rows (``AggregatedData.clean``) is what the Cox sums then read.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from engine.aggregate.counts import CountTable, count_table
+from engine.aggregate.sources import SqlSource
+from engine.aggregate.sql import literal, number, quoted
+from engine.checks import (
+    ENTRY_AFTER_EXIT,
+    MISSING_COVARIATE,
+    MISSING_ENTRY,
+    MISSING_EVENT,
+    MISSING_TIME,
+    NEGATIVE_TIME,
+    NON_NUMERIC_TIME,
+    REASONS,
+    TIME_NOT_FINITE,
+    UNKNOWN_EVENT,
+    DataReport,
+    _validate_roles,
+    event_coding,
+)
+from engine.data_warnings import labels_warning, warnings_from_summary
+from engine.errors import RoleError, SettingError, preview_values
+from engine.roles import (
+    TIME_UNITS,
+    Roles,
+    classify_covariates,
+    natural_sort_key,
+    value_key,
+)
+
+
+@dataclass(frozen=True)
+class Levels:
+    """A coded column's levels in category order: the SQL text of each and its value."""
+
+    keys: tuple[str, ...]
+    labels: tuple
+
+    def code_of(self) -> dict:
+        return {k: i for i, k in enumerate(self.keys)}
+
+
+@dataclass(frozen=True)
+class AggregatedData:
+    """What ``prepare`` gives, without the rows: the report, the counts, the levels, and the
+    SQL of the checked rows (columns ``_reason``, ``_time``, ``_event``, ``_group``,
+    ``_strata``, ``_entry`` and ``c0``, ``c1``, ... for the covariates)."""
+
+    source: SqlSource
+    roles: Roles
+    report: DataReport
+    counts: CountTable
+    clean: str
+    levels: dict  # "_group", "_strata" and categorical covariates -> Levels
+    covariate_columns: dict  # covariate -> its column in ``clean``
+    kinds: dict
+
+
+def _factor(from_unit: str, to_unit: str) -> float | None:
+    return None if from_unit == to_unit else TIME_UNITS[from_unit] / TIME_UNITS[to_unit]
+
+
+def _scaled(expr: str, factor: float | None) -> str:
+    return expr if factor is None else f"({expr} * {number(factor)})"
+
+
+class _Columns:
+    """SQL expressions for one source, decided from the sample's column types."""
+
+    def __init__(self, source: SqlSource, sample: pd.DataFrame):
+        self.source, self.sample, self.d = source, sample, source.dialect
+
+    def raw(self, column: str) -> str:
+        return quoted(column)
+
+    def numeric(self, column: str, role: str) -> tuple[str, str, bool]:
+        """(number expression, missing condition, is_text) as ``checks._numbers`` reads it."""
+        series = self.sample[column]
+        col = quoted(column)
+        if pd.api.types.is_bool_dtype(series):
+            raise RoleError(
+                f"The {role} column {column!r} holds true/false values, not numbers.",
+                column=column,
+            )
+        if pd.api.types.is_datetime64_any_dtype(series):
+            raise RoleError(
+                f"The {role} column {column!r} holds dates ({preview_values(series.head(3))}). "
+                "Use start and end date columns instead of a duration column.",
+                column=column,
+            )
+        if pd.api.types.is_numeric_dtype(series):
+            value = f"CAST({col} AS {self.d.double})"
+            nan = self.d.is_nan(value)
+            return (
+                f"(CASE WHEN {nan} THEN NULL ELSE {value} END)",
+                f"({col} IS NULL OR {nan})",
+                False,
+            )
+        return self.d.to_number(col), f"({col} IS NULL)", True
+
+
+def _case(conditions: list[tuple[str, str]]) -> str:
+    if not conditions:
+        return "CAST(NULL AS INTEGER)"
+    whens = " ".join(f"WHEN {c} THEN {REASONS.index(r)}" for c, r in conditions)
+    return f"(CASE {whens} END)"
+
+
+def _in(expr: str, keys) -> str:
+    keys = list(keys)
+    return f"{expr} IN ({', '.join(literal(k) for k in keys)})" if keys else "FALSE"
+
+
+def aggregate_checks(
+    source: SqlSource, roles: Roles, *, require_covariates: bool = False
+) -> AggregatedData:
+    """Run the checks in the database; raise the same errors as ``prepare`` for bad roles."""
+    sample = source.sample()
+    _validate_roles(sample, roles)
+    _refuse_row_level_roles(roles)
+    cols = _Columns(source, sample)
+    d = source.dialect
+    notes: list[str] = []
+    conditions: list[tuple[str, str]] = []
+    totals: dict[str, str] = {}  # name -> SQL aggregate over all rows read
+
+    # time
+    if roles.time:
+        value, missing, is_text = cols.numeric(roles.time, "time")
+        conditions.append((missing, MISSING_TIME))
+        if is_text:
+            conditions.append((f"{value} IS NULL", NON_NUMERIC_TIME))
+            totals["time_numbers"] = f"COUNT({value})"
+            totals["time_present"] = f"COUNT({quoted(roles.time)})"
+        conditions.append((_infinite(value, d), TIME_NOT_FINITE))
+        conditions.append((f"{value} < 0", NEGATIVE_TIME))
+        time = _scaled(value, _factor(roles.duration_unit, roles.unit))
+
+    # event: coded from its value counts
+    coding = None
+    if roles.event is None:
+        notes.append("No event column: every row is treated as an event (no censoring).")
+        event = "1"
+    else:
+        col = quoted(roles.event)
+        values = source.query(
+            f"SELECT {d.text(col)} AS k, MIN({col}) AS v, COUNT(*) AS n FROM {source.relation} "
+            "GROUP BY 1"
+        )
+        values = values.sort_values("n", ascending=False, kind="stable")
+        present = values[values["k"].notna()]
+        counts = pd.Series(
+            values["n"].to_numpy(),
+            index=pd.Index(
+                [None if pd.isna(k) else v for k, v in zip(values["k"], values["v"], strict=True)],
+                dtype=object,
+            ),
+        )
+        coding = event_coding(roles, counts, notes, column=roles.event)
+        events = {value_key(v) for v in coding.event_values}
+        censored = {value_key(v) for v in coding.censored_values}
+        event_keys = [
+            k for k, v in zip(present["k"], present["v"], strict=True) if value_key(v) in events
+        ]
+        censored_keys = [
+            k for k, v in zip(present["k"], present["v"], strict=True) if value_key(v) in censored
+        ]
+        text = d.text(col)
+        event = (
+            f"(CASE WHEN {col} IS NULL THEN -1 WHEN {_in(text, event_keys)} THEN 1 "
+            f"WHEN {_in(text, censored_keys)} THEN 0 ELSE -2 END)"
+        )
+        if pd.api.types.is_float_dtype(sample[roles.event]):
+            event = f"(CASE WHEN {d.is_nan(col)} THEN -1 ELSE {event} END)"
+    conditions.append((f"{event} = -1", MISSING_EVENT))
+    conditions.append((f"{event} = -2", UNKNOWN_EVENT))
+
+    # entry
+    entry = None
+    if roles.entry:
+        value, _missing, _ = cols.numeric(roles.entry, "entry time")
+        entry = _scaled(value, _factor(roles.duration_unit, roles.unit))
+        conditions.append((f"{entry} IS NULL", MISSING_ENTRY))
+        conditions.append((_infinite(entry, d), TIME_NOT_FINITE))
+        conditions.append((f"{entry} >= {time}", ENTRY_AFTER_EXIT))
+
+    # covariates
+    kinds = classify_covariates(sample, roles)
+    levels: dict[str, Levels] = {}
+    coded = {}  # column -> SQL text key, for group, strata and categorical covariates
+    covariate_sql = {}
+    for role, column in (("_group", roles.group), ("_strata", roles.strata)):
+        if column:
+            coded[role] = column
+    for column in roles.covariates:
+        if kinds[column] != "categorical" and roles.reference_for(column) is not None:
+            raise RoleError(
+                f"A reference level is given for {column!r}, which is treated as numeric; "
+                "add it to the categorical covariates or drop the reference.",
+                column=column,
+            )
+        if kinds[column] == "possibly categorical":  # the first rows say so; all rows decide
+            kinds[column] = _full_kind(source, column, roles)
+        numeric = kinds[column] == "numeric" or (
+            kinds[column] == "possibly categorical" and column not in roles.categorical
+        )
+        if numeric:
+            value, missing, is_text = cols.numeric(column, "covariate")
+            covariate_sql[column] = value
+            totals[f"missing::{column}"] = f"SUM(CASE WHEN {value} IS NULL THEN 1 ELSE 0 END)"
+            if is_text:
+                totals[f"numbers::{column}"] = f"COUNT({value})"
+                totals[f"present::{column}"] = f"COUNT({quoted(column)})"
+        else:
+            coded[column] = column
+            covariate_sql[column] = d.text(quoted(column))
+            totals[f"missing::{column}"] = (
+                f"SUM(CASE WHEN {quoted(column)} IS NULL THEN 1 ELSE 0 END)"
+            )
+        if require_covariates:
+            conditions.append((f"{covariate_sql[column]} IS NULL", MISSING_COVARIATE))
+
+    if coded:
+        levels = _levels(source, coded, roles)
+    stats = _totals(source, totals)
+    _check_numbers(sample, stats, roles)
+
+    reason = _case(conditions)
+    select = [f"{reason} AS _reason", f"{time} AS _time", f"{event} AS _event"]
+    for role in ("_group", "_strata"):
+        if role in coded:
+            select.append(f"{d.text(quoted(coded[role]))} AS {role}")
+    if entry is not None:
+        select.append(f"{entry} AS _entry")
+    covariate_columns = {}
+    for i, column in enumerate(roles.covariates):
+        covariate_columns[column] = f"c{i}"
+        select.append(f"{covariate_sql[column]} AS c{i}")
+    clean = f"SELECT {', '.join(select)} FROM {source.relation}"
+
+    counts, excluded, rows_read = _counts(source, clean, levels, entry is not None)
+    for column in roles.covariates:
+        missing = int(stats.get(f"missing::{column}", 0) or 0)
+        if not require_covariates and missing:
+            notes.append(
+                f"Covariate {column!r} is missing in {missing} row(s); a model leaves "
+                "those rows out."
+            )
+        if kinds[column] == "possibly categorical" and column not in roles.categorical:
+            notes.append(
+                f"Covariate {column!r} is numeric with few distinct values; if it is a coded "
+                "category, mark it categorical."
+            )
+    by_group = _group_counts(counts)
+    labels = [*_prepared_columns(roles), *(v for lv in levels.values() for v in lv.labels)]
+    notes.extend(_warnings(source, counts, by_group, roles, labels_warning(labels)))
+    events = counts.events
+    report = DataReport(
+        rows_read=rows_read,
+        rows_used=counts.rows,
+        events=events,
+        censored=counts.rows - events,
+        time_unit=roles.unit,
+        excluded=excluded,
+        warnings=tuple(notes),
+        group_counts=by_group,
+        event_coding=coding,
+        covariate_kinds=kinds,
+    )
+    return AggregatedData(source, roles, report, counts, clean, levels, covariate_columns, kinds)
+
+
+ROW_LEVEL_ROLES = (
+    ("start", "start and end dates"),
+    ("id", "an id column (episodes per subject, robust variance)"),
+    ("event_causes", "named competing causes"),
+)
+
+
+def _refuse_row_level_roles(roles: Roles) -> None:
+    """Roles whose checks need the rows in memory are refused with the column they name."""
+    for name, what in ROW_LEVEL_ROLES:
+        value = getattr(roles, name)
+        if value:
+            column = roles.event if name == "event_causes" else value
+            raise SettingError(
+                f"The role of {column!r} ({what}) is not yet checked inside a database; use "
+                "--backend memory for these data, or leave that role out."
+            )
+
+
+def _infinite(expr: str, d) -> str:
+    """True for +-infinity only (NULL and NaN are not): larger than the largest double."""
+    return f"(ABS({expr}) > CAST(1.7976931348623157E308 AS {d.double}))"
+
+
+def _full_kind(source: SqlSource, column: str, roles: Roles) -> str:
+    """`covariate_kind` over the whole column: few distinct whole numbers or not."""
+    from engine.roles import FEW_DISTINCT
+
+    col = quoted(column)
+    sql = (
+        f"SELECT COUNT(*) AS n, SUM(CASE WHEN v = FLOOR(v) THEN 1 ELSE 0 END) AS whole FROM "
+        f"(SELECT DISTINCT CAST({col} AS {source.dialect.double}) AS v FROM {source.relation} "
+        f"WHERE {col} IS NOT NULL LIMIT {FEW_DISTINCT + 1}) AS distinct_values"
+    )
+    row = source.query(sql).iloc[0]
+    few = int(row["n"]) <= FEW_DISTINCT and int(row["whole"] or 0) == int(row["n"])
+    kind = "possibly categorical" if few else "numeric"
+    return "categorical" if column in roles.categorical else kind
+
+
+def _levels(source: SqlSource, coded: dict, roles: Roles) -> dict:
+    """Levels of each coded column from one GROUPING SETS pass: natural order, and for a
+    covariate its reference first (given, or the most frequent, natural-order tie break)."""
+    d = source.dialect
+    names = list(dict.fromkeys(coded.values()))
+    inner = ", ".join(
+        f"{d.text(quoted(c))} AS k{i}, {quoted(c)} AS v{i}" for i, c in enumerate(names)
+    )
+    keys = ", ".join(f"k{i}" for i in range(len(names)))
+    flags = ", ".join(f"GROUPING(k{i}) AS g{i}" for i in range(len(names)))
+    mins = ", ".join(f"MIN(v{i}) AS v{i}" for i in range(len(names)))
+    sets = ", ".join(f"(k{i})" for i in range(len(names)))
+    sql = (
+        f"SELECT {flags}, {keys}, {mins}, COUNT(*) AS n FROM (SELECT {inner} FROM "
+        f"{source.relation}) AS coded GROUP BY GROUPING SETS ({sets})"
+    )
+    table = source.query(sql)
+    by_column = {}
+    for i, column in enumerate(names):
+        part = table[(table[f"g{i}"] == 0) & table[f"k{i}"].notna()]
+        found = list(zip(part[f"k{i}"], part[f"v{i}"], part["n"], strict=True))
+        found.sort(key=lambda kvn: natural_sort_key(_plain(kvn[1])))
+        if column in roles.covariates and found:
+            reference = roles.reference_for(column)
+            if reference is None:
+                top = max(n for _, _, n in found)
+                index = next(i for i, (_, _, n) in enumerate(found) if n == top)
+            else:
+                matches = [
+                    i for i, (_, v, _) in enumerate(found) if value_key(v) == value_key(reference)
+                ]
+                if not matches:
+                    raise RoleError(
+                        f"Reference level {reference!r} does not occur in column {column!r}; its "
+                        f"levels are {preview_values([_plain(v) for _, v, _ in found], 10)}.",
+                        column=column,
+                        values=[reference],
+                    )
+                index = matches[0]
+            found.insert(0, found.pop(index))
+        by_column[column] = Levels(
+            tuple(str(k) for k, _, _ in found), tuple(_plain(v) for _, v, _ in found)
+        )
+    return {role: by_column[column] for role, column in coded.items()}
+
+
+def _plain(value):
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
+
+
+def _totals(source: SqlSource, totals: dict) -> dict:
+    if not totals:
+        return {}
+    names = list(totals)
+    sql = ", ".join(f"{expr} AS t{i}" for i, expr in enumerate(totals.values()))
+    row = source.query(f"SELECT {sql} FROM {source.relation}").iloc[0]
+    return {name: _plain(row[f"t{i}"]) for i, name in enumerate(names)}
+
+
+def _check_numbers(sample: pd.DataFrame, stats: dict, roles: Roles) -> None:
+    """A column with values but not one number (or date) is refused, as in memory."""
+    checks = []
+    if "time_present" in stats:
+        checks.append((roles.time, "time", stats["time_present"], stats["time_numbers"]))
+    for column in roles.covariates:
+        if f"present::{column}" in stats:
+            checks.append(
+                (column, "covariate", stats[f"present::{column}"], stats[f"numbers::{column}"])
+            )
+    for column, role, present, numbers in checks:
+        if present and not numbers:
+            values = sample[column].dropna().unique()
+            raise RoleError(
+                f"The {role} column {column!r} holds no numbers (values such as "
+                f"{preview_values(values)}). Choose a numeric column, or use "
+                "start and end date columns if it holds dates.",
+                column=column,
+                values=list(values[:5]),
+            )
+
+
+def _codes(keys: pd.Series, levels: Levels | None) -> np.ndarray:
+    if levels is None:
+        return np.zeros(len(keys), dtype=np.int64)
+    lookup = levels.code_of()
+    return np.array([lookup.get(k, -1) if isinstance(k, str) else -1 for k in keys], np.int64)
+
+
+def _counts(source: SqlSource, clean: str, levels: dict, has_entry: bool):
+    """Rows per reason, and the exit and entry counts of the rows used (two passes)."""
+    group = "_group" if "_group" in levels else "NULL"
+    strata = "_strata" if "_strata" in levels else "NULL"
+    used = "_reason IS NULL"
+    sql = (
+        f"SELECT _reason AS reason, CASE WHEN {used} THEN {group} END AS g, "
+        f"CASE WHEN {used} THEN {strata} END AS s, CASE WHEN {used} THEN _time END AS t, "
+        f"CASE WHEN {used} THEN _event END AS e, COUNT(*) AS n FROM ({clean}) AS checked "
+        "GROUP BY 1, 2, 3, 4, 5"
+    )
+    table = source.query(sql)
+    rows_read = int(table["n"].sum())
+    excluded_table = table[table["reason"].notna()]
+    by_reason = excluded_table.groupby("reason")["n"].sum()
+    excluded = tuple(
+        (REASONS[int(r)], int(by_reason[r])) for r in sorted(by_reason.index.astype(int))
+    )
+    kept = table[table["reason"].isna()]
+    event = kept["e"].to_numpy(dtype=np.int64)
+    n = kept["n"].to_numpy(dtype=np.int64)
+    exits = pd.DataFrame(
+        {
+            "group": _codes(kept["g"], levels.get("_group")),
+            "stratum": _codes(kept["s"], levels.get("_strata")),
+            "time": kept["t"].to_numpy(dtype=float),
+            "events": np.where(event == 1, n, 0),
+            "censored": np.where(event == 1, 0, n),
+        }
+    )
+    entries = None
+    if has_entry:
+        e = source.query(
+            f"SELECT {group} AS g, {strata} AS s, _entry AS en, COUNT(*) AS n FROM ({clean}) "
+            f"AS checked WHERE {used} GROUP BY 1, 2, 3"
+        )
+        entries = pd.DataFrame(
+            {
+                "group": _codes(e["g"], levels.get("_group")),
+                "stratum": _codes(e["s"], levels.get("_strata")),
+                "entry": e["en"].to_numpy(dtype=float),
+                "rows": e["n"].to_numpy(dtype=np.int64),
+            }
+        )
+    g = levels.get("_group")
+    s = levels.get("_strata")
+    counts = count_table(
+        exits, entries, None if g is None else g.labels, None if s is None else s.labels
+    )
+    return counts, excluded, rows_read
+
+
+def _group_counts(counts: CountTable) -> pd.DataFrame:
+    """`data_warnings.group_counts` from the counts (rows, events, competing, censored per
+    group); no competing events, since named causes are refused."""
+    ex = counts.exits
+    if counts.group_labels is None:
+        n, events = counts.rows, counts.events
+        table = pd.DataFrame({"n": [n], "events": [events], "competing": [0]}, index=["all"])
+    else:
+        size = len(counts.group_labels)
+        has = ex["group"] >= 0
+        codes = ex.loc[has, "group"].to_numpy()
+        rows = (ex.loc[has, "events"] + ex.loc[has, "censored"]).to_numpy()
+        table = pd.DataFrame(
+            {
+                "n": np.rint(np.bincount(codes, rows, size)).astype(np.int64),
+                "events": np.rint(np.bincount(codes, ex.loc[has, "events"], size)),
+                "competing": np.zeros(size, dtype=np.int64),
+            },
+            index=pd.Index(list(counts.group_labels), dtype=object),
+        )
+    table["censored"] = table["n"] - table["events"] - table["competing"]
+    table = table.rename_axis("group").reset_index()
+    return table.astype({c: "int64" for c in ("n", "events", "competing", "censored")})
+
+
+def _prepared_columns(roles: Roles) -> list[str]:
+    """The prepared frame's column names (``checks.prepare``), for the labels warning."""
+    names = ["_time", "_event"]
+    names += [n for n, c in (("_group", roles.group), ("_strata", roles.strata)) if c]
+    names += ["_entry"] if roles.entry else []
+    names += ["_id"] if roles.id else []
+    return [*names, *roles.covariates]
+
+
+def _warnings(source: SqlSource, counts: CountTable, by_group, roles: Roles, hidden) -> list[str]:
+    ex = counts.exits
+    times = ex["time"].to_numpy()
+    zeros = int((ex.loc[times == 0, "events"] + ex.loc[times == 0, "censored"]).sum())
+    distinct = np.unique(times)
+    raw_times = distinct
+    no_group = 0
+    if roles.group:
+        missing = ex["group"] < 0
+        no_group = int((ex.loc[missing, "events"] + ex.loc[missing, "censored"]).sum())
+    return warnings_from_summary(
+        roles,
+        zeros=zeros,
+        times=raw_times,
+        events=counts.events if counts.rows else None,
+        counts=by_group,
+        no_group=no_group,
+        hidden=hidden,
+    )

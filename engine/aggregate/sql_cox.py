@@ -1,0 +1,271 @@
+"""The Cox model's design and per-time sums computed by a database.
+
+``sql_design`` gives the ``Design`` of ``cox_design.build_design`` without its rows: complete
+cases on the model's variables, rows dropped per variable, treatment coding with the level
+checks, centre and scale, and the collinearity check from the design's moments. ``SqlCoxSource``
+answers each Newton step with one GROUP BY over the checked rows.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+import pandas as pd
+
+from engine.aggregate.cox_sums import CoxSums
+from engine.aggregate.sql import literal, number
+from engine.aggregate.sql_checks import AggregatedData
+from engine.cox_design import SMALL_LEVEL_ROWS, Design, Term, check_collinearity
+from engine.errors import AnalysisError, preview_values
+
+
+def sql_design(
+    data: AggregatedData,
+    covariates: Sequence[str],
+    *,
+    categorical: Sequence[str] = (),
+    reference=None,
+    strata: bool = False,
+) -> tuple[Design, str, list[str]]:
+    """The design, the SQL of the model's rows (``_s``, ``_time``, ``_event``, ``_entry`` and
+    the scaled columns ``z0``, ``z1``, ...) and the SQL of the unscaled columns."""
+    source, cols = data.source, data.covariate_columns
+    covariates = list(dict.fromkeys(covariates))
+    reference = dict(reference or {})
+    categorical = set(categorical)
+    used = "_reason IS NULL"
+    required = (["_strata"] if strata else []) + [cols[c] for c in covariates]
+    names = (["_strata"] if strata else []) + covariates
+    missing = ", ".join(
+        f"SUM(CASE WHEN {c} IS NULL THEN 1 ELSE 0 END) AS m{i}" for i, c in enumerate(required)
+    )
+    complete = " AND ".join(f"{c} IS NOT NULL" for c in required) or "TRUE"
+    row = source.query(
+        f"SELECT {missing}, SUM(CASE WHEN {complete} THEN 1 ELSE 0 END) AS n "
+        f"FROM ({data.clean}) AS checked WHERE {used}"
+    ).iloc[0]
+    dropped = {n: int(row[f"m{i}"]) for i, n in enumerate(names) if int(row[f"m{i}"] or 0)}
+    n_used = int(row["n"] or 0)
+    if n_used == 0:
+        raise AnalysisError(
+            "No row has every model variable present (rows missing per variable: "
+            f"{dropped}); remove the variable with most missing values or fill it in."
+        )
+    model_rows = f"SELECT * FROM ({data.clean}) AS checked WHERE {used} AND {complete}"
+    terms: list[Term] = []
+    columns: list[str] = []
+    levels: dict = {}
+    level_counts: dict = {}
+    warnings: list[str] = []
+    for column in covariates:
+        col = cols[column]
+        if column not in categorical:
+            terms.append(Term(column))
+            columns.append(col)
+            continue
+        info = data.levels[column]
+        found = source.query(
+            f"SELECT {col} AS k, COUNT(*) AS n FROM ({model_rows}) AS m GROUP BY 1"
+        )
+        by_key = dict(zip(found["k"], found["n"].astype(int), strict=True))
+        categories = [str(v) for v in info.labels]
+        counts = {c: by_key.get(k, 0) for c, k in zip(categories, info.keys, strict=True)}
+        key_of = dict(zip(categories, info.keys, strict=True))
+        ref = reference.get(column, categories[0] if categories else None)
+        if str(ref) not in categories:
+            raise AnalysisError(
+                f"Reference level {ref!r} for '{column}' is not one of its levels "
+                f"{preview_values(categories, 12)}; choose one of those."
+            )
+        ref = str(ref)
+        if counts[ref] == 0:
+            raise AnalysisError(
+                f"Reference level {ref!r} of '{column}' has no rows among the complete cases; "
+                "choose a reference level that has rows."
+            )
+        label_of = dict(zip(categories, info.labels, strict=True))
+        empty = [label_of[c] for c in categories if counts[c] == 0]
+        if empty:
+            warnings.append(
+                f"'{column}': level(s) {preview_values(empty)} have no rows among the complete "
+                "cases and are left out of the model."
+            )
+        kept = [c for c in categories if counts[c] > 0 and c != ref]
+        if not kept:
+            raise AnalysisError(
+                f"Categorical covariate '{column}' has a single level ({label_of[ref]!r}) among "
+                "the complete cases, so it cannot be estimated; remove it from the covariates."
+            )
+        small = [
+            f"{label_of[c]!r} ({counts[c]} rows)"
+            for c in [ref, *kept]
+            if counts[c] < SMALL_LEVEL_ROWS
+        ]
+        if small:
+            warnings.append(
+                f"'{column}': level(s) {', '.join(small)} have fewer than {SMALL_LEVEL_ROWS} rows "
+                "(common practice); their hazard ratios are unreliable. Consider merging levels."
+            )
+        levels[column] = (ref, *kept)
+        level_counts[column] = {c: int(counts[c]) for c in [ref, *kept]}
+        for level in kept:
+            terms.append(Term(column, level, ref))
+            columns.append(f"(CASE WHEN {col} = {literal(key_of[level])} THEN 1.0 ELSE 0.0 END)")
+    p = len(columns)
+    sums = [f"SUM({c}) AS s{i}" for i, c in enumerate(columns)]
+    sums += [f"SUM({columns[i]} * {columns[j]}) AS p{i}_{j}" for i in range(p) for j in range(i, p)]
+    sums += [f"MIN({c}) AS lo{i}, MAX({c}) AS hi{i}" for i, c in enumerate(columns)]
+    d = data.source.dialect
+    sums = [s.replace("SUM(", d.total("").rstrip(")"), 1) if False else s for s in sums]
+    moments = source.query(f"SELECT {', '.join(sums)} FROM ({model_rows}) AS m").iloc[0]
+    center = np.array([float(moments[f"s{i}"]) / n_used for i in range(p)])
+    second = np.zeros((p, p))
+    for i in range(p):
+        for j in range(i, p):
+            second[i, j] = second[j, i] = float(moments[f"p{i}_{j}"]) / n_used
+    covariance = second - np.outer(center, center)
+    scale = np.sqrt(np.clip(np.diag(covariance), 0.0, None))
+    low = np.array([float(moments[f"lo{i}"]) for i in range(p)])
+    high = np.array([float(moments[f"hi{i}"]) for i in range(p)])
+    design = Design(
+        tuple(terms),
+        np.zeros((0, p)),
+        np.zeros(0, bool),
+        dropped,
+        levels,
+        level_counts,
+        (),
+        center,
+        scale,
+    )
+    warnings += check_collinearity(design, covariance)
+    design = Design(
+        tuple(terms),
+        np.zeros((0, p)),
+        np.zeros(0, bool),
+        dropped,
+        levels,
+        level_counts,
+        tuple(warnings),
+        center,
+        scale,
+    )
+    scaled = [
+        f"(({c} - {number(center[i])}) / {number(scale[i])})" if scale[i] > 0 else "0.0"
+        for i, c in enumerate(columns)
+    ]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        bounds = np.column_stack([(low - center) / scale, (high - center) / scale])
+    bounds = np.nan_to_num(bounds, nan=0.0, posinf=0.0, neginf=0.0)
+    strata_column = "_strata" if strata else data.source.dialect.text("NULL")
+    entry = ", _entry" if "_entry" in data.clean else ""
+    z = ", ".join(f"{c} AS z{i}" for i, c in enumerate(scaled))
+    rows = (
+        f"SELECT {strata_column} AS _s, _time, _event{entry}{', ' + z if z else ''} "
+        f"FROM ({model_rows}) AS m"
+    )
+    return design, rows, bounds
+
+
+class SqlCoxSource:
+    """Per-(stratum, time) sums at β by one GROUP BY over the model's rows in the database."""
+
+    def __init__(self, data: AggregatedData, rows: str, bounds: np.ndarray, strata_labels):
+        self.source, self.rows, self.bounds = data.source, rows, bounds
+        self.n_columns = len(bounds)
+        self.has_entry = "_entry" in rows
+        self.strata_code = {k: i for i, k in enumerate(strata_labels or ())}
+        self.passes = 0
+
+    def _stratum_codes(self, keys: pd.Series) -> np.ndarray:
+        if not self.strata_code:
+            return np.zeros(len(keys), np.int64)
+        return np.array([self.strata_code[k] for k in keys], dtype=np.int64)
+
+    def sums(self, beta: np.ndarray, columns: np.ndarray) -> CoxSums:
+        d = self.source.dialect
+        q = len(columns)
+        z = [f"z{int(c)}" for c in columns]
+        bounds = self.bounds[columns]
+        # w = exp(eta - shift) <= 1 with shift the largest eta the bounds allow
+        shift = float(np.sum(np.maximum(beta * bounds[:, 0], beta * bounds[:, 1]))) if q else 0.0
+        eta = " + ".join(f"{number(b)} * {c}" for b, c in zip(beta, z, strict=True)) or "0.0"
+        weight = d.exp(f"{eta} - {number(shift)}")
+        inner = f"SELECT _s, _time, _event{', _entry' if self.has_entry else ''}"
+        inner += "".join(f", {c}" for c in z) + f", {weight} AS w FROM ({self.rows}) AS r"
+        total = d.total
+
+        def block(prefix: str, mask: str) -> list[str]:
+            m = f"{mask} * " if mask else ""
+            out = [f"{total(m + 'w')} AS {prefix}0"]
+            out += [f"{total(m + 'w * ' + c)} AS {prefix}1_{i}" for i, c in enumerate(z)]
+            out += [
+                f"{total(m + 'w * ' + z[i] + ' * ' + z[j])} AS {prefix}2_{i}_{j}"
+                for i in range(q)
+                for j in range(i, q)
+            ]
+            return out
+
+        parts = ["_s", "_time AS t", "COUNT(*) AS n", "SUM(_event) AS d"]
+        parts += [f"{total('_event * ' + c)} AS x{i}" for i, c in enumerate(z)]
+        parts += block("s", "") + block("e", "_event")
+        exits = self.source.query(
+            f"SELECT {', '.join(parts)} FROM ({inner}) AS weighted GROUP BY 1, 2 ORDER BY 1, 2"
+        )
+        self.passes += 1
+        stratum = self._stratum_codes(exits["_s"])
+        order = np.lexsort((exits["t"].to_numpy(float), stratum))
+        exits = exits.iloc[order].reset_index(drop=True)
+        s0, s1, s2 = _block(exits, "s", q)
+        d0, d1, d2 = _block(exits, "e", q)
+        extra = {}
+        if self.has_entry:
+            entered = self.source.query(
+                f"SELECT _s, _entry AS t, {', '.join(block('s', ''))} FROM ({inner}) AS weighted "
+                "GROUP BY 1, 2 ORDER BY 1, 2"
+            )
+            self.passes += 1
+            e_stratum = self._stratum_codes(entered["_s"])
+            e_order = np.lexsort((entered["t"].to_numpy(float), e_stratum))
+            entered = entered.iloc[e_order].reset_index(drop=True)
+            e0, e1, e2 = _block(entered, "s", q)
+            extra = dict(
+                entry_stratum=e_stratum[e_order],
+                entry_time=entered["t"].to_numpy(float),
+                e0=e0,
+                e1=e1,
+                e2=e2,
+            )
+        event_x = (
+            np.column_stack([exits[f"x{i}"].to_numpy(float) for i in range(q)])
+            if q
+            else (np.zeros((len(exits), 0)))
+        )
+        return CoxSums(
+            stratum[order],
+            exits["t"].to_numpy(float),
+            exits["n"].to_numpy(np.int64),
+            exits["d"].to_numpy(np.int64),
+            event_x,
+            s0,
+            s1,
+            s2,
+            d0,
+            d1,
+            d2,
+            shift,
+            **extra,
+        )
+
+
+def _block(frame: pd.DataFrame, prefix: str, q: int):
+    g = len(frame)
+    s0 = frame[f"{prefix}0"].to_numpy(float)
+    s1 = np.zeros((g, q))
+    s2 = np.zeros((g, q, q))
+    for i in range(q):
+        s1[:, i] = frame[f"{prefix}1_{i}"].to_numpy(float)
+        for j in range(i, q):
+            s2[:, i, j] = s2[:, j, i] = frame[f"{prefix}2_{i}_{j}"].to_numpy(float)
+    return s0, s1, s2

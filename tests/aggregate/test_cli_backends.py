@@ -1,0 +1,100 @@
+"""``analyze --backend``: DuckDB on a file and on a partitioned folder gives memory's numbers;
+``computed_with`` says which backend ran; bad combinations exit 2 with one ``error:`` line."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from app.cli import main
+from tests.aggregate.cases import assert_same_json, messy_frame
+
+ROLE_ARGS = [
+    "--time", "days", "--event", "status", "--group", "site", "--strata", "ward",
+    "--entry", "enrolled", "--covariates", "age,stage", "--categorical", "stage",
+    "--times", "100,365",
+]  # fmt: skip
+NOT_FROM_SUMS = (".cox.concordance", ".cox.concordance_se", ".cox.warnings", ".computed_with")
+
+
+@pytest.fixture(scope="module")
+def data(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("cli")
+    frame = messy_frame(5, n=900)
+    frame.to_parquet(folder / "one.parquet")
+    parts = folder / "parts"
+    for i, (_ward, piece) in enumerate(frame.groupby("ward", dropna=False)):
+        target = parts / f"ward_part={i}"
+        target.mkdir(parents=True)
+        piece.to_parquet(target / "data.parquet")
+    return folder
+
+
+def analyze(capsys, *args) -> dict:
+    code = main(["analyze", *args, *ROLE_ARGS, "--json", "-"])
+    out = capsys.readouterr()
+    assert code == 0, out.err
+    return json.loads(out.out)
+
+
+def test_duckdb_file_and_folder_equal_memory(data, capsys):
+    memory = analyze(capsys, str(data / "one.parquet"), "--backend", "memory")
+    file = analyze(capsys, str(data / "one.parquet"), "--backend", "duckdb")
+    folder = analyze(capsys, str(data / "parts"))  # auto: a folder goes to DuckDB
+    assert memory["computed_with"]["backend"] == "memory"
+    assert file["computed_with"]["backend"] == folder["computed_with"]["backend"] == "duckdb"
+    assert file["computed_with"]["sample"] is None
+    assert list(file) == list(memory)
+    for result in (file, folder):
+        assert result["data"]["excluded"] == memory["data"]["excluded"]
+        assert_same_json(memory, result, skip=NOT_FROM_SUMS)
+
+
+def test_text_output_names_the_backend(data, capsys):
+    code = main(["analyze", str(data / "one.parquet"), "--backend", "duckdb", *ROLE_ARGS])
+    out = capsys.readouterr().out
+    assert code == 0
+    assert "aggregated by duckdb" in out
+    assert "Rows read 900" in out
+
+
+@pytest.mark.parametrize(
+    ("extra", "message"),
+    [
+        (["--backend", "memory", "--query", "SELECT 1"], "need DATA to be a database address"),
+        (["--table", "t"], "need DATA to be a database address"),
+        (["--backend", "duckdb", "--report", "x.html"], "--report is not available"),
+        (["--backend", "duckdb", "--filter", "age:at_least:50"], "--filter is not available"),
+        (["--backend", "duckdb", "--id", "ward"], "'ward'"),
+        (["--backend", "duckdb", "--competing", "alive=other"], "named competing causes"),
+    ],
+)
+def test_bad_backend_options_exit_2(data, capsys, extra, message):
+    code = main(["analyze", str(data / "one.parquet"), *ROLE_ARGS, *extra])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2
+    assert len(err) == 1 and err[0].startswith("error: ") and message in err[0]
+
+
+def test_memory_backend_refuses_a_folder(data, capsys):
+    code = main(["analyze", str(data / "parts"), "--backend", "memory", *ROLE_ARGS])
+    assert code == 2
+    assert "--backend duckdb" in capsys.readouterr().err
+
+
+def test_infinite_times_are_excluded_as_in_memory(tmp_path, capsys):
+    """An infinite duration or entry time is its own exclusion reason, counted as in memory."""
+    import numpy as np
+
+    frame = messy_frame(9, n=600)
+    frame.loc[[3, 4, 5], "days"] = [np.inf, -np.inf, np.inf]
+    frame.loc[[7, 8], "enrolled"] = np.inf
+    path = tmp_path / "inf.parquet"
+    frame.to_parquet(path)
+    memory = analyze(capsys, str(path), "--backend", "memory")
+    duck = analyze(capsys, str(path), "--backend", "duckdb")
+    reasons = dict((e["reason"], e["rows"]) for e in memory["data"]["excluded"])
+    assert reasons["time not finite"] >= 4
+    assert duck["data"] == memory["data"]
+    assert_same_json(memory, duck, skip=NOT_FROM_SUMS)

@@ -1,0 +1,82 @@
+"""PostgreSQL runs the checks and the aggregation inside the database, with memory's numbers;
+bad addresses, tables and queries exit 2 with one ``error:`` line."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from app.cli import main
+from engine.aggregate.analysis import run_aggregate_analysis
+from engine.aggregate.sources import SourceError, open_postgres
+from engine.aggregate.sql_checks import aggregate_checks
+from engine.analysis import run_analysis
+from engine.checks import prepare
+from tests.aggregate.cases import ROLES, SETTINGS, assert_same_json, messy_frame
+from tests.aggregate.conftest import load_table
+from tests.aggregate.test_cli_backends import NOT_FROM_SUMS, ROLE_ARGS
+
+
+@pytest.fixture(scope="module")
+def messy(postgres_url):
+    frame = messy_frame(9, n=1200)
+    load_table(postgres_url, "messy", frame)
+    return frame
+
+
+def test_postgres_equals_memory(postgres_url, messy):
+    memory = run_analysis(prepare(messy, ROLES), SETTINGS)
+    source = open_postgres(postgres_url, table="messy")
+    try:
+        database = run_aggregate_analysis(aggregate_checks(source, ROLES), SETTINGS)
+    finally:
+        source.close()
+    assert database["data"] == memory["data"]
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+
+
+def test_query_and_cli(postgres_url, messy, capsys):
+    code = main(
+        [
+            "analyze",
+            postgres_url,
+            "--query",
+            "SELECT * FROM messy WHERE ward = 'A'",
+            *ROLE_ARGS,
+            "--json",
+            "-",
+        ]
+    )
+    out = capsys.readouterr()
+    assert code == 0, out.err
+    result = json.loads(out.out)
+    assert result["computed_with"]["backend"] == "postgresql"
+    assert "hazel@" not in out.out  # the user name is not written
+    memory = run_analysis(
+        prepare(messy[messy["ward"] == "A"].reset_index(drop=True), ROLES),
+        {"curves": {"times": [100.0, 365.0]}},
+    )
+    assert result["data"]["rows_read"] == memory["data"]["rows_read"]
+    assert_same_json(memory["curves"], result["curves"])
+
+
+@pytest.mark.parametrize(
+    ("extra", "message"),
+    [
+        (["--table", "no_such_table"], "no_such_table"),
+        (["--query", "DELETE FROM messy"], "must only read"),
+        (["--query", "SELECT 1; DROP TABLE messy"], "must only read"),
+        ([], "exactly one of --table"),
+    ],
+)
+def test_bad_database_input_exits_2(postgres_url, messy, capsys, extra, message):
+    code = main(["analyze", postgres_url, *extra, *ROLE_ARGS])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2
+    assert len(err) == 1 and err[0].startswith("error: ") and message in err[0], err
+
+
+def test_unreachable_server_is_one_clear_error():
+    with pytest.raises(SourceError, match="Could not connect"):
+        open_postgres("postgresql://nobody@127.0.0.1:1/none", table="t")

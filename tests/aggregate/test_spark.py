@@ -1,0 +1,54 @@
+"""Spark (a local session, started once per test run) gives memory's numbers on a partitioned
+Parquet dataset: the data checks, curves, the comparison and the Cox model with its PH test."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from app.cli import main
+from engine.aggregate.analysis import run_aggregate_analysis
+from engine.aggregate.sources import SourceError, open_spark
+from engine.aggregate.sql_checks import aggregate_checks
+from engine.analysis import run_analysis
+from engine.checks import prepare
+from tests.aggregate.cases import ROLES, SETTINGS, assert_same_json, messy_frame
+from tests.aggregate.test_cli_backends import NOT_FROM_SUMS
+
+
+@pytest.fixture(scope="module")
+def dataset(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("spark")
+    frame = messy_frame(13, n=800)
+    frame.to_parquet(folder / "messy.parquet")
+    return folder / "messy.parquet", frame
+
+
+def test_spark_equals_memory(spark_master, dataset):
+    path, frame = dataset
+    memory = run_analysis(prepare(frame, ROLES), SETTINGS)
+    source = open_spark(path, master=spark_master)
+    try:
+        database = run_aggregate_analysis(aggregate_checks(source, ROLES), SETTINGS)
+    finally:
+        source.close()
+    assert database["data"] == memory["data"]
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+
+
+def test_cli_spark_backend(spark_master, dataset, capsys):
+    path, _ = dataset
+    roles = ["--time", "days", "--event", "status", "--group", "site"]
+    backend = ["--backend", "spark", "--spark-master", spark_master]
+    code = main(["analyze", str(path), *backend, *roles, "--json", "-"])
+    out = capsys.readouterr()
+    assert code == 0, out.err
+    result = json.loads(out.out)
+    assert result["computed_with"]["backend"] == "spark"
+    assert result["computed_with"]["version"].split(".")[0].isdigit()
+
+
+def test_missing_path_is_one_clear_error(spark_master, tmp_path):
+    with pytest.raises(SourceError, match="does not exist"):
+        open_spark(tmp_path / "nothing.parquet", master=spark_master)
