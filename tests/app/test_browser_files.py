@@ -54,7 +54,9 @@ def test_filter_builder_and_baseline_table_in_the_browser(server):
         assert "of 421" in sidebar.replace("\u202f", " "), sidebar  # Ashford's 421 bearings
 
         _open(page, "Baseline table", "Percentages are of the non-missing values")
-        page.get_by_text("All rows (n = ", exact=False).first.wait_for(timeout=60_000)
+        # the table's header cells are in the data grid's hidden accessible table
+        header = page.get_by_text("All rows (n = ", exact=False).first
+        header.wait_for(state="attached", timeout=60_000)
         page.screenshot(path=str(ARTIFACTS / "files_baseline.png"), full_page=True)
         book = openpyxl.load_workbook(io.BytesIO(_download(page, "Excel")))
         assert book.sheetnames == ["Table", "Exact values"]
