@@ -10,8 +10,10 @@ Tests read the charts as data through ``chart.to_dict()``.
 
 from __future__ import annotations
 
+import hashlib
 import itertools
 import math
+import sys
 import threading
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
@@ -123,6 +125,8 @@ def nice_ticks(upper: float, count: int = 10) -> list[float]:
     if not upper > 0 or not math.isfinite(upper):
         return [0.0]
     raw = upper / max(count - 1, 1)
+    if raw < sys.float_info.min:  # subnormal times (5e-324): no finer step is representable
+        return [0.0, float(upper)]
     power = 10 ** math.floor(math.log10(raw))
     step = next(m * power for m in (1, 2, 2.5, 5, 10) if m * power >= raw)
     n = math.floor(upper / step + 1e-9)
@@ -194,19 +198,54 @@ def finish(chart: alt.TopLevelMixin, style: ChartStyle) -> dict:
     return spec
 
 
+FIGURE_TEXT_LIMIT = 80  # characters of a label a figure shows; the tables keep it whole
+
+
+def figure_text(text: str) -> str:
+    """A label as a figure shows it: controls as codes, and past ``FIGURE_TEXT_LIMIT``
+    characters cut, with a short fingerprint of the whole label so that two long labels that
+    begin alike stay two (laying out a label costs the renderer time that grows faster than
+    its length: a 10,000-character group label took 37 s to draw)."""
+    text = visible_text(text)
+    if len(text) <= FIGURE_TEXT_LIMIT:
+        return text
+    digest = hashlib.sha256(text.encode("utf-8", "surrogatepass")).hexdigest()[:6]
+    return f"{text[: FIGURE_TEXT_LIMIT - 10]}… #{digest}"
+
+
 def visible_spec(value):
     """The spec with direction controls and control characters in any label (titles, legend
-    entries, the data's text columns) shown as codes (``engine.text_safety``): a U+202E would
-    reverse a legend, and an ESC makes the SVG renderer of the exports abort."""
+    entries, the data's text columns) shown as codes (``engine.text_safety``) and long labels
+    cut (``figure_text``): a U+202E would reverse a legend, and an ESC makes the SVG renderer of
+    the exports abort."""
     if isinstance(value, str):
-        return visible_text(value)
+        return figure_text(value)
     if isinstance(value, dict):
         return {key: visible_spec(item) for key, item in value.items()}
     if isinstance(value, list):
         return [visible_spec(item) for item in value]
     if isinstance(value, pd.DataFrame):
-        return visible_frame(value)
+        return _figure_frame(visible_frame(value))
     return value
+
+
+def _figure_frame(frame: pd.DataFrame) -> pd.DataFrame:
+    """``figure_text`` on the long cells of a drawing frame's text columns."""
+    changed = {}
+    for column in frame.columns:
+        series = frame[column]
+        if pd.api.types.is_numeric_dtype(series) or pd.api.types.is_bool_dtype(series):
+            continue
+        if series.astype("string").str.len().gt(FIGURE_TEXT_LIMIT).any():
+            changed[column] = series.map(
+                lambda v: figure_text(v) if isinstance(v, str) else v, na_action="ignore"
+            )
+    if not changed:
+        return frame
+    out = frame.copy()
+    for column, values in changed.items():
+        out[column] = values
+    return out
 
 
 def chart_title(style: ChartStyle) -> alt.TitleParams | str:

@@ -12,9 +12,9 @@ from app import charts, charts_models, exports
 STYLE = charts.ChartStyle()
 
 
-def _curves() -> pd.DataFrame:
+def _curves(labels=("A", "B")) -> pd.DataFrame:
     rows = []
-    for label, rate in (("A", 0.1), ("B", 0.2)):
+    for label, rate in zip(labels, (0.1, 0.2, 0.3, 0.4), strict=False):
         time = np.array([0.0, 1.0, 2.0, 3.5, 5.0])
         survival = np.exp(-rate * time)
         rows.append(
@@ -325,3 +325,41 @@ def test_finished_spec_is_valid_vega_lite_with_the_house_config():
     assert spec["config"]["axis"]["labelFontSize"] == large.font_size
     assert isinstance(spec["datasets"]["data-0"], pd.DataFrame)  # sent to the browser as Arrow
     Root.validate(exports.json_spec(spec))
+
+
+def test_long_labels_are_cut_in_figures_and_stay_distinct():
+    """Issue 10 (the large fuzz run): a 100,000-character group label made the figure renderer
+    run for minutes (10,000 characters: 37 s). A figure shows at most FIGURE_TEXT_LIMIT
+    characters of a label, with a fingerprint so that labels that begin alike stay apart."""
+    first, second = "x" * 100_000 + "1", "x" * 100_000 + "2"
+    labels = [first, second, "short"]
+    spec = charts.finish(
+        charts.step_curve_chart(_curves(labels), STYLE, charts.group_colours(labels)), STYLE
+    )
+    shown = {
+        row["group"]
+        for frame in spec["datasets"].values()
+        if isinstance(frame, pd.DataFrame) and "group" in frame.columns
+        for row in frame.to_dict("records")
+    }
+    assert "short" in shown and len(shown) == 3
+    assert max(len(label) for label in shown) <= charts.FIGURE_TEXT_LIMIT
+    assert all(len(text) <= charts.FIGURE_TEXT_LIMIT for text in _strings(spec))
+    assert exports.figure_svg(spec).startswith("<svg")
+
+
+def _strings(value):
+    if isinstance(value, str):
+        yield value
+    elif isinstance(value, dict):
+        for key, item in value.items():
+            yield from _strings(key)
+            yield from _strings(item)
+    elif isinstance(value, list):
+        for item in value:
+            yield from _strings(item)
+
+
+def test_ticks_of_subnormal_times_are_the_ends():
+    assert charts.nice_ticks(1e-323) == [0.0, 1e-323]
+    assert charts.nice_ticks(5e-324) == [0.0, 5e-324]

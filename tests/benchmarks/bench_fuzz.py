@@ -109,7 +109,13 @@ def main() -> None:
             if problem:
                 cli_problems.append(problem)
         if len(outcomes) % 500 == 0:
-            print(f"  {len(outcomes):,} cases, {time.perf_counter() - started:.0f} s", flush=True)
+            kinds = Counter(o.kind for o in outcomes)
+            print(
+                f"  {len(outcomes):,} cases, {time.perf_counter() - started:.0f} s: "
+                f"{kinds['result']:,} results, {kinds['error']:,} errors, {kinds['crash']} "
+                f"crashes; command line {dict(cli)}, contract broken {len(cli_problems)}",
+                flush=True,
+            )
 
     one()
     kinds = Counter(o.kind for o in outcomes)
