@@ -58,6 +58,7 @@ def table_csv(frame: pd.DataFrame) -> bytes:
 
 # What the SVG renderer cannot take and aborts the whole process on: characters XML 1.0 forbids
 # (control characters are shown as codes, the rest as U+FFFD) and whole numbers past 2**53.
+_ASTRAL = re.compile("[\U00010000-\U0010ffff]")
 _NOT_XML = re.compile("[\ud800-\udfff\ufffe\uffff]")
 
 
@@ -77,7 +78,10 @@ def _renderer_safe(value):
     if isinstance(value, int) and not isinstance(value, bool) and abs(value) > 2**53:
         return float(value)
     if isinstance(value, str):
-        return _NOT_XML.sub("\ufffd", visible_text(value))
+        text = _NOT_XML.sub("\ufffd", visible_text(value))
+        # the renderer cuts long labels between UTF-16 code units and then fails on the half
+        # of a character beyond U+FFFF it made, so those characters are shown as codes here
+        return _ASTRAL.sub(lambda m: f"[U+{ord(m.group()):X}]", text)
     if isinstance(value, dict):
         return {_renderer_safe(k): _renderer_safe(v) for k, v in value.items()}
     if isinstance(value, list):

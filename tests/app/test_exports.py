@@ -75,3 +75,29 @@ def test_png_and_svg_exports_are_real_images():
 def test_file_stem_from_a_typed_title():
     assert exports.file_stem("Survival by arm <script>") == "survival-by-arm-script"
     assert exports.file_stem("***") == "hazel"
+
+
+def test_long_labels_with_characters_beyond_the_basic_plane_are_drawn():
+    """Issue 10 (the large fuzz run): the image renderer cuts a long legend or table label
+    between the two halves of a character beyond U+FFFF (an emoji, a rare script) and then
+    fails; such characters reach it as codes. Failed for 13 of 14 label lengths before."""
+    import numpy as np
+
+    from app.batch import curve_figure
+    from engine.analysis import ANALYSIS_DEFAULTS
+    from engine.checks import prepare
+    from engine.roles import Roles
+
+    rng = np.random.default_rng(0)
+    labels = ["ward 😀𴕳" * 20, "ward 😀𴕳" * 20 + "x", "b"]
+    frame = pd.DataFrame(
+        {
+            "t": rng.integers(1, 8, 30),
+            "e": rng.integers(0, 2, 30),
+            "g": [labels[i % 3] for i in range(30)],
+        }
+    )
+    prepared = prepare(frame, Roles(time="t", event="e", group="g"))
+    settings = {k: dict(ANALYSIS_DEFAULTS[k]) for k in ("curves", "comparison", "cox")}
+    svg = exports.figure_svg(curve_figure(prepared, settings))
+    assert svg.startswith("<svg") and "[U+1F600]" in svg
