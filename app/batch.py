@@ -436,10 +436,7 @@ def residual_figure(
     if not finite:
         return None
     worst = min(finite, key=lambda t: t.p_value)
-    table = residuals.to_frame()
-    points = table[["transformed_time", worst.variable]].rename(
-        columns={"transformed_time": "x", worst.variable: "residual"}
-    )
+    points = residuals.points(worst.variable)
     if len(points) > DOT_LIMIT:
         points = points.sample(DOT_LIMIT, random_state=0)
     labels = [t.label for t in result.design.terms]

@@ -220,8 +220,26 @@ def check_collinearity(design: Design, covariance: np.ndarray) -> list[str]:
             f"Covariate(s) {preview_values(constant)} take a single value among the rows used, so "
             "their effect cannot be estimated; remove them from the covariates."
         )
-    corr = covariance / np.outer(spread, spread)
-    eigenvalues, eigenvectors = np.linalg.eigh(corr)
+    huge = ~np.isfinite(spread) | ~np.isfinite(design.center)
+    with np.errstate(invalid="ignore", over="ignore"):
+        corr = covariance / np.outer(spread, spread)
+    huge |= ~np.all(np.isfinite(corr), axis=0)
+    if huge.any():
+        names = list(dict.fromkeys(design.terms[j].variable for j in np.flatnonzero(huge)))
+        largest = float(np.max(np.abs(design.matrix[:, huge])))
+        raise AnalysisError(
+            f"Covariate(s) {preview_values(names)} hold values too large to model (up to "
+            f"{largest:.3g}): their spread overflows. Rescale them (for example divide by a "
+            "power of ten) or check those values."
+        )
+    try:
+        eigenvalues, eigenvectors = np.linalg.eigh(corr)
+    except np.linalg.LinAlgError as exc:
+        raise AnalysisError(
+            f"The covariates {preview_values(list(design.variables), 8)} could not be checked "
+            "for collinearity (the computation did not converge); check them for extreme "
+            "values."
+        ) from exc
     if eigenvalues[0] < 1e-10 * max(eigenvalues[-1], 1.0):
         involved = np.abs(eigenvectors[:, 0]) > 1e-3
         names = list(dict.fromkeys(design.terms[j].label for j in np.flatnonzero(involved)))

@@ -74,9 +74,22 @@ class SchoenfeldResiduals:
 
     table: pd.DataFrame  # row (frame index), time, stratum, transformed_time, one column per term
     raw: np.ndarray  # unscaled residuals, events x terms
+    scaled: np.ndarray | None = None  # scaled residuals (beta(t)), events x terms
 
     def to_frame(self) -> pd.DataFrame:
         return self.table.copy()
+
+    def points(self, label: str) -> pd.DataFrame:
+        """``x`` (time on the check's scale) and ``residual`` (beta(t)) of one term, for its
+        plot: read by position, so a covariate named like a column here ("time") is no
+        trouble."""
+        labels = list(self.table.columns[4:])
+        return pd.DataFrame(
+            {
+                "x": self.table.iloc[:, 3].to_numpy(),
+                "residual": self.scaled[:, labels.index(label)],
+            }
+        )
 
     def to_dict(self) -> dict:
         clean = self.table.astype(object).where(self.table.notna(), None)
@@ -107,7 +120,7 @@ def schoenfeld_residuals(result: CoxResult, time_scale: str = "survival") -> Sch
     )
     labels = [t.label for t in result.design.terms]
     table = pd.concat([table, pd.DataFrame(scaled, columns=labels)], axis=1)
-    return SchoenfeldResiduals(table, raw)
+    return SchoenfeldResiduals(table, raw, scaled)
 
 
 @dataclass(frozen=True)
@@ -150,7 +163,7 @@ def proportional_hazards_test(
     module docstring)."""
     if residuals is None:
         residuals = schoenfeld_residuals(result, time_scale)
-    g = residuals.table["transformed_time"].to_numpy(dtype=float)
+    g = residuals.table.iloc[:, 3].to_numpy(dtype=float)  # transformed_time, by position
     g = g - g.mean()
     d = result.model.layout.n_events
     covariance = result.model.covariance

@@ -155,7 +155,11 @@ def _check_width(text: str, lines: list[str], sep: str | None, truncated: bool, 
             "separator."
         )
     if not truncated and len(lines) == 1:
-        shown = preview_values(next(csv.reader([header], delimiter=sep or ","), []))
+        try:
+            names = next(csv.reader([header], delimiter=sep or ","), [])
+        except csv.Error:  # a field over the csv module's limit (128 kB): split plainly
+            names = header.split(sep or ",")
+        shown = preview_values([n if len(n) <= 60 else n[:57] + "..." for n in names])
         raise FileReadError(
             f"{name} has a header ({shown}) but no data rows. Check that the file is complete, "
             "or pick another sheet."

@@ -347,9 +347,10 @@ with tabs[3], ui.guard("The proportional-hazards check"):
     term_labels = [t.label for t in result.design.terms]
     ui.remember_choice("model_ph_term", term_labels, term_labels[0])
     term = st.selectbox("Residuals of", term_labels, key="model_ph_term")
-    points = compute.sample_rows(residuals[["transformed_time", term]], DOT_LIMIT).rename(
-        columns={"transformed_time": "x", term: "residual"}
-    )
+    # by position (time on the check's scale, then one column per term in order), so that a
+    # covariate named like a column of the residual table ("time") cannot pick the wrong one
+    picked = residuals.iloc[:, [3, 4 + term_labels.index(term)]].set_axis(["x", "residual"], axis=1)
+    points = compute.sample_rows(picked, DOT_LIMIT)
     coefficient = result.terms[term_labels.index(term)].coef
     rstyle = ui.titled_style(
         style,

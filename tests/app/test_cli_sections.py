@@ -132,3 +132,26 @@ def test_a_closed_pipe_ends_quietly(tmp_path):
         err = process.stderr.read().decode()
         code = process.wait(timeout=120)
     assert code == 0 and "Traceback" not in err and "error" not in err
+
+
+def test_covariates_named_like_the_residual_table_columns_in_the_report(capsys, tmp_path):
+    """Found by the large fuzz run: a covariate named "transformed_time" (or "time") picked the
+    wrong column of the residual table and the report's residual figure failed."""
+    frame = _cohort(120).rename(columns={"x": "transformed_time", "age": "time"})
+    path = tmp_path / "names.csv"
+    frame.to_csv(path, index=False)
+    report = tmp_path / "names.html"
+    code, _, _ = _run_in_process(
+        capsys, "analyze", path, "--time", "t", "--event", "e",
+        "--covariates", "transformed_time,time", "--report", report,
+    )  # fmt: skip
+    assert code == 0 and "Scaled Schoenfeld residuals" in report.read_text(encoding="utf-8")
+
+
+def test_a_header_cell_over_the_csv_field_limit_is_a_clear_error(capsys, tmp_path):
+    """Found by the large fuzz run: a header-only file whose one field passes 128 kB raised the
+    csv module's own error."""
+    path = tmp_path / "wide_cell.csv"
+    path.write_text("t," + "x" * 200_000 + "\n", encoding="utf-8")
+    code, _, err = _run_in_process(capsys, "check", path, "--time", "t", "--event", "e")
+    assert code == 2 and "no data rows" in err

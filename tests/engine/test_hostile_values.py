@@ -288,3 +288,23 @@ def test_implausible_dates_warn_with_counts_or_are_excluded_when_chosen(tmp_path
 def test_the_implausible_dates_choice_round_trips_through_a_recipe_role_dict():
     roles = Roles(start="s", end="f", implausible_dates="exclude")
     assert Roles.from_dict(json.loads(json.dumps(roles.to_dict()))) == roles
+
+
+@pytest.mark.parametrize("huge", [1e160, 1e200, 1e308])
+def test_covariate_values_too_large_to_model_are_a_clear_error(huge):
+    """Found by the large fuzz run (issue 10): a covariate whose spread overflows made the
+    collinearity check raise numpy's LinAlgError ("Eigenvalues did not converge")."""
+    from engine.cox import fit_cox
+    from engine.errors import AnalysisError
+
+    rng = np.random.default_rng(1)
+    frame = pd.DataFrame(
+        {
+            "_time": rng.exponential(5, 50),
+            "_event": rng.integers(0, 2, 50),
+            "dose": np.r_[rng.normal(size=48), huge, -huge],
+            "z": rng.normal(size=50),
+        }
+    )
+    with pytest.raises(AnalysisError, match=r"'dose' hold values too large to model"):
+        fit_cox(frame, ["dose", "z"])
