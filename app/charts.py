@@ -206,7 +206,8 @@ def figure_text(text: str) -> str:
     characters cut, with a short fingerprint of the whole label so that two long labels that
     begin alike stay two (laying out a label costs the renderer time that grows faster than
     its length: a 10,000-character group label took 37 s to draw)."""
-    text = visible_text(text)
+    # a line break inside a tooltip title breaks the renderer's expression parser
+    text = visible_text(text).replace("\r\n", " ").replace("\n", " ").replace("\r", " ")
     if len(text) <= FIGURE_TEXT_LIMIT:
         return text
     digest = hashlib.sha256(text.encode("utf-8", "surrogatepass")).hexdigest()[:6]

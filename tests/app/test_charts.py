@@ -363,3 +363,16 @@ def _strings(value):
 def test_ticks_of_subnormal_times_are_the_ends():
     assert charts.nice_ticks(1e-323) == [0.0, 1e-323]
     assert charts.nice_ticks(5e-324) == [0.0, 5e-324]
+
+
+def test_a_line_break_in_a_label_does_not_break_the_image_export():
+    """Found by the large fuzz run (9 crashes in 1,500 cases): a categorical level "a\\nb" in the
+    residual plot's axis title reached a tooltip title, where the line break broke the
+    renderer's expression parser."""
+    points = pd.DataFrame({"x": [0.1, 0.5, 0.9], "residual": [0.2, -0.1, 0.3]})
+    chart = charts_models.residual_chart(
+        points, STYLE, x_title="Time", y_title="β(t) for c1: a\nb vs c", zero_line=0.1
+    )
+    spec = charts.finish(chart, STYLE)
+    assert not any("\n" in text for text in _strings(spec))
+    assert exports.figure_svg(spec).startswith("<svg")
