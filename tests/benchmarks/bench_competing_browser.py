@@ -4,7 +4,8 @@ measurement, not a test): ``.venv/bin/python tests/benchmarks/bench_competing_br
 Opens the Dairy herd demo, names the second cause, and times from the click to the moment the
 page shows the switched state: the "Show 1 − KM" toggle (the figure's caption changes), and the
 Fine–Gray cause (the predicted-incidence heading appears, the model's fit cached after its first
-time). Both blocks are fragments, so in the browser only they rerun.
+time), and the covariate of the predicted-incidence curves (the figure's drawing changes). Both
+blocks are fragments, so in the browser only they rerun.
 """
 
 from __future__ import annotations
@@ -25,6 +26,14 @@ from tests.app.browser import (  # noqa: E402
 )
 
 KM_CAPTION = "dotted: 1 − Kaplan–Meier"
+# the drawing of the page's last figure (the predicted-incidence curves, an SVG): it changes when
+# the figure is redrawn for another covariate
+LAST_FIGURE = (
+    "() => { const c = [...document.querySelectorAll("
+    "'[data-testid=\"stVegaLiteChart\"] svg.marks')].pop(); return c ? c.innerHTML : ''; }"
+)
+# the Dairy herd demo's covariates: switching between them redraws the curves each time
+PROFILES = ("farm", "first_calving_age_months")
 
 
 def timed(page, action, done) -> float:
@@ -54,12 +63,10 @@ def main() -> None:
             hidden = "() => !document.body.innerText.includes('Predicted cumulative incidence of')"
 
             def choose(value):
-                def act():
-                    cause.click()
-                    page.keyboard.type(value)
-                    page.keyboard.press("Enter")
-
-                return act
+                # open the list and filter it first: the clock runs from choosing the option
+                cause.click()
+                page.keyboard.type(value)
+                return lambda: page.keyboard.press("Enter")
 
             fine_gray = []
             for _ in range(3):
@@ -67,6 +74,22 @@ def main() -> None:
                 wait_until_idle(page)
                 fine_gray.append(timed(page, choose("(none)"), hidden))
                 wait_until_idle(page)
+            choose("died")()
+            page.wait_for_function(shown, timeout=60_000)
+            wait_until_idle(page)
+            profile = page.get_by_role("combobox", name="Curves for each level of")
+            remember = f"() => {{ window.__before = ({LAST_FIGURE})(); }}"
+            changed = f"() => ({LAST_FIGURE})() !== window.__before"
+
+            profiles = []
+            for _ in range(3):
+                for name in PROFILES:
+                    # open the list and filter it first: the clock runs from choosing the option
+                    page.evaluate(remember)
+                    profile.click()
+                    page.keyboard.type(name)
+                    profiles.append(timed(page, lambda: page.keyboard.press("Enter"), changed))
+                    wait_until_idle(page)
     finally:
         next(server, None)
     print("Competing risks page, Dairy herd demo, headless Chromium (click to switched state)")
@@ -74,6 +97,10 @@ def main() -> None:
         "  Show 1 − KM: " + ", ".join(f"{s:.2f}" for s in km) + f" s; median "
         f"{statistics.median(km):.2f} s"
     )
+    print(
+        "  predicted-incidence covariate: " + ", ".join(f"{s:.2f}" for s in profiles)
+        + f" s; median {statistics.median(profiles):.2f} s"
+    )  # fmt: skip
     print(
         "  Fine–Gray cause shown / not shown: " + ", ".join(f"{s:.2f}" for s in fine_gray)
         + f" s; median {statistics.median(fine_gray):.2f} s (the first includes the fit)"
