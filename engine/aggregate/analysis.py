@@ -81,12 +81,12 @@ def cox_from_data(data: AggregatedData, chosen: Mapping, *, drop_one: bool = Tru
     use_strata = strata is None and roles.strata is not None
     levels = {**dict(roles.reference), **{str(c): v for c, v in (chosen["reference"] or ())}}
     categorical = [c for c in covariates if data.kinds[c] == "categorical"]
-    design, rows, bounds = sql_design(
+    design, rows, bounds, not_estimable = sql_design(
         data,
         covariates,
         categorical=categorical,
         reference={c: levels[c] for c in covariates if c in levels} or None,
-        strata=use_strata,
+        strata=roles.strata if use_strata else None,
     )
     strata_keys = data.levels["_strata"].keys if use_strata else None
     source = SqlCoxSource(data, rows, bounds, strata_keys)
@@ -97,6 +97,8 @@ def cox_from_data(data: AggregatedData, chosen: Mapping, *, drop_one: bool = Tru
         confidence=chosen["confidence"],
         drop_one=drop_one,
         ph_time_scale=chosen["ph_time_scale"],
+        not_estimable=not_estimable,
+        strata=roles.strata if use_strata else None,
     )
     return result, ph, source
 
