@@ -252,13 +252,15 @@ def fit_cox(
     max_iterations: int = 50,
     clusters: str | None = None,
     variance: str = "auto",
+    strata_name: str | None = None,
 ) -> CoxResult:
     """Fit a Cox model by Newton–Raphson on the complete cases of the model's variables.
 
     ``variance``: "model" (inverse information), "robust" (the sandwich of Lin and Wei 1989,
     summed within the ``clusters`` column's values, or per row without one) or "auto": robust
     when the ``clusters`` column repeats a value among the rows used (several rows per subject:
-    episodes or recurrent events), else model-based.
+    episodes or recurrent events), else model-based. ``strata_name``: what the messages call
+    the strata (the user's column when ``strata`` is a working column).
     """
     if variance not in VARIANCES:
         raise AnalysisError(f"Variance {variance!r} is not known; use 'auto', 'model' or 'robust'.")
@@ -278,8 +280,9 @@ def fit_cox(
     codes, strata_levels = _strata_codes(frame, used, strata)
     not_estimable: tuple[str, ...] = ()
     if codes is not None:
+        strata_name = strata if strata_name is None else strata_name
         constant = within_strata_constant(design, codes)
-        design, not_estimable = drop_not_estimable(design, constant, strata)
+        design, not_estimable = drop_not_estimable(design, constant, strata_name)
     entry_values = None if entry is None else frame[entry].to_numpy(dtype=float)[used]
     if entry_values is not None and np.any(entry_values >= time):
         bad = np.flatnonzero(entry_values >= time)
@@ -305,7 +308,7 @@ def fit_cox(
     beta = fit.beta / scale
     covariance = cov_scaled / np.outer(scale, scale)
     events = int(event.sum())
-    warnings, finite_estimates = fit_warnings(design, fit, events, not_estimable, strata)
+    warnings, finite_estimates = fit_warnings(design, fit, events, not_estimable, strata_name)
     no_test = ChiSquareTest("model", float("nan"), p, float("nan"))
     cluster_codes = _cluster_codes(frame, used, clusters, variance)
     robust = None

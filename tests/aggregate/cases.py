@@ -82,3 +82,27 @@ def assert_same_json(a, b, *, rtol=1e-9, path="", skip=()):
         assert math.isclose(a, b, rel_tol=rtol, abs_tol=1e-12), (path, a, b)
     else:
         assert a == b, (path, a, b)
+
+
+def with_ward_terms(frame: pd.DataFrame) -> pd.DataFrame:
+    """``frame`` with a numeric and a categorical covariate that each take one value per ward
+    (the strata), so a stratified model cannot estimate them (with two wards they are
+    collinear, so each case uses one)."""
+    out = frame.copy()
+    out["ward_beds"] = out["ward"].map({"A": 12.0, "B": 30.0})
+    out["wing"] = out["ward"].map({"A": "left", "B": "right"})
+    return out
+
+
+# Terms constant within every stratum: left out with a warning; when all are, no model.
+NOT_ESTIMABLE_ROLES = Roles(
+    time="days",
+    event="status",
+    covariates=("age", "ward_beds", "stage"),
+    categorical=("stage",),
+    strata="ward",
+    entry="enrolled",
+)
+NONE_ESTIMABLE_ROLES = Roles(
+    time="days", event="status", covariates=("wing",), categorical=("wing",), strata="ward"
+)

@@ -11,7 +11,15 @@ from engine.aggregate.sql_checks import aggregate_checks
 from engine.analysis import run_analysis
 from engine.checks import prepare
 from engine.io import read_table
-from tests.aggregate.cases import ROLES, SETTINGS, assert_same_json, messy_frame
+from tests.aggregate.cases import (
+    NONE_ESTIMABLE_ROLES,
+    NOT_ESTIMABLE_ROLES,
+    ROLES,
+    SETTINGS,
+    assert_same_json,
+    messy_frame,
+    with_ward_terms,
+)
 
 # Harrell's C compares pairs of rows: from per-time sums it is reported as not computed.
 NOT_FROM_SUMS = (".cox.concordance", ".cox.concordance_se", ".cox.warnings")
@@ -60,3 +68,16 @@ def test_duckdb_equals_memory(files, kind):
     assert warnings[:-1] == memory["cox"]["warnings"]
     assert "Harrell's C was not computed" in warnings[-1]
     assert database["cox"]["concordance"] is None
+
+
+@pytest.mark.parametrize("roles", [NOT_ESTIMABLE_ROLES, NONE_ESTIMABLE_ROLES])
+def test_terms_constant_within_strata(tmp_path, roles):
+    path = tmp_path / "wards.parquet"
+    with_ward_terms(messy_frame(5, n=900)).to_parquet(path)
+    memory, database = both(path, roles)
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+    if roles is NONE_ESTIMABLE_ROLES:
+        assert "single value within each stratum" in memory["cox"]["not_computed"]
+    else:
+        assert memory["cox"]["not_estimable"] == ["ward_beds"]
+        assert database["cox"]["warnings"][:-1] == memory["cox"]["warnings"]

@@ -13,7 +13,15 @@ from engine.aggregate.sources import SourceError, open_postgres
 from engine.aggregate.sql_checks import aggregate_checks
 from engine.analysis import run_analysis
 from engine.checks import prepare
-from tests.aggregate.cases import ROLES, SETTINGS, assert_same_json, messy_frame
+from tests.aggregate.cases import (
+    NONE_ESTIMABLE_ROLES,
+    NOT_ESTIMABLE_ROLES,
+    ROLES,
+    SETTINGS,
+    assert_same_json,
+    messy_frame,
+    with_ward_terms,
+)
 from tests.aggregate.conftest import load_table
 from tests.aggregate.test_cli_backends import NOT_FROM_SUMS, ROLE_ARGS
 
@@ -80,3 +88,17 @@ def test_bad_database_input_exits_2(postgres_url, messy, capsys, extra, message)
 def test_unreachable_server_is_one_clear_error():
     with pytest.raises(SourceError, match="Could not connect"):
         open_postgres("postgresql://nobody@127.0.0.1:1/none", table="t")
+
+
+@pytest.mark.parametrize("roles", [NOT_ESTIMABLE_ROLES, NONE_ESTIMABLE_ROLES])
+def test_terms_constant_within_strata(postgres_url, roles):
+    frame = with_ward_terms(messy_frame(5, n=900))
+    load_table(postgres_url, "wards", frame)
+    memory = run_analysis(prepare(frame, roles), SETTINGS)
+    source = open_postgres(postgres_url, table="wards")
+    try:
+        database = run_aggregate_analysis(aggregate_checks(source, roles), SETTINGS)
+    finally:
+        source.close()
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+    assert ("not_computed" in memory["cox"]) == (roles is NONE_ESTIMABLE_ROLES)

@@ -13,7 +13,15 @@ from engine.aggregate.sources import SourceError, open_spark
 from engine.aggregate.sql_checks import aggregate_checks
 from engine.analysis import run_analysis
 from engine.checks import prepare
-from tests.aggregate.cases import ROLES, SETTINGS, assert_same_json, messy_frame
+from tests.aggregate.cases import (
+    NONE_ESTIMABLE_ROLES,
+    NOT_ESTIMABLE_ROLES,
+    ROLES,
+    SETTINGS,
+    assert_same_json,
+    messy_frame,
+    with_ward_terms,
+)
 from tests.aggregate.test_cli_backends import NOT_FROM_SUMS
 
 
@@ -52,3 +60,17 @@ def test_cli_spark_backend(spark_master, dataset, capsys):
 def test_missing_path_is_one_clear_error(spark_master, tmp_path):
     with pytest.raises(SourceError, match="does not exist"):
         open_spark(tmp_path / "nothing.parquet", master=spark_master)
+
+
+@pytest.mark.parametrize("roles", [NOT_ESTIMABLE_ROLES, NONE_ESTIMABLE_ROLES])
+def test_terms_constant_within_strata(spark_master, tmp_path, roles):
+    frame = with_ward_terms(messy_frame(5, n=600))
+    frame.to_parquet(tmp_path / "wards.parquet")
+    memory = run_analysis(prepare(frame, roles), SETTINGS)
+    source = open_spark(tmp_path / "wards.parquet", master=spark_master)
+    try:
+        database = run_aggregate_analysis(aggregate_checks(source, roles), SETTINGS)
+    finally:
+        source.close()
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+    assert ("not_computed" in memory["cox"]) == (roles is NONE_ESTIMABLE_ROLES)
