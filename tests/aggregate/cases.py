@@ -106,3 +106,63 @@ NOT_ESTIMABLE_ROLES = Roles(
 NONE_ESTIMABLE_ROLES = Roles(
     time="days", event="status", covariates=("wing",), categorical=("wing",), strata="ward"
 )
+
+
+def dated_frame(seed: int = 0, n: int = 800, *, text: bool = True) -> pd.DataFrame:
+    """Start and end dates (ISO text, or native timestamps with ``text=False``) with rows that
+    meet every date exclusion reason: missing, unparseable, implausible (before 1900 or in the
+    future) and end before start; the text kind adds times of day, offsets, fractions of a
+    second and placeholder years that only the Python date parser reads."""
+    rng = np.random.default_rng(seed)
+    start = np.datetime64("2015-01-01T00:00:00") + rng.integers(0, 5 * 365 * 86400, n).astype(
+        "timedelta64[s]"
+    )
+    length = np.ceil(rng.exponential(400, n)).astype("timedelta64[D]")
+    end = start + length
+    if not text:
+        end = end + rng.integers(0, 86400, n).astype("timedelta64[s]")
+    picks = rng.permutation(n)
+    frame = pd.DataFrame(
+        {
+            "start": pd.Series(start.astype("datetime64[ns]")),
+            "end": pd.Series(end.astype("datetime64[ns]")),
+            "status": rng.choice(["dead", "alive"], n, p=[0.6, 0.4]).astype(object),
+            "arm": rng.choice(["x", "y"], n).astype(object),
+            "age": np.round(rng.normal(60, 8, n), 1),
+        }
+    )
+    frame.loc[picks[:8], "start"] = pd.NaT  # missing time
+    frame.loc[picks[8:14], "start"] = pd.Timestamp("1899-03-04")  # implausible
+    frame.loc[picks[14:18], "end"] = pd.Timestamp("2199-07-01")  # implausible (future)
+    swap = picks[18:30]  # end before start
+    frame.loc[swap, ["start", "end"]] = frame.loc[swap, ["end", "start"]].to_numpy()
+    if not text:
+        return frame
+    days = frame["start"].dt.strftime("%Y-%m-%d").astype(object)
+    frame["start"] = days.where(frame["start"].notna(), None)
+    frame["end"] = frame["end"].dt.strftime("%Y-%m-%d %H:%M").astype(object)
+    odd = {
+        30: ("start", "not recorded"),  # unparseable
+        31: ("start", "2021-02-30"),  # unparseable (no such day)
+        32: ("end", "2019-13-01"),  # unparseable (no such month)
+        33: ("end", "2021-06-01T10:30:15"),
+        34: ("end", "2021-06-01 10:30:15.75"),  # fraction: the Python path
+        35: ("end", "2021-06-01T23:30:00+02:00"),  # offset: the Python path
+        36: ("start", "0001-01-01"),  # placeholder year: implausible
+        37: ("end", "9999-12-31"),  # placeholder year: implausible
+        38: ("start", " 2016-02-29 "),  # spaces; a leap day
+        39: ("end", "2020-01-05T24:00"),  # no such hour
+    }
+    for at, (column, value) in odd.items():
+        frame.loc[picks[at], column] = value
+    return frame
+
+
+DATE_ROLES = Roles(
+    start="start",
+    end="end",
+    event="status",
+    group="arm",
+    covariates=("age",),
+    unit="months",
+)
