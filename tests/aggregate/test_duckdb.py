@@ -14,7 +14,7 @@ from engine.aggregate.sources import open_duckdb
 from engine.aggregate.sql_checks import aggregate_checks
 from engine.analysis import run_analysis
 from engine.checks import prepare
-from engine.errors import SettingError
+from engine.errors import RoleError, SettingError
 from engine.io import read_table
 from tests.aggregate.cases import (
     DATE_ROLES,
@@ -182,3 +182,23 @@ def test_times_with_a_zone_are_read_as_utc(tmp_path):
     memory, database = both(path, DATE_ROLES)
     assert memory["data"] == database["data"]
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+
+
+def test_no_readable_date_is_memorys_error(tmp_path):
+    frame = pd.DataFrame(
+        {"start": "2019-01-01", "end": ["2021-02-30", "2021-02-31", "2021-04-31"] * 3}
+    )
+    frame["status"] = "dead"
+    path = tmp_path / "unreadable.parquet"
+    frame.to_parquet(path)
+    roles = replace(DATE_ROLES, group=None, covariates=())
+    with pytest.raises(RoleError) as in_memory:
+        prepare(read_table(path).frame, roles)
+    source = open_duckdb(path)
+    try:
+        with pytest.raises(RoleError) as in_sql:
+            aggregate_checks(source, roles)
+    finally:
+        source.close()
+    assert str(in_sql.value) == str(in_memory.value)
+    assert in_sql.value.column == "end"

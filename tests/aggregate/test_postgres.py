@@ -4,6 +4,7 @@ bad addresses, tables and queries exit 2 with one ``error:`` line."""
 from __future__ import annotations
 
 import json
+from dataclasses import replace
 
 import pytest
 
@@ -14,11 +15,13 @@ from engine.aggregate.sql_checks import aggregate_checks
 from engine.analysis import run_analysis
 from engine.checks import prepare
 from tests.aggregate.cases import (
+    DATE_ROLES,
     NONE_ESTIMABLE_ROLES,
     NOT_ESTIMABLE_ROLES,
     ROLES,
     SETTINGS,
     assert_same_json,
+    dated_frame,
     messy_frame,
     with_ward_terms,
 )
@@ -102,3 +105,24 @@ def test_terms_constant_within_strata(postgres_url, roles):
         source.close()
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)
     assert ("not_computed" in memory["cox"]) == (roles is NONE_ESTIMABLE_ROLES)
+
+
+@pytest.mark.parametrize("kind", ["iso-text", "native", "zoned"])
+def test_dates_equal_memory(postgres_url, kind):
+    frame = dated_frame(8, n=600, text=kind == "iso-text")
+    if kind == "zoned":
+        for column in ("start", "end"):
+            frame[column] = frame[column].dt.tz_localize(
+                "America/Sao_Paulo", ambiguous="NaT", nonexistent="NaT"
+            )
+    load_table(postgres_url, "dated", frame)
+    roles = replace(DATE_ROLES, implausible_dates="exclude" if kind == "native" else "warn")
+    memory = run_analysis(prepare(frame, roles), SETTINGS)
+    source = open_postgres(postgres_url, table="dated")
+    try:
+        database = run_aggregate_analysis(aggregate_checks(source, roles), SETTINGS)
+    finally:
+        source.close()
+    assert database["data"] == memory["data"]
+    assert "end before start" in {e["reason"] for e in memory["data"]["excluded"]}
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)

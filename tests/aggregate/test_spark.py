@@ -4,6 +4,7 @@ Parquet dataset: the data checks, curves, the comparison and the Cox model with 
 from __future__ import annotations
 
 import json
+from dataclasses import replace
 
 import pytest
 
@@ -14,11 +15,13 @@ from engine.aggregate.sql_checks import aggregate_checks
 from engine.analysis import run_analysis
 from engine.checks import prepare
 from tests.aggregate.cases import (
+    DATE_ROLES,
     NONE_ESTIMABLE_ROLES,
     NOT_ESTIMABLE_ROLES,
     ROLES,
     SETTINGS,
     assert_same_json,
+    dated_frame,
     messy_frame,
     with_ward_terms,
 )
@@ -74,3 +77,19 @@ def test_terms_constant_within_strata(spark_master, tmp_path, roles):
         source.close()
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)
     assert ("not_computed" in memory["cox"]) == (roles is NONE_ESTIMABLE_ROLES)
+
+
+@pytest.mark.parametrize("text", [True, False], ids=["iso-text", "native"])
+def test_dates_equal_memory(spark_master, tmp_path, text):
+    frame = dated_frame(11, n=500, text=text)
+    path = tmp_path / "dated.parquet"
+    frame.to_parquet(path, coerce_timestamps="us")  # Spark reads micro-, not nanoseconds
+    roles = replace(DATE_ROLES, unit="weeks", implausible_dates="exclude")
+    memory = run_analysis(prepare(frame, roles), SETTINGS)
+    source = open_spark(path, master=spark_master)
+    try:
+        database = run_aggregate_analysis(aggregate_checks(source, roles), SETTINGS)
+    finally:
+        source.close()
+    assert database["data"] == memory["data"]
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
