@@ -62,6 +62,17 @@ SETTINGS = {
 }
 
 
+def aggregate_json(source, roles: Roles, settings=SETTINGS) -> dict:
+    """``run_aggregate_analysis`` of ``roles`` on an open source, which is closed after."""
+    from engine.aggregate.analysis import run_aggregate_analysis
+    from engine.aggregate.sql_checks import aggregate_checks
+
+    try:
+        return run_aggregate_analysis(aggregate_checks(source, roles), settings)
+    finally:
+        source.close()
+
+
 def assert_same_json(a, b, *, rtol=1e-9, path="", skip=()):
     """Equal structures, numbers within ``rtol`` (None matches None only)."""
     if path in skip:

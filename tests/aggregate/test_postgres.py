@@ -9,9 +9,7 @@ from dataclasses import replace
 import pytest
 
 from app.cli import main
-from engine.aggregate.analysis import run_aggregate_analysis
 from engine.aggregate.sources import SourceError, open_postgres
-from engine.aggregate.sql_checks import aggregate_checks
 from engine.analysis import run_analysis
 from engine.checks import prepare
 from tests.aggregate.cases import (
@@ -20,6 +18,7 @@ from tests.aggregate.cases import (
     NOT_ESTIMABLE_ROLES,
     ROLES,
     SETTINGS,
+    aggregate_json,
     assert_same_json,
     dated_frame,
     messy_frame,
@@ -38,11 +37,7 @@ def messy(postgres_url):
 
 def test_postgres_equals_memory(postgres_url, messy):
     memory = run_analysis(prepare(messy, ROLES), SETTINGS)
-    source = open_postgres(postgres_url, table="messy")
-    try:
-        database = run_aggregate_analysis(aggregate_checks(source, ROLES), SETTINGS)
-    finally:
-        source.close()
+    database = aggregate_json(open_postgres(postgres_url, table="messy"), ROLES)
     assert database["data"] == memory["data"]
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)
 
@@ -98,11 +93,7 @@ def test_terms_constant_within_strata(postgres_url, roles):
     frame = with_ward_terms(messy_frame(5, n=900))
     load_table(postgres_url, "wards", frame)
     memory = run_analysis(prepare(frame, roles), SETTINGS)
-    source = open_postgres(postgres_url, table="wards")
-    try:
-        database = run_aggregate_analysis(aggregate_checks(source, roles), SETTINGS)
-    finally:
-        source.close()
+    database = aggregate_json(open_postgres(postgres_url, table="wards"), roles)
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)
     assert ("not_computed" in memory["cox"]) == (roles is NONE_ESTIMABLE_ROLES)
 
@@ -118,11 +109,7 @@ def test_dates_equal_memory(postgres_url, kind):
     load_table(postgres_url, "dated", frame)
     roles = replace(DATE_ROLES, implausible_dates="exclude" if kind == "native" else "warn")
     memory = run_analysis(prepare(frame, roles), SETTINGS)
-    source = open_postgres(postgres_url, table="dated")
-    try:
-        database = run_aggregate_analysis(aggregate_checks(source, roles), SETTINGS)
-    finally:
-        source.close()
+    database = aggregate_json(open_postgres(postgres_url, table="dated"), roles)
     assert database["data"] == memory["data"]
     assert "end before start" in {e["reason"] for e in memory["data"]["excluded"]}
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)

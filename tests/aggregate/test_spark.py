@@ -9,9 +9,7 @@ from dataclasses import replace
 import pytest
 
 from app.cli import main
-from engine.aggregate.analysis import run_aggregate_analysis
 from engine.aggregate.sources import SourceError, open_spark
-from engine.aggregate.sql_checks import aggregate_checks
 from engine.analysis import run_analysis
 from engine.checks import prepare
 from tests.aggregate.cases import (
@@ -20,6 +18,7 @@ from tests.aggregate.cases import (
     NOT_ESTIMABLE_ROLES,
     ROLES,
     SETTINGS,
+    aggregate_json,
     assert_same_json,
     dated_frame,
     messy_frame,
@@ -39,11 +38,7 @@ def dataset(tmp_path_factory):
 def test_spark_equals_memory(spark_master, dataset):
     path, frame = dataset
     memory = run_analysis(prepare(frame, ROLES), SETTINGS)
-    source = open_spark(path, master=spark_master)
-    try:
-        database = run_aggregate_analysis(aggregate_checks(source, ROLES), SETTINGS)
-    finally:
-        source.close()
+    database = aggregate_json(open_spark(path, master=spark_master), ROLES)
     assert database["data"] == memory["data"]
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)
 
@@ -70,11 +65,7 @@ def test_terms_constant_within_strata(spark_master, tmp_path, roles):
     frame = with_ward_terms(messy_frame(5, n=600))
     frame.to_parquet(tmp_path / "wards.parquet")
     memory = run_analysis(prepare(frame, roles), SETTINGS)
-    source = open_spark(tmp_path / "wards.parquet", master=spark_master)
-    try:
-        database = run_aggregate_analysis(aggregate_checks(source, roles), SETTINGS)
-    finally:
-        source.close()
+    database = aggregate_json(open_spark(tmp_path / "wards.parquet", master=spark_master), roles)
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)
     assert ("not_computed" in memory["cox"]) == (roles is NONE_ESTIMABLE_ROLES)
 
@@ -86,10 +77,6 @@ def test_dates_equal_memory(spark_master, tmp_path, text):
     frame.to_parquet(path, coerce_timestamps="us")  # Spark reads micro-, not nanoseconds
     roles = replace(DATE_ROLES, unit="weeks", implausible_dates="exclude")
     memory = run_analysis(prepare(frame, roles), SETTINGS)
-    source = open_spark(path, master=spark_master)
-    try:
-        database = run_aggregate_analysis(aggregate_checks(source, roles), SETTINGS)
-    finally:
-        source.close()
+    database = aggregate_json(open_spark(path, master=spark_master), roles)
     assert database["data"] == memory["data"]
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)
