@@ -97,9 +97,11 @@ DATE_REASONS = {"missing time", "unparseable date", "end before start"}
 @pytest.mark.parametrize(
     ("unit", "implausible"), [("months", "warn"), ("days", "exclude"), ("years", "warn")]
 )
-def test_dates_equal_memory(tmp_path, text, unit, implausible):
-    path = tmp_path / "dated.parquet"
-    dated_frame(4, text=text).to_parquet(path)
+@pytest.mark.parametrize("suffix", ["parquet", "csv"])
+def test_dates_equal_memory(tmp_path, text, unit, implausible, suffix):
+    path = tmp_path / f"dated.{suffix}"
+    frame = dated_frame(4, text=text)
+    frame.to_parquet(path) if suffix == "parquet" else frame.to_csv(path, index=False)
     roles = replace(DATE_ROLES, unit=unit, implausible_dates=implausible)
     memory, database = both(path, roles)
     assert memory["data"] == database["data"]
