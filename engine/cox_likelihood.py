@@ -241,7 +241,11 @@ def maximise(likelihood, p, *, start=None, max_iter=50, tol=1e-11, step_tol=1e-9
         step = _solve(terms.information, terms.score)
         candidate = likelihood(beta + step)
         halvings = 0
-        while (not np.isfinite(candidate.loglik) or candidate.loglik < terms.loglik - 1e-12) and (
+        # a drop within rounding is no drop: sums over 1e8 rows carry ~1e-8 of noise in the
+        # log-likelihood (a database adds them in no fixed order), which must not halve the
+        # last step thirty times
+        noise = 1e-12 * max(1.0, abs(terms.loglik))
+        while (not np.isfinite(candidate.loglik) or candidate.loglik < terms.loglik - noise) and (
             halvings < 30
         ):
             step = step / 2

@@ -39,6 +39,7 @@ class SqlSource:
     relation: str
     name: str
     connection: object = field(repr=False)
+    kept: list = field(default_factory=list, repr=False)  # Spark frames cached by materialize
 
     def query(self, sql: str) -> pd.DataFrame:
         try:
@@ -62,6 +63,29 @@ class SqlSource:
                 "or query and the column roles."
             ) from exc
 
+    def materialize(self, sql: str, name: str) -> str | None:
+        """Keep the (small) result of ``sql`` as a temporary table inside the backend and
+        return its name, or None where the session may not create one (PostgreSQL sessions
+        are read-only): the Cox model's passes then read the compressed cells instead of the
+        rows."""
+        try:
+            if self.backend == "duckdb":
+                self.connection.execute(f"CREATE OR REPLACE TEMP TABLE {name} AS {sql}")
+                return name
+            if self.backend == "spark":
+                frame = self.connection.sql(sql).cache()
+                frame.count()  # computed once, here
+                frame.createOrReplaceTempView(name)
+                self.kept.append(frame)
+                return name
+        except Exception as exc:  # the database's own message says what failed
+            message = " ".join(str(exc).split())
+            raise SourceError(
+                f"The {self.backend} backend could not keep the model's cells for {self.name}: "
+                f"{message}."
+            ) from exc
+        return None
+
     def sample(self) -> pd.DataFrame:
         """The first rows, for the column types and the examples in messages."""
         return self.query(f"SELECT * FROM {self.relation} LIMIT {SAMPLE_ROWS}")
@@ -69,6 +93,9 @@ class SqlSource:
     def close(self) -> None:
         if self.backend == "spark":  # the session lives on for the process (one per run)
             self.connection.catalog.dropTempView(self.relation)
+            for frame in self.kept:
+                frame.unpersist()
+            self.kept.clear()
             return
         self.connection.close()
 

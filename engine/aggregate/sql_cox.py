@@ -8,6 +8,7 @@ answers each Newton step with one GROUP BY over the checked rows.
 
 from __future__ import annotations
 
+import uuid
 from collections.abc import Sequence
 
 import numpy as np
@@ -169,7 +170,14 @@ def sql_design(
 
 
 class SqlCoxSource:
-    """Per-(stratum, time) sums at β by one GROUP BY over the model's rows in the database."""
+    """Per-(stratum, time) sums at β by one GROUP BY over the model's rows in the database.
+
+    Where the backend can keep a temporary table (DuckDB, Spark), the rows are first merged
+    into cells of identical (stratum, time, event, entry, design row) with their count ``_n``,
+    once; every Newton step then reads the cells, weighting each by its count, which is exact
+    (a cell of n identical rows adds n times the same terms). A registry's rows repeat a few
+    thousand days and a few covariate values, so the cells are far fewer than the rows.
+    """
 
     def __init__(self, data: AggregatedData, rows: str, bounds: np.ndarray, strata_labels):
         self.source, self.rows, self.bounds = data.source, rows, bounds
@@ -177,6 +185,19 @@ class SqlCoxSource:
         self.has_entry = "_entry" in rows
         self.strata_code = {k: i for i, k in enumerate(strata_labels or ())}
         self.passes = 0
+        keys = ["_s", "_time", "_event"] + (["_entry"] if self.has_entry else [])
+        keys += [f"z{i}" for i in range(self.n_columns)]
+        listed = ", ".join(keys)
+        merged = self.source.materialize(
+            f"SELECT {listed}, COUNT(*) AS _n FROM ({rows}) AS r GROUP BY {listed}",
+            # one table per model: several models may share a session
+            f"hazel_cox_cells_{uuid.uuid4().hex[:12]}",
+        )
+        self.cells = (
+            f"SELECT * FROM {merged}" if merged else f"SELECT *, 1 AS _n FROM ({rows}) AS r"
+        )
+        if merged:
+            self.passes += 1
 
     def _stratum_codes(self, keys: pd.Series) -> np.ndarray:
         if not self.strata_code:
@@ -192,12 +213,12 @@ class SqlCoxSource:
         shift = float(np.sum(np.maximum(beta * bounds[:, 0], beta * bounds[:, 1]))) if q else 0.0
         eta = " + ".join(f"{number(b)} * {c}" for b, c in zip(beta, z, strict=True)) or "0.0"
         weight = d.exp(f"{eta} - {number(shift)}")
-        inner = f"SELECT _s, _time, _event{', _entry' if self.has_entry else ''}"
-        inner += "".join(f", {c}" for c in z) + f", {weight} AS w FROM ({self.rows}) AS r"
+        inner = f"SELECT _s, _time, _event, _n{', _entry' if self.has_entry else ''}"
+        inner += "".join(f", {c}" for c in z) + f", {weight} AS w FROM ({self.cells}) AS r"
         total = d.total
 
         def block(prefix: str, mask: str) -> list[str]:
-            m = f"{mask} * " if mask else ""
+            m = f"_n * {mask} * " if mask else "_n * "
             out = [f"{total(m + 'w')} AS {prefix}0"]
             out += [f"{total(m + 'w * ' + c)} AS {prefix}1_{i}" for i, c in enumerate(z)]
             out += [
@@ -207,8 +228,8 @@ class SqlCoxSource:
             ]
             return out
 
-        parts = ["_s", "_time AS t", "COUNT(*) AS n", "SUM(_event) AS d"]
-        parts += [f"{total('_event * ' + c)} AS x{i}" for i, c in enumerate(z)]
+        parts = ["_s", "_time AS t", "SUM(_n) AS n", "SUM(_n * _event) AS d"]
+        parts += [f"{total('_n * _event * ' + c)} AS x{i}" for i, c in enumerate(z)]
         parts += block("s", "") + block("e", "_event")
         exits = self.source.query(
             f"SELECT {', '.join(parts)} FROM ({inner}) AS weighted GROUP BY 1, 2 ORDER BY 1, 2"
