@@ -35,16 +35,16 @@ def sql_design(
     covariates = list(dict.fromkeys(covariates))
     reference = dict(reference or {})
     categorical = set(categorical)
-    used = "_reason IS NULL"
     required = (["_strata"] if strata else []) + [cols[c] for c in covariates]
     names = (["_strata"] if strata else []) + covariates
+    cells = model_cells(data, required)
     missing = ", ".join(
-        f"SUM(CASE WHEN {c} IS NULL THEN 1 ELSE 0 END) AS m{i}" for i, c in enumerate(required)
+        f"SUM(CASE WHEN {c} IS NULL THEN _n ELSE 0 END) AS m{i}" for i, c in enumerate(required)
     )
     complete = " AND ".join(f"{c} IS NOT NULL" for c in required) or "TRUE"
     row = source.query(
-        f"SELECT {missing}, SUM(CASE WHEN {complete} THEN 1 ELSE 0 END) AS n "
-        f"FROM ({data.clean}) AS checked WHERE {used}"
+        f"SELECT {missing}, SUM(CASE WHEN {complete} THEN _n ELSE 0 END) AS n "
+        f"FROM ({cells}) AS cells"
     ).iloc[0]
     dropped = {n: int(row[f"m{i}"]) for i, n in enumerate(names) if int(row[f"m{i}"] or 0)}
     n_used = int(row["n"] or 0)
@@ -53,7 +53,7 @@ def sql_design(
             "No row has every model variable present (rows missing per variable: "
             f"{dropped}); remove the variable with most missing values or fill it in."
         )
-    model_rows = f"SELECT * FROM ({data.clean}) AS checked WHERE {used} AND {complete}"
+    model_rows = f"SELECT * FROM ({cells}) AS cells WHERE {complete}"
     terms: list[Term] = []
     columns: list[str] = []
     levels: dict = {}
@@ -66,9 +66,7 @@ def sql_design(
             columns.append(col)
             continue
         info = data.levels[column]
-        found = source.query(
-            f"SELECT {col} AS k, COUNT(*) AS n FROM ({model_rows}) AS m GROUP BY 1"
-        )
+        found = source.query(f"SELECT {col} AS k, SUM(_n) AS n FROM ({model_rows}) AS m GROUP BY 1")
         by_key = dict(zip(found["k"], found["n"].astype(int), strict=True))
         categories = [str(v) for v in info.labels]
         counts = {c: by_key.get(k, 0) for c, k in zip(categories, info.keys, strict=True)}
@@ -114,11 +112,11 @@ def sql_design(
             terms.append(Term(column, level, ref))
             columns.append(f"(CASE WHEN {col} = {literal(key_of[level])} THEN 1.0 ELSE 0.0 END)")
     p = len(columns)
-    sums = [f"SUM({c}) AS s{i}" for i, c in enumerate(columns)]
-    sums += [f"SUM({columns[i]} * {columns[j]}) AS p{i}_{j}" for i in range(p) for j in range(i, p)]
+    sums = [f"SUM(_n * {c}) AS s{i}" for i, c in enumerate(columns)]
+    sums += [
+        f"SUM(_n * {columns[i]} * {columns[j]}) AS p{i}_{j}" for i in range(p) for j in range(i, p)
+    ]
     sums += [f"MIN({c}) AS lo{i}, MAX({c}) AS hi{i}" for i, c in enumerate(columns)]
-    d = data.source.dialect
-    sums = [s.replace("SUM(", d.total("").rstrip(")"), 1) if False else s for s in sums]
     moments = source.query(f"SELECT {', '.join(sums)} FROM ({model_rows}) AS m").iloc[0]
     center = np.array([float(moments[f"s{i}"]) / n_used for i in range(p)])
     second = np.zeros((p, p))
@@ -163,41 +161,49 @@ def sql_design(
     entry = ", _entry" if "_entry" in data.clean else ""
     z = ", ".join(f"{c} AS z{i}" for i, c in enumerate(scaled))
     rows = (
-        f"SELECT {strata_column} AS _s, _time, _event{entry}{', ' + z if z else ''} "
+        f"SELECT {strata_column} AS _s, _time, _event{entry}{', ' + z if z else ''}, _n "
         f"FROM ({model_rows}) AS m"
     )
     return design, rows, bounds
 
 
+def model_cells(data: AggregatedData, columns: Sequence[str]) -> str:
+    """The SQL of the used rows merged into cells of identical (time, event, entry, model
+    columns) with their count ``_n``.
+
+    Where the backend can keep a temporary table (DuckDB, Spark) the merge runs once and
+    everything after it (missing values, level counts, moments, every Newton step) reads the
+    cells: a registry's rows repeat a few thousand days and a few covariate values, so the
+    cells are far fewer than the rows, and a cell of n identical rows adds n times the same
+    terms, so the sums are exact. Elsewhere (a read-only PostgreSQL session) each query reads
+    the checked rows, each a cell of one.
+    """
+    keys = ["_time", "_event"] + (["_entry"] if "_entry" in data.clean else [])
+    keys += list(dict.fromkeys(columns))
+    listed = ", ".join(keys)
+    rows = f"SELECT {listed} FROM ({data.clean}) AS checked WHERE _reason IS NULL"
+    merged = data.source.materialize(
+        f"SELECT {listed}, COUNT(*) AS _n FROM ({rows}) AS r GROUP BY {listed}",
+        f"hazel_model_cells_{uuid.uuid4().hex[:12]}",  # one per model: a session may hold more
+    )
+    return f"SELECT * FROM {merged}" if merged else f"SELECT {listed}, 1 AS _n FROM ({rows}) AS r"
+
+
 class SqlCoxSource:
     """Per-(stratum, time) sums at β by one GROUP BY over the model's rows in the database.
 
-    Where the backend can keep a temporary table (DuckDB, Spark), the rows are first merged
-    into cells of identical (stratum, time, event, entry, design row) with their count ``_n``,
-    once; every Newton step then reads the cells, weighting each by its count, which is exact
-    (a cell of n identical rows adds n times the same terms). A registry's rows repeat a few
-    thousand days and a few covariate values, so the cells are far fewer than the rows.
+    The rows are the model's cells (``model_cells``), each weighted by its count ``_n``; where
+    the backend keeps tables, their scaled design columns are computed once, not every step.
     """
 
     def __init__(self, data: AggregatedData, rows: str, bounds: np.ndarray, strata_labels):
+        self.has_entry = "_entry" in rows
+        kept = data.source.materialize(rows, f"hazel_model_design_{uuid.uuid4().hex[:12]}")
+        rows = f"SELECT * FROM {kept}" if kept else rows
         self.source, self.rows, self.bounds = data.source, rows, bounds
         self.n_columns = len(bounds)
-        self.has_entry = "_entry" in rows
         self.strata_code = {k: i for i, k in enumerate(strata_labels or ())}
         self.passes = 0
-        keys = ["_s", "_time", "_event"] + (["_entry"] if self.has_entry else [])
-        keys += [f"z{i}" for i in range(self.n_columns)]
-        listed = ", ".join(keys)
-        merged = self.source.materialize(
-            f"SELECT {listed}, COUNT(*) AS _n FROM ({rows}) AS r GROUP BY {listed}",
-            # one table per model: several models may share a session
-            f"hazel_cox_cells_{uuid.uuid4().hex[:12]}",
-        )
-        self.cells = (
-            f"SELECT * FROM {merged}" if merged else f"SELECT *, 1 AS _n FROM ({rows}) AS r"
-        )
-        if merged:
-            self.passes += 1
 
     def _stratum_codes(self, keys: pd.Series) -> np.ndarray:
         if not self.strata_code:
@@ -214,7 +220,7 @@ class SqlCoxSource:
         eta = " + ".join(f"{number(b)} * {c}" for b, c in zip(beta, z, strict=True)) or "0.0"
         weight = d.exp(f"{eta} - {number(shift)}")
         inner = f"SELECT _s, _time, _event, _n{', _entry' if self.has_entry else ''}"
-        inner += "".join(f", {c}" for c in z) + f", {weight} AS w FROM ({self.cells}) AS r"
+        inner += "".join(f", {c}" for c in z) + f", {weight} AS w FROM ({self.rows}) AS r"
         total = d.total
 
         def block(prefix: str, mask: str) -> list[str]:
