@@ -94,7 +94,7 @@ def computed_with(source) -> dict:
 
 def refuse_row_options(args: argparse.Namespace, backend: str) -> None:
     """Options that need the rows in memory, refused with the reason."""
-    for option, name in (("recipe", "--recipe"), ("report", "--report"), ("filter", "--filter")):
+    for option, name in (("filter", "--filter"),):
         if getattr(args, option, None):
             raise BackendUsageError(
                 f"{name} is not available with the {backend} backend yet (it needs the rows in "

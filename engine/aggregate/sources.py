@@ -40,6 +40,7 @@ class SqlSource:
     name: str
     connection: object = field(repr=False)
     kept: list = field(default_factory=list, repr=False)  # Spark frames cached by materialize
+    path: Path | None = None  # the file or folder read (none for a database)
 
     def query(self, sql: str) -> pd.DataFrame:
         try:
@@ -142,7 +143,41 @@ def open_duckdb(path: str | Path, *, sep: str | None = None, decimal: str | None
         "temp_directory": str(Path(tempfile.gettempdir()) / "hazel-duckdb"),
     }
     connection = duckdb.connect(":memory:", config=config)
-    return SqlSource("duckdb", duckdb.__version__, DUCKDB, relation, path.name, connection)
+    return SqlSource(
+        "duckdb", duckdb.__version__, DUCKDB, relation, path.name, connection, path=path
+    )
+
+
+def content_sha256(path: Path) -> str:
+    """SHA-256 of a file, or of a folder's files (each relative name and content, in sorted
+    order), read in chunks: the fingerprint a recipe and a report record."""
+    import hashlib
+
+    digest = hashlib.sha256()
+    files = [path] if path.is_file() else sorted(p for p in path.rglob("*") if p.is_file())
+    for file in files:
+        if file != path:
+            digest.update(str(file.relative_to(path)).encode() + b"\0")
+        with file.open("rb") as handle:
+            while chunk := handle.read(1 << 22):
+                digest.update(chunk)
+    return digest.hexdigest()
+
+
+def source_fingerprint(source: SqlSource, rows_read: int):
+    """The ``DataFingerprint`` of rows aggregated where they are: a file's or folder's SHA-256,
+    or none for a database (its rows are not read here), with the source's name (never a
+    user name or password), rows, columns and backend."""
+    from engine.recipe import DataFingerprint
+
+    columns = tuple(str(c) for c in source.query(f"SELECT * FROM {source.relation} LIMIT 0"))
+    return DataFingerprint(
+        sha256=content_sha256(source.path) if source.path is not None else "",
+        rows=int(rows_read),
+        columns=columns,
+        file_name=source.name,
+        backend=source.backend,
+    )
 
 
 def _csv_relation(path: Path, sep: str | None, decimal: str | None) -> str:
@@ -267,4 +302,4 @@ def open_spark(path: str | Path, *, master: str = "local[*]") -> SqlSource:
     except Exception as exc:
         message = " ".join(str(exc).split())[:300]
         raise SourceError(f"Spark could not read {path.name!r}: {message}") from exc
-    return SqlSource("spark", session.version, SPARK, SPARK_VIEW, path.name, session)
+    return SqlSource("spark", session.version, SPARK, SPARK_VIEW, path.name, session, path=path)

@@ -64,7 +64,6 @@ def test_text_output_names_the_backend(data, capsys):
     [
         (["--backend", "memory", "--query", "SELECT 1"], "need DATA to be a database address"),
         (["--table", "t"], "need DATA to be a database address"),
-        (["--backend", "duckdb", "--report", "x.html"], "--report is not available"),
         (["--backend", "duckdb", "--filter", "age:at_least:50"], "--filter is not available"),
         (["--backend", "duckdb", "--id", "ward"], "'ward'"),
         (["--backend", "duckdb", "--competing", "alive=other"], "named competing causes"),

@@ -2,7 +2,7 @@
 
 Builds (once, in /tmp unless --path is given) an invented Parquet file of N rows with 4 columns:
 ``days`` (whole days, ~3,650 distinct), ``died`` (0/1), ``arm`` (control / treated) and ``age``
-(one decimal). Then measures, in the same run:
+(one decimal, or whole years with ``--age-decimals 0``). Then measures, in the same run:
 
 - one DuckDB pass ``SELECT arm, days, died, COUNT(*) ... GROUP BY`` over the file (the baseline);
 - ``python -m app analyze FILE --backend duckdb`` with the group ``arm`` and a 2-term Cox model
