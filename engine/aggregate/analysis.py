@@ -1,7 +1,7 @@
 """`run_analysis` for data that stay in a database: the same sections from per-time sums.
 
 Sections that need the rows themselves (a comparison cut at a column's quantiles, strata from a
-column without a role, competing risks, parametric and landmark analyses, Harrell's C) say so in
+column without a role, parametric and landmark analyses, Harrell's C) say so in
 one sentence as ``{"not_computed": reason}`` instead of silently changing meaning.
 """
 
@@ -26,7 +26,6 @@ from engine.summary import COMPARISON_KEYS, curve_set_json
 
 SAMPLE_HINT = "; run it with --backend memory on the rows (or on a random sample of them)."
 NEEDS_ROWS = {
-    "competing": "Competing-risk incidence is not yet computed from per-time sums",
     "parametric": "Parametric fits need the rows, which stay in the database",
     "landmark": "A landmark analysis is not yet computed from per-time sums",
     "performance": "Prediction performance needs each row's risk score",
@@ -151,7 +150,15 @@ def run_aggregate_analysis(data: AggregatedData, settings: Mapping | None = None
     for name in chosen:
         if name in CORE_ANALYSES:
             continue
-        if name == "sample_size":
+        if name == "competing":
+            from engine.aggregate.competing import competing_from_data
+
+            sections[name] = computed(
+                competing_from_data,
+                data,
+                {**chosen[name], "confidence": curves["confidence"], "ties": cox["ties"]},
+            )
+        elif name == "sample_size":
             from engine.analysis_extra import sample_size_section
 
             sections[name] = computed(

@@ -27,9 +27,11 @@ def sql_design(
     categorical: Sequence[str] = (),
     reference=None,
     strata: bool = False,
+    event: str = "_event",
 ) -> tuple[Design, str, list[str]]:
     """The design, the SQL of the model's rows (``_s``, ``_time``, ``_event``, ``_entry`` and
-    the scaled columns ``z0``, ``z1``, ...) and the SQL of the unscaled columns."""
+    the scaled columns ``z0``, ``z1``, ...) and the SQL of the unscaled columns. ``event`` is
+    the SQL of the event (1) or not (0): a cause-specific model's cause."""
     source, cols = data.source, data.covariate_columns
     covariates = list(dict.fromkeys(covariates))
     reference = dict(reference or {})
@@ -162,7 +164,7 @@ def sql_design(
     entry = ", _entry" if "_entry" in data.clean else ""
     z = ", ".join(f"{c} AS z{i}" for i, c in enumerate(scaled))
     rows = (
-        f"SELECT {strata_column} AS _s, _time, _event{entry}{', ' + z if z else ''} "
+        f"SELECT {strata_column} AS _s, _time, {event} AS _event{entry}{', ' + z if z else ''} "
         f"FROM ({model_rows}) AS m"
     )
     return design, rows, bounds
