@@ -22,6 +22,7 @@ from engine.analysis import (
 )
 from engine.cox import cox_json
 from engine.errors import RoleError
+from engine.json_values import json_float
 from engine.summary import COMPARISON_KEYS, curve_set_json
 
 SAMPLE_HINT = "; run it with --backend memory on the rows (or on a random sample of them)."
@@ -96,6 +97,7 @@ def cox_from_data(data: AggregatedData, chosen: Mapping, *, drop_one: bool = Tru
         confidence=chosen["confidence"],
         drop_one=drop_one,
         ph_time_scale=chosen["ph_time_scale"],
+        concordance=source.concordance,
     )
     return result, ph, source
 
@@ -114,6 +116,7 @@ def cox_section(data: AggregatedData, cox: Mapping) -> dict:
         )
     result, ph, _ = cox_from_data(data, cox)
     section = {**cox_json(result), "ph_check": ph} if is_not_computed(ph) else cox_json(result, ph)
+    section = with_error_bound(section, result.concordance)
     section["splines"] = (
         not_computed("Splines are not yet computed from per-time sums" + SAMPLE_HINT)
         if cox.get("splines")
@@ -125,6 +128,17 @@ def cox_section(data: AggregatedData, cox: Mapping) -> dict:
         else None
     )
     return section
+
+
+def with_error_bound(section: dict, concordance) -> dict:
+    """The section with ``concordance_error_bound`` after ``concordance_se``: how far the C of
+    score bins can be from the exact C (0 when each distinct score is its own bin)."""
+    out = {}
+    for key, value in section.items():
+        out[key] = value
+        if key == "concordance_se":
+            out["concordance_error_bound"] = json_float(concordance.error_bound)
+    return out
 
 
 def run_aggregate_analysis(data: AggregatedData, settings: Mapping | None = None) -> dict:

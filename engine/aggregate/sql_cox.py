@@ -13,11 +13,16 @@ from collections.abc import Sequence
 import numpy as np
 import pandas as pd
 
+from engine.aggregate.concordance_counts import BinnedConcordance, concordance_from_counts
 from engine.aggregate.cox_sums import CoxSums
 from engine.aggregate.sql import literal, number
 from engine.aggregate.sql_checks import AggregatedData
 from engine.cox_design import SMALL_LEVEL_ROWS, Design, Term, check_collinearity
 from engine.errors import AnalysisError, preview_values
+
+# Score bins for Harrell's C: with 1,000 equal-width bins the invented test data agree with the
+# exact C to about 1e-6 (tests/aggregate); the error bound is reported with each estimate.
+CONCORDANCE_BINS = 1000
 
 
 def sql_design(
@@ -259,6 +264,72 @@ class SqlCoxSource:
             shift,
             **extra,
         )
+
+    def concordance(self, beta: np.ndarray, bins: int = CONCORDANCE_BINS) -> BinnedConcordance:
+        """Harrell's C of the linear predictor at ``beta`` (on the scaled design): each
+        distinct score its own bin when there are at most ``bins`` of them, otherwise ``bins``
+        equal-width bins between the smallest and largest score; one pass for the bins (two
+        with delayed entry) besides the range."""
+        z = [f"z{i}" for i in range(self.n_columns)]
+        eta = " + ".join(f"{number(b)} * {c}" for b, c in zip(beta, z, strict=True)) or "0.0"
+        scored = f"SELECT _s, _time, _event{', _entry' if self.has_entry else ''}, "
+        scored += f"{eta} AS eta FROM ({self.rows}) AS r"
+        distinct = self.source.query(
+            f"SELECT COUNT(*) AS n FROM (SELECT DISTINCT eta FROM ({scored}) AS s "
+            f"LIMIT {bins + 1}) AS v"
+        )
+        exact = int(distinct["n"].iloc[0]) <= bins
+        if exact:
+            key = "eta"
+        else:
+            span = self.source.query(f"SELECT MIN(eta) AS lo, MAX(eta) AS hi FROM ({scored}) s")
+            lo, hi = float(span["lo"].iloc[0]), float(span["hi"].iloc[0])
+            width = number(bins / (hi - lo))
+            key = f"LEAST(CAST(FLOOR((eta - {number(lo)}) * {width}) AS BIGINT), {bins - 1})"
+        exits = self.source.query(
+            f"SELECT _s, {key} AS b, _time AS t, _event AS e, COUNT(*) AS n FROM ({scored}) AS s "
+            "GROUP BY 1, 2, 3, 4"
+        )
+        self.passes += 1
+        entries = None
+        if self.has_entry:
+            entries = self.source.query(
+                f"SELECT _s, {key} AS b, _entry AS t, COUNT(*) AS n FROM ({scored}) AS s "
+                "GROUP BY 1, 2, 3"
+            )
+            self.passes += 1
+        if exact:
+            scores = np.unique(exits["b"].to_numpy(float))
+            n_bins = len(scores)
+
+            def coded(frame):
+                return np.searchsorted(scores, frame["b"].to_numpy(float))
+        else:
+            n_bins = bins
+
+            def coded(frame):
+                return frame["b"].to_numpy(np.int64)
+
+        exit_cells = pd.DataFrame(
+            {
+                "stratum": self._stratum_codes(exits["_s"]),
+                "bin": coded(exits),
+                "time": exits["t"].to_numpy(float),
+                "event": exits["e"].to_numpy(np.int64),
+                "rows": exits["n"].to_numpy(np.int64),
+            }
+        )
+        entry_cells = None
+        if entries is not None:
+            entry_cells = pd.DataFrame(
+                {
+                    "stratum": self._stratum_codes(entries["_s"]),
+                    "bin": coded(entries),
+                    "entry": entries["t"].to_numpy(float),
+                    "rows": entries["n"].to_numpy(np.int64),
+                }
+            )
+        return concordance_from_counts(exit_cells, entry_cells, n_bins, exact=exact)
 
 
 def _block(frame: pd.DataFrame, prefix: str, q: int):
