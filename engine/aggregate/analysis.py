@@ -64,10 +64,17 @@ def comparison_from_data(data: AggregatedData, chosen: Mapping) -> dict | None:
     return {k: result[k] for k in COMPARISON_KEYS}
 
 
-def cox_from_data(data: AggregatedData, chosen: Mapping, *, drop_one: bool = True):
+def cox_from_data(
+    data: AggregatedData,
+    chosen: Mapping,
+    *,
+    drop_one: bool = True,
+    event: str = "_event",
+    concordance: bool = True,
+):
     """The Cox model of the roles (or the settings' variant of it) from per-time sums; the
     ``CoxResult``, its PH test (or ``{"not_computed": reason}``) and the SQL source (which
-    counts its passes)."""
+    counts its passes). ``event``: the SQL of the event (a cause-specific model's cause)."""
     roles = data.roles
     covariates = list(roles.covariates) if chosen["covariates"] is None else chosen["covariates"]
     outside = [c for c in covariates if c not in roles.covariates]
@@ -87,6 +94,7 @@ def cox_from_data(data: AggregatedData, chosen: Mapping, *, drop_one: bool = Tru
         categorical=categorical,
         reference={c: levels[c] for c in covariates if c in levels} or None,
         strata=use_strata,
+        event=event,
     )
     strata_keys = data.levels["_strata"].keys if use_strata else None
     source = SqlCoxSource(data, rows, bounds, strata_keys)
@@ -97,7 +105,7 @@ def cox_from_data(data: AggregatedData, chosen: Mapping, *, drop_one: bool = Tru
         confidence=chosen["confidence"],
         drop_one=drop_one,
         ph_time_scale=chosen["ph_time_scale"],
-        concordance=source.concordance,
+        concordance=source.concordance if concordance else None,
     )
     return result, ph, source
 

@@ -130,28 +130,20 @@ def gray_tests_from_counts(counts: CountTable) -> tuple[GrayTest, ...] | None:
 def cause_specific_from_data(data: AggregatedData, chosen: Mapping) -> list[dict]:
     """A Cox model per cause on the roles' covariates from per-time sums (other causes
     censored; not stratified, as in memory)."""
-    from engine.aggregate.cox_fit import fit_cox_from_sums
-    from engine.aggregate.sql_cox import SqlCoxSource, sql_design
+    from engine.aggregate.analysis import cox_from_data
 
-    roles = data.roles
-    covariates = list(roles.covariates)
-    categorical = [c for c in covariates if data.kinds[c] == "categorical"]
-    reference = {c: v for c, v in roles.reference if c in covariates} or None
+    model = {
+        "covariates": None,
+        "strata": False,
+        "reference": None,
+        "ties": chosen["ties"],
+        "confidence": chosen["confidence"],
+        "ph_time_scale": None,
+    }
     out = []
     for cause in data.counts.causes:
         event = f"(CASE WHEN _cause = {literal(cause)} THEN 1 ELSE 0 END)"
-        design, rows, bounds = sql_design(
-            data, covariates, categorical=categorical, reference=reference, event=event
-        )
-        source = SqlCoxSource(data, rows, bounds, None)
-        result, _ = fit_cox_from_sums(
-            source,
-            design,
-            ties=chosen["ties"],
-            confidence=chosen["confidence"],
-            drop_one=False,
-            ph_time_scale=None,
-        )
+        result, _, _ = cox_from_data(data, model, drop_one=False, event=event, concordance=False)
         terms = result.to_dict()["terms"]
         out.append({"cause": cause, "n": result.n, "events": result.events, "terms": terms})
     return out

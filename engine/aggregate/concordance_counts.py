@@ -23,12 +23,12 @@ each for 1,000 times and 1,000 bins); the partner counts go through it in blocks
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass
 
 import numpy as np
 import pandas as pd
 
-from engine.concordance import ConcordanceResult
+from engine.concordance import ConcordanceResult, concordance_result
 from engine.errors import AnalysisError
 from engine.json_values import json_float
 
@@ -77,14 +77,9 @@ def concordance_from_counts(
     if entries is None:
         rows, c_i, p_i = (np.concatenate([p[i] for p in cells]) for i in range(3))
         se = float(np.sqrt(np.sum(rows * (c_i - c * p_i) ** 2)) / comparable)
-    strict = concordant - same / 2
+    base = concordance_result(concordant, comparable, same, se)
     return BinnedConcordance(
-        concordance=float(c),
-        standard_error=se,
-        concordant=float(strict),
-        discordant=float(comparable - strict - same),
-        tied_score=float(same),
-        comparable=float(comparable),
+        **asdict(base),
         bins=None if exact else int(n_bins),
         same_bin=float(same),
         error_bound=0.0 if exact else float(same / (2 * comparable)),

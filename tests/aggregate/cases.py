@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 import pandas as pd
@@ -105,15 +106,8 @@ def competing_frame(seed: int = 0, n: int = 1500, *, continuous: bool = False) -
     return frame
 
 
-COMPETING_ROLES = Roles(
-    time="days",
-    event="status",
-    group="site",
-    covariates=("age", "stage"),
-    categorical=("stage",),
-    strata="ward",
-    entry="enrolled",
-    event_causes=(("dead", "death"), ("relapse", "relapse"), ("moved", "moved")),
+COMPETING_ROLES = replace(
+    ROLES, event_causes=(("dead", "death"), ("relapse", "relapse"), ("moved", "moved"))
 )
 
 COMPETING_SETTINGS = {
