@@ -1,8 +1,9 @@
 """`run_analysis` for data that stay in a database: the same sections from per-time sums.
 
 Sections that need the rows themselves (a comparison cut at a column's quantiles, strata from a
-column without a role, parametric and landmark analyses, Harrell's C) say so in
-one sentence as ``{"not_computed": reason}`` instead of silently changing meaning.
+column without a role, parametric and landmark analyses, the Fine–Gray model) say so in one
+sentence as ``{"not_computed": reason}`` instead of silently changing meaning. Harrell's C comes
+from score bins, with the bound on its error beside it (``concordance_counts``).
 """
 
 from __future__ import annotations

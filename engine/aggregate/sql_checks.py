@@ -1,12 +1,13 @@
 """The data checks of ``engine.checks.prepare`` run inside a database, with the same rules,
 reasons and texts: rows read, used and excluded per reason (the first reason a row meets),
 the event coding from the event column's value counts, levels in natural order with the most
-frequent as reference, and the warnings on the rows used. Roles whose checks are so far written
-only for rows in memory (start and end dates, an id column's episodes, named competing causes)
-are refused with a ``SettingError`` naming the column.
+frequent as reference, and the warnings on the rows used. Named causes are
+mapped as ``checks._event_codes`` maps them (``_cause``). Roles whose checks are so far written
+only for rows in memory (start and end dates, an id column's episodes) are refused with a
+``SettingError`` naming the column.
 
 Nothing but small tables comes back: value counts of the coded columns, a few totals, and the
-counts per (reason, group, stratum, time, event) and per (group, stratum, entry time).
+counts per (reason, group, stratum, time, event, cause) and per (group, stratum, entry time).
 The SQL of the checked rows (``AggregatedData.clean``) is what the Cox sums then read.
 """
 

@@ -21,7 +21,8 @@ from engine.cox_design import SMALL_LEVEL_ROWS, Design, Term, check_collinearity
 from engine.errors import AnalysisError, preview_values
 
 # Score bins for Harrell's C: with 1,000 equal-width bins the invented test data agree with the
-# exact C to about 1e-6 (tests/aggregate); the error bound is reported with each estimate.
+# exact C within 5e-6 (tests/aggregate/test_competing.py, bound about 1e-3); the bound is
+# reported with each estimate.
 CONCORDANCE_BINS = 1000
 
 
