@@ -16,9 +16,8 @@ The standard error (``harrell_c``'s delta-method one) needs each row's own pair 
 delayed entry every row of a cell has the same, so it is computed here; with delayed entry a
 row's counts depend on its entry time as well, and it is not computed (NaN).
 
-The work is dense in (distinct time x bin) per stratum: a few arrays of 8 bytes per cell (8 MB
-each for 1,000 times and 1,000 bins); the partner counts go through it in blocks of times
-(``BLOCK_CELLS``).
+The work is dense in (distinct time x bin) per stratum, in blocks of times of ``BLOCK_CELLS``
+cells at most: memory stays near a few such blocks (16 MB each), time grows with times x bins.
 """
 
 from __future__ import annotations
@@ -87,60 +86,90 @@ def concordance_from_counts(
 
 
 def _stratum_pairs(ex: pd.DataFrame, en: pd.DataFrame | None, n_bins: int):
+    """Pair totals (comparable, concordant, same bin) of one stratum and, without entry times,
+    each cell's rows, c_i and p_i. Blocks of times are swept from the last time back (the
+    partners of each event: later exits, censored at its time, less those not yet entered)
+    and, for the standard error, from the first forward (the earlier events of each row)."""
     times, t_index = np.unique(ex["time"].to_numpy(float), return_inverse=True)
     m = len(times)
-    b = ex["bin"].to_numpy(np.int64)
-    rows = ex["rows"].to_numpy(float)
-    event = ex["event"].to_numpy() == 1
-    flat = t_index * n_bins + b
-
-    def dense(keys, weights, size):
-        return np.bincount(keys, weights, size)
-
-    exits_all = dense(flat, rows, m * n_bins).reshape(m, n_bins)
-    events = dense(flat[event], rows[event], m * n_bins).reshape(m, n_bins)
-    censored = exits_all - events
+    order = np.argsort(t_index, kind="stable")
+    t_index = t_index[order]
+    b = ex["bin"].to_numpy(np.int64)[order]
+    rows = ex["rows"].to_numpy(float)[order]
+    event = ex["event"].to_numpy()[order] == 1
     if en is not None:
         # rows entering at or after times[i] are not at risk there: k = number of times <= entry
         k = np.searchsorted(times, en["entry"].to_numpy(float), side="right")
-        entry_flat = k * n_bins + en["bin"].to_numpy(np.int64)
-        entered = dense(entry_flat, en["rows"].to_numpy(float), (m + 1) * n_bins)
-        entered = entered.reshape(m + 1, n_bins)
+        k_order = np.argsort(k, kind="stable")
+        k, k_bin = k[k_order], en["bin"].to_numpy(np.int64)[k_order]
+        k_rows = en["rows"].to_numpy(float)[k_order]
     step = max(1, BLOCK_CELLS // max(n_bins, 1))
+
+    def block(lo, hi):
+        """Dense exits and events of times lo..hi-1 and the cells in them."""
+        first, last = np.searchsorted(t_index, [lo, hi])
+        cells = slice(first, last)
+        flat = (t_index[cells] - lo) * n_bins + b[cells]
+        size = (hi - lo) * n_bins
+        exits = np.bincount(flat, rows[cells], size).reshape(hi - lo, n_bins)
+        hit = event[cells]
+        events = np.bincount(flat[hit], rows[cells][hit], size).reshape(hi - lo, n_bins)
+        return cells, flat, exits, events
+
     totals = np.zeros(3)
-    early_c = np.zeros((m, n_bins))  # per event cell: concordant and comparable partners
-    early_p = np.zeros(m)
+    early_c = np.zeros(len(t_index))  # per cell, an event's later partners (concordant)
+    early_p = np.zeros(len(t_index))
     beyond = np.zeros(n_bins)  # rows leaving after the block
-    late_beyond = np.zeros(n_bins)  # rows with k > the block's last index + 1
+    late_beyond = np.zeros(n_bins)  # rows entering after the block's last time
     for hi in range(m, 0, -step):
         lo = max(0, hi - step)
-        block = exits_all[lo:hi]
-        later = np.cumsum(block[::-1], axis=0)[::-1] - block + beyond  # leave after times[i]
-        partners = later + censored[lo:hi]
+        cells, flat, exits, events = block(lo, hi)
+        partners = np.cumsum(exits[::-1], axis=0)[::-1] - events + beyond
         if en is not None:
-            ahead = entered[lo + 1 : hi + 1]
-            late = np.cumsum(ahead[::-1], axis=0)[::-1] + late_beyond  # entry >= times[i]
-            partners = partners - late
+            first, last = np.searchsorted(k, [lo + 1, hi + 1])
+            ahead = np.bincount(
+                (k[first:last] - lo - 1) * n_bins + k_bin[first:last],
+                k_rows[first:last],
+                (hi - lo) * n_bins,
+            ).reshape(hi - lo, n_bins)
+            partners = partners - np.cumsum(ahead[::-1], axis=0)[::-1] - late_beyond
             late_beyond = late_beyond + ahead.sum(axis=0)
-        beyond = beyond + block.sum(axis=0)
+        beyond = beyond + exits.sum(axis=0)
         total = partners.sum(axis=1)
-        below = np.cumsum(partners, axis=1) - partners
-        d = events[lo:hi]
+        concordant = np.cumsum(partners, axis=1) - 0.5 * partners
         totals += [
-            float((d * total[:, None]).sum()),
-            float((d * (below + 0.5 * partners)).sum()),
-            float((d * partners).sum()),
+            float((events * total[:, None]).sum()),
+            float((events * concordant).sum()),
+            float((events * partners).sum()),
         ]
-        if en is None:
-            early_c[lo:hi] = below + 0.5 * partners
-            early_p[lo:hi] = total
+        early_c[cells] = concordant.reshape(-1)[flat]
+        early_p[cells] = total[t_index[cells] - lo]
     if en is not None:
         return totals, (np.zeros(0), np.zeros(0), np.zeros(0))
-    # the later member's side: events before t (at t as well for a censored row)
-    cum_d = np.cumsum(events, axis=0)
-    above = cum_d.sum(axis=1)[:, None] - np.cumsum(cum_d, axis=1) + 0.5 * cum_d
-    before = np.vstack([np.zeros((1, n_bins)), above[:-1]])
-    before_total = np.r_[0.0, cum_d.sum(axis=1)[:-1]]
-    c_i = np.where(event, early_c[t_index, b] + before[t_index, b], above[t_index, b])
-    p_i = np.where(event, early_p[t_index] + before_total[t_index], cum_d.sum(axis=1)[t_index])
+    c_i = np.zeros(len(t_index))
+    p_i = np.zeros(len(t_index))
+    before = np.zeros(n_bins)  # events before the block
+    for lo in range(0, m, step):
+        hi = min(m, lo + step)
+        cells, flat, _, events = block(lo, hi)
+        through = np.cumsum(events, axis=0) + before  # events at or before each time
+        earlier = through - events  # events before each time
+
+        def higher(counts):
+            """Per (time, bin): the events in higher bins, half of those in the same bin."""
+            return counts.sum(axis=1)[:, None] - np.cumsum(counts, axis=1) + 0.5 * counts
+
+        before = through[-1]
+        at = t_index[cells] - lo
+        hit = event[cells]
+        # a later event is compared with the events before its time, a censored row with
+        # those at its time as well
+        c_i[cells] = np.where(
+            hit,
+            early_c[cells] + higher(earlier).reshape(-1)[flat],
+            higher(through).reshape(-1)[flat],
+        )
+        p_i[cells] = np.where(
+            hit, early_p[cells] + earlier.sum(axis=1)[at], through.sum(axis=1)[at]
+        )
     return totals, (rows, c_i, p_i)
