@@ -23,8 +23,10 @@ from engine.concordance import harrell_c
 from tests.aggregate.cases import (
     COMPETING_ROLES,
     COMPETING_SETTINGS,
+    ROLES,
     assert_same_json,
     competing_frame,
+    messy_frame,
 )
 from tests.aggregate.conftest import load_table
 
@@ -198,3 +200,14 @@ def test_incidence_and_cause_specific_cox_match_lifelines(open_backend):
         np.testing.assert_allclose(
             [t["se"] for t in model["terms"]], ref.standard_errors_.to_numpy(), rtol=1e-5
         )
+
+
+def test_incidence_without_named_causes_equals_memory(open_backend):
+    """Without named causes the event is the only cause ("event"), as in memory."""
+    frame = messy_frame(3)
+    memory = run_analysis(prepare(frame, ROLES), COMPETING_SETTINGS)["competing"]
+    source = open_backend("duckdb", frame)
+    database = run_aggregate_analysis(aggregate_checks(source, ROLES), COMPETING_SETTINGS)
+    section = database["competing"]
+    assert section["causes"] == ["event"] and section["gray_test"] is None
+    assert_same_json(memory, section, skip=(".fine_gray",))
