@@ -62,7 +62,8 @@ class Levels:
 class AggregatedData:
     """What ``prepare`` gives, without the rows: the report, the counts, the levels, and the
     SQL of the checked rows (columns ``_reason``, ``_time``, ``_event``, ``_group``,
-    ``_strata``, ``_entry`` and ``c0``, ``c1``, ... for the covariates)."""
+    ``_strata``, ``_entry``, ``_cause`` and ``c0``, ``c1``, ... for the covariates, and ``_n``:
+    how many identical rows each is, see ``checked_cells``)."""
 
     source: SqlSource
     roles: Roles
@@ -72,6 +73,31 @@ class AggregatedData:
     levels: dict  # "_group", "_strata" and categorical covariates -> Levels
     covariate_columns: dict  # covariate -> its column in ``clean``
     kinds: dict
+
+    @property
+    def has_entry(self) -> bool:
+        return self.roles.entry is not None
+
+
+def checked_cells(source: SqlSource, clean: str, columns: list[str]) -> str:
+    """The checked rows merged, in one pass over the data, into cells of identical checked
+    values (reason, time, event, group, strata, entry, cause, covariates) with their count
+    ``_n``, kept as a temporary table where the backend can keep one (DuckDB, Spark).
+
+    Everything after the checks (the counts per reason, group, stratum and time; the Cox
+    model's design and Newton steps) reads the cells, weighting each by ``_n``: exact, since a
+    cell of n identical rows adds n times the same terms, and a registry's rows repeat a few
+    thousand days and a few covariate values. A read-only PostgreSQL session cannot keep a
+    table: there each query reads the checked rows, each a cell of one.
+    """
+    import uuid
+
+    listed = ", ".join(columns)
+    kept = source.materialize(
+        f"SELECT {listed}, COUNT(*) AS _n FROM ({clean}) AS checked GROUP BY {listed}",
+        f"hazel_checked_cells_{uuid.uuid4().hex[:12]}",  # one per check: a session may hold more
+    )
+    return f"SELECT * FROM {kept}" if kept else f"SELECT *, 1 AS _n FROM ({clean}) AS checked"
 
 
 def _factor(from_unit: str, to_unit: str) -> float | None:
@@ -185,9 +211,22 @@ def aggregate_checks(
             k for k, v in zip(present["k"], present["v"], strict=True) if value_key(v) in censored
         ]
         text = d.text(col)
+        kind = sample[roles.event].dtype
+        if pd.api.types.is_numeric_dtype(kind) and not pd.api.types.is_bool_dtype(kind):
+            # a numeric column is compared as numbers, not as its text: the same rows (each
+            # key is one number's text, and ``v`` that number), without a cast of every row
+            number_of = dict(zip(present["k"], present["v"], strict=True))
+
+            def matches(keys):
+                numbers = [number(number_of[k]) for k in keys]
+                return f"{col} IN ({', '.join(numbers)})" if numbers else "FALSE"
+
+            is_event, is_censored = matches(event_keys), matches(censored_keys)
+        else:
+            is_event, is_censored = _in(text, event_keys), _in(text, censored_keys)
         event = (
-            f"(CASE WHEN {col} IS NULL THEN -1 WHEN {_in(text, event_keys)} THEN 1 "
-            f"WHEN {_in(text, censored_keys)} THEN 0 ELSE -2 END)"
+            f"(CASE WHEN {col} IS NULL THEN -1 WHEN {is_event} THEN 1 "
+            f"WHEN {is_censored} THEN 0 ELSE -2 END)"
         )
         if pd.api.types.is_float_dtype(sample[roles.event]):
             event = f"(CASE WHEN {d.is_nan(col)} THEN -1 ELSE {event} END)"
@@ -260,6 +299,7 @@ def aggregate_checks(
         covariate_columns[column] = f"c{i}"
         select.append(f"{covariate_sql[column]} AS c{i}")
     clean = f"SELECT {', '.join(select)} FROM {source.relation}"
+    clean = checked_cells(source, clean, [item.rsplit(" AS ", 1)[1] for item in select])
 
     counts, excluded, rows_read = _counts(
         source, clean, levels, entry is not None, cause is not None
@@ -453,7 +493,7 @@ def _counts(source: SqlSource, clean: str, levels: dict, has_entry: bool, has_ca
         f"SELECT _reason AS reason, CASE WHEN {used} THEN {group} END AS g, "
         f"CASE WHEN {used} THEN {strata} END AS s, CASE WHEN {used} THEN _time END AS t, "
         f"CASE WHEN {used} THEN _event END AS e, CASE WHEN {used} THEN {cause} END AS c, "
-        f"COUNT(*) AS n FROM ({clean}) AS checked GROUP BY 1, 2, 3, 4, 5, 6"
+        f"SUM(_n) AS n FROM ({clean}) AS checked GROUP BY 1, 2, 3, 4, 5, 6"
     )
     table = source.query(sql)
     rows_read = int(table["n"].sum())
@@ -477,7 +517,7 @@ def _counts(source: SqlSource, clean: str, levels: dict, has_entry: bool, has_ca
     entries = None
     if has_entry:
         e = source.query(
-            f"SELECT {group} AS g, {strata} AS s, _entry AS en, COUNT(*) AS n FROM ({clean}) "
+            f"SELECT {group} AS g, {strata} AS s, _entry AS en, SUM(_n) AS n FROM ({clean}) "
             f"AS checked WHERE {used} GROUP BY 1, 2, 3"
         )
         entries = pd.DataFrame(

@@ -166,7 +166,7 @@ def sql_design(
         bounds = np.column_stack([(low - center) / scale, (high - center) / scale])
     bounds = np.nan_to_num(bounds, nan=0.0, posinf=0.0, neginf=0.0)
     strata_column = "_strata" if strata else data.source.dialect.text("NULL")
-    entry = ", _entry" if "_entry" in data.clean else ""
+    entry = ", _entry" if data.has_entry else ""
     z = ", ".join(f"{c} AS z{i}" for i, c in enumerate(scaled))
     rows = (
         f"SELECT {strata_column} AS _s, _time, _event{entry}{', ' + z if z else ''}, _n "
@@ -187,16 +187,16 @@ def model_cells(data: AggregatedData, columns: Sequence[str], event: str = "_eve
     terms, so the sums are exact. Elsewhere (a read-only PostgreSQL session) each query reads
     the checked rows, each a cell of one.
     """
-    keys = ["_time", "_event"] + (["_entry"] if "_entry" in data.clean else [])
+    keys = ["_time", "_event"] + (["_entry"] if data.has_entry else [])
     keys += list(dict.fromkeys(columns))
     listed = ", ".join(keys)
     picked = listed.replace("_event", f"{event} AS _event", 1) if event != "_event" else listed
-    rows = f"SELECT {picked} FROM ({data.clean}) AS checked WHERE _reason IS NULL"
+    rows = f"SELECT {picked}, _n FROM ({data.clean}) AS checked WHERE _reason IS NULL"
     merged = data.source.materialize(
-        f"SELECT {listed}, COUNT(*) AS _n FROM ({rows}) AS r GROUP BY {listed}",
+        f"SELECT {listed}, SUM(_n) AS _n FROM ({rows}) AS r GROUP BY {listed}",
         f"hazel_model_cells_{uuid.uuid4().hex[:12]}",  # one per model: a session may hold more
     )
-    return f"SELECT * FROM {merged}" if merged else f"SELECT {listed}, 1 AS _n FROM ({rows}) AS r"
+    return f"SELECT * FROM {merged}" if merged else rows
 
 
 class SqlCoxSource:
