@@ -16,11 +16,13 @@ from pathlib import Path
 from app.cli_scale import (
     BackendUsageError,
     add_backend_options,
+    check_sample_options,
     chosen_backend,
     computed_with,
     memory_computed_with,
     open_source,
     refuse_row_options,
+    sample_summary,
     source_summary,
 )
 from app.cli_text import analysis_summary, data_summary, event_words
@@ -648,6 +650,7 @@ def run_aggregated(args: argparse.Namespace, backend: str, *, check_only: bool =
     from engine.recipe import fingerprint_differences
 
     refuse_row_options(args, backend)
+    check_sample_options(args, backend)
     recipe, warnings = None, []
     if getattr(args, "recipe", None) and not check_only:
         refuse_role_options_with_recipe(args)
@@ -678,6 +681,14 @@ def run_aggregated(args: argparse.Namespace, backend: str, *, check_only: bool =
                 **run_aggregate_analysis(data, settings),
                 "computed_with": computed_with(source),
             }
+            if args.sample_rows:
+                from engine.aggregate.sampled import sections_from_sample
+
+                rows = source.random_sample(args.sample_rows, args.sample_seed)
+                sections, record = sections_from_sample(
+                    sections, rows, roles, settings, args.sample_seed
+                )
+                sections["computed_with"]["sample"] = record
         fingerprint = None
         if recipe is not None or getattr(args, "report", None):
             fingerprint = source_fingerprint(source, data.report.rows_read)
@@ -688,6 +699,8 @@ def run_aggregated(args: argparse.Namespace, backend: str, *, check_only: bool =
     for warning in warnings:
         show(f"warning: {' '.join(warning.split())}", sys.stderr)
     head = source_summary(source, data.report, roles)
+    if not check_only and sections["computed_with"]["sample"]:
+        head += "\n" + sample_summary(sections["computed_with"]["sample"])
     if check_only:
         if args.json != "-":
             show(head)
@@ -716,6 +729,7 @@ def run_analyze(args: argparse.Namespace) -> int:
     from app.batch import load_recipe_run, report_from_json_and_results
 
     backend = chosen_backend(args)
+    check_sample_options(args, backend)
     if backend != "memory":
         return run_aggregated(args, backend)
 

@@ -81,7 +81,11 @@ def computed_with_text(computed_with: Mapping | None) -> str:
     text = "Computed " + words.format(version=computed_with.get("version", ""))
     sample = computed_with.get("sample")
     if sample:
-        text += f", on a random sample of {int(sample['rows']):,} rows (seed {sample['seed']})"
+        taken = ", ".join(sample.get("sections") or ()) or "none were needed"
+        text += (
+            f". On a random sample of {int(sample['rows']):,} rows (seed {sample['seed']}), "
+            f"because per-time sums cannot give them: {taken}"
+        )
     return text + "."
 
 

@@ -87,6 +87,19 @@ class SqlSource:
             ) from exc
         return None
 
+    def random_sample(self, rows: int, seed: int) -> pd.DataFrame:
+        """``rows`` rows of the source, those with the smallest hash of the whole row and the
+        seed: the same rows every time for the same data and seed, and a simple random sample
+        as far as the hash is uniform (identical rows share a hash, and are identical)."""
+        columns = ", ".join(quoted(str(c)) for c in self.sample().columns)
+        if self.backend == "duckdb":
+            key = f"hash({columns}, {int(seed)})"
+        elif self.backend == "spark":
+            key = f"xxhash64({columns}, {int(seed)})"
+        else:
+            key = f"md5(CAST(ROW({columns}) AS TEXT) || {literal(str(int(seed)))})"
+        return self.query(f"SELECT * FROM {self.relation} ORDER BY {key} LIMIT {int(rows)}")
+
     def sample(self) -> pd.DataFrame:
         """The first rows, for the column types and the examples in messages."""
         return self.query(f"SELECT * FROM {self.relation} LIMIT {SAMPLE_ROWS}")
