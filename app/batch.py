@@ -23,6 +23,7 @@ from engine.io import ImportedTable, ImportOptions, read_table
 from engine.recipe import (
     ANALYSIS_DEFAULTS,
     MAX_RECIPE_BYTES,
+    DataFingerprint,
     Recipe,
     RecipeError,
     check_fingerprint,
@@ -209,13 +210,38 @@ def censoring_marks(
 
 def curve_figure(prepared: PreparedData, settings: Mapping, *, title: str = ""):
     """The Kaplan–Meier figure with its numbers-at-risk table, drawn by the app's builders."""
-    from app import charts, thinning
-
     curve_settings = {**ANALYSIS_DEFAULTS["curves"], **settings.get("curves", {})}
     frame = prepared.frame
     curves = curves_by_group(
         frame, confidence=curve_settings["confidence"], transform=curve_settings["ci_transform"]
     ).curves
+
+    def at_risk(ticks, by_group):
+        return numbers_at_risk_frame(frame, ticks, by_group=by_group).to_frame()
+
+    return drawn_curve_figure(curves, at_risk, prepared.report.time_unit, prepared.roles, title)
+
+
+def aggregated_curve_figure(counts, settings: Mapping, unit: str, roles: Roles, title: str = ""):
+    """The same figure from per-time counts (rows aggregated where they are)."""
+    from engine.aggregate.estimators import curves_from_counts, numbers_at_risk_from_counts
+
+    curve_settings = {**ANALYSIS_DEFAULTS["curves"], **settings.get("curves", {})}
+    curves = curves_from_counts(
+        counts, confidence=curve_settings["confidence"], transform=curve_settings["ci_transform"]
+    ).curves
+
+    def at_risk(ticks, by_group):
+        return numbers_at_risk_from_counts(counts, ticks, by_group=by_group).to_frame()
+
+    return drawn_curve_figure(curves, at_risk, unit, roles, title)
+
+
+def drawn_curve_figure(curves, at_risk, unit: str, roles: Roles, title: str = ""):
+    """Curves (all rows first, then each group) over their numbers at risk; ``at_risk(ticks,
+    by_group)`` gives the table's frame at the figure's ticks."""
+    from app import charts, thinning
+
     by_group = len(curves) > 1
     drawn = list(curves[1:] if by_group else curves[:1])
     rows = pd.concat([curve_rows(c) for c in drawn], ignore_index=True)
@@ -229,9 +255,8 @@ def curve_figure(prepared: PreparedData, settings: Mapping, *, title: str = ""):
     ticks = charts.nice_ticks(x_max)
     labels = [str(c.label) for c in drawn] if by_group else []
     colours = charts.group_colours(labels)
-    unit = prepared.report.time_unit
     style = charts.ChartStyle(width=width, height=height).titled(
-        title, f"Time ({unit})", probability_title(event_in_words(prepared.roles))
+        title, f"Time ({unit})", probability_title(event_in_words(roles))
     )
     curve_chart = charts.step_curve_chart(
         thinned,
@@ -240,11 +265,10 @@ def curve_figure(prepared: PreparedData, settings: Mapping, *, title: str = ""):
         censored=censored_marks,
         x_max=x_max,
         ticks=ticks,
-        legend_title=charts.group_title(prepared.roles.group) if prepared.roles.group else "",
+        legend_title=charts.group_title(roles.group) if roles.group else "",
         align_with_table=True,
     )
-    risk = numbers_at_risk_frame(frame, ticks, by_group=by_group).to_frame()
-    risk = risk.rename(columns={"tick": "time"})
+    risk = at_risk(ticks, by_group).rename(columns={"tick": "time"})
     risk["group"] = [ALL_ROWS if g is None else str(g) for g in risk["group"]]
     risk_chart = charts.at_risk_chart(risk, style, colours, x_max=x_max, ticks=ticks)
     return charts.finish(charts.curve_with_risk_table(curve_chart, risk_chart, style), style)
@@ -521,28 +545,34 @@ def report_from_json_and_results(
     warnings: Sequence[str] = (),
     title: str | None = None,
     source: pd.DataFrame | None = None,
+    roles: Roles | None = None,
+    fingerprint: DataFingerprint | None = None,
+    figures: Mapping | None = None,
 ) -> str:
     """The HTML report of ``results`` (the JSON object ``run_analysis`` returns).
 
     ``prepared`` draws the Kaplan–Meier figure; ``imported`` gives the file's fingerprint and
     name; ``filtered`` the rows each recipe filter removed; ``warnings`` extra warnings such as
-    a replayed recipe's fingerprint differences.
+    a replayed recipe's fingerprint differences. Rows aggregated where they are give
+    ``roles``, the source's ``fingerprint`` and the ``figures`` drawn from their counts instead.
     """
     from app.report import build_report
 
     if source is None:  # the frame prepare was given (a cut or strata column is read from it)
         source = filtered.frame if filtered is not None else getattr(imported, "frame", None)
-    fingerprint = None
     if imported is not None:
-        fingerprint = {**imported.fingerprint(), "file_name": imported.source_name}
-    name = imported.source_name if imported is not None else "data"
+        fingerprint = DataFingerprint.of(imported)
+    if roles is None and prepared is not None:
+        roles = prepared.roles
+    name = fingerprint.file_name if fingerprint is not None else None
+    drawn = {**report_figures(prepared, results, settings, source), **(figures or {})}
     return build_report(
         results,
         settings,
-        roles=prepared.roles.to_dict() if prepared is not None else None,
-        title=title or f"Survival analysis of {name}",
-        figures=report_figures(prepared, results, settings, source),
-        fingerprint=fingerprint,
+        roles=roles.to_dict() if roles is not None else None,
+        title=title or f"Survival analysis of {name or 'data'}",
+        figures=drawn,
+        fingerprint=fingerprint.to_dict() if fingerprint is not None else None,
         filters=filtered.to_dict()["excluded"] if filtered is not None else (),
         warnings=warnings,
         software=software_versions(),

@@ -206,8 +206,11 @@ def figure_text(text: str) -> str:
     characters cut, with a short fingerprint of the whole label so that two long labels that
     begin alike stay two (laying out a label costs the renderer time that grows faster than
     its length: a 10,000-character group label took 37 s to draw)."""
-    # a line break inside a tooltip title breaks the renderer's expression parser
+    # a line break or a backslash inside a tooltip title breaks the renderer's expression
+    # parser (it quotes the title without escaping backslashes): backslashes are shown as the
+    # look-alike U+29F5
     text = visible_text(text).replace("\r\n", " ").replace("\n", " ").replace("\r", " ")
+    text = text.replace("\\", "\u29f5")
     if len(text) <= FIGURE_TEXT_LIMIT:
         return text
     digest = hashlib.sha256(text.encode("utf-8", "surrogatepass")).hexdigest()[:6]
@@ -231,13 +234,15 @@ def visible_spec(value):
 
 
 def _figure_frame(frame: pd.DataFrame) -> pd.DataFrame:
-    """``figure_text`` on the long cells of a drawing frame's text columns."""
+    """``figure_text`` on the cells of a drawing frame's text columns that it changes (long,
+    or with a line break or backslash), so that legend domains in the spec still match them."""
     changed = {}
     for column in frame.columns:
         series = frame[column]
         if pd.api.types.is_numeric_dtype(series) or pd.api.types.is_bool_dtype(series):
             continue
-        if series.astype("string").str.len().gt(FIGURE_TEXT_LIMIT).any():
+        text = series.astype("string")
+        if text.str.len().gt(FIGURE_TEXT_LIMIT).any() or text.str.contains(r"[\\\r\n]").any():
             changed[column] = series.map(
                 lambda v: figure_text(v) if isinstance(v, str) else v, na_action="ignore"
             )

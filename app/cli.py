@@ -14,12 +14,15 @@ import sys
 from pathlib import Path
 
 from app.cli_scale import (
+    BackendUsageError,
     add_backend_options,
+    check_sample_options,
     chosen_backend,
     computed_with,
     memory_computed_with,
     open_source,
     refuse_row_options,
+    sample_summary,
     source_summary,
 )
 from app.cli_text import analysis_summary, data_summary, event_words
@@ -597,17 +600,77 @@ def causes_from_args(args: argparse.Namespace) -> tuple[tuple[str, str], ...]:
     return tuple(pairs)
 
 
+def refuse_role_options_with_recipe(args: argparse.Namespace) -> None:
+    """A recipe brings its own import options, roles and filters: options that set them too
+    are a usage error, not a silent choice between the two."""
+    given = [name for name in ROLE_OPTIONS if getattr(args, name, None) not in (None, [], False)]
+    if given:
+        shown = ", ".join("--" + name.replace("_", "-") for name in given)
+        raise UsageError(
+            f"--recipe brings its own import options, roles and filters; leave out {shown} "
+            "(or drop --recipe and give every role as an option)"
+        )
+
+
+def show_results(args, sections: dict, settings: dict, head: str, unit: str, event, report):
+    """The text summary, the JSON and the report (``report()`` gives its HTML) of one run."""
+    if args.json != "-":
+        show(head)
+        show(
+            analysis_summary(sections, unit, confidence=settings["cox"]["confidence"], event=event)
+        )
+    if args.json:
+        write_json(sections, args.json)
+    if args.report:
+        from app.batch import write_bytes, write_text
+
+        html_text = report()
+        suffix = Path(args.report).suffix.lower()
+        if suffix in (".docx", ".xlsx"):
+            from app import exports_office
+
+            make = exports_office.report_docx if suffix == ".docx" else exports_office.report_xlsx
+            write_bytes(args.report, make(html_text))
+        else:
+            write_text(args.report, html_text)
+        if args.json != "-":
+            show(f"Report written to {args.report}")
+
+
 def run_aggregated(args: argparse.Namespace, backend: str, *, check_only: bool = False) -> int:
-    """check or analyze with the rows aggregated where they are (DuckDB, PostgreSQL)."""
+    """check or analyze with the rows aggregated where they are (DuckDB, PostgreSQL, Spark).
+
+    A recipe replays here as in memory (its roles and settings; row filters need the rows
+    and are refused); its fingerprint is compared with the source's, and the report records
+    the backend and the source's name, never a user name or password."""
+    from app.batch import aggregated_curve_figure, read_recipe, report_from_json_and_results
     from engine.aggregate.analysis import run_aggregate_analysis
+    from engine.aggregate.sources import source_fingerprint
     from engine.aggregate.sql_checks import aggregate_checks
+    from engine.recipe import fingerprint_differences
 
     refuse_row_options(args, backend)
-    causes = causes_from_args(args)
-    if causes:
-        args.event_causes = causes
-    roles = roles_from_args(args)
-    settings = None if check_only else settings_from_args(args)
+    check_sample_options(args, backend)
+    recipe, warnings = None, []
+    if getattr(args, "recipe", None) and not check_only:
+        refuse_role_options_with_recipe(args)
+        recipe = read_recipe(args.recipe)
+        if recipe.filters:
+            raise BackendUsageError(
+                f"The recipe has {len(recipe.filters)} row filter(s), which need the rows in "
+                f"memory; they are not available with the {backend} backend yet. Use --backend "
+                "memory to replay it."
+            )
+        args.sep = recipe.import_options.get("sep")
+        args.decimal = recipe.import_options.get("decimal")
+        roles = Roles.from_dict(recipe.roles)
+        settings = settings_from_args(args, base=recipe.settings())
+    else:
+        causes = causes_from_args(args)
+        if causes:
+            args.event_causes = causes
+        roles = roles_from_args(args)
+        settings = None if check_only else settings_from_args(args)
     source = open_source(args, backend)
     try:
         data = aggregate_checks(source, roles)
@@ -618,42 +681,61 @@ def run_aggregated(args: argparse.Namespace, backend: str, *, check_only: bool =
                 **run_aggregate_analysis(data, settings),
                 "computed_with": computed_with(source),
             }
+            if args.sample_rows:
+                from engine.aggregate.sampled import sections_from_sample
+
+                rows = source.random_sample(args.sample_rows, args.sample_seed)
+                sections, record = sections_from_sample(
+                    sections, rows, roles, settings, args.sample_seed
+                )
+                sections["computed_with"]["sample"] = record
+        fingerprint = None
+        if recipe is not None or getattr(args, "report", None):
+            fingerprint = source_fingerprint(source, data.report.rows_read)
+        if recipe is not None:
+            warnings = fingerprint_differences(recipe.fingerprint, fingerprint)
     finally:
         source.close()
-    if args.json != "-":
-        show(source_summary(source, data.report, roles))
-        if not check_only:
-            show(
-                analysis_summary(
-                    sections,
-                    data.report.time_unit,
-                    confidence=settings["cox"]["confidence"],
-                    event=event_in_words(roles),
-                )
-            )
-    if args.json:
-        write_json(sections, args.json)
+    for warning in warnings:
+        show(f"warning: {' '.join(warning.split())}", sys.stderr)
+    head = source_summary(source, data.report, roles)
+    if not check_only and sections["computed_with"]["sample"]:
+        head += "\n" + sample_summary(sections["computed_with"]["sample"])
+    if check_only:
+        if args.json != "-":
+            show(head)
+        if args.json:
+            write_json(sections, args.json)
+        return 0
+
+    def report() -> str:
+        figure = aggregated_curve_figure(data.counts, settings, data.report.time_unit, roles)
+        return report_from_json_and_results(
+            sections,
+            settings,
+            roles=roles,
+            fingerprint=fingerprint,
+            figures={"curves": figure},
+            warnings=warnings,
+        )
+
+    show_results(
+        args, sections, settings, head, data.report.time_unit, event_in_words(roles), report
+    )
     return 0
 
 
 def run_analyze(args: argparse.Namespace) -> int:
-    from app.batch import load_recipe_run
+    from app.batch import load_recipe_run, report_from_json_and_results
 
     backend = chosen_backend(args)
+    check_sample_options(args, backend)
     if backend != "memory":
         return run_aggregated(args, backend)
 
     filtered, warnings, source = None, [], None
     if args.recipe:
-        given = [
-            name for name in ROLE_OPTIONS if getattr(args, name, None) not in (None, [], False)
-        ]
-        if given:
-            shown = ", ".join("--" + name.replace("_", "-") for name in given)
-            raise UsageError(
-                f"--recipe brings its own import options, roles and filters; leave out {shown} "
-                "(or drop --recipe and give every role as an option)"
-            )
+        refuse_role_options_with_recipe(args)
         run = load_recipe_run(args.recipe, args.data)
         table, prepared, filtered, warnings = run.imported, run.prepared, run.filtered, run.warnings
         source = run.source
@@ -672,22 +754,9 @@ def run_analyze(args: argparse.Namespace) -> int:
     sections["computed_with"] = memory_computed_with()
     if filtered is not None and filtered.excluded:
         sections["filters"] = filtered.to_dict()
-    if args.json != "-":
-        show(data_summary(table, prepared, filtered))
-        show(
-            analysis_summary(
-                sections,
-                prepared.report.time_unit,
-                confidence=settings["cox"]["confidence"],
-                event=event_words(prepared),
-            )
-        )
-    if args.json:
-        write_json(sections, args.json)
-    if args.report:
-        from app.batch import report_from_json_and_results, write_text
 
-        html_text = report_from_json_and_results(
+    def report() -> str:
+        return report_from_json_and_results(
             sections,
             settings,
             imported=table,
@@ -695,17 +764,11 @@ def run_analyze(args: argparse.Namespace) -> int:
             filtered=filtered,
             warnings=warnings,
         )
-        suffix = Path(args.report).suffix.lower()
-        if suffix in (".docx", ".xlsx"):
-            from app import exports_office
-            from app.batch import write_bytes
 
-            make = exports_office.report_docx if suffix == ".docx" else exports_office.report_xlsx
-            write_bytes(args.report, make(html_text))
-        else:
-            write_text(args.report, html_text)
-        if args.json != "-":
-            show(f"Report written to {args.report}")
+    head = data_summary(table, prepared, filtered)
+    show_results(
+        args, sections, settings, head, prepared.report.time_unit, event_words(prepared), report
+    )
     return 0
 
 

@@ -37,6 +37,21 @@ def add_backend_options(parser: argparse.ArgumentParser) -> None:
     group.add_argument(
         "--spark-master", metavar="URL", default="local[*]", help="Spark master (default local[*])"
     )
+    group.add_argument(
+        "--sample-rows",
+        metavar="N",
+        type=int,
+        help="with a backend: compute what per-time sums cannot give (robust variance, splines, "
+        "Fine–Gray, parametric fits, ...) on a seeded random sample of N rows; every other "
+        "section still uses all rows",
+    )
+    group.add_argument(
+        "--sample-seed",
+        metavar="S",
+        type=int,
+        default=20261202,
+        help="seed of --sample-rows (default 20261202)",
+    )
 
 
 def chosen_backend(args: argparse.Namespace) -> str:
@@ -92,9 +107,36 @@ def computed_with(source) -> dict:
     return {"backend": source.backend, "version": source.version, "sample": None}
 
 
+def check_sample_options(args: argparse.Namespace, backend: str) -> None:
+    rows = getattr(args, "sample_rows", None)
+    if rows is None:
+        return
+    if backend == "memory":
+        raise BackendUsageError(
+            "--sample-rows applies where the rows stay in DuckDB, Spark or a database; in "
+            "memory every section already uses every row (leave it out)."
+        )
+    if not 10 <= rows <= 10_000_000:
+        raise BackendUsageError(
+            f"--sample-rows must be between 10 and 10,000,000 rows (it is read into memory); "
+            f"got {rows}."
+        )
+
+
+def sample_summary(record: dict | None) -> str:
+    """The text summary's line on the sections computed on a sample."""
+    if not record:
+        return ""
+    taken = ", ".join(record["sections"]) or "none were needed"
+    return (
+        f"On a random sample of {record['rows']:,} rows (seed {record['seed']}), because "
+        f"per-time sums cannot give them: {taken}."
+    )
+
+
 def refuse_row_options(args: argparse.Namespace, backend: str) -> None:
     """Options that need the rows in memory, refused with the reason."""
-    for option, name in (("recipe", "--recipe"), ("report", "--report"), ("filter", "--filter")):
+    for option, name in (("filter", "--filter"),):
         if getattr(args, option, None):
             raise BackendUsageError(
                 f"{name} is not available with the {backend} backend yet (it needs the rows in "

@@ -209,7 +209,7 @@ def build_report(
         '<section class="cautions"><strong>Before you read</strong>',
         bullets(CAUTIONS),
         "</section>",
-        data_section(data, fingerprint, filters) if data else "",
+        data_section(data, fingerprint, filters, results.get("computed_with")) if data else "",
         roles_section(roles, column_labels),
         baseline_section(results.get("baseline"), settings, column_labels),
         curves_section(results.get("curves") or [], unit, confidence, figures.get("curves"), event),

@@ -64,18 +64,52 @@ ROLE_WORDS = (
 # --- sections ----------------------------------------------------------------------------------
 
 
-def data_section(data: Mapping, fingerprint: Mapping | None, filters: Sequence[Mapping]) -> str:
+BACKEND_WORDS = {
+    "memory": "in memory by {version}",
+    "duckdb": "by DuckDB {version}, reading the file where it is",
+    "postgresql": "inside PostgreSQL {version}; only per-time sums left the database",
+    "spark": "by Apache Spark {version}",
+}
+
+
+def computed_with_text(computed_with: Mapping | None) -> str:
+    """Where the rows were aggregated, in words (the JSON's ``computed_with``)."""
+    if not computed_with:
+        return ""
+    backend = str(computed_with.get("backend", ""))
+    words = BACKEND_WORDS.get(backend, backend + " {version}")
+    text = "Computed " + words.format(version=computed_with.get("version", ""))
+    sample = computed_with.get("sample")
+    if sample:
+        taken = ", ".join(sample.get("sections") or ()) or "none were needed"
+        text += (
+            f". On a random sample of {int(sample['rows']):,} rows (seed {sample['seed']}), "
+            f"because per-time sums cannot give them: {taken}"
+        )
+    return text + "."
+
+
+def data_section(
+    data: Mapping,
+    fingerprint: Mapping | None,
+    filters: Sequence[Mapping],
+    computed_with: Mapping | None = None,
+) -> str:
     unit = data.get("time_unit", "")
     parts = ["<h2>Data</h2>"]
     if fingerprint:
-        parts.append(
-            '<p class="meta">File '
-            + escape(fingerprint.get("file_name") or "(unnamed)")
-            + f", {int(fingerprint['rows']):,} rows and {len(fingerprint['columns'])} columns; "
-            + "SHA-256 <code>"
-            + escape(fingerprint["sha256"])
-            + "</code>.</p>"
-        )
+        name = escape(fingerprint.get("file_name") or "(unnamed)")
+        size = f"{int(fingerprint['rows']):,} rows and {len(fingerprint['columns'])} columns"
+        if fingerprint.get("sha256"):
+            parts.append(
+                f'<p class="meta">File {name}, {size}; SHA-256 <code>'
+                + escape(fingerprint["sha256"])
+                + "</code>.</p>"
+            )
+        else:  # rows in a database: no file to fingerprint
+            parts.append(f'<p class="meta">Source {name}, {size}.</p>')
+    if computed_with:
+        parts.append(f'<p class="meta">{escape(computed_with_text(computed_with))}</p>')
     counts = [
         ("Rows read", data["rows_read"]),
         ("Rows used", data["rows_used"]),

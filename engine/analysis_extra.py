@@ -57,18 +57,7 @@ def competing_section(prepared: PreparedData, chosen: Mapping) -> dict:
     result = cumulative_incidence(
         frame, by_group=bool(chosen["by_group"]), confidence_level=chosen["confidence"]
     )
-    table = result.to_frame()
-    last = table.groupby(["group", "cause"], sort=False, dropna=False).tail(1)
-    final = last[["group", "cause", "time", "cumulative_incidence", "lower", "upper"]]
-    section = {
-        "causes": list(result.causes),
-        "groups": list(result.groups),
-        "confidence_level": result.confidence_level,
-        "warning": result.warning,
-        "at_times": frame_records(result.at(chosen["times"])) if chosen["times"] else [],
-        "at_end": frame_records(final.assign(one_minus_km=last["one_minus_km"].to_numpy())),
-        "cause_specific_cox": None,
-    }
+    section = incidence_section(result, chosen["times"])
     if chosen["cause_specific_cox"] and roles.covariates and "_cause" in frame.columns:
         section["cause_specific_cox"] = computed(cause_specific_section, prepared, chosen)
     # the parts below can fail on their own (a cause with no events...): each says why in place
@@ -79,6 +68,23 @@ def competing_section(prepared: PreparedData, chosen: Mapping) -> dict:
     if chosen.get("fine_gray"):
         section["fine_gray"] = computed(fine_gray_section, prepared, chosen)
     return section
+
+
+def incidence_section(result, times) -> dict:
+    """The incidence part of the "competing" section: causes, groups, the 1 − KM warning, the
+    incidence at the chosen times and at the end of follow-up (shared with the databases)."""
+    table = result.to_frame()
+    last = table.groupby(["group", "cause"], sort=False, dropna=False).tail(1)
+    final = last[["group", "cause", "time", "cumulative_incidence", "lower", "upper"]]
+    return {
+        "causes": list(result.causes),
+        "groups": list(result.groups),
+        "confidence_level": result.confidence_level,
+        "warning": result.warning,
+        "at_times": frame_records(result.at(times)) if times else [],
+        "at_end": frame_records(final.assign(one_minus_km=last["one_minus_km"].to_numpy())),
+        "cause_specific_cox": None,
+    }
 
 
 def cause_specific_section(prepared: PreparedData, chosen: Mapping) -> list[dict]:

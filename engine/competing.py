@@ -121,8 +121,9 @@ def _cause_codes(cause, n: int) -> tuple[np.ndarray, tuple[str, ...]]:
     return lookup[raw_codes], labels  # raw code -1 picks the trailing -1
 
 
-def _aalen_johansen_table(time, codes, n_causes: int, entry, z: float) -> dict[str, np.ndarray]:
-    """Aalen–Johansen estimate for every cause over one set of subjects (arrays already valid)."""
+def _cause_counts(time, codes, n_causes: int, entry):
+    """Per distinct time of one set of subjects: the times, rows leaving, events of each cause
+    (times x causes) and rows at risk; the only things the estimate depends on."""
     times, key = np.unique(time, return_inverse=True)
     m = times.shape[0]
     removed = np.bincount(key, minlength=m)
@@ -130,12 +131,19 @@ def _aalen_johansen_table(time, codes, n_causes: int, entry, z: float) -> dict[s
     by_cause = np.bincount(
         key[is_event] * n_causes + codes[is_event], minlength=m * n_causes
     ).reshape(m, n_causes)
-    d_any = by_cause.sum(axis=1)
     at_risk = np.cumsum(removed[::-1])[::-1]
     if entry is not None:
         entered_after = np.searchsorted(times, entry, side="right")  # distinct times <= entry
         not_yet = np.cumsum(np.bincount(entered_after, minlength=m + 1)[::-1])[::-1][1:]
         at_risk = at_risk - not_yet
+    return times, removed, by_cause, at_risk
+
+
+def incidence_table(times, removed, by_cause, at_risk, z: float) -> dict[str, np.ndarray]:
+    """Aalen–Johansen estimate for every cause from the per-time counts of ``_cause_counts``
+    (a database gives the same counts; ``engine.aggregate.competing``)."""
+    m, n_causes = by_cause.shape
+    d_any = by_cause.sum(axis=1)
     n = at_risk.astype(np.float64)
     with np.errstate(divide="ignore", invalid="ignore"):
         hazard_any = np.where(n > 0, d_any / n, 0.0)
@@ -226,21 +234,28 @@ def aalen_johansen(
     if group is None:
         parts = [(None, None)]
     else:
+        # rows without a group count in no group (as for the curves)
         series = group if isinstance(group, pd.Series) else pd.Series(group)
-        codes_g, labels = group_codes(series, n)
+        codes_g, labels = group_codes(series, n, missing_as_extra=True)
         parts = [
             (str(label), codes_g == i) for i, label in enumerate(labels) if (codes_g == i).any()
         ]
     pieces = []
     for label, mask in parts:
         if mask is None:
-            arrays = _aalen_johansen_table(time, codes, len(causes), entry, z)
+            counts = _cause_counts(time, codes, len(causes), entry)
         else:
             sub_entry = None if entry is None else entry[mask]
-            arrays = _aalen_johansen_table(time[mask], codes[mask], len(causes), sub_entry, z)
+            counts = _cause_counts(time[mask], codes[mask], len(causes), sub_entry)
+        pieces.append((label, incidence_table(*counts, z)))
+    return incidence_result(pieces, causes, confidence_level)
+
+
+def incidence_result(pieces, causes: tuple[str, ...], confidence_level: float):
+    """The ``CumulativeIncidence`` of (group label or None, ``incidence_table``) pieces."""
+    for label, arrays in pieces:
         arrays["group"] = np.full(arrays["time"].shape[0], label, dtype=object)
-        pieces.append(arrays)
-    merged = {k: np.concatenate([p[k] for p in pieces]) for k in pieces[0]}
+    merged = {k: np.concatenate([p[k] for _, p in pieces]) for k in pieces[0][1]}
     cause_code = merged.pop("cause_code")
     gap = merged["one_minus_km"] - merged["cumulative_incidence"]
     gaps = {c: float(gap[cause_code == j].max()) for j, c in enumerate(causes)}
@@ -248,7 +263,7 @@ def aalen_johansen(
     table = pd.DataFrame({c: merged[c] for c in TABLE_COLUMNS})
     return CumulativeIncidence(
         causes=causes,
-        groups=tuple(label for label, _ in parts if label is not None),
+        groups=tuple(label for label, _ in pieces if label is not None),
         confidence_level=float(confidence_level),
         variance_method=VARIANCE_METHOD,
         table=table,

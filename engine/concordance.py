@@ -217,10 +217,15 @@ def harrell_c(time, event, risk, strata=None, entry=None, clusters=None) -> Conc
     concordant_pairs = concordant_i.sum() / 2
     c = concordant_pairs / pairs
     se = float(np.sqrt(np.sum((concordant_i - c * comparable_i) ** 2)) / pairs)
+    return concordance_result(concordant_pairs, pairs, tied_pairs, se)
+
+
+def concordance_result(concordant_pairs, pairs, tied_pairs, se) -> ConcordanceResult:
+    """The result from the pair totals (``concordant_pairs`` counting tied scores one half)."""
     strict = concordant_pairs - tied_pairs / 2
     return ConcordanceResult(
-        concordance=float(c),
-        standard_error=se,
+        concordance=float(concordant_pairs / pairs),
+        standard_error=float(se),
         concordant=float(strict),
         discordant=float(pairs - strict - tied_pairs),
         tied_score=float(tied_pairs),

@@ -94,9 +94,10 @@ def _per_group_counts(time, codes, group, n_groups, entry):
     return at_risk.astype(float), d1, d2
 
 
-def _stratum_scores(time, codes, group, n_groups, entry):
-    """z, its covariance, observed and expected events of the cause, within one stratum."""
-    y, d1, d2 = _per_group_counts(time, codes, group, n_groups, entry)
+def stratum_scores(y, d1, d2):
+    """z, its covariance, observed and expected events of the cause within one stratum, from
+    its per-time counts (times x groups): at risk, events of the cause, events of the others."""
+    n_groups = y.shape[1]
     with np.errstate(divide="ignore", invalid="ignore"):
         surv = np.cumprod(np.where(y > 0, 1.0 - (d1 + d2) / y, 1.0), axis=0)
         surv_lag = np.vstack([np.ones((1, n_groups)), surv[:-1]])
@@ -152,17 +153,19 @@ def gray_test(time, cause, group, *, of: str, strata=None, entry=None) -> GrayTe
     if strata is not None:
         stratum, _ = group_codes(pd.Series(strata), n, name="_strata")
     k = len(labels)
-    z = np.zeros(k)
-    cov = np.zeros((k, k))
-    observed = np.zeros(k)
-    expected = np.zeros(k)
+    parts = []
     for s in np.unique(stratum):
         rows = stratum == s
-        parts = _stratum_scores(
+        counts = _per_group_counts(
             time[rows], codes[rows], group_code[rows], k, None if entry is None else entry[rows]
         )
-        z, cov = z + parts[0], cov + parts[1]
-        observed, expected = observed + parts[2], expected + parts[3]
+        parts.append(stratum_scores(*counts))
+    return gray_result(of, labels, parts)
+
+
+def gray_result(of: str, labels, parts) -> GrayTest:
+    """Gray's test from the ``stratum_scores`` of each stratum, summed."""
+    z, cov, observed, expected = (sum(p[i] for p in parts) for i in range(4))
     statistic, df = _chi_square(z, cov)
     return GrayTest(
         cause=of,

@@ -46,12 +46,15 @@ def software_versions() -> dict[str, str]:
 
 @dataclass(frozen=True)
 class DataFingerprint:
-    """What identifies the data file without holding any of it."""
+    """What identifies the data without holding any of it: for a file its SHA-256, for rows
+    that stay in a database (``sha256`` empty) the source's name, rows and columns; and the
+    backend that aggregated them. A source's name never carries a user name or password."""
 
     sha256: str
     rows: int
     columns: tuple[str, ...]
     file_name: str | None = None
+    backend: str = "memory"
 
     def to_dict(self) -> dict:
         return {
@@ -59,6 +62,7 @@ class DataFingerprint:
             "sha256": self.sha256,
             "rows": self.rows,
             "columns": list(self.columns),
+            "backend": self.backend,
         }
 
     @classmethod
@@ -69,6 +73,7 @@ class DataFingerprint:
             rows=int(data["rows"]),
             columns=tuple(str(c) for c in data["columns"]),
             file_name=data.get("file_name"),
+            backend=str(data.get("backend", "memory")),
         )
 
     @classmethod
@@ -326,11 +331,15 @@ def check_fingerprint(recipe: Recipe, imported) -> list[str]:
     A difference is a warning, not an error: a colleague may replay a recipe on an updated export
     on purpose, and must be told what changed so the numbers are not mistaken for the original.
     """
-    expected = recipe.fingerprint
-    actual = DataFingerprint.of(imported)
+    return fingerprint_differences(recipe.fingerprint, DataFingerprint.of(imported))
+
+
+def fingerprint_differences(expected: DataFingerprint, actual: DataFingerprint) -> list[str]:
+    """What differs between two fingerprints; the SHA-256 is compared only where both have
+    one (rows in a database have none, so their rows and columns are compared)."""
     made_with = f" ({expected.file_name})" if expected.file_name else ""
     differences = []
-    if actual.sha256 != expected.sha256:
+    if actual.sha256 and expected.sha256 and actual.sha256 != expected.sha256:
         differences.append(
             f"The data file is not the one the recipe was made with{made_with}: its SHA-256 is "
             f"{actual.sha256[:12]}…, the recipe expects {expected.sha256[:12]}…. Results may "

@@ -1,8 +1,9 @@
 """`run_analysis` for data that stay in a database: the same sections from per-time sums.
 
 Sections that need the rows themselves (a comparison cut at a column's quantiles, strata from a
-column without a role, competing risks, parametric and landmark analyses, Harrell's C) say so in
-one sentence as ``{"not_computed": reason}`` instead of silently changing meaning.
+column without a role, parametric and landmark analyses, the Fine–Gray model) say so in one
+sentence as ``{"not_computed": reason}`` instead of silently changing meaning. Harrell's C comes
+from score bins, with the bound on its error beside it (``concordance_counts``).
 """
 
 from __future__ import annotations
@@ -22,11 +23,11 @@ from engine.analysis import (
 )
 from engine.cox import cox_json
 from engine.errors import RoleError
+from engine.json_values import json_float
 from engine.summary import COMPARISON_KEYS, curve_set_json
 
 SAMPLE_HINT = "; run it with --backend memory on the rows (or on a random sample of them)."
 NEEDS_ROWS = {
-    "competing": "Competing-risk incidence is not yet computed from per-time sums",
     "parametric": "Parametric fits need the rows, which stay in the database",
     "landmark": "A landmark analysis is not yet computed from per-time sums",
     "performance": "Prediction performance needs each row's risk score",
@@ -64,10 +65,17 @@ def comparison_from_data(data: AggregatedData, chosen: Mapping) -> dict | None:
     return {k: result[k] for k in COMPARISON_KEYS}
 
 
-def cox_from_data(data: AggregatedData, chosen: Mapping, *, drop_one: bool = True):
+def cox_from_data(
+    data: AggregatedData,
+    chosen: Mapping,
+    *,
+    drop_one: bool = True,
+    event: str = "_event",
+    concordance: bool = True,
+):
     """The Cox model of the roles (or the settings' variant of it) from per-time sums; the
     ``CoxResult``, its PH test (or ``{"not_computed": reason}``) and the SQL source (which
-    counts its passes)."""
+    counts its passes). ``event``: the SQL of the event (a cause-specific model's cause)."""
     roles = data.roles
     covariates = list(roles.covariates) if chosen["covariates"] is None else chosen["covariates"]
     outside = [c for c in covariates if c not in roles.covariates]
@@ -87,6 +95,7 @@ def cox_from_data(data: AggregatedData, chosen: Mapping, *, drop_one: bool = Tru
         categorical=categorical,
         reference={c: levels[c] for c in covariates if c in levels} or None,
         strata=roles.strata if use_strata else None,
+        event=event,
     )
     strata_keys = data.levels["_strata"].keys if use_strata else None
     source = SqlCoxSource(data, rows, bounds, strata_keys)
@@ -97,6 +106,7 @@ def cox_from_data(data: AggregatedData, chosen: Mapping, *, drop_one: bool = Tru
         confidence=chosen["confidence"],
         drop_one=drop_one,
         ph_time_scale=chosen["ph_time_scale"],
+        concordance=source.concordance if concordance else None,
         not_estimable=not_estimable,
         strata=roles.strata if use_strata else None,
     )
@@ -117,6 +127,7 @@ def cox_section(data: AggregatedData, cox: Mapping) -> dict:
         )
     result, ph, _ = cox_from_data(data, cox)
     section = {**cox_json(result), "ph_check": ph} if is_not_computed(ph) else cox_json(result, ph)
+    section = with_error_bound(section, result.concordance)
     section["splines"] = (
         not_computed("Splines are not yet computed from per-time sums" + SAMPLE_HINT)
         if cox.get("splines")
@@ -128,6 +139,17 @@ def cox_section(data: AggregatedData, cox: Mapping) -> dict:
         else None
     )
     return section
+
+
+def with_error_bound(section: dict, concordance) -> dict:
+    """The section with ``concordance_error_bound`` after ``concordance_se``: how far the C of
+    score bins can be from the exact C (0 when each distinct score is its own bin)."""
+    out = {}
+    for key, value in section.items():
+        out[key] = value
+        if key == "concordance_se":
+            out["concordance_error_bound"] = json_float(concordance.error_bound)
+    return out
 
 
 def run_aggregate_analysis(data: AggregatedData, settings: Mapping | None = None) -> dict:
@@ -153,7 +175,15 @@ def run_aggregate_analysis(data: AggregatedData, settings: Mapping | None = None
     for name in chosen:
         if name in CORE_ANALYSES:
             continue
-        if name == "sample_size":
+        if name == "competing":
+            from engine.aggregate.competing import competing_from_data
+
+            sections[name] = computed(
+                competing_from_data,
+                data,
+                {**chosen[name], "confidence": curves["confidence"], "ties": cox["ties"]},
+            )
+        elif name == "sample_size":
             from engine.analysis_extra import sample_size_section
 
             sections[name] = computed(

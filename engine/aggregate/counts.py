@@ -20,18 +20,28 @@ import pandas as pd
 from engine.errors import AnalysisError
 from engine.risk_table import RiskTable
 
-EXIT_COLUMNS = ("group", "stratum", "time", "events", "censored")
+EXIT_COLUMNS = ("group", "stratum", "time", "events", "censored", "competing")
 ENTRY_COLUMNS = ("group", "stratum", "entry", "rows")
+CAUSE_COLUMNS = ("group", "stratum", "time", "cause", "events")
 
 
 @dataclass(frozen=True)
 class CountTable:
-    """Exits per (group, stratum, time) and entries per (group, stratum, entry time)."""
+    """Exits per (group, stratum, time) and entries per (group, stratum, entry time); with
+    named causes, the events of each cause per (group, stratum, time) as well."""
 
     exits: pd.DataFrame  # EXIT_COLUMNS; codes int64, time float64, counts int64
     entries: pd.DataFrame | None  # ENTRY_COLUMNS, or None without delayed entry
     group_labels: tuple | None  # None: no group role
     strata_labels: tuple | None  # None: no strata role
+    # named causes in ``competing.aalen_johansen``'s order (sorted); ``cause`` codes into them.
+    # ``censored`` includes the rows of competing causes, counted again in ``competing``.
+    causes: tuple[str, ...] | None = None
+    cause_exits: pd.DataFrame | None = None  # CAUSE_COLUMNS
+
+    @property
+    def competing(self) -> int:
+        return int(self.exits["competing"].sum())
 
     @property
     def rows(self) -> int:
@@ -53,18 +63,37 @@ class CountTable:
         }
 
 
-def count_table(exits: pd.DataFrame, entries, group_labels, strata_labels) -> CountTable:
-    """A ``CountTable`` from aggregated rows (cells may repeat; they are summed here)."""
-    exits = _summed(exits, ["group", "stratum", "time"], ["events", "censored"])
+def count_table(
+    exits: pd.DataFrame, entries, group_labels, strata_labels, *, causes=None
+) -> CountTable:
+    """A ``CountTable`` from aggregated rows (cells may repeat; they are summed here). With
+    ``causes`` (names), ``exits`` has a ``cause`` column: a name, or None for censored rows."""
+    keys = ["group", "stratum", "time"]
+    cause_exits = None
+    if causes is None:
+        exits = exits.assign(competing=0)
+    else:
+        causes = tuple(causes)
+        named = exits["cause"].notna().to_numpy()
+        exits = exits.assign(competing=np.where(named, exits["censored"], 0))
+        code = {name: i for i, name in enumerate(causes)}
+        cells = exits[named]
+        cells = cells.assign(
+            cause=np.array([code[str(c)] for c in cells["cause"]], dtype=np.int64),
+            events=cells["events"] + cells["censored"],
+        )
+        cause_exits = _summed(cells[list(CAUSE_COLUMNS)], [*keys, "cause"], ["events"])
+    exits = _summed(exits, keys, ["events", "censored", "competing"])
     if entries is not None:
         entries = _summed(entries, ["group", "stratum", "entry"], ["rows"])
     labels = None if group_labels is None else tuple(group_labels)
     strata = None if strata_labels is None else tuple(strata_labels)
-    return CountTable(exits, entries, labels, strata)
+    return CountTable(exits, entries, labels, strata, causes, cause_exits)
 
 
 def _summed(frame: pd.DataFrame, keys: list[str], values: list[str]) -> pd.DataFrame:
-    frame = frame.astype({k: np.int64 for k in keys[:2]} | {v: np.int64 for v in values})
+    codes = [k for k in keys if k != keys[2]]
+    frame = frame.astype({k: np.int64 for k in codes} | {v: np.int64 for v in values})
     frame = frame.astype({keys[2]: np.float64})
     out = frame.groupby(keys, sort=True, as_index=False)[values].sum()
     return out.reset_index(drop=True)

@@ -94,30 +94,95 @@ def risk_set_sums(sums: CoxSums):
     return r0, r1, r2
 
 
+# Bernoulli numbers B2, B4, ..., B14 for the asymptotic series of log Γ, ψ and ψ′
+_BERNOULLI = np.array([1 / 6, -1 / 30, 1 / 42, -1 / 30, 5 / 66, -691 / 2730, 7 / 6])
+_SERIES_FROM = 10.0  # the series (7 terms) is used for arguments >= this: error < 1e-16
+EFRON_DIRECT_TIES = 64  # up to this many tied events the sums over l are added term by term
+
+
+def _tie_sums(x: np.ndarray, d: np.ndarray):
+    """Σ log(x − l), Σ 1/(x − l) and Σ 1/(x − l)² over l = 0..d−1, for x ≥ d, in O(1) each.
+
+    They are log Γ(x+1) − log Γ(x−d+1), ψ(x+1) − ψ(x−d+1) and ψ′(x−d+1) − ψ′(x+1). For a
+    smallest argument y1 = x−d+1 of at least 10 the differences come from the asymptotic
+    series written so that nothing cancels (log1p(d/y1), d/(y1·y2), …): a registry time has
+    thousands of tied events among millions at risk, where ψ(x+1) − ψ(x−d+1) taken directly
+    would lose most of its digits. Below 10 (nearly every row at risk has the event) the
+    functions are evaluated directly, where there is nothing to lose.
+    """
+    from scipy.special import gammaln, polygamma, psi
+
+    y1 = x - d + 1.0
+    y2 = x + 1.0
+    log_sum = np.empty_like(x)
+    h1 = np.empty_like(x)
+    h2 = np.empty_like(x)
+    big = y1 >= _SERIES_FROM
+    if big.any():
+        a, b, n = y1[big], y2[big], d[big]
+        ratio = np.log1p(n / a)
+        # log Γ(b) − log Γ(a) = (a − ½)·log(b/a) + n·log b − n
+        #   + Σ B2k/(2k(2k−1))·(b^(1−2k) − a^(1−2k))
+        lg = (a - 0.5) * ratio + n * np.log(b) - n
+        dg = ratio - 0.5 * (1.0 / b - 1.0 / a)  # ψ(b) − ψ(a), leading terms: log + 1/(2y)
+        tg = n / (a * b) + 0.5 * (1.0 / (a * a) - 1.0 / (b * b))  # ψ′(a) − ψ′(b)
+        for k, bern in enumerate(_BERNOULLI, start=1):
+            lg += bern / (2 * k * (2 * k - 1)) * (b ** (1 - 2 * k) - a ** (1 - 2 * k))
+            dg -= bern / (2 * k) * (b ** (-2 * k) - a ** (-2 * k))
+            tg += bern * (a ** (-2 * k - 1) - b ** (-2 * k - 1))
+        log_sum[big], h1[big], h2[big] = lg, dg, tg
+    small = ~big
+    if small.any():
+        a, b = y1[small], y2[small]
+        log_sum[small] = gammaln(b) - gammaln(a)
+        h1[small] = psi(b) - psi(a)
+        h2[small] = polygamma(1, a) - polygamma(1, b)
+    return log_sum, h1, h2
+
+
 def _efron_sums(d: np.ndarray, r0: np.ndarray, d0: np.ndarray, ties: str):
     """Per group: Σ log den, Σ a, Σ b, Σ a², Σ ab, Σ b² over the l = 0..d−1 tied events, with
-    den = R0 − f D0, f = l/d (0 for Breslow), a = 1/den, b = f/den."""
+    den = R0 − f D0, f = l/d (0 for Breslow), a = 1/den, b = f/den.
+
+    Groups of up to ``EFRON_DIRECT_TIES`` events are summed term by term; larger ones in
+    closed form (``_tie_sums``), so the cost grows with the distinct times, not the events.
+    With B = D0/d and x = R0/B, den = B·(x − l), and l/(x−l) = x/(x−l) − 1 turns every sum
+    into H1 = Σ 1/(x−l) and H2 = Σ 1/(x−l)².
+    """
     d = d.astype(np.int64)
     if ties == "breslow":
         a = 1.0 / r0
         zero = np.zeros_like(r0)
         return d * np.log(r0), d * a, zero, d * a * a, zero, zero
     out = [np.zeros(len(d)) for _ in range(6)]
-    ends = np.cumsum(d)
+    many = d > EFRON_DIRECT_TIES
+    if many.any():
+        n = d[many].astype(float)
+        unit = d0[many] / n
+        x = np.maximum(r0[many] / unit, n)  # R0 >= D0; rounding must not put x below d
+        log_sum, h1, h2 = _tie_sums(x, n)
+        out[0][many] = n * np.log(unit) + log_sum
+        out[1][many] = h1 / unit
+        out[2][many] = (x * h1 - n) / (n * unit)
+        out[3][many] = h2 / unit**2
+        out[4][many] = (x * h2 - h1) / (n * unit**2)
+        out[5][many] = (x * x * h2 - 2.0 * x * h1 + n) / (n * n * unit**2)
+    few = np.flatnonzero(~many & (d > 0))
+    ends = np.cumsum(d[few])
     start = 0
-    while start < len(d):
+    while start < len(few):
         done = ends[start - 1] if start else 0
         stop = max(int(np.searchsorted(ends, done + EFRON_CHUNK, side="right")), start + 1)
-        block = slice(start, stop)
+        block = few[start:stop]
         sizes = d[block]
-        group = np.repeat(np.arange(stop - start), sizes)
+        group = np.repeat(np.arange(len(block)), sizes)
         place = np.arange(group.size) - np.repeat(np.cumsum(sizes) - sizes, sizes)
         f = place / sizes[group]
         den = r0[block][group] - f * d0[block][group]
         a = 1.0 / den
         b = f * a
         for total, values in zip(out, (np.log(den), a, b, a * a, a * b, b * b), strict=True):
-            total[block] = np.bincount(group, values, stop - start)
+            total[block] = np.bincount(group, values, len(block))
         start = stop
     return tuple(out)
 

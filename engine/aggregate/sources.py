@@ -39,6 +39,8 @@ class SqlSource:
     relation: str
     name: str
     connection: object = field(repr=False)
+    kept: list = field(default_factory=list, repr=False)  # Spark frames cached by materialize
+    path: Path | None = None  # the file or folder read (none for a database)
 
     def query(self, sql: str) -> pd.DataFrame:
         try:
@@ -62,6 +64,42 @@ class SqlSource:
                 "or query and the column roles."
             ) from exc
 
+    def materialize(self, sql: str, name: str) -> str | None:
+        """Keep the (small) result of ``sql`` as a temporary table inside the backend and
+        return its name, or None where the session may not create one (PostgreSQL sessions
+        are read-only): the Cox model's passes then read the compressed cells instead of the
+        rows."""
+        try:
+            if self.backend == "duckdb":
+                self.connection.execute(f"CREATE OR REPLACE TEMP TABLE {name} AS {sql}")
+                return name
+            if self.backend == "spark":
+                frame = self.connection.sql(sql).cache()
+                frame.count()  # computed once, here
+                frame.createOrReplaceTempView(name)
+                self.kept.append(frame)
+                return name
+        except Exception as exc:  # the database's own message says what failed
+            message = " ".join(str(exc).split())
+            raise SourceError(
+                f"The {self.backend} backend could not keep the model's cells for {self.name}: "
+                f"{message}."
+            ) from exc
+        return None
+
+    def random_sample(self, rows: int, seed: int) -> pd.DataFrame:
+        """``rows`` rows of the source, those with the smallest hash of the whole row and the
+        seed: the same rows every time for the same data and seed, and a simple random sample
+        as far as the hash is uniform (identical rows share a hash, and are identical)."""
+        columns = ", ".join(quoted(str(c)) for c in self.sample().columns)
+        if self.backend == "duckdb":
+            key = f"hash({columns}, {int(seed)})"
+        elif self.backend == "spark":
+            key = f"xxhash64({columns}, {int(seed)})"
+        else:
+            key = f"md5(CAST(ROW({columns}) AS TEXT) || {literal(str(int(seed)))})"
+        return self.query(f"SELECT * FROM {self.relation} ORDER BY {key} LIMIT {int(rows)}")
+
     def sample(self) -> pd.DataFrame:
         """The first rows, for the column types and the examples in messages."""
         return self.query(f"SELECT * FROM {self.relation} LIMIT {SAMPLE_ROWS}")
@@ -69,6 +107,9 @@ class SqlSource:
     def close(self) -> None:
         if self.backend == "spark":  # the session lives on for the process (one per run)
             self.connection.catalog.dropTempView(self.relation)
+            for frame in self.kept:
+                frame.unpersist()
+            self.kept.clear()
             return
         self.connection.close()
 
@@ -115,7 +156,41 @@ def open_duckdb(path: str | Path, *, sep: str | None = None, decimal: str | None
         "temp_directory": str(Path(tempfile.gettempdir()) / "hazel-duckdb"),
     }
     connection = duckdb.connect(":memory:", config=config)
-    return SqlSource("duckdb", duckdb.__version__, DUCKDB, relation, path.name, connection)
+    return SqlSource(
+        "duckdb", duckdb.__version__, DUCKDB, relation, path.name, connection, path=path
+    )
+
+
+def content_sha256(path: Path) -> str:
+    """SHA-256 of a file, or of a folder's files (each relative name and content, in sorted
+    order), read in chunks: the fingerprint a recipe and a report record."""
+    import hashlib
+
+    digest = hashlib.sha256()
+    files = [path] if path.is_file() else sorted(p for p in path.rglob("*") if p.is_file())
+    for file in files:
+        if file != path:
+            digest.update(str(file.relative_to(path)).encode() + b"\0")
+        with file.open("rb") as handle:
+            while chunk := handle.read(1 << 22):
+                digest.update(chunk)
+    return digest.hexdigest()
+
+
+def source_fingerprint(source: SqlSource, rows_read: int):
+    """The ``DataFingerprint`` of rows aggregated where they are: a file's or folder's SHA-256,
+    or none for a database (its rows are not read here), with the source's name (never a
+    user name or password), rows, columns and backend."""
+    from engine.recipe import DataFingerprint
+
+    columns = tuple(str(c) for c in source.query(f"SELECT * FROM {source.relation} LIMIT 0"))
+    return DataFingerprint(
+        sha256=content_sha256(source.path) if source.path is not None else "",
+        rows=int(rows_read),
+        columns=columns,
+        file_name=source.name,
+        backend=source.backend,
+    )
 
 
 def _csv_relation(path: Path, sep: str | None, decimal: str | None) -> str:
@@ -241,4 +316,4 @@ def open_spark(path: str | Path, *, master: str = "local[*]") -> SqlSource:
     except Exception as exc:
         message = " ".join(str(exc).split())[:300]
         raise SourceError(f"Spark could not read {path.name!r}: {message}") from exc
-    return SqlSource("spark", session.version, SPARK, SPARK_VIEW, path.name, session)
+    return SqlSource("spark", session.version, SPARK, SPARK_VIEW, path.name, session, path=path)

@@ -1,13 +1,13 @@
 """The data checks of ``engine.checks.prepare`` run inside a database, with the same rules,
 reasons and texts: rows read, used and excluded per reason (the first reason a row meets),
 the event coding from the event column's value counts, levels in natural order with the most
-frequent as reference, and the warnings on the rows used; start and end dates are turned into
-durations by ``sql_dates``. Roles whose checks are so far written only for rows in memory (an
-id column's episodes, named competing causes) are refused with a ``SettingError`` naming the
-column.
+frequent as reference, and the warnings on the rows used. Named causes are
+mapped as ``checks._event_codes`` maps them (``_cause``); start and end dates are turned into
+durations by ``sql_dates``. Roles whose checks are so far written only for rows in memory (an id
+column's episodes) are refused with a ``SettingError`` naming the column.
 
 Nothing but small tables comes back: value counts of the coded columns, a few totals, and the
-counts per (reason, group, stratum, time, event) and per (group, stratum, entry time).
+counts per (reason, group, stratum, time, event, cause) and per (group, stratum, entry time).
 The SQL of the checked rows (``AggregatedData.clean``) is what the Cox sums then read.
 """
 
@@ -63,7 +63,8 @@ class Levels:
 class AggregatedData:
     """What ``prepare`` gives, without the rows: the report, the counts, the levels, and the
     SQL of the checked rows (columns ``_reason``, ``_time``, ``_event``, ``_group``,
-    ``_strata``, ``_entry`` and ``c0``, ``c1``, ... for the covariates)."""
+    ``_strata``, ``_entry``, ``_cause`` and ``c0``, ``c1``, ... for the covariates, and ``_n``:
+    how many identical rows each is, see ``checked_cells``)."""
 
     source: SqlSource
     roles: Roles
@@ -73,6 +74,31 @@ class AggregatedData:
     levels: dict  # "_group", "_strata" and categorical covariates -> Levels
     covariate_columns: dict  # covariate -> its column in ``clean``
     kinds: dict
+
+    @property
+    def has_entry(self) -> bool:
+        return self.roles.entry is not None
+
+
+def checked_cells(source: SqlSource, clean: str, columns: list[str]) -> str:
+    """The checked rows merged, in one pass over the data, into cells of identical checked
+    values (reason, time, event, group, strata, entry, cause, covariates) with their count
+    ``_n``, kept as a temporary table where the backend can keep one (DuckDB, Spark).
+
+    Everything after the checks (the counts per reason, group, stratum and time; the Cox
+    model's design and Newton steps) reads the cells, weighting each by ``_n``: exact, since a
+    cell of n identical rows adds n times the same terms, and a registry's rows repeat a few
+    thousand days and a few covariate values. A read-only PostgreSQL session cannot keep a
+    table: there each query reads the checked rows, each a cell of one.
+    """
+    import uuid
+
+    listed = ", ".join(columns)
+    kept = source.materialize(
+        f"SELECT {listed}, COUNT(*) AS _n FROM ({clean}) AS checked GROUP BY {listed}",
+        f"hazel_checked_cells_{uuid.uuid4().hex[:12]}",  # one per check: a session may hold more
+    )
+    return f"SELECT * FROM {kept}" if kept else f"SELECT *, 1 AS _n FROM ({clean}) AS checked"
 
 
 def _factor(from_unit: str, to_unit: str) -> float | None:
@@ -160,8 +186,9 @@ def aggregate_checks(
         relation, time = dates.relation, dates.time
         conditions.extend(dates.conditions)
 
-    # event: coded from its value counts
+    # event: coded from its value counts; named causes as ``checks._event_codes`` maps them
     coding = None
+    cause = None
     if roles.event is None:
         notes.append("No event column: every row is treated as an event (no censoring).")
         event = "1"
@@ -190,12 +217,27 @@ def aggregate_checks(
             k for k, v in zip(present["k"], present["v"], strict=True) if value_key(v) in censored
         ]
         text = d.text(col)
+        kind = sample[roles.event].dtype
+        if pd.api.types.is_numeric_dtype(kind) and not pd.api.types.is_bool_dtype(kind):
+            # a numeric column is compared as numbers, not as its text: the same rows (each
+            # key is one number's text, and ``v`` that number), without a cast of every row
+            number_of = dict(zip(present["k"], present["v"], strict=True))
+
+            def matches(keys):
+                numbers = [number(number_of[k]) for k in keys]
+                return f"{col} IN ({', '.join(numbers)})" if numbers else "FALSE"
+
+            is_event, is_censored = matches(event_keys), matches(censored_keys)
+        else:
+            is_event, is_censored = _in(text, event_keys), _in(text, censored_keys)
         event = (
-            f"(CASE WHEN {col} IS NULL THEN -1 WHEN {_in(text, event_keys)} THEN 1 "
-            f"WHEN {_in(text, censored_keys)} THEN 0 ELSE -2 END)"
+            f"(CASE WHEN {col} IS NULL THEN -1 WHEN {is_event} THEN 1 "
+            f"WHEN {is_censored} THEN 0 ELSE -2 END)"
         )
         if pd.api.types.is_float_dtype(sample[roles.event]):
             event = f"(CASE WHEN {d.is_nan(col)} THEN -1 ELSE {event} END)"
+        if roles.event_causes:
+            cause = _cause_sql(roles, present, text, event)
     conditions.append((f"{event} = -1", MISSING_EVENT))
     conditions.append((f"{event} = -2", UNKNOWN_EVENT))
 
@@ -256,13 +298,18 @@ def aggregate_checks(
             select.append(f"{d.text(quoted(coded[role]))} AS {role}")
     if entry is not None:
         select.append(f"{entry} AS _entry")
+    if cause is not None:
+        select.append(f"{cause} AS _cause")
     covariate_columns = {}
     for i, column in enumerate(roles.covariates):
         covariate_columns[column] = f"c{i}"
         select.append(f"{covariate_sql[column]} AS c{i}")
     clean = f"SELECT {', '.join(select)} FROM {relation}"
+    clean = checked_cells(source, clean, [item.rsplit(" AS ", 1)[1] for item in select])
 
-    counts, excluded, rows_read = _counts(source, clean, levels, entry is not None)
+    counts, excluded, rows_read = _counts(
+        source, clean, levels, entry is not None, cause is not None
+    )
     for column in roles.covariates:
         missing = int(stats.get(f"missing::{column}", 0) or 0)
         if not require_covariates and missing:
@@ -277,13 +324,16 @@ def aggregate_checks(
             )
     by_group = _group_counts(counts)
     labels = [*_prepared_columns(roles), *(v for lv in levels.values() for v in lv.labels)]
+    labels += list(counts.causes or ())
     notes.extend(_warnings(source, counts, by_group, roles, labels_warning(labels)))
     events = counts.events
+    competing = counts.competing
     report = DataReport(
         rows_read=rows_read,
         rows_used=counts.rows,
         events=events,
-        censored=counts.rows - events,
+        censored=counts.rows - events - competing,
+        competing_events=competing,
         time_unit=roles.unit,
         excluded=excluded,
         warnings=tuple(notes),
@@ -294,22 +344,34 @@ def aggregate_checks(
     return AggregatedData(source, roles, report, counts, clean, levels, covariate_columns, kinds)
 
 
-ROW_LEVEL_ROLES = (
-    ("id", "an id column (episodes per subject, robust variance)"),
-    ("event_causes", "named competing causes"),
-)
+ROW_LEVEL_ROLES = (("id", "an id column (episodes per subject, robust variance)"),)
 
 
 def _refuse_row_level_roles(roles: Roles) -> None:
     """Roles whose checks need the rows in memory are refused with the column they name."""
     for name, what in ROW_LEVEL_ROLES:
-        value = getattr(roles, name)
-        if value:
-            column = roles.event if name == "event_causes" else value
+        column = getattr(roles, name)
+        if column:
             raise SettingError(
                 f"The role of {column!r} ({what}) is not yet checked inside a database; use "
                 "--backend memory for these data, or leave that role out."
             )
+
+
+def _cause_sql(roles: Roles, present: pd.DataFrame, text: str, event: str) -> str:
+    """The cause name of a row as ``checks._event_codes`` gives it: the name of its event
+    value; "event" for an event value without a name; NULL for censored, missing or unknown."""
+    names = {value_key(v): name for v, name in roles.event_causes}
+    keys: dict[str, list] = {}
+    for k, v in zip(present["k"], present["v"], strict=True):
+        name = names.get(value_key(v))
+        if name is not None:
+            keys.setdefault(name, []).append(k)
+    whens = " ".join(f"WHEN {_in(text, ks)} THEN {literal(name)}" for name, ks in keys.items())
+    return (
+        f"(CASE WHEN {event} < 0 THEN NULL {whens} WHEN {event} = 1 THEN {literal('event')} "
+        "ELSE NULL END)"
+    )
 
 
 def _infinite(expr: str, d) -> str:
@@ -423,16 +485,18 @@ def _codes(keys: pd.Series, levels: Levels | None) -> np.ndarray:
     return np.array([lookup.get(k, -1) if isinstance(k, str) else -1 for k in keys], np.int64)
 
 
-def _counts(source: SqlSource, clean: str, levels: dict, has_entry: bool):
-    """Rows per reason, and the exit and entry counts of the rows used (two passes)."""
+def _counts(source: SqlSource, clean: str, levels: dict, has_entry: bool, has_cause: bool):
+    """Rows per reason, and the exit (per cause, with causes) and entry counts of the rows
+    used (two passes)."""
     group = "_group" if "_group" in levels else "NULL"
     strata = "_strata" if "_strata" in levels else "NULL"
+    cause = "_cause" if has_cause else "NULL"
     used = "_reason IS NULL"
     sql = (
         f"SELECT _reason AS reason, CASE WHEN {used} THEN {group} END AS g, "
         f"CASE WHEN {used} THEN {strata} END AS s, CASE WHEN {used} THEN _time END AS t, "
-        f"CASE WHEN {used} THEN _event END AS e, COUNT(*) AS n FROM ({clean}) AS checked "
-        "GROUP BY 1, 2, 3, 4, 5"
+        f"CASE WHEN {used} THEN _event END AS e, CASE WHEN {used} THEN {cause} END AS c, "
+        f"SUM(_n) AS n FROM ({clean}) AS checked GROUP BY 1, 2, 3, 4, 5, 6"
     )
     table = source.query(sql)
     rows_read = int(table["n"].sum())
@@ -456,7 +520,7 @@ def _counts(source: SqlSource, clean: str, levels: dict, has_entry: bool):
     entries = None
     if has_entry:
         e = source.query(
-            f"SELECT {group} AS g, {strata} AS s, _entry AS en, COUNT(*) AS n FROM ({clean}) "
+            f"SELECT {group} AS g, {strata} AS s, _entry AS en, SUM(_n) AS n FROM ({clean}) "
             f"AS checked WHERE {used} GROUP BY 1, 2, 3"
         )
         entries = pd.DataFrame(
@@ -467,21 +531,32 @@ def _counts(source: SqlSource, clean: str, levels: dict, has_entry: bool):
                 "rows": e["n"].to_numpy(dtype=np.int64),
             }
         )
+    causes = None
+    if has_cause:
+        named = kept["c"].notna().to_numpy()
+        exits["cause"] = np.where(named, kept["c"].astype(object), None)
+        causes = sorted({str(c) for c in kept.loc[named, "c"]})
     g = levels.get("_group")
     s = levels.get("_strata")
     counts = count_table(
-        exits, entries, None if g is None else g.labels, None if s is None else s.labels
+        exits,
+        entries,
+        None if g is None else g.labels,
+        None if s is None else s.labels,
+        causes=causes,
     )
     return counts, excluded, rows_read
 
 
 def _group_counts(counts: CountTable) -> pd.DataFrame:
     """`data_warnings.group_counts` from the counts (rows, events, competing, censored per
-    group); no competing events, since named causes are refused."""
+    group)."""
     ex = counts.exits
     if counts.group_labels is None:
         n, events = counts.rows, counts.events
-        table = pd.DataFrame({"n": [n], "events": [events], "competing": [0]}, index=["all"])
+        table = pd.DataFrame(
+            {"n": [n], "events": [events], "competing": [counts.competing]}, index=["all"]
+        )
     else:
         size = len(counts.group_labels)
         has = ex["group"] >= 0
@@ -491,7 +566,9 @@ def _group_counts(counts: CountTable) -> pd.DataFrame:
             {
                 "n": np.rint(np.bincount(codes, rows, size)).astype(np.int64),
                 "events": np.rint(np.bincount(codes, ex.loc[has, "events"], size)),
-                "competing": np.zeros(size, dtype=np.int64),
+                "competing": np.rint(np.bincount(codes, ex.loc[has, "competing"], size)).astype(
+                    np.int64
+                ),
             },
             index=pd.Index(list(counts.group_labels), dtype=object),
         )
@@ -503,6 +580,7 @@ def _group_counts(counts: CountTable) -> pd.DataFrame:
 def _prepared_columns(roles: Roles) -> list[str]:
     """The prepared frame's column names (``checks.prepare``), for the labels warning."""
     names = ["_time", "_event"]
+    names += ["_cause"] if roles.event_causes and roles.event else []
     names += [n for n, c in (("_group", roles.group), ("_strata", roles.strata)) if c]
     names += ["_entry"] if roles.entry else []
     names += ["_id"] if roles.id else []

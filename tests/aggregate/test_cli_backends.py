@@ -8,14 +8,14 @@ import json
 import pytest
 
 from app.cli import main
-from tests.aggregate.cases import assert_same_json, messy_frame
+from tests.aggregate.cases import assert_same_json, competing_frame, messy_frame
 
 ROLE_ARGS = [
     "--time", "days", "--event", "status", "--group", "site", "--strata", "ward",
     "--entry", "enrolled", "--covariates", "age,stage", "--categorical", "stage",
     "--times", "100,365",
 ]  # fmt: skip
-NOT_FROM_SUMS = (".cox.concordance", ".cox.concordance_se", ".cox.warnings", ".computed_with")
+NOT_FROM_SUMS = (".cox.concordance_se", ".computed_with")  # se: not with delayed entry
 
 
 @pytest.fixture(scope="module")
@@ -51,6 +51,18 @@ def test_duckdb_file_and_folder_equal_memory(data, capsys):
         assert_same_json(memory, result, skip=NOT_FROM_SUMS)
 
 
+def test_competing_causes_from_duckdb_equal_memory(tmp_path, capsys):
+    path = str(tmp_path / "causes.parquet")
+    competing_frame(5, n=900).to_parquet(path)
+    causes = ["--competing", "dead=death", "--competing", "relapse=relapse"]
+    causes += ["--competing", "moved=moved"]
+    memory = analyze(capsys, path, "--backend", "memory", *causes)
+    database = analyze(capsys, path, "--backend", "duckdb", *causes)
+    assert database["competing"]["causes"] == ["death", "moved", "relapse"]
+    assert database["data"]["competing_events"] == memory["data"]["competing_events"] > 0
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+
+
 def test_text_output_names_the_backend(data, capsys):
     code = main(["analyze", str(data / "one.parquet"), "--backend", "duckdb", *ROLE_ARGS])
     out = capsys.readouterr().out
@@ -64,10 +76,8 @@ def test_text_output_names_the_backend(data, capsys):
     [
         (["--backend", "memory", "--query", "SELECT 1"], "need DATA to be a database address"),
         (["--table", "t"], "need DATA to be a database address"),
-        (["--backend", "duckdb", "--report", "x.html"], "--report is not available"),
         (["--backend", "duckdb", "--filter", "age:at_least:50"], "--filter is not available"),
         (["--backend", "duckdb", "--id", "ward"], "'ward'"),
-        (["--backend", "duckdb", "--competing", "alive=other"], "named competing causes"),
     ],
 )
 def test_bad_backend_options_exit_2(data, capsys, extra, message):

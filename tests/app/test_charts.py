@@ -376,3 +376,21 @@ def test_a_line_break_in_a_label_does_not_break_the_image_export():
     spec = charts.finish(chart, STYLE)
     assert not any("\n" in text for text in _strings(spec))
     assert exports.figure_svg(spec).startswith("<svg")
+
+
+@pytest.mark.parametrize("label", ['{"v": "\\""}', "ends in a backslash \\", 'C:\\data\\"x"'])
+def test_a_backslash_in_a_label_does_not_break_the_image_export(label):
+    """Found by the large fuzz run (seed 404, 2 crashes in 10,000 cases): the renderer quotes a
+    tooltip title without escaping its backslashes, so a categorical level holding \\" broke
+    its expression parser. Backslashes are drawn as the look-alike U+29F5, in the titles and in
+    the data alike, so a legend's domain still matches its rows."""
+    points = pd.DataFrame({"x": [0.1, 0.5, 0.9], "residual": [0.2, -0.1, 0.3]})
+    chart = charts_models.residual_chart(
+        points, STYLE, x_title="Time", y_title=f"β(t) for c1: {label} vs c", zero_line=0.1
+    )
+    spec = charts.finish(chart, STYLE)
+    assert not any("\\" in text for text in _strings(spec))
+    assert exports.figure_svg(spec).startswith("<svg")
+    frame = pd.DataFrame({"group": [label, "plain"], "n": [1, 2]})
+    shown = charts.visible_spec({"domain": [label, "plain"], "data": frame})
+    assert shown["domain"] == list(shown["data"]["group"])

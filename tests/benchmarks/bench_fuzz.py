@@ -103,6 +103,11 @@ def main() -> None:
         outcomes.append(outcome)
         if outcome.kind == "crash":
             places[outcome.detail.strip().splitlines()[-1][:160]] += 1
+            kept = folder / f"crash-{len(outcomes)}"  # the input and roles, to replay it
+            kept.mkdir()
+            (kept / (Path(name).name or "input")).write_bytes(content)
+            (kept / "roles.txt").write_text(repr(chosen.get("roles")) + "\n" + outcome.detail)
+            print(f"  crash at case {len(outcomes)}: kept in {kept}", flush=True)
         if len(outcomes) % args.cli_every == 0 and "roles" in chosen:
             code, problem = cli_case(content, name, chosen["roles"], folder)
             cli[code] += 1

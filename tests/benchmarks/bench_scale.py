@@ -2,7 +2,7 @@
 
 Builds (once, in /tmp unless --path is given) an invented Parquet file of N rows with 4 columns:
 ``days`` (whole days, ~3,650 distinct), ``died`` (0/1), ``arm`` (control / treated) and ``age``
-(one decimal). Then measures, in the same run:
+(one decimal, or whole years with ``--age-decimals 0``). Then measures, in the same run:
 
 - one DuckDB pass ``SELECT arm, days, died, COUNT(*) ... GROUP BY`` over the file (the baseline);
 - ``python -m app analyze FILE --backend duckdb`` with the group ``arm`` and a 2-term Cox model
@@ -35,7 +35,7 @@ ROOT = Path(__file__).resolve().parents[2]
 CHUNK = 5_000_000
 
 
-def build(path: Path, rows: int, seed: int = 2026) -> None:
+def build(path: Path, rows: int, seed: int = 2026, age_decimals: int = 1) -> None:
     rng = np.random.default_rng(seed)
     schema = pa.schema(
         [("days", pa.float64()), ("died", pa.int8()), ("arm", pa.string()), ("age", pa.float64())]
@@ -45,7 +45,7 @@ def build(path: Path, rows: int, seed: int = 2026) -> None:
         while done < rows:
             n = min(CHUNK, rows - done)
             treated = rng.random(n) < 0.5
-            age = np.round(rng.normal(64, 10, n), 1)
+            age = np.round(rng.normal(64, 10, n), age_decimals)
             rate = np.exp(-7.0 + 0.03 * (age - 64) - 0.25 * treated)
             event_time = rng.exponential(1 / rate)
             censor_time = rng.uniform(30, 3650, n)
@@ -113,11 +113,20 @@ def main() -> None:
     parser.add_argument("--rows", type=int, default=100_000_000)
     parser.add_argument("--path", type=Path)
     parser.add_argument("--keep", action="store_true")
+    parser.add_argument(
+        "--age-decimals",
+        type=int,
+        default=1,
+        help="decimals of the age column (0: whole years, as registries often hold it)",
+    )
     args = parser.parse_args()
-    path = args.path or Path(tempfile.gettempdir()) / f"hazel_bench_{args.rows}.parquet"
+    stem = f"hazel_bench_{args.rows}" + (
+        f"_age{args.age_decimals}" if args.age_decimals != 1 else ""
+    )
+    path = args.path or Path(tempfile.gettempdir()) / f"{stem}.parquet"
     if not path.exists():
         start = time.perf_counter()
-        build(path, args.rows)
+        build(path, args.rows, age_decimals=args.age_decimals)
         print(f"built {path} ({path.stat().st_size / 2**20:.0f} MiB) in "
               f"{time.perf_counter() - start:.0f} s")  # fmt: skip
     try:

@@ -222,3 +222,20 @@ def test_bounds_stay_finite_when_every_subject_has_one_cause():
     assert table["cumulative_incidence"].iloc[-1] == 1.0
     assert (table["lower"] <= table["cumulative_incidence"]).all()
     assert (table["cumulative_incidence"] <= table["upper"]).all()
+
+
+def test_rows_without_a_group_are_in_no_group(rng):
+    """As for the curves: a row without a group counts in the overall estimate only; each
+    group's estimate is that of its own rows (it used to be an error)."""
+    time, _, cause = _competing_sample(rng, n=200)
+    group = pd.Categorical(rng.choice(["a", "b"], 200).astype(object))
+    group[:15] = np.nan
+    frame = pd.DataFrame({"_time": time, "_cause": cause, "_group": group})
+    split = cumulative_incidence(frame).table
+    assert set(split["group"]) == {"a", "b"}
+    for label in ("a", "b"):
+        alone = aalen_johansen(time[group == label], cause[group == label]).table
+        part = split[split["group"] == label].reset_index(drop=True)
+        assert_allclose(part["cumulative_incidence"], alone["cumulative_incidence"], rtol=1e-15)
+    overall = cumulative_incidence(frame, by_group=False).table
+    assert overall["n_at_risk"].max() == 200
