@@ -203,6 +203,9 @@ def cox_model_inputs(
             "categorical": categorical_covariates(frame, chosen),
             "reference": {c: levels[c] for c in chosen if c in levels} or None,
             "strata": strata_column,
+            "strata_name": None
+            if stratum is None
+            else (prepared.roles.strata if strata is None else str(strata)),
             "entry": "_entry" if "_entry" in frame.columns else None,
             "clusters": "_id" if "_id" in frame.columns else None,
         },

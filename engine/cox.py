@@ -166,11 +166,11 @@ def _strata_codes(frame, used, strata):
     return values.codes.astype(np.int64), tuple(str(c) for c in values.categories)
 
 
-def _drop_within_strata_constant(
-    design: Design, codes: np.ndarray, strata: str
+def drop_not_estimable(
+    design: Design, constant: Sequence[int], strata: str
 ) -> tuple[Design, tuple[str, ...]]:
-    """The design without the terms that do not vary within any stratum, and their labels."""
-    constant = within_strata_constant(design, codes)
+    """The design without the terms ``constant`` (they do not vary within any stratum of
+    ``strata``) and their labels; an error when that leaves no term."""
     if not constant:
         return design, ()
     labels = tuple(design.terms[j].label for j in constant)
@@ -181,6 +181,59 @@ def _drop_within_strata_constant(
             "them. Drop the strata, or choose covariates that vary within strata."
         )
     return without_terms(design, constant), labels
+
+
+SINGULAR_INFORMATION = (
+    "The Cox model's information matrix is singular: some covariates carry no "
+    "information about the events. Remove covariates with few distinct values or events."
+)
+
+
+def fit_warnings(
+    design: Design,
+    fit,
+    events: int,
+    not_estimable: Sequence[str] = (),
+    strata: str | None = None,
+) -> tuple[list[str], bool]:
+    """The warnings of a fitted Cox model (the design's own, terms left out, no convergence,
+    runaway coefficients, events per parameter) and whether any estimate is finite; ``fit`` is
+    a ``cox_likelihood`` fit (``converged``, ``iterations``, ``last_step``). Shared by the fit
+    from rows and the fit from per-time sums so both say the same."""
+    p = len(design.terms)
+    warnings = list(design.warnings)
+    if not_estimable:
+        warnings.append(
+            f"Covariate term(s) {preview_values(not_estimable)} take a single value within every "
+            f"stratum of '{strata}', so the stratified model cannot estimate their effect; they "
+            "are left out of the model and of its tests' degrees of freedom."
+        )
+    if not fit.converged:
+        warnings.append(
+            f"The fit did not converge after {fit.iterations} iterations; the estimates may be "
+            "unreliable. Remove sparse covariates or merge small levels."
+        )
+    runaway = [design.terms[j].label for j in np.flatnonzero(np.abs(fit.last_step) > RUNAWAY_STEP)]
+    if runaway:
+        warnings.append(
+            f"Coefficient(s) for {', '.join(runaway)} run off to infinity (monotone likelihood, "
+            "e.g. a level with no events or a covariate that separates events perfectly); their "
+            "hazard ratios and tests are not meaningful. Merge or remove those levels."
+        )
+    finite_estimates = len(runaway) < p
+    if not finite_estimates:
+        warnings.append(
+            "The likelihood-ratio and Wald tests of the whole model are not reported: every "
+            "coefficient runs off to infinity, so there is no finite estimate to test. The score "
+            "test, computed at zero, still holds."
+        )
+    if events / p < EVENTS_PER_PARAMETER:
+        warnings.append(
+            f"Only {events / p:.1f} events per model parameter ({events} events, {p} parameters): "
+            f"fewer than {EVENTS_PER_PARAMETER} (a common rule of thumb, after Peduzzi et al. "
+            "1995); the estimates may be biased and the tests unreliable. Use fewer covariates."
+        )
+    return warnings, finite_estimates
 
 
 def fit_cox(
@@ -199,13 +252,15 @@ def fit_cox(
     max_iterations: int = 50,
     clusters: str | None = None,
     variance: str = "auto",
+    strata_name: str | None = None,
 ) -> CoxResult:
     """Fit a Cox model by Newton–Raphson on the complete cases of the model's variables.
 
     ``variance``: "model" (inverse information), "robust" (the sandwich of Lin and Wei 1989,
     summed within the ``clusters`` column's values, or per row without one) or "auto": robust
     when the ``clusters`` column repeats a value among the rows used (several rows per subject:
-    episodes or recurrent events), else model-based.
+    episodes or recurrent events), else model-based. ``strata_name``: what the messages call
+    the strata (the user's column when ``strata`` is a working column).
     """
     if variance not in VARIANCES:
         raise AnalysisError(f"Variance {variance!r} is not known; use 'auto', 'model' or 'robust'.")
@@ -225,7 +280,9 @@ def fit_cox(
     codes, strata_levels = _strata_codes(frame, used, strata)
     not_estimable: tuple[str, ...] = ()
     if codes is not None:
-        design, not_estimable = _drop_within_strata_constant(design, codes, strata)
+        strata_name = strata if strata_name is None else strata_name
+        constant = within_strata_constant(design, codes)
+        design, not_estimable = drop_not_estimable(design, constant, strata_name)
     entry_values = None if entry is None else frame[entry].to_numpy(dtype=float)[used]
     if entry_values is not None and np.any(entry_values >= time):
         bad = np.flatnonzero(entry_values >= time)
@@ -243,50 +300,16 @@ def fit_cox(
     center, scale = design.center, design.scale
     scaled = (design.matrix[layout.order] - center) / scale
     fit = newton_raphson(layout, scaled, ties, max_iter=max_iterations)
-    warnings = list(design.warnings)
-    if not_estimable:
-        warnings.append(
-            f"Covariate term(s) {preview_values(not_estimable)} take a single value within every "
-            f"stratum of '{strata}', so the stratified model cannot estimate their effect; they "
-            "are left out of the model and of its tests' degrees of freedom."
-        )
     p = scaled.shape[1]
     try:
         cov_scaled = np.linalg.inv(fit.information)
     except np.linalg.LinAlgError as exc:
-        raise AnalysisError(
-            "The Cox model's information matrix is singular: some covariates carry no "
-            "information about the events. Remove covariates with few distinct values or events."
-        ) from exc
+        raise AnalysisError(SINGULAR_INFORMATION) from exc
     beta = fit.beta / scale
     covariance = cov_scaled / np.outer(scale, scale)
-    if not fit.converged:
-        warnings.append(
-            f"The fit did not converge after {fit.iterations} iterations; the estimates may be "
-            "unreliable. Remove sparse covariates or merge small levels."
-        )
-    runaway = [design.terms[j].label for j in np.flatnonzero(np.abs(fit.last_step) > RUNAWAY_STEP)]
-    if runaway:
-        warnings.append(
-            f"Coefficient(s) for {', '.join(runaway)} run off to infinity (monotone likelihood, "
-            "e.g. a level with no events or a covariate that separates events perfectly); their "
-            "hazard ratios and tests are not meaningful. Merge or remove those levels."
-        )
-    finite_estimates = len(runaway) < p
-    no_test = ChiSquareTest("model", float("nan"), p, float("nan"))
-    if not finite_estimates:
-        warnings.append(
-            "The likelihood-ratio and Wald tests of the whole model are not reported: every "
-            "coefficient runs off to infinity, so there is no finite estimate to test. The score "
-            "test, computed at zero, still holds."
-        )
     events = int(event.sum())
-    if events / p < EVENTS_PER_PARAMETER:
-        warnings.append(
-            f"Only {events / p:.1f} events per model parameter ({events} events, {p} parameters): "
-            f"fewer than {EVENTS_PER_PARAMETER} (a common rule of thumb, after Peduzzi et al. "
-            "1995); the estimates may be biased and the tests unreliable. Use fewer covariates."
-        )
+    warnings, finite_estimates = fit_warnings(design, fit, events, not_estimable, strata_name)
+    no_test = ChiSquareTest("model", float("nan"), p, float("nan"))
     cluster_codes = _cluster_codes(frame, used, clusters, variance)
     robust = None
     if cluster_codes is not None:

@@ -204,7 +204,13 @@ def within_strata_constant(design: Design, codes: np.ndarray) -> list[int]:
     spread = np.maximum.reduceat(matrix, starts, axis=0) - np.minimum.reduceat(
         matrix, starts, axis=0
     )
-    tolerance = 1e-12 * (1 + np.abs(design.center))
+    return constant_in_every_group(spread, design.center)
+
+
+def constant_in_every_group(spread: np.ndarray, center: np.ndarray) -> list[int]:
+    """Columns whose spread (max − min, one row per group) is nil in every group, to the
+    tolerance of the constant-covariate check; the rows may come from memory or a database."""
+    tolerance = 1e-12 * (1 + np.abs(center))
     return [int(j) for j in np.flatnonzero(np.all(spread <= tolerance, axis=0))]
 
 

@@ -90,21 +90,40 @@ def _parse_values(values: list, date_format: str | None, day_first: bool) -> np.
     if not texts:
         return out
     if date_format is None and _ISO_START.match(texts[0]):
-        fast = _iso(texts)  # each value on its own: with or without a time, an offset
-    else:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            fast = pd.to_datetime(
-                pd.Series(texts, dtype=object),
-                format=date_format,
-                dayfirst=day_first,
-                errors="coerce",
-                utc=True,
-            )
-        fast = fast.dt.tz_localize(None).to_numpy().astype("datetime64[s]")
+        out[text_at] = parse_iso_texts(texts, day_first)
+        return out
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        fast = pd.to_datetime(
+            pd.Series(texts, dtype=object),
+            format=date_format,
+            dayfirst=day_first,
+            errors="coerce",
+            utc=True,
+        )
+    fast = fast.dt.tz_localize(None).to_numpy().astype("datetime64[s]")
     for i, text, value in zip(text_at, texts, fast, strict=True):
         out[i] = value if not np.isnat(value) else _slow_parse(text, date_format, day_first)
     return out
+
+
+def is_iso_text(text: str) -> bool:
+    """Whether a column whose first text value is ``text`` is read as ISO 8601 (automatic
+    format): then each value is read on its own, by ``parse_iso_texts``."""
+    return bool(_ISO_START.match(text.strip()))
+
+
+def parse_iso_texts(texts: list[str], day_first: bool) -> np.ndarray:
+    """Stripped texts of a column read as ISO 8601, each on its own (with or without a time,
+    an offset); a year pandas cannot hold goes to the Python parser."""
+    fast = _iso(texts)
+    return np.array(
+        [
+            value if not np.isnat(value) else _slow_parse(text, None, day_first)
+            for text, value in zip(texts, fast, strict=True)
+        ],
+        dtype="datetime64[s]",
+    )
 
 
 def _iso(texts: list[str]) -> np.ndarray:
@@ -161,13 +180,21 @@ def implausible(values: np.ndarray, today: datetime.date | None = None) -> np.nd
 
 def implausible_note(columns: dict[str, np.ndarray], rows: int, excluded: bool) -> str:
     """The sentence for rows with implausible dates, with a count per column and examples."""
-    today = datetime.date.today().isoformat()
-    parts, examples = [], []
+    counts, examples = {}, []
     for column, values in columns.items():
         flagged = implausible(values)
         if flagged.any():
-            parts.append(f"{int(flagged.sum())} in {column!r}")
-            examples.extend(str(v)[:10] for v in np.unique(values[flagged])[:3])
+            counts[column] = int(flagged.sum())
+            examples.extend(np.unique(values[flagged])[:3])
+    return implausible_text(counts, examples, rows, excluded)
+
+
+def implausible_text(counts: dict[str, int], examples, rows: int, excluded: bool) -> str:
+    """``implausible_note`` from its parts: flagged rows per column and the first few flagged
+    dates (``datetime64[s]``), as a database gives them."""
+    today = datetime.date.today().isoformat()
+    parts = [f"{count} in {column!r}" for column, count in counts.items()]
+    examples = [str(v)[:10] for v in examples]
     what = (
         "They are left out (reason 'implausible date')."
         if excluded

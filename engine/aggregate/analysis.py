@@ -89,12 +89,12 @@ def cox_from_data(
     use_strata = strata is None and roles.strata is not None
     levels = {**dict(roles.reference), **{str(c): v for c, v in (chosen["reference"] or ())}}
     categorical = [c for c in covariates if data.kinds[c] == "categorical"]
-    design, rows, bounds = sql_design(
+    design, rows, bounds, not_estimable = sql_design(
         data,
         covariates,
         categorical=categorical,
         reference={c: levels[c] for c in covariates if c in levels} or None,
-        strata=use_strata,
+        strata=roles.strata if use_strata else None,
         event=event,
     )
     strata_keys = data.levels["_strata"].keys if use_strata else None
@@ -107,6 +107,8 @@ def cox_from_data(
         drop_one=drop_one,
         ph_time_scale=chosen["ph_time_scale"],
         concordance=source.concordance if concordance else None,
+        not_estimable=not_estimable,
+        strata=roles.strata if use_strata else None,
     )
     return result, ph, source
 

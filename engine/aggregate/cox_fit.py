@@ -16,12 +16,12 @@ import numpy as np
 from engine.aggregate.cox_sums import CoxSumsSource, EventGroups, likelihood_from_sums
 from engine.concordance import ConcordanceResult
 from engine.cox import (
-    EVENTS_PER_PARAMETER,
-    RUNAWAY_STEP,
+    SINGULAR_INFORMATION,
     ChiSquareTest,
     CoxResult,
     _variable_wald,
     chi_square,
+    fit_warnings,
     term_estimates,
 )
 from engine.cox_design import Design
@@ -45,6 +45,8 @@ def fit_cox_from_sums(
     ph_time_scale: str | None = "survival",
     concordance: Callable[[np.ndarray], ConcordanceResult] | None = None,
     max_iterations: int = 50,
+    not_estimable: tuple[str, ...] = (),
+    strata: str | None = None,
 ) -> tuple[CoxResult, PHTest | dict | None]:
     """Fit by Newton–Raphson on sums from ``source`` (its columns: the design centred by
     ``design.center`` and divided by ``design.scale``); ``concordance(eta_beta)`` is given the
@@ -79,40 +81,12 @@ def fit_cox_from_sums(
     try:
         cov_scaled = np.linalg.inv(fit.information)
     except np.linalg.LinAlgError as exc:
-        raise AnalysisError(
-            "The Cox model's information matrix is singular: some covariates carry no "
-            "information about the events. Remove covariates with few distinct values or events."
-        ) from exc
+        raise AnalysisError(SINGULAR_INFORMATION) from exc
     scale = design.scale
     beta = fit.beta / scale
     covariance = cov_scaled / np.outer(scale, scale)
-    warnings = list(design.warnings)
-    if not fit.converged:
-        warnings.append(
-            f"The fit did not converge after {fit.iterations} iterations; the estimates may be "
-            "unreliable. Remove sparse covariates or merge small levels."
-        )
-    runaway = [design.terms[j].label for j in np.flatnonzero(np.abs(fit.last_step) > RUNAWAY_STEP)]
-    if runaway:
-        warnings.append(
-            f"Coefficient(s) for {', '.join(runaway)} run off to infinity (monotone likelihood, "
-            "e.g. a level with no events or a covariate that separates events perfectly); their "
-            "hazard ratios and tests are not meaningful. Merge or remove those levels."
-        )
-    finite_estimates = len(runaway) < p
+    warnings, finite_estimates = fit_warnings(design, fit, events, not_estimable, strata)
     no_test = ChiSquareTest("model", float("nan"), p, float("nan"))
-    if not finite_estimates:
-        warnings.append(
-            "The likelihood-ratio and Wald tests of the whole model are not reported: every "
-            "coefficient runs off to infinity, so there is no finite estimate to test. The score "
-            "test, computed at zero, still holds."
-        )
-    if events / p < EVENTS_PER_PARAMETER:
-        warnings.append(
-            f"Only {events / p:.1f} events per model parameter ({events} events, {p} parameters): "
-            f"fewer than {EVENTS_PER_PARAMETER} (a common rule of thumb, after Peduzzi et al. "
-            "1995); the estimates may be biased and the tests unreliable. Use fewer covariates."
-        )
     if concordance is None:
         c = NOT_COUNTED
         warnings.append(CONCORDANCE_NOT_COMPUTED)
@@ -153,6 +127,7 @@ def fit_cox_from_sums(
         warnings=tuple(warnings),
         design=design,
         model=None,
+        not_estimable=tuple(not_estimable),
     )
     ph = None
     if ph_time_scale is not None:

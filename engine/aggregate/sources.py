@@ -254,6 +254,7 @@ def open_postgres(url: str, *, table: str | None = None, query: str | None = Non
     try:
         connection = psycopg.connect(url, connect_timeout=10)
         connection.execute("SET SESSION CHARACTERISTICS AS TRANSACTION READ ONLY")
+        connection.execute("SET TIME ZONE 'UTC'")  # times with a zone read as UTC, as in memory
         connection.commit()
         version = connection.execute("SHOW server_version").fetchone()[0]
     except psycopg.Error as exc:

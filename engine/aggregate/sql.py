@@ -56,27 +56,21 @@ class Dialect:
             return f"isnan({expr})"
         return f"({expr} = CAST('NaN' AS DOUBLE PRECISION))"
 
-    def to_timestamp(self, expr: str, date_format: str | None) -> str:
-        """Text or a date to a timestamp, NULL when it cannot be read."""
+    def matches(self, expr: str, pattern: str) -> str:
+        """True where the text ``expr`` matches the regular expression (anchors included)."""
         if self.name == "duckdb":
-            if date_format:
-                return f"TRY_STRPTIME(TRIM({self.text(expr)}), {literal(date_format)})"
-            return f"TRY_CAST(TRIM({self.text(expr)}) AS TIMESTAMP)"
+            return f"regexp_matches({expr}, {literal(pattern)})"
         if self.name == "spark":
-            if date_format:
-                pattern = literal(_java_format(date_format))
-                return f"TRY_TO_TIMESTAMP(TRIM({self.text(expr)}), {pattern})"
-            return f"TRY_CAST(TRIM({self.text(expr)}) AS TIMESTAMP)"
-        if date_format:
-            return f"TO_TIMESTAMP(TRIM({self.text(expr)}), {literal(_pg_format(date_format))})"
-        iso = r"'^[0-9]{4}-[0-9]{1,2}-[0-9]{1,2}([ T][0-9:.]+)?$'"
-        cleaned = f"TRIM({self.text(expr)})"
-        return f"(CASE WHEN {cleaned} ~ {iso} THEN CAST({cleaned} AS TIMESTAMP) END)"
+            return f"({expr} RLIKE {literal(pattern)})"
+        return f"({expr} ~ {literal(pattern)})"
 
-    def epoch_days(self, expr: str) -> str:
-        if self.name == "spark":
-            return f"(UNIX_MICROS(CAST({expr} AS TIMESTAMP)) / 86400000000.0)"
-        return f"(EXTRACT(EPOCH FROM CAST({expr} AS TIMESTAMP)) / 86400.0)"
+    def utc_timestamp(self, expr: str, zoned: bool) -> str:
+        """A date or time (``zoned``: with a time zone) as a timestamp of its UTC wall time: by
+        microseconds since 1970 in DuckDB; PostgreSQL and Spark sessions are set to UTC."""
+        if self.name == "duckdb":
+            instant = f"CAST({expr} AS TIMESTAMPTZ)" if zoned else expr
+            return f"make_timestamp(epoch_us({instant}))"
+        return f"CAST({expr} AS TIMESTAMP)"
 
     def total(self, expr: str) -> str:
         """An accurate sum of doubles (compensated where the database offers it)."""
@@ -84,22 +78,6 @@ class Dialect:
 
     def exp(self, expr: str) -> str:
         return f"EXP(GREATEST({expr}, {UNDERFLOW!r}))"
-
-
-def _pg_format(date_format: str) -> str:
-    table = {"%Y": "YYYY", "%m": "MM", "%d": "DD", "%H": "HH24", "%M": "MI", "%S": "SS", "%y": "YY"}
-    out = date_format
-    for key, value in table.items():
-        out = out.replace(key, value)
-    return out
-
-
-def _java_format(date_format: str) -> str:
-    table = {"%Y": "yyyy", "%m": "MM", "%d": "dd", "%H": "HH", "%M": "mm", "%S": "ss", "%y": "yy"}
-    out = date_format
-    for key, value in table.items():
-        out = out.replace(key, value)
-    return out
 
 
 DUCKDB = Dialect("duckdb")

@@ -2,9 +2,9 @@
 reasons and texts: rows read, used and excluded per reason (the first reason a row meets),
 the event coding from the event column's value counts, levels in natural order with the most
 frequent as reference, and the warnings on the rows used. Named causes are
-mapped as ``checks._event_codes`` maps them (``_cause``). Roles whose checks are so far written
-only for rows in memory (start and end dates, an id column's episodes) are refused with a
-``SettingError`` naming the column.
+mapped as ``checks._event_codes`` maps them (``_cause``); start and end dates are turned into
+durations by ``sql_dates``. Roles whose checks are so far written only for rows in memory (an id
+column's episodes) are refused with a ``SettingError`` naming the column.
 
 Nothing but small tables comes back: value counts of the coded columns, a few totals, and the
 counts per (reason, group, stratum, time, event, cause) and per (group, stratum, entry time).
@@ -21,6 +21,7 @@ import pandas as pd
 from engine.aggregate.counts import CountTable, count_table
 from engine.aggregate.sources import SqlSource
 from engine.aggregate.sql import literal, number, quoted
+from engine.aggregate.sql_dates import dates_in_sql
 from engine.checks import (
     ENTRY_AFTER_EXIT,
     MISSING_COVARIATE,
@@ -179,6 +180,11 @@ def aggregate_checks(
         conditions.append((_infinite(value, d), TIME_NOT_FINITE))
         conditions.append((f"{value} < 0", NEGATIVE_TIME))
         time = _scaled(value, _factor(roles.duration_unit, roles.unit))
+    relation = source.relation
+    if not roles.time:
+        dates = dates_in_sql(source, sample, roles, notes)
+        relation, time = dates.relation, dates.time
+        conditions.extend(dates.conditions)
 
     # event: coded from its value counts; named causes as ``checks._event_codes`` maps them
     coding = None
@@ -298,7 +304,7 @@ def aggregate_checks(
     for i, column in enumerate(roles.covariates):
         covariate_columns[column] = f"c{i}"
         select.append(f"{covariate_sql[column]} AS c{i}")
-    clean = f"SELECT {', '.join(select)} FROM {source.relation}"
+    clean = f"SELECT {', '.join(select)} FROM {relation}"
     clean = checked_cells(source, clean, [item.rsplit(" AS ", 1)[1] for item in select])
 
     counts, excluded, rows_read = _counts(
@@ -338,10 +344,7 @@ def aggregate_checks(
     return AggregatedData(source, roles, report, counts, clean, levels, covariate_columns, kinds)
 
 
-ROW_LEVEL_ROLES = (
-    ("start", "start and end dates"),
-    ("id", "an id column (episodes per subject, robust variance)"),
-)
+ROW_LEVEL_ROLES = (("id", "an id column (episodes per subject, robust variance)"),)
 
 
 def _refuse_row_level_roles(roles: Roles) -> None:

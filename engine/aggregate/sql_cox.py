@@ -18,7 +18,14 @@ from engine.aggregate.concordance_counts import BinnedConcordance, concordance_f
 from engine.aggregate.cox_sums import CoxSums
 from engine.aggregate.sql import literal, number
 from engine.aggregate.sql_checks import AggregatedData
-from engine.cox_design import SMALL_LEVEL_ROWS, Design, Term, check_collinearity
+from engine.cox import drop_not_estimable
+from engine.cox_design import (
+    SMALL_LEVEL_ROWS,
+    Design,
+    Term,
+    check_collinearity,
+    constant_in_every_group,
+)
 from engine.errors import AnalysisError, preview_values
 
 # Score bins for Harrell's C. With 1,000 equal-width bins the invented test data (normal scores)
@@ -33,12 +40,13 @@ def sql_design(
     *,
     categorical: Sequence[str] = (),
     reference=None,
-    strata: bool = False,
+    strata: str | None = None,
     event: str = "_event",
-) -> tuple[Design, str, list[str]]:
+) -> tuple[Design, str, np.ndarray, tuple[str, ...]]:
     """The design, the SQL of the model's rows (``_s``, ``_time``, ``_event``, ``_entry`` and
-    the scaled columns ``z0``, ``z1``, ...) and the SQL of the unscaled columns. ``event`` is
-    the SQL of the event (1) or not (0): a cause-specific model's cause."""
+    the scaled columns ``z0``, ``z1``, ...), the scaled columns' bounds and the terms left out
+    as not estimable within the strata of the column ``strata`` (as ``fit_cox`` does).
+    ``event`` is the SQL of the event (1) or not (0): a cause-specific model's cause."""
     source, cols = data.source, data.covariate_columns
     covariates = list(dict.fromkeys(covariates))
     reference = dict(reference or {})
@@ -158,6 +166,13 @@ def sql_design(
         center,
         scale,
     )
+    not_estimable: tuple[str, ...] = ()
+    if strata:
+        constant = _within_strata_constant(source, model_rows, columns, center)
+        design, not_estimable = drop_not_estimable(design, constant, strata)
+        keep = np.setdiff1d(np.arange(p), constant)
+        columns, center, scale = [columns[j] for j in keep], center[keep], scale[keep]
+        low, high = low[keep], high[keep]
     scaled = [
         f"(({c} - {number(center[i])}) / {number(scale[i])})" if scale[i] > 0 else "0.0"
         for i, c in enumerate(columns)
@@ -172,7 +187,23 @@ def sql_design(
         f"SELECT {strata_column} AS _s, _time, _event{entry}{', ' + z if z else ''}, _n "
         f"FROM ({model_rows}) AS m"
     )
-    return design, rows, bounds
+    return design, rows, bounds, not_estimable
+
+
+def _within_strata_constant(source, model_rows: str, columns: list[str], center) -> list[int]:
+    """``cox_design.within_strata_constant`` from one GROUP BY: each column's max − min per
+    stratum."""
+    if not columns:
+        return []
+    spans = ", ".join(f"MIN({c}) AS lo{i}, MAX({c}) AS hi{i}" for i, c in enumerate(columns))
+    found = source.query(f"SELECT _strata, {spans} FROM ({model_rows}) AS m GROUP BY 1")
+    spread = np.column_stack(
+        [
+            found[f"hi{i}"].to_numpy(float) - found[f"lo{i}"].to_numpy(float)
+            for i in range(len(columns))
+        ]
+    )
+    return constant_in_every_group(spread, center)
 
 
 def model_cells(data: AggregatedData, columns: Sequence[str], event: str = "_event") -> str:

@@ -63,6 +63,17 @@ SETTINGS = {
 }
 
 
+def aggregate_json(source, roles: Roles, settings=SETTINGS) -> dict:
+    """``run_aggregate_analysis`` of ``roles`` on an open source, which is closed after."""
+    from engine.aggregate.analysis import run_aggregate_analysis
+    from engine.aggregate.sql_checks import aggregate_checks
+
+    try:
+        return run_aggregate_analysis(aggregate_checks(source, roles), settings)
+    finally:
+        source.close()
+
+
 # keys a database's result has beside memory's: the error bound of Harrell's C of score bins
 DATABASE_ONLY_KEYS = frozenset({"concordance_error_bound"})
 
@@ -88,6 +99,90 @@ def assert_same_json(a, b, *, rtol=1e-9, path="", skip=()):
         assert math.isclose(a, b, rel_tol=rtol, abs_tol=1e-12), (path, a, b)
     else:
         assert a == b, (path, a, b)
+
+
+def with_ward_terms(frame: pd.DataFrame) -> pd.DataFrame:
+    """``frame`` with a numeric and a categorical covariate that each take one value per ward
+    (the strata), so a stratified model cannot estimate them (with two wards they are
+    collinear, so each case uses one)."""
+    out = frame.copy()
+    out["ward_beds"] = out["ward"].map({"A": 12.0, "B": 30.0})
+    out["wing"] = out["ward"].map({"A": "left", "B": "right"})
+    return out
+
+
+# Terms constant within every stratum: left out with a warning; when all are, no model.
+NOT_ESTIMABLE_ROLES = Roles(
+    time="days",
+    event="status",
+    covariates=("age", "ward_beds", "stage"),
+    categorical=("stage",),
+    strata="ward",
+    entry="enrolled",
+)
+NONE_ESTIMABLE_ROLES = Roles(
+    time="days", event="status", covariates=("wing",), categorical=("wing",), strata="ward"
+)
+
+
+def dated_frame(seed: int = 0, n: int = 800, *, text: bool = True) -> pd.DataFrame:
+    """Start and end dates (ISO text, or native timestamps with ``text=False``) with rows that
+    meet every date exclusion reason: missing, unparseable, implausible (before 1900 or in the
+    future) and end before start; the text kind adds times of day, offsets, fractions of a
+    second and placeholder years that only the Python date parser reads."""
+    rng = np.random.default_rng(seed)
+    start = np.datetime64("2015-01-01T00:00:00") + rng.integers(0, 5 * 365 * 86400, n).astype(
+        "timedelta64[s]"
+    )
+    length = np.ceil(rng.exponential(400, n)).astype("timedelta64[D]")
+    end = start + length
+    if not text:
+        end = end + rng.integers(0, 86400, n).astype("timedelta64[s]")
+    picks = rng.permutation(n)
+    frame = pd.DataFrame(
+        {
+            "start": pd.Series(start.astype("datetime64[ns]")),
+            "end": pd.Series(end.astype("datetime64[ns]")),
+            "status": rng.choice(["dead", "alive"], n, p=[0.6, 0.4]).astype(object),
+            "arm": rng.choice(["x", "y"], n).astype(object),
+            "age": np.round(rng.normal(60, 8, n), 1),
+        }
+    )
+    frame.loc[picks[:8], "start"] = pd.NaT  # missing time
+    frame.loc[picks[8:14], "start"] = pd.Timestamp("1899-03-04")  # implausible
+    frame.loc[picks[14:18], "end"] = pd.Timestamp("2199-07-01")  # implausible (future)
+    swap = picks[18:30]  # end before start
+    frame.loc[swap, ["start", "end"]] = frame.loc[swap, ["end", "start"]].to_numpy()
+    if not text:
+        return frame
+    days = frame["start"].dt.strftime("%Y-%m-%d").astype(object)
+    frame["start"] = days.where(frame["start"].notna(), None)
+    frame["end"] = frame["end"].dt.strftime("%Y-%m-%d %H:%M").astype(object)
+    odd = {
+        30: ("start", "not recorded"),  # unparseable
+        31: ("start", "2021-02-30"),  # unparseable (no such day)
+        32: ("end", "2019-13-01"),  # unparseable (no such month)
+        33: ("end", "2021-06-01T10:30:15"),
+        34: ("end", "2021-06-01 10:30:15.75"),  # fraction: the Python path
+        35: ("end", "2021-06-01T23:30:00+02:00"),  # offset: the Python path
+        36: ("start", "0001-01-01"),  # placeholder year: implausible
+        37: ("end", "9999-12-31"),  # placeholder year: implausible
+        38: ("start", " 2016-02-29 "),  # spaces; a leap day
+        39: ("end", "2020-01-05T24:00"),  # no such hour
+    }
+    for at, (column, value) in odd.items():
+        frame.loc[picks[at], column] = value
+    return frame
+
+
+DATE_ROLES = Roles(
+    start="start",
+    end="end",
+    event="status",
+    group="arm",
+    covariates=("age",),
+    unit="months",
+)
 
 
 def competing_frame(seed: int = 0, n: int = 1500, *, continuous: bool = False) -> pd.DataFrame:

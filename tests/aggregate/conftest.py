@@ -69,7 +69,8 @@ def postgres_url():
 
 
 def load_table(url: str, name: str, frame) -> None:
-    """Create ``name`` from a pandas frame (text and double precision columns; NaN as NULL)."""
+    """Create ``name`` from a pandas frame (text, double precision and timestamp columns, with
+    or without a time zone; NaN and NaT as NULL)."""
     import pandas as pd
     import psycopg
 
@@ -77,7 +78,10 @@ def load_table(url: str, name: str, frame) -> None:
 
     columns = []
     for column in frame.columns:
-        kind = "DOUBLE PRECISION" if pd.api.types.is_numeric_dtype(frame[column]) else "TEXT"
+        values = frame[column]
+        kind = "DOUBLE PRECISION" if pd.api.types.is_numeric_dtype(values) else "TEXT"
+        if pd.api.types.is_datetime64_any_dtype(values):
+            kind = "TIMESTAMPTZ" if getattr(values.dt, "tz", None) is not None else "TIMESTAMP"
         columns.append(f"{quoted(column)} {kind}")
     rows = [
         tuple(None if pd.isna(v) else v for v in row)

@@ -3,6 +3,10 @@ texts), curves, the comparison and the Cox model with its PH test, to 1e-9."""
 
 from __future__ import annotations
 
+from dataclasses import replace
+
+import numpy as np
+import pandas as pd
 import pytest
 
 from engine.aggregate.analysis import run_aggregate_analysis
@@ -10,8 +14,19 @@ from engine.aggregate.sources import open_duckdb
 from engine.aggregate.sql_checks import aggregate_checks
 from engine.analysis import run_analysis
 from engine.checks import prepare
+from engine.errors import RoleError, SettingError
 from engine.io import read_table
-from tests.aggregate.cases import ROLES, SETTINGS, assert_same_json, messy_frame
+from tests.aggregate.cases import (
+    DATE_ROLES,
+    NONE_ESTIMABLE_ROLES,
+    NOT_ESTIMABLE_ROLES,
+    ROLES,
+    SETTINGS,
+    assert_same_json,
+    dated_frame,
+    messy_frame,
+    with_ward_terms,
+)
 
 # With delayed entry the standard error of Harrell's C is not computed from counts.
 NOT_FROM_SUMS = (".cox.concordance_se",)
@@ -59,3 +74,133 @@ def test_duckdb_equals_memory(files, kind):
     # fewer distinct scores than bins: Harrell's C is exact
     assert database["cox"]["concordance_error_bound"] == 0.0
     assert database["cox"]["concordance_se"] is None
+
+
+@pytest.mark.parametrize("roles", [NOT_ESTIMABLE_ROLES, NONE_ESTIMABLE_ROLES])
+def test_terms_constant_within_strata(tmp_path, roles):
+    path = tmp_path / "wards.parquet"
+    with_ward_terms(messy_frame(5, n=900)).to_parquet(path)
+    memory, database = both(path, roles)
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+    if roles is NONE_ESTIMABLE_ROLES:
+        assert "single value within each stratum" in memory["cox"]["not_computed"]
+    else:
+        assert memory["cox"]["not_estimable"] == ["ward_beds"]
+        assert any("stratum of 'ward'" in w for w in database["cox"]["warnings"])
+
+
+DATE_REASONS = {"missing time", "unparseable date", "end before start"}
+
+
+@pytest.mark.parametrize("text", [True, False], ids=["iso-text", "native"])
+@pytest.mark.parametrize(
+    ("unit", "implausible"), [("months", "warn"), ("days", "exclude"), ("years", "warn")]
+)
+@pytest.mark.parametrize("suffix", ["parquet", "csv"])
+def test_dates_equal_memory(tmp_path, text, unit, implausible, suffix):
+    path = tmp_path / f"dated.{suffix}"
+    frame = dated_frame(4, text=text)
+    frame.to_parquet(path) if suffix == "parquet" else frame.to_csv(path, index=False)
+    roles = replace(DATE_ROLES, unit=unit, implausible_dates=implausible)
+    memory, database = both(path, roles)
+    assert memory["data"] == database["data"]
+    reasons = {e["reason"] for e in memory["data"]["excluded"]}
+    expected = DATE_REASONS - ({"unparseable date"} if not text else set())
+    assert reasons == expected | ({"implausible date"} if implausible == "exclude" else set())
+    assert any("before 1900" in w for w in memory["data"]["warnings"])
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+
+
+def test_calendar_arithmetic_equals_numpy(tmp_path):
+    """Every plain ISO text read in SQL gives numpy's seconds (leap years, century rules)."""
+    rng = np.random.default_rng(2)
+    low = np.datetime64("1678-01-01T00:00:00").astype("int64")
+    high = np.datetime64("2261-12-31T23:59:59").astype("int64")
+    seconds = rng.integers(low, high, 3000).astype("datetime64[s]")
+    seconds[:4] = np.array(
+        ["1700-02-28T23:59:59", "2000-02-29T00:00:00", "1900-03-01T12:00:00", "2261-12-31"],
+        dtype="datetime64[s]",
+    )
+    texts = [str(v).replace("T", " " if i % 2 else "T") for i, v in enumerate(seconds)]
+    frame = pd.DataFrame({"start": "1678-01-01", "end": texts, "status": "dead"})
+    path = tmp_path / "calendar.parquet"
+    frame.to_parquet(path)
+    source = open_duckdb(path)
+    try:
+        data = aggregate_checks(source, replace(DATE_ROLES, group=None, covariates=(), unit="days"))
+        cells = source.query(f"SELECT _time, _n FROM ({data.clean}) AS c")
+    finally:
+        source.close()
+    got = np.repeat(cells["_time"].to_numpy(float), cells["_n"].to_numpy(int))
+    expected = (seconds - np.datetime64("1678-01-01T00:00:00")) / np.timedelta64(1, "D")
+    np.testing.assert_array_equal(np.sort(got), np.sort(expected))  # cells: in no order
+
+
+@pytest.mark.parametrize(
+    ("values", "roles_change", "message"),
+    [
+        (["2020-01-05", "2021-03-01"], {"date_format": "%Y-%m-%d"}, "date format"),
+        (["05/01/2020", "01/03/2021"], {}, "not ISO text"),
+        (["2020-01-05", "13/01/2021"], {}, "read only day first"),
+    ],
+)
+def test_dates_not_read_alike_are_refused(tmp_path, values, roles_change, message):
+    frame = pd.DataFrame({"start": "2019-01-01", "end": values * 10, "status": "dead"})
+    path = tmp_path / "odd.parquet"
+    frame.to_parquet(path)
+    roles = replace(DATE_ROLES, group=None, covariates=(), **roles_change)
+    source = open_duckdb(path)
+    try:
+        with pytest.raises(
+            SettingError, match=f"column '(start|end)'.*{message}.*--backend memory"
+        ):
+            aggregate_checks(source, roles)
+    finally:
+        source.close()
+
+
+def test_numbers_as_dates_are_refused(tmp_path):
+    frame = pd.DataFrame({"start": "2019-01-01", "end": [20200105, 20210301], "status": "dead"})
+    path = tmp_path / "numbers.parquet"
+    frame.to_parquet(path)
+    source = open_duckdb(path)
+    try:
+        with pytest.raises(SettingError, match="'end' holds values such as 20200105"):
+            aggregate_checks(source, replace(DATE_ROLES, group=None, covariates=()))
+    finally:
+        source.close()
+
+
+def test_times_with_a_zone_are_read_as_utc(tmp_path):
+    """Memory converts zoned times to UTC; DuckDB's session is in UTC, so a zone far from it
+    (and a change of summer time inside the follow-up) gives the same durations."""
+    frame = dated_frame(6, n=300, text=False)
+    for column in ("start", "end"):
+        frame[column] = frame[column].dt.tz_localize(
+            "Pacific/Auckland", ambiguous="NaT", nonexistent="NaT"
+        )
+    path = tmp_path / "zoned.parquet"
+    frame.to_parquet(path)
+    memory, database = both(path, DATE_ROLES)
+    assert memory["data"] == database["data"]
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+
+
+def test_no_readable_date_is_memorys_error(tmp_path):
+    frame = pd.DataFrame(
+        {"start": "2019-01-01", "end": ["2021-02-30", "2021-02-31", "2021-04-31"] * 3}
+    )
+    frame["status"] = "dead"
+    path = tmp_path / "unreadable.parquet"
+    frame.to_parquet(path)
+    roles = replace(DATE_ROLES, group=None, covariates=())
+    with pytest.raises(RoleError) as in_memory:
+        prepare(read_table(path).frame, roles)
+    source = open_duckdb(path)
+    try:
+        with pytest.raises(RoleError) as in_sql:
+            aggregate_checks(source, roles)
+    finally:
+        source.close()
+    assert str(in_sql.value) == str(in_memory.value)
+    assert in_sql.value.column == "end"

@@ -4,16 +4,26 @@ bad addresses, tables and queries exit 2 with one ``error:`` line."""
 from __future__ import annotations
 
 import json
+from dataclasses import replace
 
 import pytest
 
 from app.cli import main
-from engine.aggregate.analysis import run_aggregate_analysis
 from engine.aggregate.sources import SourceError, open_postgres
-from engine.aggregate.sql_checks import aggregate_checks
 from engine.analysis import run_analysis
 from engine.checks import prepare
-from tests.aggregate.cases import ROLES, SETTINGS, assert_same_json, messy_frame
+from tests.aggregate.cases import (
+    DATE_ROLES,
+    NONE_ESTIMABLE_ROLES,
+    NOT_ESTIMABLE_ROLES,
+    ROLES,
+    SETTINGS,
+    aggregate_json,
+    assert_same_json,
+    dated_frame,
+    messy_frame,
+    with_ward_terms,
+)
 from tests.aggregate.conftest import load_table
 from tests.aggregate.test_cli_backends import NOT_FROM_SUMS, ROLE_ARGS
 
@@ -27,11 +37,7 @@ def messy(postgres_url):
 
 def test_postgres_equals_memory(postgres_url, messy):
     memory = run_analysis(prepare(messy, ROLES), SETTINGS)
-    source = open_postgres(postgres_url, table="messy")
-    try:
-        database = run_aggregate_analysis(aggregate_checks(source, ROLES), SETTINGS)
-    finally:
-        source.close()
+    database = aggregate_json(open_postgres(postgres_url, table="messy"), ROLES)
     assert database["data"] == memory["data"]
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)
 
@@ -80,3 +86,30 @@ def test_bad_database_input_exits_2(postgres_url, messy, capsys, extra, message)
 def test_unreachable_server_is_one_clear_error():
     with pytest.raises(SourceError, match="Could not connect"):
         open_postgres("postgresql://nobody@127.0.0.1:1/none", table="t")
+
+
+@pytest.mark.parametrize("roles", [NOT_ESTIMABLE_ROLES, NONE_ESTIMABLE_ROLES])
+def test_terms_constant_within_strata(postgres_url, roles):
+    frame = with_ward_terms(messy_frame(5, n=900))
+    load_table(postgres_url, "wards", frame)
+    memory = run_analysis(prepare(frame, roles), SETTINGS)
+    database = aggregate_json(open_postgres(postgres_url, table="wards"), roles)
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+    assert ("not_computed" in memory["cox"]) == (roles is NONE_ESTIMABLE_ROLES)
+
+
+@pytest.mark.parametrize("kind", ["iso-text", "native", "zoned"])
+def test_dates_equal_memory(postgres_url, kind):
+    frame = dated_frame(8, n=600, text=kind == "iso-text")
+    if kind == "zoned":
+        for column in ("start", "end"):
+            frame[column] = frame[column].dt.tz_localize(
+                "America/Sao_Paulo", ambiguous="NaT", nonexistent="NaT"
+            )
+    load_table(postgres_url, "dated", frame)
+    roles = replace(DATE_ROLES, implausible_dates="exclude" if kind == "native" else "warn")
+    memory = run_analysis(prepare(frame, roles), SETTINGS)
+    database = aggregate_json(open_postgres(postgres_url, table="dated"), roles)
+    assert database["data"] == memory["data"]
+    assert "end before start" in {e["reason"] for e in memory["data"]["excluded"]}
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)

@@ -4,16 +4,26 @@ Parquet dataset: the data checks, curves, the comparison and the Cox model with 
 from __future__ import annotations
 
 import json
+from dataclasses import replace
 
 import pytest
 
 from app.cli import main
-from engine.aggregate.analysis import run_aggregate_analysis
 from engine.aggregate.sources import SourceError, open_spark
-from engine.aggregate.sql_checks import aggregate_checks
 from engine.analysis import run_analysis
 from engine.checks import prepare
-from tests.aggregate.cases import ROLES, SETTINGS, assert_same_json, messy_frame
+from tests.aggregate.cases import (
+    DATE_ROLES,
+    NONE_ESTIMABLE_ROLES,
+    NOT_ESTIMABLE_ROLES,
+    ROLES,
+    SETTINGS,
+    aggregate_json,
+    assert_same_json,
+    dated_frame,
+    messy_frame,
+    with_ward_terms,
+)
 from tests.aggregate.test_cli_backends import NOT_FROM_SUMS
 
 
@@ -28,11 +38,7 @@ def dataset(tmp_path_factory):
 def test_spark_equals_memory(spark_master, dataset):
     path, frame = dataset
     memory = run_analysis(prepare(frame, ROLES), SETTINGS)
-    source = open_spark(path, master=spark_master)
-    try:
-        database = run_aggregate_analysis(aggregate_checks(source, ROLES), SETTINGS)
-    finally:
-        source.close()
+    database = aggregate_json(open_spark(path, master=spark_master), ROLES)
     assert database["data"] == memory["data"]
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)
 
@@ -52,3 +58,25 @@ def test_cli_spark_backend(spark_master, dataset, capsys):
 def test_missing_path_is_one_clear_error(spark_master, tmp_path):
     with pytest.raises(SourceError, match="does not exist"):
         open_spark(tmp_path / "nothing.parquet", master=spark_master)
+
+
+@pytest.mark.parametrize("roles", [NOT_ESTIMABLE_ROLES, NONE_ESTIMABLE_ROLES])
+def test_terms_constant_within_strata(spark_master, tmp_path, roles):
+    frame = with_ward_terms(messy_frame(5, n=600))
+    frame.to_parquet(tmp_path / "wards.parquet")
+    memory = run_analysis(prepare(frame, roles), SETTINGS)
+    database = aggregate_json(open_spark(tmp_path / "wards.parquet", master=spark_master), roles)
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+    assert ("not_computed" in memory["cox"]) == (roles is NONE_ESTIMABLE_ROLES)
+
+
+@pytest.mark.parametrize("text", [True, False], ids=["iso-text", "native"])
+def test_dates_equal_memory(spark_master, tmp_path, text):
+    frame = dated_frame(11, n=500, text=text)
+    path = tmp_path / "dated.parquet"
+    frame.to_parquet(path, coerce_timestamps="us")  # Spark reads micro-, not nanoseconds
+    roles = replace(DATE_ROLES, unit="weeks", implausible_dates="exclude")
+    memory = run_analysis(prepare(frame, roles), SETTINGS)
+    database = aggregate_json(open_spark(path, master=spark_master), roles)
+    assert database["data"] == memory["data"]
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
