@@ -83,6 +83,13 @@ def curve_drawing(
     else:
         curves = curve_set(fingerprint, roles_text, confidence, transform, _table).curves
         censor_source = curves
+    return drawing_from_curves(curves, censor_source, scale, by_group, size_px, x_max)
+
+
+def drawing_from_curves(
+    curves, censor_source, scale: str, by_group: bool, size_px: tuple[int, int], x_max
+) -> dict:
+    """``curve_drawing`` for curves already estimated (in memory or from aggregated counts)."""
     curves = _selected(list(curves), by_group)
     censor_source = _selected(list(censor_source), by_group)
     rows = pd.concat([curve_rows(c, scale) for c in curves], ignore_index=True)

@@ -7,6 +7,7 @@ recomputes what depends on it and nothing else.
 
 from __future__ import annotations
 
+import contextlib
 import json
 from collections.abc import MutableMapping
 from dataclasses import replace
@@ -109,9 +110,19 @@ def _demo_roles(table: ImportedTable) -> dict | None:
     return preset if all(v is None or v in columns for v in named) else None
 
 
+def forget_source(session: MutableMapping) -> None:
+    """Close and forget the aggregated source in use (``app.bigdata``), if any."""
+    source = session.pop(state.SOURCE, None)
+    session.pop(state.SOURCE_ID, None)
+    if source is not None:
+        with contextlib.suppress(Exception):  # a connection already gone needs no closing
+            source.close()
+
+
 def install_table(session: MutableMapping, table: ImportedTable, label: str, is_demo: bool) -> None:
     """Make ``table`` the one in use: suggested roles applied (and shown as suggestions)."""
     suggestions = suggest_roles(table.frame)
+    forget_source(session)
     session[state.TABLE] = table
     session[state.DATASET_LABEL] = label
     session[state.DATASET_IS_DEMO] = is_demo
@@ -143,7 +154,7 @@ def open_upload(
 
 def ensure_table(session: MutableMapping) -> None:
     """Open the first bundled demo when nothing has been loaded in this session."""
-    if state.TABLE in session:
+    if state.TABLE in session or state.SOURCE in session:  # a big-data source counts too
         return
     demos = demo_files()
     if demos:

@@ -60,3 +60,7 @@ def clear_page_choices(session: MutableMapping, prefixes: tuple[str, ...]) -> No
 PERSISTENT_PREFIXES = (*PERSISTENT_PREFIXES, "cr_", "param_", "power_", "landmark_")
 PERSISTENT_PREFIXES = (*PERSISTENT_PREFIXES, "perf_")  # the prediction-performance page
 PERSISTENT_PREFIXES = (*PERSISTENT_PREFIXES, "baseline_")  # the baseline table page
+
+# --- big data (app.bigdata): an aggregated source instead of a table in memory ----------------
+SOURCE = "shared_source"  # engine.aggregate.sources.SqlSource in use (its connection inside)
+SOURCE_ID = "shared_source_id"  # a random key naming that source in the caches

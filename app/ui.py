@@ -162,8 +162,10 @@ def guard(what: str) -> Iterator[None]:
 
 def table_and_roles_or_stop():
     """The table and roles in use, or a pointer to the Data import page, and stop."""
-    from app import data
+    from app import big_views, bigdata, data
 
+    if bigdata.in_use(st.session_state):
+        big_views.needs_rows()
     table = data.current_table(st.session_state)
     roles = data.current_roles(st.session_state)
     if table is None or roles is None:
@@ -250,6 +252,18 @@ def sidebar(roles_page) -> None:
             help="Larger type and thicker lines, for a projector.",
         )
         table = data.current_table(st.session_state)
+        source = st.session_state.get(state.SOURCE)
+        if source is not None:  # big data: nothing counted here (the pages do it, cached)
+            st.markdown(
+                "**Dataset**  \n"
+                + escape(st.session_state.get(state.DATASET_LABEL, source.name))
+                + "  \n:blue-badge[Big data: read where it is]"
+            )
+            st.markdown(
+                "**Roles**  \n" + "  \n".join(roles_lines(data.current_roles(st.session_state)))
+            )
+            st.caption("Data stays on this computer. For research and exploration only.")
+            return
         if table is None:
             st.info("No data loaded yet.")
             return

@@ -8,7 +8,7 @@ from dataclasses import replace
 import pandas as pd
 import streamlit as st
 
-from app import data, state, ui
+from app import big_views, bigdata, data, state, ui
 from engine.errors import HazelError
 from engine.roles import (
     TIME_UNITS,
@@ -23,6 +23,9 @@ NONE = "(none)"
 DURATION, DATES = "One duration column", "Start and end dates"
 
 st.title("Column roles", anchor=False)
+if bigdata.in_use(st.session_state):  # big data: roles from the source's first rows
+    big_views.roles_page()
+    st.stop()
 table = data.current_table(st.session_state)
 if table is None:
     st.info("Open a demo or upload a file on the Data import page first.")

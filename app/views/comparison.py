@@ -6,7 +6,7 @@ from __future__ import annotations
 import pandas as pd
 import streamlit as st
 
-from app import charts, compute, data, ui
+from app import big_views, bigdata, charts, compute, data, ui
 from app.share_section import CUT_GROUPS, CUT_SOURCE, NO_COMPARE_STRATA, ROLE_SOURCE
 from engine.compare import TESTS
 from engine.roles import event_in_words
@@ -24,6 +24,9 @@ ADJUST = {"Holm (family-wise error)": "p_holm", "Benjamini–Hochberg (false dis
 LEVEL = 0.05  # conventional 5% level used for the plain-language reading
 
 st.title("Group comparison", anchor=False)
+if bigdata.in_use(st.session_state):  # big data: results from aggregates
+    big_views.comparison_page()
+    st.stop()
 table, roles = ui.table_and_roles_or_stop()
 prepared = ui.prepared_or_stop(table, roles, "groups can be compared")
 

@@ -6,7 +6,7 @@ from __future__ import annotations
 import pandas as pd
 import streamlit as st
 
-from app import charts, compute, data, ui
+from app import big_views, bigdata, charts, compute, data, ui
 from engine.roles import TIME_UNITS, event_in_words
 from engine.wording import (
     format_confidence,
@@ -27,6 +27,9 @@ TRANSFORMS = {"log-log (default)": "log-log", "log": "log", "linear": "linear"}
 CONFIDENCE = {"95%": 0.95, "90%": 0.90, "99%": 0.99, "80%": 0.80}
 
 st.title("Curves", anchor=False)
+if bigdata.in_use(st.session_state):  # big data: results from aggregates
+    big_views.curves_page()
+    st.stop()
 table, roles = ui.table_and_roles_or_stop()
 base = ui.prepared_or_stop(table, roles, "curves can be drawn")
 

@@ -7,7 +7,7 @@ import hashlib
 import pandas as pd
 import streamlit as st
 
-from app import data, state, ui
+from app import bigdata, data, state, ui
 from engine.columns import column_profile
 from engine.errors import HazelError
 from engine.io import DEFAULT_MISSING_TOKENS, ImportOptions, read_table
@@ -29,7 +29,10 @@ table = data.current_table(st.session_state)
 if state.LOAD_ERROR in st.session_state:
     st.error(ui.escape(st.session_state[state.LOAD_ERROR]), icon=":material/error:")
 
-if table is not None:
+if bigdata.in_use(st.session_state):
+    label = st.session_state.get(state.DATASET_LABEL, "")
+    st.success(f"In use: **{ui.escape(label)}**", icon=":material/check_circle:")
+elif table is not None:
     label = st.session_state.get(state.DATASET_LABEL, table.source_name)
     if st.session_state.get(state.DATASET_IS_DEMO):
         st.info(
@@ -91,6 +94,99 @@ with right:
         description = data.demo_description(path)
         if description:
             st.caption(ui.escape(description))
+
+# --- big data: the data folder and databases (app.bigdata) ----------------------------------
+
+st.divider()
+folder_side, database_side = st.columns(2, gap="large")
+with folder_side:
+    st.subheader("Open from this computer's data folder", anchor=False)
+    folder = bigdata.data_folder()
+    if folder is None:
+        st.caption(
+            f"No data folder is set. Set the environment variable {bigdata.DATA_FOLDER_ENV}, or "
+            f'`{bigdata.CONFIG_KEY} = "..."` under `[{bigdata.CONFIG_SECTION}]` in '
+            ".streamlit/config.toml, and restart Hazel."
+        )
+    else:
+        try:
+            entries = bigdata.folder_entries(folder)
+        except (HazelError, OSError) as error:
+            st.error(ui.escape(error), icon=":material/error:")
+            entries = []
+        st.caption(
+            f"Files and Parquet folders in {ui.escape(folder)}. Up to "
+            f"{bigdata.memory_limit_text()} a file is read into memory like an upload; bigger "
+            "files and Parquet folders are read where they are (big data: curves, comparison "
+            "and Cox model only)."
+        )
+        if entries:
+            names = {
+                e.name: f"{e.name}{'/' if e.is_folder else ''} · {e.size / 2**20:,.1f} MB"
+                + (" · big data" if e.big else "")
+                for e in entries
+            }
+            chosen = st.selectbox(
+                "File or folder", list(names), format_func=names.get, key="import_folder_entry"
+            )
+            if st.button("Open", key="import_folder_open_button", icon=":material/folder_open:"):
+                with st.spinner(f"Opening {chosen}…"):
+                    try:
+                        bigdata.open_from_folder(st.session_state, folder, chosen)
+                    except HazelError as error:
+                        st.session_state[state.LOAD_ERROR] = (
+                            f"{chosen} could not be opened: {error} The data in use has not "
+                            "changed."
+                        )
+                st.session_state.pop(UPLOAD_BYTES, None)
+                st.rerun()
+        else:
+            st.caption("The folder holds no file Hazel can read.")
+with database_side:
+    st.subheader("Connect to a database", anchor=False)
+    with st.form("dbconnect_form", clear_on_submit=True):
+        url = st.text_input(
+            "PostgreSQL address",
+            key="dbconnect_url",
+            placeholder="postgresql://USER@HOST:5432/DATABASE",
+        )
+        password = st.text_input(
+            "Password (if the database asks for one)",
+            type="password",
+            key="dbconnect_password",
+            help="Used to connect, then forgotten: never saved, shown or put in a recipe.",
+        )
+        relation = st.text_input("Table (schema.table)", key="dbconnect_table")
+        query = st.text_area("…or a read-only query (SELECT …)", key="dbconnect_query", height=80)
+        connect = st.form_submit_button("Connect", icon=":material/database:")
+    if connect:
+        with st.spinner("Connecting to the database…"):
+            try:
+                bigdata.connect_database(st.session_state, url, password, relation, query)
+            except HazelError as error:
+                st.session_state[state.LOAD_ERROR] = (
+                    f"The database could not be opened: {error} The data in use has not changed."
+                )
+        del url, password  # nothing keeps them past the connection (the URL may hold one)
+        for key in ("dbconnect_url", "dbconnect_password"):
+            st.session_state.pop(key, None)
+        st.rerun()
+    st.caption("Read only: Hazel never writes to the database. The rows stay in it.")
+
+if bigdata.in_use(st.session_state):
+    source = st.session_state[state.SOURCE]
+    st.subheader("Big data in use", anchor=False)
+    st.markdown(
+        f"**{ui.escape(source.name)}**, read by {ui.escape(source.backend)} "
+        f"{ui.escape(source.version)}. The first rows, for a look at the columns:"
+    )
+    st.dataframe(source.sample().head(200), hide_index=True, height=280)
+    st.page_link(
+        "views/column_roles.py",
+        label="Next: say which column is which",
+        icon=":material/arrow_forward:",
+    )
+    st.stop()
 
 table = data.current_table(st.session_state)
 if table is None:

@@ -6,7 +6,7 @@ from __future__ import annotations
 import pandas as pd
 import streamlit as st
 
-from app import charts, charts_models, compute, data, thinning, ui
+from app import big_views, bigdata, charts, charts_models, compute, data, thinning, ui
 from app.share_section import NO_MODEL_STRATA, PH_LABELS, REFERENCE_PREFIX, VARIANCE_LABELS
 from engine.cox_diagnostics import TIME_SCALE_WORDS
 from engine.errors import HazelError
@@ -28,6 +28,9 @@ DOT_LIMIT = 4000  # dots drawn in a residual plot; beyond this a seeded sample i
 
 st.title("Regression", anchor=False)
 st.caption("Cox proportional-hazards model: how each covariate goes with the hazard of the event.")
+if bigdata.in_use(st.session_state):  # big data: results from aggregates
+    big_views.regression_page()
+    st.stop()
 table, roles = ui.table_and_roles_or_stop()
 prepared = ui.prepared_or_stop(table, roles, "a model can be fitted")
 if not roles.covariates:
@@ -209,19 +212,7 @@ tabs = st.tabs(
 with tabs[0], ui.guard("The hazard-ratio table"):
     terms = result.to_frame()
     ci = f"{format_confidence(result.confidence)} CI"
-    shown = pd.DataFrame(
-        {
-            "Term": [t.label for t in result.design.terms],
-            "Hazard ratio": terms["hazard_ratio"].map(format_ratio),
-            ci: [
-                f"{format_ratio(lo)} to {format_ratio(hi)}"
-                for lo, hi in zip(terms["lower"], terms["upper"], strict=True)
-            ],
-            "p": terms["p_value"].map(ui.fmt_p),
-            "Coefficient (log hazard ratio)": terms["coef"].map(lambda v: format_number(v, 3)),
-            "Standard error": terms["se"].map(lambda v: format_number(v, 3)),
-        }
-    )
+    shown = big_views.hazard_ratio_frame(result)
     if result.variance == "robust":
         shown["SE (model-based)"] = terms["se_model"].round(4)
         st.caption(

@@ -8,12 +8,14 @@ import math
 import pandas as pd
 import streamlit as st
 
-from app import row_filters, share_section, ui
+from app import big_views, bigdata, row_filters, share_section, ui
 from engine.errors import HazelError
 
 MESSAGE = "filter_message"  # (kind, text) of the last change, shown once after the rerun
 
 st.title("Row filters", anchor=False)
+if bigdata.in_use(st.session_state):
+    big_views.needs_rows()
 st.caption(
     "Keep only the rows you want to analyse, for example patients aged 65 or more, or two of "
     "the sites. Filters run in order on the rows as read, before the data checks; every page, "

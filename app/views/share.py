@@ -5,10 +5,12 @@ from __future__ import annotations
 
 import streamlit as st
 
-from app import data, row_filters, share_section, ui
+from app import big_views, bigdata, data, row_filters, share_section, ui
 from engine.errors import HazelError
 
 st.title("Save and share", anchor=False)
+if bigdata.in_use(st.session_state):
+    big_views.needs_rows()
 st.caption(
     "A recipe is a small file with the import options, column roles, filters and settings of "
     "every page (never the data). Send it with the data file and a colleague sees the same "
