@@ -18,10 +18,12 @@ sys.path.insert(0, str(ROOT))
 
 from tests.app.browser import demo_page, run_server, wait_until_idle  # noqa: E402
 
-# the drawing of every figure on the page: it changes when any of them is redrawn
+# the drawing of every figure on the page (SVG, or canvas pixels where the renderer draws on a
+# canvas): it changes when any of them is redrawn
 FIGURES = (
-    "() => [...document.querySelectorAll('[data-testid=\"stVegaLiteChart\"] svg.marks')]"
-    ".map(s => s.innerHTML).join('|')"
+    '() => [...document.querySelectorAll(\'[data-testid="stVegaLiteChart"] svg.marks, '
+    '[data-testid="stVegaLiteChart"] canvas\')]'
+    ".map(s => s.tagName === 'CANVAS' ? s.toDataURL() : s.innerHTML).join('|')"
 )
 REMEMBER = f"() => {{ window.__before = ({FIGURES})(); }}"
 CHANGED = f"() => ({FIGURES})() !== window.__before"
