@@ -1,7 +1,7 @@
 """Replaying a recipe and writing the HTML report, for the command line and the app's download.
 
 Nothing here imports streamlit; Altair and vl-convert load only when a figure is drawn, so the
-command line starts quickly. The JSON sections come from ``engine.analysis.run_analysis``
+command line starts quickly. The JSON sections come from ``engine.analysis.run.run_analysis``
 (through ``app.cli.run_analysis``); the settings from the command line from
 ``app.cli.settings_from_args``.
 """
@@ -15,12 +15,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from engine.checks import PreparedData, prepare
-from engine.curves import curves_by_group
-from engine.errors import HazelError
-from engine.filters import FilterOutcome, apply_filters
-from engine.io import ImportedTable, ImportOptions, read_table
-from engine.recipe import (
+from engine.analysis.recipe import (
     ANALYSIS_DEFAULTS,
     MAX_RECIPE_BYTES,
     DataFingerprint,
@@ -29,8 +24,13 @@ from engine.recipe import (
     check_fingerprint,
     software_versions,
 )
-from engine.roles import Roles, event_in_words
-from engine.summary import numbers_at_risk_frame
+from engine.errors import HazelError
+from engine.io.tables import ImportedTable, ImportOptions, read_table
+from engine.prepare.checks import PreparedData, prepare
+from engine.prepare.filters import FilterOutcome, apply_filters
+from engine.prepare.roles import Roles, event_in_words
+from engine.survival.curves import curves_by_group
+from engine.survival.summary import numbers_at_risk_frame
 from engine.wording import probability_title
 
 ALL_ROWS = "All rows"  # the label of the all-rows curve, as app.charts.ALL_ROWS_LABEL
@@ -333,7 +333,8 @@ def calibration_figure(performance: Mapping | None):
 
 def incidence_rows(result) -> pd.DataFrame:
     """Drawing rows (group, time, estimate, lower, upper, one_minus_km, at_risk) per cause and
-    group of an ``engine.competing.CumulativeIncidence``, from time 0; the series label is the
+    group of an ``engine.competing.incidence.CumulativeIncidence``, from time 0; the series label
+    is the
     cause, or "group: cause" when split by group."""
     table = result.to_frame()
     pieces = []
@@ -381,7 +382,7 @@ def thinned_incidence(
 def incidence_figure(prepared: PreparedData, settings: Mapping):
     """Cumulative incidence per cause (and group) with bands, 1 − KM dotted, for the report."""
     from app import charts
-    from engine.competing import cumulative_incidence
+    from engine.competing.incidence import cumulative_incidence
 
     chosen = settings.get("competing") or {}
     confidence = {**ANALYSIS_DEFAULTS["curves"], **settings.get("curves", {})}["confidence"]
@@ -409,7 +410,7 @@ def parametric_figure(prepared: PreparedData, settings: Mapping):
     """Fitted models over Kaplan–Meier (all rows), extrapolation dashed, for the report; None
     when the models were fitted per group (the tables hold those)."""
     from app import charts, charts_models, thinning
-    from engine.parametric import LABELS, fit_parametric
+    from engine.parametric.fits import LABELS, fit_parametric
 
     chosen = {**ANALYSIS_DEFAULTS["parametric"], **(settings.get("parametric") or {})}
     if chosen["by_group"]:
@@ -449,8 +450,8 @@ def residual_figure(
     smallest p-value, against time on the check's scale, as on the Regression page; None
     without a model. Returns the term's label and the figure."""
     from app import charts, charts_models
-    from engine.analysis import fit_cox_from_settings
-    from engine.cox_diagnostics import proportional_hazards_test, schoenfeld_residuals
+    from engine.analysis.run import fit_cox_from_settings
+    from engine.cox.diagnostics import proportional_hazards_test, schoenfeld_residuals
 
     cox = {**ANALYSIS_DEFAULTS["cox"], **(settings.get("cox") or {})}
     result = fit_cox_from_settings(prepared, cox, source=source, without_each=False)
@@ -487,7 +488,7 @@ def report_figures(
     ran, ``residuals`` with the model, labelled by ``residuals_term``) from the prepared data,
     ``forest`` from the JSON. A section that was not computed has no figure, and a figure that
     cannot be drawn is left out (its section says what it can)."""
-    from engine.analysis import computed, is_not_computed
+    from engine.analysis.run import computed, is_not_computed
 
     def usable(section) -> bool:
         return bool(section) and not is_not_computed(section)

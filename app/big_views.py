@@ -11,7 +11,7 @@ import pandas as pd
 import streamlit as st
 
 from app import batch, bigdata, charts, charts_models, compute, data, state, ui
-from engine.roles import TIME_UNITS, event_in_words
+from engine.prepare.roles import TIME_UNITS, event_in_words
 from engine.wording import format_confidence, format_number, format_ratio, free_name
 
 NONE = "(none)"

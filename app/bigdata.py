@@ -24,7 +24,7 @@ import streamlit as st
 
 from app import cli_scale, data, state
 from engine.errors import HazelError
-from engine.roles import Roles, suggest_roles
+from engine.prepare.roles import Roles, suggest_roles
 
 DATA_FOLDER_ENV = "HAZEL_DATA_FOLDER"
 CONFIG_FILE = Path(__file__).resolve().parents[1] / ".streamlit" / "config.toml"
@@ -135,7 +135,7 @@ def install_source(session: MutableMapping, source, label: str) -> None:
 def open_from_folder(session: MutableMapping, folder: Path, name: str) -> str:
     """Open ``name`` from the data folder; "memory" or "aggregated" says how."""
     from engine.aggregate.sources import open_duckdb
-    from engine.io import read_table
+    from engine.io.tables import read_table
 
     path = inside_folder(folder, name)
     if path.is_dir() or path.stat().st_size > cli_scale.AUTO_MEMORY_BYTES:
@@ -236,7 +236,7 @@ def analysis(source_id: str, roles_text: str, settings_text: str, _source) -> di
 def cox_model(source_id: str, roles_text: str, settings_text: str, _source):
     """The ``CoxResult`` and PH test of the roles' covariates, from per-time sums."""
     from engine.aggregate.analysis import cox_from_data
-    from engine.analysis import resolved_settings
+    from engine.analysis.run import resolved_settings
 
     data_ = aggregated(source_id, roles_text, _source)
     chosen = resolved_settings(json.loads(settings_text))["cox"]

@@ -24,7 +24,7 @@ EXTRAPOLATION_SHADE = "#F3EEE4"
 
 
 def forest_labels(rows: pd.DataFrame, format_p) -> pd.DataFrame:
-    """Labels for ``engine.cox_summaries.forest_data`` rows (variable, level, is_reference, …):
+    """Labels for ``engine.cox.summaries.forest_data`` rows (variable, level, is_reference, …):
     the Cox table's "variable: level vs reference", the reference row as "variable: level
     (reference)", and the p-values as text (``format_p``)."""
     references = {

@@ -26,16 +26,16 @@ from app.cli_scale import (
     source_summary,
 )
 from app.cli_text import analysis_summary, data_summary, event_words
-from engine.analysis import ANALYSIS_DEFAULTS
-from engine.analysis import run_analysis as run_engine_analysis
-from engine.checks import PreparedData, prepare
-from engine.cox_diagnostics import TIME_SCALES
-from engine.dates import IMPLAUSIBLE_CHOICES
+from engine.analysis.recipe_schema import check_setting
+from engine.analysis.run import ANALYSIS_DEFAULTS
+from engine.analysis.run import run_analysis as run_engine_analysis
+from engine.cox.diagnostics import TIME_SCALES
 from engine.errors import HazelError
-from engine.filters import FilterError, FilterOutcome, RowFilter, apply_filters
-from engine.io import ImportedTable, ImportOptions, read_table
-from engine.recipe_schema import check_setting
-from engine.roles import TIME_UNITS, Roles, event_in_words
+from engine.io.tables import ImportedTable, ImportOptions, read_table
+from engine.prepare.checks import PreparedData, prepare
+from engine.prepare.dates import IMPLAUSIBLE_CHOICES
+from engine.prepare.filters import FilterError, FilterOutcome, RowFilter, apply_filters
+from engine.prepare.roles import TIME_UNITS, Roles, event_in_words
 from engine.text_safety import visible_text
 
 SCHEMA_VERSION = 2  # README "Changes from schema 1" lists what changed
@@ -356,7 +356,8 @@ def import_options_from_args(args: argparse.Namespace) -> ImportOptions:
 
 
 def filters_from_args(args: argparse.Namespace) -> tuple[RowFilter, ...]:
-    """``--filter COL:RULE[:VALUES]`` options, in the order given (engine.filters' rules)."""
+    """``--filter COL:RULE[:VALUES]`` options, in the order given (engine.prepare.filters'
+    rules)."""
     try:
         return tuple(RowFilter.from_text(text) for text in getattr(args, "filter", None) or ())
     except FilterError as error:
@@ -647,7 +648,7 @@ def run_aggregated(args: argparse.Namespace, backend: str, *, check_only: bool =
     from engine.aggregate.analysis import run_aggregate_analysis
     from engine.aggregate.sources import source_fingerprint
     from engine.aggregate.sql_checks import aggregate_checks
-    from engine.recipe import fingerprint_differences
+    from engine.analysis.recipe import fingerprint_differences
 
     refuse_row_options(args, backend)
     check_sample_options(args, backend)

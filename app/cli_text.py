@@ -8,12 +8,12 @@ blocks, each with its own header line.
 
 from __future__ import annotations
 
-from engine.analysis import NOT_COMPUTED, is_not_computed
-from engine.checks import PreparedData
-from engine.filters import FilterOutcome
-from engine.io import ImportedTable
-from engine.parametric import LABELS
-from engine.roles import event_in_words
+from engine.analysis.run import NOT_COMPUTED, is_not_computed
+from engine.io.tables import ImportedTable
+from engine.parametric.fits import LABELS
+from engine.prepare.checks import PreparedData
+from engine.prepare.filters import FilterOutcome
+from engine.prepare.roles import event_in_words
 from engine.wording import (
     NOT_REACHED,
     comparison_sentence,
@@ -127,7 +127,8 @@ def analysis_summary(
 ) -> str:
     """A readable summary of the curves, comparison and Cox sections (and the optional ones).
 
-    ``event`` names the event in words (``engine.roles.event_in_words``); ``confidence`` is the
+    ``event`` names the event in words (``engine.prepare.roles.event_in_words``); ``confidence`` is
+    the
     hazard ratios' interval level. A section that could not be computed is one line saying why."""
     reasons, sections = not_computed_lines(sections)
     lines = ["", f"Curves (times in {unit})"]

@@ -14,10 +14,10 @@ import streamlit as st
 
 from app import charts, data, thinning
 from app.batch import HAZARD, INCIDENCE, SURVIVAL, censoring_marks, curve_rows
-from engine.curves import CurveSet, curves_by_group, nelson_aalen
-from engine.io import ImportedTable
-from engine.risk_table import without_missing
-from engine.summary import group_summary, numbers_at_risk_frame
+from engine.io.tables import ImportedTable
+from engine.survival.curves import CurveSet, curves_by_group, nelson_aalen
+from engine.survival.risk_table import without_missing
+from engine.survival.summary import group_summary, numbers_at_risk_frame
 
 
 def _frame(fingerprint: str, roles_text: str, table: ImportedTable) -> pd.DataFrame:
@@ -181,12 +181,13 @@ def comparison_frame(
     table: ImportedTable,
 ) -> pd.DataFrame:
     """The prepared frame with ``_group`` set for the comparison and ``_strata`` if asked
-    (``engine.analysis.comparison_frame``, the one the recipe replay uses).
+    (``engine.analysis.run.comparison_frame``, the one the recipe replay uses).
 
     ``grouping`` is ("role",) for the group role, or ("cut", column, k) for a numeric column cut
-    at its quantiles into k groups of about equal size (``engine.columns.cut_at_quantiles``).
+    at its quantiles into k groups of about equal size
+    (``engine.prepare.columns.cut_at_quantiles``).
     """
-    from engine.analysis import comparison_frame as engine_comparison_frame
+    from engine.analysis.run import comparison_frame as engine_comparison_frame
 
     prepared = data.prepared_by_key(fingerprint, roles_text, table)
     cut = {"column": grouping[1], "groups": int(grouping[2])} if grouping[0] == "cut" else None
@@ -211,7 +212,7 @@ def comparison(
     gamma: float,
     _table: ImportedTable,
 ):
-    from engine.compare import compare_frame
+    from engine.survival.compare import compare_frame
 
     frame = comparison_frame(fingerprint, roles_text, grouping, strata_column, _table)
     return compare_frame(frame, test=test, rho=rho, gamma=gamma)
@@ -230,7 +231,7 @@ def trend(
     scores: tuple | None,
     _table: ImportedTable,
 ):
-    from engine.compare import trend_frame
+    from engine.survival.compare import trend_frame
 
     frame = comparison_frame(fingerprint, roles_text, grouping, strata_column, _table)
     labels = list(frame["_group"].cat.categories)
@@ -255,7 +256,7 @@ def pairwise(
     gamma: float,
     _table: ImportedTable,
 ):
-    from engine.compare import pairwise_frame
+    from engine.survival.compare import pairwise_frame
 
     frame = comparison_frame(fingerprint, roles_text, grouping, strata_column, _table)
     return pairwise_frame(frame, test=test, rho=rho, gamma=gamma)
@@ -272,7 +273,7 @@ def rmst_pair(
     _table: ImportedTable,
 ):
     """RMST of two groups and their difference (the second minus the first)."""
-    from engine.rmst import rmst_by_group
+    from engine.survival.rmst import rmst_by_group
 
     frame = _complete(comparison_frame(fingerprint, roles_text, grouping, None, _table))
     labels = {str(x): x for x in frame["_group"].cat.categories}
@@ -329,10 +330,10 @@ def cox_model(
     variance: str,
     _table: ImportedTable,
 ):
-    """The model builder's Cox model (``engine.analysis.fit_cox_from_roles``, as the recipe
+    """The model builder's Cox model (``engine.analysis.run.fit_cox_from_roles``, as the recipe
     replay fits it); the roles have no strata here (``data.model_roles``), so the page's
     strata column is the only one. ``variance``: "auto", "model" or "robust"."""
-    from engine.analysis import fit_cox_from_roles
+    from engine.analysis.run import fit_cox_from_roles
 
     return fit_cox_from_roles(
         data.prepared_by_key(fingerprint, roles_text, _table),
@@ -351,7 +352,7 @@ def cox_model(
 @st.cache_resource(max_entries=8, show_spinner="Checking proportional hazards…")
 def ph_check(model_key: tuple, time_scale: str, _table: ImportedTable) -> tuple:
     """The PH test and the scaled Schoenfeld residuals (for the plots)."""
-    from engine.cox_diagnostics import proportional_hazards_test, schoenfeld_residuals
+    from engine.cox.diagnostics import proportional_hazards_test, schoenfeld_residuals
 
     result = cox_model(*model_key, _table)
     residuals = schoenfeld_residuals(result, time_scale)
@@ -361,21 +362,21 @@ def ph_check(model_key: tuple, time_scale: str, _table: ImportedTable) -> tuple:
 
 @st.cache_data(max_entries=8, show_spinner="Screening each covariate alone…")
 def univariable(model_key: tuple, _table: ImportedTable) -> pd.DataFrame:
-    from engine.cox_summaries import univariable_screen
+    from engine.cox.summaries import univariable_screen
 
     return univariable_screen(cox_model(*model_key, _table)).to_frame()
 
 
 @st.cache_data(max_entries=8, show_spinner=False)
 def forest(model_key: tuple, _table: ImportedTable) -> pd.DataFrame:
-    from engine.cox_summaries import forest_data
+    from engine.cox.summaries import forest_data
 
     return forest_data(cox_model(*model_key, _table)).to_frame()
 
 
 @st.cache_resource(max_entries=8, show_spinner="Computing residuals…")
 def martingale(model_key: tuple, _table: ImportedTable) -> tuple[pd.DataFrame, pd.DataFrame]:
-    from engine.cox_diagnostics import martingale_residuals
+    from engine.cox.diagnostics import martingale_residuals
 
     result = martingale_residuals(cox_model(*model_key, _table))
     return result.table, result.bins
@@ -385,14 +386,14 @@ def martingale(model_key: tuple, _table: ImportedTable) -> tuple[pd.DataFrame, p
 def log_minus_log_lines(
     fingerprint: str, roles_text: str, variable: str, _table: ImportedTable
 ) -> pd.DataFrame:
-    from engine.cox_diagnostics import log_minus_log
+    from engine.cox.diagnostics import log_minus_log
 
     return log_minus_log(_frame(fingerprint, roles_text, _table), variable).to_frame()
 
 
 @st.cache_data(max_entries=8, show_spinner="Predicting curves…")
 def predicted(model_key: tuple, variable: str, _table: ImportedTable) -> tuple:
-    from engine.cox_summaries import level_profiles, predict_survival
+    from engine.cox.summaries import level_profiles, predict_survival
 
     result = cox_model(*model_key, _table)
     prediction = predict_survival(result, level_profiles(result, variable))
@@ -402,7 +403,7 @@ def predicted(model_key: tuple, variable: str, _table: ImportedTable) -> tuple:
 @st.cache_data(max_entries=8, show_spinner="Predicting curves…")
 def predicted_profiles(model_key: tuple, profiles: tuple, _table: ImportedTable) -> tuple:
     """Predicted curves for profiles given as (name, ((covariate, value), ...)) pairs."""
-    from engine.cox_summaries import predict_survival
+    from engine.cox.summaries import predict_survival
 
     result = cox_model(*model_key, _table)
     named = {name: dict(values) for name, values in profiles}

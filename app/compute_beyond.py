@@ -10,7 +10,7 @@ import streamlit as st
 
 from app import compute, thinning
 from app.batch import curve_rows, incidence_rows, thinned_incidence
-from engine.io import ImportedTable
+from engine.io.tables import ImportedTable
 
 
 def _frame(fingerprint: str, roles_text: str, table: ImportedTable) -> pd.DataFrame:
@@ -21,7 +21,7 @@ def _frame(fingerprint: str, roles_text: str, table: ImportedTable) -> pd.DataFr
 def incidence(
     fingerprint: str, roles_text: str, by_group: bool, confidence: float, _table: ImportedTable
 ):
-    from engine.competing import cumulative_incidence
+    from engine.competing.incidence import cumulative_incidence
 
     frame = _frame(fingerprint, roles_text, _table)
     return cumulative_incidence(frame, by_group=by_group, confidence_level=confidence)
@@ -44,8 +44,8 @@ def incidence_drawing(
 
 @st.cache_resource(max_entries=4, show_spinner="Fitting a Cox model per cause…")
 def cause_specific(fingerprint: str, roles_text: str, ties: str, _table: ImportedTable, _roles):
-    from engine.analysis import categorical_covariates
-    from engine.competing import cause_specific_cox
+    from engine.analysis.run import categorical_covariates
+    from engine.competing.incidence import cause_specific_cox
 
     frame = _frame(fingerprint, roles_text, _table)
     return cause_specific_cox(
@@ -68,7 +68,7 @@ def parametric(
     confidence: float,
     _table: ImportedTable,
 ):
-    from engine.parametric import fit_parametric
+    from engine.parametric.fits import fit_parametric
 
     frame = _frame(fingerprint, roles_text, _table)
     return fit_parametric(
@@ -90,7 +90,7 @@ def aft(
     _table: ImportedTable,
     _covariates: tuple[str, ...],
 ):
-    from engine.aft import fit_aft
+    from engine.parametric.aft import fit_aft
 
     frame = _frame(fingerprint, roles_text, _table)
     return fit_aft(frame, list(_covariates), distribution, confidence_level=confidence)
@@ -98,7 +98,7 @@ def aft(
 
 @st.cache_resource(max_entries=8, show_spinner="Selecting the subjects at risk…")
 def landmark(fingerprint: str, roles_text: str, at: float, _table: ImportedTable):
-    from engine.landmark import landmark as select
+    from engine.survival.landmark import landmark as select
 
     return select(_frame(fingerprint, roles_text, _table), at)
 
@@ -108,7 +108,7 @@ def landmark_curves(
     fingerprint: str, roles_text: str, at: float, height_px: int, _table: ImportedTable
 ) -> pd.DataFrame:
     """Thinned Kaplan–Meier vertices of the subjects kept at the landmark (time from it)."""
-    from engine.curves import curves_by_group
+    from engine.survival.curves import curves_by_group
 
     frame = landmark(fingerprint, roles_text, at, _table).frame
     curves = curves_by_group(frame).curves
@@ -131,7 +131,7 @@ def landmark_comparison(
 ):
     """The group comparison among the subjects kept at the landmark (ρ and γ weigh the
     Fleming–Harrington test)."""
-    from engine.compare import compare_frame
+    from engine.survival.compare import compare_frame
 
     frame = landmark(fingerprint, roles_text, at, _table).frame
     if "_group" not in frame.columns or frame["_group"].nunique(dropna=True) < 2:
@@ -141,13 +141,14 @@ def landmark_comparison(
 
 @st.cache_resource(max_entries=8, show_spinner="Building the baseline table…")
 def baseline(fingerprint: str, roles_text: str, settings_text: str, _table: ImportedTable):
-    """The baseline table (``engine.baseline.BaselineTable``) of the prepared rows, describing the
+    """The baseline table (``engine.analysis.baseline.BaselineTable``) of the prepared rows,
+    describing the
     columns as read; ``settings_text`` is the JSON of the page's baseline settings."""
     import json
 
     from app import data
-    from engine.analysis_extra import baseline_table_from_settings
-    from engine.roles import Roles
+    from engine.analysis.extra import baseline_table_from_settings
+    from engine.prepare.roles import Roles
 
     prepared = data.prepared(_table, Roles.from_dict(json.loads(roles_text)))
     return baseline_table_from_settings(prepared, json.loads(settings_text), _table.frame)
@@ -159,7 +160,7 @@ def baseline(fingerprint: str, roles_text: str, settings_text: str, _table: Impo
 @st.cache_data(max_entries=8, show_spinner="Testing each cause…")
 def gray_tests(fingerprint: str, roles_text: str, _table: ImportedTable) -> pd.DataFrame | None:
     """Gray's test per cause (None without two groups)."""
-    from engine.gray_test import gray_tests as tests
+    from engine.competing.gray_test import gray_tests as tests
 
     frame = _frame(fingerprint, roles_text, _table)
     if "_group" not in frame.columns or frame["_group"].nunique(dropna=True) < 2:
@@ -169,8 +170,8 @@ def gray_tests(fingerprint: str, roles_text: str, _table: ImportedTable) -> pd.D
 
 @st.cache_resource(max_entries=4, show_spinner="Fitting the Fine–Gray model…")
 def fine_gray(fingerprint: str, roles_text: str, cause: str, ties: str, _table, _roles):
-    from engine.analysis import categorical_covariates
-    from engine.fine_gray import fit_fine_gray
+    from engine.analysis.run import categorical_covariates
+    from engine.competing.fine_gray import fit_fine_gray
 
     frame = _frame(fingerprint, roles_text, _table)
     return fit_fine_gray(
@@ -189,7 +190,7 @@ def fine_gray_profiles(
 ) -> pd.DataFrame:
     """Predicted cumulative incidence of the cause for each level (or quartile) of a covariate,
     the others at their mean or reference level."""
-    from engine.cox_summaries import level_profiles
+    from engine.cox.summaries import level_profiles
 
     result = fine_gray(fingerprint, roles_text, cause, ties, _table, _roles)
     return result.predict_incidence(level_profiles(result, variable))
@@ -221,14 +222,14 @@ def fine_gray_drawing(
 @st.cache_resource(max_entries=4, show_spinner="Measuring how well the model predicts…")
 def performance(model_key: tuple, times: tuple, tau, _table):
     """Every measure at the chosen times (calibration at the first; the page draws its own)."""
-    from engine.performance import prediction_performance
+    from engine.prediction.performance import prediction_performance
 
     return prediction_performance(compute.cox_model(*model_key, _table), list(times), tau=tau)
 
 
 @st.cache_resource(max_entries=4, show_spinner=False)
 def predictions(model_key: tuple, _table):
-    from engine.performance import cox_predictions
+    from engine.prediction.performance import cox_predictions
 
     return cox_predictions(compute.cox_model(*model_key, _table))
 
@@ -236,6 +237,6 @@ def predictions(model_key: tuple, _table):
 @st.cache_data(max_entries=16, show_spinner=False)
 def calibration(model_key: tuple, at: float, groups: int, _table) -> pd.DataFrame:
     """Predicted against observed survival at ``at`` in ``groups`` risk groups."""
-    from engine.performance import calibration_table
+    from engine.prediction.performance import calibration_table
 
     return calibration_table(predictions(model_key, _table), at, groups=groups)

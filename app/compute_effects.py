@@ -11,7 +11,7 @@ import json
 import streamlit as st
 
 from app import data
-from engine.io import ImportedTable
+from engine.io.tables import ImportedTable
 
 
 def _prepared(fingerprint: str, roles_text: str, table: ImportedTable):
@@ -21,7 +21,7 @@ def _prepared(fingerprint: str, roles_text: str, table: ImportedTable):
 @st.cache_data(max_entries=16, show_spinner="Fitting the splines…")
 def splines(fingerprint: str, roles_text: str, cox_text: str, _table: ImportedTable) -> list:
     """``cox.splines`` of the JSON for these Cox settings (``cox_text``: JSON of the settings)."""
-    from engine.analysis import cox_additions
+    from engine.analysis.run import cox_additions
 
     cox = {**json.loads(cox_text), "split": None}
     return cox_additions(_prepared(fingerprint, roles_text, _table), cox, _table.frame)["splines"]
@@ -30,7 +30,7 @@ def splines(fingerprint: str, roles_text: str, cox_text: str, _table: ImportedTa
 @st.cache_data(max_entries=16, show_spinner="Splitting follow-up and refitting…")
 def time_split(fingerprint: str, roles_text: str, cox_text: str, _table: ImportedTable) -> dict:
     """``cox.time_split`` of the JSON for these Cox settings."""
-    from engine.analysis import cox_additions
+    from engine.analysis.run import cox_additions
 
     cox = {**json.loads(cox_text), "splines": []}
     prepared = _prepared(fingerprint, roles_text, _table)
@@ -40,8 +40,8 @@ def time_split(fingerprint: str, roles_text: str, cox_text: str, _table: Importe
 @st.cache_data(max_entries=16, show_spinner="Fitting a model per subgroup…")
 def subgroups(fingerprint: str, roles_text: str, settings_text: str, _table: ImportedTable) -> dict:
     """The ``subgroups`` section for these settings (JSON text of {"subgroups", "cox"})."""
-    from engine.analysis import resolved_settings
-    from engine.analysis_extra import extra_sections
+    from engine.analysis.extra import extra_sections
+    from engine.analysis.run import resolved_settings
 
     settings = resolved_settings(json.loads(settings_text))
     prepared = _prepared(fingerprint, roles_text, _table)

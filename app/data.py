@@ -16,9 +16,9 @@ from pathlib import Path
 import streamlit as st
 
 from app import state
-from engine.checks import prepare
-from engine.io import ImportedTable, ImportOptions, read_table
-from engine.roles import Roles, suggest_roles
+from engine.io.tables import ImportedTable, ImportOptions, read_table
+from engine.prepare.checks import prepare
+from engine.prepare.roles import Roles, suggest_roles
 
 DEMO_DIR = Path(__file__).resolve().parents[1] / "demo_data"
 DEMO_SUFFIXES = (".csv", ".tsv", ".txt", ".xlsx", ".parquet")
@@ -217,5 +217,6 @@ def prepared_by_key(fingerprint: str, roles_text: str, _table: ImportedTable):
 
 
 def prepared(table: ImportedTable, roles: Roles):
-    """``engine.checks.prepare`` on the table in use, cached on its SHA-256 and the roles."""
+    """``engine.prepare.checks.prepare`` on the table in use, cached on its SHA-256 and the
+    roles."""
     return prepared_by_key(table.sha256, roles_key(roles), table)

@@ -1,7 +1,8 @@
 """Tables for a manuscript: an Excel sheet and a Word table of any result table, and the whole
 report as one Word document with its figures.
 
-Tables are rounded by ``engine.manuscript_tables`` (the rules of the manuscript sentences). The
+Tables are rounded by ``engine.analysis.manuscript_tables`` (the rules of the manuscript
+sentences). The
 Excel workbook has the rounded table on its first sheet, kept as numbers where a number is shown
 (a percentage as a fraction formatted as a percentage), and every exact value on a second sheet.
 Text is always stored as text, never as a formula (openpyxl would otherwise write a cell starting
@@ -20,7 +21,7 @@ from html.parser import HTMLParser
 
 import pandas as pd
 
-from engine.manuscript_tables import manuscript_frame
+from engine.analysis.manuscript_tables import manuscript_frame
 
 XLSX_MIME = "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet"
 DOCX_MIME = "application/vnd.openxmlformats-officedocument.wordprocessingml.document"

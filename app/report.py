@@ -33,10 +33,10 @@ from app.report_sections import (
     roles_section,
     sample_size_section,
 )
-from engine.analysis import is_not_computed
-from engine.cox_diagnostics import TIME_SCALE_WORDS
-from engine.recipe import software_versions
-from engine.roles import Roles, event_in_words
+from engine.analysis.recipe import software_versions
+from engine.analysis.run import is_not_computed
+from engine.cox.diagnostics import TIME_SCALE_WORDS
+from engine.prepare.roles import Roles, event_in_words
 from engine.wording import format_confidence, format_plain
 
 CAUTIONS = (

@@ -1,4 +1,5 @@
-"""The report's baseline table (``engine.baseline``), built from the JSON ``baseline`` section
+"""The report's baseline table (``engine.analysis.baseline``), built from the JSON ``baseline``
+section
 with the same rounding as the Baseline table page."""
 
 from __future__ import annotations
@@ -6,7 +7,7 @@ from __future__ import annotations
 from collections.abc import Mapping
 
 from app.report_html import cell, escape, num, or_reason, table
-from engine.baseline import SMD_NOTE, TEST_CAUTION, BaselineTable, display_frame
+from engine.analysis.baseline import SMD_NOTE, TEST_CAUTION, BaselineTable, display_frame
 
 
 @or_reason("Baseline table")

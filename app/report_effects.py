@@ -24,7 +24,7 @@ from app.report_html import (
     table,
 )
 from app.report_sections import ph_check_rows
-from engine.analysis import is_not_computed
+from engine.analysis.run import is_not_computed
 from engine.wording import format_number, format_p, format_plain, format_ratio
 
 REPORT_SIZE = (640, 360)

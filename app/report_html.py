@@ -11,7 +11,7 @@ import html
 import re
 from collections.abc import Iterable, Mapping, Sequence
 
-from engine.analysis import NOT_COMPUTED, is_not_computed
+from engine.analysis.run import NOT_COMPUTED, is_not_computed
 from engine.text_safety import visible_text
 from engine.wording import format_number, format_p, format_plain
 

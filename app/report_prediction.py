@@ -16,7 +16,7 @@ from app.report_html import (
     statistics_table,
     table,
 )
-from engine.analysis import is_not_computed
+from engine.analysis.run import is_not_computed
 from engine.wording import format_number, format_p, format_plain, format_ratio
 
 

@@ -25,7 +25,7 @@ from app.report_html import (
     table,
 )
 from app.report_prediction import competing_regression_block
-from engine.analysis import is_not_computed
+from engine.analysis.run import is_not_computed
 from engine.wording import (
     NOT_REACHED,
     comparison_sentence,
@@ -181,7 +181,7 @@ def curves_section(
     curves: Sequence[Mapping], unit: str, confidence: float, figure, event: str | None = None
 ) -> str:
     """The Kaplan–Meier figure, the summary by group and its sentences; ``event`` names the
-    event in words (``engine.roles.event_in_words``)."""
+    event in words (``engine.prepare.roles.event_in_words``)."""
     if not curves:
         return ""
     ci = format_confidence(confidence)
@@ -358,7 +358,7 @@ def _quote(value) -> str:
 
 def ph_check_rows(check: Mapping | None) -> list[tuple[str, Mapping]]:
     """(label, test) rows of a JSON ``ph_check``: each term, then all terms together."""
-    from engine.cox_diagnostics import ALL_TERMS
+    from engine.cox.diagnostics import ALL_TERMS
 
     if not check:
         return []
@@ -369,7 +369,7 @@ def ph_section(cox: Mapping | None, figure=None, plotted: str | None = None) -> 
     """The Grambsch–Therneau tests per covariate and for all terms together, the time scale in
     words, and the scaled Schoenfeld residuals of ``plotted`` (the term with the smallest
     p-value) when ``figure`` is given."""
-    from engine.cox_diagnostics import TIME_SCALE_WORDS
+    from engine.cox.diagnostics import TIME_SCALE_WORDS
 
     if is_not_computed(cox):
         return ""
@@ -503,7 +503,7 @@ def competing_section(
 def parametric_section(section: Mapping | None, unit: str, ci: str, figure) -> str:
     if not section:
         return ""
-    from engine.parametric import LABELS  # model names as people write them
+    from engine.parametric.fits import LABELS  # model names as people write them
 
     aic = [
         [

@@ -1,7 +1,8 @@
 """The row filters chosen on the *Row filters* page: which rules a column offers, the live count of
 rows a filter would keep, and putting a list of filters in use for every page and the report.
 
-The rules are those of ``engine.filters`` (the ones a recipe stores), so a filter made here is
+The rules are those of ``engine.prepare.filters`` (the ones a recipe stores), so a filter made here
+is
 saved in the recipe and replayed by ``python -m app analyze --recipe`` unchanged. The table in use
 becomes the filtered copy (``share_section.filtered_table``, with a fingerprint of its own so
 every cached result is keyed on the rows kept) and the table as read is kept beside it. Nothing
@@ -16,7 +17,7 @@ import pandas as pd
 
 from app import share_section, state
 from engine.errors import HazelError
-from engine.filters import FilterOutcome, RowFilter, apply_filters
+from engine.prepare.filters import FilterOutcome, RowFilter, apply_filters
 
 # rule -> words on the page
 RULE_WORDS = {

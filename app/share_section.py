@@ -17,14 +17,15 @@ import streamlit as st
 from app import state
 from app.effects_settings import effects_choices, restore_effects
 from app.exports import file_stem
-from engine.analysis import ANALYSIS_DEFAULTS, OPTIONAL_ANALYSES
+from engine.analysis.recipe import Recipe, make_recipe
+from engine.analysis.run import ANALYSIS_DEFAULTS, OPTIONAL_ANALYSES
 from engine.errors import HazelError
-from engine.filters import apply_filters
-from engine.recipe import Recipe, make_recipe
-from engine.roles import Roles
+from engine.prepare.filters import apply_filters
+from engine.prepare.roles import Roles
 from engine.wording import format_confidence, format_plain
 
-FILTERS = "shared_filters"  # tuple of engine.filters.RowFilter in use (none until a page sets it)
+# tuple of engine.prepare.filters.RowFilter in use (none until a page sets it)
+FILTERS = "shared_filters"
 RESTORED_UPLOAD = "share_restored_upload"  # id of the recipe upload already applied
 RESTORE_MESSAGES = "share_restore_messages"  # what the last restore found, shown once
 REPORT_HTML = "share_report_html"  # (key of what it was built from, html text)
@@ -320,7 +321,7 @@ def restore_recipe(session: MutableMapping, recipe: Recipe) -> list[str]:
     recipe's data are returned as warnings for the page to show.
     """
     from app.batch import import_option_differences
-    from engine.recipe import check_fingerprint
+    from engine.analysis.recipe import check_fingerprint
 
     table = source_table(session)
     if table is None:
@@ -521,9 +522,9 @@ def manuscript_box(sentences, what: str = "these results") -> None:
 def curve_text(
     frame, times, confidence: float, transform: str, unit: str, event: str | None = None
 ) -> list[str]:
-    """Median and survival-at-time sentences for every curve (engine.summary.curves_json),
-    naming the event (``engine.roles.event_in_words``)."""
-    from engine.summary import curves_json
+    """Median and survival-at-time sentences for every curve (engine.survival.summary.curves_json),
+    naming the event (``engine.prepare.roles.event_in_words``)."""
+    from engine.survival.summary import curves_json
     from engine.wording import curve_sentences
 
     sentences = []
@@ -533,14 +534,14 @@ def curve_text(
 
 
 def comparison_text(result) -> list[str]:
-    """One sentence for a comparison result of engine.compare."""
+    """One sentence for a comparison result of engine.survival.compare."""
     from engine.wording import comparison_sentence
 
     return [comparison_sentence(result.test, result.statistic, result.df, result.p_value)]
 
 
 def cox_text(result) -> list[str]:
-    """One hazard-ratio sentence per term of an engine.cox result."""
+    """One hazard-ratio sentence per term of an engine.cox.fit result."""
     from engine.wording import cox_sentences
 
     return cox_sentences(result.to_dict(), result.confidence)
@@ -570,11 +571,11 @@ def analysis_text(sections: dict, settings: dict, event: str | None = None) -> l
 def recipe_text(recipe_json: str, fingerprint: str, _table) -> str:
     """All sentences for a recipe replayed on the table (the same path as the report)."""
     from app.batch import apply_recipe
-    from engine.analysis import run_analysis
+    from engine.analysis.run import run_analysis
 
     run = apply_recipe(Recipe.from_json(recipe_json), _table)
     sections = run_analysis(run.prepared, run.settings, run.source)
-    from engine.roles import event_in_words
+    from engine.prepare.roles import event_in_words
 
     event = event_in_words(run.prepared.roles)
     return "\n".join(analysis_text(sections, run.settings, event))

@@ -12,12 +12,13 @@ from __future__ import annotations
 from collections.abc import MutableMapping
 
 # Shared, set by code (never a widget key).
-TABLE = "shared_table"  # engine.io.ImportedTable in use
+TABLE = "shared_table"  # engine.io.tables.ImportedTable in use
 DATASET_LABEL = "dataset_label"  # what the sidebar calls it, e.g. "Demo: pump wear trial"
 DATASET_IS_DEMO = "dataset_is_demo"
-ROLES = "shared_roles"  # engine.roles.Roles in use
+ROLES = "shared_roles"  # engine.prepare.roles.Roles in use
 ROLES_PRESET = "shared_roles_preset"  # True when a demo's documented roles were applied
-ROLES_SUGGESTED = "shared_roles_suggested"  # engine.roles.RoleSuggestions for the table in use
+# engine.prepare.roles.RoleSuggestions for the table in use
+ROLES_SUGGESTED = "shared_roles_suggested"
 # False while the roles in use are Hazel's suggestions (or a demo's preset) that nobody has
 # checked yet: every page then says "Suggested roles in use — check them".
 ROLES_CONFIRMED = "shared_roles_confirmed"

@@ -119,7 +119,7 @@ def table(
 ) -> None:
     """Show a table (``shown`` may be a rounded view) and offer the exact values as CSV, and
     the table rounded for a manuscript as an Excel sheet and a Word table (``manuscript``: a
-    page's own worded table, else ``frame`` rounded by ``engine.manuscript_tables``)."""
+    page's own worded table, else ``frame`` rounded by ``engine.analysis.manuscript_tables``)."""
     from app import exports_office
 
     st.dataframe(

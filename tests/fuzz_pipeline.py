@@ -27,11 +27,11 @@ import pandas as pd
 from hypothesis import strategies as st
 
 from app.cli import SCHEMA_VERSION
-from engine.analysis import ANALYSIS_DEFAULTS, run_analysis
-from engine.checks import prepare
+from engine.analysis.run import ANALYSIS_DEFAULTS, run_analysis
 from engine.errors import HazelError
-from engine.io import ImportOptions, read_table
-from engine.roles import TIME_UNITS, Roles, suggest_roles
+from engine.io.tables import ImportOptions, read_table
+from engine.prepare.checks import prepare
+from engine.prepare.roles import TIME_UNITS, Roles, suggest_roles
 
 HANG_SECONDS = 20  # a case still running after this is cut off and counted as a hang
 # The report's rounding rules cannot yet print values of 1e27 and more (issue 10 item 4, on the

@@ -33,8 +33,8 @@ def test_engine_imports_no_user_interface_library():
 
 def test_engine_import_does_not_load_streamlit():
     code = "import sys, engine, pkgutil, importlib\n"
-    code += "for m in pkgutil.iter_modules(engine.__path__):\n"
-    code += "    importlib.import_module('engine.' + m.name)\n"
+    code += "for m in pkgutil.walk_packages(engine.__path__, 'engine.'):\n"
+    code += "    importlib.import_module(m.name)\n"
     code += "print(sorted(n for n in ('streamlit', 'altair') if n in sys.modules))"
     out = subprocess.run(
         [sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, check=True
@@ -53,7 +53,7 @@ def test_command_line_start_up_does_not_import_streamlit():
 def test_upload_limit_matches_the_engine_limit():
     import tomllib
 
-    from engine.io import DEFAULT_MAX_BYTES
+    from engine.io.tables import DEFAULT_MAX_BYTES
 
     config = tomllib.loads((ROOT / ".streamlit" / "config.toml").read_text(encoding="utf-8"))
     assert config["server"]["maxUploadSize"] * 1024 * 1024 == DEFAULT_MAX_BYTES

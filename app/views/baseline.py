@@ -8,9 +8,9 @@ import json
 import streamlit as st
 
 from app import compute_beyond, data, share_section, ui
-from engine.analysis_extra import baseline_columns
-from engine.baseline import SMD_NOTE, TEST_CAUTION, display_frame
-from engine.roles import covariate_kind
+from engine.analysis.baseline import SMD_NOTE, TEST_CAUTION, display_frame
+from engine.analysis.extra import baseline_columns
+from engine.prepare.roles import covariate_kind
 
 st.title("Baseline table", anchor=False)
 st.caption(
@@ -86,7 +86,7 @@ if not variables:
 
 settings = share_section.settings_from_session(st.session_state, roles).get("baseline")
 if settings is None:  # the switch is off: the page still shows the table
-    from engine.analysis import ANALYSIS_DEFAULTS
+    from engine.analysis.run import ANALYSIS_DEFAULTS
 
     settings = dict(ANALYSIS_DEFAULTS["baseline"])
     for widget in share_section.WIDGETS:

@@ -10,7 +10,7 @@ import streamlit as st
 
 from app import big_views, bigdata, data, state, ui
 from engine.errors import HazelError
-from engine.roles import (
+from engine.prepare.roles import (
     TIME_UNITS,
     Roles,
     covariate_kind,
@@ -386,7 +386,7 @@ with right:
     ui.table(report.group_counts, "group-counts", "roles_group_counts")
 
 with ui.guard("The follow-up summary"):
-    from engine.curves import median_follow_up
+    from engine.survival.curves import median_follow_up
 
     follow = median_follow_up(prepared.frame["_time"], prepared.frame["_event"])
     st.markdown(

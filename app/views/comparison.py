@@ -8,8 +8,8 @@ import streamlit as st
 
 from app import big_views, bigdata, charts, compute, data, ui
 from app.share_section import CUT_GROUPS, CUT_SOURCE, NO_COMPARE_STRATA, ROLE_SOURCE
-from engine.compare import TESTS
-from engine.roles import event_in_words
+from engine.prepare.roles import event_in_words
+from engine.survival.compare import TESTS
 from engine.wording import format_number, free_name, p_clause, probability_title
 
 TEST_LABELS = {

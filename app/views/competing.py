@@ -287,7 +287,7 @@ def fine_gray_block(table, roles, causes, unit: str) -> None:
             "having had it by each time when the other causes compete."
         )
     if chosen_cause != NO_FINE_GRAY:
-        from engine.fine_gray import MEANING
+        from engine.competing.fine_gray import MEANING
 
         with ui.guard("The Fine–Gray model"):
             model_text = data.roles_key(roles)

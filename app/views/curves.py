@@ -7,7 +7,7 @@ import pandas as pd
 import streamlit as st
 
 from app import big_views, bigdata, charts, compute, data, ui
-from engine.roles import TIME_UNITS, event_in_words
+from engine.prepare.roles import TIME_UNITS, event_in_words
 from engine.wording import (
     format_confidence,
     format_number,

@@ -8,9 +8,9 @@ import pandas as pd
 import streamlit as st
 
 from app import bigdata, data, state, ui
-from engine.columns import column_profile
 from engine.errors import HazelError
-from engine.io import DEFAULT_MISSING_TOKENS, ImportOptions, read_table
+from engine.io.tables import DEFAULT_MISSING_TOKENS, ImportOptions, read_table
+from engine.prepare.columns import column_profile
 
 UPLOAD_BYTES = "import_bytes"  # the last uploaded file, kept to re-read with other options
 UPLOAD_NAME = "import_name"

@@ -11,8 +11,8 @@ import streamlit as st
 
 from app import charts_models, compute_effects, data, share_section, ui
 from app import effects_settings as keys
-from engine.cox_diagnostics import ALL_TERMS
-from engine.subgroups import CAUTION
+from engine.cox.diagnostics import ALL_TERMS
+from engine.cox.subgroups import CAUTION
 from engine.wording import format_confidence, term_label
 
 st.title("Effects in depth", anchor=False)

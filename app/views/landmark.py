@@ -6,8 +6,8 @@ from __future__ import annotations
 import streamlit as st
 
 from app import charts, compute, compute_beyond, data, share_section, ui
-from engine.compare import TESTS
-from engine.roles import event_in_words
+from engine.prepare.roles import event_in_words
+from engine.survival.compare import TESTS
 from engine.wording import comparison_sentence, format_number, format_plain, probability_title
 
 st.title("Landmark analysis", anchor=False)

@@ -8,8 +8,8 @@ import pandas as pd
 import streamlit as st
 
 from app import charts, charts_models, compute, compute_beyond, data, ui
-from engine.aft import AFT_PARAMETRISATION
-from engine.parametric import DISTRIBUTIONS, LABELS, PARAMETRISATION
+from engine.parametric.aft import AFT_PARAMETRISATION
+from engine.parametric.fits import DISTRIBUTIONS, LABELS, PARAMETRISATION
 from engine.wording import (
     format_confidence,
     format_number,

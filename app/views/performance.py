@@ -11,7 +11,7 @@ import streamlit as st
 from app import charts, charts_models, compute, compute_beyond, data, ui
 from app.share_section import NO_MODEL_STRATA, REFERENCE_PREFIX, VARIANCE_LABELS
 from engine.errors import HazelError
-from engine.optimism import DEFAULT_REPLICATES, DEFAULT_SEED
+from engine.prediction.optimism import DEFAULT_REPLICATES, DEFAULT_SEED
 
 TIES = {"Efron (default)": "efron", "Breslow": "breslow"}  # the Regression page's labels
 OPTIMISM = "shared_perf_optimism"  # {(model key, replicates, seed): OptimismResult}
@@ -208,7 +208,7 @@ with ui.guard("The performance measures"):
     done = session.setdefault(OPTIMISM, {})
     key = (model_key, replicates, seed)
     if key not in done and cols[2].button("Run the bootstrap", key="perf_run_button"):
-        from engine.optimism import bootstrap_optimism
+        from engine.prediction.optimism import bootstrap_optimism
 
         bar = st.progress(0.0, text="Refitting the model on resampled rows…")
 

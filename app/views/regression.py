@@ -8,7 +8,7 @@ import streamlit as st
 
 from app import big_views, bigdata, charts, charts_models, compute, data, thinning, ui
 from app.share_section import NO_MODEL_STRATA, PH_LABELS, REFERENCE_PREFIX, VARIANCE_LABELS
-from engine.cox_diagnostics import TIME_SCALE_WORDS
+from engine.cox.diagnostics import TIME_SCALE_WORDS
 from engine.errors import HazelError
 from engine.wording import format_confidence, format_number, format_ratio, p_clause, term_label
 
@@ -162,7 +162,7 @@ share_section.manuscript_box(share_section.cox_text(result), "hazard ratios")
 
 def profile_builder(result, covariates: list[str]) -> tuple:
     """A small form to add covariate profiles; they are kept for this model's covariates."""
-    from engine.cox_summaries import typical_profile
+    from engine.cox.summaries import typical_profile
 
     key = "|".join(covariates)
     store = st.session_state.setdefault(CUSTOM_PROFILES, {})

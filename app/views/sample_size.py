@@ -8,7 +8,7 @@ import streamlit as st
 
 from app import charts_models, ui
 from engine.errors import HazelError
-from engine.sample_size import METHODS, events_needed, power_curve, power_for_events
+from engine.survival.sample_size import METHODS, events_needed, power_curve, power_for_events
 from engine.wording import hazard_ratio_direction
 
 NAMES = {"schoenfeld": "Schoenfeld (1983)", "freedman": "Freedman (1982)"}

@@ -14,17 +14,17 @@ from engine.aggregate.cox_fit import fit_cox_from_sums
 from engine.aggregate.estimators import compare_from_counts, curves_from_counts
 from engine.aggregate.sql_checks import AggregatedData
 from engine.aggregate.sql_cox import SqlCoxSource, sql_design
-from engine.analysis import (
+from engine.analysis.run import (
     CORE_ANALYSES,
     computed,
     is_not_computed,
     not_computed,
     resolved_settings,
 )
-from engine.cox import cox_json
+from engine.cox.fit import cox_json
 from engine.errors import RoleError
 from engine.json_values import json_float
-from engine.summary import COMPARISON_KEYS, curve_set_json
+from engine.survival.summary import COMPARISON_KEYS, curve_set_json
 
 SAMPLE_HINT = "; run it with --backend memory on the rows (or on a random sample of them)."
 NEEDS_ROWS = {
@@ -153,7 +153,7 @@ def with_error_bound(section: dict, concordance) -> dict:
 
 
 def run_aggregate_analysis(data: AggregatedData, settings: Mapping | None = None) -> dict:
-    """The sections of ``engine.analysis.run_analysis`` from the database's per-time sums."""
+    """The sections of ``engine.analysis.run.run_analysis`` from the database's per-time sums."""
     chosen = resolved_settings(settings)
     curves, comparison, cox = chosen["curves"], chosen["comparison"], chosen["cox"]
 
@@ -184,7 +184,7 @@ def run_aggregate_analysis(data: AggregatedData, settings: Mapping | None = None
                 {**chosen[name], "confidence": curves["confidence"], "ties": cox["ties"]},
             )
         elif name == "sample_size":
-            from engine.analysis_extra import sample_size_section
+            from engine.analysis.extra import sample_size_section
 
             sections[name] = computed(
                 sample_size_section, {**chosen[name], "confidence": curves["confidence"]}

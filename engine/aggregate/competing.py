@@ -1,6 +1,6 @@
 """The "competing" section from counts: Aalen–Johansen incidence, Gray's test and the
-cause-specific Cox models, with the row-level code of ``engine.competing`` and
-``engine.gray_test`` fed the per-time counts a database gives.
+cause-specific Cox models, with the row-level code of ``engine.competing.incidence`` and
+``engine.competing.gray_test`` fed the per-time counts a database gives.
 
 The incidence and Gray's test depend on the rows only through, per group (and stratum), the rows
 at risk, leaving and having each cause at every distinct time: ``counts.risk_table`` gives the
@@ -20,10 +20,10 @@ from scipy.stats import norm
 from engine.aggregate.counts import CountTable, risk_table, stratum_codes
 from engine.aggregate.sql import literal
 from engine.aggregate.sql_checks import AggregatedData
-from engine.analysis_extra import incidence_section
-from engine.competing import CumulativeIncidence, incidence_result, incidence_table
+from engine.analysis.extra import incidence_section
+from engine.competing.gray_test import GrayTest, gray_result, stratum_scores
+from engine.competing.incidence import CumulativeIncidence, incidence_result, incidence_table
 from engine.errors import AnalysisError
-from engine.gray_test import GrayTest, gray_result, stratum_scores
 
 FINE_GRAY_NOT_COMPUTED = (
     "The Fine–Gray model weights each row that had a competing event by the censoring "
@@ -151,7 +151,7 @@ def cause_specific_from_data(data: AggregatedData, chosen: Mapping) -> list[dict
 
 def competing_from_data(data: AggregatedData, chosen: Mapping) -> dict:
     """The "competing" section of ``analysis_extra.competing_section`` from the database."""
-    from engine.analysis import computed
+    from engine.analysis.run import computed
 
     counts, roles = data.counts, data.roles
     result = incidence_from_counts(
@@ -165,7 +165,7 @@ def competing_from_data(data: AggregatedData, chosen: Mapping) -> dict:
         section["gray_test"] = computed(_gray_section, counts)
     section["fine_gray"] = None
     if chosen.get("fine_gray"):
-        from engine.analysis import not_computed
+        from engine.analysis.run import not_computed
 
         section["fine_gray"] = not_computed(FINE_GRAY_NOT_COMPUTED)
     return section

@@ -1,5 +1,5 @@
 """Harrell's C from counts of rows per (stratum, score bin, time, event) and, with delayed
-entry, per (stratum, score bin, entry time): the pairs of ``engine.concordance.harrell_c``
+entry, per (stratum, score bin, entry time): the pairs of ``engine.cox.concordance.harrell_c``
 counted cell by cell.
 
 An event at t in bin b is compared with every row of its stratum at risk at t (entry < t) that
@@ -27,7 +27,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 import pandas as pd
 
-from engine.concordance import ConcordanceResult, concordance_result
+from engine.cox.concordance import ConcordanceResult, concordance_result
 from engine.errors import AnalysisError
 from engine.json_values import json_float
 

@@ -4,7 +4,7 @@ Kaplan–Meier, Nelson–Aalen, survival at times, quantiles, numbers at risk, R
 weighted log-rank family depend on the rows only through, per group and stratum, the events and
 censorings at each distinct exit time and the entries at each distinct entry time. A
 ``CountTable`` holds exactly those; ``risk_table`` turns a selection of it into the
-``engine.risk_table.RiskTable`` that the row-level estimators already take, with the same
+``engine.survival.risk_table.RiskTable`` that the row-level estimators already take, with the same
 integers ``build_risk_table`` would count from the rows (the tests check this to the unit).
 
 Group and stratum are integer codes into ``group_labels`` / ``strata_labels`` (-1: missing).
@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 
 from engine.errors import AnalysisError
-from engine.risk_table import RiskTable
+from engine.survival.risk_table import RiskTable
 
 EXIT_COLUMNS = ("group", "stratum", "time", "events", "censored", "competing")
 ENTRY_COLUMNS = ("group", "stratum", "entry", "rows")

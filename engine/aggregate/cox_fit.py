@@ -14,8 +14,10 @@ from collections.abc import Callable
 import numpy as np
 
 from engine.aggregate.cox_sums import CoxSumsSource, EventGroups, likelihood_from_sums
-from engine.concordance import ConcordanceResult
-from engine.cox import (
+from engine.cox.concordance import ConcordanceResult
+from engine.cox.design import Design
+from engine.cox.diagnostics import TIME_SCALES, PHTest, ph_test_from_sums
+from engine.cox.fit import (
     SINGULAR_INFORMATION,
     ChiSquareTest,
     CoxResult,
@@ -24,9 +26,7 @@ from engine.cox import (
     fit_warnings,
     term_estimates,
 )
-from engine.cox_design import Design
-from engine.cox_diagnostics import TIME_SCALES, PHTest, ph_test_from_sums
-from engine.cox_likelihood import TIES, maximise
+from engine.cox.likelihood import TIES, maximise
 from engine.errors import AnalysisError, preview_values
 
 NOT_COUNTED = ConcordanceResult(float("nan"), float("nan"), 0.0, 0.0, 0.0, 0.0)
@@ -131,7 +131,7 @@ def fit_cox_from_sums(
     )
     ph = None
     if ph_time_scale is not None:
-        from engine.analysis import computed
+        from engine.analysis.run import computed
 
         ph = computed(ph_test_from_groups, final_groups, at_zero, design, covariance, ph_time_scale)
     return result, ph

@@ -20,7 +20,7 @@ from typing import Protocol
 
 import numpy as np
 
-from engine.cox_likelihood import LikelihoodTerms
+from engine.cox.likelihood import LikelihoodTerms
 
 EFRON_CHUNK = 2_000_000  # tied events expanded at a time for Efron's sums over l
 

@@ -13,7 +13,8 @@ import numpy as np
 from scipy.stats import chi2
 
 from engine.aggregate.counts import CountTable, risk_table, stratum_codes
-from engine.compare import (
+from engine.errors import AnalysisError
+from engine.survival.compare import (
     ComparisonResult,
     PairwiseTable,
     TrendResult,
@@ -24,9 +25,8 @@ from engine.compare import (
     display_name,
     holm_adjust,
 )
-from engine.curves import CurveSet, check_times, curve_from_table
-from engine.errors import AnalysisError
-from engine.summary import NumbersAtRiskTable
+from engine.survival.curves import CurveSet, check_times, curve_from_table
+from engine.survival.summary import NumbersAtRiskTable
 
 
 def curves_from_counts(

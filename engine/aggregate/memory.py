@@ -12,8 +12,8 @@ import numpy as np
 import pandas as pd
 
 from engine.aggregate.cox_sums import ArraySource
-from engine.concordance import harrell_c
-from engine.cox_design import Design, build_design
+from engine.cox.concordance import harrell_c
+from engine.cox.design import Design, build_design
 
 
 def cox_source_from_frame(

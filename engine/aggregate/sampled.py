@@ -14,9 +14,9 @@ from collections.abc import Mapping
 
 import pandas as pd
 
-from engine.analysis import is_not_computed, run_analysis
-from engine.checks import prepare
-from engine.roles import Roles
+from engine.analysis.run import is_not_computed, run_analysis
+from engine.prepare.checks import prepare
+from engine.prepare.roles import Roles
 
 COX_PARTS = ("splines", "time_split", "ph_check")
 

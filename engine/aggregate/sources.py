@@ -181,7 +181,7 @@ def source_fingerprint(source: SqlSource, rows_read: int):
     """The ``DataFingerprint`` of rows aggregated where they are: a file's or folder's SHA-256,
     or none for a database (its rows are not read here), with the source's name (never a
     user name or password), rows, columns and backend."""
-    from engine.recipe import DataFingerprint
+    from engine.analysis.recipe import DataFingerprint
 
     columns = tuple(str(c) for c in source.query(f"SELECT * FROM {source.relation} LIMIT 0"))
     return DataFingerprint(
@@ -195,8 +195,8 @@ def source_fingerprint(source: SqlSource, rows_read: int):
 
 def _csv_relation(path: Path, sep: str | None, decimal: str | None) -> str:
     """read_csv with the separator, decimal mark and missing-value tokens Hazel's reader uses."""
-    from engine.io import ImportOptions
-    from engine.io_text import SAMPLE_BYTES, _sniff, missing_token_variants, read_head
+    from engine.io.tables import ImportOptions
+    from engine.io.text import SAMPLE_BYTES, _sniff, missing_token_variants, read_head
 
     options = ImportOptions(sep=sep, decimal=decimal)
     head = read_head(path, SAMPLE_BYTES)

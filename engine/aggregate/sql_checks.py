@@ -1,4 +1,4 @@
-"""The data checks of ``engine.checks.prepare`` run inside a database, with the same rules,
+"""The data checks of ``engine.prepare.checks.prepare`` run inside a database, with the same rules,
 reasons and texts: rows read, used and excluded per reason (the first reason a row meets),
 the event coding from the event column's value counts, levels in natural order with the most
 frequent as reference, and the warnings on the rows used. Named causes are
@@ -22,7 +22,8 @@ from engine.aggregate.counts import CountTable, count_table
 from engine.aggregate.sources import SqlSource
 from engine.aggregate.sql import literal, number, quoted
 from engine.aggregate.sql_dates import dates_in_sql
-from engine.checks import (
+from engine.errors import RoleError, SettingError, preview_values
+from engine.prepare.checks import (
     ENTRY_AFTER_EXIT,
     MISSING_COVARIATE,
     MISSING_ENTRY,
@@ -37,9 +38,8 @@ from engine.checks import (
     _validate_roles,
     event_coding,
 )
-from engine.data_warnings import labels_warning, warnings_from_summary
-from engine.errors import RoleError, SettingError, preview_values
-from engine.roles import (
+from engine.prepare.data_warnings import labels_warning, warnings_from_summary
+from engine.prepare.roles import (
     TIME_UNITS,
     Roles,
     classify_covariates,
@@ -381,7 +381,7 @@ def _infinite(expr: str, d) -> str:
 
 def _full_kind(source: SqlSource, column: str, roles: Roles) -> str:
     """`covariate_kind` over the whole column: few distinct whole numbers or not."""
-    from engine.roles import FEW_DISTINCT
+    from engine.prepare.roles import FEW_DISTINCT
 
     col = quoted(column)
     sql = (

@@ -18,14 +18,14 @@ from engine.aggregate.concordance_counts import BinnedConcordance, concordance_f
 from engine.aggregate.cox_sums import CoxSums
 from engine.aggregate.sql import literal, number
 from engine.aggregate.sql_checks import AggregatedData
-from engine.cox import drop_not_estimable
-from engine.cox_design import (
+from engine.cox.design import (
     SMALL_LEVEL_ROWS,
     Design,
     Term,
     check_collinearity,
     constant_in_every_group,
 )
+from engine.cox.fit import drop_not_estimable
 from engine.errors import AnalysisError, preview_values
 
 # Score bins for Harrell's C. With 1,000 equal-width bins the invented test data (normal scores)

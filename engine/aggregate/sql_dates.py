@@ -1,5 +1,5 @@
 """Start and end dates as durations inside a database, with the rules, reasons and texts of
-``checks.prepare`` (``engine.dates``).
+``checks.prepare`` (``engine.prepare.dates``).
 
 Two kinds of date column are read in SQL: native DATE/TIMESTAMP columns (with a time zone:
 in UTC) and ISO text (``YYYY-MM-DD``, optionally `` HH:MM`` or ``THH:MM:SS``) when the
@@ -21,14 +21,15 @@ import numpy as np
 import pandas as pd
 
 from engine.aggregate.sql import literal, number, quoted
-from engine.checks import (
+from engine.errors import RoleError, SettingError, preview_values
+from engine.prepare.checks import (
     END_BEFORE_START,
     IMPLAUSIBLE_DATE,
     MISSING_TIME,
     UNPARSEABLE_DATE,
     _ambiguous_date_notes,
 )
-from engine.dates import (
+from engine.prepare.dates import (
     _NS_YEARS,
     EARLIEST_PLAUSIBLE,
     implausible_text,
@@ -36,8 +37,7 @@ from engine.dates import (
     parse_dates,
     parse_iso_texts,
 )
-from engine.errors import RoleError, SettingError, preview_values
-from engine.roles import TIME_UNITS, Roles
+from engine.prepare.roles import TIME_UNITS, Roles
 
 PLAIN_ISO = r"^[0-9]{4}-[0-9]{2}-[0-9]{2}([ T][0-9]{2}:[0-9]{2}(:[0-9]{2})?)?$"
 ODD_TEXTS_LIMIT = 10_000  # distinct date texts read by memory's parser and sent back as SQL

@@ -8,7 +8,7 @@ from dataclasses import replace
 import numpy as np
 import pandas as pd
 
-from engine.roles import Roles
+from engine.prepare.roles import Roles
 
 
 def messy_frame(seed: int = 0, n: int = 1500) -> pd.DataFrame:

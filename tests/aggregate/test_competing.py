@@ -17,9 +17,9 @@ from engine.aggregate.analysis import cox_from_data, run_aggregate_analysis
 from engine.aggregate.competing import FINE_GRAY_NOT_COMPUTED, incidence_from_counts
 from engine.aggregate.sources import open_duckdb, open_postgres, open_spark
 from engine.aggregate.sql_checks import aggregate_checks
-from engine.analysis import resolved_settings, run_analysis
-from engine.checks import prepare
-from engine.concordance import harrell_c
+from engine.analysis.run import resolved_settings, run_analysis
+from engine.cox.concordance import harrell_c
+from engine.prepare.checks import prepare
 from tests.aggregate.cases import (
     COMPETING_ROLES,
     COMPETING_SETTINGS,

@@ -12,10 +12,10 @@ import pytest
 from engine.aggregate.analysis import run_aggregate_analysis
 from engine.aggregate.sources import open_duckdb
 from engine.aggregate.sql_checks import aggregate_checks
-from engine.analysis import run_analysis
-from engine.checks import prepare
+from engine.analysis.run import run_analysis
 from engine.errors import RoleError, SettingError
-from engine.io import read_table
+from engine.io.tables import read_table
+from engine.prepare.checks import prepare
 from tests.aggregate.cases import (
     DATE_ROLES,
     NONE_ESTIMABLE_ROLES,

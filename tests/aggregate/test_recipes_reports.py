@@ -11,10 +11,10 @@ import json
 import pytest
 
 from app.cli import main
-from engine.analysis import ANALYSIS_DEFAULTS
-from engine.filters import RowFilter
-from engine.io import read_table
-from engine.recipe import make_recipe
+from engine.analysis.recipe import make_recipe
+from engine.analysis.run import ANALYSIS_DEFAULTS
+from engine.io.tables import read_table
+from engine.prepare.filters import RowFilter
 from tests.aggregate.cases import ROLES, SETTINGS, assert_same_json, messy_frame
 from tests.aggregate.conftest import load_table
 

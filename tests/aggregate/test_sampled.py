@@ -12,8 +12,8 @@ import pytest
 
 from app.cli import main
 from engine.aggregate.sources import open_duckdb, open_postgres
-from engine.analysis import run_analysis
-from engine.checks import prepare
+from engine.analysis.run import run_analysis
+from engine.prepare.checks import prepare
 from tests.aggregate.cases import messy_frame
 from tests.aggregate.conftest import load_table
 

@@ -10,8 +10,8 @@ import pytest
 
 from app.cli import main
 from engine.aggregate.sources import SourceError, open_spark
-from engine.analysis import run_analysis
-from engine.checks import prepare
+from engine.analysis.run import run_analysis
+from engine.prepare.checks import prepare
 from tests.aggregate.cases import (
     DATE_ROLES,
     NONE_ESTIMABLE_ROLES,

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from engine.roles import Roles
+from engine.prepare.roles import Roles
 
 ROOT = Path(__file__).resolve().parents[2]
 PUMPS = ROOT / "demo_data" / "pump_bearings.csv"

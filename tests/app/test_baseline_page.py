@@ -12,11 +12,11 @@ import pytest
 from streamlit.testing.v1 import AppTest
 
 from app import share_section
-from engine.baseline import ROW_KEYS, TEST_CAUTION
-from engine.checks import prepare
-from engine.io import read_table
-from engine.recipe import Recipe
-from engine.roles import Roles
+from engine.analysis.baseline import ROW_KEYS, TEST_CAUTION
+from engine.analysis.recipe import Recipe
+from engine.io.tables import read_table
+from engine.prepare.checks import prepare
+from engine.prepare.roles import Roles
 from engine.wording import format_number, format_percent
 
 ROOT = Path(__file__).resolve().parents[2]

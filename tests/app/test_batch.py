@@ -15,12 +15,12 @@ from app.batch import (
     report_from_json_and_results,
     write_text,
 )
-from engine.checks import prepare
-from engine.filters import RowFilter
-from engine.io import ImportOptions, read_table
-from engine.recipe import RecipeError, make_recipe
-from engine.roles import Roles
-from engine.summary import comparison_json, curves_json
+from engine.analysis.recipe import RecipeError, make_recipe
+from engine.io.tables import ImportOptions, read_table
+from engine.prepare.checks import prepare
+from engine.prepare.filters import RowFilter
+from engine.prepare.roles import Roles
+from engine.survival.summary import comparison_json, curves_json
 
 ROOT = Path(__file__).resolve().parents[2]
 JOINT_TRIAL = ROOT / "demo_data" / "joint_trial.csv"

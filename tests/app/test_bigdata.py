@@ -12,9 +12,9 @@ import pytest
 from streamlit.testing.v1 import AppTest
 
 from app import bigdata, cli_scale, state
-from engine.analysis import run_analysis
-from engine.checks import prepare
-from engine.roles import Roles
+from engine.analysis.run import run_analysis
+from engine.prepare.checks import prepare
+from engine.prepare.roles import Roles
 from tests.aggregate.conftest import load_table, postgres_url  # noqa: F401  (session fixture)
 
 ROOT = Path(__file__).resolve().parents[2]

@@ -9,8 +9,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from engine.checks import prepare
-from engine.roles import Roles
+from engine.prepare.checks import prepare
+from engine.prepare.roles import Roles
 from tests.app.browser import ARTIFACTS, demo_page, run_server, wait_until_idle
 
 pytestmark = pytest.mark.browser

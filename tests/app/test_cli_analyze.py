@@ -20,11 +20,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from engine.checks import prepare
-from engine.compare import compare_frame
-from engine.cox import fit_cox
-from engine.io import read_table
-from engine.roles import Roles
+from engine.cox.fit import fit_cox
+from engine.io.tables import read_table
+from engine.prepare.checks import prepare
+from engine.prepare.roles import Roles
+from engine.survival.compare import compare_frame
 
 ROOT = Path(__file__).resolve().parents[2]
 DEMO = ROOT / "demo_data"
@@ -216,7 +216,7 @@ def test_model_intervals_default_to_95_percent_whatever_the_curves_level(freirei
     shows 95% intervals, and so must the replay."""
     from scipy.stats import norm
 
-    from engine.analysis import run_analysis
+    from engine.analysis.run import run_analysis
 
     roles = Roles(time="weeks", unit="weeks", event="relapse", covariates=("arm",))
     prepared = prepare(read_table(freireich_csv).frame, roles)

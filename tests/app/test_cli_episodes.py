@@ -11,10 +11,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from engine.analysis import run_analysis
-from engine.checks import prepare
-from engine.io import read_table
-from engine.roles import Roles
+from engine.analysis.run import run_analysis
+from engine.io.tables import read_table
+from engine.prepare.checks import prepare
+from engine.prepare.roles import Roles
 
 ROOT = Path(__file__).resolve().parents[2]
 

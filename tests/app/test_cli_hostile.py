@@ -117,9 +117,9 @@ HOSTILE_RECIPE_FIELDS = [
 
 
 def _recipe(data_path) -> dict:
-    from engine.io import read_table
-    from engine.recipe import make_recipe
-    from engine.roles import Roles
+    from engine.analysis.recipe import make_recipe
+    from engine.io.tables import read_table
+    from engine.prepare.roles import Roles
 
     table = read_table(data_path)
     return make_recipe(table, Roles(time="t", event="e", group="g"), {"curves": {}}).to_dict()

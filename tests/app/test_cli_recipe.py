@@ -14,9 +14,9 @@ import pytest
 
 from app import state
 from app.share_section import recipe_from_session
-from engine.checks import prepare
-from engine.io import read_table
-from engine.summary import comparison_json, curves_json
+from engine.io.tables import read_table
+from engine.prepare.checks import prepare
+from engine.survival.summary import comparison_json, curves_json
 from tests.app.demo_files import PUMP_ROLES, PUMPS, ROOT
 
 ROLES = PUMP_ROLES

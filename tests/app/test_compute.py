@@ -8,10 +8,10 @@ import numpy as np
 import pytest
 
 from app import compute, data
-from engine.checks import prepare
-from engine.curves import curves_by_group
-from engine.io import read_table
-from engine.roles import suggest_roles
+from engine.io.tables import read_table
+from engine.prepare.checks import prepare
+from engine.prepare.roles import suggest_roles
+from engine.survival.curves import curves_by_group
 
 ROOT = Path(__file__).resolve().parents[2]
 

@@ -84,9 +84,9 @@ def test_long_labels_with_characters_beyond_the_basic_plane_are_drawn():
     import numpy as np
 
     from app.batch import curve_figure
-    from engine.analysis import ANALYSIS_DEFAULTS
-    from engine.checks import prepare
-    from engine.roles import Roles
+    from engine.analysis.run import ANALYSIS_DEFAULTS
+    from engine.prepare.checks import prepare
+    from engine.prepare.roles import Roles
 
     rng = np.random.default_rng(0)
     labels = ["ward 😀𴕳" * 20, "ward 😀𴕳" * 20 + "x", "b"]

@@ -17,7 +17,7 @@ import pytest
 from streamlit.testing.v1 import AppTest
 
 from app import exports_office
-from engine.manuscript_tables import column_kinds, manuscript_frame, plain_header
+from engine.analysis.manuscript_tables import column_kinds, manuscript_frame, plain_header
 
 ROOT = Path(__file__).resolve().parents[2]
 ENTRY = str(ROOT / "app" / "hazel.py")

@@ -14,12 +14,12 @@ import streamlit as st
 from streamlit.testing.v1 import AppTest
 
 from app import data, state
-from engine.checks import prepare
-from engine.compare import compare_frame
-from engine.cox import fit_cox
-from engine.io import read_table
-from engine.roles import Roles, suggest_roles
-from engine.summary import group_summary
+from engine.cox.fit import fit_cox
+from engine.io.tables import read_table
+from engine.prepare.checks import prepare
+from engine.prepare.roles import Roles, suggest_roles
+from engine.survival.compare import compare_frame
+from engine.survival.summary import group_summary
 from engine.wording import format_number, format_ratio
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -359,8 +359,8 @@ def test_column_names_are_shown_literally_not_as_markup():
 
 
 def test_trend_pairwise_and_rmst_equal_the_engine(pumps):
-    from engine.compare import pairwise_comparisons, trend_test
-    from engine.rmst import rmst_by_group
+    from engine.survival.compare import pairwise_comparisons, trend_test
+    from engine.survival.rmst import rmst_by_group
 
     _, _, prepared = pumps
     frame = prepared.frame
@@ -382,7 +382,7 @@ def test_trend_pairwise_and_rmst_equal_the_engine(pumps):
 
 
 def test_predicted_curves_for_profiles_i_set(pumps):
-    from engine.cox_summaries import predict_survival
+    from engine.cox.summaries import predict_survival
 
     _, roles, prepared = pumps
     at = _open("views/regression.py")

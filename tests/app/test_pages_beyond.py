@@ -14,14 +14,14 @@ import pytest
 from streamlit.testing.v1 import AppTest
 
 from app import data, share_section, state, ui
-from engine.analysis import run_analysis
-from engine.checks import prepare
-from engine.competing import cumulative_incidence
-from engine.io import read_table
-from engine.landmark import landmark
-from engine.recipe import Recipe
-from engine.roles import suggest_roles
-from engine.sample_size import events_needed
+from engine.analysis.recipe import Recipe
+from engine.analysis.run import run_analysis
+from engine.competing.incidence import cumulative_incidence
+from engine.io.tables import read_table
+from engine.prepare.checks import prepare
+from engine.prepare.roles import suggest_roles
+from engine.survival.landmark import landmark
+from engine.survival.sample_size import events_needed
 from engine.wording import format_number, format_percent, format_ratio
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -155,7 +155,7 @@ def test_restored_recipe_gives_the_pages_the_cli_numbers(tmp_path, restore_filte
     """Restore a recipe (with a filter) in the app; Curves and Group comparison show the
     numbers the command line computes from the same recipe."""
     from app.batch import load_recipe_run
-    from engine.filters import RowFilter
+    from engine.prepare.filters import RowFilter
 
     at, session = _share_page_with_pumps(
         {"curves_conf": "90%", "curves_times": "12", "compare_test": "peto-peto"}
@@ -195,7 +195,7 @@ def test_share_page_offers_the_recipe_and_the_text():
 def test_entry_time_role_is_honoured_by_the_curves_page():
     """Delayed entry: choosing an entry column on Column roles changes the curves the way the
     engine says (and differs from ignoring it)."""
-    from engine.summary import group_summary
+    from engine.survival.summary import group_summary
 
     rng = np.random.default_rng(20261202)
     n = 400

@@ -1,6 +1,6 @@
 """The Effects in depth page and the Regression page's standard errors, in Streamlit's AppTest,
 on the compressor-service demo (episodes of one unit, recurrent failures). The numbers shown are
-the command line's (engine.analysis.run_analysis) for the same roles and choices."""
+the command line's (engine.analysis.run.run_analysis) for the same roles and choices."""
 
 from __future__ import annotations
 
@@ -11,10 +11,10 @@ import pytest
 from streamlit.testing.v1 import AppTest
 
 from app import data, share_section, state
-from engine.analysis import run_analysis
-from engine.checks import prepare
-from engine.io import read_table
-from engine.subgroups import CAUTION
+from engine.analysis.run import run_analysis
+from engine.cox.subgroups import CAUTION
+from engine.io.tables import read_table
+from engine.prepare.checks import prepare
 
 ROOT = Path(__file__).resolve().parents[2]
 ENTRY = str(ROOT / "app" / "hazel.py")

@@ -7,14 +7,14 @@ import pytest
 from streamlit.testing.v1 import AppTest
 
 from app import data, state
-from engine.analysis import categorical_covariates
-from engine.checks import prepare
-from engine.cox import fit_cox
-from engine.fine_gray import fit_fine_gray
-from engine.gray_test import gray_tests
-from engine.io import read_table
-from engine.optimism import bootstrap_optimism
-from engine.performance import prediction_performance
+from engine.analysis.run import categorical_covariates
+from engine.competing.fine_gray import fit_fine_gray
+from engine.competing.gray_test import gray_tests
+from engine.cox.fit import fit_cox
+from engine.io.tables import read_table
+from engine.prediction.optimism import bootstrap_optimism
+from engine.prediction.performance import prediction_performance
+from engine.prepare.checks import prepare
 from tests.app.test_pages_beyond import DEMO, _metric, _open
 
 

@@ -17,12 +17,12 @@ import pytest
 
 from app.report import build_report, methods_paragraph
 from app.report_html import compact_svg, figure_svg, sanitize_svg
-from engine.checks import prepare
-from engine.cox import cox_json, fit_cox
-from engine.cox_diagnostics import proportional_hazards_test
-from engine.io import read_table
-from engine.roles import Roles
-from engine.summary import comparison_json, curves_json
+from engine.cox.diagnostics import proportional_hazards_test
+from engine.cox.fit import cox_json, fit_cox
+from engine.io.tables import read_table
+from engine.prepare.checks import prepare
+from engine.prepare.roles import Roles
+from engine.survival.summary import comparison_json, curves_json
 from engine.wording import format_number, format_p, format_percent, format_ratio, p_clause
 
 HOSTILE = "<script>alert(1)</script>"

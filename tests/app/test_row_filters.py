@@ -1,4 +1,5 @@
-"""The Row filters page: rules of engine.filters built on the page, rows kept and removed shown
+"""The Row filters page: rules of engine.prepare.filters built on the page, rows kept and removed
+shown
 live, every page and the recipe using the subset, and a filter that would remove every row
 refused with a message."""
 
@@ -12,10 +13,10 @@ from streamlit.testing.v1 import AppTest
 
 from app import row_filters, share_section, state
 from app.batch import apply_recipe
-from engine.analysis import run_analysis
+from engine.analysis.run import run_analysis
 from engine.errors import HazelError
-from engine.filters import RowFilter
-from engine.io import read_table
+from engine.io.tables import read_table
+from engine.prepare.filters import RowFilter
 
 ROOT = Path(__file__).resolve().parents[2]
 ENTRY = str(ROOT / "app" / "hazel.py")

@@ -5,8 +5,8 @@ from __future__ import annotations
 
 from app import state
 from app.share_section import NO_FINE_GRAY, recipe_from_session, restore_recipe
-from engine.io import read_table
-from engine.recipe import Recipe
+from engine.analysis.recipe import Recipe
+from engine.io.tables import read_table
 from tests.app.demo_files import PUMP_ROLES, PUMPS
 
 

@@ -14,11 +14,11 @@ from app.share_section import (
     restore_recipe,
     settings_from_session,
 )
+from engine.analysis.recipe import Recipe
 from engine.errors import HazelError
-from engine.filters import RowFilter
-from engine.io import read_table
-from engine.recipe import Recipe
-from engine.roles import Roles
+from engine.io.tables import read_table
+from engine.prepare.filters import RowFilter
+from engine.prepare.roles import Roles
 from tests.app.demo_files import PUMP_ROLES, PUMPS
 
 ROLES = replace(PUMP_ROLES, reference=(("lubricant", "grease"),))
@@ -117,8 +117,8 @@ def _section_script():
 
     from app import data, state
     from app.share_section import render_share_section
-    from engine.roles import Roles
-    from engine.summary import comparison_json, curves_json
+    from engine.prepare.roles import Roles
+    from engine.survival.summary import comparison_json, curves_json
 
     if state.TABLE not in st.session_state:
         data.open_demo(st.session_state, data.DEMO_DIR / "pump_bearings.csv")

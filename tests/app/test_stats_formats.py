@@ -11,7 +11,7 @@ import pytest
 from streamlit.testing.v1 import AppTest
 
 from app import state
-from engine.roles import Roles
+from engine.prepare.roles import Roles
 from tests.stats_files import LABELLED_FORMATS, WRITERS, coded_trial, trial_as_csv
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -96,9 +96,9 @@ def test_pages_show_labels_and_codes_of_an_uploaded_sav(files):
 
 
 def test_a_recipe_made_on_a_sav_file_replays_without_differences(files, tmp_path):
-    from engine.filters import RowFilter
-    from engine.io import read_table
-    from engine.recipe import make_recipe
+    from engine.analysis.recipe import make_recipe
+    from engine.io.tables import read_table
+    from engine.prepare.filters import RowFilter
 
     table = read_table(files["sav"])
     roles = Roles(time="weeks", unit="weeks", event="status", event_values=("relapsed",))

@@ -26,7 +26,7 @@ N = 1_000_000
 
 
 def make_table():
-    from engine.io import read_table
+    from engine.io.tables import read_table
 
     rng = np.random.default_rng(20261202)
     group = rng.choice(["Alder", "Birch", "Cedar", "Dogwood"], N)
@@ -60,9 +60,9 @@ def main() -> None:
     from streamlit.testing.v1 import AppTest
 
     from app import charts, compute, data, state
-    from engine.checks import prepare
-    from engine.curves import curves_by_group
-    from engine.roles import Roles
+    from engine.prepare.checks import prepare
+    from engine.prepare.roles import Roles
+    from engine.survival.curves import curves_by_group
 
     table, (load_time,) = timed(make_table)
     roles = Roles(time="months", unit="months", event="failed", group="grove", covariates=())

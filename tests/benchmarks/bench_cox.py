@@ -18,9 +18,9 @@ import pandas as pd
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from engine.concordance import harrell_c
-from engine.cox import fit_cox
-from engine.cox_diagnostics import proportional_hazards_test
+from engine.cox.concordance import harrell_c
+from engine.cox.diagnostics import proportional_hazards_test
+from engine.cox.fit import fit_cox
 
 
 def simulated(n: int, seed: int = 20261202) -> pd.DataFrame:

@@ -19,8 +19,8 @@ import pandas as pd
 from lifelines import KaplanMeierFitter
 from lifelines.statistics import multivariate_logrank_test
 
-from engine.compare import compare_frame
-from engine.curves import curves_by_group
+from engine.survival.compare import compare_frame
+from engine.survival.curves import curves_by_group
 
 ROWS = 1_000_000
 REPEATS = 2

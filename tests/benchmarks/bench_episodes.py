@@ -24,9 +24,9 @@ import pandas as pd
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from engine.cox import fit_cox
-from engine.splines import fit_splines
-from engine.subgroups import fit_subgroups
+from engine.cox.fit import fit_cox
+from engine.cox.splines import fit_splines
+from engine.cox.subgroups import fit_subgroups
 
 
 def episodes(n_rows: int, seed: int = 20261202) -> pd.DataFrame:

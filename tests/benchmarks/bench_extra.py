@@ -21,11 +21,11 @@ import pandas as pd
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from engine.aft import fit_aft
-from engine.competing import aalen_johansen
-from engine.landmark import landmark
-from engine.parametric import fit_distribution
-from engine.sample_size import events_needed, power_curve
+from engine.competing.incidence import aalen_johansen
+from engine.parametric.aft import fit_aft
+from engine.parametric.fits import fit_distribution
+from engine.survival.landmark import landmark
+from engine.survival.sample_size import events_needed, power_curve
 
 
 def simulated(n: int, seed: int = 20261202) -> pd.DataFrame:

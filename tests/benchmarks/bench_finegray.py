@@ -32,11 +32,11 @@ import pandas as pd
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "engine"))
 
-from engine.cox import fit_cox
-from engine.fine_gray import fit_fine_gray
-from engine.gray_test import gray_test
-from engine.optimism import bootstrap_optimism
-from engine.performance import cox_predictions, prediction_performance
+from engine.competing.fine_gray import fit_fine_gray
+from engine.competing.gray_test import gray_test
+from engine.cox.fit import fit_cox
+from engine.prediction.optimism import bootstrap_optimism
+from engine.prediction.performance import cox_predictions, prediction_performance
 
 
 def simulated(n: int, seed: int = 20261202) -> pd.DataFrame:

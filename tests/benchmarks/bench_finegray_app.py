@@ -21,7 +21,7 @@ sys.path.insert(0, str(ROOT))
 
 
 def make_table(n: int):
-    from engine.io import read_table
+    from engine.io.tables import read_table
 
     rng = np.random.default_rng(20261202)
     site = rng.choice(["north", "south", "east"], n)
@@ -47,7 +47,7 @@ def main() -> None:
     from streamlit.testing.v1 import AppTest
 
     from app import state
-    from engine.roles import Roles
+    from engine.prepare.roles import Roles
 
     n = int(sys.argv[1]) if len(sys.argv) > 1 else 100_000
     table = make_table(n)

@@ -31,9 +31,9 @@ MEASURE = """
 import json, sys, time
 sys.path.insert(0, {root!r})
 import pandas as pd
-from engine.checks import prepare
-from engine.io import read_table
-from engine.roles import Roles, suggest_roles
+from engine.prepare.checks import prepare
+from engine.io.tables import read_table
+from engine.prepare.roles import Roles, suggest_roles
 path, mode = sys.argv[1], sys.argv[2]
 def status(key):
     # /proc is used because ru_maxrss survives exec and would carry the parent's peak.

@@ -2,7 +2,7 @@
 wide files (issue 10 item 13). Run by hand:
 ``.venv/bin/python tests/benchmarks/bench_import_memory.py``. Each file is read in a fresh
 interpreter; peak resident memory is read from /proc (VmHWM) against the started interpreter.
-``engine.memory.BYTES_PER_CELL`` must stay above the largest bytes-per-cell figure printed.
+``engine.io.memory.BYTES_PER_CELL`` must stay above the largest bytes-per-cell figure printed.
 """
 
 from __future__ import annotations
@@ -21,8 +21,8 @@ ROOT = Path(__file__).resolve().parents[2]
 MEASURE = """
 import json, sys, time
 sys.path.insert(0, {root!r})
-from engine.io import read_table
-from engine.roles import suggest_roles
+from engine.io.tables import read_table
+from engine.prepare.roles import suggest_roles
 def peak():
     with open("/proc/self/status") as handle:
         for line in handle:

@@ -13,9 +13,9 @@ import pandas as pd
 
 from app.batch import curve_figure, report_from_json_and_results
 from app.report_html import figure_svg
-from engine.checks import prepare
-from engine.roles import Roles
-from engine.summary import comparison_json, curves_json
+from engine.prepare.checks import prepare
+from engine.prepare.roles import Roles
+from engine.survival.summary import comparison_json, curves_json
 
 N = 1_000_000
 

@@ -11,8 +11,8 @@ import statsmodels.api as sm
 from lifelines import LogLogisticAFTFitter, LogNormalAFTFitter, WeibullAFTFitter
 from numpy.testing import assert_allclose
 
-from engine.aft import compare_aft, fit_aft
 from engine.errors import AnalysisError, RoleError
+from engine.parametric.aft import compare_aft, fit_aft
 
 
 @pytest.fixture

@@ -21,10 +21,10 @@ from engine.aggregate.estimators import (
     pairwise_from_counts,
     trend_from_counts,
 )
-from engine.compare import compare_frame, pairwise_frame, trend_frame
-from engine.curves import curves_by_group, kaplan_meier
-from engine.risk_table import build_risk_table
-from engine.summary import numbers_at_risk_frame
+from engine.survival.compare import compare_frame, pairwise_frame, trend_frame
+from engine.survival.curves import curves_by_group, kaplan_meier
+from engine.survival.risk_table import build_risk_table
+from engine.survival.summary import numbers_at_risk_frame
 
 
 def random_prepared(seed: int, n: int = 400, *, entry=False, strata=False, missing_group=False):

@@ -14,8 +14,8 @@ from numpy.testing import assert_allclose
 
 from engine.aggregate.cox_fit import fit_cox_from_sums
 from engine.aggregate.memory import cox_source_from_frame
-from engine.cox import fit_cox
-from engine.cox_diagnostics import TIME_SCALES, proportional_hazards_test
+from engine.cox.diagnostics import TIME_SCALES, proportional_hazards_test
+from engine.cox.fit import fit_cox
 
 
 def model_frame(seed: int, n: int = 500, *, strata=False, entry=False, missing=False):

@@ -18,15 +18,15 @@ import pytest
 from statsmodels.duration.hazard_regression import PHReg
 from statsmodels.duration.survfunc import survdiff
 
-from engine.analysis import ANALYSIS_DEFAULTS, run_analysis
-from engine.checks import prepare
-from engine.columns import cut_at_quantiles
-from engine.compare import compare_frame
-from engine.cox import fit_cox
-from engine.io import read_table
-from engine.recipe import Recipe, make_recipe
-from engine.roles import Roles
-from engine.summary import COMPARISON_KEYS
+from engine.analysis.recipe import Recipe, make_recipe
+from engine.analysis.run import ANALYSIS_DEFAULTS, run_analysis
+from engine.cox.fit import fit_cox
+from engine.io.tables import read_table
+from engine.prepare.checks import prepare
+from engine.prepare.columns import cut_at_quantiles
+from engine.prepare.roles import Roles
+from engine.survival.compare import compare_frame
+from engine.survival.summary import COMPARISON_KEYS
 
 PUMPS = Path(__file__).resolve().parents[2] / "demo_data" / "pump_bearings.csv"
 ROLES = Roles(

@@ -14,15 +14,15 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy.stats import norm
 
-from engine.analysis import ANALYSIS_DEFAULTS, resolved_settings, run_analysis
-from engine.checks import prepare
-from engine.competing import cause_specific_cox, cumulative_incidence
-from engine.io import read_table
-from engine.landmark import landmark
-from engine.parametric import fit_parametric
-from engine.recipe import Recipe, make_recipe
-from engine.roles import Roles
-from engine.summary import curves_json
+from engine.analysis.recipe import Recipe, make_recipe
+from engine.analysis.run import ANALYSIS_DEFAULTS, resolved_settings, run_analysis
+from engine.competing.incidence import cause_specific_cox, cumulative_incidence
+from engine.io.tables import read_table
+from engine.parametric.fits import fit_parametric
+from engine.prepare.checks import prepare
+from engine.prepare.roles import Roles
+from engine.survival.landmark import landmark
+from engine.survival.summary import curves_json
 
 DAIRY = Path(__file__).resolve().parents[2] / "demo_data" / "dairy_herd.csv"
 ROLES = Roles(

@@ -15,17 +15,17 @@ from scipy import stats
 from statsmodels.stats.contingency_tables import Table
 from statsmodels.stats.oneway import anova_oneway
 
-from engine.analysis import run_analysis
-from engine.baseline import (
+from engine.analysis.baseline import (
     ROW_KEYS,
     baseline_table,
     display_frame,
     standardised_difference_means,
     standardised_difference_proportions,
 )
-from engine.checks import prepare
+from engine.analysis.run import run_analysis
 from engine.errors import AnalysisError, RoleError
-from engine.roles import Roles
+from engine.prepare.checks import prepare
+from engine.prepare.roles import Roles
 
 
 @pytest.fixture
@@ -217,7 +217,7 @@ def test_run_analysis_adds_the_baseline_section(cohort):
 
 @pytest.mark.parametrize("compare", [None, "smd", "test"])
 def test_the_json_form_gives_back_the_same_displayed_table(cohort, compare):
-    from engine.baseline import BaselineTable
+    from engine.analysis.baseline import BaselineTable
 
     table = _table(cohort, compare=compare, summary="mean")
     again = BaselineTable.from_dict(table.to_dict(), summary="mean")

@@ -11,11 +11,11 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from engine.checks import REASON_COLUMN, REASONS, prepare
-from engine.curves import curves_by_group
 from engine.errors import EventCodingError, RoleError
-from engine.io import read_table
-from engine.roles import Roles
+from engine.io.tables import read_table
+from engine.prepare.checks import REASON_COLUMN, REASONS, prepare
+from engine.prepare.roles import Roles
+from engine.survival.curves import curves_by_group
 
 DATA = Path(__file__).parent / "data"
 

@@ -8,8 +8,8 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from engine.columns import column_profile, cut_at_quantiles
 from engine.errors import RoleError
+from engine.prepare.columns import column_profile, cut_at_quantiles
 
 
 def test_profile_counts_missing_and_distinct_values():

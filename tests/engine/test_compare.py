@@ -20,7 +20,8 @@ from statsmodels.duration.survfunc import survdiff
 from statsmodels.stats.multitest import multipletests
 from survival_reference_data import simulate
 
-from engine.compare import (
+from engine.errors import AnalysisError
+from engine.survival.compare import (
     bh_adjust,
     compare_frame,
     compare_survival,
@@ -30,8 +31,7 @@ from engine.compare import (
     trend_frame,
     trend_test,
 )
-from engine.errors import AnalysisError
-from engine.summary import comparison_json
+from engine.survival.summary import comparison_json
 
 
 def _columns(frame: pd.DataFrame):

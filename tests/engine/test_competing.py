@@ -12,7 +12,7 @@ from hypothesis import strategies as st
 from lifelines import AalenJohansenFitter, KaplanMeierFitter
 from numpy.testing import assert_allclose
 
-from engine.competing import aalen_johansen, cumulative_incidence
+from engine.competing.incidence import aalen_johansen, cumulative_incidence
 from engine.errors import AnalysisError
 
 
@@ -188,7 +188,7 @@ def test_cause_specific_cox_matches_lifelines_with_other_causes_censored(rng):
     # Reference: lifelines CoxPHFitter (Efron ties) on the event indicator of one cause.
     from lifelines import CoxPHFitter
 
-    from engine.competing import cause_specific_cox
+    from engine.competing.incidence import cause_specific_cox
 
     n = 400
     age = rng.normal(60, 8, n)

@@ -9,8 +9,8 @@ import pytest
 from lifelines.datasets import load_rossi
 from lifelines.utils import concordance_index
 
-from engine.concordance import harrell_c, pair_counts
-from engine.cox import fit_cox
+from engine.cox.concordance import harrell_c, pair_counts
+from engine.cox.fit import fit_cox
 from engine.errors import AnalysisError
 
 
@@ -176,7 +176,7 @@ def test_splitting_follow_up_into_episodes_leaves_c_and_its_error_unchanged():
 
 
 def test_cox_concordance_on_episodes_equals_the_unsplit_fit():
-    from engine.episodes import fit_split
+    from engine.prepare.episodes import fit_split
 
     rng = np.random.default_rng(3)
     n = 150

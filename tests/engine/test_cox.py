@@ -16,8 +16,8 @@ from lifelines.datasets import load_rossi
 from scipy import stats
 from statsmodels.duration.hazard_regression import PHReg
 
-from engine.cox import cox_json, fit_cox
-from engine.cox_summaries import forest_data, level_profiles, predict_survival, univariable_screen
+from engine.cox.fit import cox_json, fit_cox
+from engine.cox.summaries import forest_data, level_profiles, predict_survival, univariable_screen
 from engine.errors import AnalysisError
 
 ROSSI_COVARIATES = ["fin", "age", "race", "wexp", "mar", "paro", "prio"]

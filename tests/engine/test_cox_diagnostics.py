@@ -11,14 +11,14 @@ from lifelines import CoxPHFitter, KaplanMeierFitter
 from lifelines.datasets import load_rossi
 from lifelines.statistics import proportional_hazard_test
 
-from engine.cox import cox_json, fit_cox
-from engine.cox_diagnostics import (
+from engine.cox.diagnostics import (
     log_minus_log,
     martingale_residuals,
     proportional_hazards_test,
     schoenfeld_residuals,
     transform_times,
 )
+from engine.cox.fit import cox_json, fit_cox
 from engine.errors import AnalysisError
 
 COVARIATES = ["fin", "age", "race", "wexp", "mar", "paro", "prio"]
@@ -202,9 +202,9 @@ def test_unknown_transform_raises(rossi_fits):
 def test_a_singular_block_gives_no_test_instead_of_an_error():
     """Found by the fuzz suite: a covariate equal to the time makes the PH check's information
     block singular; the check then reports no test (NaN, shown as not estimable)."""
-    from engine.analysis import run_analysis
-    from engine.checks import prepare
-    from engine.roles import Roles
+    from engine.analysis.run import run_analysis
+    from engine.prepare.checks import prepare
+    from engine.prepare.roles import Roles
 
     times = np.round(np.arange(1, 16) / 3, 3)
     frame = pd.DataFrame(

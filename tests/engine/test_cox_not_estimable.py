@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from engine.cox import fit_cox
+from engine.cox.fit import fit_cox
 from engine.errors import AnalysisError
 
 

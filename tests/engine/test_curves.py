@@ -18,7 +18,8 @@ from lifelines import KaplanMeierFitter, NelsonAalenFitter
 from numpy.testing import assert_allclose
 from statsmodels.duration.survfunc import SurvfuncRight
 
-from engine.curves import (
+from engine.errors import AnalysisError
+from engine.survival.curves import (
     TRANSFORMS,
     curves_by_group,
     kaplan_meier,
@@ -27,8 +28,7 @@ from engine.curves import (
     survival_at,
     survival_quantiles,
 )
-from engine.errors import AnalysisError
-from engine.summary import curves_json, group_summary, numbers_at_risk
+from engine.survival.summary import curves_json, group_summary, numbers_at_risk
 
 STATSMODELS_QUANTILE_METHOD = {"log-log": "cloglog", "log": "log", "linear": "linear"}
 
@@ -279,7 +279,7 @@ def test_negative_times_are_refused():
 
 
 def test_rows_without_a_group_count_in_all_rows_and_in_no_group(freireich):
-    # The prepared frame keeps rows with no group value (engine.checks notes them).
+    # The prepared frame keeps rows with no group value (engine.prepare.checks notes them).
     freireich.loc[[0, 30], "_group"] = np.nan
     curves = curves_by_group(freireich).curves
     assert [c.n for c in curves] == [42, 20, 20]

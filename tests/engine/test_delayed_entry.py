@@ -10,11 +10,11 @@ import pandas as pd
 from lifelines import CoxPHFitter, KaplanMeierFitter
 from numpy.testing import assert_allclose
 
-from engine.competing import aalen_johansen
-from engine.cox import fit_cox
-from engine.curves import curves_by_group, kaplan_meier, survival_at
-from engine.landmark import landmark
-from engine.summary import curves_json, numbers_at_risk_frame
+from engine.competing.incidence import aalen_johansen
+from engine.cox.fit import fit_cox
+from engine.survival.curves import curves_by_group, kaplan_meier, survival_at
+from engine.survival.landmark import landmark
+from engine.survival.summary import curves_json, numbers_at_risk_frame
 
 # A enters at 0 and dies at 3; B enters at 0, dies at 6; C enters at 5, dies at 8; D enters at 0,
 # censored at 10; E enters at 3 (the moment A dies), dies at 9.

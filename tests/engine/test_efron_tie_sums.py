@@ -15,7 +15,7 @@ from numpy.testing import assert_allclose
 from engine.aggregate import cox_sums
 from engine.aggregate.cox_fit import fit_cox_from_sums
 from engine.aggregate.memory import cox_source_from_frame
-from engine.cox import fit_cox
+from engine.cox.fit import fit_cox
 
 
 def term_by_term(d, r0, d0):

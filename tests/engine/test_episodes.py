@@ -22,12 +22,11 @@ from lifelines import CoxPHFitter, CoxTimeVaryingFitter
 from numpy.testing import assert_allclose
 from statsmodels.duration.hazard_regression import PHReg
 
-from engine.compare import compare_frame
-from engine.cox import fit_cox
-from engine.cox_diagnostics import proportional_hazards_test
-from engine.cox_likelihood import build_layout, partial_likelihood, score_residuals
-from engine.curves import kaplan_meier
-from engine.episodes import (
+from engine.cox.diagnostics import proportional_hazards_test
+from engine.cox.fit import fit_cox
+from engine.cox.likelihood import build_layout, partial_likelihood, score_residuals
+from engine.errors import AnalysisError
+from engine.prepare.episodes import (
     PERIOD,
     episode_summary,
     episode_warnings,
@@ -35,7 +34,8 @@ from engine.episodes import (
     period_labels,
     split_at_times,
 )
-from engine.errors import AnalysisError
+from engine.survival.compare import compare_frame
+from engine.survival.curves import kaplan_meier
 
 
 def episodes(

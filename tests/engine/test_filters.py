@@ -8,7 +8,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from engine.filters import FilterError, RowFilter, apply_filters
+from engine.prepare.filters import FilterError, RowFilter, apply_filters
 
 
 @pytest.fixture

@@ -13,9 +13,9 @@ from hypothesis import strategies as st
 from lifelines import CoxPHFitter
 from numpy.testing import assert_allclose
 
-from engine.cox import fit_cox
+from engine.competing.fine_gray import fit_fine_gray
+from engine.cox.fit import fit_cox
 from engine.errors import AnalysisError
-from engine.fine_gray import fit_fine_gray
 
 TIGHT = {"precision": 1e-12, "max_steps": 200}
 

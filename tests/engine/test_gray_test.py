@@ -11,9 +11,9 @@ from hypothesis import strategies as st
 from lifelines.statistics import multivariate_logrank_test
 from numpy.testing import assert_allclose
 
-from engine.compare import compare_survival
+from engine.competing.gray_test import gray_test, gray_tests
 from engine.errors import AnalysisError
-from engine.gray_test import gray_test, gray_tests
+from engine.survival.compare import compare_survival
 
 
 def _competing(rng, n, groups=2, continuous=True, shift=0.0, censor_by_group=False):

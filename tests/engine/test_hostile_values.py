@@ -19,11 +19,11 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from engine.analysis import ANALYSIS_DEFAULTS, run_analysis
-from engine.checks import IMPLAUSIBLE_DATE, TIME_NOT_FINITE, prepare
+from engine.analysis.run import ANALYSIS_DEFAULTS, run_analysis
 from engine.errors import FileReadError, RoleError
-from engine.io import read_table
-from engine.roles import MAX_LEVELS, Roles, covariate_kind, natural_sort_key, suggest_roles
+from engine.io.tables import read_table
+from engine.prepare.checks import IMPLAUSIBLE_DATE, TIME_NOT_FINITE, prepare
+from engine.prepare.roles import MAX_LEVELS, Roles, covariate_kind, natural_sort_key, suggest_roles
 
 N = 40
 
@@ -294,7 +294,7 @@ def test_the_implausible_dates_choice_round_trips_through_a_recipe_role_dict():
 def test_covariate_values_too_large_to_model_are_a_clear_error(huge):
     """Found by the large fuzz run (issue 10): a covariate whose spread overflows made the
     collinearity check raise numpy's LinAlgError ("Eigenvalues did not converge")."""
-    from engine.cox import fit_cox
+    from engine.cox.fit import fit_cox
     from engine.errors import AnalysisError
 
     rng = np.random.default_rng(1)

@@ -14,9 +14,10 @@ import pandas as pd
 import pyarrow as pa
 import pytest
 
-from engine import io_text, memory
 from engine.errors import FileReadError
-from engine.io import read_table
+from engine.io import memory
+from engine.io import text as io_text
+from engine.io.tables import read_table
 from tests.app.demo_files import ROOT
 
 

@@ -13,17 +13,17 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from engine.checks import prepare
 from engine.errors import FileReadError, FileTooLargeError, HazelError
-from engine.io import (
+from engine.io.tables import (
     DEFAULT_MISSING_TOKENS,
     ImportedTable,
     ImportOptions,
     missing_token_variants,
     read_table,
 )
-from engine.io_text import SAMPLE_BYTES
-from engine.roles import Roles
+from engine.io.text import SAMPLE_BYTES
+from engine.prepare.checks import prepare
+from engine.prepare.roles import Roles
 
 DATA = Path(__file__).parent / "data"
 

@@ -10,11 +10,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from engine.analysis import run_analysis
-from engine.checks import prepare
+from engine.analysis.run import run_analysis
 from engine.errors import FileReadError, FileTooLargeError
-from engine.io import ImportOptions, read_table
-from engine.roles import Roles
+from engine.io.tables import ImportOptions, read_table
+from engine.prepare.checks import prepare
+from engine.prepare.roles import Roles
 from tests.stats_files import (
     ARM_LABELS,
     COLUMN_LABELS,

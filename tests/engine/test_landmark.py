@@ -13,7 +13,7 @@ from lifelines import KaplanMeierFitter
 from numpy.testing import assert_allclose
 
 from engine.errors import AnalysisError
-from engine.landmark import landmark
+from engine.survival.landmark import landmark
 
 
 @pytest.fixture

@@ -11,7 +11,7 @@ from numpy.testing import assert_allclose
 from scipy import stats
 
 from engine.errors import AnalysisError
-from engine.parametric import DISTRIBUTIONS, compare_distributions, fit_distribution
+from engine.parametric.fits import DISTRIBUTIONS, compare_distributions, fit_distribution
 
 
 def _censored_weibull(rng, n=600, shape=1.4, scale=10.0):
@@ -176,7 +176,7 @@ def test_bad_input_raises_clear_error(time, event, match):
 def test_prepared_frame_wrapper_keeps_group_order(rng):
     import pandas as pd
 
-    from engine.parametric import fit_parametric
+    from engine.parametric.fits import fit_parametric
 
     time, event = _censored_weibull(rng, n=300)
     frame = pd.DataFrame(
@@ -195,7 +195,7 @@ def test_prepared_frame_wrapper_keeps_group_order(rng):
 def test_parameters_are_named_in_words_with_their_parametrisation(rng):
     # Weibull S(t) = exp(-(t / scale)^shape): the fitted scale and shape reproduce the curve
     # (scipy's weibull_min with c = shape, scale = scale, as the reference).
-    from engine.parametric import PARAMETRISATION
+    from engine.parametric.fits import PARAMETRISATION
 
     time, event = _censored_weibull(rng)
     fit = fit_distribution(time, event, "weibull")

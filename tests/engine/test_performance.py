@@ -19,10 +19,10 @@ from sksurv.metrics import (
 )
 from sksurv.util import Surv
 
-from engine.cox import fit_cox
+from engine.cox.fit import fit_cox
 from engine.errors import AnalysisError
-from engine.optimism import bootstrap_optimism
-from engine.performance import cox_predictions, prediction_performance, uno_c
+from engine.prediction.optimism import bootstrap_optimism
+from engine.prediction.performance import cox_predictions, prediction_performance, uno_c
 
 TIMES = [3.0, 6.0, 10.0]
 

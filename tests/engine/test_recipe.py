@@ -8,9 +8,7 @@ import json
 import pandas as pd
 import pytest
 
-from engine.filters import RowFilter
-from engine.io import read_table
-from engine.recipe import (
+from engine.analysis.recipe import (
     CURRENT_VERSION,
     VERSION_KEY,
     DataFingerprint,
@@ -21,6 +19,8 @@ from engine.recipe import (
     migrate,
     software_versions,
 )
+from engine.io.tables import read_table
+from engine.prepare.filters import RowFilter
 
 CSV = b"id,weeks,relapse,arm\nZX-101,6.25,1,A\nZX-102,7,0,B\nZX-103,10,1,A\nZX-104,13.75,1,B\n"
 

@@ -7,7 +7,7 @@ import json
 
 import pytest
 
-from engine.recipe import Recipe, RecipeError
+from engine.analysis.recipe import Recipe, RecipeError
 from tests.engine.test_recipe_schema import _with
 
 GOOD = {

@@ -1,4 +1,5 @@
-"""Every recipe field is checked against engine/recipe.schema.json before use, and a bad one is
+"""Every recipe field is checked against engine/analysis/recipe.schema.json before use, and a bad
+one is
 named by its path with what it must be and what it holds (issue 10, item 3)."""
 
 from __future__ import annotations
@@ -11,16 +12,16 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from app.cli import TESTS
-from engine.analysis import ANALYSIS_DEFAULTS
-from engine.cox_diagnostics import TIME_SCALES
-from engine.curves import TRANSFORMS as CI_TRANSFORMS
+from engine.analysis.recipe import Recipe, RecipeError
+from engine.analysis.recipe_schema import SettingError, check_setting, recipe_schema
+from engine.analysis.run import ANALYSIS_DEFAULTS
+from engine.cox.diagnostics import TIME_SCALES
 from engine.errors import HazelError
-from engine.filters import RULES
-from engine.io import ImportOptions
-from engine.parametric import DISTRIBUTIONS
-from engine.recipe import Recipe, RecipeError
-from engine.recipe_schema import SettingError, check_setting, recipe_schema
-from engine.roles import TIME_UNITS, Roles
+from engine.io.tables import ImportOptions
+from engine.parametric.fits import DISTRIBUTIONS
+from engine.prepare.filters import RULES
+from engine.prepare.roles import TIME_UNITS, Roles
+from engine.survival.curves import TRANSFORMS as CI_TRANSFORMS
 
 MINIMAL = {
     "hazel_recipe": 1,
@@ -153,7 +154,7 @@ def test_a_recipe_hazel_writes_passes_the_schema_with_every_analysis():
 
 
 def test_every_setting_role_and_import_option_is_in_the_schema():
-    """Whoever adds a setting adds it to engine/recipe.schema.json (COORDINATION.md)."""
+    """Whoever adds a setting adds it to engine/analysis/recipe.schema.json (COORDINATION.md)."""
     defs = recipe_schema()["$defs"]
     analyses = defs["analyses"]["properties"]
     for name, values in ANALYSIS_DEFAULTS.items():

@@ -1,5 +1,5 @@
 """The Gray's test, Fine–Gray and prediction-performance settings of a recipe are checked against
-engine/recipe.schema.json: a bad value is refused with the field's path."""
+engine/analysis/recipe.schema.json: a bad value is refused with the field's path."""
 
 from __future__ import annotations
 
@@ -7,8 +7,8 @@ import json
 
 import pytest
 
-from engine.analysis import ANALYSIS_DEFAULTS
-from engine.recipe import Recipe, RecipeError
+from engine.analysis.recipe import Recipe, RecipeError
+from engine.analysis.run import ANALYSIS_DEFAULTS
 
 MINIMAL = {
     "hazel_recipe": 1,

@@ -18,9 +18,9 @@ from lifelines.utils import restricted_mean_survival_time
 from numpy.testing import assert_allclose
 from scipy.stats import norm
 
-from engine.curves import kaplan_meier
 from engine.errors import AnalysisError
-from engine.rmst import rmst, rmst_by_group, rmst_contrast, rmst_frame, rmst_from_curve
+from engine.survival.curves import kaplan_meier
+from engine.survival.rmst import rmst, rmst_by_group, rmst_contrast, rmst_frame, rmst_from_curve
 
 
 def _arrays(frame, group=None):

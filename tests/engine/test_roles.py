@@ -11,7 +11,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from engine.errors import RoleError
-from engine.roles import (
+from engine.prepare.roles import (
     ONE_TWO_ASSUMPTION,
     TIME_UNITS,
     Roles,
@@ -286,7 +286,7 @@ def test_default_reference_is_most_frequent_with_natural_tie_break():
     ],
 )
 def test_the_event_in_words(roles, expected):
-    from engine.roles import event_in_words
+    from engine.prepare.roles import event_in_words
 
     assert event_in_words(roles) == expected
 

@@ -12,7 +12,7 @@ from numpy.testing import assert_allclose
 from scipy.stats import norm
 
 from engine.errors import AnalysisError
-from engine.sample_size import events_needed, power_curve, power_for_events
+from engine.survival.sample_size import events_needed, power_curve, power_for_events
 
 
 def test_schoenfeld_by_hand_hr_07():

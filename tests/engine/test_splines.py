@@ -20,8 +20,8 @@ from numpy.testing import assert_allclose
 from scipy import stats
 from statsmodels.duration.hazard_regression import PHReg
 
+from engine.cox.splines import KNOT_QUANTILES, fit_splines, knot_positions, spline_basis
 from engine.errors import AnalysisError
-from engine.splines import KNOT_QUANTILES, fit_splines, knot_positions, spline_basis
 
 
 def simulated(seed: int, n: int = 800, curved: bool = True) -> pd.DataFrame:

@@ -17,9 +17,9 @@ from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 from statsmodels.duration.hazard_regression import PHReg
 
-from engine.columns import cut_at_quantiles
+from engine.cox.subgroups import CAUTION, fit_subgroups
 from engine.errors import AnalysisError
-from engine.subgroups import CAUTION, fit_subgroups
+from engine.prepare.columns import cut_at_quantiles
 
 
 def trial(seed: int, n: int = 600) -> pd.DataFrame:

@@ -8,9 +8,9 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from engine.checks import prepare
-from engine.roles import Roles
-from engine.summary import numbers_at_risk
+from engine.prepare.checks import prepare
+from engine.prepare.roles import Roles
+from engine.survival.summary import numbers_at_risk
 from engine.text_safety import BIDI_CONTROLS, visible_frame, visible_text
 
 HIDDEN = [*sorted(BIDI_CONTROLS), "\x1b", "\x00", "\x7f", "\x9b", "\r"]

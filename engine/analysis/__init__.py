@@ -1,0 +1,1 @@
+"""The analysis as a whole: settings and sections, recipes, result tables."""

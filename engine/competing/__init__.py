@@ -1,0 +1,1 @@
+"""Competing risks: cumulative incidence, Gray's test, the Fine–Gray model."""

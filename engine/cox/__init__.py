@@ -1,0 +1,1 @@
+"""The Cox model: design, likelihood, fit and tests, diagnostics, C, splines, subgroups."""

@@ -1,0 +1,1 @@
+"""Reading files: CSV and other text, Excel, Parquet, SPSS/Stata/SAS; memory limits."""

@@ -1,0 +1,1 @@
+"""Parametric survival models and accelerated failure time fits."""

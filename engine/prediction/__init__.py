@@ -1,0 +1,1 @@
+"""How well a model predicts: censoring weights, performance, optimism."""

@@ -1,0 +1,1 @@
+"""Column roles, the data checks and the prepared frame, dates, filters, episodes."""

@@ -1,0 +1,1 @@
+"""Curves, numbers at risk, RMST, group comparisons, landmark, sample size."""
