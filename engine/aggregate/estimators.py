@@ -24,9 +24,10 @@ from engine.survival.compare import (
     bh_adjust,
     display_name,
     holm_adjust,
+    trend_result,
 )
 from engine.survival.curves import CurveSet, check_times, curve_from_table
-from engine.survival.summary import NumbersAtRiskTable
+from engine.survival.summary import NumbersAtRiskTable, at_risk_table
 
 
 def curves_from_counts(
@@ -46,8 +47,6 @@ def numbers_at_risk_from_counts(
 ) -> NumbersAtRiskTable:
     """`numbers_at_risk_frame` from the counts: at risk at each tick (time >= tick, less those
     entering at or after it) and events and censorings in [tick, next tick)."""
-    import pandas as pd
-
     ticks = check_times(ticks, "ticks")
     if ticks.size == 0 or np.any(np.diff(ticks) <= 0):
         raise AnalysisError(f"Ticks must be increasing and non-empty; got {ticks.tolist()}.")
@@ -74,18 +73,7 @@ def numbers_at_risk_from_counts(
         en_key = np.searchsorted(ticks, en["entry"].to_numpy(), side="right") * k + en_codes
         late = _integer_sums(en_key, en["rows"].to_numpy(), cells).reshape(m + 1, k)
         at_risk = at_risk - np.cumsum(late[::-1], axis=0)[::-1][1:]
-    ends = np.append(ticks[1:], np.nan)
-    frame = pd.DataFrame(
-        {
-            "group": np.repeat(np.array(labels, dtype=object), m),
-            "tick": np.tile(ticks, k),
-            "interval_end": np.tile(ends, k),
-            "at_risk": at_risk.T.reshape(-1),
-            "events": events[1:].T.reshape(-1),
-            "censored": (everyone[1:] - events[1:]).T.reshape(-1),
-        }
-    )
-    return NumbersAtRiskTable(frame)
+    return at_risk_table(labels, ticks, everyone, events, at_risk)
 
 
 def _present(codes: np.ndarray, labels: tuple) -> tuple[np.ndarray, tuple]:
@@ -171,19 +159,8 @@ def trend_from_counts(
     if c.shape != (len(groups),) or not np.isfinite(c).all():
         raise AnalysisError(f"Give one finite score per group ({len(groups)}); got {scores!r}.")
     u, v, _, _, _ = _combined(counts, groups, strata, test, rho, gamma)
-    variance = float(c @ v @ c)
-    if variance <= 0:
-        raise AnalysisError("The trend test has no variance: the scores or events do not vary.")
-    z = float(c @ u) / np.sqrt(variance)
-    return TrendResult(
-        test=f"{display_name(test, rho, gamma)} test for trend",
-        statistic=z * z,
-        z=z,
-        df=1,
-        p_value=float(chi2.sf(z * z, 1)),
-        groups=tuple(counts.group_labels[g] for g in groups),
-        scores=tuple(float(x) for x in c),
-    )
+    labels = [counts.group_labels[g] for g in groups]
+    return trend_result(u, v, c, labels, test, rho, gamma)
 
 
 def pairwise_from_counts(

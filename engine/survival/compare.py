@@ -303,18 +303,24 @@ def trend_test(
     else:
         c = np.arange(1.0, len(labels) + 1.0)
     u, v, _, _ = _combined_scores(time, event, codes, labels, strata, entry, test, rho, gamma)
-    variance = float(c @ v @ c)
+    return trend_result(u, v, c, labels, test, rho, gamma)
+
+
+def trend_result(u, v, scores, groups, test: str, rho: float, gamma: float) -> TrendResult:
+    """The trend test from the groups' observed-minus-expected ``u`` and their covariance ``v``
+    (from rows or from per-time counts alike)."""
+    variance = float(scores @ v @ scores)
     if variance <= 0:
         raise AnalysisError("The trend test has no variance: the scores or events do not vary.")
-    z = float(c @ u) / np.sqrt(variance)
+    z = float(scores @ u) / np.sqrt(variance)
     return TrendResult(
         test=f"{display_name(test, rho, gamma)} test for trend",
         statistic=z * z,
         z=z,
         df=1,
         p_value=float(chi2.sf(z * z, 1)),
-        groups=labels,
-        scores=tuple(float(x) for x in c),
+        groups=tuple(groups),
+        scores=tuple(float(x) for x in scores),
     )
 
 

@@ -67,14 +67,20 @@ def numbers_at_risk(time, event, group=None, ticks=(0.0,), *, entry=None) -> Num
         entry_key = np.searchsorted(ticks, entry, side="right") * k + codes
         late = np.bincount(entry_key, minlength=cells).reshape(m + 1, k)
         at_risk = at_risk - np.cumsum(late[::-1], axis=0)[::-1][1:]
-    ends = np.append(ticks[1:], np.nan)
     k = len(labels)
-    everyone, events, at_risk = everyone[:, :k], events[:, :k], at_risk[:, :k]
+    return at_risk_table(labels, ticks, everyone[:, :k], events[:, :k], at_risk[:, :k])
+
+
+def at_risk_table(labels, ticks, everyone, events, at_risk) -> NumbersAtRiskTable:
+    """The table from per-(interval, group) counts: ``everyone`` and ``events`` leaving in each
+    interval [tick, next tick) (row 0: before the first tick) and ``at_risk`` at each tick
+    (from rows or from per-time counts alike)."""
+    k, m = len(labels), len(ticks)
     frame = pd.DataFrame(
         {
             "group": np.repeat(np.array(labels, dtype=object), m),
             "tick": np.tile(ticks, k),
-            "interval_end": np.tile(ends, k),
+            "interval_end": np.tile(np.append(ticks[1:], np.nan), k),
             "at_risk": at_risk.T.reshape(-1),
             "events": events[1:].T.reshape(-1),
             "censored": (everyone[1:] - events[1:]).T.reshape(-1),
