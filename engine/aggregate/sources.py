@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import os
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from urllib.parse import urlsplit
 
@@ -41,6 +41,45 @@ class SqlSource:
     connection: object = field(repr=False)
     kept: list = field(default_factory=list, repr=False)  # Spark frames cached by materialize
     path: Path | None = None  # the file or folder read (none for a database)
+    # A column saying how many identical rows each row of ``relation`` stands for (see
+    # ``grouped``); None: each row is one.
+    weight: str | None = None
+
+    def rows(self) -> str:
+        """The SQL aggregate counting rows."""
+        if self.weight is None:
+            return "COUNT(*)"
+        return f"CAST(COALESCE(SUM({self.weight}), 0) AS BIGINT)"
+
+    def rows_where(self, condition: str) -> str:
+        """The SQL aggregate counting the rows where ``condition`` holds."""
+        each = "1" if self.weight is None else self.weight
+        return f"COALESCE(SUM(CASE WHEN {condition} THEN {each} ELSE 0 END), 0)"
+
+    def count(self, expr: str) -> str:
+        """The SQL aggregate counting the rows where ``expr`` is not NULL (``COUNT(expr)``)."""
+        if self.weight is None:
+            return f"COUNT({expr})"
+        return self.rows_where(f"({expr}) IS NOT NULL")
+
+    def grouped(self, columns: list[str], name: str) -> SqlSource:
+        """The rows merged, in one pass, into cells of identical values of ``columns`` with
+        their count: a source whose queries read the cells, or this source where the backend
+        cannot keep a table (a read-only PostgreSQL session).
+
+        Every count and check of a row depends on that row's values only, so a cell of n
+        identical rows gives n times what one of them gives; a registry's rows repeat a few
+        thousand days and a few covariate values, and the checks' passes then read a table of
+        cells instead of every row."""
+        if self.weight is not None or not columns:
+            return self
+        listed = ", ".join(quoted(c) for c in dict.fromkeys(columns))
+        kept = self.materialize(
+            f"SELECT {listed}, COUNT(*) AS _hazel_rows FROM {self.relation} GROUP BY {listed}", name
+        )
+        if kept is None:
+            return self
+        return replace(self, relation=kept, weight="_hazel_rows")
 
     def query(self, sql: str) -> pd.DataFrame:
         try:

@@ -91,14 +91,25 @@ def checked_cells(source: SqlSource, clean: str, columns: list[str]) -> str:
     thousand days and a few covariate values. A read-only PostgreSQL session cannot keep a
     table: there each query reads the checked rows, each a cell of one.
     """
-    import uuid
-
     listed = ", ".join(columns)
     kept = source.materialize(
-        f"SELECT {listed}, COUNT(*) AS _n FROM ({clean}) AS checked GROUP BY {listed}",
-        f"hazel_checked_cells_{uuid.uuid4().hex[:12]}",  # one per check: a session may hold more
+        f"SELECT {listed}, {source.rows()} AS _n FROM ({clean}) AS checked GROUP BY {listed}",
+        _table_name("hazel_checked_cells"),
     )
     return f"SELECT * FROM {kept}" if kept else f"SELECT *, 1 AS _n FROM ({clean}) AS checked"
+
+
+def _table_name(stem: str) -> str:
+    """A new temporary table's name: one per check, since a session may hold more."""
+    import uuid
+
+    return f"{stem}_{uuid.uuid4().hex[:12]}"
+
+
+def _role_columns(roles: Roles) -> list[str]:
+    """The columns the checks read."""
+    named = (roles.time, roles.start, roles.end, roles.event, roles.group, roles.strata)
+    return [c for c in (*named, roles.entry, *roles.covariates) if c]
 
 
 def _factor(from_unit: str, to_unit: str) -> float | None:
@@ -163,6 +174,8 @@ def aggregate_checks(
     sample = source.sample()
     _validate_roles(sample, roles)
     _refuse_row_level_roles(roles)
+    rows = source  # in the rows' order, for the first dates read
+    source = source.grouped(_role_columns(roles), _table_name("hazel_row_cells"))
     cols = _Columns(source, sample)
     d = source.dialect
     notes: list[str] = []
@@ -175,14 +188,14 @@ def aggregate_checks(
         conditions.append((missing, MISSING_TIME))
         if is_text:
             conditions.append((f"{value} IS NULL", NON_NUMERIC_TIME))
-            totals["time_numbers"] = f"COUNT({value})"
-            totals["time_present"] = f"COUNT({quoted(roles.time)})"
+            totals["time_numbers"] = source.count(value)
+            totals["time_present"] = source.count(quoted(roles.time))
         conditions.append((_infinite(value, d), TIME_NOT_FINITE))
         conditions.append((f"{value} < 0", NEGATIVE_TIME))
         time = _scaled(value, _factor(roles.duration_unit, roles.unit))
     relation = source.relation
     if not roles.time:
-        dates = dates_in_sql(source, sample, roles, notes)
+        dates = dates_in_sql(source, sample, roles, notes, rows=rows)
         relation, time = dates.relation, dates.time
         conditions.extend(dates.conditions)
 
@@ -195,7 +208,8 @@ def aggregate_checks(
     else:
         col = quoted(roles.event)
         values = source.query(
-            f"SELECT {d.text(col)} AS k, MIN({col}) AS v, COUNT(*) AS n FROM {source.relation} "
+            f"SELECT {d.text(col)} AS k, MIN({col}) AS v, {source.rows()} AS n "
+            f"FROM {source.relation} "
             "GROUP BY 1"
         )
         values = values.sort_values("n", ascending=False, kind="stable")
@@ -273,16 +287,14 @@ def aggregate_checks(
         if numeric:
             value, missing, is_text = cols.numeric(column, "covariate")
             covariate_sql[column] = value
-            totals[f"missing::{column}"] = f"SUM(CASE WHEN {value} IS NULL THEN 1 ELSE 0 END)"
+            totals[f"missing::{column}"] = source.rows_where(f"{value} IS NULL")
             if is_text:
-                totals[f"numbers::{column}"] = f"COUNT({value})"
-                totals[f"present::{column}"] = f"COUNT({quoted(column)})"
+                totals[f"numbers::{column}"] = source.count(value)
+                totals[f"present::{column}"] = source.count(quoted(column))
         else:
             coded[column] = column
             covariate_sql[column] = d.text(quoted(column))
-            totals[f"missing::{column}"] = (
-                f"SUM(CASE WHEN {quoted(column)} IS NULL THEN 1 ELSE 0 END)"
-            )
+            totals[f"missing::{column}"] = source.rows_where(f"{quoted(column)} IS NULL")
         if require_covariates:
             conditions.append((f"{covariate_sql[column]} IS NULL", MISSING_COVARIATE))
 
@@ -304,7 +316,7 @@ def aggregate_checks(
     for i, column in enumerate(roles.covariates):
         covariate_columns[column] = f"c{i}"
         select.append(f"{covariate_sql[column]} AS c{i}")
-    clean = f"SELECT {', '.join(select)} FROM {relation}"
+    clean = f"SELECT {', '.join(select)}{_weight_column(source)} FROM {relation}"
     clean = checked_cells(source, clean, [item.rsplit(" AS ", 1)[1] for item in select])
 
     counts, excluded, rows_read = _counts(
@@ -345,6 +357,11 @@ def aggregate_checks(
 
 
 ROW_LEVEL_ROLES = (("id", "an id column (episodes per subject, robust variance)"),)
+
+
+def _weight_column(source: SqlSource) -> str:
+    """The cells' count column, carried into a subquery that ``source.rows()`` reads."""
+    return "" if source.weight is None else f", {source.weight}"
 
 
 def _refuse_row_level_roles(roles: Roles) -> None:
@@ -408,8 +425,8 @@ def _levels(source: SqlSource, coded: dict, roles: Roles) -> dict:
     mins = ", ".join(f"MIN(v{i}) AS v{i}" for i in range(len(names)))
     sets = ", ".join(f"(k{i})" for i in range(len(names)))
     sql = (
-        f"SELECT {flags}, {keys}, {mins}, COUNT(*) AS n FROM (SELECT {inner} FROM "
-        f"{source.relation}) AS coded GROUP BY GROUPING SETS ({sets})"
+        f"SELECT {flags}, {keys}, {mins}, {source.rows()} AS n FROM (SELECT {inner}"
+        f"{_weight_column(source)} FROM {source.relation}) AS coded GROUP BY GROUPING SETS ({sets})"
     )
     table = source.query(sql)
     by_column = {}

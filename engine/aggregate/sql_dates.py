@@ -163,9 +163,13 @@ class _DateColumn:
         return f"(CASE WHEN {plain} THEN {seconds} ELSE {other} END)"
 
 
-def dates_in_sql(source, sample: pd.DataFrame, roles: Roles, notes: list[str]) -> DatesInSql:
+def dates_in_sql(
+    source, sample: pd.DataFrame, roles: Roles, notes: list[str], *, rows=None
+) -> DatesInSql:
     """The duration from the start and end dates, the exclusion conditions, and the notes
-    ``checks._time_in_unit`` gives (appended to ``notes``), or the same errors."""
+    ``checks._time_in_unit`` gives (appended to ``notes``), or the same errors. ``rows`` is the
+    source in the rows' own order where ``source`` reads merged cells (the first dates of a
+    column, read for the day/month order, are those of the file)."""
     d = source.dialect
     start = _DateColumn(source, sample, roles.start, roles)
     end = _DateColumn(source, sample, roles.end, roles)
@@ -182,12 +186,12 @@ def dates_in_sql(source, sample: pd.DataFrame, roles: Roles, notes: list[str]) -
     totals = []
     for name, (date, seconds) in columns.items():
         totals += [
-            f"COUNT({date.col}) AS present_{name}",
-            f"COUNT({seconds}) AS parsed_{name}",
+            f"{source.count(date.col)} AS present_{name}",
+            f"{source.count(seconds)} AS parsed_{name}",
             f"COUNT(DISTINCT {d.text(date.col)}) AS distinct_{name}",
-            f"SUM(CASE WHEN {odd[seconds]} THEN 1 ELSE 0 END) AS odd_{name}",
+            f"{source.rows_where(odd[seconds])} AS odd_{name}",
         ]
-    totals.append(f"SUM(CASE WHEN {either} THEN 1 ELSE 0 END) AS odd_rows")
+    totals.append(f"{source.rows_where(either)} AS odd_rows")
     row = source.query(f"SELECT {', '.join(totals)} FROM {relation}").iloc[0]
     for name, (date, _) in columns.items():
         if int(row[f"present_{name}"]) and not int(row[f"parsed_{name}"]):
@@ -216,7 +220,7 @@ def dates_in_sql(source, sample: pd.DataFrame, roles: Roles, notes: list[str]) -
         notes.append(implausible_text(counts, examples, odd_rows, excluding))
     conditions.append((f"({e} < {s})", END_BEFORE_START))
     if not roles.day_first:
-        notes.extend(_ambiguous_date_notes(_first_texts(source, (start, end)), roles))
+        notes.extend(_ambiguous_date_notes(_first_texts(rows or source, (start, end)), roles))
     days = f"(({e} - {s}) / {number(86400.0)})"
     factor = TIME_UNITS["days"] / TIME_UNITS[roles.unit]
     time = days if roles.unit == "days" else f"({days} * {number(factor)})"
