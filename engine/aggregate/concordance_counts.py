@@ -22,14 +22,15 @@ cells at most: memory stays near a few such blocks (16 MB each), time grows with
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import asdict, dataclass
 
 import numpy as np
-import pandas as pd
 
 from engine.cox.concordance import ConcordanceResult, concordance_result
 from engine.errors import AnalysisError
 from engine.json_values import json_float
+from engine.sorted_codes import sorted_codes, stable_order
 
 BLOCK_CELLS = 2_000_000  # times x bins per block
 
@@ -52,16 +53,18 @@ class BinnedConcordance(ConcordanceResult):
 
 
 def concordance_from_counts(
-    exits: pd.DataFrame, entries: pd.DataFrame | None, n_bins: int, *, exact: bool
+    exits: Mapping, entries: Mapping | None, n_bins: int, *, exact: bool
 ) -> BinnedConcordance:
-    """C from ``exits`` (columns stratum, bin, time, event 0/1, rows) and ``entries`` (stratum,
-    bin, entry, rows) with bins coded 0..n_bins-1 in increasing score; ``exact`` when each bin
-    holds a single distinct score."""
+    """C from ``exits`` (columns stratum, bin, time, event 0/1, rows; a DataFrame or a dict of
+    arrays) and ``entries`` (stratum, bin, entry, rows) with bins coded 0..n_bins-1 in
+    increasing score; ``exact`` when each bin holds a single distinct score."""
     totals = np.zeros(3)  # comparable, concordant (half for same bin), same bin
     cells = []  # per stratum: rows, c_i, p_i per cell, for the standard error
-    for stratum in np.unique(exits["stratum"].to_numpy()):
-        ex = exits[exits["stratum"].to_numpy() == stratum]
-        en = None if entries is None else entries[entries["stratum"].to_numpy() == stratum]
+    exits, entries = _columns(exits), None if entries is None else _columns(entries)
+    strata = np.unique(exits["stratum"])
+    for stratum in strata:
+        ex = _rows_of(exits, stratum, len(strata))
+        en = None if entries is None else _rows_of(entries, stratum, len(strata))
         part, per_cell = _stratum_pairs(ex, en, n_bins)
         totals += part
         cells.append(per_cell)
@@ -85,24 +88,35 @@ def concordance_from_counts(
     )
 
 
-def _stratum_pairs(ex: pd.DataFrame, en: pd.DataFrame | None, n_bins: int):
+def _columns(cells) -> dict[str, np.ndarray]:
+    return {name: np.asarray(cells[name]) for name in cells}
+
+
+def _rows_of(cells: dict, stratum, n_strata: int) -> dict:
+    if n_strata == 1:
+        return cells
+    keep = cells["stratum"] == stratum
+    return {name: values[keep] for name, values in cells.items()}
+
+
+def _stratum_pairs(ex: dict, en: dict | None, n_bins: int):
     """Pair totals (comparable, concordant, same bin) of one stratum and, without entry times,
     each cell's rows, c_i and p_i. Blocks of times are swept from the last time back (the
     partners of each event: later exits, censored at its time, less those not yet entered)
     and, for the standard error, from the first forward (the earlier events of each row)."""
-    times, t_index = np.unique(ex["time"].to_numpy(float), return_inverse=True)
+    times, t_index = sorted_codes(np.asarray(ex["time"], float))
     m = len(times)
-    order = np.argsort(t_index, kind="stable")
+    order = stable_order(t_index, m)
     t_index = t_index[order]
-    b = ex["bin"].to_numpy(np.int64)[order]
-    rows = ex["rows"].to_numpy(float)[order]
-    event = ex["event"].to_numpy()[order] == 1
+    b = np.asarray(ex["bin"], np.int64)[order]
+    rows = np.asarray(ex["rows"], float)[order]
+    event = np.asarray(ex["event"])[order] == 1
     if en is not None:
         # rows entering at or after times[i] are not at risk there: k = number of times <= entry
-        k = np.searchsorted(times, en["entry"].to_numpy(float), side="right")
-        k_order = np.argsort(k, kind="stable")
-        k, k_bin = k[k_order], en["bin"].to_numpy(np.int64)[k_order]
-        k_rows = en["rows"].to_numpy(float)[k_order]
+        k = np.searchsorted(times, np.asarray(en["entry"], float), side="right")
+        k_order = stable_order(k, m + 1)
+        k, k_bin = k[k_order], np.asarray(en["bin"], np.int64)[k_order]
+        k_rows = np.asarray(en["rows"], float)[k_order]
     step = max(1, BLOCK_CELLS // max(n_bins, 1))
 
     def block(lo, hi):

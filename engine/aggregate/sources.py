@@ -14,6 +14,7 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from urllib.parse import urlsplit
 
+import numpy as np
 import pandas as pd
 
 from engine.aggregate.sql import DUCKDB, POSTGRES, SPARK, Dialect, literal, quoted
@@ -103,6 +104,20 @@ class SqlSource:
                 "or query and the column roles."
             ) from exc
 
+    def query_columns(self, sql: str) -> dict[str, np.ndarray]:
+        """``query``'s result as arrays, for results of millions of rows: DuckDB hands over its
+        columns directly (several times faster than building a DataFrame); NULLs become NaN
+        or None."""
+        if self.backend == "duckdb":
+            try:
+                columns = self.connection.execute(sql).fetchnumpy()
+            except Exception:
+                pass  # ``query`` runs it again, for its error message
+            else:
+                return {name: _unmasked(values) for name, values in columns.items()}
+        frame = self.query(sql)
+        return {name: frame[name].to_numpy() for name in frame.columns}
+
     def materialize(self, sql: str, name: str) -> str | None:
         """Keep the (small) result of ``sql`` as a temporary table inside the backend and
         return its name, or None where the session may not create one (PostgreSQL sessions
@@ -151,6 +166,15 @@ class SqlSource:
             self.kept.clear()
             return
         self.connection.close()
+
+
+def _unmasked(values):
+    """A column from DuckDB's ``fetchnumpy``: masked where NULL."""
+    if not isinstance(values, np.ma.MaskedArray):
+        return np.asarray(values)
+    if values.dtype.kind in "iufb":
+        return values.astype(float).filled(np.nan)
+    return np.where(values.mask, None, values.data).astype(object)
 
 
 def _typed(frame: pd.DataFrame) -> pd.DataFrame:

@@ -92,11 +92,14 @@ def checked_cells(source: SqlSource, clean: str, columns: list[str]) -> str:
     table: there each query reads the checked rows, each a cell of one.
     """
     listed = ", ".join(columns)
-    kept = source.materialize(
-        f"SELECT {listed}, {source.rows()} AS _n FROM ({clean}) AS checked GROUP BY {listed}",
-        _table_name("hazel_checked_cells"),
-    )
-    return f"SELECT * FROM {kept}" if kept else f"SELECT *, 1 AS _n FROM ({clean}) AS checked"
+    if source.weight is None:
+        cells = f"SELECT {listed}, COUNT(*) AS _n FROM ({clean}) AS checked GROUP BY {listed}"
+    else:  # the rows are merged already (``SqlSource.grouped``): each cell checked once
+        cells = f"SELECT {listed}, {source.weight} AS _n FROM ({clean}) AS checked"
+    kept = source.materialize(cells, _table_name("hazel_checked_cells"))
+    if kept:
+        return f"SELECT * FROM {kept}"
+    return f"SELECT *, {source.weight or 1} AS _n FROM ({clean}) AS checked"
 
 
 def _table_name(stem: str) -> str:

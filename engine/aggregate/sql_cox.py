@@ -27,6 +27,7 @@ from engine.cox.design import (
 )
 from engine.cox.fit import drop_not_estimable
 from engine.errors import AnalysisError, preview_values
+from engine.sorted_codes import sorted_codes
 
 # Score bins for Harrell's C. With 1,000 equal-width bins the invented test data (normal scores)
 # were up to 8.4e-5 from the exact C (bound about 1e-3), too close to the 1e-4 aimed at; with
@@ -224,7 +225,7 @@ def model_cells(data: AggregatedData, columns: Sequence[str], event: str = "_eve
     picked = listed.replace("_event", f"{event} AS _event", 1) if event != "_event" else listed
     rows = f"SELECT {picked}, _n FROM ({data.clean}) AS checked WHERE _reason IS NULL"
     merged = data.source.materialize(
-        f"SELECT {listed}, SUM(_n) AS _n FROM ({rows}) AS r GROUP BY {listed}",
+        f"SELECT {listed}, CAST(SUM(_n) AS BIGINT) AS _n FROM ({rows}) AS r GROUP BY {listed}",
         f"hazel_model_cells_{uuid.uuid4().hex[:12]}",  # one per model: a session may hold more
     )
     return f"SELECT * FROM {merged}" if merged else rows
@@ -246,10 +247,10 @@ class SqlCoxSource:
         self.strata_code = {k: i for i, k in enumerate(strata_labels or ())}
         self.passes = 0
 
-    def _stratum_codes(self, keys: pd.Series) -> np.ndarray:
+    def _stratum_codes(self, keys) -> np.ndarray:
         if not self.strata_code:
             return np.zeros(len(keys), np.int64)
-        return np.array([self.strata_code[k] for k in keys], dtype=np.int64)
+        return pd.Series(keys, dtype=object).map(self.strata_code).to_numpy(np.int64)
 
     def sums(self, beta: np.ndarray, columns: np.ndarray) -> CoxSums:
         d = self.source.dialect
@@ -347,49 +348,48 @@ class SqlCoxSource:
             lo, hi = float(span["lo"].iloc[0]), float(span["hi"].iloc[0])
             width = number(bins / (hi - lo))
             key = f"LEAST(CAST(FLOOR((eta - {number(lo)}) * {width}) AS BIGINT), {bins - 1})"
-        exits = self.source.query(
-            f"SELECT _s, {key} AS b, _time AS t, _event AS e, SUM(_n) AS n FROM ({scored}) AS s "
-            "GROUP BY 1, 2, 3, 4"
+        stratum = "_s" if self.strata_code else "NULL"  # no text column of NULLs to fetch
+        exits = self.source.query_columns(
+            f"SELECT {stratum} AS s, {key} AS b, _time AS t, _event AS e, "
+            f"CAST(SUM(_n) AS BIGINT) AS n FROM ({scored}) AS r GROUP BY 1, 2, 3, 4"
         )
         self.passes += 1
         entries = None
         if self.has_entry:
-            entries = self.source.query(
-                f"SELECT _s, {key} AS b, _entry AS t, SUM(_n) AS n FROM ({scored}) AS s "
-                "GROUP BY 1, 2, 3"
+            entries = self.source.query_columns(
+                f"SELECT {stratum} AS s, {key} AS b, _entry AS t, "
+                f"CAST(SUM(_n) AS BIGINT) AS n FROM ({scored}) AS r GROUP BY 1, 2, 3"
             )
             self.passes += 1
         if exact:
-            scores = np.unique(exits["b"].to_numpy(float))
+            scores, exit_bins = sorted_codes(np.asarray(exits["b"], float))
             n_bins = len(scores)
 
-            def coded(frame):
-                return np.searchsorted(scores, frame["b"].to_numpy(float))
+            def coded(columns):
+                if columns is exits:
+                    return exit_bins
+                return np.searchsorted(scores, np.asarray(columns["b"], float))
         else:
             n_bins = bins
 
-            def coded(frame):
-                return frame["b"].to_numpy(np.int64)
+            def coded(columns):
+                return np.asarray(columns["b"], np.int64)
 
-        exit_cells = pd.DataFrame(
-            {
-                "stratum": self._stratum_codes(exits["_s"]),
-                "bin": coded(exits),
-                "time": exits["t"].to_numpy(float),
-                "event": exits["e"].to_numpy(np.int64),
-                "rows": exits["n"].to_numpy(np.int64),
-            }
-        )
+        exit_cells = {
+            "stratum": self._stratum_codes(exits["s"]),
+            "bin": coded(exits),
+            "time": np.asarray(exits["t"], float),
+            "event": np.asarray(exits["e"], np.int64),
+            "rows": np.asarray(exits["n"], np.int64),
+        }
         entry_cells = None
         if entries is not None:
-            entry_cells = pd.DataFrame(
-                {
-                    "stratum": self._stratum_codes(entries["_s"]),
-                    "bin": coded(entries),
-                    "entry": entries["t"].to_numpy(float),
-                    "rows": entries["n"].to_numpy(np.int64),
-                }
-            )
+            entry_cells = {
+                "stratum": self._stratum_codes(entries["s"]),
+                "bin": coded(entries),
+                "entry": np.asarray(entries["t"], float),
+                "rows": np.asarray(entries["n"], np.int64),
+            }
         return concordance_from_counts(exit_cells, entry_cells, n_bins, exact=exact)
 
 
