@@ -11,6 +11,7 @@ import pytest
 
 from engine.aggregate.analysis import run_aggregate_analysis
 from engine.aggregate.sources import open_duckdb
+from engine.aggregate.sql import quoted
 from engine.aggregate.sql_checks import aggregate_checks
 from engine.analysis.run import run_analysis
 from engine.errors import RoleError, SettingError
@@ -204,3 +205,29 @@ def test_no_readable_date_is_memorys_error(tmp_path):
         source.close()
     assert str(in_sql.value) == str(in_memory.value)
     assert in_sql.value.column == "end"
+
+
+def test_merged_rows_count_as_the_rows(files):
+    """``SqlSource.grouped``: the weighted counts of the merged cells equal the plain counts
+    over the rows (an exact property), and the cells are fewer than the rows."""
+    source = open_duckdb(files["parquet"])
+    try:
+        columns = ["status", "site", "stage", "ward"]  # with NULLs and repeats
+        merged = source.grouped(columns, "hazel_test_cells")
+        assert merged.weight is not None and source.weight is None
+        first, second = (quoted(c) for c in columns[:2])
+        for s in (source, merged):
+            assert s.rows().startswith("COUNT") == (s is source)
+
+        def counts(s):
+            sql = (
+                f"SELECT {s.rows()} AS n, {s.count(first)} AS c, "
+                f"{s.rows_where(f'{second} IS NULL')} AS m FROM {s.relation}"
+            )
+            return s.query(sql).iloc[0].astype(int).tolist()
+
+        assert counts(merged) == counts(source)
+        cells = source.query("SELECT COUNT(*) AS n FROM hazel_test_cells")["n"].iloc[0]
+        assert cells < counts(source)[0]
+    finally:
+        source.close()
