@@ -560,7 +560,8 @@ def report_from_json_and_results(
     from app.report import build_report
 
     if source is None:  # the frame prepare was given (a cut or strata column is read from it)
-        source = filtered.frame if filtered is not None else getattr(imported, "frame", None)
+        kept = filtered.frame if filtered is not None else None
+        source = kept if kept is not None else getattr(imported, "frame", None)
     if imported is not None:
         fingerprint = DataFingerprint.of(imported)
     if roles is None and prepared is not None:

@@ -14,7 +14,6 @@ import sys
 from pathlib import Path
 
 from app.cli_scale import (
-    BackendUsageError,
     add_backend_options,
     check_sample_options,
     chosen_backend,
@@ -641,13 +640,14 @@ def show_results(args, sections: dict, settings: dict, head: str, unit: str, eve
 def run_aggregated(args: argparse.Namespace, backend: str, *, check_only: bool = False) -> int:
     """check or analyze with the rows aggregated where they are (DuckDB, PostgreSQL, Spark).
 
-    A recipe replays here as in memory (its roles and settings; row filters need the rows
-    and are refused); its fingerprint is compared with the source's, and the report records
-    the backend and the source's name, never a user name or password."""
+    A recipe replays here as in memory (its roles, row filters and settings); its fingerprint
+    is compared with the source's, and the report records the backend and the source's name,
+    never a user name or password."""
     from app.batch import aggregated_curve_figure, read_recipe, report_from_json_and_results
     from engine.aggregate.analysis import run_aggregate_analysis
     from engine.aggregate.sources import source_fingerprint
     from engine.aggregate.sql_checks import aggregate_checks
+    from engine.aggregate.sql_filters import keep_conditions, kept_rows
     from engine.analysis.recipe import fingerprint_differences
 
     refuse_row_options(args, backend)
@@ -656,12 +656,7 @@ def run_aggregated(args: argparse.Namespace, backend: str, *, check_only: bool =
     if getattr(args, "recipe", None) and not check_only:
         refuse_role_options_with_recipe(args)
         recipe = read_recipe(args.recipe)
-        if recipe.filters:
-            raise BackendUsageError(
-                f"The recipe has {len(recipe.filters)} row filter(s), which need the rows in "
-                f"memory; they are not available with the {backend} backend yet. Use --backend "
-                "memory to replay it."
-            )
+        filters = recipe.filters
         args.sep = recipe.import_options.get("sep")
         args.decimal = recipe.import_options.get("decimal")
         roles = Roles.from_dict(recipe.roles)
@@ -672,9 +667,10 @@ def run_aggregated(args: argparse.Namespace, backend: str, *, check_only: bool =
             args.event_causes = causes
         roles = roles_from_args(args)
         settings = None if check_only else settings_from_args(args)
+        filters = filters_from_args(args)
     source = open_source(args, backend)
     try:
-        data = aggregate_checks(source, roles)
+        data = aggregate_checks(source, roles, filters=filters)
         if check_only:
             sections = {"data": data.report.to_dict()}
         else:
@@ -685,21 +681,26 @@ def run_aggregated(args: argparse.Namespace, backend: str, *, check_only: bool =
             if args.sample_rows:
                 from engine.aggregate.sampled import sections_from_sample
 
-                rows = source.random_sample(args.sample_rows, args.sample_seed)
+                rows = kept_rows(source, keep_conditions(filters, source.sample(), source))
+                rows = rows.random_sample(args.sample_rows, args.sample_seed)
                 sections, record = sections_from_sample(
                     sections, rows, roles, settings, args.sample_seed
                 )
                 sections["computed_with"]["sample"] = record
+        if data.filtered is not None and data.filtered.excluded:
+            sections["filters"] = data.filtered.to_dict()
         fingerprint = None
         if recipe is not None or getattr(args, "report", None):
-            fingerprint = source_fingerprint(source, data.report.rows_read)
+            read = data.report.rows_read  # the rows before any filter
+            read += sum(n for _, n in data.filtered.excluded) if data.filtered else 0
+            fingerprint = source_fingerprint(source, read)
         if recipe is not None:
             warnings = fingerprint_differences(recipe.fingerprint, fingerprint)
     finally:
         source.close()
     for warning in warnings:
         show(f"warning: {' '.join(warning.split())}", sys.stderr)
-    head = source_summary(source, data.report, roles)
+    head = source_summary(source, data.report, roles, data.filtered)
     if not check_only and sections["computed_with"]["sample"]:
         head += "\n" + sample_summary(sections["computed_with"]["sample"])
     if check_only:
@@ -717,6 +718,7 @@ def run_aggregated(args: argparse.Namespace, backend: str, *, check_only: bool =
             roles=roles,
             fingerprint=fingerprint,
             figures={"curves": figure},
+            filtered=data.filtered,
             warnings=warnings,
         )
 

@@ -136,18 +136,12 @@ def sample_summary(record: dict | None) -> str:
 
 def refuse_row_options(args: argparse.Namespace, backend: str) -> None:
     """Options that need the rows in memory, refused with the reason."""
-    for option, name in (("filter", "--filter"),):
-        if getattr(args, option, None):
-            raise BackendUsageError(
-                f"{name} is not available with the {backend} backend yet (it needs the rows in "
-                "memory); use --backend memory, or leave it out."
-            )
     if getattr(args, "sheet", None) is not None:
         raise BackendUsageError(f"--sheet applies to Excel files, not to the {backend} backend.")
 
 
-def source_summary(source, report, roles) -> str:
-    from app.cli_text import report_summary
+def source_summary(source, report, roles, filtered=None) -> str:
+    from app.cli_text import filter_lines, report_summary
 
     header = f"Source: {source.name} (aggregated by {source.backend} {source.version})"
-    return "\n".join([header, report_summary(report, roles)])
+    return "\n".join([header, *filter_lines(filtered), report_summary(report, roles)])

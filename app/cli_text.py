@@ -43,9 +43,13 @@ def data_summary(
             f"encoding {options.encoding}" + ("" if table.confident else " (detection unsure)")
         )
     lines += [f"  note: {note}" for note in table.notes]
-    for text, rows in filtered.excluded if filtered is not None else ():
-        lines.append(f"Filter {text}: {rows} row(s) left out")
-    return "\n".join([*lines, report_summary(report, roles)])
+    return "\n".join([*lines, *filter_lines(filtered), report_summary(report, roles)])
+
+
+def filter_lines(filtered: FilterOutcome | None) -> list[str]:
+    """A line per row filter: the rows it left out."""
+    excluded = filtered.excluded if filtered is not None else ()
+    return [f"Filter {text}: {rows} row(s) left out" for text, rows in excluded]
 
 
 def report_summary(report, roles) -> str:

@@ -22,6 +22,7 @@ from engine.aggregate.counts import CountTable, count_table
 from engine.aggregate.sources import SqlSource
 from engine.aggregate.sql import literal, number, quoted
 from engine.aggregate.sql_dates import dates_in_sql
+from engine.aggregate.sql_filters import filter_outcome, keep_conditions, kept_rows
 from engine.errors import RoleError, SettingError, preview_values
 from engine.prepare.checks import (
     ENTRY_AFTER_EXIT,
@@ -39,6 +40,7 @@ from engine.prepare.checks import (
     event_coding,
 )
 from engine.prepare.data_warnings import labels_warning, warnings_from_summary
+from engine.prepare.filters import FilterOutcome
 from engine.prepare.roles import (
     TIME_UNITS,
     Roles,
@@ -74,6 +76,7 @@ class AggregatedData:
     levels: dict  # "_group", "_strata" and categorical covariates -> Levels
     covariate_columns: dict  # covariate -> its column in ``clean``
     kinds: dict
+    filtered: FilterOutcome | None = None  # what the row filters removed, before the checks
 
     @property
     def has_entry(self) -> bool:
@@ -171,14 +174,20 @@ def _in(expr: str, keys) -> str:
 
 
 def aggregate_checks(
-    source: SqlSource, roles: Roles, *, require_covariates: bool = False
+    source: SqlSource, roles: Roles, *, require_covariates: bool = False, filters=()
 ) -> AggregatedData:
-    """Run the checks in the database; raise the same errors as ``prepare`` for bad roles."""
+    """Run the checks in the database on the rows the row ``filters`` keep (applied first, in
+    order, as ``apply_filters`` does before ``prepare``); raise the same errors as ``prepare``
+    for bad roles."""
     sample = source.sample()
     _validate_roles(sample, roles)
     _refuse_row_level_roles(roles)
-    rows = source  # in the rows' order, for the first dates read
-    source = source.grouped(_role_columns(roles), _table_name("hazel_row_cells"))
+    keep = keep_conditions(filters, sample, source)
+    rows = kept_rows(source, keep)  # in the rows' order, for the first dates read
+    columns = _role_columns(roles) + [f.column for f in filters]
+    source = source.grouped(columns, _table_name("hazel_row_cells"))
+    filtered = filter_outcome(source, filters, keep) if filters else None
+    source = kept_rows(source, keep)
     cols = _Columns(source, sample)
     d = source.dialect
     notes: list[str] = []
@@ -356,7 +365,9 @@ def aggregate_checks(
         event_coding=coding,
         covariate_kinds=kinds,
     )
-    return AggregatedData(source, roles, report, counts, clean, levels, covariate_columns, kinds)
+    return AggregatedData(
+        source, roles, report, counts, clean, levels, covariate_columns, kinds, filtered
+    )
 
 
 ROW_LEVEL_ROLES = (("id", "an id column (episodes per subject, robust variance)"),)

@@ -162,14 +162,16 @@ def _membership(series: pd.Series, values) -> np.ndarray:
 
 @dataclass(frozen=True)
 class FilterOutcome:
-    """The kept rows and, per filter in order, how many rows it removed."""
+    """The kept rows (None where they stay in a database) and, per filter in order, how many
+    rows it removed."""
 
-    frame: pd.DataFrame
+    frame: pd.DataFrame | None
     excluded: tuple[tuple[str, int], ...]
+    rows_kept: int
 
     def to_dict(self) -> dict:
         return {
-            "rows_kept": len(self.frame),
+            "rows_kept": self.rows_kept,
             "excluded": [{"filter": text, "rows": rows} for text, rows in self.excluded],
         }
 
@@ -184,4 +186,4 @@ def apply_filters(frame: pd.DataFrame, filters) -> FilterOutcome:
         excluded.append((row_filter.describe(), removed))
         keep &= mask
     kept = frame if keep.all() else frame.loc[keep].reset_index(drop=True)
-    return FilterOutcome(frame=kept, excluded=tuple(excluded))
+    return FilterOutcome(frame=kept, excluded=tuple(excluded), rows_kept=len(kept))

@@ -8,6 +8,7 @@ from dataclasses import replace
 import numpy as np
 import pandas as pd
 
+from engine.prepare.filters import RowFilter
 from engine.prepare.roles import Roles
 
 
@@ -63,15 +64,45 @@ SETTINGS = {
 }
 
 
-def aggregate_json(source, roles: Roles, settings=SETTINGS) -> dict:
-    """``run_aggregate_analysis`` of ``roles`` on an open source, which is closed after."""
+# Row filters of every rule: on a number column with NaN, text columns with NULL, a role column.
+FILTERS = (
+    RowFilter("age", "between", (50, 75)),
+    RowFilter("site", "not_in", ("east",)),
+    RowFilter("stage", "in", ("I", "II", "IV")),
+    RowFilter("days", "at_least", (2,)),
+    RowFilter("enrolled", "at_most", (400.5,)),
+    RowFilter("ward", "not_missing"),
+    RowFilter("days", "not_in", ("5", "7.0", "x")),  # numbers compared as numbers
+)
+
+
+def aggregate_json(source, roles: Roles, settings=SETTINGS, filters=()) -> dict:
+    """``run_aggregate_analysis`` of ``roles`` on an open source, which is closed after; with
+    ``filters``, their outcome under "filters" as the command line writes it."""
     from engine.aggregate.analysis import run_aggregate_analysis
     from engine.aggregate.sql_checks import aggregate_checks
 
     try:
-        return run_aggregate_analysis(aggregate_checks(source, roles), settings)
+        data = aggregate_checks(source, roles, filters=filters)
+        result = run_aggregate_analysis(data, settings)
+        if filters:
+            result["filters"] = data.filtered.to_dict()
+        return result
     finally:
         source.close()
+
+
+def memory_json(frame, roles: Roles, settings=SETTINGS, filters=()) -> dict:
+    """The same in memory: the filters applied before ``prepare``."""
+    from engine.analysis.run import run_analysis
+    from engine.prepare.checks import prepare
+    from engine.prepare.filters import apply_filters
+
+    filtered = apply_filters(frame, filters)
+    result = run_analysis(prepare(filtered.frame, roles), settings)
+    if filters:
+        result["filters"] = filtered.to_dict()
+    return result
 
 
 # keys a database's result has beside memory's: the error bound of Harrell's C of score bins

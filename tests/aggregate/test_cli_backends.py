@@ -76,7 +76,7 @@ def test_text_output_names_the_backend(data, capsys):
     [
         (["--backend", "memory", "--query", "SELECT 1"], "need DATA to be a database address"),
         (["--table", "t"], "need DATA to be a database address"),
-        (["--backend", "duckdb", "--filter", "age:at_least:50"], "--filter is not available"),
+        (["--backend", "duckdb", "--filter", "site:at_most:50"], "'site'"),
         (["--backend", "duckdb", "--id", "ward"], "'ward'"),
     ],
 )
@@ -85,6 +85,22 @@ def test_bad_backend_options_exit_2(data, capsys, extra, message):
     err = capsys.readouterr().err.strip().splitlines()
     assert code == 2
     assert len(err) == 1 and err[0].startswith("error: ") and message in err[0]
+
+
+def test_filters_on_duckdb_equal_memory(data, capsys):
+    """``--filter`` on a backend: the same rows left out per filter, in the text and the JSON,
+    and the same numbers."""
+    filters = ["--filter", "age:between:50,75", "--filter", "site:in:north,south"]
+    memory = analyze(capsys, str(data / "one.parquet"), "--backend", "memory", *filters)
+    folder = analyze(capsys, str(data / "parts"), *filters)
+    assert folder["filters"] == memory["filters"]
+    assert memory["filters"]["excluded"][0]["rows"] > 0
+    assert list(folder) == list(memory)
+    assert_same_json(memory, folder, skip=NOT_FROM_SUMS)
+    main(["analyze", str(data / "parts"), *ROLE_ARGS, *filters])
+    out = capsys.readouterr().out
+    removed = memory["filters"]["excluded"][1]["rows"]
+    assert f"Filter site is one of 'north', 'south': {removed} row(s) left out" in out
 
 
 def test_memory_backend_refuses_a_folder(data, capsys):

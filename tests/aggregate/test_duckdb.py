@@ -17,14 +17,18 @@ from engine.analysis.run import run_analysis
 from engine.errors import RoleError, SettingError
 from engine.io.tables import read_table
 from engine.prepare.checks import prepare
+from engine.prepare.filters import FilterError, RowFilter
 from tests.aggregate.cases import (
     DATE_ROLES,
+    FILTERS,
     NONE_ESTIMABLE_ROLES,
     NOT_ESTIMABLE_ROLES,
     ROLES,
     SETTINGS,
+    aggregate_json,
     assert_same_json,
     dated_frame,
+    memory_json,
     messy_frame,
     with_ward_terms,
 )
@@ -229,5 +233,36 @@ def test_merged_rows_count_as_the_rows(files):
         assert counts(merged) == counts(source)
         cells = source.query("SELECT COUNT(*) AS n FROM hazel_test_cells")["n"].iloc[0]
         assert cells < counts(source)[0]
+    finally:
+        source.close()
+
+
+@pytest.mark.parametrize("kind", ["parquet", "csv"])
+def test_row_filters_equal_memory(files, kind):
+    """Row filters of every rule run inside DuckDB: the rows each removes, the checks of the
+    rows kept and the analysis equal memory's (``apply_filters`` before ``prepare``)."""
+    frame = read_table(files[kind]).frame
+    memory = memory_json(frame, ROLES, filters=FILTERS)
+    database = aggregate_json(open_duckdb(files[kind]), ROLES, filters=FILTERS)
+    assert database["filters"] == memory["filters"]
+    assert 0 < memory["filters"]["rows_kept"] < len(frame)
+    assert all(e["rows"] > 0 for e in memory["filters"]["excluded"])
+    assert database["data"] == memory["data"]
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+
+
+@pytest.mark.parametrize(
+    ("row_filter", "message"),
+    [
+        (RowFilter("nowhere", "not_missing"), "there is no such column"),
+        (RowFilter("site", "at_least", (3,)), "does not hold numbers"),
+    ],
+)
+def test_row_filters_that_cannot_run_in_a_database(files, row_filter, message):
+    source = open_duckdb(files["parquet"])
+    try:
+        with pytest.raises(FilterError, match=message) as caught:
+            aggregate_checks(source, ROLES, filters=(row_filter,))
+        assert row_filter.column in str(caught.value)
     finally:
         source.close()

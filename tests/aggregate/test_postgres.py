@@ -14,6 +14,7 @@ from engine.analysis.run import run_analysis
 from engine.prepare.checks import prepare
 from tests.aggregate.cases import (
     DATE_ROLES,
+    FILTERS,
     NONE_ESTIMABLE_ROLES,
     NOT_ESTIMABLE_ROLES,
     ROLES,
@@ -21,6 +22,7 @@ from tests.aggregate.cases import (
     aggregate_json,
     assert_same_json,
     dated_frame,
+    memory_json,
     messy_frame,
     with_ward_terms,
 )
@@ -112,4 +114,12 @@ def test_dates_equal_memory(postgres_url, kind):
     database = aggregate_json(open_postgres(postgres_url, table="dated"), roles)
     assert database["data"] == memory["data"]
     assert "end before start" in {e["reason"] for e in memory["data"]["excluded"]}
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+
+
+def test_row_filters_equal_memory(postgres_url, messy):
+    memory = memory_json(messy, ROLES, filters=FILTERS)
+    database = aggregate_json(open_postgres(postgres_url, table="messy"), ROLES, filters=FILTERS)
+    assert database["filters"] == memory["filters"]
+    assert database["data"] == memory["data"]
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)

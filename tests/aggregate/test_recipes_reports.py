@@ -65,19 +65,23 @@ def test_recipe_replays_on_duckdb_with_memorys_numbers(made, capsys):
     assert_same_json(memory, duck, skip=NOT_FROM_SUMS)
 
 
-def test_recipe_with_row_filters_is_refused_on_a_backend(made, capsys):
-    folder, _ = made
-    code, _, err = run(
-        capsys,
-        "analyze",
-        str(folder / "cohort.parquet"),
-        "--recipe",
-        str(folder / "filtered.json"),
-        "--backend",
-        "duckdb",
-    )
-    assert code == 2
-    assert err.count("error:") == 1 and "row filter" in err
+def test_recipe_with_row_filters_replays_on_a_backend(made, capsys, tmp_path):
+    """A recipe's row filters run inside DuckDB: memory's numbers, the rows each filter left
+    out in the JSON and the report, and no fingerprint warning (the rows before the filters)."""
+    folder, frame = made
+    data, recipe = folder / "cohort.parquet", folder / "filtered.json"
+    memory, _ = replay(capsys, data, recipe, "--backend", "memory")
+    duck, err = replay(capsys, data, recipe, "--backend", "duckdb")
+    assert err == ""
+    removed = int(frame["age"].isna().sum())
+    assert duck["filters"] == memory["filters"]
+    assert duck["filters"]["excluded"][0]["rows"] == removed > 0
+    assert_same_json(memory, duck, skip=NOT_FROM_SUMS)
+    report = tmp_path / "report.html"
+    code, _, err = run(capsys, "analyze", str(data), "--recipe", str(recipe), "--backend",
+                       "duckdb", "--report", str(report))  # fmt: skip
+    assert code == 0, err
+    assert "age not missing" in report.read_text()
 
 
 def test_recipe_refuses_role_options_on_a_backend(made, capsys):

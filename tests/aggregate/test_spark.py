@@ -14,6 +14,7 @@ from engine.analysis.run import run_analysis
 from engine.prepare.checks import prepare
 from tests.aggregate.cases import (
     DATE_ROLES,
+    FILTERS,
     NONE_ESTIMABLE_ROLES,
     NOT_ESTIMABLE_ROLES,
     ROLES,
@@ -21,6 +22,7 @@ from tests.aggregate.cases import (
     aggregate_json,
     assert_same_json,
     dated_frame,
+    memory_json,
     messy_frame,
     with_ward_terms,
 )
@@ -78,5 +80,14 @@ def test_dates_equal_memory(spark_master, tmp_path, text):
     roles = replace(DATE_ROLES, unit="weeks", implausible_dates="exclude")
     memory = run_analysis(prepare(frame, roles), SETTINGS)
     database = aggregate_json(open_spark(path, master=spark_master), roles)
+    assert database["data"] == memory["data"]
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+
+
+def test_row_filters_equal_memory(spark_master, dataset):
+    path, frame = dataset
+    memory = memory_json(frame, ROLES, filters=FILTERS)
+    database = aggregate_json(open_spark(path, master=spark_master), ROLES, filters=FILTERS)
+    assert database["filters"] == memory["filters"]
     assert database["data"] == memory["data"]
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)
