@@ -213,7 +213,10 @@ def fit_warnings(
             f"The fit did not converge after {fit.iterations} iterations; the estimates may be "
             "unreliable. Remove sparse covariates or merge small levels."
         )
-    runaway = [design.terms[j].label for j in np.flatnonzero(np.abs(fit.last_step) > RUNAWAY_STEP)]
+    # a large last step, or no curvature left at the estimate (the information of a monotone
+    # likelihood falls to zero, and rounding may leave it at or below zero)
+    running = (np.abs(fit.last_step) > RUNAWAY_STEP) | ~(np.diag(fit.information) > 0)
+    runaway = [design.terms[j].label for j in np.flatnonzero(running)]
     if runaway:
         warnings.append(
             f"Coefficient(s) for {', '.join(runaway)} run off to infinity (monotone likelihood, "
@@ -403,8 +406,9 @@ def robust_covariance(layout, scaled, beta, ties, information_inverse, codes) ->
 
 
 def term_estimates(terms: Sequence[Term], beta, covariance, confidence, robust=None):
-    se_model = np.sqrt(np.diag(covariance))
-    se = se_model if robust is None else np.sqrt(np.diag(robust))
+    with np.errstate(invalid="ignore"):  # a variance below zero (a runaway): no se
+        se_model = np.sqrt(np.diag(covariance))
+        se = se_model if robust is None else np.sqrt(np.diag(robust))
     quantile = stats.norm.ppf(0.5 + confidence / 2)
     with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
         z = beta / se

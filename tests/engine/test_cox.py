@@ -352,3 +352,22 @@ def test_unfittable_models_raise_naming_the_problem(rng, change, covariates, mes
 def test_unknown_reference_level_raises(rng):
     with pytest.raises(AnalysisError, match="'group'"):
         fit_cox(simulated(rng), ["group"], reference={"group": "none"})
+
+
+def test_runaway_is_flagged_where_the_information_is_gone():
+    """A monotone likelihood (exact property: in stratum B the one event is the older of the two
+    at risk, so log L = 70.4 b - log(exp(70.4 b) + exp(64.3 b)) rises for ever in b; stratum A
+    has one row) is flagged as a runaway even where Newton stops with the curvature rounded to
+    zero or below (strata with delayed entry), not only where its last step is still large."""
+    frame = pd.DataFrame(
+        {
+            "_time": [7.0, 7.0, 7.0],
+            "_event": [1, 1, 0],
+            "_entry": [2.0, 1.0, 0.0],
+            "ward": ["B", "A", "B"],
+            "age": [70.4, 57.8, 64.3],
+        }
+    )
+    for options in ({"strata": "ward"}, {"strata": "ward", "entry": "_entry"}):
+        result = fit_cox(frame, ["age"], **options)
+        assert any("run off to infinity" in w for w in result.warnings), options
