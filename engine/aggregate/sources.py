@@ -136,7 +136,8 @@ class SqlSource:
         except Exception as exc:  # the database's own message says what failed
             message = " ".join(str(exc).split())
             raise SourceError(
-                f"The {self.backend} backend could not keep the model's cells for {self.name}: "
+                f"The {self.backend} backend could not keep a table of counted cells for "
+                f"{self.name}: "
                 f"{message}."
             ) from exc
         return None

@@ -242,6 +242,7 @@ class SqlCoxSource:
         self.has_entry = "_entry" in rows
         kept = data.source.materialize(rows, f"hazel_model_design_{uuid.uuid4().hex[:12]}")
         rows = f"SELECT * FROM {kept}" if kept else rows
+        self.kept = kept is not None  # one row per distinct cell, not per row of the data
         self.source, self.rows, self.bounds = data.source, rows, bounds
         self.n_columns = len(bounds)
         self.strata_code = {k: i for i, k in enumerate(strata_labels or ())}
@@ -349,17 +350,22 @@ class SqlCoxSource:
             width = number(bins / (hi - lo))
             key = f"LEAST(CAST(FLOOR((eta - {number(lo)}) * {width}) AS BIGINT), {bins - 1})"
         stratum = "_s" if self.strata_code else "NULL"  # no text column of NULLs to fetch
-        exits = self.source.query_columns(
-            f"SELECT {stratum} AS s, {key} AS b, _time AS t, _event AS e, "
-            f"CAST(SUM(_n) AS BIGINT) AS n FROM ({scored}) AS r GROUP BY 1, 2, 3, 4"
-        )
+
+        def counted(columns: str, keys: str) -> dict:
+            """Rows per (stratum, bin, ...). The kept cells need no merging for exact bins: the
+            counting below adds up cells that share a bin and a time, pair by pair the same."""
+            if exact and self.kept:
+                return self.source.query_columns(f"SELECT {columns}, _n AS n FROM ({scored}) r")
+            return self.source.query_columns(
+                f"SELECT {columns}, CAST(SUM(_n) AS BIGINT) AS n FROM ({scored}) AS r "
+                f"GROUP BY {keys}"
+            )
+
+        exits = counted(f"{stratum} AS s, {key} AS b, _time AS t, _event AS e", "1, 2, 3, 4")
         self.passes += 1
         entries = None
         if self.has_entry:
-            entries = self.source.query_columns(
-                f"SELECT {stratum} AS s, {key} AS b, _entry AS t, "
-                f"CAST(SUM(_n) AS BIGINT) AS n FROM ({scored}) AS r GROUP BY 1, 2, 3"
-            )
+            entries = counted(f"{stratum} AS s, {key} AS b, _entry AS t", "1, 2, 3")
             self.passes += 1
         if exact:
             scores, exit_bins = sorted_codes(np.asarray(exits["b"], float))
