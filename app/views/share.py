@@ -5,12 +5,13 @@ from __future__ import annotations
 
 import streamlit as st
 
-from app import big_views, bigdata, data, row_filters, share_section, ui
+from app import big_share, bigdata, data, row_filters, share_section, ui
 from engine.errors import HazelError
 
 st.title("Save and share", anchor=False)
 if bigdata.in_use(st.session_state):
-    big_views.needs_rows()
+    big_share.render()
+    st.stop()
 st.caption(
     "A recipe is a small file with the import options, column roles, filters and settings of "
     "every page (never the data). Send it with the data file and a colleague sees the same "

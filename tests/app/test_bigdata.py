@@ -200,3 +200,59 @@ def test_a_database_table_opens_on_the_curves_page(postgres_url, in_url):  # noq
     assert PASSWORD not in _page_text(at)
     medians = [g["median"]["estimate"] for g in run_analysis(prepare(rows, CURVE_ROLES))["curves"]]
     np.testing.assert_allclose(at.dataframe[0].value["Median"].to_numpy(float), medians, rtol=1e-9)
+
+
+# --- save and share ----------------------------------------------------------------------------
+
+
+def test_share_page_offers_the_recipe_and_report_for_big_data(folder, monkeypatch):
+    at = _open_big(monkeypatch)
+    at.switch_page("views/share.py").run()
+    assert not at.exception, [e.message for e in at.exception]
+    assert not at.error, [e.value for e in at.error]
+    labels = [b.proto.label for b in at.get("download_button")]
+    assert labels == ["Download recipe", "Download report (HTML)"]
+
+
+def test_the_big_data_recipe_replays_with_the_engine_numbers(folder, tmp_path, capsys):
+    """The recipe of the big-data pages (roles, the Curves page's 90% level and the Group
+    comparison page's Tarone–Ware test) replayed on the command line gives the in-memory
+    engine's numbers on the same rows; the report names the backend and carries no rows."""
+    import json
+
+    from app import big_share
+    from app.cli import main
+    from engine.aggregate.sources import open_duckdb
+    from tests.aggregate.cases import assert_same_json
+
+    source = open_duckdb(folder / "trial")
+    session = {
+        state.SOURCE: source,
+        state.SOURCE_ID: "share-test",
+        state.ROLES: ROLES,
+        "curves_conf": "90%",
+        "compare_test_big": "tarone-ware",
+    }
+    try:
+        recipe_text, html = big_share.recipe_and_report(session)
+    finally:
+        source.close()
+    recipe = json.loads(recipe_text)
+    assert recipe["data"]["backend"] == "duckdb"
+    assert recipe["analyses"]["curves"]["confidence"] == 0.9
+    assert recipe["analyses"]["comparison"]["test"] == "tarone-ware"
+    path = tmp_path / "big.recipe.json"
+    path.write_text(recipe_text)
+    code = main(["analyze", str(folder / "trial"), "--recipe", str(path), "--json", "-"])
+    out = capsys.readouterr()
+    assert code == 0 and out.err == "", out.err
+    replayed = json.loads(out.out)
+    settings = {"curves": {"confidence": 0.9}, "comparison": {"test": "tarone-ware"}}
+    memory = run_analysis(prepare(invented_rows(), ROLES), settings)
+    assert replayed["comparison"]["test"] == "Tarone–Ware"
+    for name in ("data", "curves", "comparison", "cox"):
+        assert_same_json(
+            memory[name], replayed[name], path=f".{name}", skip=(".cox.concordance_se",)
+        )
+    assert "DuckDB" in html and "3,000" in html
+    assert "not decisions about an individual patient" in html or "individual patient" in html

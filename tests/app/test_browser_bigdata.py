@@ -66,6 +66,11 @@ def test_a_parquet_folder_opens_where_it_is_and_draws(folder_server):
         wait_until_idle(page)
         assert page.locator('[data-testid="stVegaLiteChart"]').count() >= 1  # the forest plot
         page.screenshot(path=str(ARTIFACTS / "bigdata_regression.png"), full_page=True)
+        page.get_by_role("link", name="Save and share").first.click()
+        page.get_by_text("Download report (HTML)").first.wait_for(timeout=120_000)
+        wait_until_idle(page)
+        assert page.get_by_text("Download recipe").count() >= 1
+        page.screenshot(path=str(ARTIFACTS / "bigdata_share.png"), full_page=True)
         assert errors == []
     prepared = prepare(frame, Roles(time="days", event="died", group="arm"))
     events = int(prepared.frame["_event"].sum())
