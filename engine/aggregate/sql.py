@@ -19,8 +19,12 @@ def quoted(name: str) -> str:
 
 
 def literal(text: str) -> str:
-    """A SQL string literal."""
-    return "'" + str(text).replace("'", "''") + "'"
+    """A SQL string literal that reads back as ``text`` in DuckDB, PostgreSQL and Spark alike.
+
+    Spark reads a backslash in a literal as an escape (``'c\\d'`` is ``cd`` there) where the
+    others keep it, so a text holding one is joined from pieces around ``chr(92)``."""
+    pieces = ["'" + piece.replace("'", "''") + "'" for piece in str(text).split("\\")]
+    return pieces[0] if len(pieces) == 1 else "(" + " || chr(92) || ".join(pieces) + ")"
 
 
 def number(value: float) -> str:

@@ -240,3 +240,19 @@ COMPETING_SETTINGS = {
     **SETTINGS,
     "competing": {"times": [100.0, 365.0], "fine_gray": "death"},
 }
+
+
+# Texts a SQL literal must carry through unchanged: quotes, backslashes (an escape in Spark's
+# literals), a line break, non-ASCII letters.
+AWKWARD_TEXTS = ("o'brien", "north\\east", "\\", "x\\\\y'z", "line\nbreak", "Zürich–Ost", "")
+
+
+def awkward_frame(seed: int = 4, n: int = 600) -> pd.DataFrame:
+    """messy_frame with site levels holding quotes and backslashes, and a filter on them."""
+    frame = messy_frame(seed, n)
+    rng = np.random.default_rng(seed)
+    frame["site"] = rng.choice(["o'brien", "north\\east", "a\\nb"], n).astype(object)
+    return frame
+
+
+AWKWARD_FILTERS = (RowFilter("site", "in", ("o'brien", "north\\east")),)

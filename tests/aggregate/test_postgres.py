@@ -10,9 +10,12 @@ import pytest
 
 from app.cli import main
 from engine.aggregate.sources import SourceError, open_postgres
+from engine.aggregate.sql import literal
 from engine.analysis.run import run_analysis
 from engine.prepare.checks import prepare
 from tests.aggregate.cases import (
+    AWKWARD_FILTERS,
+    AWKWARD_TEXTS,
     DATE_ROLES,
     FILTERS,
     NONE_ESTIMABLE_ROLES,
@@ -21,6 +24,7 @@ from tests.aggregate.cases import (
     SETTINGS,
     aggregate_json,
     assert_same_json,
+    awkward_frame,
     dated_frame,
     memory_json,
     messy_frame,
@@ -122,4 +126,21 @@ def test_row_filters_equal_memory(postgres_url, messy):
     database = aggregate_json(open_postgres(postgres_url, table="messy"), ROLES, filters=FILTERS)
     assert database["filters"] == memory["filters"]
     assert database["data"] == memory["data"]
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+
+
+def test_texts_with_quotes_and_backslashes_reach_the_database_unchanged(postgres_url):
+    frame = awkward_frame()
+    load_table(postgres_url, "awkward", frame)
+    source = open_postgres(postgres_url, table="awkward")
+    try:
+        for text in AWKWARD_TEXTS:
+            assert source.query(f"SELECT {literal(text)} AS v")["v"].iloc[0] == text
+    finally:
+        source.close()
+    memory = memory_json(frame, ROLES, filters=AWKWARD_FILTERS)
+    database = aggregate_json(
+        open_postgres(postgres_url, table="awkward"), ROLES, filters=AWKWARD_FILTERS
+    )
+    assert database["filters"] == memory["filters"]
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)

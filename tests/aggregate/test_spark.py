@@ -10,9 +10,12 @@ import pytest
 
 from app.cli import main
 from engine.aggregate.sources import SourceError, open_spark
+from engine.aggregate.sql import literal
 from engine.analysis.run import run_analysis
 from engine.prepare.checks import prepare
 from tests.aggregate.cases import (
+    AWKWARD_FILTERS,
+    AWKWARD_TEXTS,
     DATE_ROLES,
     FILTERS,
     NONE_ESTIMABLE_ROLES,
@@ -21,6 +24,7 @@ from tests.aggregate.cases import (
     SETTINGS,
     aggregate_json,
     assert_same_json,
+    awkward_frame,
     dated_frame,
     memory_json,
     messy_frame,
@@ -90,4 +94,21 @@ def test_row_filters_equal_memory(spark_master, dataset):
     database = aggregate_json(open_spark(path, master=spark_master), ROLES, filters=FILTERS)
     assert database["filters"] == memory["filters"]
     assert database["data"] == memory["data"]
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+
+
+def test_texts_with_quotes_and_backslashes_reach_the_database_unchanged(spark_master, tmp_path):
+    """Spark reads a backslash in a literal as an escape: the literals are built around it."""
+    frame = awkward_frame()
+    path = tmp_path / "awkward.parquet"
+    frame.to_parquet(path)
+    source = open_spark(path, master=spark_master)
+    try:
+        for text in AWKWARD_TEXTS:
+            assert source.query(f"SELECT {literal(text)} AS v")["v"].iloc[0] == text
+    finally:
+        source.close()
+    memory = memory_json(frame, ROLES, filters=AWKWARD_FILTERS)
+    database = aggregate_json(open_spark(path, master=spark_master), ROLES, filters=AWKWARD_FILTERS)
+    assert database["filters"] == memory["filters"]
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)
