@@ -256,3 +256,14 @@ def awkward_frame(seed: int = 4, n: int = 600) -> pd.DataFrame:
 
 
 AWKWARD_FILTERS = (RowFilter("site", "in", ("o'brien", "north\\east")),)
+
+
+def awkward_names(seed: int = 5, n: int = 600) -> tuple[pd.DataFrame, Roles]:
+    """messy_frame with column names holding quotes, a backtick, backslashes and non-ASCII
+    letters, and the roles naming them."""
+    names = {"days": 'days "to"\\event', "site": "site's `name`", "age": "âge\\n"}
+    frame = messy_frame(seed, n).rename(columns=names)
+    roles = replace(
+        ROLES, time=names["days"], group=names["site"], covariates=(names["age"], "stage")
+    )
+    return frame, roles

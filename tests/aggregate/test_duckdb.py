@@ -30,6 +30,7 @@ from tests.aggregate.cases import (
     aggregate_json,
     assert_same_json,
     awkward_frame,
+    awkward_names,
     dated_frame,
     memory_json,
     messy_frame,
@@ -293,3 +294,12 @@ def files_dir(tmp_path):
     path = tmp_path / "one.parquet"
     pd.DataFrame({"a": [1]}).to_parquet(path)
     return path
+
+
+def test_column_names_with_quotes_and_backslashes(tmp_path):
+    frame, roles = awkward_names()
+    path = tmp_path / "names.parquet"
+    frame.to_parquet(path)
+    memory = memory_json(frame, roles)
+    database = aggregate_json(open_duckdb(path), roles)
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)

@@ -25,6 +25,7 @@ from tests.aggregate.cases import (
     aggregate_json,
     assert_same_json,
     awkward_frame,
+    awkward_names,
     dated_frame,
     memory_json,
     messy_frame,
@@ -111,4 +112,13 @@ def test_texts_with_quotes_and_backslashes_reach_the_database_unchanged(spark_ma
     memory = memory_json(frame, ROLES, filters=AWKWARD_FILTERS)
     database = aggregate_json(open_spark(path, master=spark_master), ROLES, filters=AWKWARD_FILTERS)
     assert database["filters"] == memory["filters"]
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+
+
+def test_column_names_with_quotes_and_backslashes(spark_master, tmp_path):
+    frame, roles = awkward_names()
+    path = tmp_path / "names.parquet"
+    frame.to_parquet(path)
+    memory = memory_json(frame, roles)
+    database = aggregate_json(open_spark(path, master=spark_master), roles)
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)
