@@ -9,6 +9,7 @@ from score bins, with the bound on its error beside it (``concordance_counts``).
 from __future__ import annotations
 
 from collections.abc import Mapping
+from dataclasses import replace
 
 from engine.aggregate.cox_fit import fit_cox_from_sums
 from engine.aggregate.estimators import compare_from_counts, curves_from_counts
@@ -72,10 +73,12 @@ def cox_from_data(
     drop_one: bool = True,
     event: str = "_event",
     concordance: bool = True,
+    clusters: bool | None = None,
 ):
     """The Cox model of the roles (or the settings' variant of it) from per-time sums; the
     ``CoxResult``, its PH test (or ``{"not_computed": reason}``) and the SQL source (which
-    counts its passes). ``event``: the SQL of the event (a cause-specific model's cause)."""
+    counts its passes). ``event``: the SQL of the event (a cause-specific model's cause);
+    ``clusters``: the rows without an id left out (None: when the roles name an id)."""
     roles = data.roles
     covariates = list(roles.covariates) if chosen["covariates"] is None else chosen["covariates"]
     outside = [c for c in covariates if c not in roles.covariates]
@@ -96,6 +99,7 @@ def cox_from_data(
         reference={c: levels[c] for c in covariates if c in levels} or None,
         strata=roles.strata if use_strata else None,
         event=event,
+        clusters=roles.id is not None if clusters is None else clusters,
     )
     strata_keys = data.levels["_strata"].keys if use_strata else None
     source = SqlCoxSource(data, rows, bounds, strata_keys)
@@ -120,12 +124,24 @@ def cox_section(data: AggregatedData, cox: Mapping) -> dict:
             f"A model stratified by the column {cox['strata']!r}, which has no role, is not "
             "computed from per-time sums; give it the strata role instead."
         )
-    if cox.get("variance", "auto") == "robust":
+    variance = cox.get("variance", "auto")
+    repeats = ids_repeat_in_model(data, cox)
+    if variance == "robust" or (variance == "auto" and repeats):
+        because = (
+            f" (the id column {data.roles.id!r} repeats: several rows belong to one subject)"
+            if variance == "auto"
+            else ""
+        )
         return not_computed(
-            "The robust (sandwich) variance needs each row's score residuals, which per-time "
-            "sums do not keep" + SAMPLE_HINT
+            f"The robust (sandwich) variance{because} needs each row's score residuals, which "
+            "per-time sums do not keep" + SAMPLE_HINT
         )
     result, ph, _ = cox_from_data(data, cox)
+    if repeats and result.concordance is not None:  # C's standard error sums each subject's
+        # pairs over its rows, which the counts do not keep
+        result = replace(
+            result, concordance=replace(result.concordance, standard_error=float("nan"))
+        )
     section = {**cox_json(result), "ph_check": ph} if is_not_computed(ph) else cox_json(result, ph)
     section = with_error_bound(section, result.concordance)
     section["splines"] = (
@@ -139,6 +155,25 @@ def cox_section(data: AggregatedData, cox: Mapping) -> dict:
         else None
     )
     return section
+
+
+def ids_repeat_in_model(data: AggregatedData, cox: Mapping) -> bool:
+    """Whether an id occurs on two or more of the model's rows (complete cases): where
+    ``fit_cox``'s "auto" variance becomes the robust one."""
+    from engine.aggregate.sql_cox import model_required
+
+    roles = data.roles
+    if roles.id is None:
+        return False
+    covariates = list(roles.covariates) if cox["covariates"] is None else cox["covariates"]
+    use_strata = cox["strata"] is None and roles.strata is not None
+    required = model_required(data, covariates, strata=use_strata, clusters=True)
+    complete = " AND ".join(f"{c} IS NOT NULL" for c in required)
+    found = data.source.query(
+        f"SELECT COUNT(*) AS k FROM (SELECT _id FROM ({data.clean}) AS checked WHERE "
+        f"_reason IS NULL AND {complete} GROUP BY _id HAVING SUM(_n) > 1 LIMIT 1) AS r"
+    )
+    return int(found["k"].iloc[0]) > 0
 
 
 def with_error_bound(section: dict, concordance) -> dict:

@@ -143,7 +143,9 @@ def cause_specific_from_data(data: AggregatedData, chosen: Mapping) -> list[dict
     out = []
     for cause in data.counts.causes:
         event = f"(CASE WHEN _cause = {literal(cause)} THEN 1 ELSE 0 END)"
-        result, _, _ = cox_from_data(data, model, drop_one=False, event=event, concordance=False)
+        result, _, _ = cox_from_data(
+            data, model, drop_one=False, event=event, concordance=False, clusters=False
+        )
         terms = result.to_dict()["terms"]
         out.append({"cause": cause, "n": result.n, "events": result.events, "terms": terms})
     return out

@@ -3,8 +3,8 @@ reasons and texts: rows read, used and excluded per reason (the first reason a r
 the event coding from the event column's value counts, levels in natural order with the most
 frequent as reference, and the warnings on the rows used. Named causes are
 mapped as ``checks._event_codes`` maps them (``_cause``); start and end dates are turned into
-durations by ``sql_dates``. Roles whose checks are so far written only for rows in memory (an id
-column's episodes) are refused with a ``SettingError`` naming the column.
+durations by ``sql_dates``. An id column's episodes are summarised per id (``_episode_notes``),
+and the checked rows keep the id (``_id``) for the Cox model's choice of variance.
 
 Nothing but small tables comes back: value counts of the coded columns, a few totals, and the
 counts per (reason, group, stratum, time, event, cause) and per (group, stratum, entry time).
@@ -23,7 +23,7 @@ from engine.aggregate.sources import SqlSource
 from engine.aggregate.sql import literal, number, quoted
 from engine.aggregate.sql_dates import dates_in_sql
 from engine.aggregate.sql_filters import filter_outcome, keep_conditions, kept_rows
-from engine.errors import RoleError, SettingError, preview_values
+from engine.errors import RoleError, preview_values
 from engine.prepare.checks import (
     ENTRY_AFTER_EXIT,
     MISSING_COVARIATE,
@@ -115,7 +115,7 @@ def _table_name(stem: str) -> str:
 def _role_columns(roles: Roles) -> list[str]:
     """The columns the checks read."""
     named = (roles.time, roles.start, roles.end, roles.event, roles.group, roles.strata)
-    return [c for c in (*named, roles.entry, *roles.covariates) if c]
+    return [c for c in (*named, roles.entry, roles.id, *roles.covariates) if c]
 
 
 def _factor(from_unit: str, to_unit: str) -> float | None:
@@ -181,7 +181,6 @@ def aggregate_checks(
     for bad roles."""
     sample = source.sample()
     _validate_roles(sample, roles)
-    _refuse_row_level_roles(roles)
     keep = keep_conditions(filters, sample, source)
     rows = kept_rows(source, keep)  # in the rows' order, for the first dates read
     columns = _role_columns(roles) + [f.column for f in filters]
@@ -324,6 +323,13 @@ def aggregate_checks(
         select.append(f"{entry} AS _entry")
     if cause is not None:
         select.append(f"{cause} AS _cause")
+    if roles.id:
+        col = quoted(roles.id)
+        known = f"{col} IS NOT NULL"
+        if pd.api.types.is_float_dtype(sample[roles.id]):
+            known = f"({known} AND NOT {d.is_nan(col)})"
+        select.append(f"(CASE WHEN {known} THEN {col} END) AS _id")
+        select.append(f"(CASE WHEN {known} THEN 1 END) AS _has_id")  # the model's complete cases
     covariate_columns = {}
     for i, column in enumerate(roles.covariates):
         covariate_columns[column] = f"c{i}"
@@ -349,7 +355,8 @@ def aggregate_checks(
     by_group = _group_counts(counts)
     labels = [*_prepared_columns(roles), *(v for lv in levels.values() for v in lv.labels)]
     labels += list(counts.causes or ())
-    notes.extend(_warnings(source, counts, by_group, roles, labels_warning(labels)))
+    id_notes = _episode_notes(source, clean, roles, entry is not None, sample)
+    notes.extend(_warnings(source, counts, by_group, roles, labels_warning(labels), id_notes))
     events = counts.events
     competing = counts.competing
     report = DataReport(
@@ -370,23 +377,9 @@ def aggregate_checks(
     )
 
 
-ROW_LEVEL_ROLES = (("id", "an id column (episodes per subject, robust variance)"),)
-
-
 def _weight_column(source: SqlSource) -> str:
     """The cells' count column, carried into a subquery that ``source.rows()`` reads."""
     return "" if source.weight is None else f", {source.weight}"
-
-
-def _refuse_row_level_roles(roles: Roles) -> None:
-    """Roles whose checks need the rows in memory are refused with the column they name."""
-    for name, what in ROW_LEVEL_ROLES:
-        column = getattr(roles, name)
-        if column:
-            raise SettingError(
-                f"The role of {column!r} ({what}) is not yet checked inside a database; use "
-                "--backend memory for these data, or leave that role out."
-            )
 
 
 def _cause_sql(roles: Roles, present: pd.DataFrame, text: str, event: str) -> str:
@@ -618,7 +611,9 @@ def _prepared_columns(roles: Roles) -> list[str]:
     return [*names, *roles.covariates]
 
 
-def _warnings(source: SqlSource, counts: CountTable, by_group, roles: Roles, hidden) -> list[str]:
+def _warnings(
+    source: SqlSource, counts: CountTable, by_group, roles: Roles, hidden, id_notes=()
+) -> list[str]:
     ex = counts.exits
     times = ex["time"].to_numpy()
     zeros = int((ex.loc[times == 0, "events"] + ex.loc[times == 0, "censored"]).sum())
@@ -636,4 +631,59 @@ def _warnings(source: SqlSource, counts: CountTable, by_group, roles: Roles, hid
         counts=by_group,
         no_group=no_group,
         hidden=hidden,
+        id_notes=id_notes,
     )
+
+
+def _episode_notes(source: SqlSource, clean: str, roles: Roles, has_entry: bool, sample):
+    """``episode_warnings`` on the rows used, from the checked cells: subjects, episodes, the
+    subjects with several rows and those whose episodes overlap (an episode entering before the
+    previous one of the subject left, or identical rows), with the smallest such ids."""
+    from engine.prepare.episodes import EpisodeSummary, episode_warnings
+
+    if not roles.id:
+        return []
+    used = f"SELECT * FROM ({clean}) AS checked WHERE _reason IS NULL AND _id IS NOT NULL"
+    per_id = (
+        f"SELECT _id, SUM(_n) AS n, SUM(CASE WHEN _event = 1 THEN _n ELSE 0 END) AS e "
+        f"FROM ({used}) AS u GROUP BY _id"
+    )
+    row = source.query(
+        f"SELECT COUNT(*) AS subjects, SUM(n) AS episodes, "
+        f"SUM(CASE WHEN n > 1 THEN 1 ELSE 0 END) AS several, MAX(e) AS most FROM ({per_id}) p"
+    ).iloc[0]
+    several = int(row["several"] or 0)
+    if not several:
+        return []
+    text = not (
+        pd.api.types.is_numeric_dtype(sample[roles.id])
+        and not pd.api.types.is_bool_dtype(sample[roles.id])
+    )
+    order = 'p._id COLLATE "C"' if text and source.backend == "postgresql" else "p._id"
+    repeated = source.query(
+        f"SELECT p._id AS v FROM ({per_id}) AS p WHERE n > 1 ORDER BY {order} LIMIT 6"
+    )["v"]
+    overlapping, overlapping_ids = 0, ()
+    if has_entry:
+        before = "LAG(_time) OVER (PARTITION BY _id ORDER BY _entry, _time)"
+        bad = (
+            f"SELECT DISTINCT _id FROM (SELECT _id, _n, _entry, {before} AS previous FROM "
+            f"({used}) AS u) AS w WHERE _n > 1 OR _entry < previous"
+        )
+        overlapping = int(source.query(f"SELECT COUNT(*) AS k FROM ({bad}) AS b")["k"].iloc[0])
+        if overlapping:
+            overlapping_ids = tuple(
+                _plain(v)
+                for v in source.query(f"SELECT p._id AS v FROM ({bad}) AS p ORDER BY {order} "
+                                      "LIMIT 5")["v"]
+            )  # fmt: skip
+    summary = EpisodeSummary(
+        subjects=int(row["subjects"]),
+        episodes=int(row["episodes"]),
+        subjects_with_several=several,
+        most_events=int(row["most"] or 0),
+        overlapping=overlapping,
+        overlapping_ids=overlapping_ids,
+        repeated_ids=tuple(_plain(v) for v in repeated),
+    )
+    return episode_warnings(summary, roles.id, has_entry)

@@ -43,17 +43,19 @@ def sql_design(
     reference=None,
     strata: str | None = None,
     event: str = "_event",
+    clusters: bool = False,
 ) -> tuple[Design, str, np.ndarray, tuple[str, ...]]:
     """The design, the SQL of the model's rows (``_s``, ``_time``, ``_event``, ``_entry`` and
     the scaled columns ``z0``, ``z1``, ...), the scaled columns' bounds and the terms left out
     as not estimable within the strata of the column ``strata`` (as ``fit_cox`` does).
-    ``event`` is the SQL of the event (1) or not (0): a cause-specific model's cause."""
+    ``event`` is the SQL of the event (1) or not (0): a cause-specific model's cause. With
+    ``clusters`` the rows without an id are left out, as ``fit_cox(clusters=...)`` does."""
     source, cols = data.source, data.covariate_columns
     covariates = list(dict.fromkeys(covariates))
     reference = dict(reference or {})
     categorical = set(categorical)
-    required = (["_strata"] if strata else []) + [cols[c] for c in covariates]
-    names = (["_strata"] if strata else []) + covariates
+    required = model_required(data, covariates, strata=bool(strata), clusters=clusters)
+    names = (["_strata"] if strata else []) + (["_id"] if clusters else []) + covariates
     cells = model_cells(data, required, event)
     missing = ", ".join(
         f"SUM(CASE WHEN {c} IS NULL THEN _n ELSE 0 END) AS m{i}" for i, c in enumerate(required)
@@ -205,6 +207,13 @@ def _within_strata_constant(source, model_rows: str, columns: list[str], center)
         ]
     )
     return constant_in_every_group(spread, center)
+
+
+def model_required(data: AggregatedData, covariates, *, strata: bool, clusters: bool) -> list:
+    """The checked cells' columns a model row must have: strata, id, then the covariates (the
+    order of ``fit_cox``'s complete cases and of its rows dropped per variable)."""
+    columns = [data.covariate_columns[c] for c in covariates]
+    return (["_strata"] if strata else []) + (["_has_id"] if clusters else []) + columns
 
 
 def model_cells(data: AggregatedData, columns: Sequence[str], event: str = "_event") -> str:

@@ -15,6 +15,7 @@ usual remedy when the proportional-hazards check fails for that variable.
 
 from __future__ import annotations
 
+import heapq
 import itertools
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -75,9 +76,19 @@ def episode_summary(ids, time, event, entry=None) -> EpisodeSummary:
         subjects_with_several=int((counts > 1).sum()),
         most_events=int(events.max()) if len(events) else 0,
         overlapping=len(bad),
-        overlapping_ids=tuple(uniques[bad][:5]),
-        repeated_ids=tuple(uniques[counts > 1][:6]),
+        overlapping_ids=smallest_ids(uniques[bad], 5),
+        repeated_ids=smallest_ids(uniques[counts > 1], 6),
     )
+
+
+def smallest_ids(ids, k: int) -> tuple:
+    """The ``k`` smallest ids (numbers by value, text by code point): examples that do not
+    depend on the rows' order, so a database, which keeps none, shows the same ones."""
+    values = list(ids)
+    try:
+        return tuple(heapq.nsmallest(k, values))
+    except TypeError:  # mixed kinds in one column
+        return tuple(heapq.nsmallest(k, values, key=lambda v: (type(v).__name__, str(v))))
 
 
 def episode_warnings(summary: EpisodeSummary, id_column: str, has_entry: bool) -> list[str]:

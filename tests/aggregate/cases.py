@@ -267,3 +267,17 @@ def awkward_names(seed: int = 5, n: int = 600) -> tuple[pd.DataFrame, Roles]:
         ROLES, time=names["days"], group=names["site"], covariates=(names["age"], "stage")
     )
     return frame, roles
+
+
+ID_ROLES = replace(ROLES, id="pid")
+
+
+def id_frame(seed: int = 6, n: int = 900, *, repeats: bool = True) -> pd.DataFrame:
+    """messy_frame with a subject id: several rows for some subjects (episodes, with the
+    entry times of the roles, some overlapping), or one each; a few rows without an id."""
+    frame = messy_frame(seed, n)
+    rng = np.random.default_rng(seed)
+    ids = rng.integers(0, int(n * 0.7), n) if repeats else rng.permutation(n) + 1000
+    frame["pid"] = ids.astype(float)
+    frame.loc[rng.choice(n, 12, replace=False), "pid"] = np.nan
+    return frame

@@ -77,7 +77,6 @@ def test_text_output_names_the_backend(data, capsys):
         (["--backend", "memory", "--query", "SELECT 1"], "need DATA to be a database address"),
         (["--table", "t"], "need DATA to be a database address"),
         (["--backend", "duckdb", "--filter", "site:at_most:50"], "'site'"),
-        (["--backend", "duckdb", "--id", "ward"], "'ward'"),
     ],
 )
 def test_bad_backend_options_exit_2(data, capsys, extra, message):
@@ -124,3 +123,18 @@ def test_infinite_times_are_excluded_as_in_memory(tmp_path, capsys):
     assert reasons["time not finite"] >= 4
     assert duck["data"] == memory["data"]
     assert_same_json(memory, duck, skip=NOT_FROM_SUMS)
+
+
+def test_an_id_column_on_duckdb_takes_the_robust_model_from_a_sample(tmp_path, capsys):
+    """``--id`` on a backend: the checks and curves from all rows; the Cox model, whose robust
+    variance needs the rows, from the stated sample, as ``computed_with.sample`` says."""
+    from tests.aggregate.cases import id_frame
+
+    path = tmp_path / "ids.parquet"
+    id_frame().to_parquet(path)
+    sample = ["--sample-rows", "500", "--sample-seed", "3"]
+    result = analyze(capsys, str(path), "--backend", "duckdb", "--id", "pid", *sample)
+    assert result["cox"]["variance"] == "robust" and result["cox"]["n"] < 500
+    assert result["computed_with"]["sample"]["sections"] == ["cox"]
+    alone = analyze(capsys, str(path), "--backend", "duckdb", "--id", "pid")
+    assert "not_computed" in alone["cox"] and alone["curves"] == result["curves"]

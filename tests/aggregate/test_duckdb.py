@@ -23,6 +23,7 @@ from tests.aggregate.cases import (
     AWKWARD_TEXTS,
     DATE_ROLES,
     FILTERS,
+    ID_ROLES,
     NONE_ESTIMABLE_ROLES,
     NOT_ESTIMABLE_ROLES,
     ROLES,
@@ -32,6 +33,7 @@ from tests.aggregate.cases import (
     awkward_frame,
     awkward_names,
     dated_frame,
+    id_frame,
     memory_json,
     messy_frame,
     with_ward_terms,
@@ -302,4 +304,30 @@ def test_column_names_with_quotes_and_backslashes(tmp_path):
     frame.to_parquet(path)
     memory = memory_json(frame, roles)
     database = aggregate_json(open_duckdb(path), roles)
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+
+
+@pytest.mark.parametrize("repeats", [True, False])
+def test_an_id_column_gives_memory_checks_and_model(tmp_path, repeats):
+    """With an id column: the episode notes (smallest repeated and overlapping ids) and the
+    rows the model leaves out for a missing id equal memory's; where ids repeat, the robust
+    variance memory then uses is not computed from sums and says so; where each subject has
+    one row, the whole model equals memory's."""
+    frame = id_frame(repeats=repeats)
+    path = tmp_path / "ids.parquet"
+    frame.to_parquet(path)
+    memory = memory_json(frame, ID_ROLES)
+    database = aggregate_json(open_duckdb(path), ID_ROLES)
+    assert database["data"] == memory["data"]
+    notes = " ".join(memory["data"]["warnings"])
+    assert ("repeats" in notes and "overlap in time" in notes) == repeats
+    if repeats:
+        assert memory["cox"]["variance"] == "robust"
+        assert "'pid' repeats" in database["cox"]["not_computed"]
+        assert_same_json(memory, database, skip=(*NOT_FROM_SUMS, ".cox"))
+        model = {"cox": {"variance": "model"}}
+        memory = memory_json(frame, ID_ROLES, model)
+        database = aggregate_json(open_duckdb(path), ID_ROLES, model)
+        assert database["cox"]["concordance_se"] is None  # summed per subject in memory
+    assert memory["cox"]["rows_dropped"]["_id"] > 0  # the rows without an id
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)

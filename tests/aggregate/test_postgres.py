@@ -18,6 +18,7 @@ from tests.aggregate.cases import (
     AWKWARD_TEXTS,
     DATE_ROLES,
     FILTERS,
+    ID_ROLES,
     NONE_ESTIMABLE_ROLES,
     NOT_ESTIMABLE_ROLES,
     ROLES,
@@ -26,6 +27,7 @@ from tests.aggregate.cases import (
     assert_same_json,
     awkward_frame,
     dated_frame,
+    id_frame,
     memory_json,
     messy_frame,
     with_ward_terms,
@@ -144,3 +146,14 @@ def test_texts_with_quotes_and_backslashes_reach_the_database_unchanged(postgres
     )
     assert database["filters"] == memory["filters"]
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+
+
+def test_an_id_column_gives_memory_checks(postgres_url):
+    """Episode notes and the model's choice of variance from the database equal memory's."""
+    frame = id_frame()
+    load_table(postgres_url, "ids", frame)
+    memory = memory_json(frame, ID_ROLES)
+    database = aggregate_json(open_postgres(postgres_url, table="ids"), ID_ROLES)
+    assert database["data"] == memory["data"]
+    assert "'pid' repeats" in database["cox"]["not_computed"]
+    assert_same_json(memory, database, skip=(*NOT_FROM_SUMS, ".cox"))

@@ -18,6 +18,7 @@ from tests.aggregate.cases import (
     AWKWARD_TEXTS,
     DATE_ROLES,
     FILTERS,
+    ID_ROLES,
     NONE_ESTIMABLE_ROLES,
     NOT_ESTIMABLE_ROLES,
     ROLES,
@@ -27,6 +28,7 @@ from tests.aggregate.cases import (
     awkward_frame,
     awkward_names,
     dated_frame,
+    id_frame,
     memory_json,
     messy_frame,
     with_ward_terms,
@@ -122,3 +124,14 @@ def test_column_names_with_quotes_and_backslashes(spark_master, tmp_path):
     memory = memory_json(frame, roles)
     database = aggregate_json(open_spark(path, master=spark_master), roles)
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+
+
+def test_an_id_column_gives_memory_checks(spark_master, tmp_path):
+    """Episode notes and the model's choice of variance from the database equal memory's."""
+    frame = id_frame()
+    frame.to_parquet(tmp_path / "ids.parquet")
+    memory = memory_json(frame, ID_ROLES)
+    database = aggregate_json(open_spark(tmp_path / "ids.parquet", master=spark_master), ID_ROLES)
+    assert database["data"] == memory["data"]
+    assert "'pid' repeats" in database["cox"]["not_computed"]
+    assert_same_json(memory, database, skip=(*NOT_FROM_SUMS, ".cox"))
