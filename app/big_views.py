@@ -120,8 +120,15 @@ def roles_page() -> None:
 
 def curves_page() -> None:
     _, source_id, roles = source_and_roles()
-    source = st.session_state[state.SOURCE]
     result, roles_text = aggregated_or_stop(data.curve_roles(roles), "curves can be drawn")
+    curves_block(source_id, roles_text, roles, result)
+
+
+@st.fragment
+def curves_block(source_id: str, roles_text: str, roles, result) -> None:
+    """The display choices, the figure and the table: a fragment, so a display switch reruns
+    this block from the cached curves and counts, not the page."""
+    source = st.session_state[state.SOURCE]
     report = result.report
     has_group = result.counts.group_labels is not None
     row = st.columns([2, 3, 2])
