@@ -27,7 +27,10 @@ from engine.errors import RoleError
 from engine.json_values import json_float
 from engine.survival.summary import COMPARISON_KEYS, curve_set_json
 
-SAMPLE_HINT = "; run it with --backend memory on the rows (or on a random sample of them)."
+SAMPLE_HINT = (
+    "; run it with --backend memory on the rows, or add --sample-rows N to compute it on a "
+    "random sample of N rows."
+)
 NEEDS_ROWS = {
     "parametric": "Parametric fits need the rows, which stay in the database",
     "landmark": "A landmark analysis is not yet computed from per-time sums",

@@ -17,6 +17,7 @@ from collections.abc import Mapping
 import numpy as np
 from scipy.stats import norm
 
+from engine.aggregate.analysis import SAMPLE_HINT
 from engine.aggregate.counts import CountTable, risk_table, stratum_codes
 from engine.aggregate.sql import literal
 from engine.aggregate.sql_checks import AggregatedData
@@ -27,8 +28,8 @@ from engine.errors import AnalysisError
 
 FINE_GRAY_NOT_COMPUTED = (
     "The Fine–Gray model weights each row that had a competing event by the censoring "
-    "distribution at every later time, which per-time sums of the covariates do not keep; "
-    "run it with --backend memory on the rows (or on a random sample of them)."
+    "distribution at every later time, which per-time sums of the covariates do not keep"
+    + SAMPLE_HINT
 )
 
 
