@@ -228,6 +228,12 @@ POLISH_LIMIT = 1e-4  # as cox.RUNAWAY_STEP: a larger step at the optimum is a ru
 def maximise(likelihood, p, *, start=None, max_iter=50, tol=1e-11, step_tol=1e-9) -> NewtonResult:
     """Newton–Raphson with step halving on ``likelihood(beta) -> LikelihoodTerms`` (p terms):
     the one loop for rows in memory and for per-time sums computed by a database."""
+    given = likelihood
+
+    def likelihood(beta):  # a trial step may overflow (a runaway): it is halved, not shown
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            return given(beta)
+
     beta = np.zeros(p) if start is None else np.asarray(start, dtype=float)
     terms = likelihood(beta)
     null_loglik = terms.loglik if start is None else float("nan")

@@ -109,25 +109,27 @@ def memory_json(frame, roles: Roles, settings=SETTINGS, filters=()) -> dict:
 DATABASE_ONLY_KEYS = frozenset({"concordance_error_bound"})
 
 
-def assert_same_json(a, b, *, rtol=1e-9, path="", skip=()):
-    """Equal structures, numbers within ``rtol`` (None matches None only); ``b`` may have the
-    ``DATABASE_ONLY_KEYS`` besides."""
+def assert_same_json(a, b, *, rtol=1e-9, path="", skip=(), atol=1e-12):
+    """Equal structures, numbers within ``rtol`` (or ``atol``: a statistic that is a small
+    difference of two log-likelihoods carries their rounding); None matches None only; ``b``
+    may have the ``DATABASE_ONLY_KEYS`` besides."""
     if path in skip:
         return
+    same = {"rtol": rtol, "skip": skip, "atol": atol}
     if isinstance(a, dict):
         assert isinstance(b, dict), path
         assert set(a) == set(b) - DATABASE_ONLY_KEYS, (path, set(a) ^ set(b))
         for key in a:
-            assert_same_json(a[key], b[key], rtol=rtol, path=f"{path}.{key}", skip=skip)
+            assert_same_json(a[key], b[key], path=f"{path}.{key}", **same)
     elif isinstance(a, list):
         assert isinstance(b, list) and len(a) == len(b), (path, a, b)
         for i, (x, y) in enumerate(zip(a, b, strict=True)):
-            assert_same_json(x, y, rtol=rtol, path=f"{path}[{i}]", skip=skip)
+            assert_same_json(x, y, path=f"{path}[{i}]", **same)
     elif isinstance(a, bool) or a is None or isinstance(a, str):
         assert a == b, (path, a, b)
     elif isinstance(a, int | float):
         assert isinstance(b, int | float) and not isinstance(b, bool), (path, a, b)
-        assert math.isclose(a, b, rel_tol=rtol, abs_tol=1e-12), (path, a, b)
+        assert math.isclose(a, b, rel_tol=rtol, abs_tol=atol), (path, a, b)
     else:
         assert a == b, (path, a, b)
 

@@ -138,3 +138,28 @@ def test_an_id_column_on_duckdb_takes_the_robust_model_from_a_sample(tmp_path, c
     assert result["computed_with"]["sample"]["sections"] == ["cox"]
     alone = analyze(capsys, str(path), "--backend", "duckdb", "--id", "pid")
     assert "not_computed" in alone["cox"] and alone["curves"] == result["curves"]
+
+
+@pytest.mark.parametrize("backend", ["memory", "duckdb"])
+def test_a_runaway_fit_prints_no_numpy_warnings(tmp_path, backend):
+    """Six rows, three events, three parameters: the Newton steps overflow on the way (and are
+    halved), which used to print numpy's RuntimeWarnings beside the results."""
+    import subprocess
+    import sys
+
+    from tests.aggregate.test_differential import drawn_case
+
+    frame, *_ = drawn_case(1448)
+    path = tmp_path / "tiny.parquet"
+    frame.to_parquet(path)
+    command = [
+        sys.executable, "-m", "app", "analyze", str(path), "--backend", backend,
+        "--time", "days", "--event", "status", "--group", "site", "--covariates", "age,stage",
+        "--categorical", "stage", "--strata", "ward", "--entry", "enrolled",
+        "--filter", "site:not_in:east", "--json", str(tmp_path / "out.json"),
+    ]  # fmt: skip
+    done = subprocess.run(command, capture_output=True, text=True, check=False)
+    assert done.returncode == 0, done.stderr
+    assert done.stderr == ""
+    cox = json.loads((tmp_path / "out.json").read_text())["cox"]
+    assert any("run off to infinity" in w for w in cox["warnings"])
