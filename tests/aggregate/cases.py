@@ -8,6 +8,7 @@ from dataclasses import replace
 import numpy as np
 import pandas as pd
 
+from engine.aggregate.sql import literal
 from engine.prepare.filters import RowFilter
 from engine.prepare.roles import Roles
 
@@ -283,3 +284,19 @@ def id_frame(seed: int = 6, n: int = 900, *, repeats: bool = True) -> pd.DataFra
     frame["pid"] = ids.astype(float)
     frame.loc[rng.choice(n, 12, replace=False), "pid"] = np.nan
     return frame
+
+
+def assert_awkward_texts_unchanged(open_source, frame: pd.DataFrame, skip) -> None:
+    """Every ``AWKWARD_TEXTS`` literal reads back unchanged from a source ``open_source()``
+    opens on ``frame``, and the analysis with ``AWKWARD_FILTERS`` equals memory's."""
+    source = open_source()
+    try:
+        for text in AWKWARD_TEXTS:
+            assert source.query(f"SELECT {literal(text)} AS v")["v"].iloc[0] == text
+    finally:
+        source.close()
+    memory = memory_json(frame, ROLES, filters=AWKWARD_FILTERS)
+    database = aggregate_json(open_source(), ROLES, filters=AWKWARD_FILTERS)
+    assert [c["group"] for c in database["curves"]] == [c["group"] for c in memory["curves"]]
+    assert database["filters"] == memory["filters"]
+    assert_same_json(memory, database, skip=skip)

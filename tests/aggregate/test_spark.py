@@ -10,12 +10,9 @@ import pytest
 
 from app.cli import main
 from engine.aggregate.sources import SourceError, open_spark
-from engine.aggregate.sql import literal
 from engine.analysis.run import run_analysis
 from engine.prepare.checks import prepare
 from tests.aggregate.cases import (
-    AWKWARD_FILTERS,
-    AWKWARD_TEXTS,
     DATE_ROLES,
     FILTERS,
     ID_ROLES,
@@ -24,6 +21,7 @@ from tests.aggregate.cases import (
     ROLES,
     SETTINGS,
     aggregate_json,
+    assert_awkward_texts_unchanged,
     assert_same_json,
     awkward_frame,
     awkward_names,
@@ -105,16 +103,9 @@ def test_texts_with_quotes_and_backslashes_reach_the_database_unchanged(spark_ma
     frame = awkward_frame()
     path = tmp_path / "awkward.parquet"
     frame.to_parquet(path)
-    source = open_spark(path, master=spark_master)
-    try:
-        for text in AWKWARD_TEXTS:
-            assert source.query(f"SELECT {literal(text)} AS v")["v"].iloc[0] == text
-    finally:
-        source.close()
-    memory = memory_json(frame, ROLES, filters=AWKWARD_FILTERS)
-    database = aggregate_json(open_spark(path, master=spark_master), ROLES, filters=AWKWARD_FILTERS)
-    assert database["filters"] == memory["filters"]
-    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+    assert_awkward_texts_unchanged(
+        lambda: open_spark(path, master=spark_master), frame, NOT_FROM_SUMS
+    )
 
 
 def test_column_names_with_quotes_and_backslashes(spark_master, tmp_path):
