@@ -31,18 +31,52 @@ def needs_rows() -> None:
 
 
 def aggregated_or_stop(roles, what: str):
-    """The aggregated data for these roles (with progress shown), or the reason, and stop."""
+    """The aggregated data for these roles (with progress shown and a Stop reading button
+    while the source is read), or the reason, and stop."""
+    from engine.aggregate.sources import SourceError
+
     source, source_id, _ = source_and_roles()
     roles_text = data.roles_key(roles)
+    read = [source_id, roles_text]
+    session = st.session_state
+    if session.get(state.READ_STOPPED) == read:
+        st.info(
+            f"Reading {ui.escape(source.name)} was stopped; the database cancelled the "
+            "statement and nothing was kept.",
+            icon=":material/stop_circle:",
+        )
+        st.button("Read again", key="big_read_again_button", on_click=_read_again)
+        st.stop()
+    stop = st.empty()
+    stop.button(
+        "Stop reading", key="big_stop_reading_button", icon=":material/stop_circle:",
+        on_click=_stop_reading, args=(read,),
+    )  # fmt: skip
     try:
         with st.status(f"Counting {source.name} in {source.backend}…", expanded=False) as status:
             result = bigdata.aggregated(source_id, roles_text, source)
             status.update(label=f"Counted {source.name} in {source.backend}", state="complete")
+    except SourceError as error:  # the database's failure (a timeout, a lost connection)
+        stop.empty()
+        st.error(ui.escape(error), icon=":material/error:")
+        st.stop()
     except Exception as error:
+        stop.empty()
         st.error(f"The column roles need attention before {what}. {ui.escape(error)}")
         st.page_link("views/column_roles.py", label="Fix the column roles", icon=":material/build:")
         st.stop()
+    stop.empty()
     return result, roles_text
+
+
+def _stop_reading(read: list) -> None:
+    """The Stop reading button: its click ends the run (the read in progress is cancelled by
+    the source's ``wait`` hook) and this callback keeps the next runs from reading again."""
+    st.session_state[state.READ_STOPPED] = read
+
+
+def _read_again() -> None:
+    st.session_state.pop(state.READ_STOPPED, None)
 
 
 def rows_caption(report) -> None:

@@ -23,6 +23,7 @@ from urllib.parse import quote, urlsplit, urlunsplit
 import streamlit as st
 
 from app import cli_scale, data, state
+from engine.aggregate.sources import STATEMENT_TIMEOUT
 from engine.errors import HazelError
 from engine.prepare.roles import Roles, suggest_roles
 
@@ -119,6 +120,7 @@ def install_source(session: MutableMapping, source, label: str) -> None:
     suggestions = suggest_roles(source.sample())
     data.forget_source(session)
     session.pop(state.TABLE, None)
+    source.wait = stop_or_rerun
     session[state.SOURCE] = source
     session[state.SOURCE_ID] = uuid.uuid4().hex  # the cache key: a new source never reuses one
     session[state.DATASET_LABEL] = label
@@ -130,6 +132,17 @@ def install_source(session: MutableMapping, source, label: str) -> None:
     session[state.DATA_VERSION] = session.get(state.DATA_VERSION, 0) + 1
     session.pop(state.LOAD_ERROR, None)
     state.clear_page_choices(session, ("roles_", "curves_", "compare_", "model_", "filter_"))
+
+
+def stop_or_rerun() -> None:
+    """Raise Streamlit's stop or rerun when this run should end (its Stop button, a click
+    elsewhere): the source's ``wait`` hook, so a read in progress is cancelled in the
+    database instead of running on after the page has moved on."""
+    from streamlit.runtime.scriptrunner_utils.script_run_context import get_run_yield_check
+
+    check = get_run_yield_check()
+    if check is not None:
+        check()
 
 
 def open_from_folder(session: MutableMapping, folder: Path, name: str) -> str:
@@ -172,9 +185,15 @@ def without_secret(text: str, *secrets: str) -> str:
 
 
 def connect_database(
-    session: MutableMapping, url: str, password: str = "", table: str = "", query: str = ""
+    session: MutableMapping,
+    url: str,
+    password: str = "",
+    table: str = "",
+    query: str = "",
+    statement_timeout: float = STATEMENT_TIMEOUT,
 ) -> None:
-    """Open a PostgreSQL table or read-only query as the data in use; errors never carry the
+    """Open a PostgreSQL table or read-only query as the data in use, each statement stopped
+    by the server after ``statement_timeout`` seconds (0: no limit); errors never carry the
     password (or the URL's own)."""
     from engine.aggregate.sources import SourceError, is_database_url, open_postgres
 
@@ -186,7 +205,12 @@ def connect_database(
             "postgresql://USER@HOST:5432/DATABASE)."
         )
     try:
-        source = open_postgres(full, table=table.strip() or None, query=query.strip() or None)
+        source = open_postgres(
+            full,
+            table=table.strip() or None,
+            query=query.strip() or None,
+            statement_timeout=statement_timeout,
+        )
     except HazelError as error:
         raise SourceError(without_secret(str(error), *secrets)) from None
     install_source(session, source, f"Database {source.name}")

@@ -35,6 +35,13 @@ def add_backend_options(parser: argparse.ArgumentParser) -> None:
         "--query", metavar="SELECT", help="read-only database query (DATA is a database URL)"
     )
     group.add_argument(
+        "--statement-timeout",
+        metavar="SECONDS",
+        type=float,
+        help="a database statement running longer is stopped by the server and the run ends "
+        "with an error (0: no limit; default 600)",
+    )
+    group.add_argument(
         "--spark-master", metavar="URL", default="local[*]", help="Spark master (default local[*])"
     )
     group.add_argument(
@@ -67,6 +74,11 @@ def chosen_backend(args: argparse.Namespace) -> str:
                 "does not apply to it (leave --backend out)."
             )
         return "postgresql"
+    if getattr(args, "statement_timeout", None) is not None:
+        raise BackendUsageError(
+            "--statement-timeout applies to a database address such as "
+            "postgresql://USER@HOST:5432/DB (leave it out for files)."
+        )
     if getattr(args, "table", None) or getattr(args, "query", None):
         raise BackendUsageError(
             "--table and --query need DATA to be a database address such as "
@@ -88,13 +100,21 @@ def chosen_backend(args: argparse.Namespace) -> str:
 
 
 def open_source(args: argparse.Namespace, backend: str):
-    from engine.aggregate.sources import open_duckdb, open_postgres, open_spark
+    from engine.aggregate import sources
 
     if backend == "postgresql":
-        return open_postgres(str(args.data), table=args.table, query=args.query)
+        timeout = args.statement_timeout
+        if timeout is None:
+            timeout = sources.STATEMENT_TIMEOUT
+        return sources.open_postgres(
+            str(args.data),
+            table=args.table,
+            query=args.query,
+            statement_timeout=sources.check_statement_timeout(timeout, "--statement-timeout"),
+        )
     if backend == "spark":
-        return open_spark(args.data, master=args.spark_master)
-    return open_duckdb(args.data, sep=args.sep, decimal=args.decimal)
+        return sources.open_spark(args.data, master=args.spark_master)
+    return sources.open_duckdb(args.data, sep=args.sep, decimal=args.decimal)
 
 
 def memory_computed_with() -> dict:

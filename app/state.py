@@ -65,3 +65,4 @@ PERSISTENT_PREFIXES = (*PERSISTENT_PREFIXES, "baseline_")  # the baseline table 
 # --- big data (app.bigdata): an aggregated source instead of a table in memory ----------------
 SOURCE = "shared_source"  # engine.aggregate.sources.SqlSource in use (its connection inside)
 SOURCE_ID = "shared_source_id"  # a random key naming that source in the caches
+READ_STOPPED = "shared_read_stopped"  # the (source id, roles) whose read the user stopped

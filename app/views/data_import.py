@@ -158,11 +158,22 @@ with database_side:
         )
         relation = st.text_input("Table (schema.table)", key="dbconnect_table")
         query = st.text_area("…or a read-only query (SELECT …)", key="dbconnect_query", height=80)
+        timeout = st.number_input(
+            "Statement timeout (seconds; 0: no limit)",
+            min_value=0,
+            value=int(bigdata.STATEMENT_TIMEOUT),
+            step=60,
+            key="dbconnect_timeout",
+            help="The database stops any read that runs longer. A read in progress can also "
+            "be stopped with the Stop reading button or Streamlit's Stop.",
+        )
         connect = st.form_submit_button("Connect", icon=":material/database:")
     if connect:
         with st.spinner("Connecting to the database…"):
             try:
-                bigdata.connect_database(st.session_state, url, password, relation, query)
+                bigdata.connect_database(
+                    st.session_state, url, password, relation, query, statement_timeout=timeout
+                )
             except HazelError as error:
                 st.session_state[state.LOAD_ERROR] = (
                     f"The database could not be opened: {error} The data in use has not changed."

@@ -10,17 +10,25 @@ from __future__ import annotations
 
 import os
 import re
+import threading
+from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from pathlib import Path
+from typing import TypeVar
 from urllib.parse import urlsplit
 
 import numpy as np
 import pandas as pd
 
 from engine.aggregate.sql import DUCKDB, POSTGRES, SPARK, Dialect, literal, quoted
-from engine.errors import HazelError
+from engine.errors import HazelError, preview_values
 
 SAMPLE_ROWS = 2000
+BOOLEAN_OID = 16  # PostgreSQL's type code of boolean columns
+STATEMENT_TIMEOUT = 600.0  # seconds a database statement may run (--statement-timeout)
+WAIT_SECONDS = 0.1  # how often ``SqlSource.wait`` is asked whether to go on
+CANCEL_SECONDS = 15.0  # how long a cancelled statement is given to stop
+T = TypeVar("T")
 DUCKDB_MEMORY_LIMIT = "3GB"  # DuckDB spills to a temporary folder beyond this
 TEXT_SUFFIXES = {".csv", ".tsv", ".txt", ".tab"}
 PARQUET_SUFFIXES = {".parquet", ".pq"}
@@ -45,6 +53,11 @@ class SqlSource:
     # A column saying how many identical rows each row of ``relation`` stands for (see
     # ``grouped``); None: each row is one.
     weight: str | None = None
+    statement_timeout: float | None = None  # seconds; PostgreSQL stops a longer statement
+    # Called about every WAIT_SECONDS, in the calling thread, while a statement runs in a
+    # worker thread; an exception it raises cancels the statement and is raised in its place
+    # (the app's stop). None: statements run in the calling thread.
+    wait: Callable[[], None] | None = field(default=None, repr=False)
 
     def rows(self) -> str:
         """The SQL aggregate counting rows."""
@@ -83,6 +96,45 @@ class SqlSource:
         return replace(self, relation=kept, weight="_hazel_rows")
 
     def query(self, sql: str) -> pd.DataFrame:
+        return self._watched(lambda: self._query(sql))
+
+    def cancel(self) -> None:
+        """Stop the statement running now, from any thread (the server stops it)."""
+        if self.backend == "postgresql":
+            self.connection.cancel_safe(timeout=10)
+        elif self.backend == "duckdb":
+            self.connection.interrupt()
+        elif self.backend == "spark":
+            self.connection.sparkContext.cancelAllJobs()
+
+    def _watched(self, work: Callable[[], T]) -> T:
+        """``work()``, in a worker thread while ``wait`` is called, when ``wait`` is set."""
+        if self.wait is None:
+            return work()
+        outcome: dict = {}
+
+        def run() -> None:
+            try:
+                outcome["value"] = work()
+            except BaseException as exc:  # handed to the calling thread
+                outcome["error"] = exc
+
+        worker = threading.Thread(target=run, name="hazel-database-read", daemon=True)
+        worker.start()
+        try:
+            while worker.is_alive():
+                worker.join(WAIT_SECONDS)
+                if worker.is_alive():
+                    self.wait()
+        except BaseException:
+            self.cancel()
+            worker.join(CANCEL_SECONDS)  # the connection is free again once it has stopped
+            raise
+        if "error" in outcome:
+            raise outcome["error"]
+        return outcome["value"]
+
+    def _query(self, sql: str) -> pd.DataFrame:
         try:
             if self.backend == "duckdb":
                 return self.connection.execute(sql).df()
@@ -92,17 +144,44 @@ class SqlSource:
                 cursor.execute(sql)
                 rows = cursor.fetchall()
                 columns = [c.name for c in cursor.description]
-            return _typed(pd.DataFrame(rows, columns=columns))
+                booleans = {c.name for c in cursor.description if c.type_code == BOOLEAN_OID}
+            return _typed(_named_once(pd.DataFrame(rows, columns=columns), self.name), booleans)
         except HazelError:
             raise
         except Exception as exc:  # the database's own message says what failed
             if self.backend == "postgresql":
                 self.connection.rollback()
-            message = " ".join(str(exc).split())
-            raise SourceError(
-                f"The {self.backend} query on {self.name} failed: {message}. Check the table "
-                "or query and the column roles."
-            ) from exc
+            raise SourceError(self._failure(exc)) from exc
+
+    def _failure(self, exc: Exception) -> str:
+        """What went wrong, in one sentence without the database's echo of the SQL."""
+        state = getattr(exc, "sqlstate", None)
+        reason = _reason(exc)
+        if state == "57014":  # query_canceled: the statement timeout or a cancel
+            if "timeout" in reason:
+                return (
+                    f"The database stopped reading {self.name} after the statement timeout "
+                    f"of {_seconds(self.statement_timeout)}; allow more time (--statement-timeout "
+                    "SECONDS on the command line, the Statement timeout of the app's database "
+                    "connection; 0 for no limit) or read fewer rows."
+                )
+            return f"The database read of {self.name} was cancelled."
+        if state == "42P01" and not self.name.endswith("(query)"):  # undefined_table
+            return (
+                f"Reading {self.name}: the database has no such table ({reason}); check the "
+                "table name (schema.table for a table outside the default schema)."
+            )
+        if state == "42501":  # insufficient_privilege
+            return (
+                f"Reading {self.name}: the database user may not read it ({reason}); ask the "
+                "database's administrator for read access."
+            )
+        if state is not None and state[:2] in ("42", "22"):  # the query's text or its values
+            return f"Reading {self.name}: the database cannot run the query ({reason}); check it."
+        return (
+            f"The {self.backend} query on {self.name} failed: {reason}. Check the table or "
+            "query and the column roles."
+        )
 
     def query_columns(self, sql: str) -> dict[str, np.ndarray]:
         """``query``'s result as arrays, for results of millions of rows: DuckDB hands over its
@@ -110,7 +189,7 @@ class SqlSource:
         or None."""
         if self.backend == "duckdb":
             try:
-                columns = self.connection.execute(sql).fetchnumpy()
+                columns = self._watched(lambda: self.connection.execute(sql).fetchnumpy())
             except Exception:
                 pass  # ``query`` runs it again, for its error message
             else:
@@ -125,11 +204,12 @@ class SqlSource:
         rows."""
         try:
             if self.backend == "duckdb":
-                self.connection.execute(f"CREATE OR REPLACE TEMP TABLE {name} AS {sql}")
+                create = f"CREATE OR REPLACE TEMP TABLE {name} AS {sql}"
+                self._watched(lambda: self.connection.execute(create))
                 return name
             if self.backend == "spark":
                 frame = self.connection.sql(sql).cache()
-                frame.count()  # computed once, here
+                self._watched(frame.count)  # computed once, here
                 frame.createOrReplaceTempView(name)
                 self.kept.append(frame)
                 return name
@@ -178,8 +258,37 @@ def _unmasked(values):
     return np.where(values.mask, None, values.data).astype(object)
 
 
-def _typed(frame: pd.DataFrame) -> pd.DataFrame:
-    """Decimal columns (PostgreSQL numeric) as floats, as a file reader would give them."""
+def _reason(exc: Exception) -> str:
+    """A database error's own message on one line, without the SQL it may echo (PostgreSQL's
+    and DuckDB's ``LINE 1: SELECT ... ^``, Spark's query context)."""
+    diag = getattr(exc, "diag", None)
+    text = getattr(diag, "message_primary", None) or str(exc)
+    text = re.split(r"\n\s*(?:LINE \d+:|== SQL)", text)[0]
+    return " ".join(text.split()).rstrip(".") or type(exc).__name__
+
+
+def _seconds(value: float | None) -> str:
+    return "no limit" if not value else f"{value:g} s"
+
+
+def _named_once(frame: pd.DataFrame, name: str) -> pd.DataFrame:
+    """A query's result refused when it names a column twice (``SELECT *, arm``)."""
+    repeated = list(dict.fromkeys(frame.columns[frame.columns.duplicated()]))
+    if repeated:
+        raise SourceError(
+            f"{name} has more than one column named {preview_values(repeated)}; give each "
+            "column its own name in the query (for example arm AS arm_2)."
+        )
+    return frame
+
+
+def _typed(frame: pd.DataFrame, booleans=()) -> pd.DataFrame:
+    """Decimal columns (PostgreSQL numeric) as floats, as a file reader would give them, and
+    boolean columns as true/false columns (nullable where a value is missing, as DuckDB gives
+    them) even when the first rows hold no value."""
+    for column in booleans:
+        values = frame[column]
+        frame[column] = values.astype("boolean" if values.isna().any() else bool)
     for column in frame.columns:
         if frame[column].dtype == object:
             present = frame[column].dropna()
@@ -287,9 +396,31 @@ def is_database_url(text: str) -> bool:
     return bool(POSTGRES_URL.match(str(text)))
 
 
-def open_postgres(url: str, *, table: str | None = None, query: str | None = None) -> SqlSource:
+def check_statement_timeout(seconds, what: str = "The statement timeout") -> float:
+    """The statement timeout in seconds (0: no limit), refused unless a number from 0 up."""
+    try:
+        value = float(seconds)
+    except (TypeError, ValueError):
+        value = float("nan")
+    if not (np.isfinite(value) and value >= 0):
+        shown = f"{seconds:g}" if isinstance(seconds, int | float) else repr(seconds)
+        raise SourceError(
+            f"{what} must be a number of seconds, 0 or more (0: no limit); got {shown}."
+        )
+    return value
+
+
+def open_postgres(
+    url: str,
+    *,
+    table: str | None = None,
+    query: str | None = None,
+    statement_timeout: float = STATEMENT_TIMEOUT,
+) -> SqlSource:
     """A table or a read-only query of a PostgreSQL database (``postgresql://USER@HOST:PORT/DB``);
-    the session is read-only, so nothing can be written through Hazel."""
+    the session is read-only, so nothing can be written through Hazel. A statement running
+    longer than ``statement_timeout`` seconds (0: no limit) is stopped by the server."""
+    timeout = check_statement_timeout(statement_timeout)
     if (table is None) == (query is None):
         raise SourceError(
             'A database needs exactly one of --table NAME or --query "SELECT ..."; got '
@@ -319,18 +450,50 @@ def open_postgres(url: str, *, table: str | None = None, query: str | None = Non
         connection = psycopg.connect(url, connect_timeout=10)
         connection.execute("SET SESSION CHARACTERISTICS AS TRANSACTION READ ONLY")
         connection.execute("SET TIME ZONE 'UTC'")  # times with a zone read as UTC, as in memory
+        milliseconds = max(1, round(timeout * 1000)) if timeout else 0
+        connection.execute(
+            "SELECT set_config('statement_timeout', %s, false)", (f"{milliseconds}ms",)
+        )
         connection.commit()
         version = connection.execute("SHOW server_version").fetchone()[0]
     except psycopg.Error as exc:
-        message = " ".join(str(exc).split()) or type(exc).__name__
-        raise SourceError(
-            f"Could not connect to the database {name}: {message}. Check the address, the "
-            "port, the user and that the server is running."
-        ) from exc
+        raise SourceError(_connection_failure(name, exc)) from exc
     shown = f"{name} {table}" if table else f"{name} (query)"
-    source = SqlSource("postgresql", version, POSTGRES, relation, shown, connection)
+    source = SqlSource(
+        "postgresql", version, POSTGRES, relation, shown, connection, statement_timeout=timeout
+    )
     source.sample()  # a missing table or a bad query fails here, with the database's reason
     return source
+
+
+def _connection_failure(name: str, exc: Exception) -> str:
+    """Why the server refused a connection, in one sentence that says what to check."""
+    message = " ".join(str(exc).split()) or type(exc).__name__
+    detail = message.split("FATAL:", 1)[-1].strip()
+    if re.search(r"password", detail, re.I):
+        user = re.search(r'for user "([^"]*)"', detail)
+        refused = (
+            f"the server refused the password for the user {user.group(1)!r}"
+            if user
+            else "the server asks for a password and none was given"
+        )
+        return (
+            f"Could not connect to the database {name}: {refused}. Check the password (and "
+            "the user name); it can be given in the address, the app's password field, "
+            "PGPASSWORD or .pgpass."
+        )
+    missing = re.search(r'(database|role) "([^"]*)" does not exist', detail)
+    if missing:
+        what = "database" if missing.group(1) == "database" else "user"
+        return (
+            f"Could not connect to the database {name}: the server has no {what} "
+            f"{missing.group(2)!r}. Check the {what} name in the address."
+        )
+    detail = detail.rstrip(". ") + ("" if detail.rstrip(". ").endswith("?") else ".")
+    return (
+        f"Could not connect to the database {name}: {detail} Check the address, the port, the "
+        "user, the password and that the server is running."
+    )
 
 
 SPARK_VIEW = "hazel_source"

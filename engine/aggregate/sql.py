@@ -76,6 +76,13 @@ class Dialect:
             return f"make_timestamp(epoch_us({instant}))"
         return f"CAST({expr} AS TIMESTAMP)"
 
+    def smallest(self, expr: str, boolean: bool = False) -> str:
+        """``MIN(expr)``; PostgreSQL has no MIN of true/false values, whose smallest is their
+        AND (false before true, as in DuckDB and Spark)."""
+        if boolean and self.name == "postgres":
+            return f"BOOL_AND({expr})"
+        return f"MIN({expr})"
+
     def total(self, expr: str) -> str:
         """An accurate sum of doubles (compensated where the database offers it)."""
         return f"fsum({expr})" if self.name == "duckdb" else f"SUM({expr})"

@@ -219,7 +219,8 @@ def aggregate_checks(
     else:
         col = quoted(roles.event)
         values = source.query(
-            f"SELECT {d.text(col)} AS k, MIN({col}) AS v, {source.rows()} AS n "
+            f"SELECT {d.text(col)} AS k, {d.smallest(col, _is_boolean(sample, roles.event))} "
+            f"AS v, {source.rows()} AS n "
             f"FROM {source.relation} "
             "GROUP BY 1"
         )
@@ -310,7 +311,7 @@ def aggregate_checks(
             conditions.append((f"{covariate_sql[column]} IS NULL", MISSING_COVARIATE))
 
     if coded:
-        levels = _levels(source, coded, roles)
+        levels = _levels(source, coded, roles, sample)
     stats = _totals(source, totals)
     _check_numbers(sample, stats, roles)
 
@@ -419,7 +420,11 @@ def _full_kind(source: SqlSource, column: str, roles: Roles) -> str:
     return "categorical" if column in roles.categorical else kind
 
 
-def _levels(source: SqlSource, coded: dict, roles: Roles) -> dict:
+def _is_boolean(sample: pd.DataFrame, column: str) -> bool:
+    return pd.api.types.is_bool_dtype(sample[column])
+
+
+def _levels(source: SqlSource, coded: dict, roles: Roles, sample: pd.DataFrame) -> dict:
     """Levels of each coded column from one GROUPING SETS pass: natural order, and for a
     covariate its reference first (given, or the most frequent, natural-order tie break)."""
     d = source.dialect
@@ -429,7 +434,9 @@ def _levels(source: SqlSource, coded: dict, roles: Roles) -> dict:
     )
     keys = ", ".join(f"k{i}" for i in range(len(names)))
     flags = ", ".join(f"GROUPING(k{i}) AS g{i}" for i in range(len(names)))
-    mins = ", ".join(f"MIN(v{i}) AS v{i}" for i in range(len(names)))
+    mins = ", ".join(
+        f"{d.smallest(f'v{i}', _is_boolean(sample, c))} AS v{i}" for i, c in enumerate(names)
+    )
     sets = ", ".join(f"(k{i})" for i in range(len(names)))
     sql = (
         f"SELECT {flags}, {keys}, {mins}, {source.rows()} AS n FROM (SELECT {inner}"

@@ -300,3 +300,18 @@ def assert_awkward_texts_unchanged(open_source, frame: pd.DataFrame, skip) -> No
     assert [c["group"] for c in database["curves"]] == [c["group"] for c in memory["curves"]]
     assert database["filters"] == memory["filters"]
     assert_same_json(memory, database, skip=skip)
+
+
+def boolean_frame(seed: int = 7, n: int = 900) -> pd.DataFrame:
+    """``messy_frame`` with true/false columns: the event (``died``, some missing) and the
+    group (``treated``), a normal coding of both."""
+    rng = np.random.default_rng(seed)
+    frame = messy_frame(seed, n).drop(columns=["status"])
+    died = pd.Series(rng.random(n) < 0.6, dtype=object)
+    died[rng.permutation(n)[:12]] = None
+    frame["died"] = died
+    frame["treated"] = rng.random(n) < 0.5
+    return frame
+
+
+BOOLEAN_ROLES = replace(ROLES, event="died", group="treated")

@@ -15,6 +15,8 @@ from pathlib import Path
 
 import pytest
 
+PASSWORD_USER, PASSWORD = "hazel_password", "Quince-4471"
+
 
 def _server_binaries() -> Path | None:
     found = sorted(glob.glob("/usr/lib/postgresql/*/bin/pg_ctl"))
@@ -50,6 +52,10 @@ def postgres_url():
     )
     try:
         run(str(binaries / "initdb"), "-D", str(data), "-A", "trust", "-U", "hazel", "-E", "UTF8")
+        rules = data / "pg_hba.conf"  # the first matching line wins: one user needs a password
+        rules.write_text(
+            f"host all {PASSWORD_USER} 127.0.0.1/32 scram-sha-256\n{rules.read_text()}"
+        )
         options = f"-h 127.0.0.1 -p {port} -k {folder} -c fsync=off"
         run(str(binaries / "pg_ctl"), "-D", str(data), "-o", options, "-w", "-l",
             str(folder / "log"), "start")  # fmt: skip
@@ -68,9 +74,20 @@ def postgres_url():
         shutil.rmtree(folder, ignore_errors=True)
 
 
+@pytest.fixture(scope="session")
+def password_url(postgres_url):
+    """The test server's address for a user who must give a password (``PASSWORD``)."""
+    import psycopg
+
+    with psycopg.connect(postgres_url, autocommit=True) as connection:
+        connection.execute(f"CREATE ROLE {PASSWORD_USER} LOGIN PASSWORD '{PASSWORD}'")
+    return postgres_url.replace("hazel@", f"{PASSWORD_USER}@")
+
+
 def load_table(url: str, name: str, frame) -> None:
-    """Create ``name`` from a pandas frame (text, double precision and timestamp columns, with
-    or without a time zone; NaN and NaT as NULL)."""
+    """Create ``name`` from a pandas frame (text, boolean, double precision and timestamp
+    columns, with or without a time zone; NaN, NaT and None as NULL)."""
+    import numpy as np
     import pandas as pd
     import psycopg
 
@@ -80,6 +97,11 @@ def load_table(url: str, name: str, frame) -> None:
     for column in frame.columns:
         values = frame[column]
         kind = "DOUBLE PRECISION" if pd.api.types.is_numeric_dtype(values) else "TEXT"
+        present = values.dropna()
+        if pd.api.types.is_bool_dtype(values) or (
+            len(present) and all(isinstance(v, bool | np.bool_) for v in present)
+        ):
+            kind = "BOOLEAN"
         if pd.api.types.is_datetime64_any_dtype(values):
             kind = "TIMESTAMPTZ" if getattr(values.dt, "tz", None) is not None else "TIMESTAMP"
         columns.append(f"{quoted(column)} {kind}")

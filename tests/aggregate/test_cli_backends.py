@@ -77,6 +77,7 @@ def test_text_output_names_the_backend(data, capsys):
         (["--backend", "memory", "--query", "SELECT 1"], "need DATA to be a database address"),
         (["--table", "t"], "need DATA to be a database address"),
         (["--backend", "duckdb", "--filter", "site:at_most:50"], "'site'"),
+        (["--statement-timeout", "5"], "--statement-timeout applies to a database address"),
     ],
 )
 def test_bad_backend_options_exit_2(data, capsys, extra, message):

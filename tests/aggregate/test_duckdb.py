@@ -19,6 +19,7 @@ from engine.io.tables import read_table
 from engine.prepare.checks import prepare
 from engine.prepare.filters import FilterError, RowFilter
 from tests.aggregate.cases import (
+    BOOLEAN_ROLES,
     DATE_ROLES,
     FILTERS,
     ID_ROLES,
@@ -31,6 +32,7 @@ from tests.aggregate.cases import (
     assert_same_json,
     awkward_frame,
     awkward_names,
+    boolean_frame,
     dated_frame,
     id_frame,
     memory_json,
@@ -314,3 +316,41 @@ def test_an_id_column_gives_memory_checks_and_model(tmp_path, repeats):
         assert database["cox"]["concordance_se"] is None  # summed per subject in memory
     assert memory["cox"]["rows_dropped"]["_id"] > 0  # the rows without an id
     assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+
+
+@pytest.mark.parametrize("suffix", [".parquet", ".csv"])
+def test_true_false_event_and_group_columns_give_memory_numbers(tmp_path, suffix):
+    path = tmp_path / f"booleans{suffix}"
+    frame = boolean_frame()
+    frame.to_parquet(path) if suffix == ".parquet" else frame.to_csv(path, index=False)
+    memory, database = both(path, BOOLEAN_ROLES)
+    assert database["data"] == memory["data"]
+    assert memory["data"]["events"] > 0
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)
+
+
+def test_a_stop_while_reading_interrupts_duckdb(tmp_path):
+    """``SqlSource.wait`` raising stops a long DuckDB statement (interrupted, not run on)."""
+    import time
+
+    class Stopped(BaseException):
+        pass
+
+    path = tmp_path / "one.csv"
+    path.write_text("t,e\n1,1\n")
+    source = open_duckdb(path)
+    started = time.monotonic()
+
+    def wait():
+        if time.monotonic() - started > 0.5:
+            raise Stopped
+
+    source.wait = wait
+    try:
+        with pytest.raises(Stopped):
+            source.query("SELECT SUM(hash(i)) AS s FROM range(100000000000) AS r(i)")
+        assert time.monotonic() - started < 10
+        source.wait = None
+        assert source.query("SELECT COUNT(*) AS n FROM " + source.relation)["n"][0] == 1
+    finally:
+        source.close()

@@ -13,6 +13,7 @@ from engine.aggregate.sources import SourceError, open_spark
 from engine.analysis.run import run_analysis
 from engine.prepare.checks import prepare
 from tests.aggregate.cases import (
+    BOOLEAN_ROLES,
     DATE_ROLES,
     FILTERS,
     ID_ROLES,
@@ -25,6 +26,7 @@ from tests.aggregate.cases import (
     assert_same_json,
     awkward_frame,
     awkward_names,
+    boolean_frame,
     dated_frame,
     id_frame,
     memory_json,
@@ -126,3 +128,13 @@ def test_an_id_column_gives_memory_checks(spark_master, tmp_path):
     assert database["data"] == memory["data"]
     assert "'pid' repeats" in database["cox"]["not_computed"]
     assert_same_json(memory, database, skip=(*NOT_FROM_SUMS, ".cox"))
+
+
+def test_true_false_event_and_group_columns_give_memory_numbers(spark_master, tmp_path):
+    frame = boolean_frame()
+    frame.to_parquet(tmp_path / "booleans.parquet")
+    memory = memory_json(frame, BOOLEAN_ROLES)
+    source = open_spark(tmp_path / "booleans.parquet", master=spark_master)
+    database = aggregate_json(source, BOOLEAN_ROLES)
+    assert database["data"] == memory["data"]
+    assert_same_json(memory, database, skip=NOT_FROM_SUMS)

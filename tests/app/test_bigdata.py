@@ -202,6 +202,81 @@ def test_a_database_table_opens_on_the_curves_page(postgres_url, in_url):  # noq
     np.testing.assert_allclose(at.dataframe[0].value["Median"].to_numpy(float), medians, rtol=1e-9)
 
 
+def test_the_connection_form_sets_the_statement_timeout(postgres_url):  # noqa: F811
+    """The form's Statement timeout reaches the session: a query reading longer than it is
+    stopped by the server and the page says so in words."""
+    load_table(postgres_url, "bigapp_slow", invented_rows(800, seed=8))
+    at = AppTest.from_file(ENTRY, default_timeout=180).run()
+    slow = "SELECT * FROM bigapp_slow WHERE pg_sleep(0.005) IS NOT NULL"  # 4 s for 800 rows
+    at.text_input(key="dbconnect_url").set_value(postgres_url)
+    at.text_area(key="dbconnect_query").set_value(slow)
+    at.number_input(key="dbconnect_timeout").set_value(1)
+    at.button[[b.label for b in at.button].index("Connect")].click().run()
+    assert not at.exception, [e.message for e in at.exception]
+    assert state.SOURCE not in at.session_state
+    shown = "\n".join(e.value for e in at.error)
+    assert "after the statement timeout of 1 s" in shown and "Statement timeout" in shown, shown
+    assert "LINE 1" not in shown and "pg_sleep" not in shown
+
+    at.text_input(key="dbconnect_url").set_value(postgres_url)
+    at.text_input(key="dbconnect_table").set_value("bigapp_slow")
+    at.number_input(key="dbconnect_timeout").set_value(7)
+    at.button[[b.label for b in at.button].index("Connect")].click().run()
+    source = at.session_state[state.SOURCE]
+    assert source.statement_timeout == 7 and source.wait is bigdata.stop_or_rerun
+    assert source.query("SHOW statement_timeout")["statement_timeout"][0] == "7s"
+    source.close()
+
+
+def test_a_stop_of_the_run_cancels_the_database_statement(postgres_url, monkeypatch):  # noqa: F811
+    """``stop_or_rerun`` (each source's wait hook) raises Streamlit's stop once the run is
+    asked to end, and the statement it interrupts is cancelled in the server."""
+    import time
+
+    import psycopg
+    from streamlit.runtime.scriptrunner_utils import script_run_context
+    from streamlit.runtime.scriptrunner_utils.exceptions import StopException
+
+    load_table(postgres_url, "bigapp_stop", invented_rows(50))
+    session: dict = {}
+    bigdata.connect_database(session, postgres_url, table="bigapp_stop", statement_timeout=0)
+    source = session[state.SOURCE]
+    started = time.monotonic()
+
+    def stop_requested():  # what Streamlit's check does once Stop was pressed
+        if time.monotonic() - started > 1:
+            raise StopException()
+
+    monkeypatch.setattr(script_run_context, "get_run_yield_check", lambda: stop_requested)
+    with pytest.raises(StopException):
+        source.query("SELECT pg_sleep(32) AS slept")
+    assert time.monotonic() - started < 10
+    with psycopg.connect(postgres_url) as connection:
+        running = connection.execute(
+            "SELECT COUNT(*) FROM pg_stat_activity WHERE query LIKE '%pg_sleep(32)%' "
+            "AND state = 'active' AND pid <> pg_backend_pid()"
+        ).fetchone()[0]
+    assert running == 0
+    source.close()
+
+
+def test_a_stopped_read_waits_for_read_again(folder, monkeypatch):
+    """After Stop reading, the page says the read was stopped and reads nothing until the
+    user asks for it again."""
+    from app import data
+
+    at = _open_big(monkeypatch)
+    read = [at.session_state[state.SOURCE_ID], data.roles_key(data.curve_roles(ROLES))]
+    at.session_state[state.READ_STOPPED] = read
+    at.switch_page("views/curves.py").run()
+    assert not at.exception, [e.message for e in at.exception]
+    assert "was stopped" in "\n".join(i.value for i in at.info)
+    assert not at.dataframe
+    at.button(key="big_read_again_button").click().run()
+    assert not at.exception, [e.message for e in at.exception]
+    assert state.READ_STOPPED not in at.session_state and at.dataframe
+
+
 # --- save and share ----------------------------------------------------------------------------
 
 
