@@ -315,3 +315,36 @@ def boolean_frame(seed: int = 7, n: int = 900) -> pd.DataFrame:
 
 
 BOOLEAN_ROLES = replace(ROLES, event="died", group="treated")
+
+
+class Stopped(BaseException):
+    """A stop of the run, raised as the app's ``SqlSource.wait`` hook raises Streamlit's."""
+
+
+def assert_a_stop_ends_the_read(source, slow_sql: str, running=None) -> None:
+    """``source.wait`` raising after 0.5 s ends ``slow_sql`` (which would run far longer) within
+    10 s; ``running()``, how many sessions run it, is 1 meanwhile and 0 after. The source reads
+    again afterwards. The source is closed."""
+    import time
+
+    import pytest
+
+    started = time.monotonic()
+
+    def wait():
+        if time.monotonic() - started > 0.5:
+            if running is not None:
+                assert running() == 1  # the statement runs until the stop
+            raise Stopped
+
+    source.wait = wait
+    try:
+        with pytest.raises(Stopped):
+            source.query(slow_sql)
+        assert time.monotonic() - started < 10
+        if running is not None:
+            assert running() == 0
+        source.wait = None
+        assert source.query("SELECT 1 AS one")["one"][0] == 1
+    finally:
+        source.close()

@@ -28,6 +28,7 @@ from tests.aggregate.cases import (
     ROLES,
     SETTINGS,
     aggregate_json,
+    assert_a_stop_ends_the_read,
     assert_awkward_texts_unchanged,
     assert_same_json,
     awkward_frame,
@@ -331,26 +332,7 @@ def test_true_false_event_and_group_columns_give_memory_numbers(tmp_path, suffix
 
 def test_a_stop_while_reading_interrupts_duckdb(tmp_path):
     """``SqlSource.wait`` raising stops a long DuckDB statement (interrupted, not run on)."""
-    import time
-
-    class Stopped(BaseException):
-        pass
-
     path = tmp_path / "one.csv"
     path.write_text("t,e\n1,1\n")
-    source = open_duckdb(path)
-    started = time.monotonic()
-
-    def wait():
-        if time.monotonic() - started > 0.5:
-            raise Stopped
-
-    source.wait = wait
-    try:
-        with pytest.raises(Stopped):
-            source.query("SELECT SUM(hash(i)) AS s FROM range(100000000000) AS r(i)")
-        assert time.monotonic() - started < 10
-        source.wait = None
-        assert source.query("SELECT COUNT(*) AS n FROM " + source.relation)["n"][0] == 1
-    finally:
-        source.close()
+    slow = "SELECT SUM(hash(i)) AS s FROM range(100000000000) AS r(i)"
+    assert_a_stop_ends_the_read(open_duckdb(path), slow)

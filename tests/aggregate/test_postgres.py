@@ -24,6 +24,7 @@ from tests.aggregate.cases import (
     ROLES,
     SETTINGS,
     aggregate_json,
+    assert_a_stop_ends_the_read,
     assert_awkward_texts_unchanged,
     assert_same_json,
     awkward_frame,
@@ -244,25 +245,6 @@ def test_the_default_statement_timeout_is_set_in_the_session(postgres_url, messy
 def test_a_stop_while_reading_cancels_the_statement_in_the_database(postgres_url, messy):
     """The app's stop reaches ``SqlSource.wait``: the running statement is cancelled in the
     server (not left running), the stop is raised, and the connection reads again after."""
-
-    class Stopped(BaseException):
-        pass
-
     source = open_postgres(postgres_url, table="messy", statement_timeout=0)
-    started = time.monotonic()
-
-    def wait():
-        assert _running(postgres_url, "pg_sleep(31)") == 1  # it is running meanwhile
-        if time.monotonic() - started > 1:
-            raise Stopped
-
-    source.wait = wait
-    try:
-        with pytest.raises(Stopped):
-            source.query("SELECT pg_sleep(31) AS slept")
-        assert time.monotonic() - started < 10
-        assert _running(postgres_url, "pg_sleep(31)") == 0
-        source.wait = None
-        assert source.query("SELECT COUNT(*) AS n FROM messy")["n"][0] == len(messy)
-    finally:
-        source.close()
+    running = lambda: _running(postgres_url, "pg_sleep(31)")  # noqa: E731
+    assert_a_stop_ends_the_read(source, "SELECT pg_sleep(31) AS slept", running)
