@@ -8,6 +8,7 @@ user name or password.
 
 from __future__ import annotations
 
+import contextlib
 import os
 import re
 import threading
@@ -127,7 +128,8 @@ class SqlSource:
                 if worker.is_alive():
                     self.wait()
         except BaseException:
-            self.cancel()
+            with contextlib.suppress(Exception):  # a lost connection has nothing to cancel
+                self.cancel()
             worker.join(CANCEL_SECONDS)  # the connection is free again once it has stopped
             raise
         if "error" in outcome:

@@ -11,6 +11,7 @@ import pytest
 
 from engine.prepare.checks import prepare
 from engine.prepare.roles import Roles
+from tests.aggregate.conftest import load_table, postgres_url  # noqa: F401  (session fixture)
 from tests.app.browser import ARTIFACTS, demo_page, run_server, wait_until_idle
 
 pytestmark = pytest.mark.browser
@@ -77,3 +78,46 @@ def test_a_parquet_folder_opens_where_it_is_and_draws(folder_server):
     # the caption under the figure (the tables are drawn on a canvas, not as page text)
     assert f"4,000 rows read, 4,000 used, 0 excluded · {events:,} events, " in text
     assert f"{len(frame) - events:,} censored" in text
+
+
+def test_stop_reading_cancels_the_running_database_statement(postgres_url, server):  # noqa: F811
+    """The Stop reading button, clicked while the Column roles page counts a database query,
+    ends the read: the server no longer runs the statement and the page says it was stopped.
+    The query's first 2,000 rows (the sample) come at once; the count reaches a branch that
+    sleeps a minute per row."""
+    import time
+
+    import psycopg
+
+    load_table(postgres_url, "browser_slow", registry())
+    query = (
+        "SELECT * FROM browser_slow UNION ALL "
+        "SELECT * FROM browser_slow WHERE pg_sleep(60) IS NOT NULL"
+    )
+
+    def running() -> int:
+        with psycopg.connect(postgres_url) as connection:
+            return connection.execute(
+                "SELECT COUNT(*) FROM pg_stat_activity WHERE state = 'active' AND "
+                "query LIKE '%pg_sleep(60)%' AND query NOT LIKE '%LIMIT 2000%' "
+                "AND pid <> pg_backend_pid()"
+            ).fetchone()[0]
+
+    with demo_page(server) as (page, errors):
+        page.get_by_role("textbox", name="PostgreSQL address").fill(postgres_url)
+        page.get_by_role("textbox", name="…or a read-only query (SELECT …)").fill(query)
+        page.get_by_role("button", name="Connect").click()
+        page.get_by_text("Big data in use").first.wait_for(timeout=60_000)
+        wait_until_idle(page)
+        page.get_by_role("link", name="Column roles").first.click()
+        stop = page.locator(".st-key-big_stop_reading_button button")
+        stop.wait_for(timeout=60_000)
+        deadline = time.monotonic() + 30
+        while running() == 0 and time.monotonic() < deadline:
+            time.sleep(0.2)
+        assert running() == 1  # the count is running in the database
+        stop.click()
+        page.get_by_text("was stopped", exact=False).first.wait_for(timeout=15_000)
+        assert running() == 0
+        page.screenshot(path=str(ARTIFACTS / "bigdata_stopped.png"), full_page=True)
+        assert errors == []
