@@ -168,7 +168,8 @@ class SqlSource:
                     "connection; 0 for no limit) or read fewer rows."
                 )
             return f"The database read of {self.name} was cancelled."
-        if state == "42P01" and not self.name.endswith("(query)"):  # undefined_table
+        from_query = self.name.endswith("(query)")  # a user's --query, not a table
+        if state == "42P01" and not from_query:  # undefined_table
             return (
                 f"Reading {self.name}: the database has no such table ({reason}); check the "
                 "table name (schema.table for a table outside the default schema)."
@@ -178,7 +179,7 @@ class SqlSource:
                 f"Reading {self.name}: the database user may not read it ({reason}); ask the "
                 "database's administrator for read access."
             )
-        if state is not None and state[:2] in ("42", "22"):  # the query's text or its values
+        if from_query and state is not None and state[:2] in ("42", "22"):  # its text or values
             return f"Reading {self.name}: the database cannot run the query ({reason}); check it."
         return (
             f"The {self.backend} query on {self.name} failed: {reason}. Check the table or "

@@ -303,18 +303,21 @@ def assert_awkward_texts_unchanged(open_source, frame: pd.DataFrame, skip) -> No
 
 
 def boolean_frame(seed: int = 7, n: int = 900) -> pd.DataFrame:
-    """``messy_frame`` with true/false columns: the event (``died``, some missing) and the
-    group (``treated``), a normal coding of both."""
+    """``messy_frame`` with true/false columns: the event (``died``, some missing), the group
+    (``treated``) and the strata (``night``, some missing), a normal coding of each."""
     rng = np.random.default_rng(seed)
     frame = messy_frame(seed, n).drop(columns=["status"])
     died = pd.Series(rng.random(n) < 0.6, dtype=object)
     died[rng.permutation(n)[:12]] = None
     frame["died"] = died
     frame["treated"] = rng.random(n) < 0.5
+    night = pd.Series(rng.random(n) < 0.3, dtype=object)
+    night[rng.permutation(n)[:9]] = None
+    frame["night"] = night
     return frame
 
 
-BOOLEAN_ROLES = replace(ROLES, event="died", group="treated")
+BOOLEAN_ROLES = replace(ROLES, event="died", group="treated", strata="night")
 
 
 class Stopped(BaseException):
