@@ -92,9 +92,11 @@ def main() -> None:
                 f"{chosen.get('roles')!r}\n{options!r}\n{outcome.detail}"
             )
             print(f"  crash at case {len(outcomes)}: kept in {kept}", flush=True)
-        if len(outcomes) % args.cli_every == 0 and "roles" in chosen:
-            roles = chosen["roles"]
-            argv = cli_options(roles) + data.draw(cli_extras(roles))
+        # drawn for every case, used for every K-th: hypothesis needs the same draws on a replay
+        argv = None
+        if "roles" in chosen:
+            argv = cli_options(chosen["roles"]) + data.draw(cli_extras(chosen["roles"]))
+        if len(outcomes) % args.cli_every == 0 and argv is not None:
             code, problem = cli_case(content, name, argv, folder)
             cli[code] += 1
             if problem:
