@@ -269,11 +269,11 @@ CAUSE_MAPS = [
     (("1", "relapse"),),
 ]
 # encodings a user might type, text and not (idna, rot13, base64 ... are codecs, not encodings)
-ENCODINGS = [None] * 10 + [
+ENCODINGS = [None] * 60 + [
     "utf-8", "latin-1", "utf-16", "utf-32", "ascii", "cp1252", "utf-7", "idna", "rot13",
     "base64", "zlib_codec", "hex", "uu", "punycode", "bz2", "mbcs", "no-such-codec", "",
 ]  # fmt: skip
-SEPARATORS = [None] * 10 + [",", ";", "\t", "|", "ab", "", '"', "\n", "."]
+SEPARATORS = [None] * 40 + [",", ";", "\t", "|", "ab", "", '"', "\n", "."]
 
 
 @st.composite
@@ -427,8 +427,8 @@ def cli_case(content: bytes, name: str, options: list[str], folder) -> tuple[int
             code = exit_.code if isinstance(exit_.code, int) else 2
         except _Hang:
             return 1, f"still running after {HANG_SECONDS * 3} s: {options}"
-        except Exception as exc:
-            return 1, f"escaped: {type(exc).__name__}: {exc}"[:200]
+        except Exception:
+            return 1, f"escaped with {options}: {traceback.format_exc(limit=-4)}"
         finally:
             signal.alarm(0)
             signal.signal(signal.SIGALRM, previous)

@@ -101,6 +101,10 @@ def main() -> None:
             cli[code] += 1
             if problem:
                 cli_problems.append(problem)
+                kept = folder / f"cli-{len(outcomes)}"  # the input and the options, to replay it
+                kept.mkdir()
+                (kept / (Path(name).name or "input")).write_bytes(content)
+                (kept / "argv.txt").write_text(f"{argv!r}\n{problem}")
         if len(outcomes) % 500 == 0:
             kinds = Counter(o.kind for o in outcomes)
             print(
