@@ -32,6 +32,7 @@ from engine.errors import HazelError
 from engine.io.tables import ImportOptions, read_table
 from engine.prepare.checks import prepare
 from engine.prepare.roles import TIME_UNITS, Roles, suggest_roles
+from engine.survival.compare import TESTS
 
 HANG_SECONDS = 20  # a case still running after this is cut off and counted as a hang
 # The report's rounding rules cannot yet print values of 1e27 and more (issue 10 item 4, on the
@@ -45,7 +46,11 @@ ODD_TEXT = [
     "1,5", "1.5e3", "inf", "-inf", "Infinity", "-0", "0x1F", "1e30", "1e-310", "1e400", "TRUE",
     "yes", "dead", "alive", "censored", "2", "\u202e%0.001", "\u200b", "\ufeff", "=1+1", "@x",
     "ä", "名前", "😀", '"', "'", ";", ",", "\t", "a\nb", "\x1b[31mred",
+    # levels that look alike: invisible and look-alike characters beside the plain letter
+    "A", "A\u200b", "\u200bA", "A\u200e", "A\u2060", "\u00a0A", "A\u00ad", "\u0391",
 ]  # fmt: skip
+# first values of a date column that name only a year or a month (the rest are full dates)
+PARTIAL_DATES = ["2020", "2020-06", "2020-6", "06/2020", "2020/06", "Jun 2020", "2020-06-01"]
 DATES = [
     "2020-01-01", "2021-06-30", "0001-01-01", "9999-12-31", "1900-01-01", "1677-09-21",
     "2262-04-12", "31/12/2020", "12/31/2020", "01.02.2003", "2020-02-30", "2020-01-01T08:00+01:00",
@@ -80,8 +85,13 @@ def _column(draw, n: int, kind: str | None = None) -> list:
         base = draw(st.sampled_from([1.0, 1e30, 1e-310, 1e-5, 1e5]))
         values = [repr(round(base * (i % 17 + 1) / 3, 3)) for i in range(n)]
     elif kind == "event":
-        codes = draw(st.sampled_from([["0", "1"], ["1", "2"], ["yes", "no"], ["dead", "alive"]]))
-        values = [codes[(i * 7 + 3) % 5 % 2] for i in range(n)]
+        codes = draw(
+            st.sampled_from(
+                [["0", "1"], ["1", "2"], ["yes", "no"], ["dead", "alive"], ["True", "False"],
+                 ["true", "false"], ["0", "1", "2"], ["censored", "relapse", "death"]]
+            )
+        )  # fmt: skip
+        values = [codes[(i * 7 + 3) % 5 % len(codes)] for i in range(n)]
     elif kind == "group":
         levels = draw(st.lists(_cell(), min_size=1, max_size=4))
         values = [levels[i % len(levels)] for i in range(n)]
@@ -90,6 +100,9 @@ def _column(draw, n: int, kind: str | None = None) -> list:
             draw(st.sampled_from(DATES)) if i % 7 == 0 else f"20{10 + i % 10}-0{1 + i % 9}-1{i % 9}"
             for i in range(n)
         ]
+        if n and draw(st.booleans()):  # a partial date first (or further down)
+            at = draw(st.sampled_from([0, 0, min(14, n - 1), n - 1]))
+            values[at] = draw(st.sampled_from(PARTIAL_DATES))
     elif kind == "numeric":
         values = [repr(round(40 + (i * 37 % 23) * 1.3, 1)) for i in range(n)]
     elif kind == "per_row":
@@ -112,7 +125,9 @@ def _column(draw, n: int, kind: str | None = None) -> list:
 @st.composite
 def tables(draw) -> pd.DataFrame:
     """Mostly a usable table (a time, an event, a group) with odd cells and odd extra columns."""
-    n = draw(st.integers(min_value=0, max_value=60))
+    # zero-, one- and few-row tables often: every analysis must say why it cannot run
+    tiny = draw(st.integers(min_value=0, max_value=3)) == 0  # one time in four
+    n = draw(st.integers(min_value=0, max_value=3 if tiny else 60))
     columns: dict[str, list] = {}
     if draw(st.integers(min_value=0, max_value=3)):  # three times in four
         columns["futime"] = draw(_column(n, "time"))
@@ -181,8 +196,13 @@ def parquet_files(draw) -> tuple[bytes, str]:
     for name in frame.columns:
         values = frame[name]
         as_number = pd.to_numeric(values, errors="coerce")
-        kind = draw(st.sampled_from(["text", "number", "list", "struct"]))
-        if kind == "number":
+        kind = draw(st.sampled_from(["text", "number", "list", "struct", "bool"]))
+        if kind == "bool":  # a boolean column (an event as True/False), with a missing cell
+            truth = [str(v).strip().lower() in ("1", "true", "yes", "dead") for v in values]
+            columns[str(name)] = pa.array(
+                [None if i % 11 == 5 else t for i, t in enumerate(truth)], type=pa.bool_()
+            )
+        elif kind == "number":
             columns[str(name)] = pa.array(as_number.to_numpy(dtype=float), type=pa.float64())
         elif kind == "list":
             columns[str(name)] = pa.array([[v, v] if i % 3 else None for i, v in enumerate(values)])
@@ -243,6 +263,185 @@ def files():
 
 # --- roles and settings ---------------------------------------------------------------------------
 
+CAUSE_MAPS = [
+    (("1", "relapse"), ("2", "death")),
+    (("2", "death"), ("1", "relapse")),  # the first cause given is the event of interest
+    (("relapse", "relapse"), ("death", "death")),
+    (("1", "relapse"),),
+]
+# encodings a user might type, text and not (idna, rot13, base64 ... are codecs, not encodings)
+ENCODINGS = [None] * 60 + [
+    "utf-8", "latin-1", "utf-16", "utf-32", "ascii", "cp1252", "utf-7", "idna", "rot13",
+    "base64", "zlib_codec", "hex", "uu", "punycode", "bz2", "mbcs", "no-such-codec", "",
+]  # fmt: skip
+SEPARATORS = [None] * 40 + [",", ";", "\t", "|", "ab", "", '"', "\n", "."]
+
+
+@st.composite
+def import_options(draw) -> ImportOptions:
+    """Mostly detection; sometimes a separator, decimal mark or encoding typed by hand."""
+    return ImportOptions(
+        sep=draw(st.sampled_from(SEPARATORS)),
+        decimal=draw(st.sampled_from([None] * 6 + [".", ",", ";"])),
+        encoding=draw(st.sampled_from(ENCODINGS)),
+    )
+
+
+TIME_LISTS = [[], [], [0.0], [1.0], [1.0, 5.0], [1e9], [5e-324], [3.0, 1.0]]
+
+
+@st.composite
+def analysis_settings(draw, roles: Roles) -> dict:
+    """The core analyses with drawn options, and each optional analysis switched on one time in
+    three, as a user or a recipe might: on one-row, zero-row and odd tables alike each gives a
+    result or says in its own place why it cannot."""
+    chosen = {k: dict(ANALYSIS_DEFAULTS[k]) for k in ("curves", "comparison", "cox")}
+    times = st.sampled_from(TIME_LISTS)
+    chosen["curves"].update(
+        times=draw(times), rmst_horizon=draw(st.sampled_from([None, None, 1.0, 10.0, 1e9]))
+    )
+    chosen["comparison"]["test"] = draw(st.sampled_from(TESTS))
+    if chosen["comparison"]["test"] == "fleming-harrington":
+        chosen["comparison"].update(rho=draw(st.sampled_from([0.0, 1.0])), gamma=1.0)
+    numeric = [c for c in roles.covariates if c not in roles.categorical]
+    chosen["cox"].update(
+        ties=draw(st.sampled_from(["efron", "breslow"])),
+        variance=draw(st.sampled_from(["auto", "auto", "model", "robust"])),
+        ph_time_scale=draw(st.sampled_from(["survival", "rank", "time", "log-time"])),
+    )
+    if numeric and draw(st.integers(min_value=0, max_value=3)) == 0:
+        chosen["cox"]["splines"] = [
+            {"variable": numeric[0], "knots": draw(st.sampled_from([3, 4]))}
+        ]
+    if roles.covariates and draw(st.integers(min_value=0, max_value=3)) == 0:
+        chosen["cox"]["split"] = {"times": draw(st.sampled_from([[1.0], [0.0], [1e9]])),
+                                  "changing": list(roles.covariates[:1])}  # fmt: skip
+
+    def switched_on() -> bool:
+        return draw(st.integers(min_value=0, max_value=2)) == 0
+
+    if switched_on():
+        chosen["parametric"] = {
+            "by_group": draw(st.booleans()),
+            "times": draw(times),
+            "horizon": draw(st.sampled_from([None, 1.0, 1e9])),
+        }
+    if switched_on():
+        chosen["landmark"] = {"time": draw(st.sampled_from([0.0, 0.5, 1.0, 1e9]))}
+    if switched_on():
+        chosen["sample_size"] = {}
+    if switched_on():
+        chosen["baseline"] = {"compare": draw(st.sampled_from([None, "smd", "test"]))}
+    if roles.covariates and switched_on():
+        chosen["performance"] = {
+            "times": draw(st.sampled_from([[1.0], [1.0, 5.0], [1e9], [0.0]])),
+            "calibration_time": draw(st.sampled_from([None, None, 1.0, 1e9])),
+            "replicates": draw(st.sampled_from([0, 0, 3])),
+        }
+    if roles.group and roles.covariates and switched_on():
+        chosen["subgroups"] = {"variables": [roles.covariates[0]]}
+    if roles.event_causes and switched_on():
+        causes = [name for _, name in roles.event_causes]
+        chosen["competing"] = {
+            "times": draw(times),
+            "fine_gray": draw(st.sampled_from([None, causes[0], causes[-1], "no such cause"])),
+        }
+    return chosen
+
+
+def cli_options(roles: Roles) -> list[str]:
+    """The command-line options for a set of roles (the ones ``analyze`` takes)."""
+    options = []
+    if roles.time:
+        options += ["--time", roles.time]
+    if roles.start and roles.end:
+        options += ["--start", roles.start, "--end", roles.end]
+    if roles.event:
+        options += ["--event", roles.event]
+    for value in roles.event_values:
+        options += ["--event-value", str(value)]
+    for value, cause in roles.event_causes:
+        options += ["--competing", f"{value}={cause}"]
+    if roles.group:
+        options += ["--group", roles.group]
+    if roles.covariates:
+        options += ["--covariates", ",".join(roles.covariates)]
+    return options
+
+
+@st.composite
+def cli_extras(draw, roles: Roles) -> list[str]:
+    """Options beyond the roles: optional analyses, and pairs of options that contradict each
+    other or name something that cannot be (a report suffix Hazel does not write, a filter that
+    keeps no row, a calibration time past follow-up, a codec that is not a text encoding)."""
+    column = roles.time or roles.end or "x"
+    families = [
+        [],
+        ["--parametric"],
+        ["--parametric", "--horizon", "1e9"],
+        ["--landmark", "1"],
+        ["--performance", "1,5", "--bootstrap", "0"],
+        ["--performance", "10", "--calibration-time", "1e9", "--bootstrap", "0"],
+        ["--performance", "1e9", "--bootstrap", "0"],
+        ["--baseline"],
+        ["--power-hr", "0.7"],
+        ["--times", "0,1,1e9"],
+        ["--filter", f"{column}:at_most:-1"],
+        ["--filter", f"{column}:not_missing", "--parametric", "--landmark", "0"],
+        ["--encoding", draw(st.sampled_from([e for e in ENCODINGS if e is not None]))],
+        ["--sep", draw(st.sampled_from([s for s in SEPARATORS if s is not None]))],
+        ["--report", draw(st.sampled_from(["out.pdf", "out.html", "out.docx", "out.xlsx", "out"]))],
+        ["--day-first", "--date-format", "%Y-%m-%d"],
+        ["--time-unit", "years", "--unit", "days"],
+        ["--test", "fleming-harrington", "--rho", "1", "--gamma", "1"],
+        ["--variance", "robust"],
+        ["--ties", "breslow", "--ph-time-scale", "log-time"],
+    ]
+    if roles.covariates:
+        families += [["--spline", roles.covariates[0]], ["--split-at", "1", "--changing",
+                     roles.covariates[0]], ["--subgroups", roles.covariates[0]]]  # fmt: skip
+    if roles.event_causes:
+        families += [["--fine-gray", roles.event_causes[0][1]], ["--fine-gray", "no-such-cause"]]
+    picked = draw(st.lists(st.sampled_from(families), max_size=2))
+    return [option for family in picked for option in family]
+
+
+def cli_case(content: bytes, name: str, options: list[str], folder) -> tuple[int, str]:
+    """Run ``analyze`` in process on the input; (exit status, what broke the contract or "").
+    The contract: exit 0, or 2 with exactly one ``error:`` line on standard error; never 1 and
+    never a traceback."""
+    import contextlib
+    from pathlib import Path
+
+    from app.cli import main as cli_main
+
+    path = Path(folder) / (Path(name).name or "input")
+    path.write_bytes(content)
+    options = [str(Path(folder) / o) if o.startswith("out") else o for o in options]
+    out, err = io.StringIO(), io.StringIO()
+    previous = signal.signal(signal.SIGALRM, _alarm)
+    signal.alarm(HANG_SECONDS * 3)
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        try:
+            code = cli_main(["analyze", str(path), *options, "--json", "-"])
+        except SystemExit as exit_:  # argparse: an option value it refuses
+            code = exit_.code if isinstance(exit_.code, int) else 2
+        except _Hang:
+            return 1, f"still running after {HANG_SECONDS * 3} s: {options}"
+        except Exception:
+            return 1, f"escaped with {options}: {traceback.format_exc(limit=-4)}"
+        finally:
+            signal.alarm(0)
+            signal.signal(signal.SIGALRM, previous)
+    lines = err.getvalue().strip().splitlines()
+    if code == 2 and not (len(lines) >= 1 and lines[-1].startswith("error: ")):
+        return code, f"exit 2 without one error line: {err.getvalue()[:200]!r}"
+    if code not in (0, 2):
+        return code, f"exit {code} with {options}: {err.getvalue()[-300:]!r}"
+    if "Traceback" in err.getvalue():
+        return code, "traceback on stderr"
+    return code, ""
+
 
 @st.composite
 def role_choices(draw, columns: list[str], suggested: Roles) -> Roles:
@@ -275,10 +474,16 @@ def role_choices(draw, columns: list[str], suggested: Roles) -> Roles:
         timing = {"time": timing["start"] or suggested.time}
     event = take()
     covariates = tuple(c for c in (take(), take()) if c)
+    # named causes (competing risks), sometimes with event values that name every cause at once
+    causes = draw(st.sampled_from([()] * 6 + list(CAUSE_MAPS)))
+    event_values = draw(st.sampled_from([(), (), (), (), ("1",), ("2",), ("yes",), ("dead",)]))
+    if causes and draw(st.booleans()):
+        event_values = tuple(value for value, _ in causes)
     return Roles(
         **timing,
         event=event,
-        event_values=draw(st.sampled_from([(), (), (), (), ("1",), ("2",), ("yes",), ("dead",)])),
+        event_values=event_values,
+        event_causes=causes,
         group=take(),
         covariates=covariates,
         categorical=tuple(c for c in covariates if draw(st.booleans())),
@@ -308,14 +513,23 @@ def _alarm(_signum, _frame):
     raise _Hang
 
 
-def run_case(data: bytes, name: str, choose_roles, *, report: bool = True) -> Outcome:
-    """One file through every stage. ``choose_roles(columns, suggested)`` returns the Roles."""
+def run_case(
+    data: bytes,
+    name: str,
+    choose_roles,
+    *,
+    report: bool = True,
+    options: ImportOptions | None = None,
+    choose_settings=None,
+) -> Outcome:
+    """One file through every stage. ``choose_roles(columns, suggested)`` returns the Roles,
+    ``choose_settings(roles)`` the analysis settings (default: the core analyses' defaults)."""
     started = time.perf_counter()
     stage = "import"
     previous = signal.signal(signal.SIGALRM, _alarm)
     signal.alarm(HANG_SECONDS)
     try:
-        table = read_table(data, ImportOptions(), name=name)
+        table = read_table(data, options or ImportOptions(), name=name)
         stage = "roles"
         suggestions = suggest_roles(table.frame)
         roles = choose_roles([str(c) for c in table.frame.columns], suggestions.to_roles())
@@ -325,7 +539,11 @@ def run_case(data: bytes, name: str, choose_roles, *, report: bool = True) -> Ou
         accounted = report_data["rows_used"] + sum(e["rows"] for e in report_data["excluded"])
         accounting_ok = accounted == report_data["rows_read"]
         stage = "analysis"
-        settings = {k: dict(ANALYSIS_DEFAULTS[k]) for k in ("curves", "comparison", "cox")}
+        settings = (
+            choose_settings(roles)
+            if choose_settings
+            else {k: dict(ANALYSIS_DEFAULTS[k]) for k in ("curves", "comparison", "cox")}
+        )
         sections = run_analysis(prepared, settings, table.frame)
         stage = "json"
         text = json.dumps({"schema": SCHEMA_VERSION, **sections}, allow_nan=False)

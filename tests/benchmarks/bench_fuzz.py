@@ -5,6 +5,12 @@ Run by hand: ``.venv/bin/python tests/benchmarks/bench_fuzz.py [--examples N] [-
 [--cli-every K]``. The default test run replays the same generators on a few hundred seeded
 examples (``tests/test_fuzz.py``); a new ``--seed`` draws inputs the project has not seen.
 
+Each case draws import options (a typed separator or encoding, codecs that are not text
+encodings among them), roles (named causes, contradictory event values) and analysis settings
+(every optional analysis, one time in three each), on tables of zero, one and a few rows as often
+as larger ones; the command-line share adds drawn option families (contradictory pairs among
+them).
+
 Counted: results, clean errors (``HazelError``), crashes (anything else, grouped by the place they
 were raised), hangs (past ``HANG_SECONDS``), row-accounting failures, and the time per case. Every
 ``--cli-every``-th input is also written to a file and run as ``analyze`` in process: the exit
@@ -14,8 +20,6 @@ status must be 0, or 2 with exactly one ``error:`` line on standard error.
 from __future__ import annotations
 
 import argparse
-import contextlib
-import io
 import sys
 import tempfile
 import time
@@ -28,46 +32,17 @@ sys.path.insert(0, str(ROOT))
 from hypothesis import HealthCheck, Phase, given, seed, settings  # noqa: E402
 from hypothesis import strategies as st  # noqa: E402
 
-from app.cli import main as cli_main  # noqa: E402
-from tests.fuzz_pipeline import files, role_choices, run_case, seconds_text  # noqa: E402
-
-
-def cli_options(roles) -> list[str]:
-    """The command-line options for a set of roles (the ones ``analyze`` takes)."""
-    options = []
-    if roles.time:
-        options += ["--time", roles.time]
-    if roles.start and roles.end:
-        options += ["--start", roles.start, "--end", roles.end]
-    if roles.event:
-        options += ["--event", roles.event]
-    if roles.group:
-        options += ["--group", roles.group]
-    if roles.covariates:
-        options += ["--covariates", ",".join(roles.covariates)]
-    return options
-
-
-def cli_case(content: bytes, name: str, roles, folder: Path) -> tuple[int, str]:
-    """Run ``analyze`` on the input; (exit status, what was wrong with the contract or "")."""
-    path = folder / Path(name).name
-    path.write_bytes(content)
-    out, err = io.StringIO(), io.StringIO()
-    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-        try:
-            code = cli_main(["analyze", str(path), *cli_options(roles), "--json", "-"])
-        except SystemExit as exit_:  # argparse: an option value it refuses
-            code = exit_.code if isinstance(exit_.code, int) else 2
-        except Exception as exc:
-            return 1, f"escaped: {type(exc).__name__}: {exc}"[:200]
-    lines = err.getvalue().strip().splitlines()
-    if code == 2 and not (len(lines) >= 1 and lines[-1].startswith("error: ")):
-        return code, f"exit 2 without one error line: {err.getvalue()[:200]!r}"
-    if code not in (0, 2):
-        return code, f"exit {code}: {err.getvalue()[-300:]!r}"
-    if "Traceback" in err.getvalue():
-        return code, "traceback on stderr"
-    return code, ""
+from tests.fuzz_pipeline import (  # noqa: E402
+    analysis_settings,
+    cli_case,
+    cli_extras,
+    cli_options,
+    files,
+    import_options,
+    role_choices,
+    run_case,
+    seconds_text,
+)
 
 
 def main() -> None:
@@ -99,20 +74,37 @@ def main() -> None:
             chosen["roles"] = data.draw(role_choices(columns, suggested))
             return chosen["roles"]
 
-        outcome = run_case(content, name, choose)
+        options = data.draw(import_options())
+        outcome = run_case(
+            content,
+            name,
+            choose,
+            options=options,
+            choose_settings=lambda roles: data.draw(analysis_settings(roles)),
+        )
         outcomes.append(outcome)
         if outcome.kind == "crash":
             places[outcome.detail.strip().splitlines()[-1][:160]] += 1
             kept = folder / f"crash-{len(outcomes)}"  # the input and roles, to replay it
             kept.mkdir()
             (kept / (Path(name).name or "input")).write_bytes(content)
-            (kept / "roles.txt").write_text(repr(chosen.get("roles")) + "\n" + outcome.detail)
+            (kept / "roles.txt").write_text(
+                f"{chosen.get('roles')!r}\n{options!r}\n{outcome.detail}"
+            )
             print(f"  crash at case {len(outcomes)}: kept in {kept}", flush=True)
-        if len(outcomes) % args.cli_every == 0 and "roles" in chosen:
-            code, problem = cli_case(content, name, chosen["roles"], folder)
+        # drawn for every case, used for every K-th: hypothesis needs the same draws on a replay
+        argv = None
+        if "roles" in chosen:
+            argv = cli_options(chosen["roles"]) + data.draw(cli_extras(chosen["roles"]))
+        if len(outcomes) % args.cli_every == 0 and argv is not None:
+            code, problem = cli_case(content, name, argv, folder)
             cli[code] += 1
             if problem:
                 cli_problems.append(problem)
+                kept = folder / f"cli-{len(outcomes)}"  # the input and the options, to replay it
+                kept.mkdir()
+                (kept / (Path(name).name or "input")).write_bytes(content)
+                (kept / "argv.txt").write_text(f"{argv!r}\n{problem}")
         if len(outcomes) % 500 == 0:
             kinds = Counter(o.kind for o in outcomes)
             print(
