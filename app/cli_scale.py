@@ -114,7 +114,10 @@ def open_source(args: argparse.Namespace, backend: str):
         )
     if backend == "spark":
         return sources.open_spark(args.data, master=args.spark_master)
-    return sources.open_duckdb(args.data, sep=args.sep, decimal=args.decimal)
+    from app.cli import import_options_from_args  # the one reading of --sep and --decimal
+
+    options = import_options_from_args(args)
+    return sources.open_duckdb(args.data, sep=options.sep, decimal=options.decimal)
 
 
 def memory_computed_with() -> dict:

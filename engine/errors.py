@@ -15,6 +15,11 @@ class FileReadError(HazelError):
     """The file cannot be read as a table (empty, binary, no rows, duplicate headers...)."""
 
 
+class ImportOptionError(FileReadError):
+    """An import option cannot work as given (a separator of two characters, a quote as the
+    separator, a decimal mark other than '.' or ',')."""
+
+
 class FileTooLargeError(FileReadError):
     """The file is larger than the configured limit."""
 

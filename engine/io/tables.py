@@ -21,7 +21,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from engine.errors import FileReadError, FileTooLargeError, preview_values
+from engine.errors import FileReadError, FileTooLargeError, ImportOptionError, preview_values
 from engine.io.memory import out_of_memory
 from engine.io.stats import HEAD_BYTES, detect_stats_format, read_stats
 from engine.io.text import (
@@ -37,6 +37,8 @@ DEFAULT_MAX_BYTES = 1024 * 1024 * 1024  # matches server.maxUploadSize (1024 MB)
 
 _EXCEL_SUFFIXES = {".xlsx", ".xlsm"}
 _PARQUET_SUFFIXES = {".parquet", ".pq"}
+# a quote opens a quoted field and a line break ends a record: neither can separate columns
+UNUSABLE_SEPARATORS = ('"', "\n", "\r")
 _ZIP_MAGIC = b"PK\x03\x04"
 _PARQUET_MAGIC = b"PAR1"
 _OLE_MAGIC = b"\xd0\xcf\x11\xe0"
@@ -52,6 +54,28 @@ class ImportOptions:
     sheet: str | int | None = None
     missing_tokens: tuple[str, ...] = DEFAULT_MISSING_TOKENS
     max_bytes: int = DEFAULT_MAX_BYTES
+
+    def __post_init__(self):
+        """Options are checked where they are made, so the app, a recipe and the command line
+        meet one rule and no reader below sees a separator it cannot split on."""
+        if self.sep is not None and (
+            not isinstance(self.sep, str) or len(self.sep) != 1 or self.sep in UNUSABLE_SEPARATORS
+        ):
+            raise ImportOptionError(
+                f"The column separator must be one character that is not a quote or a line break "
+                f"(a comma, semicolon, tab or pipe, for example); got {self.sep!r}. Leave it "
+                "empty to detect it."
+            )
+        if self.decimal not in (None, ".", ","):
+            raise ImportOptionError(
+                f"The decimal mark must be '.' or ','; got {self.decimal!r}. Leave it empty to "
+                "detect it."
+            )
+        if self.sep is not None and self.sep == self.decimal:
+            raise ImportOptionError(
+                f"The column separator and the decimal mark are both {self.sep!r}; a number "
+                "such as 3,5 could not be told from two columns. Choose two different marks."
+            )
 
     def to_dict(self) -> dict:
         out = asdict(self)

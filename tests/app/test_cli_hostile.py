@@ -244,3 +244,14 @@ def test_runaway_coefficients_give_no_whole_model_p_on_the_command_line(capsys, 
     assert cox["likelihood_ratio"]["p_value"] is None and cox["wald"]["p_value"] is None
     code, out, _ = _contract(capsys, ["analyze", path, *BASE, "--covariates", "x"])
     assert "Likelihood ratio  chi-squared not estimable, p not estimable" in out
+
+
+@pytest.mark.parametrize("backend", ["memory", "duckdb"])
+@pytest.mark.parametrize("sep", ["ab", '"'])
+def test_a_separator_that_cannot_work_is_one_error_line_on_every_backend(
+    data, capsys, backend, sep
+):
+    code, _out, err = _contract(
+        capsys, ["analyze", data, *BASE, "--sep", sep, "--backend", backend]
+    )
+    assert code == 2 and "separator must be one character" in err

@@ -369,3 +369,22 @@ def test_numbers_round_trip_through_any_separator(rows, sep):
     table = read_table(buffer.getvalue().encode())
     np.testing.assert_array_equal(table.frame["n"], frame["n"])
     np.testing.assert_allclose(table.frame["x"], frame["x"])
+
+
+@pytest.mark.parametrize(
+    ("options", "named"),
+    [
+        ({"sep": "ab"}, "separator must be one character"),
+        ({"sep": ""}, "separator must be one character"),
+        ({"sep": '"'}, "not a quote or a line break"),
+        ({"sep": "\n"}, "not a quote or a line break"),
+        ({"decimal": ";"}, "decimal mark must be '.' or ','"),
+        ({"sep": ",", "decimal": ","}, "both ','"),
+    ],
+)
+def test_import_options_that_cannot_work_are_refused_where_they_are_made(options, named):
+    # pyarrow's own "delimiter must be a 1-character string" (a TypeError) reached the user
+    with pytest.raises(HazelError, match=named):
+        ImportOptions(**options)
+    with pytest.raises(HazelError, match=named):
+        ImportOptions.from_dict(options)  # a recipe's import options
