@@ -85,7 +85,16 @@ def fitting_scale(time: np.ndarray) -> float:
     exponent = float(np.round(np.log2(np.median(positive))))
     if abs(exponent) <= FITTING_RANGE_EXPONENT:
         return 1.0
-    return float(2.0 ** np.clip(exponent, -1000, 1000))
+    scale = float(2.0 ** np.clip(exponent, -1000, 1000))
+    with np.errstate(over="ignore", under="ignore"):
+        scaled = positive / scale
+    if not (scaled.min() > 0 and np.isfinite(scaled.max())):
+        raise AnalysisError(
+            f"The times range from {positive.min():g} to {positive.max():g}: too wide for a "
+            "parametric fit (brought near 1, the extreme ones fall outside the range of "
+            "numbers). Check the time column for a wrong unit or a stray value."
+        )
+    return scale
 
 
 def theta_in_time_unit(distribution: str, theta, cov, scale: float):
@@ -96,7 +105,8 @@ def theta_in_time_unit(distribution: str, theta, cov, scale: float):
         return theta, cov
     factor = np.ones(theta.shape[0])
     factor[0] = scale
-    return theta * factor, cov * np.outer(factor, factor)
+    with np.errstate(over="ignore"):  # a variance past the float range is infinite: null in JSON
+        return theta * factor, cov * np.outer(factor, factor)
 
 
 # --- each family as functions of its parameter vector (theta in lifelines' order) -------------
