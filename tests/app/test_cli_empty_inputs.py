@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from app.cli import main
+from tests.app.test_cli_hostile import _contract  # exit 0, or 2 with one error line
 
 BASE = ["--time", "t", "--event", "e"]
 CAUSES = ["--time", "t", "--event", "c", "--competing", "1=death", "--competing", "2=other"]
@@ -53,15 +53,11 @@ def _frame(n: int, seed: int = 3) -> pd.DataFrame:
     return frame
 
 
-def _contract(capsys, argv) -> tuple[int, str, str]:
-    code = main([str(a) for a in argv])
-    out, err = capsys.readouterr()
-    assert code in (0, 2), (code, err)
-    if code == 2:
-        lines = err.strip().splitlines()
-        assert len(lines) == 1 and lines[0].startswith("error: "), err
-    assert "Traceback" not in err
-    return code, out, err
+def _negative_times(tmp_path, rows: int = 30):
+    """A file in which no row is usable: every time is negative."""
+    path = tmp_path / "negative.csv"
+    _frame(rows).assign(t=-1.0).to_csv(path, index=False)
+    return path
 
 
 @pytest.mark.parametrize("analysis", list(ANALYSES))
@@ -109,10 +105,7 @@ def test_check_refuses_a_filter_that_removes_every_row_too(capsys, tmp_path):
 
 @pytest.mark.parametrize("analysis", list(ANALYSES))
 def test_analyze_with_no_usable_row_exits_2_with_the_exclusion_counts(capsys, tmp_path, analysis):
-    path = tmp_path / "negative.csv"
-    frame = _frame(30)
-    frame["t"] = -1.0
-    frame.to_csv(path, index=False)
+    path = _negative_times(tmp_path)
     code, out, err = _contract(capsys, ["analyze", path, *ANALYSES[analysis]])
     assert code == 2
     assert "No row is usable: all 30 row(s) read were excluded (negative time: 30)" in err
@@ -120,20 +113,14 @@ def test_analyze_with_no_usable_row_exits_2_with_the_exclusion_counts(capsys, tm
 
 
 def test_check_with_no_usable_row_still_reports_and_exits_0(capsys, tmp_path):
-    path = tmp_path / "negative.csv"
-    frame = _frame(30)
-    frame["t"] = -1.0
-    frame.to_csv(path, index=False)
+    path = _negative_times(tmp_path)
     code, out, _ = _contract(capsys, ["check", path, *BASE, "--json", "-"])
     assert code == 0
     assert json.loads(out)["data"]["rows_used"] == 0
 
 
 def test_no_usable_row_on_the_duckdb_backend_exits_2_too(capsys, tmp_path):
-    path = tmp_path / "negative.csv"
-    frame = _frame(30)
-    frame["t"] = -1.0
-    frame.to_csv(path, index=False)
+    path = _negative_times(tmp_path)
     code, _, err = _contract(capsys, ["analyze", path, *BASE, "--backend", "duckdb"])
     assert code == 2 and "No row is usable" in err
     code, _, err = _contract(
