@@ -90,7 +90,7 @@ def apply_recipe(recipe: Recipe, imported: ImportedTable) -> RecipeRun:
     """Filters, roles and checks of ``recipe`` on a table already read."""
     warnings = check_fingerprint(recipe, imported)
     warnings += import_option_differences(recipe, imported)
-    filtered = apply_filters(imported.frame, recipe.filters)
+    filtered = apply_filters(imported.frame, recipe.filters).refuse_if_empty()
     prepared = prepare(filtered.frame, Roles.from_dict(recipe.roles))
     return RecipeRun(imported, prepared, recipe.settings(), warnings, recipe, filtered)
 

@@ -29,8 +29,9 @@ from engine.analysis.recipe_schema import check_setting
 from engine.analysis.run import ANALYSIS_DEFAULTS
 from engine.analysis.run import run_analysis as run_engine_analysis
 from engine.cox.diagnostics import TIME_SCALES
-from engine.errors import HazelError
+from engine.errors import HazelError, NoRowsError
 from engine.io.tables import ImportedTable, ImportOptions, read_table
+from engine.io.text import text_encoding
 from engine.prepare.checks import PreparedData, prepare
 from engine.prepare.dates import IMPLAUSIBLE_CHOICES
 from engine.prepare.filters import FilterError, FilterOutcome, RowFilter, apply_filters
@@ -348,6 +349,11 @@ def import_options_from_args(args: argparse.Namespace) -> ImportOptions:
     sheet = args.sheet
     if sheet is not None and sheet.strip().isdigit():
         sheet = int(sheet)
+    if args.encoding is not None:
+        try:
+            text_encoding(args.encoding)
+        except HazelError as error:
+            raise UsageError(f"--encoding: {error}") from None
     return ImportOptions(sep=sep, decimal=args.decimal, encoding=args.encoding, sheet=sheet)
 
 
@@ -367,7 +373,7 @@ def load_prepared(
     checks, as a recipe's filters are)."""
     filters = filters_from_args(args)
     table = read_table(Path(args.data), import_options_from_args(args))
-    filtered = apply_filters(table.frame, filters)
+    filtered = apply_filters(table.frame, filters).refuse_if_empty()
     prepared = prepare(
         filtered.frame,
         roles_from_args(args),
@@ -668,6 +674,10 @@ def run_aggregated(args: argparse.Namespace, backend: str, *, check_only: bool =
     source = open_source(args, backend)
     try:
         data = aggregate_checks(source, roles, filters=filters)
+        if data.filtered is not None:
+            data.filtered.refuse_if_empty()
+        if not check_only:
+            refuse_nothing_usable(data.report)
         if check_only:
             sections = {"data": data.report.to_dict()}
         else:
@@ -725,9 +735,31 @@ def run_aggregated(args: argparse.Namespace, backend: str, *, check_only: bool =
     return 0
 
 
+REPORT_SUFFIXES = (".html", ".docx", ".xlsx")  # the report formats Hazel writes
+
+
+def check_report_path(path: str | None) -> None:
+    """A ``--report`` file name must end in a suffix Hazel writes, before anything runs (so no
+    HTML lands in a file named .pdf)."""
+    if path is not None and Path(path).suffix.lower() not in REPORT_SUFFIXES:
+        raise UsageError(
+            f"--report {path!r}: Hazel writes reports as {', '.join(REPORT_SUFFIXES)} "
+            "(HTML, Word, Excel); end the file name in one of them."
+        )
+
+
+def refuse_nothing_usable(report) -> None:
+    """``analyze`` with no usable row is bad input (exit 2 with the exclusion counts), never a
+    run of empty sections that a script would read as success; ``check`` still reports."""
+    reason = report.no_usable_rows()
+    if reason is not None:
+        raise NoRowsError(reason)
+
+
 def run_analyze(args: argparse.Namespace) -> int:
     from app.batch import load_recipe_run, report_from_json_and_results
 
+    check_report_path(args.report)
     backend = chosen_backend(args)
     check_sample_options(args, backend)
     if backend != "memory":
@@ -750,6 +782,7 @@ def run_analyze(args: argparse.Namespace) -> int:
         source = filtered.frame
         settings = settings_from_args(args)
     check_named_columns(settings, (table.frame if source is None else source).columns)
+    refuse_nothing_usable(prepared.report)
     sections = run_analysis(table, prepared, settings, source)
     sections["computed_with"] = memory_computed_with()
     if filtered is not None and filtered.excluded:

@@ -288,13 +288,7 @@ def filtered_table(table, filters):
     Filters that keep no row are refused (a HazelError), so no page sees an empty table."""
     if not filters:
         return table
-    outcome = apply_filters(table.frame, filters)
-    if len(outcome.frame) == 0:
-        steps = "; ".join(f"{text}: {rows:,} removed" for text, rows in outcome.excluded)
-        raise HazelError(
-            f"These filters would remove every row ({steps}), so they were not applied. "
-            "Widen the last filter or remove one."
-        )
+    outcome = apply_filters(table.frame, filters).refuse_if_empty()
     key = json.dumps([f.to_dict() for f in filters], sort_keys=True, default=str)
     digest = hashlib.sha256(key.encode("utf-8")).hexdigest()[:16]
     return replace(table, frame=outcome.frame, sha256=f"{table.sha256}:filters:{digest}")

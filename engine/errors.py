@@ -41,6 +41,16 @@ class AnalysisError(HazelError):
     """An analysis cannot be computed on this data (too few rows, no events, a model that fails)."""
 
 
+class NoRowsError(AnalysisError):
+    """No row is left to analyse (every row excluded by the checks, a filter or a selection):
+    one message for every estimator, so an empty input never reaches a numpy reduction."""
+
+    def __init__(self, message: str = "") -> None:
+        super().__init__(
+            message or "There are no rows to analyse; check the exclusions in the data report."
+        )
+
+
 class SettingError(AnalysisError):
     """The settings ask for something the roles cannot give (a spline of a column that is not a
     numeric covariate, an effect allowed to change that is not in the model): the request, not

@@ -17,7 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from engine.errors import AnalysisError
+from engine.errors import NoRowsError
 from engine.survival.risk_table import RiskTable
 
 EXIT_COLUMNS = ("group", "stratum", "time", "events", "censored", "competing")
@@ -175,9 +175,7 @@ def risk_table(
             keep_en &= np.isin(en["group"].to_numpy(), groups)
     ex = ex[keep]
     if len(ex) == 0 or (ex["events"].sum() + ex["censored"].sum()) == 0:
-        raise AnalysisError(
-            "There are no rows to analyse; check the exclusions in the data report."
-        )
+        raise NoRowsError()
     use_group = by_group and counts.group_labels is not None
     if use_group and groups is not None:
         codes = _positions(ex["group"].to_numpy(), groups, len(counts.group_labels))

@@ -24,6 +24,7 @@ from engine.cox.design import (
     Term,
     check_collinearity,
     constant_in_every_group,
+    no_complete_rows,
 )
 from engine.cox.fit import drop_not_estimable
 from engine.errors import AnalysisError, preview_values
@@ -68,10 +69,7 @@ def sql_design(
     dropped = {n: int(row[f"m{i}"]) for i, n in enumerate(names) if int(row[f"m{i}"] or 0)}
     n_used = int(row["n"] or 0)
     if n_used == 0:
-        raise AnalysisError(
-            "No row has every model variable present (rows missing per variable: "
-            f"{dropped}); remove the variable with most missing values or fill it in."
-        )
+        raise no_complete_rows(dropped)
     model_rows = f"SELECT * FROM ({cells}) AS cells WHERE {complete}"
     terms: list[Term] = []
     columns: list[str] = []

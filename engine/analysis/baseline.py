@@ -314,7 +314,8 @@ def _test(variable, series, groups, kind, summary, levels) -> dict:
         if len(samples) < 2:
             return {**result, "test": "not computable: fewer than two groups with values"}
         if summary == "median":
-            test = stats.kruskal(*samples)
+            with np.errstate(divide="ignore", invalid="ignore"):  # every value tied: no test
+                test = stats.kruskal(*samples)
             name = "Kruskal–Wallis"
         else:
             test = stats.f_oneway(*samples)

@@ -277,6 +277,9 @@ def run_analysis(
     ``source`` is the frame ``prepare`` was given: a comparison cut or strata column, or a
     model's strata column, is read from it (it may be left out when the settings name none)."""
     chosen = resolved_settings(settings)
+    nothing = prepared.report.no_usable_rows()
+    if nothing is not None:
+        return nothing_usable_sections(prepared, chosen, nothing)
     curves, comparison, cox = chosen["curves"], chosen["comparison"], chosen["cox"]
     sections: dict = {
         "data": prepared.report.to_dict(),
@@ -306,6 +309,22 @@ def run_analysis(
 
     sections.update(extra_sections(prepared, chosen, source))
     return sections
+
+
+def nothing_usable_sections(prepared: PreparedData, chosen: Mapping, reason: str) -> dict:
+    """The sections of a run in which no row is usable: each section the roles and settings ask
+    for says so in words, with the exclusion counts (``DataReport.no_usable_rows``)."""
+    roles, cox = prepared.roles, chosen["cox"]
+    asked = {
+        "curves": True,
+        "comparison": bool(roles.group or chosen["comparison"]["cut"]),
+        "cox": bool(roles.covariates and (cox["covariates"] is None or cox["covariates"])),
+        **{name: True for name in OPTIONAL_ANALYSES if name in chosen},
+    }
+    return {
+        "data": prepared.report.to_dict(),
+        **{name: not_computed(reason) if on else None for name, on in asked.items()},
+    }
 
 
 def cox_section(prepared: PreparedData, cox: Mapping, source: pd.DataFrame | None) -> dict:

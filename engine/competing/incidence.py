@@ -32,7 +32,7 @@ import pandas as pd
 from scipy.stats import norm
 
 from engine.cox.fit import CoxResult, fit_cox
-from engine.errors import AnalysisError, preview_values
+from engine.errors import AnalysisError, NoRowsError, preview_values
 from engine.json_values import frame_records
 from engine.survival.risk_table import as_float_array, checked_entry, group_codes
 
@@ -220,9 +220,7 @@ def aalen_johansen(
     time = as_float_array(time, "_time")
     n = time.shape[0]
     if n == 0:
-        raise AnalysisError(
-            "There are no rows to analyse; check the exclusions in the data report."
-        )
+        raise NoRowsError()
     codes, causes = _cause_codes(cause, n)
     if not causes:
         raise AnalysisError(

@@ -8,11 +8,31 @@ from dataclasses import dataclass, replace
 import numpy as np
 import pandas as pd
 
-from engine.errors import AnalysisError, preview_values
+from engine.errors import AnalysisError, NoRowsError, preview_values
+from engine.text_safety import visible_text
 from engine.wording import term_label
 
 SMALL_LEVEL_ROWS = 5  # common practice: a level this small gives an unstable hazard ratio
 VIF_LIMIT = 10.0  # common practice: variance inflation above 10 signals near-collinearity
+
+
+def no_complete_rows(dropped: Mapping[str, int]) -> AnalysisError:
+    """The error of a model left without a complete case, in words: no row at all (every row
+    excluded before the model), or the rows each variable lacks."""
+    if not any(dropped.values()):
+        return NoRowsError(
+            "There are no rows to fit the model on: every row was excluded before the model "
+            "(see the exclusions in the data report)."
+        )
+    missing = ", ".join(
+        f"{visible_text(str(name))} in {count:,} row(s)"
+        for name, count in sorted(dropped.items(), key=lambda item: -item[1])
+        if count
+    )
+    return AnalysisError(
+        f"No row has every model variable present (missing: {missing}); remove the variable "
+        "with most missing values or fill it in."
+    )
 
 
 @dataclass(frozen=True)
@@ -100,10 +120,7 @@ def build_design(
             dropped[column] = int(missing.sum())
         used &= ~missing
     if not used.any():
-        raise AnalysisError(
-            "No row has every model variable present (rows missing per variable: "
-            f"{dropped}); remove the variable with most missing values or fill it in."
-        )
+        raise no_complete_rows(dropped)
 
     terms: list[Term] = []
     columns: list[np.ndarray] = []

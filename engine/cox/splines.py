@@ -30,6 +30,7 @@ from scipy import stats
 from engine.cox.fit import ChiSquareTest, CoxResult, chi_square, fit_cox
 from engine.cox.likelihood import newton_raphson
 from engine.errors import AnalysisError, SettingError, preview_values
+from engine.json_values import json_float
 
 KNOT_QUANTILES = {
     3: (0.10, 0.50, 0.90),
@@ -109,7 +110,7 @@ class SplineEffect:
             "nonlinearity": test(self.nonlinearity),
             "association": test(self.association),
             "curve": [
-                {k: float(row[k]) for k in ("x", "hazard_ratio", "lower", "upper")}
+                {k: json_float(row[k]) for k in ("x", "hazard_ratio", "lower", "upper")}
                 for row in self.curve.to_dict(orient="records")
             ],
         }
@@ -215,14 +216,15 @@ def _effect(result, variable, knots, reference, names, frame) -> SplineEffect:
     log_hr = contrast @ beta
     se = np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", contrast, covariance, contrast), 0))
     z = stats.norm.ppf(0.5 + result.confidence / 2)
-    curve = pd.DataFrame(
-        {
-            "x": grid,
-            "hazard_ratio": np.exp(log_hr),
-            "lower": np.exp(log_hr - z * se),
-            "upper": np.exp(log_hr + z * se),
-        }
-    )
+    with np.errstate(over="ignore"):  # a bound past the float range is infinite: null in JSON
+        curve = pd.DataFrame(
+            {
+                "x": grid,
+                "hazard_ratio": np.exp(log_hr),
+                "lower": np.exp(log_hr - z * se),
+                "upper": np.exp(log_hr + z * se),
+            }
+        )
     nonlinear, everything = columns[1:], columns
     return SplineEffect(
         variable=variable,

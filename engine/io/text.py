@@ -31,6 +31,15 @@ MAX_COLUMNS = 16_384  # the most columns a spreadsheet sheet holds; more is not 
 _CHUNK_BYTES = 16 * 1024 * 1024
 _CP1252_UNDEFINED = re.compile(b"[\x81\x8d\x8f\x90\x9d]")
 FALLBACK_ENCODING = "cp1252"
+# The text encodings a table may be read in, under any name Python gives them (latin1,
+# windows-1252, utf8...). Other codecs (idna, punycode, rot13, base64, hex...) do not turn bytes
+# into the text of a table and are refused.
+TEXT_ENCODINGS = (
+    "utf-8", "utf-8-sig", "utf-16", "utf-16-le", "utf-16-be", "utf-32", "ascii", "latin-1",
+    "iso-8859-2", "iso-8859-15", "cp1250", "cp1251", "cp1252", "cp1253", "cp1254", "cp1257",
+    "mac-roman", "cp437", "cp850", "koi8-r", "shift_jis", "euc-jp", "gb18030", "gbk", "big5",
+    "euc-kr",
+)  # fmt: skip
 _SEPARATOR_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}
 _DECIMAL_COMMA = re.compile(r"^[+-]?\d+,\d+$")
 _CONTROL_CHARS = re.compile(r"[\x01-\x08\x0b\x0e-\x1f\x7f-\x9f]")
@@ -166,12 +175,27 @@ def _check_width(text: str, lines: list[str], sep: str | None, truncated: bool, 
         )
 
 
+def text_encoding(name: str) -> str:
+    """``name`` when it names one of ``TEXT_ENCODINGS`` (under any of its names); otherwise a
+    FileReadError that lists them."""
+    try:
+        known = codecs.lookup(str(name)).name
+    except LookupError:
+        known = None
+    if known is not None and known in {codecs.lookup(e).name for e in TEXT_ENCODINGS}:
+        return str(name)
+    raise FileReadError(
+        f"{str(name)!r} is not a text encoding Hazel reads tables in; choose one of "
+        f"{', '.join(TEXT_ENCODINGS)}."
+    )
+
+
 def _sniff(sample: bytes, truncated: bool, options: ImportOptions, name: str) -> _Sniffed:
     notes: list[str] = []
     confident = True
     if not sample.strip():
         raise FileReadError(f"{name} is empty (only blank lines). Export the data again.")
-    encoding = options.encoding or _guess_encoding(sample)
+    encoding = text_encoding(options.encoding) if options.encoding else _guess_encoding(sample)
     if b"\x00" in sample and not encoding.startswith("utf-16"):
         raise FileReadError(
             f"{name} does not look like a text table (it contains binary data). "

@@ -28,6 +28,7 @@ from engine.parametric.fits import (
     DISTRIBUTIONS,
     PARAMETER_WORDS,
     AICComparison,
+    fitting_scale,
     log_cumulative_hazard,
     log_quantile,
 )
@@ -267,6 +268,10 @@ def fit_aft(
         )
     z = float(norm.ppf(0.5 + confidence_level / 2))
     terms = ["Intercept", *x.columns]
+    # fitted on time / scale (fits.fitting_scale): a change of time unit only shifts the
+    # intercept of log time by log(scale) and divides each event's density by the scale
+    scale = fitting_scale(time)
+    time, entry = time / scale, None if entry is None else entry / scale
     if distribution == "exponential":
         design = np.column_stack([np.ones(len(x)), x.to_numpy()])
         exposure = time - (0.0 if entry is None else entry)
@@ -310,6 +315,10 @@ def fit_aft(
             ]
         )
         log_lik = float(fitter.log_likelihood_)
+    beta = beta.copy()
+    beta[0] += np.log(scale)
+    log_lik -= int(event.sum()) * float(np.log(scale))
+    time = time * scale
     coefs = pd.DataFrame(
         {
             "term": terms,

@@ -26,7 +26,7 @@ from lifelines import LogLogisticFitter, LogNormalFitter, WeibullFitter
 from lifelines.exceptions import ConvergenceError
 from scipy.stats import norm
 
-from engine.errors import AnalysisError, preview_values
+from engine.errors import AnalysisError, NoRowsError, preview_values
 from engine.json_values import frame_records
 
 DISTRIBUTIONS: tuple[str, ...] = ("exponential", "weibull", "log-normal", "log-logistic")
@@ -59,6 +59,54 @@ PARAMETER_WORDS = {
     "beta_": "shape",
 }
 LN2 = float(np.log(2.0))
+# The parameter of each two-parameter family that carries the time scale, and how a change of
+# time unit acts on it (theta in lifelines' order): a scale is multiplied, a mean of log time
+# shifted. The shape (or SD of log time) does not change.
+TIME_SCALE_PARAMETER = {"weibull": "multiply", "log-logistic": "multiply", "log-normal": "shift"}
+
+
+class FamilyNotEstimable(AnalysisError):
+    """One family cannot be fitted to these times (listed among the failed fits, not fatal)."""
+
+
+FITTING_RANGE_EXPONENT = 16  # median times within 2^-16 .. 2^16 are fitted as they are
+
+
+def fitting_scale(time: np.ndarray) -> float:
+    """1, or for a median time outside 2^-16 .. 2^16 (about 1.5e-5 to 65,536) the power of two
+    nearest to it: the fits then run on time / scale, so that times of 1e30 or 1e-30 reach the
+    optimiser near 1 (its tolerances and starting values assume it; unscaled, lifelines stops
+    at its starting values or at a false maximum there) and dividing by it is exact. Every
+    family here is equivariant under a change of time unit, so the estimates are mapped back
+    exactly."""
+    positive = time[np.isfinite(time) & (time > 0)]
+    if not positive.size:
+        return 1.0
+    exponent = float(np.round(np.log2(np.median(positive))))
+    if abs(exponent) <= FITTING_RANGE_EXPONENT:
+        return 1.0
+    scale = float(2.0 ** np.clip(exponent, -1000, 1000))
+    with np.errstate(over="ignore", under="ignore"):
+        scaled = positive / scale
+    if not (scaled.min() > 0 and np.isfinite(scaled.max())):
+        raise AnalysisError(
+            f"The times range from {positive.min():g} to {positive.max():g}: too wide for a "
+            "parametric fit (brought near 1, the extreme ones fall outside the range of "
+            "numbers). Check the time column for a wrong unit or a stray value."
+        )
+    return scale
+
+
+def theta_in_time_unit(distribution: str, theta, cov, scale: float):
+    """Parameters and covariance fitted on time / scale, in the unit of time itself."""
+    theta, cov = np.array(theta, dtype=float), np.array(cov, dtype=float)
+    if TIME_SCALE_PARAMETER[distribution] == "shift":
+        theta[0] += np.log(scale)
+        return theta, cov
+    factor = np.ones(theta.shape[0])
+    factor[0] = scale
+    with np.errstate(over="ignore"):  # a variance past the float range is infinite: null in JSON
+        return theta * factor, cov * np.outer(factor, factor)
 
 
 # --- each family as functions of its parameter vector (theta in lifelines' order) -------------
@@ -292,9 +340,10 @@ def fit_distribution(
     time, event, entry = _check_times(time, event, entry)
     z = float(norm.ppf(0.5 + confidence_level / 2))
     d = int(event.sum())
+    scale = fitting_scale(time)
     if distribution == "exponential":
-        exposure = float(time.sum() - (0.0 if entry is None else entry.sum()))
-        log_rate = np.log(d / exposure)
+        exposure = float((time / scale).sum() - (0.0 if entry is None else (entry / scale).sum()))
+        log_rate = np.log(d / exposure) - np.log(scale)
         theta, cov = np.array([log_rate]), np.array([[1.0 / d]])
         log_lik = d * log_rate - d  # d log(rate) - rate * exposure, with rate * exposure = d
         params = _param_table(["log rate"], theta, np.sqrt(np.diag(cov)), z)
@@ -317,13 +366,30 @@ def fit_distribution(
             ignore_index=True,
         )
     else:
+        if np.unique(time).shape[0] < 2:
+            # with a single distinct time the likelihood grows without bound as the shape
+            # concentrates the distribution there: no maximum exists
+            raise FamilyNotEstimable(
+                f"the {LABELS[distribution]} model needs at least two distinct times; every one "
+                f"of the {time.shape[0]:,} row(s) has time {preview_values(time[:1])}"
+            )
         fitter = _UNIVARIATE[distribution]()
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            fitter.fit(time, event, entry=entry, timeline=[float(time.max())])
-        theta = fitter.params_.to_numpy(dtype=float)
-        cov = fitter.variance_matrix_.to_numpy(dtype=float)
-        log_lik = float(fitter.log_likelihood_)
+            fitter.fit(
+                time / scale,
+                event,
+                entry=None if entry is None else entry / scale,
+                timeline=[float(time.max() / scale)],
+            )
+        theta, cov = theta_in_time_unit(
+            distribution,
+            fitter.params_.to_numpy(dtype=float),
+            fitter.variance_matrix_.to_numpy(dtype=float),
+            scale,
+        )
+        # each event's density is divided by the scale; survival terms are unchanged
+        log_lik = float(fitter.log_likelihood_) - d * float(np.log(scale))
         names = [PARAMETER_WORDS.get(name, name) for name in fitter.params_.index]
         params = _param_table(names, theta, np.sqrt(np.diag(cov)), z)
     return ParametricFit(
@@ -361,6 +427,8 @@ def compare_distributions(
     """
     time = np.asarray(time, dtype=np.float64).reshape(-1)
     event = np.asarray(event).reshape(-1)
+    if time.shape[0] == 0:
+        raise NoRowsError()
     if group is None:
         parts = [(None, np.ones(time.shape[0], dtype=bool))]
     else:
@@ -391,6 +459,8 @@ def compare_distributions(
                 )
             except ConvergenceError as exc:
                 failed.append((dist, label, f"the fit did not converge: {exc}"[:300]))
+            except FamilyNotEstimable as exc:
+                failed.append((dist, label, str(exc)))
     if not fits:
         raise AnalysisError(
             "No parametric model could be fitted: " + "; ".join(r for _, _, r in failed)
@@ -465,12 +535,24 @@ def fit_parametric(
     then left out), ready to overlay on that group's Kaplan–Meier curve. Rows at time 0 are left
     out (none of the families has a density there) and counted in ``rows_time_zero``.
     """
+    if frame.empty:
+        raise NoRowsError()
     at_zero = frame["_time"].to_numpy(dtype=float) <= 0
+    if at_zero.all():
+        raise AnalysisError(
+            f"Parametric models need times > 0, and all {len(frame):,} row(s) are at time 0 "
+            "(none of the families has a density there). Check the time column and its unit."
+        )
     if at_zero.any():  # no family here has a density at 0: left out and counted
         frame = frame.loc[~at_zero]
     group = None
     if by_group and "_group" in frame.columns:
         missing = frame["_group"].isna().to_numpy()
+        if missing.all():
+            raise AnalysisError(
+                "Parametric fits by group leave out the rows without a group, and every row's "
+                "group is missing. Fit them without groups or choose another group column."
+            )
         frame = frame.loc[~missing]
         group = frame["_group"]
     with np.errstate(all="ignore"):  # extreme times overflow inside a failing fit, reported

@@ -202,7 +202,9 @@ class PerformanceResult:
         }
 
 
-def _checked_times(times, time: np.ndarray) -> np.ndarray:
+def _checked_times(times, time: np.ndarray, what: str = "Performance times (--performance)"):
+    """The chosen times, sorted, each within follow-up; ``what`` names the setting they come
+    from in the message (the performance times, or the calibration time)."""
     arr = np.unique(np.asarray(list(times), dtype=float))
     if arr.size == 0:
         raise AnalysisError(
@@ -212,7 +214,8 @@ def _checked_times(times, time: np.ndarray) -> np.ndarray:
     bad = arr[(arr < first) | (arr >= last) | ~np.isfinite(arr)]
     if bad.size:
         raise AnalysisError(
-            f"Performance times {preview_values(bad)} lie outside the follow-up: each must be at "
+            f"{what} {preview_values(bad)} {'lies' if bad.size == 1 else 'lie'} outside the "
+            "follow-up: each must be at "
             f"least {first:g} (the first observed time) and below {last:g} (the last). "
             "Choose times within follow-up."
         )
@@ -274,7 +277,8 @@ def prediction_performance(
     tau_value = float(time.max()) if tau is None else float(tau)
     if not time.min() < tau_value <= time.max():
         raise AnalysisError(
-            f"tau = {tau_value:g} must lie within follow-up ({time.min():g} to {time.max():g})."
+            f"tau (--tau) = {tau_value:g} must lie within follow-up ({time.min():g} to "
+            f"{time.max():g})."
         )
     survival = np.column_stack([pred.survival(t) for t in chosen])
     km = kaplan_meier(time, event)
@@ -287,7 +291,7 @@ def prediction_performance(
         time, event, survival_at(km, grid).frame["survival"].to_numpy(), grid, censoring=censoring
     )
     when = chosen[0] if calibration_time is None else float(calibration_time)
-    _checked_times([when], time)
+    _checked_times([when], time, "The calibration time (--calibration-time)")
     harrell = result.concordance
     return PerformanceResult(
         times=tuple(float(t) for t in chosen),

@@ -97,6 +97,19 @@ class DataReport:
             "warnings": list(self.warnings),
         }
 
+    def no_usable_rows(self) -> str | None:
+        """Why nothing can be analysed, in words with the exclusion counts; None when some row
+        is usable."""
+        if self.rows_used:
+            return None
+        if not self.rows_read:
+            return "No row is usable: the data hold no rows."
+        reasons = "; ".join(f"{reason}: {rows:,}" for reason, rows in self.excluded)
+        return (
+            f"No row is usable: all {self.rows_read:,} row(s) read were excluded ({reasons}). "
+            "Correct the data or the roles; the data report lists the excluded rows."
+        )
+
     def to_frame(self) -> pd.DataFrame:
         """Excluded rows by reason."""
         return pd.DataFrame(list(self.excluded), columns=["reason", "rows"])

@@ -169,6 +169,17 @@ class FilterOutcome:
     excluded: tuple[tuple[str, int], ...]
     rows_kept: int
 
+    def refuse_if_empty(self) -> FilterOutcome:
+        """Itself when some row is kept; filters that keep no row are refused (a FilterError
+        with each filter's count), so no analysis or page sees an empty table."""
+        if self.rows_kept or not self.excluded:
+            return self
+        steps = "; ".join(f"{text}: {rows:,} removed" for text, rows in self.excluded)
+        raise FilterError(
+            f"These filters would remove every row ({steps}), so they were not applied. "
+            "Widen the last filter or remove one."
+        )
+
     def to_dict(self) -> dict:
         return {
             "rows_kept": self.rows_kept,

@@ -22,7 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from engine.errors import AnalysisError
+from engine.errors import AnalysisError, NoRowsError
 from engine.json_values import frame_records
 
 COUNT_COLUMNS = [
@@ -75,6 +75,8 @@ def landmark(frame: pd.DataFrame, at: float, *, time_from_landmark: bool = True)
                 f"The prepared frame has no {column!r} column; prepare the data first."
             )
     time = frame["_time"].to_numpy(dtype=float)
+    if not np.isfinite(time).any():
+        raise NoRowsError()
     if at >= np.nanmax(time):
         raise AnalysisError(
             f"The landmark {at:g} is at or after the last follow-up time ({np.nanmax(time):g}); "

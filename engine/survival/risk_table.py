@@ -15,7 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from engine.errors import AnalysisError, preview_values
+from engine.errors import AnalysisError, NoRowsError, preview_values
 
 
 @dataclass(frozen=True)
@@ -144,9 +144,7 @@ def build_risk_table(time, event, codes=None, labels=(None,), entry=None) -> Ris
     time = as_float_array(time, "_time")
     n = time.shape[0]
     if n == 0:
-        raise AnalysisError(
-            "There are no rows to analyse; check the exclusions in the data report."
-        )
+        raise NoRowsError()
     is_event = as_event_array(event, n)
     k = len(labels)
     if codes is not None and codes.size and codes.max() >= k:
