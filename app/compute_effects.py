@@ -11,11 +11,21 @@ import json
 import streamlit as st
 
 from app import data
+from engine.analysis.run import NOT_COMPUTED, is_not_computed
+from engine.errors import AnalysisError
 from engine.io.tables import ImportedTable
 
 
 def _prepared(fingerprint: str, roles_text: str, table: ImportedTable):
     return data.prepared_by_key(fingerprint, roles_text, table)
+
+
+def computed_or_raise(section):
+    """The section, or its reason as an ``AnalysisError`` when it is ``{"not_computed": ...}``,
+    so ``ui.guard`` shows the engine's own sentence (the result stays cached either way)."""
+    if is_not_computed(section):
+        raise AnalysisError(section[NOT_COMPUTED])
+    return section
 
 
 @st.cache_data(max_entries=16, show_spinner="Fitting the splines…")

@@ -80,8 +80,10 @@ with tabs[0]:
         if chosen:
             with ui.guard("The spline model"):
                 spline_cox = {**cox, "splines": keys.spline_settings(st.session_state)}
-                effects = compute_effects.splines(
-                    table.sha256, roles_text, json.dumps(spline_cox, sort_keys=True), table
+                effects = compute_effects.computed_or_raise(
+                    compute_effects.splines(
+                        table.sha256, roles_text, json.dumps(spline_cox, sort_keys=True), table
+                    )
                 )
                 tests = pd.DataFrame(
                     {
@@ -192,8 +194,10 @@ with tabs[1]:
         else:
             with ui.guard("The refitted model"):
                 split_cox = {**cox, "split": split}
-                result = compute_effects.time_split(
-                    table.sha256, roles_text, json.dumps(split_cox, sort_keys=True), table
+                result = compute_effects.computed_or_raise(
+                    compute_effects.time_split(
+                        table.sha256, roles_text, json.dumps(split_cox, sort_keys=True), table
+                    )
                 )
                 refit = result["model"]
                 cols = st.columns(4)
@@ -291,8 +295,10 @@ with tabs[2]:
                         "groups": int(st.session_state[keys.SUBGROUP_GROUPS]),
                     },
                 }
-                result = compute_effects.subgroups(
-                    table.sha256, roles_text, json.dumps(request, sort_keys=True), table
+                result = compute_effects.computed_or_raise(
+                    compute_effects.subgroups(
+                        table.sha256, roles_text, json.dumps(request, sort_keys=True), table
+                    )
                 )
                 rows = [result["overall"], *result["rows"]]
                 names = [

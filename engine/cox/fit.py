@@ -290,7 +290,7 @@ def fit_cox(
     if entry_values is not None and np.any(entry_values >= time):
         bad = np.flatnonzero(entry_values >= time)
         raise AnalysisError(
-            f"Entry time '{entry}' is at or after the exit time in {len(bad)} row(s) (for "
+            f"The entry time is at or after the exit time in {len(bad)} row(s) (for "
             f"example rows {preview_values(frame.index[used][bad])}); a subject must enter "
             "before it leaves. Fix or remove those rows."
         )

@@ -132,10 +132,12 @@ def split_at_times(
 ) -> pd.DataFrame:
     """Each row cut into episodes at the ``times`` inside its (entry, time] interval.
 
-    The result keeps every column, with ``entry_col`` the episode's start (0 when the frame had
-    no entry times), ``time_col`` its end, the event only on the last piece, ``PERIOD`` the index
-    of the period the episode lies in, and ``id_col`` the subject (the row label when the frame
-    had no id column), so a robust variance can still cluster by subject.
+    The result keeps every column, with ``entry_col`` the episode's start, ``time_col`` its
+    end, the event only on the last piece, ``PERIOD`` the index of the period the episode lies
+    in, and ``id_col`` the subject (the row label when the frame had no id column), so a robust
+    variance can still cluster by subject. Without entry times a first piece starts at −inf,
+    not 0: every row is at risk from the start, as in the unsplit model, so a row at time 0
+    keeps its place in the risk set at time 0 instead of becoming an empty (0, 0] interval.
     """
     cuts = np.unique(np.asarray(list(times), dtype=float))
     if len(cuts) == 0 or not np.all(np.isfinite(cuts)) or np.any(cuts <= 0):
@@ -147,7 +149,7 @@ def split_at_times(
     entry = (
         frame[entry_col].to_numpy(dtype=float)
         if entry_col in frame.columns
-        else np.zeros(len(frame))
+        else np.full(len(frame), -np.inf)
     )
     # Period of the entry (cut c belongs to the period before it) and of the exit.
     first = np.searchsorted(cuts, entry, side="right")

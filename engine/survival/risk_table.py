@@ -67,9 +67,14 @@ def as_float_array(values, name: str) -> np.ndarray:
 
 
 def checked_entry(entry, time: np.ndarray) -> np.ndarray:
-    """Entry times as floats, one per row and each earlier than its exit time."""
+    """Entry times as floats, one per row and each earlier than its exit time; −inf means at
+    risk from the start (the first episode of follow-up split at times, ``split_at_times``),
+    which differs from 0 only for a row at time 0."""
     n = time.shape[0]
-    entry = as_float_array(entry, "_entry")
+    entry = np.asarray(entry, dtype=np.float64).reshape(-1)
+    from_start = entry == -np.inf
+    entry = np.where(from_start, 0.0, entry)
+    entry = np.where(from_start, -np.inf, as_float_array(entry, "_entry"))
     if entry.shape[0] != n:
         raise AnalysisError(f"Column '_entry' has {entry.shape[0]} values but '_time' has {n}.")
     late = entry >= time

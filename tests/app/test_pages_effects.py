@@ -7,6 +7,8 @@ from __future__ import annotations
 import time
 from pathlib import Path
 
+import numpy as np
+import pandas as pd
 import pytest
 from streamlit.testing.v1 import AppTest
 
@@ -103,3 +105,59 @@ def test_regression_page_shows_robust_errors(page):
     assert any("robust, clustered by unit\\_id" in c.value for c in page.caption)
     page.radio(key="model_variance").set_value("Model-based").run()
     assert "SE (model-based)" not in page.dataframe[0].value.columns
+
+
+def _opened(content: bytes, name: str, **roles) -> AppTest:
+    """The app on an uploaded file with these roles (as the Column roles page would set them)."""
+    at = AppTest.from_file(ENTRY, default_timeout=240).run()
+    fresh: dict = {}
+    data.open_upload(fresh, content, name)
+    fresh[state.ROLES] = fresh[state.ROLES_SUGGESTED].to_roles(**roles)
+    for key, value in fresh.items():
+        at.session_state[key] = value
+    at.run()
+    return at
+
+
+def test_effects_over_time_keeps_rows_at_time_zero(tmp_path):
+    rng = np.random.default_rng(22)
+    months = np.round(rng.exponential(20, 150), 1)
+    months[:5] = 0.0
+    died = rng.integers(0, 2, 150)
+    died[:2] = 1
+    frame = pd.DataFrame({"months": months, "died": died, "age": rng.normal(60, 9, 150).round()})
+    path = tmp_path / "zero_times.csv"
+    frame.to_csv(path, index=False)
+    at = _opened(
+        path.read_bytes(), path.name, time="months", event="died", event_values=(1,),
+        covariates=("age",), group=None,
+    )  # fmt: skip
+    at.switch_page("views/effects.py").run()
+    at.text_input(key="effects_split_times").set_value("10").run()
+    at.multiselect(key="effects_split_changing").set_value(["age"]).run()
+    assert not at.exception, [e.message for e in at.exception]
+    assert not at.error, [e.value for e in at.error]
+    terms = next(d.value for d in at.dataframe if "Term" in d.value.columns)
+    assert list(terms["Term"]) == ["age, up to 10", "age, after 10"]
+    assert next(m.value for m in at.metric if m.label == "Events") == str(int(died.sum()))
+
+
+def test_a_refit_that_cannot_be_computed_shows_the_reason_not_a_key_error(tmp_path):
+    # split after the last time: the later period's column is 0 on every row
+    frame = pd.DataFrame(
+        {"months": [1, 2, 3, 4, 5, 6, 20, 30, 40, 50], "died": [1, 1, 1, 1, 1, 0, 1, 0, 1, 0],
+         "dose": [1, 0, 1, 0, 1, 0, 1, 0, 1, 0]}
+    )  # fmt: skip
+    path = tmp_path / "short.csv"
+    frame.to_csv(path, index=False)
+    at = _opened(
+        path.read_bytes(), path.name, time="months", event="died", event_values=(1,),
+        covariates=("dose",), group=None,
+    )  # fmt: skip
+    at.switch_page("views/effects.py").run()
+    at.text_input(key="effects_split_times").set_value("100").run()
+    at.multiselect(key="effects_split_changing").set_value(["dose"]).run()
+    assert not at.exception, [e.message for e in at.exception]
+    errors = [e.value for e in at.error]
+    assert any("could not be computed" in e and "single value" in e for e in errors), errors
+    assert not any("unexpectedly" in e for e in errors), errors

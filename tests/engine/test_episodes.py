@@ -332,3 +332,45 @@ def test_property_robust_variance_ignores_row_order_and_id_labels(seed):
     one = fit_cox(data, ["lab", "treated"], entry="_entry", clusters="_id")
     two = fit_cox(shuffled, ["lab", "treated"], entry="_entry", clusters="_id")
     assert_allclose(two.covariance, one.covariance, rtol=1e-9)
+
+
+def test_split_keeps_rows_at_time_zero_in_the_risk_set(tmp_path):
+    """Rows at time 0 (kept by prepare, with a warning) stay in the split model as in the unsplit
+    one: at risk at time 0, their events counted there. Exact property: no risk set changes."""
+    from engine.io.tables import read_table
+    from engine.prepare.checks import prepare
+    from engine.prepare.roles import suggest_roles
+
+    rng = np.random.default_rng(20)
+    months = np.round(rng.exponential(20, 120), 1)
+    months[:5] = 0.0
+    died = rng.integers(0, 2, 120)
+    died[:3] = 1  # three events at time 0
+    path = tmp_path / "zero_times.csv"
+    pd.DataFrame({"months": months, "died": died, "age": rng.normal(60, 10, 120).round(1)}).to_csv(
+        path, index=False
+    )
+    table = read_table(path)
+    roles = suggest_roles(table.frame).to_roles(
+        time="months", event="died", event_values=(1,), covariates=("age",)
+    )
+    frame = prepare(table.frame, roles).frame
+    assert (frame["_time"] == 0).sum() == 5
+    whole = fit_cox(frame, ["age"])
+    refit = fit_split(frame, ["age"], [10, 30])
+    assert refit.result.events == whole.events
+    assert_allclose(refit.result.model.beta, whole.model.beta, rtol=1e-7)
+    assert refit.result.loglik == pytest.approx(whole.loglik, rel=1e-12)
+    before = proportional_hazards_test(whole, "survival").checks[0].statistic
+    assert refit.ph_check.checks[0].statistic == pytest.approx(before, rel=1e-8)
+    changing = fit_split(frame, ["age"], [10], ["age"])  # one coefficient per period
+    assert [t.variable for t in changing.result.terms] == ["age, up to 10", "age, after 10"]
+
+
+def test_entry_at_exit_message_names_no_working_column():
+    frame = pd.DataFrame(
+        {"_time": [1.0, 2, 3, 4], "_event": [1, 0, 1, 1], "_entry": [0, 2, 0, 1], "x": [1, 2, 3, 5]}
+    )
+    with pytest.raises(AnalysisError, match="entry time is at or after") as caught:
+        fit_cox(frame, ["x"], entry="_entry")
+    assert "_entry" not in str(caught.value)
