@@ -27,28 +27,38 @@ XLSX_MIME = "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet"
 DOCX_MIME = "application/vnd.openxmlformats-officedocument.wordprocessingml.document"
 ROUNDING_NOTE = (
     "Rounded by Hazel's manuscript rules: times 1 decimal, survival as a percentage with 1 "
-    "decimal, hazard ratios 2 decimals, test statistics 2 decimals, p-values 3 decimals."
+    "decimal, hazard ratios 2 decimals, test statistics 2 decimals, p-values 3 decimals; a "
+    "non-zero value those decimals would show as zero keeps 2 significant figures."
 )
-_NUMBER = re.compile(r"^-?\d+(\.\d+)?%?$")
+# A number as the tables write it: an optional minus (ASCII or U+2212), digits with or without
+# thousands separators, decimals, a power of ten (1.27e+13) or a per cent sign.
+_NUMBER = re.compile(r"^[-−]?(\d{1,3}(,\d{3})+|\d+)(\.\d+)?([eE][-+]?\d+|%)?$")
 
 
 # --- Excel ---------------------------------------------------------------------------------------
 
 
 def _excel_value(text: str):
-    """(value, number format) for a rounded cell: numbers stay numbers, the rest text."""
+    """(value, number format) for a rounded cell: numbers stay numbers, shown as the table
+    wrote them (decimals, thousands separators, per cent, power of ten); the rest text."""
     if not _NUMBER.match(text):
         return text, None
-    percent = text.endswith("%")
-    digits = text.rstrip("%")
-    decimals = len(digits.split(".")[1]) if "." in digits else 0
+    body = text.replace("−", "-")
+    percent, scientific = body.endswith("%"), "e" in body.lower()
+    digits = body.rstrip("%")
+    mantissa = re.split(r"[eE]", digits)[0]
+    decimals = len(mantissa.split(".")[1]) if "." in mantissa else 0
     try:
-        number = Decimal(digits)
+        number = Decimal(digits.replace(",", ""))
     except InvalidOperation:  # pragma: no cover - the pattern admits only numbers
         return text, None
+    places = "." + "0" * decimals if decimals else ""
     if percent:
-        return float(number / 100), "0." + "0" * decimals + "%" if decimals else "0%"
-    return float(number), "0." + "0" * decimals if decimals else "0"
+        return float(number / 100), f"0{places}%"
+    if scientific:
+        return float(number), f"0{places}E+00"
+    value = int(number) if not decimals else float(number)
+    return value, ("#,##0" if "," in digits else "0") + places
 
 
 def _write_sheet(sheet, header: Sequence[str], rows, formats=None) -> None:

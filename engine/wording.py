@@ -66,6 +66,32 @@ def format_number(value: float | None, digits: int = 1, missing: str = NOT_ESTIM
     return text
 
 
+def format_significant(value: float, figures: int) -> str:
+    """``figures`` significant figures (0.0048 -> '0.0048' with 2); powers of ten beyond the
+    range a reader counts digit by digit."""
+    if _is_missing(value) or value == 0 or math.isinf(value):
+        return format_number(value, 0)
+    if abs(value) >= HUGE or abs(value) < TINY:
+        return _scientific(value)
+    magnitude = Decimal(repr(float(value))).adjusted()  # the decimal exponent, no float log
+    text = format_number(value, max(0, figures - 1 - magnitude))
+    if Decimal(text).adjusted() > magnitude:  # 0.0996 -> '0.10': one figure fewer is enough
+        text = format_number(value, max(0, figures - 2 - magnitude))
+    return text
+
+
+def format_nonzero(
+    value: float | None, digits: int, figures: int = 2, missing=NOT_ESTIMABLE
+) -> str:
+    """``format_number`` at ``digits`` decimals, except where those decimals would show a
+    non-zero value as zero: then ``figures`` significant figures (an SE of 0.0048 at 2 decimals
+    is '0.0048', not '0.00'), so a table never hides a value that is there."""
+    text = format_number(value, digits, missing)
+    if _is_missing(value) or value == 0 or math.isinf(value) or abs(value) >= HUGE:
+        return text
+    return format_significant(value, figures) if Decimal(text) == 0 else text
+
+
 def format_plain(value: float) -> str:
     """A caller-chosen value such as a time point: as typed, without trailing zeros (12, 2.5)."""
     if math.isfinite(value) and (abs(value) >= HUGE or 0 < abs(value) < TINY):

@@ -14,26 +14,32 @@ holds, judged from its name and, for interval limits, from the other columns of 
   a missing median or median limit is "not reached";
 - degrees of freedom as written (1, 2.5); whole-number columns as whole numbers;
 - any other number: 3 significant figures (a house rule for what the manuscript rules do not
-  cover); any other missing value: an empty cell.
+  cover); any other missing value: an empty cell;
+- no non-zero value is shown as zero: where the decimals above would round it to 0, it gets 2
+  significant figures (an SE of 0.0048 is "0.0048", a survival of 0.00001 "0.0010%");
+- a column of notes (``…_reason``, ``note``, ``method``) is text, even when every cell is empty.
 
-Headers become plain words: ``p_value`` → "p", ``hazard_ratio`` → "Hazard ratio",
-``at_risk`` → "At risk".
+Headers become Hazel's words: ``p_value`` → "p", ``se_model`` → "Standard error
+(model-based)", ``rmst_lower`` → "Restricted mean, lower limit", ``survival_12`` →
+"Survival at 12"; a name with capitals, spaces or other signs is kept as it is.
 """
 
 from __future__ import annotations
 
 import math
 import re
+from decimal import Decimal
 
 import pandas as pd
 
 from engine.wording import (
     NOT_REACHED,
-    format_number,
+    format_nonzero,
     format_p,
     format_percent,
     format_plain,
     format_ratio,
+    format_significant,
 )
 
 P, RATIO, PERCENT, PERCENT_SCALED, STATISTIC, TIME, DF, COUNT, OTHER, TEXT = (
@@ -50,22 +56,55 @@ _TIME_WORDS = {
     "time", "median", "rmst", "tau", "horizon", "landmark", "q1", "q3", "mean", "sd", "tick",
     "interval", "follow", "start", "end", "entry", "quantile", "months", "weeks", "days", "years",
 }  # fmt: skip
+_TEXT_WORDS = {"reason", "note", "notes", "method", "label", "warning", "warnings"}
 _COUNT_WORDS = {"n", "events", "censored", "at", "risk", "rows", "count", "subjects", "missing"}
+# Result keys in Hazel's words (the pages' own headers), whole keys first, then word by word.
 HEADERS = {
     "p": "p",
     "p_value": "p",
+    "p_bh": "p (Benjamini–Hochberg)",
+    "p_holm": "p (Holm)",
     "hazard_ratio": "Hazard ratio",
     "at_risk": "At risk",
-    "df": "df",
-    "se": "SE",
+    "n_at_risk": "At risk",
+    "n_events_cause": "Events of the cause",
+    "n_events_any": "Events of any cause",
+    "one_minus_km": "1 − Kaplan–Meier",
+    "coef": "Coefficient",
+    "se": "Standard error",
+    "se_model": "Standard error (model-based)",
+    "std_error": "Standard error",
+    "std_err": "Standard error",
+    "z": "Wald z",
+    "df": "Degrees of freedom",
     "sd": "SD",
     "aic": "AIC",
     "delta_aic": "Δ AIC",
-    "rmst": "RMST",
+    "log_likelihood": "Log-likelihood",
+    "n_parameters": "Parameters",
+    "rmst": "Restricted mean",
+    "tau": "Horizon",
+    "auc": "AUC",
+    "brier": "Brier score",
+    "brier_km": "Brier score, Kaplan–Meier only",
+    "group_a": "First group",
+    "group_b": "Second group",
+    "lower": "Lower limit",
+    "upper": "Upper limit",
     "n": "n",
     "q1": "Q1",
     "q3": "Q3",
 }
+_WORDS = {
+    "coef": "coefficient", "se": "standard error", "rmst": "restricted mean", "km": "Kaplan–Meier",
+    "lr": "likelihood-ratio", "aic": "AIC", "auc": "AUC", "sd": "SD", "df": "degrees of freedom",
+    "z": "Wald z", "nonlinearity": "non-linearity", "cif": "cumulative incidence",
+}  # fmt: skip
+_SUFFIXES = {
+    "_lower": ", lower limit", "_upper": ", upper limit", "_p_value": " p", "_p": " p",
+    "_reason": ", note", "_df": ", degrees of freedom", "_statistic": " statistic",
+}  # fmt: skip
+_AT_TIME = re.compile(r"([a-z0-9_]+?)_(\d+(?:\.\d+)?(?:e[+-]?\d+)?)")
 
 
 def _words(name: str) -> list[str]:
@@ -73,14 +112,30 @@ def _words(name: str) -> list[str]:
 
 
 def plain_header(name) -> str:
-    """A result key as plain words: 'hazard_ratio' -> 'Hazard ratio'."""
+    """A result key in Hazel's words: 'hazard_ratio' -> 'Hazard ratio', 'se_model' ->
+    'Standard error (model-based)', 'survival_12_lower' -> 'Survival at 12, lower limit';
+    any other text is kept as it is."""
     text = str(name)
-    if text in HEADERS:
-        return HEADERS[text]
-    if re.fullmatch(r"[a-z0-9_]+", text):
-        words = text.replace("_", " ").strip()
-        return words[:1].upper() + words[1:]
-    return text
+    if not re.fullmatch(r"[a-z0-9_.+-]+", text) or not re.search(r"[a-z]", text):
+        return text
+    words = _key_words(text)
+    if re.match(r"[a-z](\W|$)", words):  # a symbol (p, n) keeps its case
+        return words
+    return words[:1].upper() + words[1:]
+
+
+def _key_words(key: str) -> str:
+    if key in HEADERS:
+        return HEADERS[key]
+    for suffix, words in _SUFFIXES.items():
+        if key.endswith(suffix) and len(key) > len(suffix):
+            return _key_words(key[: -len(suffix)]) + words
+    at = _AT_TIME.fullmatch(key)
+    if at:
+        return f"{_key_words(at.group(1))} at {at.group(2)}"
+    if key.startswith("n_") and len(key) > 2:  # n_kept -> 'Kept': a count says so by itself
+        return _key_words(key[2:])
+    return " ".join(_WORDS.get(w, w) for w in key.split("_") if w)
 
 
 def column_kinds(frame: pd.DataFrame, title: str = "") -> dict[str, str]:
@@ -107,6 +162,8 @@ def _own_kind(name: str, series: pd.Series) -> str:
     if not numeric and not series.isna().all():  # (a column of missing values: by its name)
         return TEXT
     words = _words(name)
+    if words and words[-1] in _TEXT_WORDS:  # 'median_reason' is text even when all empty
+        return TEXT
     lowered = name.lower()
     if lowered in ("p", "p_value", "pvalue") or lowered.startswith("p_") or lowered.endswith("_p"):
         return P
@@ -147,25 +204,21 @@ def format_cell(value, kind: str, column: str = "") -> str:
     if kind == RATIO:
         return format_ratio(value)
     if kind == PERCENT:
-        return format_percent(value)
+        text = format_percent(value)
+        if value == 0 or not text.endswith("%") or Decimal(text[:-1]) != 0:
+            return text
+        return f"{format_significant(float(Decimal(repr(value)).scaleb(2)), 2)}%"
     if kind == PERCENT_SCALED:
-        return f"{format_number(value, 1)}%"
+        return f"{format_nonzero(value, 1)}%"
     if kind == STATISTIC:
-        return format_number(value, 2)
+        return format_nonzero(value, 2)
     if kind == TIME:
-        return format_number(value, 1)
+        return format_nonzero(value, 1)
     if kind == DF:
         return format_plain(value)
     if kind == COUNT:
         return f"{round(value)}"
-    return _significant(value, 3)
-
-
-def _significant(value: float, figures: int) -> str:
-    if value == 0 or math.isinf(value):
-        return format_number(value, 0)
-    digits = max(0, figures - 1 - math.floor(math.log10(abs(value))))
-    return format_number(value, digits)
+    return format_significant(value, 3)
 
 
 def manuscript_frame(frame: pd.DataFrame, title: str = "") -> pd.DataFrame:

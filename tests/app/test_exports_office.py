@@ -54,21 +54,22 @@ CURVES = pd.DataFrame(
 def test_columns_are_rounded_by_the_manuscript_rules():
     cox = manuscript_frame(COX)
     assert list(cox.columns) == [
-        "Variable", "Level", "Coef", "SE", "Hazard ratio", "Lower", "Upper", "p", "n",
+        "Variable", "Level", "Coefficient", "Standard error", "Hazard ratio", "Lower limit",
+        "Upper limit", "p", "n",
     ]  # fmt: skip
     assert cox["Hazard ratio"].tolist() == ["1.05", "1.65", "0.046"]  # 2 sig. figures < 0.1
-    assert cox["Lower"].tolist() == ["1.03", "1.34", "0.012"]  # limits beside a ratio
-    assert cox["Upper"].tolist() == ["1.07", "2.02", "0.10"]  # 0.0999 rounds into 2 decimals
+    assert cox["Lower limit"].tolist() == ["1.03", "1.34", "0.012"]  # limits beside a ratio
+    assert cox["Upper limit"].tolist() == ["1.07", "2.02", "0.10"]  # 0.0999 rounds into 2 decimals
     assert cox["p"].tolist() == ["< 0.001", "0.013", "> 0.999"]  # 0.0125 half up
-    assert cox["Coef"].tolist() == ["0.05", "0.50", "-1.20"]
+    assert cox["Coefficient"].tolist() == ["0.05", "0.50", "-1.20"]
     assert cox["n"].tolist() == ["1500"] * 3
     assert cox["Level"].tolist() == ["", "dry film", "x"]
     curves = manuscript_frame(CURVES)
     assert curves["Median"].tolist() == ["23.0", "not reached"]
-    assert curves["Median upper"].tolist() == ["not reached", "not reached"]
-    assert curves["Survival 12"].tolist() == ["64.3%", "50.0%"]
-    assert curves["Survival 12 lower"].tolist() == ["55.1%", "40.0%"]
-    assert curves["df"].tolist() == ["1", "2"]
+    assert curves["Median, upper limit"].tolist() == ["not reached", "not reached"]
+    assert curves["Survival at 12"].tolist() == ["64.3%", "50.0%"]
+    assert curves["Survival at 12, lower limit"].tolist() == ["55.1%", "40.0%"]
+    assert curves["Degrees of freedom"].tolist() == ["1", "2"]
     assert curves["Statistic"].tolist() == ["16.79", "3.14"]
 
 
@@ -104,7 +105,7 @@ def test_percentages_in_excel_are_fractions_shown_as_percent():
     book = openpyxl.load_workbook(io.BytesIO(exports_office.table_xlsx(CURVES, "Curves")))
     table = book["Table"]
     header = [c.value for c in table[1]]
-    cell = table[2][header.index("Survival 12")]
+    cell = table[2][header.index("Survival at 12")]
     assert cell.value == pytest.approx(0.643) and cell.number_format == "0.0%"
     assert table[3][header.index("Median")].value == "not reached"
 
@@ -193,3 +194,102 @@ def test_numbers_survive_the_round_trip_through_excel():
     book = openpyxl.load_workbook(io.BytesIO(exports_office.table_xlsx(frame, "t")))
     values = [[c.value for c in row] for row in book["Table"].iter_rows(min_row=2)]
     assert values == [[1.3, 0.044], [2.4, 0.5]]  # half up on the printed decimal
+
+
+# --- issue: downloads that rounded information away ---------------------------------------------
+
+
+def _prepared_file(tmp_path, n: int = 400, seed: int = 23):
+    """A file of its own: two arms, most subjects followed until the event (medians reached),
+    and a covariate on a large scale (so its coefficient and SE are tiny)."""
+    from engine.io.tables import read_table
+    from engine.prepare.checks import prepare
+    from engine.prepare.roles import suggest_roles
+
+    rng = np.random.default_rng(seed)
+    arm = rng.choice(["a", "b"], n)
+    months = np.round(rng.exponential(np.where(arm == "a", 30, 45)), 2) + 0.01
+    frame = pd.DataFrame(
+        {
+            "months": months,
+            "died": (rng.random(n) < 0.85).astype(int),
+            "arm": arm,
+            "income": np.round(rng.normal(40_000, 9_000, n)),
+        }
+    )
+    path = tmp_path / "clinic.csv"
+    frame.to_csv(path, index=False)
+    table = read_table(path)
+    roles = suggest_roles(table.frame).to_roles(
+        time="months", event="died", event_values=(1,), group="arm", covariates=("income",)
+    )
+    return path, prepare(table.frame, roles)
+
+
+def test_curve_summary_notes_a_missing_median_only_where_one_is_missing(tmp_path):
+    from engine.survival.summary import group_summary
+
+    _, prepared = _prepared_file(tmp_path)
+    frame = group_summary(prepared.frame, times=(12,)).to_frame()
+    assert frame["median"].notna().all() and frame["median_reason"].isna().all()
+    document = docx.Document(io.BytesIO(exports_office.table_docx(frame, "Curve summary")))
+    header, *rows = [[c.text for c in row.cells] for row in document.tables[0].rows]
+    note = header.index("Median, note")
+    assert [r[note] for r in rows] == [""] * len(frame)
+    assert all(float(r[header.index("Median")]) > 0 for r in rows)
+    assert "Survival at 12" in header and "Restricted mean, lower limit" in header
+    book = openpyxl.load_workbook(io.BytesIO(exports_office.table_xlsx(frame, "Curve summary")))
+    sheet = book["Table"]
+    names = [c.value for c in sheet[1]]
+    assert all(sheet.cell(r, names.index("Median, note") + 1).value is None for r in (2, 3, 4))
+    # where the median is not reached, the note says why
+    late = frame.assign(median=[None] * len(frame), median_reason=["not reached: x"] * len(frame))
+    assert set(manuscript_frame(late)["Median, note"]) == {"not reached: x"}
+    assert set(manuscript_frame(late)["Median"]) == {"not reached"}
+
+
+def test_cox_download_keeps_small_values_and_words_its_headers(tmp_path):
+    from engine.cox.fit import fit_cox
+
+    _, prepared = _prepared_file(tmp_path)
+    terms = fit_cox(prepared.frame, ["income"], variance="robust").to_frame()
+    se = float(terms["se"].iloc[0])
+    assert 0 < se < 0.005  # would have been written "0.00"
+    document = docx.Document(io.BytesIO(exports_office.table_docx(terms, "Cox model")))
+    header, row = [[c.text for c in r.cells] for r in document.tables[0].rows]
+    for words in ("Coefficient", "Standard error", "Standard error (model-based)", "Wald z"):
+        assert words in header, header
+    assert not {"Coef", "SE", "Se model", "Z"} & set(header)
+    shown = row[header.index("Standard error")]
+    assert float(shown) != 0 and abs(float(shown) - se) / se < 0.05  # 2 significant figures
+    assert float(row[header.index("Coefficient")]) != 0
+    book = openpyxl.load_workbook(io.BytesIO(exports_office.table_xlsx(terms, "Cox model")))
+    sheet = book["Table"]
+    cell = sheet.cell(2, [c.value for c in sheet[1]].index("Standard error") + 1)
+    assert isinstance(cell.value, float) and cell.value == pytest.approx(se, rel=0.05)
+    assert cell.number_format.startswith("0.00")  # formatted, never text
+
+
+def test_report_workbook_stores_every_count_as_a_number(tmp_path):
+    path, _ = _prepared_file(tmp_path, n=2400)
+    out = tmp_path / "report.xlsx"
+    done = subprocess.run(
+        [
+            sys.executable, "-m", "app", "analyze", str(path), "--time", "months", "--event",
+            "died", "--event-value", "1", "--group", "arm", "--covariates", "income",
+            "--report", str(out),
+        ],
+        cwd=ROOT, capture_output=True, text=True, timeout=300,
+    )  # fmt: skip
+    assert done.returncode == 0, done.stderr
+    book = openpyxl.load_workbook(out)
+    numbers_as_text = [
+        (sheet.title, c.coordinate, c.value)
+        for sheet in book
+        for row in sheet.iter_rows()
+        for c in row
+        if isinstance(c.value, str) and re.fullmatch(r"[-−]?[\d,]+(\.\d+)?%?", c.value)
+    ]
+    assert not numbers_as_text
+    counts = [c for sheet in book for row in sheet.iter_rows() for c in row if c.value == 2400]
+    assert counts and all(c.number_format == "#,##0" for c in counts)

@@ -322,3 +322,25 @@ def test_planned_hazard_ratio_states_its_direction(ratio, words):
     text = hazard_ratio_direction(ratio)
     assert "experimental group's hazard divided by the control group's" in text
     assert f"{words} in the experimental group" in text
+
+
+@given(st.floats(min_value=-1e9, max_value=1e9, allow_nan=False), st.integers(0, 4))
+def test_format_nonzero_never_writes_a_non_zero_value_as_zero(value, digits):
+    from engine.wording import format_nonzero
+
+    text = format_nonzero(value, digits)
+    if value != 0:
+        assert float(text) != 0, (value, text)
+        # within half a unit of the last digit shown, or 2 significant figures
+        assert abs(float(text) - value) <= max(0.5 * 10**-digits, abs(value) * 0.05) + 1e-12
+
+
+@pytest.mark.parametrize(
+    ("value", "figures", "expected"),
+    [(0.0048, 2, "0.0048"), (0.0996, 2, "0.10"), (0.00995, 2, "0.010"), (123456.0, 3, "123456"),
+     (1.234, 2, "1.2"), (0.0, 2, "0"), (-0.000123, 2, "-0.00012"), (2.5e-7, 2, "2.50e-07")],
+)  # fmt: skip
+def test_format_significant(value, figures, expected):
+    from engine.wording import format_significant
+
+    assert format_significant(value, figures) == expected
