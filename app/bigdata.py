@@ -131,7 +131,7 @@ def install_source(session: MutableMapping, source, label: str) -> None:
     session[state.ROLES_CONFIRMED] = False
     session[state.DATA_VERSION] = session.get(state.DATA_VERSION, 0) + 1
     session.pop(state.LOAD_ERROR, None)
-    state.clear_page_choices(session, ("roles_", "curves_", "compare_", "model_", "filter_"))
+    state.forget_data_choices(session)
 
 
 def stop_or_rerun() -> None:

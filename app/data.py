@@ -136,7 +136,7 @@ def install_table(session: MutableMapping, table: ImportedTable, label: str, is_
     from app.row_filters import forget_filters
 
     forget_filters(session)  # filters chose rows of the previous table
-    state.clear_page_choices(session, ("roles_", "curves_", "compare_", "model_", "filter_"))
+    state.forget_data_choices(session)
 
 
 def open_demo(session: MutableMapping, path: Path) -> None:

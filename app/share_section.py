@@ -354,11 +354,8 @@ def restore_recipe(session: MutableMapping, recipe: Recipe) -> list[str]:
     return warnings
 
 
-PAGE_PREFIXES = (
-    "roles_", "curves_", "compare_", "model_", "cr_", "param_", "power_", "landmark_", "effects_",
-    "baseline_",
-)  # fmt: skip
-PAGE_PREFIXES = (*PAGE_PREFIXES, "perf_")
+# A recipe sets the filters itself (the Row filters page's drafts stay).
+PAGE_PREFIXES = tuple(p for p in state.DATA_CHOICE_PREFIXES if p != "filter_")
 
 
 def _role_columns(roles: Roles) -> list[str]:

@@ -22,7 +22,7 @@ ROLES_SUGGESTED = "shared_roles_suggested"
 # False while the roles in use are Hazel's suggestions (or a demo's preset) that nobody has
 # checked yet: every page then says "Suggested roles in use — check them".
 ROLES_CONFIRMED = "shared_roles_confirmed"
-DATA_VERSION = "data_version"  # bumps when a new table is loaded: resets page widgets
+DATA_VERSION = "data_version"  # bumps when a new table is loaded
 PENDING_UPLOAD = "pending_upload"  # (name, bytes) of a file to read on the next run
 LOAD_ERROR = "load_error"  # message from the last failed import, shown on the import page
 
@@ -66,3 +66,26 @@ PERSISTENT_PREFIXES = (*PERSISTENT_PREFIXES, "baseline_")  # the baseline table 
 SOURCE = "shared_source"  # engine.aggregate.sources.SqlSource in use (its connection inside)
 SOURCE_ID = "shared_source_id"  # a random key naming that source in the caches
 READ_STOPPED = "shared_read_stopped"  # the (source id, roles) whose read the user stopped
+
+# --- choices that depend on the data in use -------------------------------------------------
+# Every page prefix whose widget values name times, levels, columns or counts of the data in use
+# (a time typed for one table is outside another's follow-up). They are forgotten whenever a new
+# table or source is opened (``forget_data_choices``), so each page starts from its defaults for
+# the new data, as in a fresh session. Prefixes left out on purpose: "view_" (chart size),
+# "import_" (how files are read), "dbconnect_" (a database address), "share_" (the recipe upload
+# already applied; the report is keyed on what it was built from).
+DATA_CHOICE_PREFIXES = (
+    "roles_", "curves_", "compare_", "model_", "filter_", "cr_", "param_", "power_", "landmark_",
+    "effects_", "baseline_", "perf_",
+)  # fmt: skip
+MODEL_PROFILES = "shared_model_custom_profiles"  # covariates -> [(name, ((column, value), ...))]
+PERF_OPTIMISM = "shared_perf_optimism"  # {(model key, replicates, seed): OptimismResult}
+DATA_CHOICE_KEYS = (MODEL_PROFILES, PERF_OPTIMISM)  # set by code, from the data in use too
+
+
+def forget_data_choices(session: MutableMapping) -> None:
+    """A new table or source: forget every page's choices made for the previous one."""
+    clear_page_choices(session, DATA_CHOICE_PREFIXES)
+    for key in DATA_CHOICE_KEYS:
+        if key in session:  # (AppTest's session state has no pop)
+            del session[key]

@@ -8,13 +8,13 @@ from __future__ import annotations
 import pandas as pd
 import streamlit as st
 
-from app import charts, charts_models, compute, compute_beyond, data, ui
+from app import charts, charts_models, compute, compute_beyond, data, state, ui
 from app.share_section import NO_MODEL_STRATA, REFERENCE_PREFIX, VARIANCE_LABELS
 from engine.errors import HazelError
 from engine.prediction.optimism import DEFAULT_REPLICATES, DEFAULT_SEED
 
 TIES = {"Efron (default)": "efron", "Breslow": "breslow"}  # the Regression page's labels
-OPTIMISM = "shared_perf_optimism"  # {(model key, replicates, seed): OptimismResult}
+OPTIMISM = state.PERF_OPTIMISM
 
 
 def _three(value) -> str:

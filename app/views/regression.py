@@ -6,7 +6,7 @@ from __future__ import annotations
 import pandas as pd
 import streamlit as st
 
-from app import big_views, bigdata, charts, charts_models, compute, data, thinning, ui
+from app import big_views, bigdata, charts, charts_models, compute, data, state, thinning, ui
 from app.share_section import NO_MODEL_STRATA, PH_LABELS, REFERENCE_PREFIX, VARIANCE_LABELS
 from engine.cox.diagnostics import TIME_SCALE_WORDS
 from engine.errors import HazelError
@@ -23,7 +23,7 @@ PH_SCALE_AXIS = {
 }
 NO_STRATA = NO_MODEL_STRATA  # labels and keys the recipe (app.share_section) reads back
 EACH_LEVEL, MY_PROFILES = "Each level of one covariate", "Profiles I set"
-CUSTOM_PROFILES = "shared_model_custom_profiles"  # covariates -> [(name, ((column, value), ...))]
+CUSTOM_PROFILES = state.MODEL_PROFILES
 DOT_LIMIT = 4000  # dots drawn in a residual plot; beyond this a seeded sample is drawn
 
 st.title("Regression", anchor=False)
