@@ -401,7 +401,9 @@ def incidence_figure(prepared: PreparedData, settings: Mapping):
         charts.group_colours(series),
         one_minus_km=km,
         y_domain=domain,
-        legend_title="Group: cause" if by_group and "_group" in prepared.frame else "Cause",
+        legend_title=charts.incidence_legend_title(
+            prepared.roles.group if by_group and "_group" in prepared.frame else None
+        ),
     )
     return charts.finish(chart, style)
 

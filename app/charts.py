@@ -103,6 +103,12 @@ def group_title(column: object) -> str:
     return f"Group: {column}"
 
 
+def incidence_legend_title(group_column: object | None) -> str:
+    """The legend heading of cumulative-incidence curves: 'Cause', or 'housing: cause' when
+    each curve is one level of the group column and one cause (labelled 'straw yard: died')."""
+    return "Cause" if group_column is None else f"{group_column}: cause"
+
+
 def tick_format(ticks: Sequence[float]) -> str:
     """A d3 number format with as many decimals as the tick step needs (a step of 2.5 gives
     '2.5, 5.0, 7.5', never '3, 5, 8'), thousands separated."""

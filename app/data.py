@@ -93,6 +93,8 @@ DEMO_ROLES: dict[str, dict] = {
         "unit": "weeks",
         "event": "status",
         "event_values": ("died",),
+        # made for competing risks: a sale ends follow-up as surely as a death does
+        "event_causes": (("died", "died"), ("sold", "sold")),
         "group": "housing",
         "covariates": ("first_calving_age_months", "farm"),
         "categorical": ("farm",),

@@ -127,7 +127,7 @@ def incidence_block(table, roles, roles_text: str, unit: str, has_group: bool) -
             charts.group_colours(series),
             one_minus_km=km if show_km else None,
             y_domain=(0.0, min(1.0, top * 1.05)),
-            legend_title="Group: cause" if by_group else "Cause",
+            legend_title=charts.incidence_legend_title(roles.group if by_group else None),
         )
         ui.figure(chart, style, "cumulative-incidence", "cr_figure")
         st.caption(

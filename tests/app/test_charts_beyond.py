@@ -140,3 +140,34 @@ def test_power_chart_lines_per_formula_and_side_with_target_rules():
     rules = [layer for layer in layers if _mark(layer)["type"] == "rule"]
     values = sorted(float(_data(spec, r).iloc[0, 0]) for r in rules)
     assert values == [0.7, 0.8]
+
+
+def test_incidence_legend_names_the_group_column_beside_the_cause(tmp_path):
+    """Curves by group and cause are labelled 'a: died'; the heading says which column the
+    'a' comes from ('arm: cause'), never a bare 'Group: cause'."""
+    from app import batch
+    from engine.io.tables import read_table
+    from engine.prepare.checks import prepare
+    from engine.prepare.roles import suggest_roles
+
+    rng = np.random.default_rng(26)
+    n = 200
+    status = rng.choice(["died", "moved", "alive"], n)
+    pd.DataFrame(
+        {"weeks": np.round(rng.exponential(20, n), 1) + 0.1, "status": status,
+         "arm": rng.choice(["a", "b"], n)}
+    ).to_csv(tmp_path / "two_causes.csv", index=False)  # fmt: skip
+    table = read_table(tmp_path / "two_causes.csv")
+    roles = suggest_roles(table.frame).to_roles(
+        time="weeks", event="status", event_values=("died",), group="arm",
+        event_causes=(("died", "died"), ("moved", "moved")),
+    )  # fmt: skip
+    prepared = prepare(table.frame, roles)
+    texts = []
+    for by_group in (True, False):
+        spec = batch.incidence_figure(prepared, {"competing": {"by_group": by_group}})
+        frames = [f for f in spec["datasets"].values() if isinstance(f, pd.DataFrame)]
+        texts.append(" ".join([str(spec), *(f.to_string() for f in frames)]))
+    assert "arm: cause" in texts[0] and "Group: cause" not in texts[0]
+    assert "arm: cause" not in texts[1]
+    assert charts.incidence_legend_title(None) == "Cause"

@@ -60,14 +60,17 @@ def _dairy_roles():
 
 def test_competing_risks_page_names_causes_and_shows_the_engine_incidence():
     at = _open("views/competing.py", "dairy_herd.csv")
-    # "died" is the event value of the demo's roles; name "sold" as the competing cause
-    boxes = {t.key: t for t in at.text_input if t.key.startswith("cr_cause_")}
-    assert any(t.value == "died" for t in boxes.values())
-    sold = next(t for t in boxes.values() if t.label.endswith("sold"))
-    sold.input("sold").run()
-    assert not at.exception, [e.message for e in at.exception]
+    # the demo was made for competing risks: it opens with both causes named, "died" leading
+    boxes = {t.label: t.value for t in at.text_input if t.key.startswith("cr_cause_")}
+    assert boxes == {"Cause for sold": "sold", "Cause for in herd": "", "Cause for died": "died"}
     roles = at.session_state[state.ROLES]
-    assert dict((str(v), n) for v, n in roles.event_causes) == {"died": "died", "sold": "sold"}
+    assert [(str(v), n) for v, n in roles.event_causes] == [("died", "died"), ("sold", "sold")]
+    assert not any("Only one kind of event" in i.value for i in at.info)
+    # the curves are housing x cause, and the legend says so
+    chart = at.get("vega_lite_chart")[0].proto
+    blobs = [chart.spec.encode(), *(d.data.data for d in chart.datasets)]
+    assert any(b"housing: cause" in b for b in blobs)
+    assert not any(b"Group: cause" in b for b in blobs)
     assert any("overstates the cumulative incidence" in w.value for w in at.warning)
     table, _ = _dairy_roles()
     prepared = prepare(table.frame, roles)
