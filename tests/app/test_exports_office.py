@@ -293,3 +293,15 @@ def test_report_workbook_stores_every_count_as_a_number(tmp_path):
     assert not numbers_as_text
     counts = [c for sheet in book for row in sheet.iter_rows() for c in row if c.value == 2400]
     assert counts and all(c.number_format == "#,##0" for c in counts)
+
+
+@pytest.mark.parametrize(
+    ("key", "words"),
+    [("rmst_lower", "Restricted mean, lower limit"), ("se_model", "Standard error (model-based)"),
+     ("survival_2.5_upper", "Survival at 2.5, upper limit"), ("p_bh", "p (Benjamini–Hochberg)"),
+     ("n_at_risk", "At risk"), ("median_reason", "Median, note"), ("z", "Wald z"),
+     ("univariable_lr_p_value", "Univariable likelihood-ratio p"), ("n", "n"),
+     ("Age (years)", "Age (years)"), ("load_kN", "load_kN")],
+)  # fmt: skip
+def test_result_keys_become_hazels_words(key, words):
+    assert plain_header(key) == words
