@@ -107,15 +107,24 @@ def test_regression_page_shows_robust_errors(page):
     assert "SE (model-based)" not in page.dataframe[0].value.columns
 
 
-def _opened(content: bytes, name: str, **roles) -> AppTest:
-    """The app on an uploaded file with these roles (as the Column roles page would set them)."""
+def _split_page(tmp_path, frame: pd.DataFrame, covariate: str, times: str) -> AppTest:
+    """The Effects over time tab on a file of the test's own (months, died, one covariate), the
+    covariate's effect allowed to change at ``times``."""
+    path = tmp_path / "split.csv"
+    frame.to_csv(path, index=False)
     at = AppTest.from_file(ENTRY, default_timeout=240).run()
     fresh: dict = {}
-    data.open_upload(fresh, content, name)
-    fresh[state.ROLES] = fresh[state.ROLES_SUGGESTED].to_roles(**roles)
+    data.open_upload(fresh, path.read_bytes(), path.name)
+    fresh[state.ROLES] = fresh[state.ROLES_SUGGESTED].to_roles(
+        time="months", event="died", event_values=(1,), covariates=(covariate,), group=None
+    )
     for key, value in fresh.items():
         at.session_state[key] = value
     at.run()
+    at.switch_page("views/effects.py").run()
+    at.text_input(key="effects_split_times").set_value(times).run()
+    at.multiselect(key="effects_split_changing").set_value([covariate]).run()
+    assert not at.exception, [e.message for e in at.exception]
     return at
 
 
@@ -126,16 +135,7 @@ def test_effects_over_time_keeps_rows_at_time_zero(tmp_path):
     died = rng.integers(0, 2, 150)
     died[:2] = 1
     frame = pd.DataFrame({"months": months, "died": died, "age": rng.normal(60, 9, 150).round()})
-    path = tmp_path / "zero_times.csv"
-    frame.to_csv(path, index=False)
-    at = _opened(
-        path.read_bytes(), path.name, time="months", event="died", event_values=(1,),
-        covariates=("age",), group=None,
-    )  # fmt: skip
-    at.switch_page("views/effects.py").run()
-    at.text_input(key="effects_split_times").set_value("10").run()
-    at.multiselect(key="effects_split_changing").set_value(["age"]).run()
-    assert not at.exception, [e.message for e in at.exception]
+    at = _split_page(tmp_path, frame, "age", "10")
     assert not at.error, [e.value for e in at.error]
     terms = next(d.value for d in at.dataframe if "Term" in d.value.columns)
     assert list(terms["Term"]) == ["age, up to 10", "age, after 10"]
@@ -148,16 +148,7 @@ def test_a_refit_that_cannot_be_computed_shows_the_reason_not_a_key_error(tmp_pa
         {"months": [1, 2, 3, 4, 5, 6, 20, 30, 40, 50], "died": [1, 1, 1, 1, 1, 0, 1, 0, 1, 0],
          "dose": [1, 0, 1, 0, 1, 0, 1, 0, 1, 0]}
     )  # fmt: skip
-    path = tmp_path / "short.csv"
-    frame.to_csv(path, index=False)
-    at = _opened(
-        path.read_bytes(), path.name, time="months", event="died", event_values=(1,),
-        covariates=("dose",), group=None,
-    )  # fmt: skip
-    at.switch_page("views/effects.py").run()
-    at.text_input(key="effects_split_times").set_value("100").run()
-    at.multiselect(key="effects_split_changing").set_value(["dose"]).run()
-    assert not at.exception, [e.message for e in at.exception]
+    at = _split_page(tmp_path, frame, "dose", "100")
     errors = [e.value for e in at.error]
     assert any("could not be computed" in e and "single value" in e for e in errors), errors
     assert not any("unexpectedly" in e for e in errors), errors
