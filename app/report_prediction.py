@@ -17,7 +17,7 @@ from app.report_html import (
     table,
 )
 from engine.analysis.run import is_not_computed
-from engine.wording import format_number, format_p, format_plain, format_ratio
+from engine.wording import format_nonzero, format_number, format_p, format_plain, format_ratio
 
 
 def _term_label(term: Mapping) -> str:
@@ -46,8 +46,8 @@ def competing_regression_block(section: Mapping, unit: str, ci: str, forest) -> 
         rows = [
             [
                 cell(_term_label(t)),
-                num(t["coef"], format_number(t["coef"], 3)),
-                num(t["se"], format_number(t["se"], 3)),
+                num(t["coef"], format_nonzero(t["coef"], 3)),
+                num(t["se"], format_nonzero(t["se"], 3)),
                 num(t["hazard_ratio"], format_ratio(t["hazard_ratio"])),
                 interval(t["lower"], t["upper"], format_ratio),
                 num(t["p_value"], format_p(t["p_value"])),

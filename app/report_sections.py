@@ -32,6 +32,7 @@ from engine.wording import (
     cox_sentences,
     curve_sentences,
     format_confidence,
+    format_nonzero,
     format_number,
     format_p,
     format_percent,
@@ -293,8 +294,8 @@ def cox_section(cox: Mapping | None, confidence: float, forest) -> str:
                 num(term["hazard_ratio"], format_ratio(term["hazard_ratio"])),
                 interval(term["lower"], term["upper"], format_ratio),
                 num(term["p_value"], format_p(term["p_value"])),
-                num(term["coef"], format_number(term["coef"], 3)),
-                num(term["se"], format_number(term["se"], 3)),
+                num(term["coef"], format_nonzero(term["coef"], 3)),
+                num(term["se"], format_nonzero(term["se"], 3)),
             ]
         )
     parts = [

@@ -293,6 +293,11 @@ def test_report_workbook_stores_every_count_as_a_number(tmp_path):
     assert not numbers_as_text
     counts = [c for sheet in book for row in sheet.iter_rows() for c in row if c.value == 2400]
     assert counts and all(c.number_format == "#,##0" for c in counts)
+    # the income coefficient's SE (about 1e-5) stays a non-zero number, not "0.000"
+    cox = next(s for s in book if s.title.startswith("Cox"))
+    header = [c.value for c in cox[1]]
+    se = cox.cell(2, header.index("Standard error") + 1).value
+    assert isinstance(se, float) and 0 < se < 1e-3
 
 
 @pytest.mark.parametrize(
