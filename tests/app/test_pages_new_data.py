@@ -46,16 +46,19 @@ def _open_upload(at: AppTest, name: str, content: bytes) -> None:
     assert at.session_state[state.DATASET_LABEL] == name
 
 
+def _use_short_file_roles(at: AppTest) -> None:
+    at.session_state[state.ROLES] = at.session_state[state.ROLES_SUGGESTED].to_roles(
+        time="weeks", event="died", event_values=(1,), group="arm", covariates=("age",)
+    )
+
+
 def test_performance_page_starts_from_the_new_data_times(tmp_path):
     at = AppTest.from_file(ENTRY, default_timeout=240).run()  # opens on the pump demo
     at.switch_page("views/performance.py").run()
     assert not at.error, [e.value for e in at.error]
     old_times = at.session_state["perf_times"]
     _open_upload(at, *_short_file(tmp_path))
-    roles = at.session_state[state.ROLES_SUGGESTED].to_roles(
-        time="weeks", event="died", event_values=(1,), group="arm", covariates=("age",)
-    )
-    at.session_state[state.ROLES] = roles
+    _use_short_file_roles(at)
     at.switch_page("views/performance.py").run()
     assert not at.exception, [e.message for e in at.exception]
     assert not at.error, [e.value for e in at.error]
@@ -79,3 +82,9 @@ def test_every_data_choice_of_every_page_is_forgotten_on_new_data(tmp_path):
     left = {k for k in at.session_state if isinstance(k, str)}
     assert not [k for k in left if k.startswith(state.DATA_CHOICE_PREFIXES)]
     assert not set(state.DATA_CHOICE_KEYS) & left
+    # and every page works on the new data as in a fresh session
+    _use_short_file_roles(at)
+    for page in PAGES:
+        at.switch_page(f"views/{page}.py").run()
+        assert not at.exception, (page, [e.message for e in at.exception])
+        assert not at.error, (page, [e.value for e in at.error])
