@@ -54,14 +54,30 @@ class RiskTable:
         )
 
 
+# What the messages call the prepared frame's working columns: a user never named them.
+WORKING_NAMES = {
+    "_time": "times", "_entry": "entry times", "_event": "event indicators", "_group": "groups",
+    "_strata": "strata",
+}  # fmt: skip
+
+
+def _called(name: str) -> str:
+    return WORKING_NAMES.get(name, f"values of column {name!r}")
+
+
+def _same_length(values: np.ndarray | pd.Series, n: int, name: str) -> None:
+    if len(values) != n:
+        raise AnalysisError(f"There are {len(values)} {_called(name)} but {n} times.")
+
+
 def as_float_array(values, name: str) -> np.ndarray:
     """Times as a 1-D float array, refusing missing, infinite or negative values."""
     arr = np.asarray(values, dtype=np.float64).reshape(-1)
     bad = ~np.isfinite(arr) | (arr < 0)
     if bad.any():
         raise AnalysisError(
-            f"Column {name!r} must hold finite times >= 0; found {preview_values(arr[bad])}. "
-            "Exclude or correct those rows before the analysis."
+            f"The {_called(name)} must be finite and at least 0; found "
+            f"{preview_values(arr[bad])}. Exclude or correct those rows before the analysis."
         )
     return arr
 
@@ -70,17 +86,14 @@ def checked_entry(entry, time: np.ndarray) -> np.ndarray:
     """Entry times as floats, one per row and each earlier than its exit time; −inf means at
     risk from the start (the first episode of follow-up split at times, ``split_at_times``),
     which differs from 0 only for a row at time 0."""
-    n = time.shape[0]
     entry = np.asarray(entry, dtype=np.float64).reshape(-1)
+    _same_length(entry, time.shape[0], "_entry")
     from_start = entry == -np.inf
-    entry = np.where(from_start, 0.0, entry)
-    entry = np.where(from_start, -np.inf, as_float_array(entry, "_entry"))
-    if entry.shape[0] != n:
-        raise AnalysisError(f"Column '_entry' has {entry.shape[0]} values but '_time' has {n}.")
+    entry = np.where(from_start, -np.inf, as_float_array(np.where(from_start, 0, entry), "_entry"))
     late = entry >= time
     if late.any():
         raise AnalysisError(
-            f"Column '_entry' must be earlier than '_time'; {int(late.sum())} rows are not "
+            f"Entry times must be earlier than exit times; {int(late.sum())} rows are not "
             f"(entry values {preview_values(entry[late])}). Correct or exclude those rows."
         )
     return entry
@@ -89,16 +102,15 @@ def checked_entry(entry, time: np.ndarray) -> np.ndarray:
 def as_event_array(values, n: int) -> np.ndarray:
     """Event indicators as a bool array, refusing anything but 0/1."""
     arr = np.asarray(values).reshape(-1)
-    if arr.shape[0] != n:
-        raise AnalysisError(f"Column '_event' has {arr.shape[0]} values but '_time' has {n}.")
+    _same_length(arr, n, "_event")
     if arr.dtype == bool:
         return arr
     numeric = np.asarray(arr, dtype=np.float64)
     bad = ~np.isin(numeric, (0.0, 1.0))
     if bad.any():
         raise AnalysisError(
-            f"Column '_event' must be 0 (censored) or 1 (event); found {preview_values(arr[bad])}. "
-            "Map the event coding before the analysis."
+            f"Event indicators must be 0 (censored) or 1 (event); found "
+            f"{preview_values(arr[bad])}. Map the event coding before the analysis."
         )
     return numeric == 1.0
 
@@ -115,8 +127,7 @@ def group_codes(
     if group is None:
         return np.zeros(n, dtype=np.intp), (None,)
     series = group if isinstance(group, pd.Series) else pd.Series(group)
-    if len(series) != n:
-        raise AnalysisError(f"Column {name!r} has {len(series)} values but '_time' has {n}.")
+    _same_length(series, n, name)
     if isinstance(series.dtype, pd.CategoricalDtype):
         cat = series.cat.remove_unused_categories()
     else:

@@ -174,9 +174,9 @@ def test_prepared_frame_and_json(rng):
 @pytest.mark.parametrize(
     "time, cause, entry, match",
     [
-        ([1.0, -2.0], ["a", None], None, "_time"),
+        ([1.0, -2.0], ["a", None], None, "times must be finite"),
         ([1.0, 2.0], [None, None], None, "no events"),
-        ([1.0, 2.0], ["a", None], [1.0, 0.5], "_entry"),
+        ([1.0, 2.0], ["a", None], [1.0, 0.5], "Entry times must be earlier"),
     ],
 )
 def test_bad_input_raises_clear_error(time, cause, entry, match):

@@ -141,8 +141,9 @@ def test_delayed_entry_matches_lifelines_and_statsmodels():
 
 
 def test_entry_not_before_time_is_refused():
-    with pytest.raises(AnalysisError, match="_entry"):
+    with pytest.raises(AnalysisError, match="Entry times must be earlier") as caught:
         kaplan_meier([1.0, 2.0], [1, 1], entry=[0.5, 2.0])
+    assert "_entry" not in str(caught.value)  # no working column in a message
 
 
 def test_nelson_aalen_matches_lifelines_without_tie_smoothing(simulated):
@@ -274,8 +275,9 @@ def test_bad_settings_are_refused_with_a_clear_message(kwargs, message):
 
 
 def test_negative_times_are_refused():
-    with pytest.raises(AnalysisError, match="_time"):
+    with pytest.raises(AnalysisError, match="times must be finite and at least 0") as caught:
         kaplan_meier([-1.0, 2.0], [1, 0])
+    assert "_time" not in str(caught.value)
 
 
 def test_rows_without_a_group_count_in_all_rows_and_in_no_group(freireich):
