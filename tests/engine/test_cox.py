@@ -338,7 +338,7 @@ def test_near_collinear_covariates_warn(rng):
         (lambda f: f.assign(word=["a", "b"] * 200), ["word"], "word"),
         (lambda f: f.assign(_event=0), ["x1"], "event"),
         (lambda f: f, ["missing_column"], "missing_column"),
-        (lambda f: f.assign(_entry=f["_time"]), ["x1"], "_entry"),
+        (lambda f: f.assign(_entry=f["_time"]), ["x1"], "entry time is at or after"),
     ],
     ids=["constant", "collinear", "not-numeric", "no-events", "unknown-column", "late-entry"],
 )
