@@ -22,7 +22,7 @@ from engine.prepare.checks import prepare
 from engine.prepare.roles import suggest_roles
 from engine.survival.landmark import landmark
 from engine.survival.sample_size import events_needed
-from engine.wording import format_number, format_percent, format_ratio
+from engine.wording import format_nonzero, format_number, format_percent, format_ratio
 
 ROOT = Path(__file__).resolve().parents[2]
 ENTRY = str(ROOT / "app" / "hazel.py")
@@ -329,7 +329,7 @@ def test_restored_cut_strata_and_model_choices_give_the_pages_the_cli_numbers(tm
     assert list(shown["Term"]) == expected
     assert list(shown["Hazard ratio"]) == [format_ratio(t["hazard_ratio"]) for t in cox["terms"]]
     coefficients = shown["Coefficient (log hazard ratio)"]
-    assert list(coefficients) == [format_number(t["coef"], 3) for t in cox["terms"]]
+    assert list(coefficients) == [format_nonzero(t["coef"], 3) for t in cox["terms"]]
     assert all(t["reference"] == "oil bath" for t in cox["terms"] if t["level"] is not None)
 
     # the recipe downloaded again from the restored pages is the one restored
