@@ -23,7 +23,12 @@ from engine.aggregate.sql import literal
 from engine.aggregate.sql_checks import AggregatedData
 from engine.analysis.extra import incidence_section
 from engine.competing.gray_test import GrayTest, gray_result, stratum_scores
-from engine.competing.incidence import CumulativeIncidence, incidence_result, incidence_table
+from engine.competing.incidence import (
+    CumulativeIncidence,
+    incidence_result,
+    incidence_table,
+    no_events_error,
+)
 from engine.errors import AnalysisError
 
 FINE_GRAY_NOT_COMPUTED = (
@@ -73,10 +78,7 @@ def present_groups(counts: CountTable, *, complete: bool = False) -> list[int]:
 def _causes(counts: CountTable) -> tuple[str, ...]:
     causes = counts.causes if counts.causes is not None else ("event",)
     if not causes or (counts.causes is None and counts.events == 0):
-        raise AnalysisError(
-            "Column '_cause' holds no events (every row is censored); cumulative incidence needs "
-            "at least one event. Check the event coding."
-        )
+        raise no_events_error()
     return causes
 
 

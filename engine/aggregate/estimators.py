@@ -95,7 +95,7 @@ def _groups_for_test(counts: CountTable, strata: bool) -> tuple[int, ...]:
     groups = tuple(sorted(int(g) for g in ex["group"].unique()))
     if len(groups) < 2:
         raise AnalysisError(
-            f"Comparing survival needs at least two groups in '_group'; found {len(groups)}."
+            f"Comparing survival needs at least two groups with rows; found {len(groups)}."
         )
     return groups
 

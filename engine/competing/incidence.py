@@ -112,7 +112,7 @@ def _cause_codes(cause, n: int) -> tuple[np.ndarray, tuple[str, ...]]:
         order = None
     values = np.asarray(cause, dtype=object).reshape(-1)
     if values.shape[0] != n:
-        raise AnalysisError(f"Column '_cause' has {values.shape[0]} values but '_time' has {n}.")
+        raise AnalysisError(f"There are {values.shape[0]} causes for {n} times; give one per row.")
     raw_codes, uniques = pd.factorize(values, use_na_sentinel=True)  # None / NaN -> -1
     names = [str(u) for u in uniques]
     present = set(names)
@@ -120,6 +120,14 @@ def _cause_codes(cause, n: int) -> tuple[np.ndarray, tuple[str, ...]]:
     position = {name: i for i, name in enumerate(labels)}
     lookup = np.array([position[name] for name in names] + [-1], dtype=np.intp)
     return lookup[raw_codes], labels  # raw code -1 picks the trailing -1
+
+
+def no_events_error() -> AnalysisError:
+    """The one sentence for data in which no row has an event (memory and databases)."""
+    return AnalysisError(
+        "There are no events of any cause (every row is censored); cumulative incidence needs "
+        "at least one event. Check the event coding."
+    )
 
 
 def _cause_counts(time, codes, n_causes: int, entry):
@@ -223,10 +231,7 @@ def aalen_johansen(
         raise NoRowsError()
     codes, causes = _cause_codes(cause, n)
     if not causes:
-        raise AnalysisError(
-            "Column '_cause' holds no events (every row is censored); cumulative incidence needs "
-            "at least one event. Check the event coding."
-        )
+        raise no_events_error()
     if entry is not None:
         entry = checked_entry(entry, time)
     z = float(norm.ppf(0.5 + confidence_level / 2))
@@ -297,9 +302,7 @@ def cumulative_incidence(
     elif "_event" in frame.columns:
         cause = np.where(frame["_event"].to_numpy() == 1, "event", None)
     else:
-        raise AnalysisError(
-            "The prepared frame has neither '_cause' nor '_event'; set the event role first."
-        )
+        raise AnalysisError("Cumulative incidence needs an event column; set the event role first.")
     return aalen_johansen(
         frame["_time"],
         cause,
@@ -345,14 +348,14 @@ def cause_specific_cox(
     """
     if "_cause" not in frame.columns:
         raise AnalysisError(
-            "Cause-specific models need a '_cause' column: map the event values to causes first."
+            "Cause-specific models need named causes: map the event values to causes first."
         )
     _, found = _cause_codes(frame["_cause"], len(frame))
     wanted = found if causes is None else tuple(causes)
     unknown = [c for c in wanted if c not in found]
     if unknown:
         raise AnalysisError(
-            f"Cause(s) {preview_values(unknown)} do not occur in '_cause'; "
+            f"Cause(s) {preview_values(unknown)} do not occur among the rows' causes; "
             f"the causes are {preview_values(found)}."
         )
     if "_entry" in frame.columns:

@@ -289,16 +289,17 @@ def _check_times(time, event, entry):
     event = np.asarray(event).reshape(-1)
     if time.shape[0] != event.shape[0]:
         raise AnalysisError(
-            f"'_time' has {time.shape[0]} values but '_event' has {event.shape[0]}."
+            f"There are {time.shape[0]} times but {event.shape[0]} event indicators; give one "
+            "of each per row."
         )
     bad = ~np.isfinite(time) | (time <= 0)
     if bad.any():
         raise AnalysisError(
-            f"Parametric models need times > 0; column '_time' has {int(bad.sum())} rows that are "
-            f"not ({preview_values(time[bad])}). Exclude them or correct the times."
+            f"Parametric models need times > 0; {int(bad.sum())} row(s) have other times "
+            f"({preview_values(time[bad])}). Exclude them or correct the times."
         )
     if not np.isin(event, (0, 1, True, False)).all():
-        raise AnalysisError("Column '_event' must be 0 (censored) or 1 (event).")
+        raise AnalysisError("Event indicators must be 0 (censored) or 1 (event).")
     event = event.astype(bool)
     if not event.any():
         raise AnalysisError("There are no events, so no survival model can be fitted.")
@@ -307,8 +308,8 @@ def _check_times(time, event, entry):
         late = ~(entry < time) | (entry < 0)
         if late.any():
             raise AnalysisError(
-                f"Column '_entry' must lie in [0, '_time'); {int(late.sum())} rows do not "
-                f"(entry values {preview_values(entry[late])})."
+                f"Entry times must lie at or after 0 and before the exit time; {int(late.sum())} "
+                f"row(s) do not (entry times {preview_values(entry[late])})."
             )
     return time, event, entry
 
@@ -434,7 +435,9 @@ def compare_distributions(
     else:
         cat = pd.Series(group).astype("category")
         if len(cat) != time.shape[0]:
-            raise AnalysisError(f"'_group' has {len(cat)} values but '_time' has {time.shape[0]}.")
+            raise AnalysisError(
+                f"There are {len(cat)} group values for {time.shape[0]} times; give one per row."
+            )
         parts = [(str(lv), (cat == lv).to_numpy()) for lv in cat.cat.categories]
         parts = [(lv, m) for lv, m in parts if m.any()]
     end = float(np.nanmax(time)) if horizon is None else float(horizon)

@@ -175,7 +175,7 @@ def _codes_for_test(group, n: int):
     codes, labels = group_codes(group, n)
     if len(labels) < 2:
         raise AnalysisError(
-            f"Comparing survival needs at least two groups in '_group'; found {len(labels)}."
+            f"Comparing survival needs at least two groups with rows; found {len(labels)}."
         )
     return codes, labels
 
