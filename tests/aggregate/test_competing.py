@@ -20,6 +20,7 @@ from engine.aggregate.sql_checks import aggregate_checks
 from engine.analysis.run import resolved_settings, run_analysis
 from engine.cox.concordance import harrell_c
 from engine.prepare.checks import prepare
+from engine.prepare.roles import Roles
 from tests.aggregate.cases import (
     COMPETING_ROLES,
     COMPETING_SETTINGS,
@@ -210,3 +211,26 @@ def test_incidence_without_named_causes_equals_memory(open_backend):
     section = database["competing"]
     assert section["causes"] == ["event"] and section["gray_test"] is None
     assert_same_json(memory, section, skip=(".fine_gray",))
+
+
+def test_incidence_number_at_risk_at_times_between_observed_times(open_backend):
+    """DuckDB counts the rows at risk at a chosen time as memory does (time >= t, entry < t;
+    counted by hand), also at times that are not observed times."""
+    frame = pd.DataFrame(
+        {
+            "t": [1.0, 2.0, 3.0, 5.0, 8.0],
+            "status": ["a", "censored", "b", "a", "censored"],
+            "entry": [0.0, 0.0, 2.6, 0.0, 4.5],
+        }
+    )
+    roles = Roles(time="t", event="status", event_causes=(("a", "a"), ("b", "b")), entry="entry")
+    times = [2.5, 4.0, 4.5, 5.0, 9.0]
+    settings = {"curves": {"times": times}, "competing": {"times": times}}
+    database = run_aggregate_analysis(
+        aggregate_checks(open_backend("duckdb", frame), roles), settings
+    )
+    memory = run_analysis(prepare(frame, roles), settings)
+    for section in (database, memory):
+        rows = [r for r in section["competing"]["at_times"] if r["cause"] == "b"]
+        assert [r["n_at_risk"] for r in rows] == [1, 1, 1, 2, 0]
+        assert [r["at_risk"] for r in section["curves"][0]["at_times"]] == [1, 1, 1, 2, 0]
