@@ -439,6 +439,8 @@ def _event_codes(frame, roles: Roles, notes: list[str]):
         cause[event < 0] = None  # competing causes keep their name with _event == 0
         missing_cause = (event == 1) & pd.isna(cause)
         cause[missing_cause] = "event"
+        named = pd.unique(cause[pd.notna(cause)])
+        cause = pd.Categorical(cause, categories=roles.cause_order(named))  # the order given
     return event, cause, coding
 
 

@@ -5,6 +5,7 @@ exclusion (to 1e-9), Harrell's C of score bins lies within its stated bound of t
 
 from __future__ import annotations
 
+import json
 from dataclasses import replace
 
 import numpy as np
@@ -74,7 +75,7 @@ def test_competing_section_equals_memory(open_backend, kind):
     assert database["data"] == memory["data"]
     assert database["data"]["competing_events"] > 0
     section = database["competing"]
-    assert section["causes"] == ["death", "moved", "relapse"]
+    assert section["causes"] == ["death", "relapse", "moved"]  # the order the roles give
     assert len(section["gray_test"]) == 3 and len(section["cause_specific_cox"]) == 3
     assert section["fine_gray"] == {"not_computed": FINE_GRAY_NOT_COMPUTED}
     bound = _pop_bound(database)
@@ -172,7 +173,7 @@ def test_incidence_and_cause_specific_cox_match_lifelines(open_backend):
     assert prepared["_time"].is_unique
     table = incidence_from_counts(data.counts, by_group=False).table
     causes = ["death", "moved", "relapse"]
-    code = prepared["_cause"].map({c: i + 1 for i, c in enumerate(causes)}).fillna(0)
+    code = prepared["_cause"].astype(object).map({c: i + 1 for i, c in enumerate(causes)}).fillna(0)
     for i, cause in enumerate(causes):
         fitter = AalenJohansenFitter(calculate_variance=False).fit(
             prepared["_time"], code.astype(int), event_of_interest=i + 1, entry=prepared["_entry"]
@@ -234,3 +235,32 @@ def test_incidence_number_at_risk_at_times_between_observed_times(open_backend):
         rows = [r for r in section["competing"]["at_times"] if r["cause"] == "b"]
         assert [r["n_at_risk"] for r in rows] == [1, 1, 1, 2, 0]
         assert [r["at_risk"] for r in section["curves"][0]["at_times"]] == [1, 1, 1, 2, 0]
+
+
+@pytest.mark.parametrize("backend", ["memory", "duckdb"])
+def test_causes_keep_the_order_given(tmp_path, backend):
+    """`--competing` names relapse before death: every listing of causes keeps that order (the
+    first is the event of interest), not the alphabetical one."""
+    from app.cli import main
+
+    rng = np.random.default_rng(3)
+    n = 60
+    frame = pd.DataFrame(
+        {
+            "t": rng.integers(1, 40, n).astype(float),
+            "status": rng.choice(["R", "D", "alive", "M"], n),
+            "arm": rng.choice(["x", "y"], n),
+        }
+    )
+    path = tmp_path / "causes.csv"
+    frame.to_csv(path, index=False)
+    out = tmp_path / "r.json"
+    args = ["analyze", str(path), "--time", "t", "--event", "status", "--group", "arm"]
+    args += ["--competing", "R=relapse", "--competing", "M=moved", "--competing", "D=death"]
+    assert main([*args, "--times", "10", "--backend", backend, "--json", str(out)]) == 0
+    section = json.loads(out.read_text())["competing"]
+    order = ["relapse", "moved", "death"]
+    assert section["causes"] == order
+    assert [r["cause"] for r in section["at_end"]][:3] == order
+    assert [t["cause"] for t in section["gray_test"]] == order
+    assert json.loads(out.read_text())["data"]["events"] == int((frame["status"] == "R").sum())
