@@ -473,9 +473,30 @@ def event_coding(roles: Roles, counts: pd.Series, notes: list[str], *, column: s
             f"Event column {column!r}: {preview_values(censored_only)} are all treated "
             "as censored (not named as event values)."
         )
+    if roles.event_values and roles.event_causes:
+        notes.extend(_causes_merged_note(roles, coding))
     if coding.assumption:
         notes.append(coding.assumption)
     return coding
+
+
+def _causes_merged_note(roles: Roles, coding: EventCoding) -> list[str]:
+    """The warning when the event values belong to several causes: the reading used (any of
+    them is the event outside the competing-risks section) and how to get the other one."""
+    names = {value_key(v): str(name) for v, name in roles.event_causes}
+    merged = roles.cause_order({names.get(value_key(v), "event") for v in coding.event_values})
+    if len(merged) < 2:
+        return []
+    first = merged[0]
+    return [
+        f"The event values (--event-value; on Column roles, the values chosen as the event) "
+        f"belong to {len(merged)} causes named with "
+        f"--competing ({', '.join(merged)}): the curves, the comparison, the Cox model and the "
+        "performance measures treat any of them as the event, so no row counts as a competing "
+        "event there; the competing-risks section still separates the causes. To study "
+        f"{first} with the others competing, give only its values as event values (or leave "
+        "--event-value out: the first cause named is then the event of interest)."
+    ]
 
 
 def _counts_text(coding: EventCoding) -> str:

@@ -264,3 +264,28 @@ def test_causes_keep_the_order_given(tmp_path, backend):
     assert [r["cause"] for r in section["at_end"]][:3] == order
     assert [t["cause"] for t in section["gray_test"]] == order
     assert json.loads(out.read_text())["data"]["events"] == int((frame["status"] == "R").sum())
+
+
+@pytest.mark.parametrize("backend", ["memory", "duckdb"])
+def test_event_values_of_several_causes_warn_with_the_reading_used(tmp_path, backend):
+    """`--event-value` naming the values of two causes of `--competing`: any of them is the
+    event outside the competing section (no competing events there), and a warning says so,
+    naming both options; with one cause's values there is no such warning."""
+    from app.cli import main
+
+    path = tmp_path / "causes.csv"
+    pd.DataFrame({"t": [1, 2, 3, 4, 5, 6], "s": ["R", "D", "A", "R", "D", "A"]}).to_csv(
+        path, index=False
+    )
+    out = tmp_path / "r.json"
+    args = ["analyze", str(path), "--time", "t", "--event", "s", "--backend", backend]
+    args += ["--competing", "R=relapse", "--competing", "D=death", "--json", str(out)]
+    assert main([*args, "--event-value", "R", "--event-value", "D"]) == 0
+    data = json.loads(out.read_text())["data"]
+    assert data["events"] == 4 and data["competing_events"] == 0
+    (note,) = [w for w in data["warnings"] if "--competing" in w]
+    assert "--event-value" in note and "(relapse, death)" in note and "any of them" in note
+    assert main([*args, "--event-value", "R"]) == 0
+    data = json.loads(out.read_text())["data"]
+    assert data["events"] == 2 and data["competing_events"] == 2
+    assert not [w for w in data["warnings"] if "--competing" in w]
