@@ -12,7 +12,14 @@ import streamlit as st
 
 from app import batch, bigdata, charts, charts_models, compute, data, state, ui
 from engine.prepare.roles import TIME_UNITS, event_in_words
-from engine.wording import format_confidence, format_number, format_ratio, free_name
+from engine.wording import (
+    format_confidence,
+    format_interval,
+    format_number,
+    format_p,
+    format_ratio,
+    free_name,
+)
 
 NONE = "(none)"
 CONFIDENCE = {"95%": 0.95, "90%": 0.90, "99%": 0.99, "80%": 0.80}
@@ -270,10 +277,10 @@ def hazard_ratio_frame(result) -> pd.DataFrame:
             "Term": [t.label for t in result.design.terms],
             "Hazard ratio": terms["hazard_ratio"].map(format_ratio),
             ci: [
-                f"{format_ratio(lo)} to {format_ratio(hi)}"
+                format_interval(lo, hi)  # "not estimable" for a coefficient running off
                 for lo, hi in zip(terms["lower"], terms["upper"], strict=True)
             ],
-            "p": terms["p_value"].map(ui.fmt_p),
+            "p": terms["p_value"].map(format_p),
             "Coefficient (log hazard ratio)": terms["coef"].map(lambda v: format_number(v, 3)),
             "Standard error": terms["se"].map(lambda v: format_number(v, 3)),
         }

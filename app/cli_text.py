@@ -18,6 +18,7 @@ from engine.wording import (
     NOT_REACHED,
     comparison_sentence,
     format_confidence,
+    format_interval,
     format_number,
     format_p,
     format_percent,
@@ -175,14 +176,16 @@ def _test_sentence(test: dict) -> str:
 def _terms_block(terms: list[dict], ratio_name: str, ci: str) -> list[str]:
     """Rows of a model's terms, the ratio first: label, ratio, interval, p."""
     labels = [term_label(t["variable"], t["level"], t["reference"]) for t in terms]
+    ratios = [format_ratio(t["hazard_ratio"]) for t in terms]
+    intervals = [format_interval(t["lower"], t["upper"]) for t in terms]
     width = max([len("term"), *(len(label) for label in labels)]) + 2
-    ratio_width = max(len(ratio_name), 12)
-    lines = [f"  {'term':<{width}}{ratio_name:>{ratio_width}}   {ci:<20}p"]
-    for label, term in zip(labels, terms, strict=True):
-        interval = f"{format_ratio(term['lower'])} to {format_ratio(term['upper'])}"
+    ratio_width = max([len(ratio_name), 12, *(len(r) for r in ratios)])
+    ci_width = max([len(ci), 18, *(len(i) for i in intervals)]) + 2
+    lines = [f"  {'term':<{width}}{ratio_name:>{ratio_width}}   {ci:<{ci_width}}p"]
+    for label, ratio, interval, term in zip(labels, ratios, intervals, terms, strict=True):
         lines.append(
-            f"  {label:<{width}}{format_ratio(term['hazard_ratio']):>{ratio_width}}   "
-            f"{interval:<20}{format_p(term['p_value'])}"
+            f"  {label:<{width}}{ratio:>{ratio_width}}   "
+            f"{interval:<{ci_width}}{format_p(term['p_value'])}"
         )
     return lines
 

@@ -84,6 +84,15 @@ def format_percent(value: float | None, digits: int = 1, missing: str = NOT_ESTI
     return f"{_quantize(percent, digits):f}%"
 
 
+def format_interval(lower, upper, fmt=None) -> str:
+    """'0.93 to 1.13'; "not estimable" once when neither limit exists (a coefficient that runs
+    off to infinity). ``fmt`` formats each limit (default ``format_ratio``)."""
+    fmt = fmt or format_ratio
+    if _is_missing(lower) and _is_missing(upper):
+        return NOT_ESTIMABLE
+    return f"{fmt(lower)} to {fmt(upper)}"
+
+
 def format_ratio(value: float | None, missing: str = NOT_ESTIMABLE) -> str:
     """A hazard ratio or other ratio: 2 decimals, or 2 significant figures below 0.1."""
     if _is_missing(value):

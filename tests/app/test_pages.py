@@ -398,3 +398,25 @@ def test_predicted_curves_for_profiles_i_set(pumps):
     expected = predict_survival(model, {"Profile 1": {}}).profiles
     assert table["lubricant"].iloc[0] == expected["lubricant"].iloc[0]
     assert table["load_kN"].iloc[0] == pytest.approx(expected["load_kN"].iloc[0], rel=1e-3)
+
+
+def test_a_runaway_coefficient_shows_not_estimable_on_the_regression_page():
+    """A level without events: its coefficient runs off to infinity, so the page's table shows
+    "not estimable" for its interval and p-value (never "< 0.001"), beside the warning."""
+    at = _open()
+    rows = [
+        f"{i + 1},{0 if i % 2 == 0 else (i // 2) % 2},{'ab'[i % 2]},{i % 7}\n" for i in range(40)
+    ]
+    at.session_state[state.PENDING_UPLOAD] = ("mono.csv", ("t,e,x,z\n" + "".join(rows)).encode())
+    at.run()
+    at.session_state[state.ROLES] = Roles(
+        time="t", event="e", covariates=("x", "z"), categorical=("x",)
+    )
+    at.switch_page("views/regression.py").run()
+    assert not at.exception
+    terms = at.dataframe[0].value
+    row = terms[terms["Term"] == "x: b vs a"].iloc[0]
+    assert row["95% CI"] == "not estimable" and row["p"] == "not estimable"
+    assert row["Standard error"] == "not estimable"
+    assert terms[terms["Term"] == "z"].iloc[0]["p"] != "not estimable"
+    assert "run off to infinity" in _texts(at)
