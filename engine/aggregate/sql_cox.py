@@ -26,7 +26,7 @@ from engine.cox.design import (
     constant_in_every_group,
 )
 from engine.cox.fit import drop_not_estimable
-from engine.errors import AnalysisError, preview_values
+from engine.errors import AnalysisError, preview_values, shown_value
 from engine.sorted_codes import sorted_codes
 
 # Score bins for Harrell's C. With 1,000 equal-width bins the invented test data (normal scores)
@@ -93,14 +93,14 @@ def sql_design(
         ref = reference.get(column, categories[0] if categories else None)
         if str(ref) not in categories:
             raise AnalysisError(
-                f"Reference level {ref!r} for '{column}' is not one of its levels "
+                f"Reference level {shown_value(ref)} for '{column}' is not one of its levels "
                 f"{preview_values(categories, 12)}; choose one of those."
             )
         ref = str(ref)
         if counts[ref] == 0:
             raise AnalysisError(
-                f"Reference level {ref!r} of '{column}' has no rows among the complete cases; "
-                "choose a reference level that has rows."
+                f"Reference level {shown_value(ref)} of '{column}' has no rows among the complete "
+                "cases; choose a reference level that has rows."
             )
         label_of = dict(zip(categories, info.labels, strict=True))
         empty = [label_of[c] for c in categories if counts[c] == 0]
@@ -112,11 +112,12 @@ def sql_design(
         kept = [c for c in categories if counts[c] > 0 and c != ref]
         if not kept:
             raise AnalysisError(
-                f"Categorical covariate '{column}' has a single level ({label_of[ref]!r}) among "
-                "the complete cases, so it cannot be estimated; remove it from the covariates."
+                f"Categorical covariate '{column}' has a single level "
+                f"({shown_value(label_of[ref])}) among the complete cases, so it cannot be "
+                "estimated; remove it from the covariates."
             )
         small = [
-            f"{label_of[c]!r} ({counts[c]} rows)"
+            f"{shown_value(label_of[c])} ({int(counts[c])} rows)"
             for c in [ref, *kept]
             if counts[c] < SMALL_LEVEL_ROWS
         ]

@@ -8,7 +8,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 import pandas as pd
 
-from engine.errors import AnalysisError, preview_values
+from engine.errors import AnalysisError, preview_values, shown_value
 from engine.wording import term_label
 
 SMALL_LEVEL_ROWS = 5  # common practice: a level this small gives an unstable hazard ratio
@@ -123,14 +123,14 @@ def build_design(
             matched = [c for c in values.categories if str(c) == str(ref)]
             if not matched:
                 raise AnalysisError(
-                    f"Reference level {ref!r} for '{column}' is not one of its levels "
+                    f"Reference level {shown_value(ref)} for '{column}' is not one of its levels "
                     f"{preview_values(list(values.categories), 12)}; choose one of those."
                 )
             ref = matched[0]
         if counts[ref] == 0:
             raise AnalysisError(
-                f"Reference level {ref!r} of '{column}' has no rows among the complete cases; "
-                "choose a reference level that has rows."
+                f"Reference level {shown_value(ref)} of '{column}' has no rows among the complete "
+                "cases; choose a reference level that has rows."
             )
         empty = [c for c in values.categories if counts[c] == 0]
         if empty:
@@ -141,10 +141,14 @@ def build_design(
         kept = [c for c in values.categories if counts[c] > 0 and c != ref]
         if not kept:
             raise AnalysisError(
-                f"Categorical covariate '{column}' has a single level ({ref!r}) among the complete "
-                "cases, so it cannot be estimated; remove it from the covariates."
+                f"Categorical covariate '{column}' has a single level ({shown_value(ref)}) among "
+                "the complete cases, so it cannot be estimated; remove it from the covariates."
             )
-        small = [f"{c!r} ({counts[c]} rows)" for c in [ref, *kept] if counts[c] < SMALL_LEVEL_ROWS]
+        small = [
+            f"{shown_value(c)} ({int(counts[c])} rows)"
+            for c in [ref, *kept]
+            if counts[c] < SMALL_LEVEL_ROWS
+        ]
         if small:
             warnings.append(
                 f"'{column}': level(s) {', '.join(small)} have fewer than {SMALL_LEVEL_ROWS} rows "

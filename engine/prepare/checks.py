@@ -12,7 +12,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 import pandas as pd
 
-from engine.errors import EventCodingError, RoleError, preview_values
+from engine.errors import EventCodingError, RoleError, preview_values, shown_value
 from engine.prepare.column_kinds import MAX_LEVELS, natural_sort_key, numbers_in_text
 from engine.prepare.data_warnings import group_counts, warnings_on_used
 from engine.prepare.dates import (
@@ -500,7 +500,9 @@ def _causes_merged_note(roles: Roles, coding: EventCoding) -> list[str]:
 
 
 def _counts_text(coding: EventCoding) -> str:
-    shown = [f"{v!r} ({c} row{'' if c == 1 else 's'})" for v, c in coding.counts[:8]]
+    shown = [
+        f"{shown_value(v)} ({int(c)} row{'' if c == 1 else 's'})" for v, c in coding.counts[:8]
+    ]
     rest = len(coding.counts) - 8
     return ", ".join(shown) + (f" and {rest} more" if rest > 0 else "")
 
@@ -524,7 +526,7 @@ def _covariate(series: pd.Series, column: str, kind: str, roles: Roles, notes: l
 def _not_numbers_note(series: pd.Series, column: str, bad: np.ndarray) -> str:
     """Which cells of a numeric covariate are not (finite) numbers, by value and data row."""
     where = np.flatnonzero(bad)
-    shown = [f"{series.iloc[i]!r} in data row {i + 1}" for i in where[:5]]
+    shown = [f"{shown_value(series.iloc[i])} in data row {i + 1}" for i in where[:5]]
     rest = f" and {len(where) - 5} more" if len(where) > 5 else ""
     return (
         f"Covariate {column!r} is numeric, but {len(where)} cell(s) are not finite numbers "

@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 from scipy.stats import norm
 
-from engine.errors import AnalysisError
+from engine.errors import AnalysisError, shown_value
 from engine.json_values import json_float, json_label
 from engine.survival.curves import SurvivalCurve, curve_from_table, frame_columns, z_value
 from engine.survival.risk_table import build_risk_table, group_codes
@@ -61,8 +61,9 @@ def rmst_from_curve(curve: SurvivalCurve, tau: float) -> RMSTEstimate:
     limit = _supported_until(curve)
     if tau > limit:
         raise AnalysisError(
-            f"tau = {tau:g} is beyond the follow-up of group {curve.label!r}, whose largest "
-            f"observed time is {limit:g} with survival still above 0; choose tau <= {limit:g}."
+            f"tau = {tau:g} is beyond the follow-up of group {shown_value(curve.label)}, whose "
+            f"largest observed time is {limit:g} with survival still above 0; choose "
+            f"tau <= {limit:g}."
         )
     inside = curve.time < tau
     t = curve.time[inside]
