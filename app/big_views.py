@@ -12,6 +12,7 @@ import streamlit as st
 
 from app import batch, bigdata, charts, charts_models, compute, data, state, ui
 from engine.prepare.roles import TIME_UNITS, event_in_words
+from engine.survival.curves import MEDIAN_FOOTNOTE
 from engine.wording import (
     format_confidence,
     format_interval,
@@ -209,6 +210,7 @@ def curves_block(source_id: str, roles_text: str, roles, result) -> None:
         settings = {"curves": {"confidence": confidence}}
         section = bigdata.analysis(source_id, roles_text, json.dumps(settings), source)["curves"]
         ui.table(summary_frame(section), "curve-summary", "curves_big_summary")
+        st.caption(MEDIAN_FOOTNOTE)
 
 
 def summary_frame(section: list) -> pd.DataFrame:

@@ -26,6 +26,7 @@ from app.report_html import (
 )
 from app.report_prediction import competing_regression_block
 from engine.analysis.run import is_not_computed
+from engine.survival.curves import MEDIAN_FOOTNOTE
 from engine.wording import (
     NOT_REACHED,
     comparison_sentence,
@@ -239,7 +240,7 @@ def curves_section(
         table(
             headers,
             rows,
-            caption=f"Times in {unit}; probabilities in per cent.",
+            caption=f"Times in {unit}; probabilities in per cent. {MEDIAN_FOOTNOTE}",
         ),
         "<h3>Text for a manuscript</h3>",
         bullets(sentences, "sentences"),

@@ -85,11 +85,12 @@ def format_percent(value: float | None, digits: int = 1, missing: str = NOT_ESTI
 
 
 def format_interval(lower, upper, fmt=None) -> str:
-    """'0.93 to 1.13'; "not estimable" once when neither limit exists (a coefficient that runs
-    off to infinity). ``fmt`` formats each limit (default ``format_ratio``)."""
+    """'0.93 to 1.13'; the missing word once when neither limit exists ("not estimable" for a
+    coefficient that runs off to infinity, "not reached" with such a ``fmt``). ``fmt`` formats
+    each limit (default ``format_ratio``)."""
     fmt = fmt or format_ratio
     if _is_missing(lower) and _is_missing(upper):
-        return NOT_ESTIMABLE
+        return fmt(lower)
     return f"{fmt(lower)} to {fmt(upper)}"
 
 

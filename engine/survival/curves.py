@@ -310,9 +310,19 @@ def survival_at(curve: SurvivalCurve, times) -> SurvivalAtTable:
     return SurvivalAtTable(curve.label, curve.confidence, curve.transform, frame)
 
 
+MEDIAN_RULE = (
+    "Where the curve stays exactly at that share over an interval (S(t) = 0.5 from one event "
+    "time to the next, for the median), the estimate is the start of that interval, the first "
+    "time S(t) ≤ 0.5; other common rules take the end of the interval or its midpoint."
+)
+MEDIAN_FOOTNOTE = "The median is the first time the curve falls to or below one half. " + (
+    MEDIAN_RULE
+)
 QUANTILE_METHOD = (
     "A quantile (the median: half) is the first time the curve falls to or below the share "
-    "still free of the event that defines it. Its interval is read from the pointwise "
+    "still free of the event that defines it. "
+    + MEDIAN_RULE
+    + " Its interval is read from the pointwise "
     "{transform} band: from the first time the lower edge of the band falls that low to the "
     "first time the upper edge does (the Brookmeyer–Crowley construction on that scale)."
 )

@@ -420,3 +420,10 @@ def test_a_runaway_coefficient_shows_not_estimable_on_the_regression_page():
     assert row["Standard error"] == "not estimable"
     assert terms[terms["Term"] == "z"].iloc[0]["p"] != "not estimable"
     assert "run off to infinity" in _texts(at)
+
+
+def test_curves_summary_note_states_the_median_rule():
+    from engine.survival.curves import MEDIAN_RULE
+
+    at = _open("views/curves.py")
+    assert any(MEDIAN_RULE in c.value for c in at.caption)
