@@ -149,6 +149,7 @@ def analysis_summary(
         for point in curve["at_times"]:
             text += f"; at {format_plain(point['time'])}: {format_percent(point['survival'])}"
         lines.append(text)
+    lines += rmst_lines(sections["curves"] or (), unit)
     comparison = sections["comparison"]
     if comparison is not None:
         lines += ["", "Group comparison", "  " + _test_sentence(comparison)]
@@ -165,6 +166,32 @@ def analysis_summary(
     if reasons:
         lines += ["", *reasons]
     return "\n".join(lines)
+
+
+def rmst_lines(curves, unit: str) -> list[str]:
+    """The restricted means of the curves (with --rmst-horizon): one line per curve, and the
+    sentence on their origin when there is delayed entry."""
+    rmst = [(c["group"], c["rmst"]) for c in curves if c.get("rmst")]
+    if not rmst:
+        return []
+    found = next((r for _, r in rmst if "tau" in r), None)
+    title = "Restricted mean survival time"
+    if found:
+        start = f"from {format_plain(found['origin'])} " if found["origin"] else ""
+        title += f" {start}to {format_plain(found['tau'])} {unit}"
+    lines = ["", title]
+    for group, r in rmst:
+        label = "All rows" if group is None else group
+        if "not_computed" in r:
+            lines.append(f"  {label!s:<20} not computed: {r['not_computed']}")
+            continue
+        lines.append(
+            f"  {label!s:<20} {format_number(r['estimate'], 2)} "
+            f"({format_interval(r['lower'], r['upper'], lambda v: format_number(v, 2))})"
+        )
+    if found and found.get("origin_rule"):
+        lines.append(f"  Note: {found['origin_rule']}")
+    return lines
 
 
 def _test_sentence(test: dict) -> str:

@@ -199,8 +199,14 @@ def curves_section(
     for t in times:
         headers += [f"{free} at {format_plain(t)} {unit}", f"{ci} CI", "At risk"]
     has_rmst = any(c.get("rmst") for c in curves)
+    rmst_span = next((c["rmst"] for c in curves if "tau" in (c.get("rmst") or {})), None)
     if has_rmst:
-        headers += [f"{rmst_name(event).capitalize()} ({unit})", f"{ci} CI"]
+        span = ""
+        if rmst_span:
+            start = rmst_span["origin"]
+            span = f" {'from ' + format_plain(start) + ' ' if start else ''}to "
+            span += format_plain(rmst_span["tau"])
+        headers += [f"{rmst_name(event).capitalize()}{span} ({unit})", f"{ci} CI"]
     rows, sentences = [], []
     for c in curves:
         median = c["median"]
@@ -240,7 +246,8 @@ def curves_section(
         table(
             headers,
             rows,
-            caption=f"Times in {unit}; probabilities in per cent. {MEDIAN_FOOTNOTE}",
+            caption=f"Times in {unit}; probabilities in per cent. {MEDIAN_FOOTNOTE}"
+            + (f" {rmst_span['origin_rule']}" if rmst_span and rmst_span["origin_rule"] else ""),
         ),
         "<h3>Text for a manuscript</h3>",
         bullets(sentences, "sentences"),

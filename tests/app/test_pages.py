@@ -427,3 +427,24 @@ def test_curves_summary_note_states_the_median_rule():
 
     at = _open("views/curves.py")
     assert any(MEDIAN_RULE in c.value for c in at.caption)
+
+
+def test_curves_page_offers_the_first_entry_as_the_rmst_origin_with_delayed_entry():
+    """With an entry-time role the summary says the restricted mean runs from 0 with S = 1
+    before the first entry, and the switch to the first entry lowers every RMST by it."""
+    at = _open()
+    rows = "".join(f"{3 + (i % 5) + i * 0.7:.1f},{i % 2},{1 + i % 5}\n" for i in range(40))
+    at.session_state[state.PENDING_UPLOAD] = ("entry.csv", ("t,e,entry\n" + rows).encode())
+    at.run()
+    at.session_state[state.ROLES] = Roles(time="t", event="e", entry="entry")
+    at.switch_page("views/curves.py").run()
+    assert not at.exception
+    assert any("takes S = 1 before the first entry (time 1)" in c.value for c in at.caption)
+    before = at.dataframe[-1].value.iloc[:, -1].tolist()
+    at.radio(key="curves_rmst_origin").set_value("The first entry").run()
+    assert not at.exception
+    assert any("runs from the first entry (time 1), as chosen" in c.value for c in at.caption)
+    after = at.dataframe[-1].value.iloc[:, -1].tolist()
+    assert [float(a.split(" ")[0]) for a in after] == [
+        pytest.approx(float(b.split(" ")[0]) - 1, abs=0.01) for b in before
+    ]
