@@ -19,11 +19,11 @@ from engine.aggregate.cox_sums import CoxSums
 from engine.aggregate.sql import literal, number
 from engine.aggregate.sql_checks import AggregatedData
 from engine.cox.design import (
-    SMALL_LEVEL_ROWS,
     Design,
     Term,
     check_collinearity,
     constant_in_every_group,
+    level_checks,
 )
 from engine.cox.fit import drop_not_estimable
 from engine.errors import AnalysisError, preview_values, shown_value
@@ -103,29 +103,7 @@ def sql_design(
                 "cases; choose a reference level that has rows."
             )
         label_of = dict(zip(categories, info.labels, strict=True))
-        empty = [label_of[c] for c in categories if counts[c] == 0]
-        if empty:
-            warnings.append(
-                f"'{column}': level(s) {preview_values(empty)} have no rows among the complete "
-                "cases and are left out of the model."
-            )
-        kept = [c for c in categories if counts[c] > 0 and c != ref]
-        if not kept:
-            raise AnalysisError(
-                f"Categorical covariate '{column}' has a single level "
-                f"({shown_value(label_of[ref])}) among the complete cases, so it cannot be "
-                "estimated; remove it from the covariates."
-            )
-        small = [
-            f"{shown_value(label_of[c])} ({int(counts[c])} rows)"
-            for c in [ref, *kept]
-            if counts[c] < SMALL_LEVEL_ROWS
-        ]
-        if small:
-            warnings.append(
-                f"'{column}': level(s) {', '.join(small)} have fewer than {SMALL_LEVEL_ROWS} rows "
-                "(common practice); their hazard ratios are unreliable. Consider merging levels."
-            )
+        kept = level_checks(column, categories, counts, ref, warnings, label_of.get)
         levels[column] = (ref, *kept)
         level_counts[column] = {c: int(counts[c]) for c in [ref, *kept]}
         for level in kept:
