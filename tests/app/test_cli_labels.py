@@ -58,4 +58,5 @@ def test_levels_differing_by_an_invisible_character_are_shown_apart(tmp_path, ca
     assert any("[U+200B]" in w for w in result["data"]["warnings"])
     html = report.read_text()
     assert "\u200b" not in html.replace("&#8203;", "")
-    assert html.count("A[U+200B]") >= 3  # group table, curve table, figure legend
+    assert html.count("A[U+200B]") >= 3  # the figure, the summary table, the sentences
+    assert "A[U+200B]" in html[html.index("<svg") : html.index("</svg>")]  # the figure
