@@ -203,7 +203,7 @@ def curves_section(
     if has_rmst:
         span = ""
         if rmst_span:
-            start = rmst_span["origin"]
+            start = rmst_span.get("origin")
             span = f" {'from ' + format_plain(start) + ' ' if start else ''}to "
             span += format_plain(rmst_span["tau"])
         headers += [f"{rmst_name(event).capitalize()}{span} ({unit})", f"{ci} CI"]
@@ -247,7 +247,7 @@ def curves_section(
             headers,
             rows,
             caption=f"Times in {unit}; probabilities in per cent. {MEDIAN_FOOTNOTE}"
-            + (f" {rmst_span['origin_rule']}" if rmst_span and rmst_span["origin_rule"] else ""),
+            + (f" {rmst_span['origin_rule']}" if (rmst_span or {}).get("origin_rule") else ""),
         ),
         "<h3>Text for a manuscript</h3>",
         bullets(sentences, "sentences"),

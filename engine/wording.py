@@ -264,6 +264,12 @@ def hazard_ratio_sentence(
         what = f"{variable} {level} versus {reference}" if reference else f"{variable} {level}"
     else:
         what = f"each {unit_of_change or 'one-unit'} increase in {variable}"
+    if _is_missing(lower) and _is_missing(upper) and _is_missing(p_value):
+        # a coefficient that runs off to infinity: where the fit stopped is no estimate
+        return (
+            f"The hazard ratio for {what} could not be estimated: its coefficient runs off to "
+            "infinity (monotone likelihood)."
+        )
     interval = _interval(format_ratio(lower), format_ratio(upper), confidence)
     return (
         f"The hazard ratio for {what} was {format_ratio(hazard_ratio)} "

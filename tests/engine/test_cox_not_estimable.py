@@ -170,3 +170,4 @@ def test_a_runaway_coefficient_has_no_se_p_or_interval(tmp_path, backend, capsys
         cells = html[html.index("x: b vs a</td>") :].split("</tr>")[0]
         assert cells.count("not estimable") == 3  # interval, p-value, standard error
         assert "not estimable (runs off to infinity)" in html  # the forest plot's text column
+        assert "The hazard ratio for x b versus a could not be estimated" in html  # sentences
