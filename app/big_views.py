@@ -12,7 +12,15 @@ import streamlit as st
 
 from app import batch, bigdata, charts, charts_models, compute, data, state, ui
 from engine.prepare.roles import TIME_UNITS, event_in_words
-from engine.wording import format_confidence, format_nonzero, format_ratio, free_name
+from engine.survival.curves import MEDIAN_FOOTNOTE
+from engine.wording import (
+    format_confidence,
+    format_interval,
+    format_nonzero,
+    format_p,
+    format_ratio,
+    free_name,
+)
 
 NONE = "(none)"
 CONFIDENCE = {"95%": 0.95, "90%": 0.90, "99%": 0.99, "80%": 0.80}
@@ -236,6 +244,7 @@ def curves_block(source_id: str, roles_text: str, roles, result) -> None:
         settings = {"curves": {"confidence": confidence}}
         section = bigdata.analysis(source_id, roles_text, json.dumps(settings), source)["curves"]
         ui.table(summary_frame(section), "curve-summary", "curves_big_summary")
+        st.caption(MEDIAN_FOOTNOTE)
 
 
 def summary_frame(section: list) -> pd.DataFrame:
@@ -304,10 +313,10 @@ def hazard_ratio_frame(result) -> pd.DataFrame:
             "Term": [t.label for t in result.design.terms],
             "Hazard ratio": terms["hazard_ratio"].map(format_ratio),
             ci: [
-                f"{format_ratio(lo)} to {format_ratio(hi)}"
+                format_interval(lo, hi)  # "not estimable" for a coefficient running off
                 for lo, hi in zip(terms["lower"], terms["upper"], strict=True)
             ],
-            "p": terms["p_value"].map(ui.fmt_p),
+            "p": terms["p_value"].map(format_p),
             "Coefficient (log hazard ratio)": terms["coef"].map(lambda v: format_nonzero(v, 3)),
             "Standard error": terms["se"].map(lambda v: format_nonzero(v, 3)),
         }

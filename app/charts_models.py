@@ -70,18 +70,31 @@ def forest_chart(rows: pd.DataFrame, style: ChartStyle, confidence: float = 0.95
     events for the tooltips, when known), in the order to draw from top to bottom. Squares, not
     diamonds: each row is one model's estimate, not a pooled one.
     """
-    from engine.wording import format_confidence, format_ratio
+    from engine.wording import format_confidence, format_interval, format_ratio
 
     ci = f"{format_confidence(confidence)} CI"
     data = rows.copy()
     data["label"] = data["label"].astype(str)
     data["is_reference"] = data["is_reference"].astype(bool)
+    # a coefficient that runs off to infinity has no interval: no square either (its hazard
+    # ratio is where the fit stopped, and would stretch the axis), and its text says so
+    runaway = ~data["is_reference"] & data["lower"].isna() & data["upper"].isna()
     data["hr_text"] = [
-        "1 (reference)" if ref else f"{format_ratio(h)} ({format_ratio(lo)} to {format_ratio(hi)})"
-        for h, lo, hi, ref in data[["hazard_ratio", "lower", "upper", "is_reference"]].itertuples(
-            index=False
+        "1 (reference)"
+        if ref
+        else "not estimable (runs off to infinity)"
+        if off
+        else f"{format_ratio(h)} ({format_interval(lo, hi)})"
+        for h, lo, hi, ref, off in zip(
+            data["hazard_ratio"],
+            data["lower"],
+            data["upper"],
+            data["is_reference"],
+            runaway,
+            strict=True,
         )
     ]
+    data["hazard_ratio"] = data["hazard_ratio"].where(~runaway)
     order = list(data["label"])
     x_scale = alt.Scale(type="log", domain=list(forest_domain(data)), nice=False)
     y = alt.Y("label:N", sort=order, title=None, axis=alt.Axis(labelLimit=260, domain=False))

@@ -96,6 +96,20 @@ def add_analysis_options(parser: argparse.ArgumentParser) -> None:
     curves.add_argument(
         "--confidence", type=float, help="confidence level of every interval (default 0.95)"
     )
+    curves.add_argument(
+        "--rmst-horizon",
+        type=float,
+        metavar="TAU",
+        help="restricted mean survival time of each curve up to TAU",
+    )
+    curves.add_argument(
+        "--rmst-origin",
+        type=lambda text: text.replace("-", "_"),
+        choices=("zero", "first_entry"),
+        metavar="{zero,first-entry}",
+        help="with delayed entry (--entry), where the restricted mean starts: time 0, taking "
+        "survival as 1 before the first entry (default), or the first entry time",
+    )
     compare = parser.add_argument_group("group comparison")
     compare.add_argument(
         "--test", choices=TESTS, help="test comparing the groups (default logrank)"
@@ -424,7 +438,13 @@ def _times(text: str, option: str = "--times") -> list[float]:
 
 
 SETTING_OPTIONS = {
-    "curves": {"times": "times", "ci_transform": "ci_transform", "confidence": "confidence"},
+    "curves": {
+        "times": "times",
+        "ci_transform": "ci_transform",
+        "confidence": "confidence",
+        "rmst_horizon": "rmst_horizon",
+        "rmst_origin": "rmst_origin",
+    },
     "comparison": {"test": "test", "rho": "rho", "gamma": "gamma"},
     "cox": {
         "ties": "ties",

@@ -18,6 +18,7 @@ from engine.wording import (
     NOT_REACHED,
     comparison_sentence,
     format_confidence,
+    format_interval,
     format_number,
     format_p,
     format_percent,
@@ -148,6 +149,7 @@ def analysis_summary(
         for point in curve["at_times"]:
             text += f"; at {format_plain(point['time'])}: {format_percent(point['survival'])}"
         lines.append(text)
+    lines += rmst_lines(sections["curves"] or (), unit)
     comparison = sections["comparison"]
     if comparison is not None:
         lines += ["", "Group comparison", "  " + _test_sentence(comparison)]
@@ -166,6 +168,32 @@ def analysis_summary(
     return "\n".join(lines)
 
 
+def rmst_lines(curves, unit: str) -> list[str]:
+    """The restricted means of the curves (with --rmst-horizon): one line per curve, and the
+    sentence on their origin when there is delayed entry."""
+    rmst = [(c["group"], c["rmst"]) for c in curves if c.get("rmst")]
+    if not rmst:
+        return []
+    found = next((r for _, r in rmst if "tau" in r), None)
+    title = "Restricted mean survival time"
+    if found:
+        start = f"from {format_plain(found['origin'])} " if found["origin"] else ""
+        title += f" {start}to {format_plain(found['tau'])} {unit}"
+    lines = ["", title]
+    for group, r in rmst:
+        label = "All rows" if group is None else group
+        if "not_computed" in r:
+            lines.append(f"  {label!s:<20} not computed: {r['not_computed']}")
+            continue
+        lines.append(
+            f"  {label!s:<20} {format_number(r['estimate'], 2)} "
+            f"({format_interval(r['lower'], r['upper'], lambda v: format_number(v, 2))})"
+        )
+    if found and found.get("origin_rule"):
+        lines.append(f"  Note: {found['origin_rule']}")
+    return lines
+
+
 def _test_sentence(test: dict) -> str:
     """'Log-rank test: chi-squared 3.21 on 1 degree of freedom, p = 0.073' ("not estimable"
     where a value is null)."""
@@ -175,14 +203,16 @@ def _test_sentence(test: dict) -> str:
 def _terms_block(terms: list[dict], ratio_name: str, ci: str) -> list[str]:
     """Rows of a model's terms, the ratio first: label, ratio, interval, p."""
     labels = [term_label(t["variable"], t["level"], t["reference"]) for t in terms]
+    ratios = [format_ratio(t["hazard_ratio"]) for t in terms]
+    intervals = [format_interval(t["lower"], t["upper"]) for t in terms]
     width = max([len("term"), *(len(label) for label in labels)]) + 2
-    ratio_width = max(len(ratio_name), 12)
-    lines = [f"  {'term':<{width}}{ratio_name:>{ratio_width}}   {ci:<20}p"]
-    for label, term in zip(labels, terms, strict=True):
-        interval = f"{format_ratio(term['lower'])} to {format_ratio(term['upper'])}"
+    ratio_width = max([len(ratio_name), 12, *(len(r) for r in ratios)])
+    ci_width = max([len(ci), 18, *(len(i) for i in intervals)]) + 2
+    lines = [f"  {'term':<{width}}{ratio_name:>{ratio_width}}   {ci:<{ci_width}}p"]
+    for label, ratio, interval, term in zip(labels, ratios, intervals, terms, strict=True):
         lines.append(
-            f"  {label:<{width}}{format_ratio(term['hazard_ratio']):>{ratio_width}}   "
-            f"{interval:<20}{format_p(term['p_value'])}"
+            f"  {label:<{width}}{ratio:>{ratio_width}}   "
+            f"{interval:<{ci_width}}{format_p(term['p_value'])}"
         )
     return lines
 

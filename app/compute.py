@@ -165,9 +165,12 @@ def summary_table(
     confidence: float,
     transform: str,
     _table: ImportedTable,
+    rmst_origin: str = "zero",
 ):
     frame = _frame(fingerprint, roles_text, _table)
-    return group_summary(frame, times, tau=tau, confidence=confidence, transform=transform)
+    return group_summary(
+        frame, times, tau=tau, confidence=confidence, transform=transform, rmst_origin=rmst_origin
+    )
 
 
 # --- group comparison -----------------------------------------------------------------------
@@ -271,8 +274,10 @@ def rmst_pair(
     tau: float | None,
     confidence: float,
     _table: ImportedTable,
+    origin: str = "zero",
 ):
-    """RMST of two groups and their difference (the second minus the first)."""
+    """RMST of two groups and their difference (the second minus the first), from ``origin``
+    ("zero" or "first_entry")."""
     from engine.survival.rmst import rmst_by_group
 
     frame = _complete(comparison_frame(fingerprint, roles_text, grouping, None, _table))
@@ -287,6 +292,7 @@ def rmst_pair(
         tau=tau,
         confidence=confidence,
         entry=part["_entry"].to_numpy() if "_entry" in part.columns else None,
+        origin=origin,
     )
 
 

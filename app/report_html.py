@@ -13,7 +13,7 @@ from collections.abc import Iterable, Mapping, Sequence
 
 from engine.analysis.run import NOT_COMPUTED, is_not_computed
 from engine.text_safety import visible_text
-from engine.wording import format_number, format_p, format_plain
+from engine.wording import format_interval, format_number, format_p, format_plain
 
 # --- escaping and small pieces -----------------------------------------------------------------
 
@@ -64,8 +64,8 @@ def group_label(group) -> str:
 
 
 def interval(lower, upper, fmt) -> str:
-    """An interval cell, kept on one line."""
-    return f'<td class="ci">{escape(fmt(lower))} to {escape(fmt(upper))}</td>'
+    """An interval cell, kept on one line; "not estimable" once when it has no limit."""
+    return f'<td class="ci">{escape(format_interval(lower, upper, fmt))}</td>'
 
 
 def record_rows(records: Sequence[Mapping]) -> tuple[list[str], list[list[str]]]:

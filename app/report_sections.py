@@ -26,6 +26,7 @@ from app.report_html import (
 )
 from app.report_prediction import competing_regression_block
 from engine.analysis.run import is_not_computed
+from engine.survival.curves import MEDIAN_FOOTNOTE
 from engine.wording import (
     NOT_REACHED,
     comparison_sentence,
@@ -199,8 +200,14 @@ def curves_section(
     for t in times:
         headers += [f"{free} at {format_plain(t)} {unit}", f"{ci} CI", "At risk"]
     has_rmst = any(c.get("rmst") for c in curves)
+    rmst_span = next((c["rmst"] for c in curves if "tau" in (c.get("rmst") or {})), None)
     if has_rmst:
-        headers += [f"{rmst_name(event).capitalize()} ({unit})", f"{ci} CI"]
+        span = ""
+        if rmst_span:
+            start = rmst_span.get("origin")
+            span = f" {'from ' + format_plain(start) + ' ' if start else ''}to "
+            span += format_plain(rmst_span["tau"])
+        headers += [f"{rmst_name(event).capitalize()}{span} ({unit})", f"{ci} CI"]
     rows, sentences = [], []
     for c in curves:
         median = c["median"]
@@ -240,7 +247,8 @@ def curves_section(
         table(
             headers,
             rows,
-            caption=f"Times in {unit}; probabilities in per cent.",
+            caption=f"Times in {unit}; probabilities in per cent. {MEDIAN_FOOTNOTE}"
+            + (f" {rmst_span['origin_rule']}" if (rmst_span or {}).get("origin_rule") else ""),
         ),
         "<h3>Text for a manuscript</h3>",
         bullets(sentences, "sentences"),

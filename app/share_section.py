@@ -35,6 +35,10 @@ SOURCE_TABLE = "shared_source_table"  # the table as read, while a filtered copy
 # that the pages show these values.
 TRANSFORM_LABELS = {"log-log": "log-log (default)", "log": "log", "linear": "linear"}
 TIES_LABELS = {"efron": "Efron (default)", "breslow": "Breslow"}
+RMST_ORIGIN_LABELS = {
+    "zero": "Time 0 (survival 1 before the first entry; default)",
+    "first_entry": "The first entry",
+}
 PH_LABELS = {
     "survival": "Survival: time through the Kaplan–Meier estimate (default)",
     "rank": "Rank of the event times",
@@ -208,6 +212,7 @@ WIDGETS = (
         lambda v: float(v or 0.0),
         lambda v: float(v) if v else None,
     ),
+    Widget("curves", "rmst_origin", "curves_rmst_origin", *_labelled(RMST_ORIGIN_LABELS)),
     Widget("comparison", "test", "compare_test", _same, _same),
     Widget("comparison", "rho", "compare_rho", float, float),
     Widget("comparison", "gamma", "compare_gamma", float, float),

@@ -57,10 +57,16 @@ class SettingError(AnalysisError):
     the data, is wrong, so a run stops with the message instead of leaving a section out."""
 
 
+def shown_value(value) -> str:
+    """One value from the data as a message shows it: quoted text, a number as written (1.5, not
+    np.float64(1.5)); invisible characters appear as escapes ('A\\u200b')."""
+    return repr(_plain(value))
+
+
 def preview_values(values, limit: int = 5) -> str:
     """Show a few offending values in a message, quoted, with a count of the rest."""
-    values = [_plain(v) for v in values]
-    shown = ", ".join(repr(v) for v in values[:limit])
+    values = list(values)
+    shown = ", ".join(shown_value(v) for v in values[:limit])
     rest = len(values) - limit
     return shown + (f" and {rest} more" if rest > 0 else "")
 

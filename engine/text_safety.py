@@ -20,14 +20,22 @@ from collections.abc import Iterable
 import pandas as pd
 
 BIDI_CONTROLS = frozenset(chr(c) for c in (*range(0x202A, 0x202F), *range(0x2066, 0x206A)))
-# C0 controls except tab and newline, DEL, C1 controls; and the direction controls above.
-HIDDEN_CHARACTERS = "[\x00-\x08\x0b-\x1f\x7f-\x9f\u202a-\u202e\u2066-\u2069]"  # a regex
+# Characters that print as nothing, so "A" and "A" + U+200B look the same: the soft hyphen,
+# zero-width spaces and joiners, direction marks, word joiners and invisible operators, the byte
+# order mark, Hangul fillers, line and paragraph separators, and the tag characters.
+INVISIBLE = (
+    "\u00ad\u034f\u061c\u115f\u1160\u17b4\u17b5\u180b-\u180f\u200b-\u200f\u2028\u2029"
+    "\u2060-\u2064\u206a-\u206f\u3164\ufeff\uffa0\ufff9-\ufffb\U000e0000-\U000e007f"
+)
+# C0 controls except tab and newline, DEL, C1 controls; the direction controls above; and the
+# invisible characters.
+HIDDEN_CHARACTERS = f"[\x00-\x08\x0b-\x1f\x7f-\x9f\u202a-\u202e\u2066-\u2069{INVISIBLE}]"  # regex
 _HIDDEN = re.compile(HIDDEN_CHARACTERS)
-_HIDDEN_IN_LINE = re.compile("[\x00-\x1f\x7f-\x9f\u202a-\u202e\u2066-\u2069]")
+_HIDDEN_IN_LINE = re.compile(f"[\x00-\x1f\x7f-\x9f\u202a-\u202e\u2066-\u2069{INVISIBLE}]")
 
 
 def _code(match: re.Match) -> str:
-    return f"[U+{ord(match.group()):04X}]"
+    return f"[U+{ord(match.group()):04X}]"  # U+E0041 keeps its five digits
 
 
 def visible_text(value: object, *, one_line: bool = False) -> str:
@@ -71,7 +79,7 @@ def hidden_characters_warning(labels: Iterable[object], where: str) -> str | Non
         f" and {len(found) - 5} more" if len(found) > 5 else ""
     )
     return (
-        f"{len(found)} label(s) in {where} hold direction controls or control characters, which "
-        f"can reorder or hide the text around them; they are shown as codes: {shown}. Check the "
-        "file's export."
+        f"{len(found)} label(s) in {where} hold direction controls or control characters "
+        "(or invisible ones), which can reorder or hide the text around them or make two "
+        f"labels look alike; they are shown as codes: {shown}. Check the file's export."
     )

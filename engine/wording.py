@@ -110,6 +110,16 @@ def format_percent(value: float | None, digits: int = 1, missing: str = NOT_ESTI
     return f"{_quantize(percent, digits):f}%"
 
 
+def format_interval(lower, upper, fmt=None) -> str:
+    """'0.93 to 1.13'; the missing word once when neither limit exists ("not estimable" for a
+    coefficient that runs off to infinity, "not reached" with such a ``fmt``). ``fmt`` formats
+    each limit (default ``format_ratio``)."""
+    fmt = fmt or format_ratio
+    if _is_missing(lower) and _is_missing(upper):
+        return fmt(lower)
+    return f"{fmt(lower)} to {fmt(upper)}"
+
+
 def format_ratio(value: float | None, missing: str = NOT_ESTIMABLE) -> str:
     """A hazard ratio or other ratio: 2 decimals, or 2 significant figures below 0.1."""
     if _is_missing(value):
@@ -280,6 +290,12 @@ def hazard_ratio_sentence(
         what = f"{variable} {level} versus {reference}" if reference else f"{variable} {level}"
     else:
         what = f"each {unit_of_change or 'one-unit'} increase in {variable}"
+    if _is_missing(lower) and _is_missing(upper) and _is_missing(p_value):
+        # a coefficient that runs off to infinity: where the fit stopped is no estimate
+        return (
+            f"The hazard ratio for {what} could not be estimated: its coefficient runs off to "
+            "infinity (monotone likelihood)."
+        )
     interval = _interval(format_ratio(lower), format_ratio(upper), confidence)
     return (
         f"The hazard ratio for {what} was {format_ratio(hazard_ratio)} "

@@ -7,7 +7,13 @@ import pandas as pd
 import streamlit as st
 
 from app import big_views, bigdata, charts, compute, data, ui
-from app.share_section import CUT_GROUPS, CUT_SOURCE, NO_COMPARE_STRATA, ROLE_SOURCE
+from app.share_section import (
+    CUT_GROUPS,
+    CUT_SOURCE,
+    NO_COMPARE_STRATA,
+    RMST_ORIGIN_LABELS,
+    ROLE_SOURCE,
+)
 from engine.prepare.roles import event_in_words
 from engine.survival.compare import TESTS
 from engine.wording import format_number, free_name, p_clause, probability_title
@@ -308,23 +314,39 @@ with ui.guard("The RMST difference"):
         min_value=0.0,
         key="compare_tau",
     )
+    origin = "zero"
+    if "_entry" in prepared.frame.columns:  # delayed entry: from 0 or from the first entry
+        ui.remember("compare_rmst_origin", RMST_ORIGIN_LABELS["zero"])
+        chosen_origin = st.radio(
+            "Restricted mean from",
+            list(RMST_ORIGIN_LABELS.values()),
+            key="compare_rmst_origin",
+            horizontal=True,
+        )
+        origin = {v: k for k, v in RMST_ORIGIN_LABELS.items()}[chosen_origin]
     if first == second:
         st.info("Choose two different groups.")
     else:
-        rmst = compute.rmst_pair(*key, (first, second), tau or None, 0.95, table)
+        rmst = compute.rmst_pair(*key, (first, second), tau or None, 0.95, table, origin)
         contrast = rmst.contrast
         unit = prepared.report.time_unit
         longer = "longer" if contrast.difference > 0 else "shorter"
         horizon = f"{format_number(rmst.tau, 1)} {unit}"
+        span = f"the first {horizon}"
+        if rmst.origin:
+            span = f"the span from the first entry ({format_number(rmst.origin, 1)}) to {horizon}"
         sentence = (
-            f"Over the first {horizon}, the average time free of the event was "
+            f"Over {span}, the average time free of the event was "
             f"{format_number(abs(contrast.difference), 2)} {unit} {longer} in {second} than in "
             f"{first} (difference {second} − {first}: {format_number(contrast.difference, 2)} "
             f"{unit}, 95% CI {format_number(contrast.difference_lower, 2)} to "
             f"{format_number(contrast.difference_upper, 2)}, {p_clause(contrast.difference_p)})."
         )
         st.markdown(f"**Reading:** {ui.escape(sentence)}")
-        st.caption(f"Horizon {horizon}: {rmst.tau_rule}. " + ui.NOT_SIGNIFICANT_CAUTION)
+        origin_rule = f"{rmst.origin_rule} " if rmst.origin_rule else ""
+        st.caption(
+            f"Horizon {horizon}: {rmst.tau_rule}. {origin_rule}" + ui.NOT_SIGNIFICANT_CAUTION
+        )
         estimates = pd.concat([e.to_frame() for e in rmst.estimates], ignore_index=True)
         ui.table(
             estimates,

@@ -12,7 +12,7 @@ import streamlit as st
 
 from app import charts, charts_models, compute_beyond, data, share_section, ui
 from app.share_section import NO_FINE_GRAY
-from engine.wording import format_percent, format_ratio, term_label
+from engine.wording import format_interval, format_p, format_percent, format_ratio, term_label
 
 CONFIDENCE = {"95%": 0.95, "90%": 0.90, "99%": 0.99}
 
@@ -186,10 +186,10 @@ else:
                 ],
                 "Hazard ratio": rows["hazard_ratio"].map(format_ratio),
                 "95% CI": [
-                    f"{format_ratio(lo)} to {format_ratio(hi)}"
+                    format_interval(lo, hi)  # "not estimable" for a coefficient running off
                     for lo, hi in rows[["lower", "upper"]].itertuples(index=False)
                 ],
-                "p": rows["p_value"].map(ui.fmt_p),
+                "p": rows["p_value"].map(format_p),
             }
         )
         ui.table(rows, "cause-specific-cox", "cr_cox", shown=shown)

@@ -7,6 +7,7 @@ import pandas as pd
 import streamlit as st
 
 from app import big_views, bigdata, charts, compute, data, ui
+from app.share_section import RMST_ORIGIN_LABELS
 from engine.prepare.roles import TIME_UNITS, event_in_words
 from engine.wording import (
     format_confidence,
@@ -174,6 +175,17 @@ tau_value = cols[1].number_input(
     help="Restricted mean survival time: the average time free of the event up to this time. "
     "Automatic: the smallest of the groups' largest observed times.",
 )
+rmst_origin = "zero"
+if roles.entry:  # with delayed entry the area may start at 0 or at the first entry
+    ui.remember("curves_rmst_origin", RMST_ORIGIN_LABELS["zero"])
+    chosen_origin = cols[1].radio(
+        "Restricted mean from",
+        list(RMST_ORIGIN_LABELS.values()),
+        key="curves_rmst_origin",
+        help="With delayed entry nobody is followed before the first entry. From time 0 the "
+        "curve counts as 1 there; from the first entry the area starts where follow-up does.",
+    )
+    rmst_origin = {v: k for k, v in RMST_ORIGIN_LABELS.items()}[chosen_origin]
 
 
 def parse_times(text: str) -> tuple[float, ...]:
@@ -204,7 +216,14 @@ except ValueError:
 
 with ui.guard("The summary table"):
     summary = compute.summary_table(
-        table.sha256, roles_text, times, tau_value or None, confidence, transform, table
+        table.sha256,
+        roles_text,
+        times,
+        tau_value or None,
+        confidence,
+        transform,
+        table,
+        rmst_origin,
     )
     frame = summary.to_frame()
     frame["group"] = frame["group"].map(compute.label_text)
@@ -229,7 +248,8 @@ with ui.guard("The summary table"):
             for e, lo, hi in frame[[key, f"{key}_lower", f"{key}_upper"]].itertuples(index=False)
         ]
     horizon = f"{format_number(summary.tau, 1)} {unit}"
-    shown[f"{rmst_name(event).capitalize()} to {horizon} ({unit})"] = [
+    start = f"from {format_number(summary.rmst_origin, 1)} " if summary.rmst_origin else ""
+    shown[f"{rmst_name(event).capitalize()} {start}to {horizon} ({unit})"] = [
         interval(e, lo, hi)
         for e, lo, hi in frame[["rmst", "rmst_lower", "rmst_upper"]].itertuples(index=False)
     ]
@@ -238,6 +258,7 @@ with ui.guard("The summary table"):
         f"Each cell: estimate ({format_confidence(confidence)} confidence interval, "
         f"{summary.transform} scale). {summary.quantile_method} The restricted mean runs to "
         f"{horizon}: {summary.tau_rule}."
+        + (f" {summary.rmst_origin_rule}" if summary.rmst_origin_rule else "")
     )
 
 # --- text for a manuscript (app.share_section) -----------------------------------------------

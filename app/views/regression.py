@@ -10,7 +10,15 @@ from app import big_views, bigdata, charts, charts_models, compute, data, state,
 from app.share_section import NO_MODEL_STRATA, PH_LABELS, REFERENCE_PREFIX, VARIANCE_LABELS
 from engine.cox.diagnostics import TIME_SCALE_WORDS
 from engine.errors import HazelError
-from engine.wording import format_confidence, format_number, format_ratio, p_clause, term_label
+from engine.wording import (
+    format_confidence,
+    format_interval,
+    format_number,
+    format_p,
+    format_ratio,
+    p_clause,
+    term_label,
+)
 
 TIES = {"Efron (default)": "efron", "Breslow": "breslow"}
 VARIANCES = {label: value for value, label in VARIANCE_LABELS.items()}
@@ -291,19 +299,19 @@ with tabs[2], ui.guard("The univariable screen"):
                 for v, lv, ref in screen[["variable", "level", "reference"]].itertuples(index=False)
             ],
             "Alone: hazard ratio (95% CI)": [
-                f"{format_ratio(h)} ({format_ratio(lo)} to {format_ratio(hi)})"
+                f"{format_ratio(h)} ({format_interval(lo, hi)})"
                 for h, lo, hi in screen[
                     ["univariable_hazard_ratio", "univariable_lower", "univariable_upper"]
                 ].itertuples(index=False)
             ],
-            "Alone: p": screen["univariable_p_value"].map(ui.fmt_p),
+            "Alone: p": screen["univariable_p_value"].map(format_p),
             "In the model: hazard ratio (95% CI)": [
-                f"{format_ratio(h)} ({format_ratio(lo)} to {format_ratio(hi)})"
+                f"{format_ratio(h)} ({format_interval(lo, hi)})"
                 for h, lo, hi in screen[
                     ["multivariable_hazard_ratio", "multivariable_lower", "multivariable_upper"]
                 ].itertuples(index=False)
             ],
-            "In the model: p": screen["multivariable_p_value"].map(ui.fmt_p),
+            "In the model: p": screen["multivariable_p_value"].map(format_p),
         }
     )
     ui.table(screen, "cox-univariable-screen", "model_screen", shown=shown)

@@ -199,7 +199,9 @@ def run_aggregate_analysis(data: AggregatedData, settings: Mapping | None = None
         curve_set = curves_from_counts(
             data.counts, confidence=curves["confidence"], transform=curves["ci_transform"]
         )
-        return curve_set_json(curve_set, curves["times"] or ())
+        return curve_set_json(
+            curve_set, curves["times"] or (), curves["rmst_horizon"], curves["rmst_origin"]
+        )
 
     sections: dict = {
         "data": data.report.to_dict(),

@@ -92,15 +92,19 @@ def incidence_from_counts(
     causes = _causes(counts)
     z = float(norm.ppf(0.5 + confidence_level / 2))
     split = by_group and counts.group_labels is not None
-    parts = [(str(counts.group_labels[g]), (g,)) for g in present_groups(counts)]
-    pieces = []
-    for label, groups in parts if split else [(None, None)]:
+    parts = [(None, None)]
+    if split:
+        parts = [(str(counts.group_labels[g]), (g,)) for g in present_groups(counts)]
+    pieces, entries = [], []
+    for label, groups in parts:
         table = risk_table(counts, by_group=False, groups=groups)
         by_cause = _cause_events(counts, table.times, groups=groups)[:, 0, :]
         removed = table.events[:, 0] + table.censored[:, 0]
         arrays = incidence_table(table.times, removed, by_cause, table.at_risk[:, 0], z)
         pieces.append((label, arrays))
-    return incidence_result(pieces, causes, confidence_level)
+        entries.append(None if table.entries is None else table.entries[0])
+    delayed = any(e is not None for e in entries)
+    return incidence_result(pieces, causes, confidence_level, entries if delayed else None)
 
 
 def gray_tests_from_counts(counts: CountTable) -> tuple[GrayTest, ...] | None:

@@ -34,7 +34,7 @@ class CountTable:
     entries: pd.DataFrame | None  # ENTRY_COLUMNS, or None without delayed entry
     group_labels: tuple | None  # None: no group role
     strata_labels: tuple | None  # None: no strata role
-    # named causes in ``competing.aalen_johansen``'s order (sorted); ``cause`` codes into them.
+    # named causes in the order given (``Roles.cause_order``); ``cause`` codes into them.
     # ``censored`` includes the rows of competing causes, counted again in ``competing``.
     causes: tuple[str, ...] | None = None
     cause_exits: pd.DataFrame | None = None  # CAUSE_COLUMNS

@@ -24,6 +24,7 @@ from engine.cox.fit import (
     _variable_wald,
     chi_square,
     fit_warnings,
+    runaway_terms,
     term_estimates,
 )
 from engine.cox.likelihood import TIES, maximise
@@ -86,6 +87,7 @@ def fit_cox_from_sums(
     beta = fit.beta / scale
     covariance = cov_scaled / np.outer(scale, scale)
     warnings, finite_estimates = fit_warnings(design, fit, events, not_estimable, strata)
+    runaway = runaway_terms(fit)
     no_test = ChiSquareTest("model", float("nan"), p, float("nan"))
     if concordance is None:
         c = NOT_COUNTED
@@ -107,8 +109,8 @@ def fit_cox_from_sums(
         events=events,
         ties=ties,
         confidence=confidence,
-        terms=term_estimates(design.terms, beta, covariance, confidence),
-        variable_wald=tuple(_variable_wald(design, beta, covariance)),
+        terms=term_estimates(design.terms, beta, covariance, confidence, None, runaway),
+        variable_wald=tuple(_variable_wald(design, beta, covariance, runaway)),
         likelihood_ratio=chi_square("model", 2 * (fit.loglik - fit.null_loglik), p)
         if finite_estimates
         else no_test,

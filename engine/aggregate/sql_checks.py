@@ -339,7 +339,7 @@ def aggregate_checks(
     clean = checked_cells(source, clean, [item.rsplit(" AS ", 1)[1] for item in select])
 
     counts, excluded, rows_read = _counts(
-        source, clean, levels, entry is not None, cause is not None
+        source, clean, levels, entry is not None, roles if cause is not None else None
     )
     for column in roles.covariates:
         missing = int(stats.get(f"missing::{column}", 0) or 0)
@@ -516,9 +516,10 @@ def _codes(keys: pd.Series, levels: Levels | None) -> np.ndarray:
     return np.array([lookup.get(k, -1) if isinstance(k, str) else -1 for k in keys], np.int64)
 
 
-def _counts(source: SqlSource, clean: str, levels: dict, has_entry: bool, has_cause: bool):
-    """Rows per reason, and the exit (per cause, with causes) and entry counts of the rows
-    used (two passes)."""
+def _counts(source: SqlSource, clean: str, levels: dict, has_entry: bool, cause_roles):
+    """Rows per reason, and the exit (per cause, with causes: ``cause_roles`` the roles that
+    name them, None without) and entry counts of the rows used (two passes)."""
+    has_cause = cause_roles is not None
     group = "_group" if "_group" in levels else "NULL"
     strata = "_strata" if "_strata" in levels else "NULL"
     cause = "_cause" if has_cause else "NULL"
@@ -566,7 +567,7 @@ def _counts(source: SqlSource, clean: str, levels: dict, has_entry: bool, has_ca
     if has_cause:
         named = kept["c"].notna().to_numpy()
         exits["cause"] = np.where(named, kept["c"].astype(object), None)
-        causes = sorted({str(c) for c in kept.loc[named, "c"]})
+        causes = cause_roles.cause_order(kept.loc[named, "c"].unique())
     g = levels.get("_group")
     s = levels.get("_strata")
     counts = count_table(

@@ -19,15 +19,15 @@ from engine.aggregate.cox_sums import CoxSums
 from engine.aggregate.sql import literal, number
 from engine.aggregate.sql_checks import AggregatedData
 from engine.cox.design import (
-    SMALL_LEVEL_ROWS,
     Design,
     Term,
     check_collinearity,
     constant_in_every_group,
     no_complete_rows,
+    level_checks,
 )
 from engine.cox.fit import drop_not_estimable
-from engine.errors import AnalysisError, preview_values
+from engine.errors import AnalysisError, preview_values, shown_value
 from engine.sorted_codes import sorted_codes
 
 # Score bins for Harrell's C. With 1,000 equal-width bins the invented test data (normal scores)
@@ -91,38 +91,17 @@ def sql_design(
         ref = reference.get(column, categories[0] if categories else None)
         if str(ref) not in categories:
             raise AnalysisError(
-                f"Reference level {ref!r} for '{column}' is not one of its levels "
+                f"Reference level {shown_value(ref)} for '{column}' is not one of its levels "
                 f"{preview_values(categories, 12)}; choose one of those."
             )
         ref = str(ref)
         if counts[ref] == 0:
             raise AnalysisError(
-                f"Reference level {ref!r} of '{column}' has no rows among the complete cases; "
-                "choose a reference level that has rows."
+                f"Reference level {shown_value(ref)} of '{column}' has no rows among the complete "
+                "cases; choose a reference level that has rows."
             )
         label_of = dict(zip(categories, info.labels, strict=True))
-        empty = [label_of[c] for c in categories if counts[c] == 0]
-        if empty:
-            warnings.append(
-                f"'{column}': level(s) {preview_values(empty)} have no rows among the complete "
-                "cases and are left out of the model."
-            )
-        kept = [c for c in categories if counts[c] > 0 and c != ref]
-        if not kept:
-            raise AnalysisError(
-                f"Categorical covariate '{column}' has a single level ({label_of[ref]!r}) among "
-                "the complete cases, so it cannot be estimated; remove it from the covariates."
-            )
-        small = [
-            f"{label_of[c]!r} ({counts[c]} rows)"
-            for c in [ref, *kept]
-            if counts[c] < SMALL_LEVEL_ROWS
-        ]
-        if small:
-            warnings.append(
-                f"'{column}': level(s) {', '.join(small)} have fewer than {SMALL_LEVEL_ROWS} rows "
-                "(common practice); their hazard ratios are unreliable. Consider merging levels."
-            )
+        kept = level_checks(column, categories, counts, ref, warnings, label_of.get)
         levels[column] = (ref, *kept)
         level_counts[column] = {c: int(counts[c]) for c in [ref, *kept]}
         for level in kept:

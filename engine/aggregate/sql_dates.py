@@ -3,8 +3,9 @@
 
 Two kinds of date column are read in SQL: native DATE/TIMESTAMP columns (with a time zone:
 in UTC) and ISO text (``YYYY-MM-DD``, optionally `` HH:MM`` or ``THH:MM:SS``) when the
-column's first value is ISO, as memory decides. Each date becomes whole seconds since 1970 by
-calendar arithmetic on its year, month, day and time (no database date parser involved).
+column's values are mostly ISO (``dates.is_iso_column``), as memory decides. Each date becomes
+whole seconds since 1970 by calendar arithmetic on its year, month, day and time (no database
+date parser involved).
 A text value that is not plain, valid ISO with a year pandas can hold (``dates._NS_YEARS``) is
 read by memory's own parser: its distinct values come back, are parsed by
 ``dates.parse_iso_texts`` and go into the SQL as a lookup. What cannot be done identically
@@ -33,7 +34,7 @@ from engine.prepare.dates import (
     _NS_YEARS,
     EARLIEST_PLAUSIBLE,
     implausible_text,
-    is_iso_text,
+    is_iso_column,
     parse_dates,
     parse_iso_texts,
 )
@@ -95,13 +96,14 @@ class _DateColumn:
         if len(present) == 0:
             raise _refuse(column, "is empty in its first rows, so its layout is not known")
         first = present.iloc[0]
+        texts = [str(v).strip() for v in present.unique()] if isinstance(first, str) else []
         if isinstance(first, datetime.date | np.datetime64):
             self.seconds = self._native()
-        elif isinstance(first, str) and is_iso_text(first):
+        elif texts and is_iso_column(texts):  # judged from the sample's values, as in memory
             self.is_text = True
             self.seconds = self._text(roles)
-        elif isinstance(first, str):
-            shown = preview_values([first])
+        elif texts:
+            shown = preview_values([t for t in texts if not is_iso_column([t])][:3])
             raise _refuse(column, f"holds dates such as {shown}, not ISO text (YYYY-MM-DD)")
         else:
             shown = preview_values([first])

@@ -29,7 +29,14 @@ from engine.survival.compare import compare_frame
 from engine.survival.summary import COMPARISON_KEYS, curves_json
 
 ANALYSIS_DEFAULTS: dict[str, dict] = {
-    "curves": {"times": [], "ci_transform": "log-log", "confidence": 0.95, "rmst_horizon": None},
+    # rmst_horizon: None (no restricted mean) or τ; rmst_origin: "zero" or "first_entry"
+    "curves": {
+        "times": [],
+        "ci_transform": "log-log",
+        "confidence": 0.95,
+        "rmst_horizon": None,
+        "rmst_origin": "zero",
+    },
     # cut: None (the group role) or {"column": numeric column, "groups": k};
     # strata: None (the strata role), False (none) or a column
     "comparison": {"test": "logrank", "rho": 0.0, "gamma": 0.0, "cut": None, "strata": None},
@@ -289,6 +296,8 @@ def run_analysis(
             times=curves["times"] or (),
             confidence=curves["confidence"],
             transform=curves["ci_transform"],
+            rmst_horizon=curves["rmst_horizon"],
+            rmst_origin=curves["rmst_origin"],
         ),
         "comparison": computed(
             comparison_section,

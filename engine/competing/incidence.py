@@ -34,7 +34,7 @@ from scipy.stats import norm
 from engine.cox.fit import CoxResult, fit_cox
 from engine.errors import AnalysisError, NoRowsError, preview_values
 from engine.json_values import frame_records
-from engine.survival.risk_table import as_float_array, checked_entry, group_codes
+from engine.survival.risk_table import as_float_array, at_risk_at, checked_entry, group_codes
 
 VARIANCE_METHOD = (
     "delta method (Greenwood-type), Collett 2015 section 12.2.3; intervals on the log(-log) scale"
@@ -65,6 +65,8 @@ class CumulativeIncidence:
     variance_method: str
     table: pd.DataFrame  # TABLE_COLUMNS; group is None for all subjects together
     warning: str | None  # set when competing events exist: 1 - KM would overstate incidence
+    # with delayed entry: each group's (or all rows') entry times, ascending, in table order
+    entries: tuple[np.ndarray, ...] | None = None
 
     def to_frame(self) -> pd.DataFrame:
         return self.table.copy()
@@ -80,19 +82,30 @@ class CumulativeIncidence:
         }
 
     def at(self, times) -> pd.DataFrame:
-        """Cumulative incidence (with interval) at chosen times, per group and cause."""
+        """Cumulative incidence (with interval) at chosen times, per group and cause; the
+        number at risk at t counts ``entry < t <= time`` (``risk_table.at_risk_at``, the rule
+        of the curves' numbers at risk)."""
         times = np.asarray(times, dtype=float).reshape(-1)
         keys = ["group", "cause"]
         pieces = []
+        piece, _ = pd.factorize(self.table["group"], use_na_sentinel=False)  # table order
         for (group, cause), rows in self.table.groupby(keys, sort=False, dropna=False):
             idx = np.searchsorted(rows["time"].to_numpy(), times, side="right") - 1
             picked = rows.iloc[np.maximum(idx, 0)]
+            observed = (rows["n_events_any"] + rows["n_censored"]).to_numpy() > 0  # not the pad
+            entries = None if self.entries is None else self.entries[piece[rows.index[0]]]
+            n_at_risk = at_risk_at(
+                rows["time"].to_numpy()[observed],
+                rows["n_at_risk"].to_numpy()[observed],
+                times,
+                entries,
+            )
             out = pd.DataFrame(
                 {
                     "group": group,
                     "cause": cause,
                     "time": times,
-                    "n_at_risk": picked["n_at_risk"].to_numpy(),
+                    "n_at_risk": n_at_risk,
                     "cumulative_incidence": picked["cumulative_incidence"].to_numpy(),
                     "lower": picked["lower"].to_numpy(),
                     "upper": picked["upper"].to_numpy(),
@@ -244,19 +257,21 @@ def aalen_johansen(
         parts = [
             (str(label), codes_g == i) for i, label in enumerate(labels) if (codes_g == i).any()
         ]
-    pieces = []
+    pieces, entries = [], []
     for label, mask in parts:
+        sub_entry = entry if entry is None or mask is None else entry[mask]
         if mask is None:
             counts = _cause_counts(time, codes, len(causes), entry)
         else:
-            sub_entry = None if entry is None else entry[mask]
             counts = _cause_counts(time[mask], codes[mask], len(causes), sub_entry)
         pieces.append((label, incidence_table(*counts, z)))
-    return incidence_result(pieces, causes, confidence_level)
+        entries.append(None if sub_entry is None else np.sort(sub_entry))
+    return incidence_result(pieces, causes, confidence_level, None if entry is None else entries)
 
 
-def incidence_result(pieces, causes: tuple[str, ...], confidence_level: float):
-    """The ``CumulativeIncidence`` of (group label or None, ``incidence_table``) pieces."""
+def incidence_result(pieces, causes: tuple[str, ...], confidence_level: float, entries=None):
+    """The ``CumulativeIncidence`` of (group label or None, ``incidence_table``) pieces, with
+    delayed entry each piece's entry times (ascending) in ``entries``."""
     for label, arrays in pieces:
         arrays["group"] = np.full(arrays["time"].shape[0], label, dtype=object)
     merged = {k: np.concatenate([p[k] for _, p in pieces]) for k in pieces[0][1]}
@@ -272,6 +287,7 @@ def incidence_result(pieces, causes: tuple[str, ...], confidence_level: float):
         variance_method=VARIANCE_METHOD,
         table=table,
         warning=_overstatement_warning(gaps),
+        entries=None if entries is None else tuple(entries),
     )
 
 

@@ -8,7 +8,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 import pandas as pd
 
-from engine.errors import AnalysisError, NoRowsError, preview_values
+from engine.errors import AnalysisError, NoRowsError, preview_values, shown_value
 from engine.text_safety import visible_text
 from engine.wording import term_label
 
@@ -67,6 +67,37 @@ class Design:
 
     def columns_of(self, variable: str) -> np.ndarray:
         return np.array([i for i, t in enumerate(self.terms) if t.variable == variable])
+
+
+def level_checks(column: str, levels, counts, ref, warnings: list[str], label=None) -> list:
+    """The levels of a categorical covariate kept beside its reference (those with rows among
+    the complete cases), with the warnings on empty and small levels appended to ``warnings``;
+    an error when only the reference has rows. ``label`` shows a level (default: itself).
+    Shared by the design from rows and from a database's counts."""
+    label = label or (lambda level: level)
+    empty = [label(c) for c in levels if counts[c] == 0]
+    if empty:
+        warnings.append(
+            f"'{column}': level(s) {preview_values(empty)} have no rows among the complete "
+            "cases and are left out of the model."
+        )
+    kept = [c for c in levels if counts[c] > 0 and c != ref]
+    if not kept:
+        raise AnalysisError(
+            f"Categorical covariate '{column}' has a single level ({shown_value(label(ref))}) "
+            "among the complete cases, so it cannot be estimated; remove it from the covariates."
+        )
+    small = [
+        f"{shown_value(label(c))} ({int(counts[c])} rows)"
+        for c in [ref, *kept]
+        if counts[c] < SMALL_LEVEL_ROWS
+    ]
+    if small:
+        warnings.append(
+            f"'{column}': level(s) {', '.join(small)} have fewer than {SMALL_LEVEL_ROWS} rows "
+            "(common practice); their hazard ratios are unreliable. Consider merging levels."
+        )
+    return kept
 
 
 def _as_categorical(frame: pd.DataFrame, column: str) -> pd.Categorical:
@@ -140,33 +171,16 @@ def build_design(
             matched = [c for c in values.categories if str(c) == str(ref)]
             if not matched:
                 raise AnalysisError(
-                    f"Reference level {ref!r} for '{column}' is not one of its levels "
+                    f"Reference level {shown_value(ref)} for '{column}' is not one of its levels "
                     f"{preview_values(list(values.categories), 12)}; choose one of those."
                 )
             ref = matched[0]
         if counts[ref] == 0:
             raise AnalysisError(
-                f"Reference level {ref!r} of '{column}' has no rows among the complete cases; "
-                "choose a reference level that has rows."
+                f"Reference level {shown_value(ref)} of '{column}' has no rows among the complete "
+                "cases; choose a reference level that has rows."
             )
-        empty = [c for c in values.categories if counts[c] == 0]
-        if empty:
-            warnings.append(
-                f"'{column}': level(s) {preview_values(empty)} have no rows among the complete "
-                "cases and are left out of the model."
-            )
-        kept = [c for c in values.categories if counts[c] > 0 and c != ref]
-        if not kept:
-            raise AnalysisError(
-                f"Categorical covariate '{column}' has a single level ({ref!r}) among the complete "
-                "cases, so it cannot be estimated; remove it from the covariates."
-            )
-        small = [f"{c!r} ({counts[c]} rows)" for c in [ref, *kept] if counts[c] < SMALL_LEVEL_ROWS]
-        if small:
-            warnings.append(
-                f"'{column}': level(s) {', '.join(small)} have fewer than {SMALL_LEVEL_ROWS} rows "
-                "(common practice); their hazard ratios are unreliable. Consider merging levels."
-            )
+        kept = level_checks(column, list(values.categories), counts, ref, warnings)
         levels[column] = (str(ref), *(str(c) for c in kept))
         level_counts[column] = {str(c): int(counts[c]) for c in [ref, *kept]}
         codes = np.asarray(values.astype(object))

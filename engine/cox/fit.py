@@ -189,6 +189,14 @@ SINGULAR_INFORMATION = (
 )
 
 
+def runaway_terms(fit) -> np.ndarray:
+    """Per term, whether its coefficient runs off to infinity: a large last Newton step, or no
+    curvature left at the estimate (the information of a monotone likelihood falls to zero,
+    and rounding may leave it at or below zero). Such a term has no standard error, p-value or
+    interval (``term_estimates``), only the warning of ``fit_warnings``."""
+    return (np.abs(fit.last_step) > RUNAWAY_STEP) | ~(np.diag(fit.information) > 0)
+
+
 def fit_warnings(
     design: Design,
     fit,
@@ -213,10 +221,7 @@ def fit_warnings(
             f"The fit did not converge after {fit.iterations} iterations; the estimates may be "
             "unreliable. Remove sparse covariates or merge small levels."
         )
-    # a large last step, or no curvature left at the estimate (the information of a monotone
-    # likelihood falls to zero, and rounding may leave it at or below zero)
-    running = (np.abs(fit.last_step) > RUNAWAY_STEP) | ~(np.diag(fit.information) > 0)
-    runaway = [design.terms[j].label for j in np.flatnonzero(running)]
+    runaway = [design.terms[j].label for j in np.flatnonzero(runaway_terms(fit))]
     if runaway:
         warnings.append(
             f"Coefficient(s) for {', '.join(runaway)} run off to infinity (monotone likelihood, "
@@ -318,7 +323,8 @@ def fit_cox(
     if cluster_codes is not None:
         robust = robust_covariance(layout, scaled, fit.beta, ties, cov_scaled, cluster_codes)
         robust = robust / np.outer(scale, scale)
-    terms = term_estimates(design.terms, beta, covariance, confidence, robust)
+    runaway = runaway_terms(fit)
+    terms = term_estimates(design.terms, beta, covariance, confidence, robust, runaway)
     eta = scaled @ fit.beta
     subjects = None if clusters is None else pd.factorize(frame[clusters].to_numpy()[used])[0]
     concordance = harrell_c(
@@ -349,7 +355,9 @@ def fit_cox(
         ties=ties,
         confidence=confidence,
         terms=terms,
-        variable_wald=tuple(_variable_wald(design, beta, covariance if robust is None else robust)),
+        variable_wald=tuple(
+            _variable_wald(design, beta, covariance if robust is None else robust, runaway)
+        ),
         likelihood_ratio=chi_square("model", 2 * (fit.loglik - null_loglik), p)
         if finite_estimates
         else no_test,
@@ -405,10 +413,16 @@ def robust_covariance(layout, scaled, beta, ties, information_inverse, codes) ->
     return information_inverse @ middle @ information_inverse
 
 
-def term_estimates(terms: Sequence[Term], beta, covariance, confidence, robust=None):
+def term_estimates(terms: Sequence[Term], beta, covariance, confidence, robust=None, runaway=None):
+    """The terms' estimates; a term in ``runaway`` (``runaway_terms``) keeps its coefficient
+    and hazard ratio where the fit stopped, with no standard error, z, p-value or interval
+    (NaN: null in the JSON, "not estimable" in the text, pages and report)."""
     with np.errstate(invalid="ignore"):  # a variance below zero (a runaway): no se
         se_model = np.sqrt(np.diag(covariance))
         se = se_model if robust is None else np.sqrt(np.diag(robust))
+    if runaway is not None and np.any(runaway):
+        se_model = np.where(runaway, np.nan, se_model)
+        se = np.where(runaway, np.nan, se)
     quantile = stats.norm.ppf(0.5 + confidence / 2)
     with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
         z = beta / se
@@ -431,9 +445,13 @@ def term_estimates(terms: Sequence[Term], beta, covariance, confidence, robust=N
     return rows
 
 
-def _variable_wald(design: Design, beta, covariance):
+def _variable_wald(design: Design, beta, covariance, runaway=None):
+    """The joint Wald test of each categorical variable of several terms; none for a variable
+    with a term that runs off to infinity (its test is not meaningful)."""
     for variable in design.levels:
         cols = design.columns_of(variable)
+        if runaway is not None and np.any(np.asarray(runaway)[cols]):
+            continue
         if len(cols) > 1:
             b = beta[cols]
             statistic = b @ np.linalg.solve(covariance[np.ix_(cols, cols)], b)

@@ -9,7 +9,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from engine.cox.fit import CoxResult, chi_square, term_estimates
+from engine.cox.fit import CoxResult, chi_square, runaway_terms, term_estimates
 from engine.cox.likelihood import baseline_hazard, newton_raphson
 from engine.errors import AnalysisError, preview_values
 
@@ -45,7 +45,8 @@ def univariable_screen(result: CoxResult) -> UnivariableScreen:
         scale = model.scale[cols]
         covariance = np.linalg.inv(fit.information) / np.outer(scale, scale)
         terms = [design.terms[j] for j in cols]
-        alone = term_estimates(terms, fit.beta / scale, covariance, result.confidence)
+        estimates = (fit.beta / scale, covariance, result.confidence, None, runaway_terms(fit))
+        alone = term_estimates(terms, *estimates)
         lr = chi_square(variable, 2 * (fit.loglik - fit.null_loglik), len(cols))
         for est in alone:
             both = multi[(est.variable, est.level)]

@@ -12,7 +12,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 import pandas as pd
 
-from engine.errors import EventCodingError, RoleError, preview_values
+from engine.errors import EventCodingError, RoleError, preview_values, shown_value
 from engine.prepare.column_kinds import MAX_LEVELS, natural_sort_key, numbers_in_text
 from engine.prepare.data_warnings import group_counts, warnings_on_used
 from engine.prepare.dates import (
@@ -452,6 +452,8 @@ def _event_codes(frame, roles: Roles, notes: list[str]):
         cause[event < 0] = None  # competing causes keep their name with _event == 0
         missing_cause = (event == 1) & pd.isna(cause)
         cause[missing_cause] = "event"
+        named = pd.unique(cause[pd.notna(cause)])
+        cause = pd.Categorical(cause, categories=roles.cause_order(named))  # the order given
     return event, cause, coding
 
 
@@ -484,13 +486,36 @@ def event_coding(roles: Roles, counts: pd.Series, notes: list[str], *, column: s
             f"Event column {column!r}: {preview_values(censored_only)} are all treated "
             "as censored (not named as event values)."
         )
+    if roles.event_values and roles.event_causes:
+        notes.extend(_causes_merged_note(roles, coding))
     if coding.assumption:
         notes.append(coding.assumption)
     return coding
 
 
+def _causes_merged_note(roles: Roles, coding: EventCoding) -> list[str]:
+    """The warning when the event values belong to several causes: the reading used (any of
+    them is the event outside the competing-risks section) and how to get the other one."""
+    names = {value_key(v): str(name) for v, name in roles.event_causes}
+    merged = roles.cause_order({names.get(value_key(v), "event") for v in coding.event_values})
+    if len(merged) < 2:
+        return []
+    first = merged[0]
+    return [
+        f"The event values (--event-value; on Column roles, the values chosen as the event) "
+        f"belong to {len(merged)} causes named with "
+        f"--competing ({', '.join(merged)}): the curves, the comparison, the Cox model and the "
+        "performance measures treat any of them as the event, so no row counts as a competing "
+        "event there; the competing-risks section still separates the causes. To study "
+        f"{first} with the others competing, give only its values as event values (or leave "
+        "--event-value out: the first cause named is then the event of interest)."
+    ]
+
+
 def _counts_text(coding: EventCoding) -> str:
-    shown = [f"{v!r} ({c} row{'' if c == 1 else 's'})" for v, c in coding.counts[:8]]
+    shown = [
+        f"{shown_value(v)} ({int(c)} row{'' if c == 1 else 's'})" for v, c in coding.counts[:8]
+    ]
     rest = len(coding.counts) - 8
     return ", ".join(shown) + (f" and {rest} more" if rest > 0 else "")
 
@@ -514,7 +539,7 @@ def _covariate(series: pd.Series, column: str, kind: str, roles: Roles, notes: l
 def _not_numbers_note(series: pd.Series, column: str, bad: np.ndarray) -> str:
     """Which cells of a numeric covariate are not (finite) numbers, by value and data row."""
     where = np.flatnonzero(bad)
-    shown = [f"{series.iloc[i]!r} in data row {i + 1}" for i in where[:5]]
+    shown = [f"{shown_value(series.iloc[i])} in data row {i + 1}" for i in where[:5]]
     rest = f" and {len(where) - 5} more" if len(where) > 5 else ""
     return (
         f"Covariate {column!r} is numeric, but {len(where)} cell(s) are not finite numbers "

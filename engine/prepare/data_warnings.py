@@ -8,6 +8,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from engine.errors import shown_value
 from engine.prepare.roles import Roles, convert_time
 from engine.text_safety import hidden_characters_warning
 
@@ -90,13 +91,12 @@ def warnings_from_summary(
     if events == 0:
         notes.append("There are no events among the rows used; curves stay at 1.")
     if roles.group:
-        for _, row in counts.iterrows():
-            label = row["group"]
-            if row["n"] < TINY_GROUP:
-                notes.append(f"Group {label!r} has only {row['n']} row(s).")
-            elif row["events"] < FEW_EVENTS:
+        for label, n, events in zip(counts["group"], counts["n"], counts["events"], strict=True):
+            if n < TINY_GROUP:
+                notes.append(f"Group {shown_value(label)} has only {int(n)} row(s).")
+            elif events < FEW_EVENTS:
                 notes.append(
-                    f"Group {label!r} has {row['events']} event(s); with fewer than "
+                    f"Group {shown_value(label)} has {int(events)} event(s); with fewer than "
                     f"{FEW_EVENTS} events its estimates are unstable (common practice rule)."
                 )
         if no_group:

@@ -16,6 +16,7 @@ import warnings
 import numpy as np
 import pandas as pd
 from dateutil import parser as date_parser
+from pandas.tseries.api import guess_datetime_format
 
 from engine.errors import RoleError, preview_values
 
@@ -29,6 +30,7 @@ _UTC_OFFSET = re.compile(
 )
 _FOUR_DIGITS = re.compile(r"(?<![0-9])([0-9]{4})(?![0-9])")
 _NS_YEARS = (1678, 2261)  # whole years inside pandas' nanosecond range
+FORMAT_SAMPLE = 2000  # distinct texts a column's layout is judged from
 
 
 def check_date_format(date_format: str | None) -> None:
@@ -89,14 +91,14 @@ def _parse_values(values: list, date_format: str | None, day_first: bool) -> np.
             texts.append(str(value).strip())
     if not texts:
         return out
-    if date_format is None and _ISO_START.match(texts[0]):
+    if date_format is None and is_iso_column(texts):
         out[text_at] = parse_iso_texts(texts, day_first)
         return out
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         fast = pd.to_datetime(
             pd.Series(texts, dtype=object),
-            format=date_format,
+            format=date_format or column_format(texts, day_first),
             dayfirst=day_first,
             errors="coerce",
             utc=True,
@@ -107,10 +109,49 @@ def _parse_values(values: list, date_format: str | None, day_first: bool) -> np.
     return out
 
 
-def is_iso_text(text: str) -> bool:
-    """Whether a column whose first text value is ``text`` is read as ISO 8601 (automatic
-    format): then each value is read on its own, by ``parse_iso_texts``."""
-    return bool(_ISO_START.match(text.strip()))
+def _layout_sample(texts: list[str]) -> list[str]:
+    """Up to FORMAT_SAMPLE distinct texts spread evenly over the column (all of a smaller one):
+    what a column's layout is judged from, never its first cell alone."""
+    if len(texts) <= FORMAT_SAMPLE:
+        return texts
+    step = len(texts) / FORMAT_SAMPLE
+    return [texts[int(i * step)] for i in range(FORMAT_SAMPLE)]
+
+
+def is_iso_column(texts: list[str]) -> bool:
+    """Whether a text date column is read as ISO 8601 (automatic format): at least half of its
+    distinct texts (or of an even sample of them) start YYYY-MM-DD. Each value is then read on
+    its own by ``parse_iso_texts``, so a partial date (2020, 2020-06) is its first day."""
+    sample = _layout_sample(texts)
+    iso = sum(bool(_ISO_START.match(t.strip())) for t in sample)
+    return bool(sample) and 2 * iso >= len(sample)
+
+
+def column_format(texts: list[str], day_first: bool) -> str | None:
+    """The layout most of a non-ISO column's distinct texts (or an even sample) are written in,
+    as a strptime format; None when no text looks like a date (pandas then reads each)."""
+    guesses: dict[str, int] = {}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for text in _layout_sample(texts):
+            try:
+                guess = guess_datetime_format(text, dayfirst=day_first)
+            except (ValueError, TypeError):
+                guess = None
+            if guess:
+                guess = _in_order(guess, day_first)
+                guesses[guess] = guesses.get(guess, 0) + 1
+    return max(guesses, key=guesses.get) if guesses else None
+
+
+def _in_order(layout: str, day_first: bool) -> str:
+    """A guessed layout with day and month in the order chosen (the day-first switch decides
+    the order; a text readable only the other way fails and is named by the checks)."""
+    if "%d" not in layout or "%m" not in layout:
+        return layout
+    if (layout.index("%d") < layout.index("%m")) != day_first:
+        return layout.replace("%d", "\0").replace("%m", "%d").replace("\0", "%m")
+    return layout
 
 
 def parse_iso_texts(texts: list[str], day_first: bool) -> np.ndarray:

@@ -138,6 +138,19 @@ class Roles:
     implausible_dates: str = "warn"
 
     @property
+    def cause_names(self) -> tuple[str, ...]:
+        """The named causes in the order given: the order of every listing of causes (the first
+        is the event of interest unless event_values say otherwise)."""
+        return tuple(dict.fromkeys(str(name) for _, name in self.event_causes))
+
+    def cause_order(self, present) -> list[str]:
+        """The causes among ``present`` in the order given; "event" (event values mapped to no
+        cause: the event of interest) first."""
+        present = {str(c) for c in present}
+        named = [c for c in self.cause_names if c in present]
+        return sorted(present - set(named)) + named
+
+    @property
     def duration_unit(self) -> str:
         """Unit of the duration column (dates are differenced in days)."""
         if self.time is None:

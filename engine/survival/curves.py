@@ -21,7 +21,13 @@ from scipy.stats import norm
 
 from engine.errors import AnalysisError
 from engine.json_values import json_float, json_int, json_label
-from engine.survival.risk_table import RiskTable, as_event_array, build_risk_table, group_codes
+from engine.survival.risk_table import (
+    RiskTable,
+    as_event_array,
+    at_risk_at,
+    build_risk_table,
+    group_codes,
+)
 
 TRANSFORMS = ("log-log", "log", "linear")
 
@@ -287,15 +293,7 @@ def survival_at(curve: SurvivalCurve, times) -> SurvivalAtTable:
         survival = np.where(beyond, np.nan, survival)
         lower = np.where(beyond, np.nan, lower)
         upper = np.where(beyond, np.nan, upper)
-    at_risk_full = np.append(curve.at_risk, 0)
-    at_risk = at_risk_full[before]
-    if curve.entry is not None:
-        # at the first observed time s >= t the count holds those entering in [t, s) too
-        next_time = np.append(curve.time, np.inf)[before]
-        entering = np.searchsorted(curve.entry, next_time, side="left") - np.searchsorted(
-            curve.entry, t, side="left"
-        )
-        at_risk = at_risk - entering
+    at_risk = at_risk_at(curve.time, curve.at_risk, t, curve.entry)
     cum_events = np.concatenate(([0], np.cumsum(curve.events)))
     cum_censored = np.concatenate(([0], np.cumsum(curve.censored)))
     frame = pd.DataFrame(
@@ -312,9 +310,19 @@ def survival_at(curve: SurvivalCurve, times) -> SurvivalAtTable:
     return SurvivalAtTable(curve.label, curve.confidence, curve.transform, frame)
 
 
+MEDIAN_RULE = (
+    "Where the curve stays exactly at that share over an interval (S(t) = 0.5 from one event "
+    "time to the next, for the median), the estimate is the start of that interval, the first "
+    "time S(t) ≤ 0.5; other common rules take the end of the interval or its midpoint."
+)
+MEDIAN_FOOTNOTE = "The median is the first time the curve falls to or below one half. " + (
+    MEDIAN_RULE
+)
 QUANTILE_METHOD = (
     "A quantile (the median: half) is the first time the curve falls to or below the share "
-    "still free of the event that defines it. Its interval is read from the pointwise "
+    "still free of the event that defines it. "
+    + MEDIAN_RULE
+    + " Its interval is read from the pointwise "
     "{transform} band: from the first time the lower edge of the band falls that low to the "
     "first time the upper edge does (the Brookmeyer–Crowley construction on that scale)."
 )

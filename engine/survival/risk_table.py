@@ -155,6 +155,24 @@ def without_missing(frame: pd.DataFrame, columns=("_group", "_strata")) -> tuple
     return (frame, 0) if keep.all() else (frame[keep], int((~keep).sum()))
 
 
+def at_risk_at(times, at_risk, t, entries=None) -> np.ndarray:
+    """The subjects at risk at each time ``t`` (``entry < t <= time``), read from the counts at
+    the distinct observed ``times``: the count at the first observed time s >= t, less those
+    entering in [t, s) (``entries``: the rows' entry times, ascending); 0 beyond the last time.
+    The one rule for numbers at risk at chosen times (curves and cumulative incidence)."""
+    times = np.asarray(times, dtype=float)
+    t = np.asarray(t, dtype=float)
+    first_after = np.searchsorted(times, t, side="left")  # first observed time >= t
+    out = np.append(np.asarray(at_risk, dtype=np.int64), 0)[first_after]
+    if entries is not None:
+        next_time = np.append(times, np.inf)[first_after]
+        out = out - (
+            np.searchsorted(entries, next_time, side="left")
+            - np.searchsorted(entries, t, side="left")
+        )
+    return out
+
+
 def build_risk_table(time, event, codes=None, labels=(None,), entry=None) -> RiskTable:
     """Count at risk / events / censored at each distinct time for each group code."""
     time = as_float_array(time, "_time")

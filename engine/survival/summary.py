@@ -18,6 +18,7 @@ from engine.survival.curves import (
 )
 from engine.survival.risk_table import as_event_array, as_float_array, group_codes
 from engine.survival.rmst import rmst_from_curve
+from engine.survival.rmst import rmst_origin as rmst_origin_of
 
 
 @dataclass(frozen=True)
@@ -115,6 +116,8 @@ class GroupSummaryTable:
     confidence: float
     transform: str
     quantile_method: str
+    rmst_origin: float = 0.0  # where the restricted means start (``rmst.rmst_origin``)
+    rmst_origin_rule: str | None = None  # the sentence saying so, with delayed entry
 
     def to_frame(self) -> pd.DataFrame:
         return self.frame.copy()
@@ -130,6 +133,8 @@ class GroupSummaryTable:
             "confidence": self.confidence,
             "transform": self.transform,
             "quantile_method": self.quantile_method,
+            "rmst_origin": self.rmst_origin,
+            "rmst_origin_rule": self.rmst_origin_rule,
             "rows": rows,
         }
 
@@ -150,9 +155,11 @@ def group_summary(
     tau: float | None = None,
     confidence: float = 0.95,
     transform: str = "log-log",
+    rmst_origin: str = "zero",
 ) -> GroupSummaryTable:
     """The summary table of a prepared frame; τ defaults to the smallest of the groups'
-    largest observed times (the overall row uses the same τ)."""
+    largest observed times (the overall row uses the same τ); the restricted means start at
+    ``rmst_origin`` ("zero", or "first_entry": the first entry of all rows)."""
     times = tuple(float(t) for t in check_times(times))
     curves = curves_by_group(frame, confidence=confidence, transform=transform).curves
     groups = curves[1:] or curves
@@ -162,6 +169,7 @@ def group_summary(
         rule = "the smallest of the groups' largest observed times"
     else:
         rule = "chosen by the user"
+    origin, origin_rule = rmst_origin_of(curves[0], rmst_origin)
     rows, method = [], ""
     for curve in curves:
         quantiles = survival_quantiles(curve, (0.5,))
@@ -182,27 +190,39 @@ def group_summary(
             row[f"survival_{t:g}"] = s
             row[f"survival_{t:g}_lower"] = lo
             row[f"survival_{t:g}_upper"] = hi
-        estimate = rmst_from_curve(curve, tau)
+        estimate = rmst_from_curve(curve, tau, origin)
         row.update(rmst=estimate.estimate, rmst_lower=estimate.lower, rmst_upper=estimate.upper)
         rows.append(row)
     table = pd.DataFrame(rows)
     for col in ("median", "median_lower", "median_upper"):
         table[col] = table[col].astype(float)
-    return GroupSummaryTable(table, times, float(tau), rule, confidence, transform, method)
+    return GroupSummaryTable(
+        table, times, float(tau), rule, confidence, transform, method, origin, origin_rule
+    )
 
 
 def curves_json(
-    frame: pd.DataFrame, times=(), confidence: float = 0.95, transform: str = "log-log"
+    frame: pd.DataFrame,
+    times=(),
+    confidence: float = 0.95,
+    transform: str = "log-log",
+    rmst_horizon: float | None = None,
+    rmst_origin: str = "zero",
 ) -> list[dict]:
     """The CLI's "curves" entry: all rows first ("group": null), then each group."""
     curve_set = curves_by_group(frame, confidence=confidence, transform=transform)
-    return curve_set_json(curve_set, times)
+    return curve_set_json(curve_set, times, rmst_horizon, rmst_origin)
 
 
-def curve_set_json(curve_set, times=()) -> list[dict]:
-    """The "curves" entry of a ``CurveSet`` (from rows or from per-time counts)."""
+def curve_set_json(
+    curve_set, times=(), rmst_horizon: float | None = None, rmst_origin: str = "zero"
+) -> list[dict]:
+    """The "curves" entry of a ``CurveSet`` (from rows or from per-time counts); with
+    ``rmst_horizon`` each curve has its restricted mean to that τ from ``rmst_origin`` (the
+    first entry of all rows with "first_entry"), or the reason it has none."""
     times = check_times(times)
     out = []
+    start = None if rmst_horizon is None else rmst_origin_of(curve_set.curves[0], rmst_origin)
     for curve in curve_set.curves:
         median = survival_quantiles(curve, (0.5,)).row(0.5)
         at = survival_at(curve, times).to_dict()["at_times"]
@@ -217,7 +237,25 @@ def curve_set_json(curve_set, times=()) -> list[dict]:
                 ],
             }
         )
+        if start is not None:
+            out[-1]["rmst"] = _rmst_json(curve, float(rmst_horizon), *start)
     return out
+
+
+def _rmst_json(curve, tau: float, origin: float, origin_rule: str | None) -> dict:
+    """One curve's "rmst" entry: τ, the origin and the sentence on it, the estimate and its
+    interval; a τ the curve does not reach gives the reason instead."""
+    try:
+        estimate = rmst_from_curve(curve, tau, origin)
+    except AnalysisError as exc:
+        return {"not_computed": str(exc)}
+    values = estimate.to_dict()
+    return {
+        "tau": tau,
+        "origin": origin,
+        "origin_rule": origin_rule,
+        **{k: values[k] for k in ("estimate", "std_err", "lower", "upper")},
+    }
 
 
 # The JSON "comparison" object's keys; rows_excluded counts rows without a group or stratum,

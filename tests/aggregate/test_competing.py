@@ -5,6 +5,7 @@ exclusion (to 1e-9), Harrell's C of score bins lies within its stated bound of t
 
 from __future__ import annotations
 
+import json
 from dataclasses import replace
 
 import numpy as np
@@ -20,6 +21,7 @@ from engine.aggregate.sql_checks import aggregate_checks
 from engine.analysis.run import resolved_settings, run_analysis
 from engine.cox.concordance import harrell_c
 from engine.prepare.checks import prepare
+from engine.prepare.roles import Roles
 from tests.aggregate.cases import (
     COMPETING_ROLES,
     COMPETING_SETTINGS,
@@ -73,7 +75,7 @@ def test_competing_section_equals_memory(open_backend, kind):
     assert database["data"] == memory["data"]
     assert database["data"]["competing_events"] > 0
     section = database["competing"]
-    assert section["causes"] == ["death", "moved", "relapse"]
+    assert section["causes"] == ["death", "relapse", "moved"]  # the order the roles give
     assert len(section["gray_test"]) == 3 and len(section["cause_specific_cox"]) == 3
     assert section["fine_gray"] == {"not_computed": FINE_GRAY_NOT_COMPUTED}
     bound = _pop_bound(database)
@@ -171,7 +173,7 @@ def test_incidence_and_cause_specific_cox_match_lifelines(open_backend):
     assert prepared["_time"].is_unique
     table = incidence_from_counts(data.counts, by_group=False).table
     causes = ["death", "moved", "relapse"]
-    code = prepared["_cause"].map({c: i + 1 for i, c in enumerate(causes)}).fillna(0)
+    code = prepared["_cause"].astype(object).map({c: i + 1 for i, c in enumerate(causes)}).fillna(0)
     for i, cause in enumerate(causes):
         fitter = AalenJohansenFitter(calculate_variance=False).fit(
             prepared["_time"], code.astype(int), event_of_interest=i + 1, entry=prepared["_entry"]
@@ -210,3 +212,80 @@ def test_incidence_without_named_causes_equals_memory(open_backend):
     section = database["competing"]
     assert section["causes"] == ["event"] and section["gray_test"] is None
     assert_same_json(memory, section, skip=(".fine_gray",))
+
+
+def test_incidence_number_at_risk_at_times_between_observed_times(open_backend):
+    """DuckDB counts the rows at risk at a chosen time as memory does (time >= t, entry < t;
+    counted by hand), also at times that are not observed times."""
+    frame = pd.DataFrame(
+        {
+            "t": [1.0, 2.0, 3.0, 5.0, 8.0],
+            "status": ["a", "censored", "b", "a", "censored"],
+            "entry": [0.0, 0.0, 2.6, 0.0, 4.5],
+        }
+    )
+    roles = Roles(time="t", event="status", event_causes=(("a", "a"), ("b", "b")), entry="entry")
+    times = [2.5, 4.0, 4.5, 5.0, 9.0]
+    settings = {"curves": {"times": times}, "competing": {"times": times}}
+    database = run_aggregate_analysis(
+        aggregate_checks(open_backend("duckdb", frame), roles), settings
+    )
+    memory = run_analysis(prepare(frame, roles), settings)
+    for section in (database, memory):
+        rows = [r for r in section["competing"]["at_times"] if r["cause"] == "b"]
+        assert [r["n_at_risk"] for r in rows] == [1, 1, 1, 2, 0]
+        assert [r["at_risk"] for r in section["curves"][0]["at_times"]] == [1, 1, 1, 2, 0]
+
+
+@pytest.mark.parametrize("backend", ["memory", "duckdb"])
+def test_causes_keep_the_order_given(tmp_path, backend):
+    """`--competing` names relapse before death: every listing of causes keeps that order (the
+    first is the event of interest), not the alphabetical one."""
+    from app.cli import main
+
+    rng = np.random.default_rng(3)
+    n = 60
+    frame = pd.DataFrame(
+        {
+            "t": rng.integers(1, 40, n).astype(float),
+            "status": rng.choice(["R", "D", "alive", "M"], n),
+            "arm": rng.choice(["x", "y"], n),
+        }
+    )
+    path = tmp_path / "causes.csv"
+    frame.to_csv(path, index=False)
+    out = tmp_path / "r.json"
+    args = ["analyze", str(path), "--time", "t", "--event", "status", "--group", "arm"]
+    args += ["--competing", "R=relapse", "--competing", "M=moved", "--competing", "D=death"]
+    assert main([*args, "--times", "10", "--backend", backend, "--json", str(out)]) == 0
+    section = json.loads(out.read_text())["competing"]
+    order = ["relapse", "moved", "death"]
+    assert section["causes"] == order
+    assert [r["cause"] for r in section["at_end"]][:3] == order
+    assert [t["cause"] for t in section["gray_test"]] == order
+    assert json.loads(out.read_text())["data"]["events"] == int((frame["status"] == "R").sum())
+
+
+@pytest.mark.parametrize("backend", ["memory", "duckdb"])
+def test_event_values_of_several_causes_warn_with_the_reading_used(tmp_path, backend):
+    """`--event-value` naming the values of two causes of `--competing`: any of them is the
+    event outside the competing section (no competing events there), and a warning says so,
+    naming both options; with one cause's values there is no such warning."""
+    from app.cli import main
+
+    path = tmp_path / "causes.csv"
+    pd.DataFrame({"t": [1, 2, 3, 4, 5, 6], "s": ["R", "D", "A", "R", "D", "A"]}).to_csv(
+        path, index=False
+    )
+    out = tmp_path / "r.json"
+    args = ["analyze", str(path), "--time", "t", "--event", "s", "--backend", backend]
+    args += ["--competing", "R=relapse", "--competing", "D=death", "--json", str(out)]
+    assert main([*args, "--event-value", "R", "--event-value", "D"]) == 0
+    data = json.loads(out.read_text())["data"]
+    assert data["events"] == 4 and data["competing_events"] == 0
+    (note,) = [w for w in data["warnings"] if "--competing" in w]
+    assert "--event-value" in note and "(relapse, death)" in note and "any of them" in note
+    assert main([*args, "--event-value", "R"]) == 0
+    data = json.loads(out.read_text())["data"]
+    assert data["events"] == 2 and data["competing_events"] == 2
+    assert not [w for w in data["warnings"] if "--competing" in w]

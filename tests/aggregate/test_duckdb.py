@@ -3,6 +3,7 @@ texts), curves, the comparison and the Cox model with its PH test, to 1e-9."""
 
 from __future__ import annotations
 
+import json
 from dataclasses import replace
 
 import numpy as np
@@ -336,3 +337,48 @@ def test_a_stop_while_reading_interrupts_duckdb(tmp_path):
     path.write_text("t,e\n1,1\n")
     slow = "SELECT SUM(hash(i)) AS s FROM range(100000000000) AS r(i)"
     assert_a_stop_ends_the_read(open_duckdb(path), slow)
+
+
+@pytest.mark.parametrize("partial", ["2020", "2020-06"])
+@pytest.mark.parametrize("backend", ["memory", "duckdb"])
+@pytest.mark.parametrize("where", [0, 14])
+def test_a_partial_first_date_does_not_decide_the_columns_format(tmp_path, partial, backend, where):
+    """30 end dates, 29 full ISO and one partial (2020: its first day, as ISO 8601 reads it):
+    every row is kept whether the partial date is the first value or the 15th, with no
+    day-first hint (the layout is judged from all the values, never from the first cell)."""
+    from app.cli import main
+
+    ends = [f"2021-{m:02d}-{d:02d}" for m in range(1, 11) for d in (3, 14, 25)]
+    ends[where] = partial
+    path = tmp_path / "dates.csv"
+    pd.DataFrame({"start": "2019-12-01", "end": ends, "status": 1}).to_csv(path, index=False)
+    out = tmp_path / "r.json"
+    args = ["analyze", str(path), "--start", "start", "--end", "end", "--event", "status"]
+    assert main([*args, "--backend", backend, "--json", str(out)]) == 0
+    data = json.loads(out.read_text())["data"]
+    assert data["rows_used"] == 30 and data["excluded"] == []
+    assert not [w for w in data["warnings"] if "day first" in w]
+
+
+def test_a_day_first_first_date_does_not_decide_the_columns_order(tmp_path):
+    """Month-first dates with one that reads only day first: where that one stands does not
+    change how the other 30 are read (each pair month/day below 13 is read month first), and
+    it is the one left out, with the hint naming --day-first."""
+    from app.cli import main
+
+    ends = [f"{m:02d}/{d:02d}/2021" for m in range(1, 11) for d in (3, 5, 12)]
+    results = []
+    for where in (0, 14):
+        values = list(ends)
+        values.insert(where, "25/06/2021")
+        path = tmp_path / f"dates{where}.csv"
+        pd.DataFrame({"start": "12/01/2019", "end": values, "status": 1}).to_csv(path, index=False)
+        out = tmp_path / "r.json"
+        args = ["analyze", str(path), "--start", "start", "--end", "end", "--event", "status"]
+        assert main([*args, "--json", str(out), "--times", "400"]) == 0
+        result = json.loads(out.read_text())
+        assert result["data"]["rows_used"] == 30
+        assert result["data"]["excluded"] == [{"reason": "unparseable date", "rows": 1}]
+        assert any("--day-first" in w for w in result["data"]["warnings"])
+        results.append(result["curves"][0])
+    assert results[0] == results[1]

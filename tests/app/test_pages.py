@@ -398,3 +398,53 @@ def test_predicted_curves_for_profiles_i_set(pumps):
     expected = predict_survival(model, {"Profile 1": {}}).profiles
     assert table["lubricant"].iloc[0] == expected["lubricant"].iloc[0]
     assert table["load_kN"].iloc[0] == pytest.approx(expected["load_kN"].iloc[0], rel=1e-3)
+
+
+def test_a_runaway_coefficient_shows_not_estimable_on_the_regression_page():
+    """A level without events: its coefficient runs off to infinity, so the page's table shows
+    "not estimable" for its interval and p-value (never "< 0.001"), beside the warning."""
+    at = _open()
+    rows = [
+        f"{i + 1},{0 if i % 2 == 0 else (i // 2) % 2},{'ab'[i % 2]},{i % 7}\n" for i in range(40)
+    ]
+    at.session_state[state.PENDING_UPLOAD] = ("mono.csv", ("t,e,x,z\n" + "".join(rows)).encode())
+    at.run()
+    at.session_state[state.ROLES] = Roles(
+        time="t", event="e", covariates=("x", "z"), categorical=("x",)
+    )
+    at.switch_page("views/regression.py").run()
+    assert not at.exception
+    terms = at.dataframe[0].value
+    row = terms[terms["Term"] == "x: b vs a"].iloc[0]
+    assert row["95% CI"] == "not estimable" and row["p"] == "not estimable"
+    assert row["Standard error"] == "not estimable"
+    assert terms[terms["Term"] == "z"].iloc[0]["p"] != "not estimable"
+    assert "run off to infinity" in _texts(at)
+
+
+def test_curves_summary_note_states_the_median_rule():
+    from engine.survival.curves import MEDIAN_RULE
+
+    at = _open("views/curves.py")
+    assert any(MEDIAN_RULE in c.value for c in at.caption)
+
+
+def test_curves_page_offers_the_first_entry_as_the_rmst_origin_with_delayed_entry():
+    """With an entry-time role the summary says the restricted mean runs from 0 with S = 1
+    before the first entry, and the switch to the first entry lowers every RMST by it."""
+    at = _open()
+    rows = "".join(f"{3 + (i % 5) + i * 0.7:.1f},{i % 2},{1 + i % 5}\n" for i in range(40))
+    at.session_state[state.PENDING_UPLOAD] = ("entry.csv", ("t,e,entry\n" + rows).encode())
+    at.run()
+    at.session_state[state.ROLES] = Roles(time="t", event="e", entry="entry")
+    at.switch_page("views/curves.py").run()
+    assert not at.exception
+    assert any("takes S = 1 before the first entry (time 1)" in c.value for c in at.caption)
+    before = at.dataframe[-1].value.iloc[:, -1].tolist()
+    at.radio(key="curves_rmst_origin").set_value("The first entry").run()
+    assert not at.exception
+    assert any("runs from the first entry (time 1), as chosen" in c.value for c in at.caption)
+    after = at.dataframe[-1].value.iloc[:, -1].tolist()
+    assert [float(a.split(" ")[0]) for a in after] == [
+        pytest.approx(float(b.split(" ")[0]) - 1, abs=0.01) for b in before
+    ]

@@ -362,5 +362,6 @@ def test_rmst_columns_appear_when_the_curves_carry_them(freireich):
         for c in freireich[2]["curves"]
     ]
     text = build_report({**freireich[2], "curves": curves}, SETTINGS, software={})
-    assert "<th>Restricted mean survival time (weeks)</th>" in text  # no roles: no event name
+    # no roles: no event name; the horizon is in the header
+    assert "<th>Restricted mean survival time to 23 (weeks)</th>" in text
     assert '<td class="num" data-value="17.25">17.3</td><td class="ci">14.0 to 20.5</td>' in text

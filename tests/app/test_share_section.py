@@ -53,6 +53,7 @@ def test_settings_are_read_from_the_page_widgets(table):
             "ci_transform": "log-log",
             "confidence": 0.9,
             "rmst_horizon": None,
+            "rmst_origin": "zero",
         },
         "comparison": {
             "test": "fleming-harrington",

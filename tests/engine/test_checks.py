@@ -195,7 +195,10 @@ def test_competing_causes():
     frame = pd.DataFrame({"t": [1.0, 2, 3, 4], "s": ["sold", "died", "in herd", "died"]})
     roles = Roles(time="t", event="s", event_causes=(("died", "death"), ("sold", "sale")))
     prepared = prepare(frame, roles)
-    assert prepared.frame["_cause"].tolist() == ["sale", "death", None, "death"]
+    cause = prepared.frame["_cause"]
+    assert [None if pd.isna(c) else c for c in cause] == ["sale", "death", None, "death"]
+    # the causes in the order given (death first: the event of interest), not alphabetical
+    assert cause.cat.categories.tolist() == ["death", "sale"]
     assert prepared.frame["_event"].tolist() == [0, 1, 0, 1]  # first cause is of interest
     assert prepared.report.competing_events == 1  # the sale, counted in `censored` of the JSON
     assert not any("treated as censored" in w for w in prepared.report.warnings)

@@ -239,3 +239,35 @@ def test_rows_without_a_group_are_in_no_group(rng):
         assert_allclose(part["cumulative_incidence"], alone["cumulative_incidence"], rtol=1e-15)
     overall = cumulative_incidence(frame, by_group=False).table
     assert overall["n_at_risk"].max() == 200
+
+
+def test_at_times_number_at_risk_counts_time_at_least_t_as_the_curves_do(tmp_path):
+    """At a time that is not an observed time the number at risk is those with time >= t (and
+    entry < t), counted by hand here, and equals the curves' at_risk of the same run."""
+    from app.cli import main
+
+    path = tmp_path / "cr.csv"
+    pd.DataFrame(
+        {
+            "t": [1, 2, 3, 5, 8],
+            "status": ["a", "censored", "b", "a", "censored"],
+            "entry": [0, 0, 2.6, 0, 4.5],
+        }
+    ).to_csv(path, index=False)
+    out = tmp_path / "r.json"
+    args = [str(path), "--time", "t", "--event", "status", "--competing", "a=a"]
+    args += ["--competing", "b=b", "--times", "2.5,4,4.5,5,9", "--json", str(out)]
+    assert main(["analyze", *args]) == 0
+    result = json.loads(out.read_text())
+    rows = [r for r in result["competing"]["at_times"] if r["cause"] == "a"]
+    # hand count: rows with t >= time: 2.5 -> {3, 5, 8}, 4 -> {5, 8}, 4.5 -> {5, 8}, 5 -> {5, 8}
+    assert [r["n_at_risk"] for r in rows] == [3, 2, 2, 2, 0]
+    curve_rows = result["curves"][0]["at_times"]
+    assert [r["at_risk"] for r in curve_rows] == [3, 2, 2, 2, 0]
+    assert main(["analyze", *args, "--entry", "entry"]) == 0
+    result = json.loads(out.read_text())
+    rows = [r for r in result["competing"]["at_times"] if r["cause"] == "b"]
+    # with entry < t as well: 2.5 -> {5} (entered at 0), 4 -> {5}, 4.5 -> {5}, 5 -> {5, 8}
+    assert [r["n_at_risk"] for r in rows] == [1, 1, 1, 2, 0]
+    curve_rows = result["curves"][0]["at_times"]
+    assert [r["at_risk"] for r in curve_rows] == [1, 1, 1, 2, 0]

@@ -128,3 +128,46 @@ def test_a_finite_coefficient_beside_a_runaway_one_keeps_the_tests():
     result = fit_cox(frame, ["x", "z"])
     assert np.isfinite(result.likelihood_ratio.p_value)
     assert not any("not reported" in w for w in result.warnings)
+
+
+def _monotone_file(path) -> None:
+    """Level "a" of x has no events: its coefficient runs off to infinity (an exact property of
+    the partial likelihood, which then rises for ever as the coefficient of "b" grows)."""
+    rng = np.random.default_rng(1)
+    n = 40
+    x = np.where(np.arange(n) % 2 == 0, "a", "b")
+    event = np.where(x == "a", 0, rng.integers(0, 2, n))
+    event[1] = 1
+    pd.DataFrame(
+        {"t": rng.exponential(10, n).round(2), "e": event, "x": x, "age": rng.normal(50, 10, n)}
+    ).to_csv(path, index=False)
+
+
+@pytest.mark.parametrize("backend", ["memory", "duckdb"])
+def test_a_runaway_coefficient_has_no_se_p_or_interval(tmp_path, backend, capsys):
+    """The SE, p-value and interval of a coefficient that runs off are null in the JSON and
+    "not estimable" in the text and the report (no "p < 0.001" nor [HR, HR]); the warning
+    stays, and the finite term keeps its numbers (memory and the fit from sums alike)."""
+    from app.cli import main
+
+    path = tmp_path / "mono.csv"
+    _monotone_file(path)
+    out, report = tmp_path / "r.json", tmp_path / "r.html"
+    args = ["analyze", str(path), "--time", "t", "--event", "e", "--covariates", "x,age"]
+    args += ["--categorical", "x", "--backend", backend, "--json", str(out)]
+    assert main([*args, "--report", str(report)] if backend == "memory" else args) == 0
+    text = capsys.readouterr().out
+    cox = json.loads(out.read_text())["cox"]
+    runaway, age = cox["terms"]
+    assert runaway["coef"] > 10  # where the fit stopped: far out
+    assert [runaway[k] for k in ("se", "se_model", "p_value", "lower", "upper")] == [None] * 5
+    assert all(age[k] is not None for k in ("se", "p_value", "lower", "upper"))
+    assert any("run off to infinity" in w for w in cox["warnings"])
+    row = next(line for line in text.splitlines() if "x: b vs a" in line and "Warning" not in line)
+    assert row.count("not estimable") == 2 and "<" not in row  # the interval and the p-value
+    if backend == "memory":
+        html = report.read_text()
+        cells = html[html.index("x: b vs a</td>") :].split("</tr>")[0]
+        assert cells.count("not estimable") == 3  # interval, p-value, standard error
+        assert "not estimable (runs off to infinity)" in html  # the forest plot's text column
+        assert "The hazard ratio for x b versus a could not be estimated" in html  # sentences

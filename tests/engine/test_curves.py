@@ -290,3 +290,34 @@ def test_rows_without_a_group_count_in_all_rows_and_in_no_group(freireich):
     everyone = kaplan_meier(freireich["_time"], freireich["_event"])
     assert_allclose(curves[0].survival, everyone.survival)
     assert group_summary(freireich).to_frame()["n"].tolist() == [42, 20, 20]
+
+
+def test_median_where_the_curve_stays_at_one_half_is_the_start_of_that_interval(tmp_path):
+    """S(t) is exactly 0.5 over [4, 6): the median is the first time S <= 0.5, the start of that
+    interval (lifelines' rule too), not its end (6) nor its midpoint (5); the rule is stated in
+    the quantiles' method and in the report's table note."""
+    from app.cli import main
+    from engine.survival.curves import MEDIAN_FOOTNOTE, MEDIAN_RULE
+
+    time = [1, 2, 3, 4, 5, 6, 7, 8]
+    event = [1, 1, 1, 1, 0, 1, 1, 1]
+    # hand count: S(1) = 7/8, S(2) = 6/8, S(3) = 5/8, S(4) = 4/8 = 0.5 exactly; the censoring
+    # at 5 leaves it there; S(6) = 0.5 * 2/3
+    path = tmp_path / "half.csv"
+    pd.DataFrame({"t": time, "e": event}).to_csv(path, index=False)
+    out, report = tmp_path / "r.json", tmp_path / "r.html"
+    args = ["analyze", str(path), "--time", "t", "--event", "e", "--json", str(out)]
+    assert main([*args, "--report", str(report)]) == 0
+    median = json.loads(out.read_text())["curves"][0]["median"]["estimate"]
+    assert median == 4.0
+    # lifelines takes the first time S <= 0.5 as well, but compares the rounded product: here
+    # S(4) rounds to just above 0.5 and it answers 6; where the product rounds to 0.5 or below
+    # (four events at 1, 2, 3, 4: S = 0.5 over [2, 3)) the two agree
+    four = [1.0, 2.0, 3.0, 4.0]
+    assert KaplanMeierFitter().fit(four, [1] * 4).median_survival_time_ == 2.0
+    plateau = survival_quantiles(kaplan_meier(np.array(four), np.ones(4))).row(0.5)
+    assert plateau["estimate"] == 2.0
+    assert "S(t) ≤ 0.5" in MEDIAN_RULE and "midpoint" in MEDIAN_RULE
+    curve = kaplan_meier(np.array(time, float), np.array(event))
+    assert MEDIAN_RULE in survival_quantiles(curve).method
+    assert MEDIAN_FOOTNOTE in report.read_text()

@@ -80,6 +80,7 @@ def test_settings_fill_defaults_for_what_the_recipe_omits(imported):
         "ci_transform": "log",
         "confidence": 0.9,
         "rmst_horizon": None,
+        "rmst_origin": "zero",
     }
     assert settings["comparison"]["test"] == "tarone-ware"
     assert "cox" not in settings  # only the analyses chosen are run

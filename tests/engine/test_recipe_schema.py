@@ -218,3 +218,20 @@ def test_any_value_anywhere_gives_a_recipe_or_one_clear_error(path, value):
         return
     for name, chosen in recipe.settings().items():
         assert isinstance(chosen, dict), name
+
+
+def test_the_rmst_origin_takes_the_engines_origins_only(tmp_path):
+    """The recipe's curves.rmst_origin holds the engine's origins (and the CLI option names
+    itself when refused)."""
+    from app.cli import main
+    from engine.survival.rmst import RMST_ORIGINS
+
+    for origin in RMST_ORIGINS:
+        check_setting("curves", "rmst_origin", origin, "--rmst-origin")
+    with pytest.raises(SettingError, match="--rmst-origin"):
+        check_setting("curves", "rmst_origin", "midpoint", "--rmst-origin")
+    assert ANALYSIS_DEFAULTS["curves"]["rmst_origin"] == "zero"
+    path = tmp_path / "d.csv"
+    path.write_text("t,e\n1,1\n2,0\n3,1\n")
+    args = ["analyze", str(path), "--time", "t", "--event", "e", "--rmst-origin", "later"]
+    assert main(args) == 2

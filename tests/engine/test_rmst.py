@@ -118,3 +118,63 @@ def test_rmst_frame_keeps_rows_without_group_in_the_first_row_only(freireich):
     six_mp = rmst(*_arrays(rest, "6-MP"), tau=20.0)
     assert_allclose(table.estimates[1].estimate, six_mp.estimate)
     assert table.contrast.group_a == "6-MP"
+
+
+def _delayed_entry_file(path):
+    import pandas as pd
+
+    rng = np.random.default_rng(4)
+    n = 80
+    entry = rng.uniform(2, 6, n).round(1)
+    frame = pd.DataFrame(
+        {
+            "t": (entry + rng.exponential(10, n)).round(1),
+            "e": rng.integers(0, 2, n),
+            "entry": entry,
+            "g": rng.choice(["a", "b"], n),
+        }
+    )
+    frame.to_csv(path, index=False)
+    return frame
+
+
+@pytest.mark.parametrize("backend", ["memory", "duckdb"])
+def test_rmst_with_delayed_entry_states_its_origin_and_offers_the_first_entry(
+    tmp_path, backend, capsys
+):
+    """From the first entry the restricted mean equals lifelines' area under its delayed-entry
+    Kaplan–Meier curve (lifelines' timeline starts at the first entry); from time 0 (the
+    default, S = 1 before the first entry) it is that area plus the first entry, with the same
+    standard error. Both say which origin they used, in the JSON and the text (memory and
+    DuckDB alike)."""
+    from app.cli import main
+
+    path = tmp_path / "entry.csv"
+    frame = _delayed_entry_file(path)
+    first = float(frame["entry"].min())
+    out = tmp_path / "r.json"
+    args = ["analyze", str(path), "--time", "t", "--event", "e", "--entry", "entry"]
+    args += ["--group", "g", "--rmst-horizon", "10", "--backend", backend, "--json", str(out)]
+    results = {}
+    for origin in ("zero", "first-entry"):
+        assert main([*args, "--rmst-origin", origin]) == 0
+        text = capsys.readouterr().out
+        results[origin] = [c["rmst"] for c in json.loads(out.read_text())["curves"]]
+        note = results[origin][0]["origin_rule"]
+        assert f"first entry (time {first:g})" in note and f"Note: {note}" in text
+    zero, entry = results["zero"], results["first-entry"]
+    fitter = KaplanMeierFitter().fit(frame["t"], frame["e"], entry=frame["entry"])
+    assert zero[0]["origin"] == 0.0 and entry[0]["origin"] == first
+    assert_allclose(entry[0]["estimate"], restricted_mean_survival_time(fitter, 10.0), rtol=1e-9)
+    for a, b in zip(zero, entry, strict=True):
+        assert_allclose(b["estimate"], a["estimate"] - first, rtol=1e-12)
+        assert_allclose(b["std_err"], a["std_err"], rtol=1e-12)
+    assert "another common convention starts at the first entry" in zero[0]["origin_rule"]
+
+
+def test_rmst_without_delayed_entry_has_no_origin_note():
+    curve = kaplan_meier(np.array([1.0, 2, 3, 4]), np.array([1, 0, 1, 1]))
+    from engine.survival.rmst import rmst_origin
+
+    assert rmst_origin(curve, "first_entry") == (0.0, None)
+    assert rmst_by_group(np.array([1.0, 2, 3, 4]), np.ones(4), tau=3.0).origin_rule is None
