@@ -23,8 +23,8 @@ from engine.cox.design import (
     Term,
     check_collinearity,
     constant_in_every_group,
-    no_complete_rows,
     level_checks,
+    no_complete_rows,
 )
 from engine.cox.fit import drop_not_estimable
 from engine.errors import AnalysisError, preview_values, shown_value
