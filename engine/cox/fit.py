@@ -319,6 +319,9 @@ def fit_cox(
     warnings, finite_estimates = fit_warnings(design, fit, events, not_estimable, strata_name)
     no_test = ChiSquareTest("model", float("nan"), p, float("nan"))
     cluster_codes = _cluster_codes(frame, used, clusters, variance)
+    if cluster_codes is not None and not enough_clusters(int(cluster_codes.max()) + 1, p):
+        warnings.append(few_clusters_warning(int(cluster_codes.max()) + 1, p))
+        cluster_codes = None
     robust = None
     if cluster_codes is not None:
         robust = robust_covariance(layout, scaled, fit.beta, ties, cov_scaled, cluster_codes)
@@ -398,6 +401,23 @@ def _cluster_codes(frame, used, clusters, variance) -> np.ndarray | None:
     if variance == "auto" and codes.max() + 1 == len(codes):
         return None  # every subject has one row: the model's variance
     return codes
+
+
+def enough_clusters(n_clusters: int, terms: int) -> bool:
+    """Whether a sandwich variance over ``n_clusters`` can be of full rank for ``terms``
+    coefficients: its middle is a sum of one outer product per cluster, and the clusters' score
+    sums add up to the score, zero at the estimate, so its rank is at most n_clusters - 1."""
+    return n_clusters > terms
+
+
+def few_clusters_warning(n_clusters: int, terms: int) -> str:
+    return (
+        f"The robust (sandwich) variance needs more clusters than model terms, and there are "
+        f"{n_clusters} cluster(s) (distinct ids, or rows without an id role) for {terms} "
+        "term(s): its covariance would be singular. The standard errors, intervals and tests "
+        "shown are model-based, which treat the rows as independent. Use more subjects or fewer "
+        "covariate terms for a robust variance."
+    )
 
 
 def robust_covariance(layout, scaled, beta, ties, information_inverse, codes) -> np.ndarray:

@@ -102,7 +102,7 @@ def episode_warnings(summary: EpisodeSummary, id_column: str, has_entry: bool) -
             f"({preview_values(summary.repeated_ids)}): their rows are read as episodes "
             f"(entry, time] of one subject ({summary.episodes} rows, {summary.subjects} "
             "subjects). The Cox model's standard errors are then robust "
-            "(clustered by subject)."
+            "(clustered by subject) when there are more subjects than model terms."
         )
     else:
         notes.append(
@@ -110,7 +110,8 @@ def episode_warnings(summary: EpisodeSummary, id_column: str, has_entry: bool) -
             f"({preview_values(summary.repeated_ids)}; {summary.episodes} rows, "
             f"{summary.subjects} subjects) and no entry-time column is "
             "set: each row counts from time 0. For episodes of one subject set the entry time; "
-            "the Cox model's standard errors are robust (clustered by subject) either way."
+            "the Cox model's standard errors are robust (clustered by subject) either way, when "
+            "there are more subjects than model terms."
         )
     if summary.overlapping:
         notes.append(

@@ -156,3 +156,28 @@ def test_report_has_the_variants_and_subgroup_sections(episode_file, tmp_path):
     assert "clustered by subject: 300 clusters" in text
     assert "<h2>Subgroup effects: arm: standard vs new</h2>" in text
     assert "exploratory" in text and text.count("<svg") >= 4
+
+
+def test_four_clinics_for_four_terms_give_the_model_based_fit(tmp_path):
+    """`--id` with 4 distinct values and 4 model terms: before, numpy's LinAlgError (exit 1)."""
+    rng = np.random.default_rng(6)
+    n = 24
+    path = tmp_path / "clinics.csv"
+    pd.DataFrame(
+        {
+            "months": rng.integers(1, 13, n), "died": rng.integers(0, 2, n),
+            "age": rng.integers(40, 80, n), "dose": rng.integers(1, 4, n),
+            "arm": rng.choice(["A", "B", "C"], n),
+            "clinic": np.repeat(["north", "south", "east", "west"], 6),
+        }
+    ).to_csv(path, index=False)  # fmt: skip
+    roles = ("--time", "months", "--event", "died", "--covariates", "age,dose,arm")
+    roles += ("--categorical", "arm")
+    run = _run("analyze", str(path), *roles, "--id", "clinic", "--json", "-")
+    assert run.returncode == 0, run.stderr
+    cox = json.loads(run.stdout)["cox"]
+    assert cox["variance"] == "model" and cox["clusters"] is None
+    assert any("needs more clusters than model terms" in w for w in cox["warnings"])
+    plain = _run("analyze", str(path), *roles, "--json", "-")
+    expected = json.loads(plain.stdout)["cox"]["terms"]
+    assert [t["se"] for t in cox["terms"]] == pytest.approx([t["se"] for t in expected])

@@ -374,3 +374,39 @@ def test_entry_at_exit_message_names_no_working_column():
     with pytest.raises(AnalysisError, match="entry time is at or after") as caught:
         fit_cox(frame, ["x"], entry="_entry")
     assert "_entry" not in str(caught.value)
+
+
+def _clustered(seed: int, clusters: int) -> pd.DataFrame:
+    """Invented rows (whole-number times, many ties) from ``clusters`` clinics."""
+    rng = np.random.default_rng(seed)
+    n = 24
+    return pd.DataFrame(
+        {
+            "_time": rng.integers(1, 13, n).astype(float),
+            "_event": rng.integers(0, 2, n),
+            "age": rng.integers(40, 80, n).astype(float),
+            "dose": rng.integers(1, 4, n).astype(float),
+            "arm": pd.Categorical(rng.choice(["A", "B", "C"], n)),
+            "clinic": np.repeat([f"c{k}" for k in range(clusters)], n // clusters),
+        }
+    )
+
+
+@pytest.mark.parametrize("variance", ["auto", "robust"])
+def test_no_more_clusters_than_terms_gives_the_model_based_fit_with_a_warning(variance):
+    """4 clinics for 4 terms: the clusters' score sums add up to the score, zero at the
+    estimate, so the sandwich has rank at most 3 and is singular (before: numpy's
+    LinAlgError from the robust Wald test)."""
+    covariates = ["age", "dose", "arm"]
+    few = _clustered(6, 4)
+    result = fit_cox(few, covariates, categorical=["arm"], clusters="clinic", variance=variance)
+    model = fit_cox(few, covariates, categorical=["arm"], variance="model")
+    assert result.variance == "model" and result.clusters is None
+    assert any("needs more clusters than model terms" in w and "4 cluster(s)" in w and
+               "for 4 term(s)" in w for w in result.warnings)  # fmt: skip
+    assert_allclose(result.to_frame()["se"], model.to_frame()["se"], rtol=1e-12)
+    assert result.wald.statistic == pytest.approx(model.wald.statistic)
+    # one term fewer than clusters: the robust variance again
+    enough = fit_cox(few, ["age", "dose"], clusters="clinic", variance=variance)
+    assert enough.variance == "robust" and enough.clusters == 4
+    assert not any("more clusters" in w for w in enough.warnings)
