@@ -9,8 +9,13 @@ chance it would still have been observed: at an event time t of the cause, subje
     w_i(t) = G(t-) / G(T_i-)        after a competing event at T_i < t,
     w_i(t) = 0                      after its censoring or its own event of the cause,
 
-G the Kaplan–Meier estimate of the censoring distribution (engine.prediction.ipcw). The estimates
-maximise
+G the Kaplan–Meier estimate of the censoring distribution (engine.prediction.ipcw), in which
+events come before censorings at a tied time (factor 1 - c/(n - d)): of the conventions
+G(u±)/G(T_i±), with G of either tie rule, this is G(u-)/G(T_i-) with events first. They differ
+only where exits tie; on scikit-survival's bone-marrow data (whole months) the Breslow
+coefficient is 0.764457 here and 0.760337–0.765170 under the seven others (DEVELOPERS.md).
+The design refuses as many terms as subjects (collinear), so the sandwich below, one cluster
+per subject, always has more clusters than terms. The estimates maximise
 the weighted partial likelihood: a Cox model fitted to the data expanded into weighted intervals
 (Geskus 2011, Biometrics 67:39–49) gives the same coefficients. Here nothing is expanded: since
 w_i(t) = G(t-) x 1/G(T_i-) factorises, every weighted risk-set sum is a sum over subjects still

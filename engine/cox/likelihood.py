@@ -330,8 +330,12 @@ def score_residuals(layout: RiskSetLayout, x: np.ndarray, beta: np.ndarray, ties
     ``beta``): U_i = d_i (x_i - m_i) - w_i sum_k c_ik (x_i - v_k) / den_k over the events k whose
     risk set holds row i, with v_k and den_k the event's (Efron-adjusted) mean and denominator,
     m_i the mean of v over the row's own tied events, and c_ik = 1 - l/d when row i is one of
-    event k's tied events (Efron), else 1. With Breslow ties this is the usual score residual.
-    Summed within clusters they give the sandwich (cluster-robust) variance.
+    event k's tied events (Efron), else 1. With Breslow ties this is the usual score residual;
+    with Efron ties it is the derivative of the weighted Efron score with respect to row i's
+    case weight at w = 1, so I^-1 U_i is d beta / d w_i and the sandwich is the infinitesimal
+    jackknife (Breslow-form residuals with Efron ties, as statsmodels and lifelines use, do not
+    sum to the Efron score). Summed within clusters they give the sandwich (cluster-robust)
+    variance.
     """
     p = x.shape[1]
     eta = x @ beta if p else np.zeros(len(x))

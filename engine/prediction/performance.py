@@ -13,9 +13,14 @@ survival is S(t | x) = exp(-H0(t) exp(x'b)), with the Breslow baseline (per stra
   count one half).
 - Brier score at t (Graf et al. 1999, Stat Med 18:2529–2545): mean squared difference between
   predicted survival and the observed status at t, events by t weighted 1 / G(T_i), subjects
-  still followed after t weighted 1 / G(t). The integrated Brier score averages it over time
-  (trapezoid rule on an even grid), beside the same measures for the Kaplan–Meier curve of all
-  subjects as a reference model without covariates (a useful model scores lower).
+  still followed after t weighted 1 / G(t). The integrated Brier score averages it over time:
+  the trapezoid rule on INTEGRATION_POINTS evenly spaced times from the first observed time to
+  the last chosen time, divided by that range (scikit-survival's integrated_brier_score on that
+  grid). The Brier curve is a right-continuous step function, so this is within h/2 times its
+  total variation of its exact mean; predicted survival is the Breslow step function, not
+  interpolated between event times (lifelines' predict_survival_function interpolates, which
+  moves the integral: DEVELOPERS.md). Beside them the same measures for the Kaplan–Meier curve
+  of all subjects as a reference model without covariates (a useful model scores lower).
 - Calibration at a time t: subjects in groups of predicted survival at t; per group the mean
   predicted survival beside the Kaplan–Meier estimate of the group, with its interval.
 """
@@ -35,7 +40,7 @@ from engine.json_values import frame_records, json_float
 from engine.prediction.ipcw import CensoringSurvival, censoring_survival
 from engine.survival.curves import kaplan_meier, survival_at
 
-INTEGRATION_POINTS = 100  # grid of the integrated Brier score
+INTEGRATION_POINTS = 100  # grid of the integrated Brier score: 100 times, 99 equal steps
 CALIBRATION_GROUPS = 5
 
 

@@ -177,3 +177,41 @@ def test_times_outside_follow_up_are_refused(fitted):
         prediction_performance(fitted, [])
     with pytest.raises(AnalysisError, match="replicates"):
         bootstrap_optimism(fitted, replicates=0)
+
+
+def test_integrated_brier_score_is_the_trapezoid_rule_on_the_stated_grid():
+    """Leukaemia remission data (Freireich et al. 1963, as shipped with lifelines), Cox model of
+    Rx and logWBC, times 5, 10, 15. The integrated Brier score is scikit-survival's
+    integrated_brier_score on INTEGRATION_POINTS = 100 evenly spaced times from the first
+    observed time to the last chosen time (0.109056; a 101-point grid gives 0.109237). The Brier
+    curve is a step function, so the exact mean over that range is a sum over the distinct
+    times (0.109180), and the trapezoid rule is within h/2 times its total variation of it."""
+    from lifelines.datasets import load_leukemia
+
+    from engine.prediction.performance import INTEGRATION_POINTS
+
+    data = load_leukemia()
+    frame = pd.DataFrame(
+        {"_time": data["t"].astype(float), "_event": data["status"], "Rx": data["Rx"] * 1.0,
+         "logWBC": data["logWBC"]}
+    )  # fmt: skip
+    fitted = fit_cox(frame, ["Rx", "logWBC"])
+    result = prediction_performance(fitted, [5, 10, 15])
+    pred = cox_predictions(fitted)
+    y = _surv(pred)
+    first, last = result.integration_range
+    assert (first, last) == (pred.time.min(), 15.0)
+    grid = np.linspace(first, last, INTEGRATION_POINTS)
+    on_grid = np.column_stack([pred.survival(t) for t in grid])
+    assert_allclose(result.integrated_brier, integrated_brier_score(y, y, on_grid, grid), atol=1e-9)
+    assert result.integrated_brier == pytest.approx(0.109056, abs=1e-6)
+    # the exact mean of the right-continuous step function over [first, last]
+    knots = np.unique(np.r_[first, pred.time[(pred.time > first) & (pred.time < last)], last])
+    at_knots = np.column_stack([pred.survival(t) for t in knots])
+    curve = brier_score(y, y, at_knots, knots)[1]
+    exact = float(curve[:-1] @ np.diff(knots)) / (last - first)
+    assert exact == pytest.approx(0.109180, abs=1e-6)
+    # each grid step holding a jump J of the curve is off by at most |J| h / 2
+    step = (last - first) / (INTEGRATION_POINTS - 1)
+    variation = np.abs(np.diff(curve)).sum()
+    assert abs(result.integrated_brier - exact) <= step / 2 * variation / (last - first)
