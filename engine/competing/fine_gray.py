@@ -15,7 +15,9 @@ G(u±)/G(T_i±), with G of either tie rule, this is G(u-)/G(T_i-) with events fi
 only where exits tie; on scikit-survival's bone-marrow data (whole months) the Breslow
 coefficient is 0.764457 here and 0.760337–0.765170 under the seven others (DEVELOPERS.md).
 The design refuses as many terms as subjects (collinear), so the sandwich below, one cluster
-per subject, always has more clusters than terms. The estimates maximise
+per subject, has more clusters than terms; where it is singular all the same (a coefficient
+running off to infinity), the model-based errors are shown with a warning. The estimates
+maximise
 the weighted partial likelihood: a Cox model fitted to the data expanded into weighted intervals
 (Geskus 2011, Biometrics 67:39–49) gives the same coefficients. Here nothing is expanded: since
 w_i(t) = G(t-) x 1/G(T_i-) factorises, every weighted risk-set sum is a sum over subjects still
@@ -44,8 +46,16 @@ import pandas as pd
 
 from engine.competing.incidence import _cause_codes
 from engine.cox.design import Design, build_design
-from engine.cox.fit import TermEstimate, chi_square, term_estimates
-from engine.cox.likelihood import TIES
+from engine.cox.fit import (
+    TermEstimate,
+    chi_square,
+    informative_clusters,
+    sandwich,
+    singular_robust_warning,
+    term_estimates,
+    wald_statistic,
+)
+from engine.cox.likelihood import TIES, maximise
 from engine.errors import AnalysisError, preview_values
 from engine.json_values import json_float
 from engine.prediction.ipcw import censoring_survival
@@ -183,27 +193,15 @@ def _score_residuals(layout: _Layout, x: np.ndarray, terms: _Terms) -> np.ndarra
     return residual
 
 
-def _newton(layout, x, ties, max_iterations=50, tol=1e-11):
-    beta = np.zeros(x.shape[1])
-    terms = _likelihood(layout, x, beta, ties)
-    null_loglik = terms.loglik
-    converged, iterations = False, 0
-    for iterations in range(1, max_iterations + 1):  # noqa: B007
-        step = np.linalg.lstsq(terms.information, terms.score, rcond=None)[0]
-        candidate = _likelihood(layout, x, beta + step, ties)
-        halvings = 0
-        while not (np.isfinite(candidate.loglik) and candidate.loglik >= terms.loglik - 1e-12):
-            if halvings == 30:
-                break
-            step = step / 2
-            candidate = _likelihood(layout, x, beta + step, ties)
-            halvings += 1
-        change = candidate.loglik - terms.loglik
-        beta, terms = beta + step, candidate
-        if np.max(np.abs(step)) < 1e-9 or abs(change) <= tol * max(1.0, abs(terms.loglik)):
-            converged = True
-            break
-    return beta, terms, null_loglik, iterations, converged
+def _newton(layout, x, ties, max_iterations=50):
+    """The Cox model's Newton–Raphson loop (engine.cox.likelihood.maximise) on the weighted
+    likelihood; the likelihood's pieces are evaluated once more at the estimate."""
+    fit = maximise(
+        lambda beta: _likelihood(layout, x, beta, ties), x.shape[1], max_iter=max_iterations
+    )
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        terms = _likelihood(layout, x, fit.beta, ties)
+    return fit.beta, terms, fit.null_loglik, fit.iterations, fit.converged
 
 
 @dataclass(frozen=True)
@@ -233,6 +231,7 @@ class FineGrayResult:
     baseline_time: np.ndarray = field(repr=False)  # event times of the cause
     baseline_cumulative: np.ndarray = field(repr=False)  # at the covariate means
     events_by_row: np.ndarray = field(repr=False)  # design row order: had the cause
+    variance: str = "robust"  # "model" where the sandwich is singular (see the warnings)
 
     def to_frame(self) -> pd.DataFrame:
         return pd.DataFrame([{**vars(t.estimate), "se_model": t.se_model} for t in self.terms])
@@ -245,7 +244,7 @@ class FineGrayResult:
             "competing_events": int(self.competing_events),
             "censored": int(self.censored),
             "ties": self.ties,
-            "variance": "robust",
+            "variance": self.variance,
             "terms": [
                 {
                     "variable": t.estimate.variable,
@@ -380,14 +379,18 @@ def fit_fine_gray(
             "information about the events of this cause. Remove covariates with few distinct "
             "values or events."
         ) from exc
-    residuals = _score_residuals(layout, scaled, terms)
-    robust_scaled = inverse @ (residuals.T @ residuals) @ inverse
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        residuals = _score_residuals(layout, scaled, terms)
+    robust_scaled = sandwich(residuals, inverse)
+    warnings = list(design.warnings)
+    if robust_scaled is None:
+        warnings.append(singular_robust_warning(informative_clusters(residuals), len(beta_s)))
     scale = np.outer(design.scale, design.scale)
     beta = beta_s / design.scale
-    covariance = robust_scaled / scale
-    se_model = np.sqrt(np.diag(inverse / scale))
+    covariance = (inverse if robust_scaled is None else robust_scaled) / scale
+    with np.errstate(invalid="ignore"):  # a variance below zero (a runaway): no se
+        se_model = np.sqrt(np.diag(inverse / scale))
     estimates = term_estimates(design.terms, beta, covariance, confidence)
-    warnings = list(design.warnings)
     if not converged:
         warnings.append(
             f"The Fine–Gray fit did not converge after {iterations} iterations; the estimates "
@@ -401,7 +404,8 @@ def fit_fine_gray(
             "common rule of thumb); the estimates may be biased. Use fewer covariates."
         )
     # Baseline cumulative subdistribution hazard at the covariate means (Breslow-type).
-    hazard = terms.pieces["sum_a"] * np.exp(-terms.pieces["shift"])
+    with np.errstate(over="ignore", invalid="ignore"):  # a runaway: no finite baseline
+        hazard = terms.pieces["sum_a"] * np.exp(-terms.pieces["shift"])
     is_cause_by_row = np.zeros(len(time), dtype=bool)
     is_cause_by_row[layout.order] = layout.is_cause
     return FineGrayResult(
@@ -413,7 +417,7 @@ def fit_fine_gray(
         ties=ties,
         confidence=float(confidence),
         terms=tuple(FineGrayTerm(e, float(s)) for e, s in zip(estimates, se_model, strict=True)),
-        wald=chi_square("model", beta @ np.linalg.solve(covariance, beta), p),
+        wald=chi_square("model", wald_statistic(beta, covariance), p),
         converged=converged,
         iterations=iterations,
         dropped=dict(design.dropped),
@@ -424,4 +428,5 @@ def fit_fine_gray(
         baseline_time=layout.group_time,
         baseline_cumulative=np.cumsum(hazard),
         events_by_row=is_cause_by_row,
+        variance="model" if robust_scaled is None else "robust",
     )

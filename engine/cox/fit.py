@@ -319,13 +319,15 @@ def fit_cox(
     warnings, finite_estimates = fit_warnings(design, fit, events, not_estimable, strata_name)
     no_test = ChiSquareTest("model", float("nan"), p, float("nan"))
     cluster_codes = _cluster_codes(frame, used, clusters, variance)
-    if cluster_codes is not None and not enough_clusters(int(cluster_codes.max()) + 1, p):
-        warnings.append(few_clusters_warning(int(cluster_codes.max()) + 1, p))
-        cluster_codes = None
     robust = None
     if cluster_codes is not None:
-        robust = robust_covariance(layout, scaled, fit.beta, ties, cov_scaled, cluster_codes)
-        robust = robust / np.outer(scale, scale)
+        scores = cluster_scores(layout, scaled, fit.beta, ties, cluster_codes)
+        robust = sandwich(scores, cov_scaled)
+        if robust is None:
+            warnings.append(singular_robust_warning(informative_clusters(scores), p))
+            cluster_codes = None
+        else:
+            robust = robust / np.outer(scale, scale)
     runaway = runaway_terms(fit)
     terms = term_estimates(design.terms, beta, covariance, confidence, robust, runaway)
     eta = scaled @ fit.beta
@@ -368,7 +370,7 @@ def fit_cox(
             "model",
             fit.beta @ fit.information @ fit.beta
             if robust is None
-            else beta @ np.linalg.solve(robust, beta),
+            else wald_statistic(beta, robust),
             p,
         )
         if finite_estimates
@@ -403,34 +405,59 @@ def _cluster_codes(frame, used, clusters, variance) -> np.ndarray | None:
     return codes
 
 
-def enough_clusters(n_clusters: int, terms: int) -> bool:
-    """Whether a sandwich variance over ``n_clusters`` can be of full rank for ``terms``
-    coefficients: its middle is a sum of one outer product per cluster, and the clusters' score
-    sums add up to the score, zero at the estimate, so its rank is at most n_clusters - 1."""
-    return n_clusters > terms
-
-
-def few_clusters_warning(n_clusters: int, terms: int) -> str:
+def singular_robust_warning(n_clusters: int, terms: int) -> str:
+    """Why the robust variance was not used (``n_clusters``: those adding to the score)."""
+    if n_clusters <= terms:
+        why = (
+            f"needs more clusters than model terms, and there are {n_clusters} cluster(s) "
+            "(distinct ids, or rows without an id role; counting those with rows at risk at "
+            f"some event time) for {terms} term(s)"
+        )
+    else:
+        why = (
+            f"cannot be used here: the score sums of the {n_clusters} clusters vary in fewer "
+            f"directions than the {terms} model terms (a level found in too few clusters, for "
+            "example), or a coefficient running off to infinity leaves them undefined"
+        )
     return (
-        f"The robust (sandwich) variance needs more clusters than model terms, and there are "
-        f"{n_clusters} cluster(s) (distinct ids, or rows without an id role) for {terms} "
-        "term(s): its covariance would be singular. The standard errors, intervals and tests "
-        "shown are model-based, which treat the rows as independent. Use more subjects or fewer "
-        "covariate terms for a robust variance."
+        f"The robust (sandwich) variance {why}, so its covariance would be singular. The "
+        "standard errors, intervals and tests shown are model-based, which treat the rows as "
+        "independent. Use more subjects or fewer covariate terms for a robust variance."
     )
 
 
-def robust_covariance(layout, scaled, beta, ties, information_inverse, codes) -> np.ndarray:
-    """Sandwich I^-1 (sum over clusters of U_c U_c') I^-1 in the scaled units, U_c the sum of the
-    cluster's score residuals (``codes``: cluster per row in the frame's order)."""
-    residuals = score_residuals(layout, scaled, beta, ties)
+def cluster_scores(layout, scaled, beta, ties, codes) -> np.ndarray:
+    """Per cluster (``codes``: cluster per row in the frame's order), the sum of its rows' score
+    residuals (clusters x terms, scaled units). A coefficient running off to infinity can leave
+    risk sets of zero weight, whose residuals are NaN."""
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        residuals = score_residuals(layout, scaled, beta, ties)
     sorted_codes = codes[layout.order]
     n_clusters = int(codes.max()) + 1
-    summed = np.column_stack(
+    return np.column_stack(
         [np.bincount(sorted_codes, residuals[:, j], n_clusters) for j in range(scaled.shape[1])]
     )
-    middle = summed.T @ summed
-    return information_inverse @ middle @ information_inverse
+
+
+def informative_clusters(scores: np.ndarray) -> int:
+    """Clusters that add to the score: a cluster whose rows are at risk at no event time has a
+    score sum of exactly zero."""
+    return int(np.any(scores != 0, axis=1).sum())
+
+
+def sandwich(scores: np.ndarray, information_inverse: np.ndarray) -> np.ndarray | None:
+    """I^-1 (sum over clusters of U_c U_c') I^-1 from the clusters' score sums U_c (Lin and Wei
+    1989), or None when it is singular or undefined. The sums add up to the score, zero at the
+    estimate, so they span at most (clusters adding to the score - 1) directions: with no more
+    such clusters than terms the sandwich is always singular."""
+    p = scores.shape[1]
+    if (
+        informative_clusters(scores) <= p
+        or not np.isfinite(scores).all()
+        or np.linalg.matrix_rank(scores) < p
+    ):
+        return None
+    return information_inverse @ (scores.T @ scores) @ information_inverse
 
 
 def term_estimates(terms: Sequence[Term], beta, covariance, confidence, robust=None, runaway=None):
@@ -465,6 +492,14 @@ def term_estimates(terms: Sequence[Term], beta, covariance, confidence, robust=N
     return rows
 
 
+def wald_statistic(beta, covariance) -> float:
+    """b' V^-1 b; NaN (reported as not computed) when V is singular."""
+    try:
+        return float(beta @ np.linalg.solve(covariance, beta))
+    except np.linalg.LinAlgError:
+        return float("nan")
+
+
 def _variable_wald(design: Design, beta, covariance, runaway=None):
     """The joint Wald test of each categorical variable of several terms; none for a variable
     with a term that runs off to infinity (its test is not meaningful)."""
@@ -474,7 +509,7 @@ def _variable_wald(design: Design, beta, covariance, runaway=None):
             continue
         if len(cols) > 1:
             b = beta[cols]
-            statistic = b @ np.linalg.solve(covariance[np.ix_(cols, cols)], b)
+            statistic = wald_statistic(b, covariance[np.ix_(cols, cols)])
             yield chi_square(variable, statistic, len(cols))
 
 

@@ -261,6 +261,8 @@ def maximise(likelihood, p, *, start=None, max_iter=50, tol=1e-11, step_tol=1e-9
             step = step / 2
             candidate = likelihood(beta + step)
             halvings += 1
+        if not np.isfinite(candidate.loglik):
+            break  # no finite step left (a runaway): stop at the last finite estimate
         change = candidate.loglik - terms.loglik
         beta = beta + step
         terms = candidate

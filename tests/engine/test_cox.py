@@ -371,3 +371,24 @@ def test_runaway_is_flagged_where_the_information_is_gone():
     for options in ({"strata": "ward"}, {"strata": "ward", "entry": "_entry"}):
         result = fit_cox(frame, ["age"], **options)
         assert any("run off to infinity" in w for w in result.warnings), options
+
+
+def test_joint_wald_test_on_a_singular_covariance_is_not_computed():
+    """Levels running off to infinity leave the covariance of a categorical's terms singular:
+    its joint Wald test is null (before: numpy's LinAlgError)."""
+    rng = np.random.default_rng(10_761)
+    n, clusters = int(rng.integers(6, 60)), int(rng.integers(2, 15))
+    frame = pd.DataFrame(
+        {
+            "_time": rng.integers(1, 8, n).astype(float),
+            "_event": (rng.random(n) < rng.random()).astype(int),
+            "a": rng.integers(0, 2, n).astype(float), "b": rng.normal(size=n),
+            "c": rng.integers(0, 3, n).astype(float),
+            "s": pd.Categorical(rng.choice(list("wxyz"), n)),
+            "id": rng.integers(0, clusters, n),
+        }
+    )  # fmt: skip
+    result = fit_cox(frame, ["a", "b", "c", "s"], categorical=["s"], ties="breslow")
+    assert any("run off to infinity" in w for w in result.warnings)
+    (joint,) = result.to_dict()["variable_wald"]
+    assert joint["variable"] == "s" and joint["statistic"] is None and joint["p_value"] is None

@@ -495,3 +495,25 @@ def test_efron_clustered_robust_variance_with_entry_times_is_the_infinitesimal_j
     jackknife = derivatives.T @ derivatives
     assert_allclose(ours.covariance, jackknife, atol=1e-7)
     assert_allclose(ours.to_frame()["se"], np.sqrt(np.diag(jackknife)), rtol=1e-6)
+
+
+def test_clusters_adding_nothing_to_the_score_do_not_count():
+    """5 clusters for 4 terms, but one cluster's rows are at risk at no event time (its score sum
+    is exactly zero) and the other 4 clusters' sums add up to the score: a singular sandwich
+    (before: numpy's LinAlgError from the robust Wald test)."""
+    rng = np.random.default_rng(1600)
+    n, clusters = int(rng.integers(6, 40)), int(rng.integers(2, 12))
+    frame = pd.DataFrame(
+        {
+            "_time": rng.integers(1, 6, n).astype(float), "_event": rng.integers(0, 2, n),
+            "a": rng.integers(0, 2, n).astype(float), "b": rng.normal(size=n),
+            "s": pd.Categorical(rng.choice(list("xyz"), n)), "id": rng.integers(0, clusters, n),
+        }
+    )  # fmt: skip
+    result = fit_cox(frame, ["a", "b", "s"], categorical=["s"], clusters="id")
+    assert frame["id"].nunique() == 5 and len(result.terms) == 4
+    assert result.variance == "model"
+    assert any("needs more clusters than model terms, and there are 4 cluster(s)" in w
+               for w in result.warnings)  # fmt: skip
+    model = fit_cox(frame, ["a", "b", "s"], categorical=["s"], variance="model")
+    assert_allclose(result.to_frame()["se"], model.to_frame()["se"], rtol=1e-12)

@@ -235,3 +235,26 @@ def test_bone_marrow_ties_follow_the_stated_censoring_weights(ties):
         coef, se_model = reference.params_.to_numpy(), reference.standard_errors_.to_numpy()
     assert_allclose(ours["coef"], coef, atol=1e-6)
     assert_allclose(ours["se_model"], se_model, rtol=1e-6)
+
+
+def test_a_runaway_fit_stops_at_finite_estimates_with_model_based_errors():
+    """Four terms for three events of the cause: the coefficients run off (before: numpy's "SVD
+    did not converge" from Fine–Gray's own Newton loop, now the Cox model's, which stops at the
+    last finite estimate); the singular sandwich gives way to the model-based errors."""
+    rng = np.random.default_rng(255)
+    n = int(rng.integers(5, 40))
+    frame = pd.DataFrame(
+        {
+            "_time": rng.integers(1, 8, n).astype(float),
+            "_cause": rng.choice(["a", "b", None], n),
+            "x": rng.integers(0, 2, n).astype(float), "y": rng.normal(size=n),
+            "s": pd.Categorical(rng.choice(list("pqr"), n)),
+        }
+    )  # fmt: skip
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # and no numpy warning on the way
+        result = fit_fine_gray(frame, ["x", "y", "s"], "a", categorical=["s"], ties="breslow")
+    assert np.isfinite(result.beta).all() and not result.converged
+    assert result.variance == "model" and result.to_dict()["variance"] == "model"
+    assert any("did not converge" in w for w in result.warnings)
+    assert any("sandwich) variance cannot be used here" in w for w in result.warnings)
