@@ -54,13 +54,16 @@ def competing_regression_block(section: Mapping, unit: str, ci: str, forest) -> 
             ]
             for t in model["terms"]
         ]
+        robust = model.get("variance", "robust") == "robust"
+        variance_words = "robust (sandwich)" if robust else "model-based"
+        se_header = "SE (robust)" if robust else "SE (model-based)"
         parts += [
             f"<h3>Fine–Gray model: {escape(model['cause'])}</h3>",
             f'<p class="meta">{model["n"]:,} rows used, {model["events"]:,} events of this '
             f"cause, {model['competing_events']:,} competing events, {model['censored']:,} "
-            "censored; robust (sandwich) standard errors.</p>",
+            f"censored; {variance_words} standard errors.</p>",
             table(
-                ["Term", "Coefficient", "SE (robust)", "Subdistribution HR", f"{ci} CI", "p"],
+                ["Term", "Coefficient", se_header, "Subdistribution HR", f"{ci} CI", "p"],
                 rows,
             ),
             figure_block(forest, "Subdistribution hazard ratios with their intervals (log scale)."),

@@ -310,6 +310,8 @@ def fine_gray_block(table, roles, causes, unit: str) -> None:
             cols[3].metric("Censored", f"{fg.censored:,}")
             st.info(MEANING, icon=":material/lightbulb:")
             rows = fg.to_frame()
+            robust = fg.variance == "robust"  # else singular: the warnings say why
+            se_header = "Standard error (robust)" if robust else "Standard error (model, used)"
             shown = pd.DataFrame(
                 {
                     "Term": [
@@ -324,7 +326,7 @@ def fine_gray_block(table, roles, causes, unit: str) -> None:
                         for lo, hi in rows[["lower", "upper"]].itertuples(index=False)
                     ],
                     "p-value": rows["p_value"].map(ui.fmt_p),
-                    "Standard error (robust)": rows["se"].map(lambda v: f"{v:.4f}"),
+                    se_header: rows["se"].map(lambda v: f"{v:.4f}"),
                     "Standard error (model)": rows["se_model"].map(lambda v: f"{v:.4f}"),
                 }
             )

@@ -365,3 +365,40 @@ def test_rmst_columns_appear_when_the_curves_carry_them(freireich):
     # no roles: no event name; the horizon is in the header
     assert "<th>Restricted mean survival time to 23 (weeks)</th>" in text
     assert '<td class="num" data-value="17.25">17.3</td><td class="ci">14.0 to 20.5</td>' in text
+
+
+def test_fine_gray_block_names_the_variance_its_table_uses():
+    """Four terms for three events of the cause: the sandwich is singular, the table's errors
+    are model-based and the report says so (it said "robust" whatever the fit used)."""
+    import numpy as np
+
+    from app.report_prediction import competing_regression_block
+    from engine.competing.fine_gray import fit_fine_gray
+
+    rng = np.random.default_rng(255)
+    n = int(rng.integers(5, 40))
+    frame = pd.DataFrame(
+        {
+            "_time": rng.integers(1, 8, n).astype(float),
+            "_cause": rng.choice(["a", "b", None], n),
+            "x": rng.integers(0, 2, n).astype(float), "y": rng.normal(size=n),
+            "s": pd.Categorical(rng.choice(list("pqr"), n)),
+        }
+    )  # fmt: skip
+    rng = np.random.default_rng(3)
+    time = rng.exponential(10, 200)
+    usual = pd.DataFrame(
+        {
+            "_time": time, "x": rng.normal(size=200),
+            "_cause": rng.choice(["a", "b", None], 200, p=[0.4, 0.3, 0.3]),
+        }
+    )  # fmt: skip
+    fits = (
+        (fit_fine_gray(frame, ["x", "y", "s"], "a", categorical=["s"]), "model-based"),
+        (fit_fine_gray(usual, ["x"], "a"), "robust (sandwich)"),
+    )
+    for result, words in fits:
+        html = competing_regression_block(
+            {"fine_gray": {**result.to_dict(), "meaning": "reading"}}, "months", "95%", None
+        )
+        assert f"{words} standard errors" in html
