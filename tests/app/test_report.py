@@ -374,17 +374,9 @@ def test_fine_gray_block_names_the_variance_its_table_uses():
 
     from app.report_prediction import competing_regression_block
     from engine.competing.fine_gray import fit_fine_gray
+    from tests.engine.test_fine_gray import runaway_frame
 
-    rng = np.random.default_rng(255)
-    n = int(rng.integers(5, 40))
-    frame = pd.DataFrame(
-        {
-            "_time": rng.integers(1, 8, n).astype(float),
-            "_cause": rng.choice(["a", "b", None], n),
-            "x": rng.integers(0, 2, n).astype(float), "y": rng.normal(size=n),
-            "s": pd.Categorical(rng.choice(list("pqr"), n)),
-        }
-    )  # fmt: skip
+    frame = runaway_frame()
     rng = np.random.default_rng(3)
     time = rng.exponential(10, 200)
     usual = pd.DataFrame(

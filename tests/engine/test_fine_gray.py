@@ -237,13 +237,11 @@ def test_bone_marrow_ties_follow_the_stated_censoring_weights(ties):
     assert_allclose(ours["se_model"], se_model, rtol=1e-6)
 
 
-def test_a_runaway_fit_stops_at_finite_estimates_with_model_based_errors():
-    """Four terms for three events of the cause: the coefficients run off (before: numpy's "SVD
-    did not converge" from Fine–Gray's own Newton loop, now the Cox model's, which stops at the
-    last finite estimate); the singular sandwich gives way to the model-based errors."""
+def runaway_frame() -> pd.DataFrame:
+    """Four terms for three events of cause "a" among 11 rows: the coefficients run off."""
     rng = np.random.default_rng(255)
     n = int(rng.integers(5, 40))
-    frame = pd.DataFrame(
+    return pd.DataFrame(
         {
             "_time": rng.integers(1, 8, n).astype(float),
             "_cause": rng.choice(["a", "b", None], n),
@@ -251,6 +249,13 @@ def test_a_runaway_fit_stops_at_finite_estimates_with_model_based_errors():
             "s": pd.Categorical(rng.choice(list("pqr"), n)),
         }
     )  # fmt: skip
+
+
+def test_a_runaway_fit_stops_at_finite_estimates_with_model_based_errors():
+    """Before: numpy's "SVD did not converge" from Fine–Gray's own Newton loop; now the Cox
+    model's loop, which stops at the last finite estimate; the singular sandwich gives way to
+    the model-based errors."""
+    frame = runaway_frame()
     with warnings.catch_warnings():
         warnings.simplefilter("error")  # and no numpy warning on the way
         result = fit_fine_gray(frame, ["x", "y", "s"], "a", categorical=["s"], ties="breslow")
