@@ -19,8 +19,10 @@ import math
 import signal
 import time
 import traceback
+import warnings
 import zipfile
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -412,7 +414,6 @@ def cli_case(content: bytes, name: str, options: list[str], folder) -> tuple[int
     The contract: exit 0, or 2 with exactly one ``error:`` line on standard error; never 1 and
     never a traceback."""
     import contextlib
-    from pathlib import Path
 
     from app.cli import main as cli_main
 
@@ -504,6 +505,9 @@ class Outcome:
     stage: str  # the last stage reached: import, roles, checks, analysis, json, report
     detail: str = ""
     accounting_ok: bool = True
+    # numeric warnings that escaped (file:line: message): on the command line they reach the
+    # user's terminal, and they often mark a value computed from an overflow or 0/0
+    numeric_warnings: tuple[str, ...] = ()
 
 
 class _Hang(BaseException):
@@ -529,6 +533,9 @@ def run_case(
     stage = "import"
     previous = signal.signal(signal.SIGALRM, _alarm)
     signal.alarm(HANG_SECONDS)
+    caught = warnings.catch_warnings(record=True)
+    escaped = caught.__enter__()
+    warnings.simplefilter("always", RuntimeWarning)
     try:
         table = read_table(data, ImportOptions(**(options or {})), name=name)
         stage = "roles"
@@ -566,7 +573,19 @@ def run_case(
     finally:
         signal.alarm(0)
         signal.signal(signal.SIGALRM, previous)
-    return Outcome(kind, time.perf_counter() - started, stage, detail, accounting_ok)
+        caught.__exit__(None, None, None)
+    numeric = tuple(
+        sorted(
+            {
+                f"{Path(w.filename).name}:{w.lineno}: {w.message}"
+                for w in escaped
+                if issubclass(w.category, RuntimeWarning)
+            }
+        )
+    )
+    return Outcome(
+        kind, time.perf_counter() - started, stage, detail, accounting_ok, numeric_warnings=numeric
+    )
 
 
 def _largest_number(value) -> float:

@@ -52,7 +52,7 @@ def main() -> None:
     parser.add_argument("--cli-every", type=int, default=25)
     args = parser.parse_args()
 
-    outcomes, cli, places = [], Counter(), Counter()
+    outcomes, cli, places, numeric = [], Counter(), Counter(), Counter()
     cli_problems: list[str] = []
     folder = Path(tempfile.mkdtemp(prefix="hazel-fuzz-"))
     started = time.perf_counter()
@@ -83,6 +83,7 @@ def main() -> None:
             choose_settings=lambda roles: data.draw(analysis_settings(roles)),
         )
         outcomes.append(outcome)
+        numeric.update(outcome.numeric_warnings)
         if outcome.kind == "crash":
             places[outcome.detail.strip().splitlines()[-1][:160]] += 1
             kept = folder / f"crash-{len(outcomes)}"  # the input and roles, to replay it
@@ -129,6 +130,9 @@ def main() -> None:
           f"contract broken {len(cli_problems)}")  # fmt: skip
     for place, count in places.most_common(20):
         print(f"  crash x{count}: {place}")
+    print(f"cases with numeric warnings: {sum(1 for o in outcomes if o.numeric_warnings)}")
+    for place, count in numeric.most_common(30):
+        print(f"  warning x{count}: {place}")
     for problem in cli_problems[:20]:
         print(f"  cli: {problem}")
 
