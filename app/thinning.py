@@ -95,13 +95,14 @@ def thin_points(
     width_px, height_px = size_px
     x_span = (x_domain[1] - x_domain[0]) or 1.0
     y_span = (y_domain[1] - y_domain[0]) or 1.0
-    cells = pd.DataFrame(
-        {
-            "cx": np.floor((frame[x].to_numpy(float) - x_domain[0]) * width_px / x_span),
-            "cy": np.floor((frame[y].to_numpy(float) - y_domain[0]) * height_px / y_span),
-        },
-        index=frame.index,
-    )
+    with np.errstate(over="ignore", invalid="ignore"):  # a span beyond floats: one cell
+        cells = pd.DataFrame(
+            {
+                "cx": np.floor((frame[x].to_numpy(float) - x_domain[0]) * width_px / x_span),
+                "cy": np.floor((frame[y].to_numpy(float) - y_domain[0]) * height_px / y_span),
+            },
+            index=frame.index,
+        )
     if group is not None:
         cells["g"] = frame[group].astype(str).to_numpy()
     return frame[~cells.duplicated()]

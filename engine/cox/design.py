@@ -190,9 +190,10 @@ def build_design(
     matrix = np.column_stack(columns) if columns else np.zeros((int(used.sum()), 0))
     center = matrix.mean(axis=0)
     centred = matrix - center
-    covariance = centred.T @ centred / len(matrix)
+    with np.errstate(over="ignore", invalid="ignore"):  # an overflowing spread: refused below
+        covariance = centred.T @ centred / len(matrix)
+        scale = np.sqrt(np.diag(covariance))
     del centred
-    scale = np.sqrt(np.diag(covariance))
     design = Design(tuple(terms), matrix, used, dropped, levels, level_counts, (), center, scale)
     warnings += check_collinearity(design, covariance)
     return Design(

@@ -167,8 +167,9 @@ def proportional_hazards_test(
     g = g - g.mean()
     d = result.model.layout.n_events
     covariance = result.model.covariance
-    u = d * (g @ residuals.raw) @ covariance  # sum_k g_k r*_k (beta drops out: sum g_k = 0)
-    denominator = d * float(g @ g)
+    with np.errstate(over="ignore", invalid="ignore"):  # beyond floats: no test (NaN), below
+        u = d * (g @ residuals.raw) @ covariance  # sum_k g_k r*_k (beta drops out: sum g_k = 0)
+        denominator = d * float(g @ g)
     return ph_test_from_sums(u, denominator, covariance, result.design, time_scale)
 
 
@@ -177,14 +178,16 @@ def ph_test_from_sums(u, denominator, covariance, design, time_scale: str) -> PH
     memory and per-time sums give the same two quantities)."""
 
     def joint(name, cols):
-        if denominator <= 0:
-            return ChiSquareTest(name, float("nan"), len(cols), float("nan"))
+        untestable = ChiSquareTest(name, float("nan"), len(cols), float("nan"))
+        if not denominator > 0 or not np.all(np.isfinite(u[cols])):
+            return untestable  # no spread of the time scale, or sums beyond floats
         block = covariance[np.ix_(cols, cols)]
         try:
-            statistic = u[cols] @ np.linalg.solve(block, u[cols]) / denominator
+            with np.errstate(over="ignore", invalid="ignore"):
+                statistic = u[cols] @ np.linalg.solve(block, u[cols]) / denominator
         except np.linalg.LinAlgError:  # a singular block (a covariate equal to time): no test
-            return ChiSquareTest(name, float("nan"), len(cols), float("nan"))
-        return chi_square(name, statistic, len(cols))
+            return untestable
+        return chi_square(name, statistic, len(cols)) if np.isfinite(statistic) else untestable
 
     terms = tuple(joint(t.label, np.array([j])) for j, t in enumerate(design.terms))
     variables = tuple(joint(v, design.columns_of(v)) for v in design.variables)

@@ -158,7 +158,8 @@ def _event_weights(layout, weights, ties):
     frac = layout.event_fraction if ties == "efron" else np.zeros(layout.n_events)
     g = layout.event_group
     den = s0[g] - frac * d0[g]
-    a = 1.0 / den
+    with np.errstate(divide="ignore", invalid="ignore"):  # an empty risk set at a runaway beta
+        a = 1.0 / den
     return den, a, frac * a
 
 
@@ -316,15 +317,19 @@ def event_means(layout: RiskSetLayout, x: np.ndarray, beta: np.ndarray, ties: st
     _den, a, b = _event_weights(layout, weights, ties)
     g, n_groups = layout.event_group, layout.n_groups
     s1, d1 = _group_sums(layout, x * weights[:, None])
-    total = np.bincount(g, a, n_groups)[:, None] * s1 - np.bincount(g, b, n_groups)[:, None] * d1
+    with np.errstate(invalid="ignore", over="ignore"):  # at a runaway beta: NaN, flagged there
+        total = (
+            np.bincount(g, a, n_groups)[:, None] * s1 - np.bincount(g, b, n_groups)[:, None] * d1
+        )
     return (total / layout.group_size[:, None])[g]
 
 
 def baseline_hazard(layout: RiskSetLayout, eta: np.ndarray) -> np.ndarray:
     """Breslow hazard increment per group for linear predictor ``eta`` (sorted rows): events in
     the group divided by the risk-set sum of exp(eta)."""
-    s0, _ = _group_sums(layout, np.exp(eta))
-    return layout.group_size / s0
+    with np.errstate(over="ignore", divide="ignore"):  # eta beyond floats at a runaway beta
+        s0, _ = _group_sums(layout, np.exp(eta))
+        return layout.group_size / s0
 
 
 def score_residuals(layout: RiskSetLayout, x: np.ndarray, beta: np.ndarray, ties: str):

@@ -31,6 +31,7 @@ from engine.parametric.fits import (
     fitting_scale,
     log_cumulative_hazard,
     log_quantile,
+    standard_errors,
 )
 from engine.wording import term_label
 
@@ -276,7 +277,7 @@ def fit_aft(
         design = np.column_stack([np.ones(len(x)), x.to_numpy()])
         exposure = time - (0.0 if entry is None else entry)
         beta, cov, log_lik = _exponential_newton(design, event, exposure)
-        se = np.sqrt(np.diag(cov))
+        se = standard_errors(np.diag(cov))
         ancillary = pd.DataFrame(columns=["parameter", "estimate", "std_error", "lower", "upper"])
     else:
         data = x.assign(_time=time, _event=event.astype(int))
@@ -298,40 +299,44 @@ def fit_aft(
         params, var = fitter.params_, fitter.variance_matrix_
         index = [(primary, t) for t in terms]
         beta = params.loc[index].to_numpy(dtype=float)
-        se = np.sqrt(np.diag(var.loc[index, index].to_numpy(dtype=float)))
+        se = standard_errors(np.diag(var.loc[index, index].to_numpy(dtype=float)))
         a = float(params.loc[(shape_name, "Intercept")])
-        a_se = float(np.sqrt(var.loc[(shape_name, "Intercept"), (shape_name, "Intercept")]))
+        a_se = float(standard_errors(var.loc[(shape_name, "Intercept"), (shape_name, "Intercept")]))
         # lifelines models the shape (or SD) on the log scale: shown on its own scale, the
         # interval transformed back and the standard error by the delta method
-        ancillary = pd.DataFrame(
-            [
-                {
-                    "parameter": PARAMETER_WORDS[shape_name],
-                    "estimate": float(np.exp(a)),
-                    "std_error": float(np.exp(a) * a_se),
-                    "lower": float(np.exp(a - z * a_se)),
-                    "upper": float(np.exp(a + z * a_se)),
-                }
-            ]
-        )
+        with np.errstate(over="ignore", invalid="ignore"):  # a shape beyond floats: not shown
+            ancillary = pd.DataFrame(
+                [
+                    {
+                        "parameter": PARAMETER_WORDS[shape_name],
+                        "estimate": float(np.exp(a)),
+                        "std_error": float(np.exp(a) * a_se),
+                        "lower": float(np.exp(a - z * a_se)),
+                        "upper": float(np.exp(a + z * a_se)),
+                    }
+                ]
+            )
         log_lik = float(fitter.log_likelihood_)
     beta = beta.copy()
     beta[0] += np.log(scale)
     log_lik -= int(event.sum()) * float(np.log(scale))
     time = time * scale
-    coefs = pd.DataFrame(
-        {
-            "term": terms,
-            "coef": beta,
-            "std_error": se,
-            "lower": beta - z * se,
-            "upper": beta + z * se,
-            "time_ratio": np.exp(beta),
-            "time_ratio_lower": np.exp(beta - z * se),
-            "time_ratio_upper": np.exp(beta + z * se),
-            "p_value": 2 * norm.sf(np.abs(beta / se)),
-        }
-    )
+    # a time ratio beyond floats is infinite (null in the JSON, "not estimable" on the pages);
+    # an undefined standard error leaves its interval and p-value undefined, never 0
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+        coefs = pd.DataFrame(
+            {
+                "term": terms,
+                "coef": beta,
+                "std_error": se,
+                "lower": beta - z * se,
+                "upper": beta + z * se,
+                "time_ratio": np.exp(beta),
+                "time_ratio_lower": np.exp(beta - z * se),
+                "time_ratio_upper": np.exp(beta + z * se),
+                "p_value": 2 * norm.sf(np.abs(beta / se)),
+            }
+        )
     n_params = len(terms) + len(ancillary)
     return AFTFit(
         distribution=distribution,

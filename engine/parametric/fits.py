@@ -137,6 +137,15 @@ def log_quantile(distribution: str, theta: np.ndarray, p: float) -> float:
     return np.log(theta[0]) + np.log(p / (1 - p)) / theta[1]
 
 
+def standard_errors(variances) -> np.ndarray:
+    """Square roots of the variances; NaN (not estimable) where a variance is not a positive
+    finite number, as a fit at the edge of its range gives: never a standard error of 0 that
+    would make a p-value of 0 and an interval of no width."""
+    variances = np.asarray(variances, dtype=float)
+    usable = np.isfinite(variances) & (variances > 0)
+    return np.sqrt(np.where(usable, variances, np.nan))
+
+
 def _delta_se(fn, theta: np.ndarray, cov: np.ndarray) -> np.ndarray:
     """Delta-method standard error of fn(theta) (vectorised output) by central differences."""
     grads = []
@@ -347,7 +356,7 @@ def fit_distribution(
         log_rate = np.log(d / exposure) - np.log(scale)
         theta, cov = np.array([log_rate]), np.array([[1.0 / d]])
         log_lik = d * log_rate - d  # d log(rate) - rate * exposure, with rate * exposure = d
-        params = _param_table(["log rate"], theta, np.sqrt(np.diag(cov)), z)
+        params = _param_table(["log rate"], theta, standard_errors(np.diag(cov)), z)
         rate = params.iloc[0][["estimate", "lower", "upper"]].map(np.exp).to_numpy(dtype=float)
         params = pd.concat(
             [
@@ -392,7 +401,7 @@ def fit_distribution(
         # each event's density is divided by the scale; survival terms are unchanged
         log_lik = float(fitter.log_likelihood_) - d * float(np.log(scale))
         names = [PARAMETER_WORDS.get(name, name) for name in fitter.params_.index]
-        params = _param_table(names, theta, np.sqrt(np.diag(cov)), z)
+        params = _param_table(names, theta, standard_errors(np.diag(cov)), z)
     return ParametricFit(
         distribution=distribution,
         group=group,

@@ -111,8 +111,11 @@ def brier_scores(time, event, survival, times, *, censoring=None) -> np.ndarray:
 
 
 def integrate(times, values) -> float:
-    """Trapezoid-rule mean of ``values`` over [times[0], times[-1]]."""
+    """Trapezoid-rule mean of ``values`` over [times[0], times[-1]]; NaN (not computed) for a
+    grid of no width, where a mean over time has no meaning."""
     times = np.asarray(times, dtype=float)
+    if not times[-1] > times[0]:
+        return float("nan")
     return float(np.trapezoid(values, times) / (times[-1] - times[0]))
 
 
@@ -137,7 +140,9 @@ class CoxPredictions:
             idx = np.searchsorted(times, t, side="right") - 1
             here = self.stratum == code
             cumulative[here] = values[idx] if idx >= 0 else 0.0
-        return np.exp(-cumulative * np.exp(self.linear_predictor))
+        with np.errstate(over="ignore", invalid="ignore"):  # exp(eta) beyond floats
+            hazard = cumulative * np.exp(self.linear_predictor)
+        return np.where(cumulative > 0, np.exp(-hazard), 1.0)  # none before the first event
 
 
 def cox_predictions(result: CoxResult) -> CoxPredictions:
