@@ -29,7 +29,7 @@ from engine.analysis.recipe_schema import check_setting
 from engine.analysis.run import ANALYSIS_DEFAULTS
 from engine.analysis.run import run_analysis as run_engine_analysis
 from engine.cox.diagnostics import TIME_SCALES
-from engine.errors import HazelError, NoRowsError
+from engine.errors import HazelError, ImportOptionError, NoRowsError
 from engine.io.tables import ImportedTable, ImportOptions, read_table
 from engine.io.text import text_encoding
 from engine.prepare.checks import PreparedData, prepare
@@ -368,7 +368,10 @@ def import_options_from_args(args: argparse.Namespace) -> ImportOptions:
             text_encoding(args.encoding)
         except HazelError as error:
             raise UsageError(f"--encoding: {error}") from None
-    return ImportOptions(sep=sep, decimal=args.decimal, encoding=args.encoding, sheet=sheet)
+    try:
+        return ImportOptions(sep=sep, decimal=args.decimal, encoding=args.encoding, sheet=sheet)
+    except ImportOptionError as error:  # the rule is ImportOptions'; the option named is ours
+        raise UsageError(f"--{error.option}: {error}") from None
 
 
 def filters_from_args(args: argparse.Namespace) -> tuple[RowFilter, ...]:

@@ -17,7 +17,11 @@ class FileReadError(HazelError):
 
 class ImportOptionError(FileReadError):
     """An import option cannot work as given (a separator of two characters, a quote as the
-    separator, a decimal mark other than '.' or ',')."""
+    separator, a decimal mark other than '.' or ','); ``option`` names the field."""
+
+    def __init__(self, message: str, option: str):
+        super().__init__(message)
+        self.option = option
 
 
 class FileTooLargeError(FileReadError):

@@ -64,17 +64,20 @@ class ImportOptions:
             raise ImportOptionError(
                 f"The column separator must be one character that is not a quote or a line break "
                 f"(a comma, semicolon, tab or pipe, for example); got {self.sep!r}. Leave it "
-                "empty to detect it."
+                "empty to detect it.",
+                "sep",
             )
         if self.decimal not in (None, ".", ","):
             raise ImportOptionError(
                 f"The decimal mark must be '.' or ','; got {self.decimal!r}. Leave it empty to "
-                "detect it."
+                "detect it.",
+                "decimal",
             )
         if self.sep is not None and self.sep == self.decimal:
             raise ImportOptionError(
                 f"The column separator and the decimal mark are both {self.sep!r}; a number "
-                "such as 3,5 could not be told from two columns. Choose two different marks."
+                "such as 3,5 could not be told from two columns. Choose two different marks.",
+                "sep",
             )
 
     def to_dict(self) -> dict:

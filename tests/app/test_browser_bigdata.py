@@ -117,7 +117,7 @@ def test_stop_reading_cancels_the_running_database_statement(postgres_url, serve
             time.sleep(0.2)
         assert running() == 1  # the count is running in the database
         stop.click()
-        page.get_by_text("was stopped", exact=False).first.wait_for(timeout=15_000)
+        page.get_by_text("was stopped", exact=False).first.wait_for(timeout=60_000)
         assert running() == 0
         page.screenshot(path=str(ARTIFACTS / "bigdata_stopped.png"), full_page=True)
         assert errors == []

@@ -37,13 +37,27 @@ def test_visible_text_leaves_nothing_hidden_and_is_idempotent(text):
         assert shown == text  # ordinary text is untouched
 
 
+# Characters that print as nothing, written out by code point: soft hyphen, combining grapheme
+# joiner, Arabic letter mark, Hangul fillers, Khmer inherent vowels, Mongolian variation
+# selectors and vowel separator, zero-width space/non-joiner/joiner, direction marks, line and
+# paragraph separators, word joiner and invisible operators, deprecated format characters,
+# byte-order mark, interlinear annotation controls, tag characters.
+_INVISIBLE_CODES = {
+    0x00AD, 0x034F, 0x061C, 0x115F, 0x1160, 0x17B4, 0x17B5, *range(0x180B, 0x1810),
+    *range(0x200B, 0x2010), 0x2028, 0x2029, *range(0x2060, 0x2065), *range(0x206A, 0x2070),
+    0x3164, 0xFEFF, 0xFFA0, *range(0xFFF9, 0xFFFC), *range(0xE0000, 0xE0080),
+}  # fmt: skip
+
+
 def _hidden(character: str) -> bool:
-    """The definition, written out: C0 but tab/newline, DEL, C1, the direction controls."""
+    """The definition, written out: C0 but tab/newline, DEL, C1, the direction controls, the
+    characters that print as nothing."""
     code = ord(character)
     return (
         (code < 32 and character not in "\t\n")
         or 0x7F <= code <= 0x9F
         or (character in BIDI_CONTROLS)
+        or code in _INVISIBLE_CODES
     )
 
 
