@@ -285,7 +285,7 @@ def import_options(draw) -> dict:
     ``ImportOptions`` fields: made inside the case, where a refusal is a clean error)."""
     return {
         "sep": draw(st.sampled_from(SEPARATORS)),
-        "decimal": draw(st.sampled_from([None] * 6 + [".", ",", ";"])),
+        "decimal": draw(st.sampled_from([None] * 24 + [".", ",", ";"])),
         "encoding": draw(st.sampled_from(ENCODINGS)),
     }
 

@@ -130,6 +130,10 @@ def main() -> None:
           f"contract broken {len(cli_problems)}")  # fmt: skip
     for place, count in places.most_common(20):
         print(f"  crash x{count}: {place}")
+    errors = Counter(o.detail.split(":")[0] for o in outcomes if o.kind == "error")
+    print(f"clean errors by class and stage: {dict(errors.most_common(8))}")
+    stages_of_errors = Counter(o.stage for o in outcomes if o.kind == "error")
+    print(f"  reached: {dict(stages_of_errors)}")
     print(f"cases with numeric warnings: {sum(1 for o in outcomes if o.numeric_warnings)}")
     for place, count in numeric.most_common(30):
         print(f"  warning x{count}: {place}")
