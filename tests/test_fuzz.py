@@ -6,7 +6,9 @@ event values that contradict them) -> ``prepare`` -> the core analyses and, draw
 one (parametric, landmark, prediction performance, subgroups, baseline, competing risks and
 Fine–Gray, splines, the follow-up split), on zero-, one- and few-row tables as often as larger ones
 -> strict JSON -> the HTML report. Asserted for every example: only Hazel's own error classes
-(``HazelError``) escape, rows used plus rows excluded equal rows read, the JSON parses, and no
+(``HazelError``) escape, no numeric warning escapes (numpy's overflow or 0/0 warnings reach a
+command-line user's terminal and mark a value at the edge of floats), rows used plus rows
+excluded equal rows read, the JSON parses, and no
 example runs past the hang guard (``HANG_SECONDS``; a guard against hangs, not a speed target:
 speeds are measured in ``tests/benchmarks``). A smaller run sends drawn inputs with drawn option
 families (contradictory pairs among them) through ``analyze`` and holds it to the exit contract.
@@ -56,6 +58,7 @@ def test_hostile_files_give_a_result_or_a_hazel_error(file, data):
     )
     assert outcome.kind != "crash", f"{outcome.stage}: {outcome.detail}"
     assert outcome.accounting_ok, "rows used + excluded != rows read"
+    assert not outcome.numeric_warnings, outcome.numeric_warnings  # they reach the terminal
 
 
 @settings(max_examples=CLI_EXAMPLES, **SEEDED)
