@@ -207,6 +207,13 @@ def baseline_table(
     )
 
 
+def _beyond_floats_ignored(statistic) -> float:
+    """A mean or SD of values whose sum or squares overflow is infinite, shown as not
+    estimable (null), without numpy's overflow warning on the user's terminal."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        return float(statistic())
+
+
 def _rows(variable: str, part: pd.Series, kind: str, levels: list, group) -> list[BaselineRow]:
     missing = int(part.isna().sum())
     present = part.dropna()
@@ -224,8 +231,8 @@ def _rows(variable: str, part: pd.Series, kind: str, levels: list, group) -> lis
                 median=json_float(quartiles.iloc[1]),
                 q1=json_float(quartiles.iloc[0]),
                 q3=json_float(quartiles.iloc[2]),
-                mean=json_float(numbers.mean()) if n else None,
-                sd=json_float(numbers.std()) if n > 1 else None,
+                mean=json_float(_beyond_floats_ignored(numbers.mean)) if n else None,
+                sd=json_float(_beyond_floats_ignored(numbers.std)) if n > 1 else None,
                 missing=missing,
             )
         ]

@@ -7,9 +7,11 @@ from __future__ import annotations
 import warnings
 
 import numpy as np
+import pandas as pd
 import pytest
 from numpy.testing import assert_allclose, assert_array_equal
 
+from engine.analysis.baseline import baseline_table
 from engine.parametric.fits import standard_errors
 from engine.prediction.performance import CoxPredictions, integrate
 
@@ -44,3 +46,11 @@ def test_predicted_survival_with_a_linear_predictor_beyond_floats():
     )
     assert_array_equal(predictions.survival(0.5), [1.0, 1.0])  # before the first event time
     assert_allclose(predictions.survival(2.0), [0.0, np.exp(-0.5)])
+
+
+def test_baseline_mean_and_sd_of_values_whose_squares_overflow_are_not_estimable():
+    values = pd.DataFrame({"dose": [1e200, 2e200, 3e200], "age": [50.0, 60.0, 70.0]})
+    rows = baseline_table(values, summary="mean").to_frame().set_index("variable")
+    assert rows.loc["dose", "mean"] == pytest.approx(2e200)
+    assert rows.loc["dose", "sd"] is None or np.isnan(rows.loc["dose", "sd"])  # (1e200)² overflows
+    assert rows.loc["age", "sd"] == pytest.approx(10.0)  # pandas' n − 1 SD of 50, 60, 70
