@@ -67,6 +67,14 @@ def shown_value(value) -> str:
     return repr(_plain(value))
 
 
+def every_group_missing(analysis: str, instead: str) -> AnalysisError:
+    """The one sentence for an analysis by group on data where no row has a group."""
+    return AnalysisError(
+        f"{analysis} by group leaves out the rows without a group, and every row's group is "
+        f"missing. {instead}"
+    )
+
+
 def preview_values(values, limit: int = 5) -> str:
     """Show a few offending values in a message, quoted, with a count of the rest."""
     values = list(values)

@@ -32,7 +32,7 @@ import pandas as pd
 from scipy.stats import norm
 
 from engine.cox.fit import CoxResult, fit_cox
-from engine.errors import AnalysisError, NoRowsError, preview_values
+from engine.errors import AnalysisError, NoRowsError, every_group_missing, preview_values
 from engine.json_values import frame_records
 from engine.survival.risk_table import as_float_array, at_risk_at, checked_entry, group_codes
 
@@ -272,6 +272,10 @@ def aalen_johansen(
 def incidence_result(pieces, causes: tuple[str, ...], confidence_level: float, entries=None):
     """The ``CumulativeIncidence`` of (group label or None, ``incidence_table``) pieces, with
     delayed entry each piece's entry times (ascending) in ``entries``."""
+    if not pieces:  # by group, and no row has a group
+        raise every_group_missing(
+            "Cumulative incidence", "Show it for all rows or choose another group column."
+        )
     for label, arrays in pieces:
         arrays["group"] = np.full(arrays["time"].shape[0], label, dtype=object)
     merged = {k: np.concatenate([p[k] for _, p in pieces]) for k in pieces[0][1]}

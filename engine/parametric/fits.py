@@ -26,7 +26,7 @@ from lifelines import LogLogisticFitter, LogNormalFitter, WeibullFitter
 from lifelines.exceptions import ConvergenceError
 from scipy.stats import norm
 
-from engine.errors import AnalysisError, NoRowsError, preview_values
+from engine.errors import AnalysisError, NoRowsError, every_group_missing, preview_values
 from engine.json_values import frame_records
 
 DISTRIBUTIONS: tuple[str, ...] = ("exponential", "weibull", "log-normal", "log-logistic")
@@ -561,9 +561,9 @@ def fit_parametric(
     if by_group and "_group" in frame.columns:
         missing = frame["_group"].isna().to_numpy()
         if missing.all():
-            raise AnalysisError(
-                "Parametric fits by group leave out the rows without a group, and every row's "
-                "group is missing. Fit them without groups or choose another group column."
+            raise every_group_missing(
+                "Fitting parametric models",
+                "Fit them without groups or choose another group column.",
             )
         frame = frame.loc[~missing]
         group = frame["_group"]

@@ -5,6 +5,8 @@ scale parameter by the same factor and nothing else."""
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -194,3 +196,21 @@ def test_filters_that_keep_no_row_are_refused_with_each_filters_count():
     outcome = apply_filters(frame, [RowFilter("x", "at_least", (99,))])
     with pytest.raises(FilterError, match="would remove every row \\(x at least 99: 25 removed"):
         outcome.refuse_if_empty()
+
+
+@pytest.mark.parametrize("backend", ["memory", "duckdb"])
+def test_cumulative_incidence_by_a_group_that_is_all_missing_says_so(tmp_path, backend):
+    """Every row's group missing: the competing section says why in words on both backends
+    (an IndexError in memory before; found by the fuzz run, seed 8202)."""
+    from app.cli import main
+
+    path = tmp_path / "causes.csv"
+    pd.DataFrame({"t": [1.0, 2.0, 3.0, 4.0], "e": [1, 2, 0, 1], "g": [""] * 4}).to_csv(
+        path, index=False
+    )
+    out = tmp_path / "r.json"
+    argv = ["analyze", str(path), "--time", "t", "--event", "e", "--group", "g",
+            "--competing", "1=relapse", "--competing", "2=death"]  # fmt: skip
+    assert main([*argv, "--backend", backend, "--json", str(out)]) == 0
+    competing = json.loads(out.read_text())["competing"]
+    assert "every row's group is missing" in competing["not_computed"]
