@@ -74,13 +74,17 @@ def main() -> None:
             chosen["roles"] = data.draw(role_choices(columns, suggested))
             return chosen["roles"]
 
+        def choose_settings(roles):
+            chosen["settings"] = data.draw(analysis_settings(roles))
+            return chosen["settings"]
+
         options = data.draw(import_options())
         outcome = run_case(
             content,
             name,
             choose,
             options=options,
-            choose_settings=lambda roles: data.draw(analysis_settings(roles)),
+            choose_settings=choose_settings,
         )
         outcomes.append(outcome)
         numeric.update(outcome.numeric_warnings)
@@ -90,7 +94,8 @@ def main() -> None:
             kept.mkdir()
             (kept / (Path(name).name or "input")).write_bytes(content)
             (kept / "roles.txt").write_text(
-                f"{chosen.get('roles')!r}\n{options!r}\n{outcome.detail}"
+                f"{chosen.get('roles')!r}\n{options!r}\n{chosen.get('settings')!r}\n"
+                f"{outcome.detail}"
             )
             print(f"  crash at case {len(outcomes)}: kept in {kept}", flush=True)
         # drawn for every case, used for every K-th: hypothesis needs the same draws on a replay
