@@ -370,7 +370,9 @@ def source_fingerprint(source: SqlSource, rows_read: int):
 
 
 def _csv_relation(path: Path, sep: str | None, decimal: str | None) -> str:
-    """read_csv with the separator, decimal mark and missing-value tokens Hazel's reader uses."""
+    """read_csv with the separator, decimal mark, missing-value tokens and quoting Hazel's reader
+    uses (``engine.io.text``: a field may be quoted with ", a quote inside it doubled; an
+    apostrophe is an ordinary character), so a file means the same rows on both."""
     from engine.io.tables import ImportOptions
     from engine.io.text import SAMPLE_BYTES, _sniff, missing_token_variants, read_head
 
@@ -383,7 +385,7 @@ def _csv_relation(path: Path, sep: str | None, decimal: str | None) -> str:
     return (
         f"read_csv({literal(str(path))}, delim = {literal(sniffed.sep)}, header = true, "
         f"decimal_separator = {literal(sniffed.decimal)}, nullstr = [{tokens}], "
-        f"encoding = {literal(encoding)})"
+        f"encoding = {literal(encoding)}, quote = '\"', escape = '\"')"
     )
 
 

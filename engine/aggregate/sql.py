@@ -36,6 +36,12 @@ def number(value: float) -> str:
     return f"({text})"
 
 
+def counted(value) -> int:
+    """A SQL count or sum of counts as an int: 0 where it is NULL (a SUM over no rows), which
+    pandas hands over as None or NaN."""
+    return 0 if value is None or value != value else int(value)
+
+
 @dataclass(frozen=True)
 class Dialect:
     name: str  # duckdb, postgres or spark
@@ -48,12 +54,23 @@ class Dialect:
         return f"CAST({expr} AS {'STRING' if self.name == 'spark' else 'VARCHAR'})"
 
     def to_number(self, expr: str) -> str:
-        """Text to double, NULL when it is not a number (after trimming, decimal comma ok)."""
-        cleaned = f"REPLACE(TRIM({self.text(expr)}), ',', '.')"
-        if self.name in ("duckdb", "spark"):
-            return f"TRY_CAST({cleaned} AS DOUBLE)"
-        pattern = r"'^[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?$'"
-        return f"(CASE WHEN {cleaned} ~ {pattern} THEN CAST({cleaned} AS DOUBLE PRECISION) END)"
+        """Text to double, NULL when it is not a number: ``column_kinds.NUMBER_TEXT``, the rule
+        the in-memory checks apply; beyond the double range it is infinite."""
+        from engine.prepare.column_kinds import NUMBER_TEXT
+
+        cleaned = f"LOWER(REPLACE(TRIM({self.text(expr)}), ',', '.'))"
+        if self.name in ("duckdb", "spark"):  # TRY_CAST reads 1e400 as infinity
+            value = f"TRY_CAST({cleaned} AS DOUBLE)"
+        else:  # PostgreSQL fails on a double out of range: through numeric, which is not
+            sign = f"(CASE WHEN {cleaned} LIKE '-%' THEN '-inf' ELSE 'inf' END)"
+            infinite = f"CAST({sign} AS {self.double})"
+            exact = f"CAST({cleaned} AS NUMERIC)"
+            value = (
+                f"(CASE WHEN {cleaned} LIKE '%inf%' OR ABS({exact}) > 1.7976931348623157e308 "
+                f"THEN {infinite} WHEN ABS({exact}) < 2.2250738585072014e-308 THEN 0.0 "
+                f"ELSE CAST({exact} AS {self.double}) END)"
+            )
+        return f"(CASE WHEN {self.matches(cleaned, NUMBER_TEXT)} THEN {value} END)"
 
     def is_nan(self, expr: str) -> str:
         if self.name in ("duckdb", "spark"):

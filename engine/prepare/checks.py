@@ -152,7 +152,8 @@ def prepare(
     out: dict[str, object] = {}
     if roles.entry:
         entry = _numbers(frame[roles.entry], roles.entry, "entry time")
-        entry = convert_time(entry, roles.duration_unit, roles.unit)
+        with np.errstate(over="ignore"):
+            entry = convert_time(entry, roles.duration_unit, roles.unit)
         exclude(np.isnan(entry), MISSING_ENTRY)
         exclude(np.isinf(entry), TIME_NOT_FINITE)
         with np.errstate(invalid="ignore"):
@@ -304,10 +305,13 @@ def _time_in_unit(frame, roles: Roles, exclude, notes: list[str]) -> np.ndarray:
         missing = raw.isna().to_numpy()
         exclude(missing, MISSING_TIME)
         exclude(np.isnan(values) & ~missing, NON_NUMERIC_TIME)
-        exclude(np.isinf(values), TIME_NOT_FINITE)
+        with np.errstate(over="ignore"):
+            converted = convert_time(values, roles.duration_unit, roles.unit)
+        # infinite in the unit of the analysis (1e308 years is beyond the double range in days)
+        exclude(np.isinf(converted), TIME_NOT_FINITE)
         with np.errstate(invalid="ignore"):
             exclude(values < 0, NEGATIVE_TIME)
-        return convert_time(values, roles.duration_unit, roles.unit)
+        return converted
     start = _dates(frame[roles.start], roles)
     end = _dates(frame[roles.end], roles)
     missing = (frame[roles.start].isna() | frame[roles.end].isna()).to_numpy()
@@ -537,12 +541,26 @@ def _covariate(series: pd.Series, column: str, kind: str, roles: Roles, notes: l
 
 
 def _not_numbers_note(series: pd.Series, column: str, bad: np.ndarray) -> str:
-    """Which cells of a numeric covariate are not (finite) numbers, by value and data row."""
-    where = np.flatnonzero(bad)
-    shown = [f"{shown_value(series.iloc[i])} in data row {i + 1}" for i in where[:5]]
-    rest = f" and {len(where) - 5} more" if len(where) > 5 else ""
+    """``not_numbers_note`` of the cells of ``series`` where ``bad`` holds."""
+    found = series[bad].value_counts(dropna=True, sort=False)
+    return not_numbers_note(column, list(zip(found.index, found.to_numpy(), strict=True)))
+
+
+def not_numbers_note(column: str, found: Sequence[tuple[object, int]]) -> str:
+    """Which cells of a numeric covariate are not (finite) numbers: ``found`` holds each such
+    value with its number of cells; the first five in natural order are named. Computed from
+    counts of values, so the rows in memory and a database's say the same."""
+    merged: dict = {}
+    values = numbers_in_text(pd.Series([str(v) for v, _ in found], dtype=object))
+    for (value, n), read in zip(found, values, strict=True):
+        shown = float(read) if np.isinf(read) else value  # '1e400' in text, inf in a number column
+        merged[shown] = merged.get(shown, 0) + int(n)
+    found = sorted(merged.items(), key=lambda vn: natural_sort_key(vn[0]))
+    cells = sum(int(n) for _, n in found)
+    shown = [f"{shown_value(v)} in {int(n)} cell(s)" for v, n in found[:5]]
+    rest = f" and {len(found) - 5} more value(s)" if len(found) > 5 else ""
     return (
-        f"Covariate {column!r} is numeric, but {len(where)} cell(s) are not finite numbers "
+        f"Covariate {column!r} is numeric, but {cells} cell(s) are not finite numbers "
         f"({', '.join(shown)}{rest}); they are treated as missing. Correct them, or mark the "
         "column categorical if it is a category."
     )
