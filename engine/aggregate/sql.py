@@ -72,6 +72,14 @@ class Dialect:
             )
         return f"(CASE WHEN {self.matches(cleaned, NUMBER_TEXT)} THEN {value} END)"
 
+    def seconds(self, expr: str) -> str:
+        """An interval (a duration column) as seconds."""
+        if self.name == "duckdb":
+            return f"epoch({expr})"
+        if self.name == "spark":
+            return f"CAST({expr} AS DOUBLE)"  # a day-time interval as seconds
+        return f"EXTRACT(EPOCH FROM {expr})"
+
     def is_nan(self, expr: str) -> str:
         if self.name in ("duckdb", "spark"):
             return f"isnan({expr})"

@@ -47,6 +47,7 @@ from engine.prepare.roles import (
     Roles,
     classify_covariates,
     natural_sort_key,
+    seconds_in_unit,
     value_key,
 )
 
@@ -147,10 +148,14 @@ class _Columns:
     def raw(self, column: str) -> str:
         return quoted(column)
 
-    def numeric(self, column: str, role: str) -> tuple[str, str, bool]:
-        """(number expression, missing condition, is_text) as ``checks._numbers`` reads it."""
+    def numeric(self, column: str, role: str, unit: str | None = None) -> tuple[str, str, bool]:
+        """(number expression, missing condition, is_text) as ``checks._numbers`` reads it (a
+        duration column of a time role: its span in ``unit``)."""
         series = self.sample[column]
         col = quoted(column)
+        if unit is not None and pd.api.types.is_timedelta64_dtype(series):
+            second = number(seconds_in_unit(1.0, unit))  # one second in the unit
+            return f"({self.d.seconds(col)} * {second})", f"({col} IS NULL)", False
         if pd.api.types.is_bool_dtype(series):
             raise RoleError(
                 f"The {role} column {column!r} holds true/false values, not numbers.",
@@ -207,7 +212,7 @@ def aggregate_checks(
 
     # time
     if roles.time:
-        value, missing, is_text = cols.numeric(roles.time, "time")
+        value, missing, is_text = cols.numeric(roles.time, "time", roles.duration_unit)
         conditions.append((missing, MISSING_TIME))
         if is_text:
             conditions.append((f"{value} IS NULL", NON_NUMERIC_TIME))
@@ -283,7 +288,7 @@ def aggregate_checks(
     # entry
     entry = None
     if roles.entry:
-        value, _missing, _ = cols.numeric(roles.entry, "entry time")
+        value, _missing, _ = cols.numeric(roles.entry, "entry time", roles.duration_unit)
         entry = _scaled(value, _factor(roles.duration_unit, roles.unit), d)
         conditions.append((f"{entry} IS NULL", MISSING_ENTRY))
         conditions.append((_infinite(entry, d), TIME_NOT_FINITE))

@@ -30,6 +30,7 @@ from engine.prepare.roles import (
     classify_covariates,
     convert_time,
     describe_event_counts,
+    seconds_in_unit,
     value_key,
 )
 
@@ -151,7 +152,7 @@ def prepare(
     exclude(event == -2, UNKNOWN_EVENT)
     out: dict[str, object] = {}
     if roles.entry:
-        entry = _numbers(frame[roles.entry], roles.entry, "entry time")
+        entry = _numbers(frame[roles.entry], roles.entry, "entry time", roles.duration_unit)
         with np.errstate(over="ignore"):
             entry = convert_time(entry, roles.duration_unit, roles.unit)
         exclude(np.isnan(entry), MISSING_ENTRY)
@@ -301,7 +302,7 @@ def _validate_roles(frame: pd.DataFrame, roles: Roles) -> None:
 def _time_in_unit(frame, roles: Roles, exclude, notes: list[str]) -> np.ndarray:
     if roles.time:
         raw = frame[roles.time]
-        values = _numbers(raw, roles.time, "time")
+        values = _numbers(raw, roles.time, "time", roles.duration_unit)
         missing = raw.isna().to_numpy()
         exclude(missing, MISSING_TIME)
         exclude(np.isnan(values) & ~missing, NON_NUMERIC_TIME)
@@ -335,8 +336,12 @@ def _time_in_unit(frame, roles: Roles, exclude, notes: list[str]) -> np.ndarray:
     return convert_time(days, "days", roles.unit)
 
 
-def _numbers(series: pd.Series, column: str, role: str) -> np.ndarray:
-    """Float values; text that is not a number becomes NaN (counted by the caller)."""
+def _numbers(series: pd.Series, column: str, role: str, unit: str | None = None) -> np.ndarray:
+    """Float values; text that is not a number becomes NaN (counted by the caller). A duration
+    (timedelta) column of a time role is its span in ``unit``, the unit of its values."""
+    if unit is not None and pd.api.types.is_timedelta64_dtype(series):
+        seconds = series.dt.total_seconds().to_numpy(dtype=float, na_value=np.nan)
+        return seconds_in_unit(seconds, unit)
     if pd.api.types.is_bool_dtype(series):
         raise RoleError(
             f"The {role} column {column!r} holds true/false values, not numbers.", column=column

@@ -116,12 +116,16 @@ def date_like(series: pd.Series, cells: list | None = None) -> bool:
 
 
 def natural_sort_key(value) -> tuple:
-    """Sort 'dose 2' before 'dose 10' and numbers by value."""
+    """Sort 'dose 2' before 'dose 10' and numbers by value. Texts equal but for case or leading
+    zeros ('a' and 'A', '1' and '01') are then ordered by their characters, so the order is
+    total: it never depends on the order the values were met in (a file's rows in memory, a
+    database's GROUP BY), and every backend lists the levels alike."""
     if isinstance(value, int | float | np.integer | np.floating) and not isinstance(value, bool):
-        return (0, float(value), ())
-    parts = re.split(r"([0-9]+)", str(value).casefold())  # ASCII digits: int() reads them all
+        return (0, float(value), (), "")
+    text = str(value)
+    parts = re.split(r"([0-9]+)", text.casefold())  # ASCII digits: int() reads them all
     keys = ((0, int(p), "") if p.isascii() and p.isdigit() else (1, 0, p) for p in parts if p)
-    return (1, 0.0, tuple(keys))
+    return (1, 0.0, tuple(keys), text)
 
 
 def default_reference(series: pd.Series):
