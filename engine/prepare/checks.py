@@ -469,7 +469,9 @@ def _event_codes(frame, roles: Roles, notes: list[str]):
 def event_coding(roles: Roles, counts: pd.Series, notes: list[str], *, column: str):
     """The event coding from the event column's value counts, refusing a coding Hazel cannot
     read; adds the notes on values treated as censored. Shared by the rows in memory and the
-    databases (which send only these counts)."""
+    databases (which send only these counts). Values are taken most frequent first, ties in
+    natural order (missing last), not in the order a file or a GROUP BY met them."""
+    counts = counts.iloc[sorted(range(len(counts)), key=lambda i: _count_order(counts, i))]
     chosen = tuple(roles.event_values)
     if not chosen and roles.event_causes:
         chosen = tuple(v for v, name in roles.event_causes if name == roles.event_causes[0][1])
@@ -500,6 +502,12 @@ def event_coding(roles: Roles, counts: pd.Series, notes: list[str], *, column: s
     if coding.assumption:
         notes.append(coding.assumption)
     return coding
+
+
+def _count_order(counts: pd.Series, i: int) -> tuple:
+    value = counts.index[i]
+    missing = bool(pd.isna(value))
+    return (-counts.iloc[i], missing, () if missing else natural_sort_key(value))
 
 
 def _causes_merged_note(roles: Roles, coding: EventCoding) -> list[str]:
