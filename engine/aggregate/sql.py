@@ -29,9 +29,14 @@ def literal(text: str) -> str:
 
 def number(value: float) -> str:
     """A float literal that reads back as exactly the same double (an exponent makes it a
-    double, not a decimal, in DuckDB, PostgreSQL and Spark alike)."""
-    text = repr(float(value))
-    if "e" not in text and "n" not in text:
+    double, not a decimal, in DuckDB, PostgreSQL and Spark alike); NaN and infinities too
+    (written bare, ``nan`` would be read as a column's name)."""
+    value = float(value)
+    if value != value or value in (float("inf"), float("-inf")):  # not "nan", a column's name
+        shown = "NaN" if value != value else ("Infinity" if value > 0 else "-Infinity")
+        return f"CAST('{shown}' AS FLOAT)"  # FLOAT: a double in PostgreSQL; exact in all three
+    text = repr(value)
+    if "e" not in text:
         text += "e0"
     return f"({text})"
 

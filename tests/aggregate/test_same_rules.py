@@ -173,3 +173,21 @@ def test_the_rules_read_as_they_should(tmp_path):
     database = aggregate_json(open_duckdb(tmp_path / name), roles, SETTINGS)
     groups = [c["group"] for c in database["curves"] if c["group"] is not None]
     assert groups[-7:] == ["01", "1", "A", "a", "B", "b", "x"]
+
+
+def test_non_finite_numbers_are_literals_not_column_names(tmp_path):
+    """A NaN coefficient written into the SQL text read as a column named nan."""
+    from engine.aggregate.sql import number
+
+    frame = _base()
+    frame.to_parquet(tmp_path / "f.parquet")
+    source = open_duckdb(tmp_path / "f.parquet")
+    try:
+        values = [float("nan"), float("inf"), -float("inf"), 0.1]
+        listed = ", ".join(f"{number(v)} * x AS v{i}" for i, v in enumerate(values))
+        row = source.query(f"SELECT {listed} FROM {source.relation} WHERE x > 0 LIMIT 1")
+        got = row.iloc[0].to_numpy(dtype=float)
+        x = float(source.query(f"SELECT x FROM {source.relation} WHERE x > 0 LIMIT 1")["x"][0])
+        assert np.isnan(got[0]) and got[1] == np.inf and got[2] == -np.inf and got[3] == 0.1 * x
+    finally:
+        source.close()
