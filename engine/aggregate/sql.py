@@ -71,8 +71,9 @@ class Dialect:
             infinite = f"CAST({sign} AS {self.double})"
             exact = f"CAST({cleaned} AS NUMERIC)"
             value = (
-                f"(CASE WHEN {cleaned} LIKE '%inf%' OR ABS({exact}) > 1.7976931348623157e308 "
-                f"THEN {infinite} WHEN ABS({exact}) < 2.2250738585072014e-308 THEN 0.0 "
+                f"(CASE WHEN {cleaned} LIKE '%inf%' THEN {infinite} "  # before any cast
+                f"WHEN ABS({exact}) > 1.7976931348623157e308 THEN {infinite} "
+                f"WHEN ABS({exact}) < 2.2250738585072014e-308 THEN 0.0 "
                 f"ELSE CAST({exact} AS {self.double}) END)"
             )
         return f"(CASE WHEN {self.matches(cleaned, NUMBER_TEXT)} THEN {value} END)"
