@@ -318,6 +318,7 @@ def open_duckdb(path: str | Path, *, sep: str | None = None, decimal: str | None
         relation = f"read_parquet({pattern}, hive_partitioning = true, union_by_name = true)"
     elif path.suffix.lower() in PARQUET_SUFFIXES:
         relation = f"read_parquet({literal(str(path))})"
+        files = [path]
     elif path.suffix.lower() in TEXT_SUFFIXES:
         relation = _csv_relation(path, sep, decimal)
     else:
@@ -325,6 +326,8 @@ def open_duckdb(path: str | Path, *, sep: str | None = None, decimal: str | None
             f"The DuckDB backend reads Parquet files, folders of them and text files; "
             f"{path.name!r} is neither. Use --backend memory for spreadsheets."
         )
+    if path.is_dir() or path.suffix.lower() in PARQUET_SUFFIXES:
+        relation = _durations_as_intervals(relation, files[0])
     import tempfile
 
     config = {
@@ -335,6 +338,24 @@ def open_duckdb(path: str | Path, *, sep: str | None = None, decimal: str | None
     return SqlSource(
         "duckdb", duckdb.__version__, DUCKDB, relation, path.name, connection, path=path
     )
+
+
+def _durations_as_intervals(relation: str, file: Path) -> str:
+    """``relation`` with the Parquet file's ``duration`` columns as intervals (DuckDB reads
+    them as bare integers of their unit), so they are read as time spans, as in memory."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    per_unit = {"s": "* 1000000", "ms": "* 1000", "us": "", "ns": "// 1000"}
+    spans = [
+        f"to_microseconds(CAST({quoted(f.name)} AS BIGINT) {per_unit[f.type.unit]}) AS "
+        f"{quoted(f.name)}"
+        for f in pq.read_schema(file)
+        if pa.types.is_duration(f.type)
+    ]
+    if not spans:
+        return relation
+    return f"(SELECT * REPLACE ({', '.join(spans)}) FROM {relation}) AS hazel_spans"
 
 
 def content_sha256(path: Path) -> str:
@@ -370,7 +391,9 @@ def source_fingerprint(source: SqlSource, rows_read: int):
 
 
 def _csv_relation(path: Path, sep: str | None, decimal: str | None) -> str:
-    """read_csv with the separator, decimal mark and missing-value tokens Hazel's reader uses."""
+    """read_csv with the separator, decimal mark, missing-value tokens and quoting Hazel's reader
+    uses (``engine.io.text``: a field may be quoted with ", a quote inside it doubled; an
+    apostrophe is an ordinary character), so a file means the same rows on both."""
     from engine.io.tables import ImportOptions
     from engine.io.text import SAMPLE_BYTES, _sniff, missing_token_variants, read_head
 
@@ -383,7 +406,7 @@ def _csv_relation(path: Path, sep: str | None, decimal: str | None) -> str:
     return (
         f"read_csv({literal(str(path))}, delim = {literal(sniffed.sep)}, header = true, "
         f"decimal_separator = {literal(sniffed.decimal)}, nullstr = [{tokens}], "
-        f"encoding = {literal(encoding)})"
+        f"encoding = {literal(encoding)}, quote = '\"', escape = '\"')"
     )
 
 

@@ -29,11 +29,22 @@ def literal(text: str) -> str:
 
 def number(value: float) -> str:
     """A float literal that reads back as exactly the same double (an exponent makes it a
-    double, not a decimal, in DuckDB, PostgreSQL and Spark alike)."""
-    text = repr(float(value))
-    if "e" not in text and "n" not in text:
+    double, not a decimal, in DuckDB, PostgreSQL and Spark alike); NaN and infinities too
+    (written bare, ``nan`` would be read as a column's name)."""
+    value = float(value)
+    if value != value or value in (float("inf"), float("-inf")):  # not "nan", a column's name
+        shown = "NaN" if value != value else ("Infinity" if value > 0 else "-Infinity")
+        return f"CAST('{shown}' AS FLOAT)"  # FLOAT: a double in PostgreSQL; exact in all three
+    text = repr(value)
+    if "e" not in text:
         text += "e0"
     return f"({text})"
+
+
+def counted(value) -> int:
+    """A SQL count or sum of counts as an int: 0 where it is NULL (a SUM over no rows), which
+    pandas hands over as None or NaN."""
+    return 0 if value is None or value != value else int(value)
 
 
 @dataclass(frozen=True)
@@ -48,12 +59,32 @@ class Dialect:
         return f"CAST({expr} AS {'STRING' if self.name == 'spark' else 'VARCHAR'})"
 
     def to_number(self, expr: str) -> str:
-        """Text to double, NULL when it is not a number (after trimming, decimal comma ok)."""
-        cleaned = f"REPLACE(TRIM({self.text(expr)}), ',', '.')"
-        if self.name in ("duckdb", "spark"):
-            return f"TRY_CAST({cleaned} AS DOUBLE)"
-        pattern = r"'^[+-]?([0-9]+\.?[0-9]*|\.[0-9]+)([eE][+-]?[0-9]+)?$'"
-        return f"(CASE WHEN {cleaned} ~ {pattern} THEN CAST({cleaned} AS DOUBLE PRECISION) END)"
+        """Text to double, NULL when it is not a number: ``column_kinds.NUMBER_TEXT``, the rule
+        the in-memory checks apply; beyond the double range it is infinite."""
+        from engine.prepare.column_kinds import NUMBER_TEXT
+
+        cleaned = f"LOWER(REPLACE(TRIM({self.text(expr)}), ',', '.'))"
+        if self.name in ("duckdb", "spark"):  # TRY_CAST reads 1e400 as infinity
+            value = f"TRY_CAST({cleaned} AS DOUBLE)"
+        else:  # PostgreSQL fails on a double out of range: through numeric, which is not
+            sign = f"(CASE WHEN {cleaned} LIKE '-%' THEN '-inf' ELSE 'inf' END)"
+            infinite = f"CAST({sign} AS {self.double})"
+            exact = f"CAST({cleaned} AS NUMERIC)"
+            value = (
+                f"(CASE WHEN {cleaned} LIKE '%inf%' THEN {infinite} "  # before any cast
+                f"WHEN ABS({exact}) > 1.7976931348623157e308 THEN {infinite} "
+                f"WHEN ABS({exact}) < 2.2250738585072014e-308 THEN 0.0 "
+                f"ELSE CAST({exact} AS {self.double}) END)"
+            )
+        return f"(CASE WHEN {self.matches(cleaned, NUMBER_TEXT)} THEN {value} END)"
+
+    def seconds(self, expr: str) -> str:
+        """An interval (a duration column) as seconds."""
+        if self.name == "duckdb":
+            return f"epoch({expr})"
+        if self.name == "spark":
+            return f"CAST({expr} AS DOUBLE)"  # a day-time interval as seconds
+        return f"EXTRACT(EPOCH FROM {expr})"
 
     def is_nan(self, expr: str) -> str:
         if self.name in ("duckdb", "spark"):

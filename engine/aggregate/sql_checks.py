@@ -20,7 +20,7 @@ import pandas as pd
 
 from engine.aggregate.counts import CountTable, count_table
 from engine.aggregate.sources import SqlSource
-from engine.aggregate.sql import literal, number, quoted
+from engine.aggregate.sql import counted, literal, number, quoted
 from engine.aggregate.sql_dates import dates_in_sql
 from engine.aggregate.sql_filters import filter_outcome, keep_conditions, kept_rows
 from engine.errors import RoleError, preview_values
@@ -38,6 +38,7 @@ from engine.prepare.checks import (
     DataReport,
     _validate_roles,
     event_coding,
+    not_numbers_note,
 )
 from engine.prepare.data_warnings import labels_warning, warnings_from_summary
 from engine.prepare.filters import FilterOutcome
@@ -46,6 +47,7 @@ from engine.prepare.roles import (
     Roles,
     classify_covariates,
     natural_sort_key,
+    seconds_in_unit,
     value_key,
 )
 
@@ -122,8 +124,19 @@ def _factor(from_unit: str, to_unit: str) -> float | None:
     return None if from_unit == to_unit else TIME_UNITS[from_unit] / TIME_UNITS[to_unit]
 
 
-def _scaled(expr: str, factor: float | None) -> str:
-    return expr if factor is None else f"({expr} * {number(factor)})"
+def _scaled(expr: str, factor: float | None, d) -> str:
+    """``expr`` times ``factor``, infinite where the product is beyond the double range (as in
+    numpy; PostgreSQL would fail on the overflow)."""
+    if factor is None:
+        return expr
+    largest = np.finfo(float).max / factor
+    if largest >= np.finfo(float).max:
+        return f"({expr} * {number(factor)})"
+    infinity = f"CAST('inf' AS {d.double})"
+    return (
+        f"(CASE WHEN ABS({expr}) > {number(largest)} THEN SIGN({expr}) * {infinity} "
+        f"ELSE {expr} * {number(factor)} END)"
+    )
 
 
 class _Columns:
@@ -135,10 +148,14 @@ class _Columns:
     def raw(self, column: str) -> str:
         return quoted(column)
 
-    def numeric(self, column: str, role: str) -> tuple[str, str, bool]:
-        """(number expression, missing condition, is_text) as ``checks._numbers`` reads it."""
+    def numeric(self, column: str, role: str, unit: str | None = None) -> tuple[str, str, bool]:
+        """(number expression, missing condition, is_text) as ``checks._numbers`` reads it (a
+        duration column of a time role: its span in ``unit``)."""
         series = self.sample[column]
         col = quoted(column)
+        if unit is not None and pd.api.types.is_timedelta64_dtype(series):
+            second = number(seconds_in_unit(1.0, unit))  # one second in the unit
+            return f"({self.d.seconds(col)} * {second})", f"({col} IS NULL)", False
         if pd.api.types.is_bool_dtype(series):
             raise RoleError(
                 f"The {role} column {column!r} holds true/false values, not numbers.",
@@ -195,15 +212,16 @@ def aggregate_checks(
 
     # time
     if roles.time:
-        value, missing, is_text = cols.numeric(roles.time, "time")
+        value, missing, is_text = cols.numeric(roles.time, "time", roles.duration_unit)
         conditions.append((missing, MISSING_TIME))
         if is_text:
             conditions.append((f"{value} IS NULL", NON_NUMERIC_TIME))
             totals["time_numbers"] = source.count(value)
             totals["time_present"] = source.count(quoted(roles.time))
-        conditions.append((_infinite(value, d), TIME_NOT_FINITE))
+        time = _scaled(value, _factor(roles.duration_unit, roles.unit), d)
+        # infinite in the unit of the analysis (1e308 years is beyond the double range in days)
+        conditions.append((_infinite(time, d), TIME_NOT_FINITE))
         conditions.append((f"{value} < 0", NEGATIVE_TIME))
-        time = _scaled(value, _factor(roles.duration_unit, roles.unit))
     relation = source.relation
     if not roles.time:
         dates = dates_in_sql(source, sample, roles, notes, rows=rows)
@@ -270,8 +288,8 @@ def aggregate_checks(
     # entry
     entry = None
     if roles.entry:
-        value, _missing, _ = cols.numeric(roles.entry, "entry time")
-        entry = _scaled(value, _factor(roles.duration_unit, roles.unit))
+        value, _missing, _ = cols.numeric(roles.entry, "entry time", roles.duration_unit)
+        entry = _scaled(value, _factor(roles.duration_unit, roles.unit), d)
         conditions.append((f"{entry} IS NULL", MISSING_ENTRY))
         conditions.append((_infinite(entry, d), TIME_NOT_FINITE))
         conditions.append((f"{entry} >= {time}", ENTRY_AFTER_EXIT))
@@ -281,6 +299,7 @@ def aggregate_checks(
     levels: dict[str, Levels] = {}
     coded = {}  # column -> SQL text key, for group, strata and categorical covariates
     covariate_sql = {}
+    bad_cells: list[tuple[str, str]] = []  # numeric covariates: (column, SQL of a bad cell)
     for role, column in (("_group", roles.group), ("_strata", roles.strata)):
         if column:
             coded[role] = column
@@ -298,6 +317,11 @@ def aggregate_checks(
         )
         if numeric:
             value, missing, is_text = cols.numeric(column, "covariate")
+            # a cell that is no finite number is missing, named in a note (``_covariate``)
+            no_number = f"({value} IS NULL OR {_infinite(value, d)})"
+            bad = f"({quoted(column)} IS NOT NULL AND NOT {missing} AND {no_number})"
+            bad_cells.append((column, bad))
+            value = f"(CASE WHEN {_infinite(value, d)} THEN NULL ELSE {value} END)"
             covariate_sql[column] = value
             totals[f"missing::{column}"] = source.rows_where(f"{value} IS NULL")
             if is_text:
@@ -341,8 +365,16 @@ def aggregate_checks(
     counts, excluded, rows_read = _counts(
         source, clean, levels, entry is not None, roles if cause is not None else None
     )
+    for column, bad in bad_cells:
+        found = source.query(
+            f"SELECT {quoted(column)} AS v, {source.rows()} AS n FROM {source.relation} "
+            f"WHERE {bad} GROUP BY 1"
+        )
+        if len(found):
+            pairs = zip(map(_plain, found["v"]), found["n"], strict=True)
+            notes.append(not_numbers_note(column, list(pairs)))
     for column in roles.covariates:
-        missing = int(stats.get(f"missing::{column}", 0) or 0)
+        missing = counted(stats.get(f"missing::{column}", 0))
         if not require_covariates and missing:
             notes.append(
                 f"Covariate {column!r} is missing in {missing} row(s); a model leaves "
@@ -415,7 +447,7 @@ def _full_kind(source: SqlSource, column: str, roles: Roles) -> str:
         f"WHERE {col} IS NOT NULL LIMIT {FEW_DISTINCT + 1}) AS distinct_values"
     )
     row = source.query(sql).iloc[0]
-    few = int(row["n"]) <= FEW_DISTINCT and int(row["whole"] or 0) == int(row["n"])
+    few = counted(row["n"]) <= FEW_DISTINCT and counted(row["whole"]) == counted(row["n"])
     kind = "possibly categorical" if few else "numeric"
     return "categorical" if column in roles.categorical else kind
 
@@ -660,7 +692,7 @@ def _episode_notes(source: SqlSource, clean: str, roles: Roles, has_entry: bool,
         f"SELECT COUNT(*) AS subjects, SUM(n) AS episodes, "
         f"SUM(CASE WHEN n > 1 THEN 1 ELSE 0 END) AS several, MAX(e) AS most FROM ({per_id}) p"
     ).iloc[0]
-    several = int(row["several"] or 0)
+    several = counted(row["several"])
     if not several:
         return []
     text = not (
@@ -689,7 +721,7 @@ def _episode_notes(source: SqlSource, clean: str, roles: Roles, has_entry: bool,
         subjects=int(row["subjects"]),
         episodes=int(row["episodes"]),
         subjects_with_several=several,
-        most_events=int(row["most"] or 0),
+        most_events=counted(row["most"]),
         overlapping=overlapping,
         overlapping_ids=overlapping_ids,
         repeated_ids=tuple(_plain(v) for v in repeated),

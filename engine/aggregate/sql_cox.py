@@ -16,7 +16,7 @@ import pandas as pd
 
 from engine.aggregate.concordance_counts import BinnedConcordance, concordance_from_counts
 from engine.aggregate.cox_sums import CoxSums
-from engine.aggregate.sql import literal, number
+from engine.aggregate.sql import counted, literal, number
 from engine.aggregate.sql_checks import AggregatedData
 from engine.cox.design import (
     Design,
@@ -66,8 +66,8 @@ def sql_design(
         f"SELECT {missing}, SUM(CASE WHEN {complete} THEN _n ELSE 0 END) AS n "
         f"FROM ({cells}) AS cells"
     ).iloc[0]
-    dropped = {n: int(row[f"m{i}"]) for i, n in enumerate(names) if int(row[f"m{i}"] or 0)}
-    n_used = int(row["n"] or 0)
+    dropped = {n: counted(row[f"m{i}"]) for i, n in enumerate(names) if counted(row[f"m{i}"])}
+    n_used = counted(row["n"])
     if n_used == 0:
         raise no_complete_rows(dropped)
     model_rows = f"SELECT * FROM ({cells}) AS cells WHERE {complete}"
@@ -337,7 +337,7 @@ class SqlCoxSource:
             key = f"LEAST(CAST(FLOOR((eta - {number(lo)}) * {width}) AS BIGINT), {bins - 1})"
         stratum = "_s" if self.strata_code else "NULL"  # no text column of NULLs to fetch
 
-        def counted(columns: str, keys: str) -> dict:
+        def counts_of(columns: str, keys: str) -> dict:
             """Rows per (stratum, bin, ...). The kept cells need no merging for exact bins: the
             counting below adds up cells that share a bin and a time, pair by pair the same."""
             if exact and self.kept:
@@ -347,11 +347,11 @@ class SqlCoxSource:
                 f"GROUP BY {keys}"
             )
 
-        exits = counted(f"{stratum} AS s, {key} AS b, _time AS t, _event AS e", "1, 2, 3, 4")
+        exits = counts_of(f"{stratum} AS s, {key} AS b, _time AS t, _event AS e", "1, 2, 3, 4")
         self.passes += 1
         entries = None
         if self.has_entry:
-            entries = counted(f"{stratum} AS s, {key} AS b, _entry AS t", "1, 2, 3")
+            entries = counts_of(f"{stratum} AS s, {key} AS b, _entry AS t", "1, 2, 3")
             self.passes += 1
         if exact:
             scores, exit_bins = sorted_codes(np.asarray(exits["b"], float))

@@ -21,7 +21,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from engine.aggregate.sql import literal, number, quoted
+from engine.aggregate.sql import counted, literal, number, quoted
 from engine.errors import RoleError, SettingError, preview_values
 from engine.prepare.checks import (
     END_BEFORE_START,
@@ -204,14 +204,14 @@ def dates_in_sql(
         (f"({start.col} IS NULL OR {end.col} IS NULL)", MISSING_TIME),
         (f"({s} IS NULL OR {e} IS NULL)", UNPARSEABLE_DATE),
     ]
-    odd_rows = int(row["odd_rows"] or 0)
+    odd_rows = counted(row["odd_rows"])
     if odd_rows:
         excluding = roles.implausible_dates == "exclude"
         if excluding:
             conditions.append((either, IMPLAUSIBLE_DATE))
         counts, examples = {}, []
         for name, (date, seconds) in columns.items():
-            count = int(row[f"odd_{name}"] or 0)
+            count = counted(row[f"odd_{name}"])
             if count and date.column not in counts:
                 counts[date.column] = count
                 first = source.query(

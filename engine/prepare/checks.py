@@ -30,6 +30,7 @@ from engine.prepare.roles import (
     classify_covariates,
     convert_time,
     describe_event_counts,
+    seconds_in_unit,
     value_key,
 )
 
@@ -151,8 +152,9 @@ def prepare(
     exclude(event == -2, UNKNOWN_EVENT)
     out: dict[str, object] = {}
     if roles.entry:
-        entry = _numbers(frame[roles.entry], roles.entry, "entry time")
-        entry = convert_time(entry, roles.duration_unit, roles.unit)
+        entry = _numbers(frame[roles.entry], roles.entry, "entry time", roles.duration_unit)
+        with np.errstate(over="ignore"):
+            entry = convert_time(entry, roles.duration_unit, roles.unit)
         exclude(np.isnan(entry), MISSING_ENTRY)
         exclude(np.isinf(entry), TIME_NOT_FINITE)
         with np.errstate(invalid="ignore"):
@@ -300,14 +302,17 @@ def _validate_roles(frame: pd.DataFrame, roles: Roles) -> None:
 def _time_in_unit(frame, roles: Roles, exclude, notes: list[str]) -> np.ndarray:
     if roles.time:
         raw = frame[roles.time]
-        values = _numbers(raw, roles.time, "time")
+        values = _numbers(raw, roles.time, "time", roles.duration_unit)
         missing = raw.isna().to_numpy()
         exclude(missing, MISSING_TIME)
         exclude(np.isnan(values) & ~missing, NON_NUMERIC_TIME)
-        exclude(np.isinf(values), TIME_NOT_FINITE)
+        with np.errstate(over="ignore"):
+            converted = convert_time(values, roles.duration_unit, roles.unit)
+        # infinite in the unit of the analysis (1e308 years is beyond the double range in days)
+        exclude(np.isinf(converted), TIME_NOT_FINITE)
         with np.errstate(invalid="ignore"):
             exclude(values < 0, NEGATIVE_TIME)
-        return convert_time(values, roles.duration_unit, roles.unit)
+        return converted
     start = _dates(frame[roles.start], roles)
     end = _dates(frame[roles.end], roles)
     missing = (frame[roles.start].isna() | frame[roles.end].isna()).to_numpy()
@@ -331,8 +336,12 @@ def _time_in_unit(frame, roles: Roles, exclude, notes: list[str]) -> np.ndarray:
     return convert_time(days, "days", roles.unit)
 
 
-def _numbers(series: pd.Series, column: str, role: str) -> np.ndarray:
-    """Float values; text that is not a number becomes NaN (counted by the caller)."""
+def _numbers(series: pd.Series, column: str, role: str, unit: str | None = None) -> np.ndarray:
+    """Float values; text that is not a number becomes NaN (counted by the caller). A duration
+    (timedelta) column of a time role is its span in ``unit``, the unit of its values."""
+    if unit is not None and pd.api.types.is_timedelta64_dtype(series):
+        seconds = series.dt.total_seconds().to_numpy(dtype=float, na_value=np.nan)
+        return seconds_in_unit(seconds, unit)
     if pd.api.types.is_bool_dtype(series):
         raise RoleError(
             f"The {role} column {column!r} holds true/false values, not numbers.", column=column
@@ -460,7 +469,9 @@ def _event_codes(frame, roles: Roles, notes: list[str]):
 def event_coding(roles: Roles, counts: pd.Series, notes: list[str], *, column: str):
     """The event coding from the event column's value counts, refusing a coding Hazel cannot
     read; adds the notes on values treated as censored. Shared by the rows in memory and the
-    databases (which send only these counts)."""
+    databases (which send only these counts). Values are taken most frequent first, ties in
+    natural order (missing last), not in the order a file or a GROUP BY met them."""
+    counts = counts.iloc[sorted(range(len(counts)), key=lambda i: _count_order(counts, i))]
     chosen = tuple(roles.event_values)
     if not chosen and roles.event_causes:
         chosen = tuple(v for v, name in roles.event_causes if name == roles.event_causes[0][1])
@@ -491,6 +502,12 @@ def event_coding(roles: Roles, counts: pd.Series, notes: list[str], *, column: s
     if coding.assumption:
         notes.append(coding.assumption)
     return coding
+
+
+def _count_order(counts: pd.Series, i: int) -> tuple:
+    value = counts.index[i]
+    missing = bool(pd.isna(value))
+    return (-counts.iloc[i], missing, () if missing else natural_sort_key(value))
 
 
 def _causes_merged_note(roles: Roles, coding: EventCoding) -> list[str]:
@@ -537,12 +554,26 @@ def _covariate(series: pd.Series, column: str, kind: str, roles: Roles, notes: l
 
 
 def _not_numbers_note(series: pd.Series, column: str, bad: np.ndarray) -> str:
-    """Which cells of a numeric covariate are not (finite) numbers, by value and data row."""
-    where = np.flatnonzero(bad)
-    shown = [f"{shown_value(series.iloc[i])} in data row {i + 1}" for i in where[:5]]
-    rest = f" and {len(where) - 5} more" if len(where) > 5 else ""
+    """``not_numbers_note`` of the cells of ``series`` where ``bad`` holds."""
+    found = series[bad].value_counts(dropna=True, sort=False)
+    return not_numbers_note(column, list(zip(found.index, found.to_numpy(), strict=True)))
+
+
+def not_numbers_note(column: str, found: Sequence[tuple[object, int]]) -> str:
+    """Which cells of a numeric covariate are not (finite) numbers: ``found`` holds each such
+    value with its number of cells; the first five in natural order are named. Computed from
+    counts of values, so the rows in memory and a database's say the same."""
+    merged: dict = {}
+    values = numbers_in_text(pd.Series([str(v) for v, _ in found], dtype=object))
+    for (value, n), read in zip(found, values, strict=True):
+        shown = float(read) if np.isinf(read) else value  # '1e400' in text, inf in a number column
+        merged[shown] = merged.get(shown, 0) + int(n)
+    found = sorted(merged.items(), key=lambda vn: natural_sort_key(vn[0]))
+    cells = sum(int(n) for _, n in found)
+    shown = [f"{shown_value(v)} in {int(n)} cell(s)" for v, n in found[:5]]
+    rest = f" and {len(found) - 5} more value(s)" if len(found) > 5 else ""
     return (
-        f"Covariate {column!r} is numeric, but {len(where)} cell(s) are not finite numbers "
+        f"Covariate {column!r} is numeric, but {cells} cell(s) are not finite numbers "
         f"({', '.join(shown)}{rest}); they are treated as missing. Correct them, or mark the "
         "column categorical if it is a category."
     )

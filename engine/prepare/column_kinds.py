@@ -23,6 +23,18 @@ GLANCE = 20  # the first cells decide when they clearly say no
 _ISO_DATE = r"[0-9]{4}-[0-9]{1,2}-[0-9]{1,2}"
 _OTHER_DATE = r"[0-9]{1,2}[/.\-][0-9]{1,2}[/.\-][0-9]{2,4}"
 _DATE_TEXT = re.compile(rf"^\s*({_ISO_DATE}|{_OTHER_DATE})([ T].*)?$")
+# What text is a number, after trimming, a decimal comma read as a point and lower case: decimal
+# digits with an optional exponent, or infinity. Not "nan", digit separators ("1_000"), hex or
+# words. The in-memory checks and the SQL of every backend (``sql.Dialect.to_number``) both read
+# it from here; a number beyond the double range is infinite (a time "not finite"), not text.
+NUMBER_TEXT = r"^[+-]?(([0-9]+\.?[0-9]*|\.[0-9]+)(e[+-]?[0-9]+)?|inf|infinity)$"
+_NUMBER_TEXT = re.compile(NUMBER_TEXT)
+
+
+def number_text(cell: str) -> str:
+    """A cell's text as ``NUMBER_TEXT`` is matched against: trimmed, decimal comma as point, lower
+    case."""
+    return str(cell).strip().replace(",", ".").lower()
 
 
 def is_text(series: pd.Series) -> bool:
@@ -43,8 +55,16 @@ def first_present(series: pd.Series, count: int = LOOK_AT) -> list:
 
 def numbers_in_text(series: pd.Series) -> np.ndarray:
     """Float per cell of a text column ('3,5' and ' 3.5 ' are 3.5); NaN where it is no number."""
-    text = series.astype("string").str.strip().str.replace(",", ".", regex=False)
-    return pd.to_numeric(text, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+    text = series.astype("string").str.strip().str.replace(",", ".", regex=False).str.lower()
+    number = text.str.fullmatch(NUMBER_TEXT).fillna(False).to_numpy(dtype=bool)
+    values = pd.to_numeric(text.where(number), errors="coerce").to_numpy(
+        dtype=float, na_value=np.nan
+    )
+    beyond = number & np.isnan(values)  # beyond the double range: pandas says NaN, float() inf
+    if beyond.any():
+        negative = text[beyond].str.startswith("-").to_numpy(dtype=bool)
+        values[beyond] = np.where(negative, -np.inf, np.inf)
+    return values
 
 
 def mostly_numbers(series: pd.Series, cells: list | None = None) -> bool:
@@ -96,12 +116,16 @@ def date_like(series: pd.Series, cells: list | None = None) -> bool:
 
 
 def natural_sort_key(value) -> tuple:
-    """Sort 'dose 2' before 'dose 10' and numbers by value."""
+    """Sort 'dose 2' before 'dose 10' and numbers by value. Texts equal but for case or leading
+    zeros ('a' and 'A', '1' and '01') are then ordered by their characters, so the order is
+    total: it never depends on the order the values were met in (a file's rows in memory, a
+    database's GROUP BY), and every backend lists the levels alike."""
     if isinstance(value, int | float | np.integer | np.floating) and not isinstance(value, bool):
-        return (0, float(value), ())
-    parts = re.split(r"([0-9]+)", str(value).casefold())  # ASCII digits: int() reads them all
+        return (0, float(value), (), "")
+    text = str(value)
+    parts = re.split(r"([0-9]+)", text.casefold())  # ASCII digits: int() reads them all
     keys = ((0, int(p), "") if p.isascii() and p.isdigit() else (1, 0, p) for p in parts if p)
-    return (1, 0.0, tuple(keys))
+    return (1, 0.0, tuple(keys), text)
 
 
 def default_reference(series: pd.Series):
@@ -174,11 +198,10 @@ def _number(cell) -> float | None:
     if isinstance(cell, int | float | np.integer | np.floating):
         value = float(cell)
     else:
-        text = str(cell).strip().replace(",", ".")
-        if not text or not (text[0].isdigit() or text[0] in "+-." or text[:3].lower() == "inf"):
-            return None  # most words fail here, without the cost of an exception
-        try:
-            value = float(text)
-        except ValueError:
+        text = number_text(cell)
+        if not text or not (text[0].isdigit() or text[0] in "+-." or text[:3] == "inf"):
+            return None  # most words fail here, without the cost of a regular expression
+        if not _NUMBER_TEXT.match(text):
             return None
+        value = float(text)
     return value if math.isfinite(value) else None

@@ -75,6 +75,12 @@ _UNIT_NAMES = {
 }
 
 
+def seconds_in_unit(seconds, unit: str):
+    """A time span stored as a duration (Parquet ``duration``, a pandas timedelta), given in
+    seconds, as a number of ``unit``: the reading of a duration column on every backend."""
+    return seconds / (TIME_UNITS[unit] * 86400.0)
+
+
 def convert_time(values, from_unit: str, to_unit: str):
     """Convert durations between days, weeks, months (30.4375 days) and years (365.25 days)."""
     for unit in (from_unit, to_unit):

@@ -4,7 +4,9 @@ filters, tests, tie methods and interval levels. A failing seed is a case to kee
 draws 24 cases; ``HAZEL_DIFFERENTIAL_SEEDS=3000`` draws more. 3,000 ran clean on 2026-12-02
 after the first 1,500 had shown three kinds of difference, now settled below: a fit with no finite
 estimate stopping at another point on each side, a drop-one statistic near zero carrying the
-rounding of two log-likelihoods, and a refusal (the same one on both sides)."""
+rounding of two log-likelihoods, and a refusal (the same one on both sides). The drawn data
+also hold the hostile value families of ``with_hostile_values`` (tests/aggregate/test_same_rules.py
+has one case of each)."""
 
 from __future__ import annotations
 
@@ -42,6 +44,9 @@ def drawn_case(seed: int):
         roles = replace(roles, id="pid")
     if rng.random() < 0.3:
         roles = replace(roles, covariates=("age",), categorical=())
+    if rng.random() < 0.2:
+        roles = replace(roles, source_unit="years", unit="days")
+    frame = with_hostile_values(frame, rng)
     picked = rng.random(len(FILTERS)) < 0.25
     filters = tuple(f for f, keep in zip(FILTERS, picked, strict=True) if keep)
     settings = {
@@ -53,6 +58,25 @@ def drawn_case(seed: int):
         "cox": {"ties": str(rng.choice(["efron", "breslow"]))},
     }
     return frame, roles, filters, settings
+
+
+def with_hostile_values(frame, rng):
+    """Each family of values that once read differently on the two sides, drawn in: covariate
+    cells of +-inf, times beyond the double range once in days, group levels equal but for case
+    or leading zeros, and event values of equal counts."""
+    frame = frame.copy()
+    n = len(frame)
+    if rng.random() < 0.3:
+        frame.loc[rng.choice(n, 3, replace=False), "age"] = [np.inf, -np.inf, np.inf]
+    if rng.random() < 0.2:
+        frame.loc[rng.choice(n, 2, replace=False), "days"] = 1e308  # when the unit is years
+    if rng.random() < 0.3:
+        at = rng.choice(n, n // 5, replace=False)
+        frame.loc[at, "site"] = rng.choice(["North", "north", "01", "1"], len(at))
+    if rng.random() < 0.3:
+        at = rng.choice(n, 8, replace=False)
+        frame.loc[at, "status"] = ["gone", "Gone"] * 4
+    return frame
 
 
 NOT_MEANINGFUL = ("run off to infinity", "did not converge")

@@ -130,7 +130,7 @@ def test_a_numeric_covariate_with_one_text_cell_stays_numeric_and_names_the_cell
     assert [t["variable"] for t in out["cox"]["terms"]] == ["age"]  # one term, not 299
     assert out["cox"]["n"] == n - 1
     note = next(w for w in out["data"]["warnings"] if "not finite numbers" in w)
-    assert "'unknown' in data row 18" in note and "1 cell(s)" in note
+    assert "('unknown' in 1 cell(s))" in note and "1 cell(s) are" in note
 
 
 def test_a_mostly_text_column_with_a_number_stays_categorical():
