@@ -129,7 +129,8 @@ def _scaled(expr: str, factor: float | None, d) -> str:
     numpy; PostgreSQL would fail on the overflow)."""
     if factor is None:
         return expr
-    largest = np.finfo(float).max / factor
+    with np.errstate(over="ignore"):  # a factor below 1 cannot overflow: infinite, unguarded
+        largest = np.finfo(float).max / factor
     if largest >= np.finfo(float).max:
         return f"({expr} * {number(factor)})"
     infinity = f"CAST('inf' AS {d.double})"
