@@ -1,7 +1,9 @@
 """Command-line pieces for data too big for memory: ``--backend``, databases, ``computed_with``.
 
-``auto`` keeps files up to ``AUTO_MEMORY_BYTES`` in memory (the row-level engine, fastest for
-them) and hands bigger files and folders of Parquet files to DuckDB; a ``postgresql://`` address
+``auto`` keeps a file in memory (the row-level engine, fastest for it) while the analysis's
+estimated memory (``engine.io.memory.analysis_stays_in_memory``: rows x columns, not bytes) is
+within ``AUTO_MEMORY_LIMIT``, and hands bigger CSV and Parquet files and folders of Parquet files
+to DuckDB; a ``postgresql://`` address
 always aggregates inside the database. The engine's ``engine.aggregate`` layer does the work;
 this module only chooses, opens and prints.
 """
@@ -12,9 +14,9 @@ import argparse
 from pathlib import Path
 
 from engine.errors import HazelError
+from engine.io import memory
 
 BACKENDS = ("auto", "memory", "duckdb", "spark")
-AUTO_MEMORY_BYTES = 256 * 1024 * 1024  # files above this go to DuckDB under --backend auto
 
 
 class BackendUsageError(HazelError):
@@ -27,8 +29,9 @@ def add_backend_options(parser: argparse.ArgumentParser) -> None:
         "--backend",
         choices=BACKENDS,
         default="auto",
-        help=f"memory, DuckDB (out of core) or Spark; auto: memory up to "
-        f"{AUTO_MEMORY_BYTES // 2**20} MB, DuckDB beyond and for folders (default auto)",
+        help=f"memory, DuckDB (out of core) or Spark; auto: memory while the analysis is "
+        f"estimated (rows x columns) to need up to {memory.megabytes(memory.AUTO_MEMORY_LIMIT)}, "
+        "DuckDB beyond and for folders (default auto)",
     )
     group.add_argument("--table", metavar="NAME", help="database table (DATA is a database URL)")
     group.add_argument(
@@ -89,9 +92,10 @@ def chosen_backend(args: argparse.Namespace) -> str:
         if path.is_dir():  # a partitioned dataset; any other folder is refused as not a file
             has_parquet = any(p.suffix.lower() in PARQUET_SUFFIXES for p in path.rglob("*"))
             return "duckdb" if has_parquet else "memory"
-        suffix = path.suffix.lower()
-        big = path.is_file() and path.stat().st_size > AUTO_MEMORY_BYTES
-        return "duckdb" if big and suffix in PARQUET_SUFFIXES | TEXT_SUFFIXES else "memory"
+        if not path.is_file() or path.suffix.lower() not in PARQUET_SUFFIXES | TEXT_SUFFIXES:
+            return "memory"  # the in-memory reader reads (or refuses) every other format
+        sep = getattr(args, "sep", None)
+        return "memory" if memory.analysis_stays_in_memory(path, sep=sep) else "duckdb"
     if backend == "memory" and path.is_dir():
         raise BackendUsageError(
             f"{data!r} is a folder: a partitioned Parquet dataset needs --backend duckdb (or auto)."

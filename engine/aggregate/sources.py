@@ -23,6 +23,7 @@ import pandas as pd
 
 from engine.aggregate.sql import DUCKDB, POSTGRES, SPARK, Dialect, literal, quoted
 from engine.errors import HazelError, preview_values
+from engine.io.memory import PARQUET_SUFFIXES, TEXT_SUFFIXES
 
 SAMPLE_ROWS = 2000
 BOOLEAN_OID = 16  # PostgreSQL's type code of boolean columns
@@ -31,8 +32,6 @@ WAIT_SECONDS = 0.1  # how often ``SqlSource.wait`` is asked whether to go on
 CANCEL_SECONDS = 15.0  # how long a cancelled statement is given to stop
 T = TypeVar("T")
 DUCKDB_MEMORY_LIMIT = "3GB"  # DuckDB spills to a temporary folder beyond this
-TEXT_SUFFIXES = {".csv", ".tsv", ".txt", ".tab"}
-PARQUET_SUFFIXES = {".parquet", ".pq"}
 
 
 class SourceError(HazelError):
