@@ -48,6 +48,20 @@ def add_backend_options(parser: argparse.ArgumentParser) -> None:
         "--spark-master", metavar="URL", default="local[*]", help="Spark master (default local[*])"
     )
     group.add_argument(
+        "--spark-conf",
+        metavar="KEY=VALUE",
+        action="append",
+        default=[],
+        help="a Spark setting, repeatable (for example spark.driver.memory=4g); it wins over "
+        "Hazel's own",
+    )
+    group.add_argument(
+        "--spark-driver-host",
+        metavar="ADDRESS",
+        help="the address a cluster's executors reach this computer at (default 127.0.0.1 for "
+        "a local master, Spark's choice for a cluster)",
+    )
+    group.add_argument(
         "--sample-rows",
         metavar="N",
         type=int,
@@ -87,6 +101,12 @@ def chosen_backend(args: argparse.Namespace) -> str:
             "--table and --query need DATA to be a database address such as "
             "postgresql://USER@HOST:5432/DB."
         )
+    spark_options = getattr(args, "spark_conf", None) or getattr(args, "spark_driver_host", None)
+    if spark_options and backend != "spark":
+        raise BackendUsageError(
+            "--spark-conf and --spark-driver-host apply to --backend spark (add it, or leave "
+            "them out)."
+        )
     path = Path(data)
     if backend == "auto":
         if path.is_dir():  # a partitioned dataset; any other folder is refused as not a file
@@ -117,11 +137,22 @@ def open_source(args: argparse.Namespace, backend: str):
             statement_timeout=sources.check_statement_timeout(timeout, "--statement-timeout"),
         )
     if backend == "spark":
-        return sources.open_spark(args.data, master=args.spark_master)
+        return sources.open_spark(
+            args.data,
+            master=args.spark_master,
+            settings=sources.spark_settings(args.spark_conf),
+            driver_host=args.spark_driver_host,
+        )
     from app.cli import import_options_from_args  # the one reading of --sep and --decimal
 
     options = import_options_from_args(args)
     return sources.open_duckdb(args.data, sep=options.sep, decimal=options.decimal)
+
+
+def backend_failures(source) -> list[str]:
+    """One ``warning:`` line per query the backend failed: a section it cost says "not
+    computed" in the JSON, and the exit code stays 0 for the sections that were computed."""
+    return [f"warning: a section was not computed: {sentence}" for sentence in source.failures]
 
 
 def memory_computed_with() -> dict:
