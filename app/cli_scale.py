@@ -3,9 +3,8 @@
 ``auto`` keeps a file in memory (the row-level engine, fastest for it) while the analysis's
 estimated memory (``engine.io.memory.analysis_stays_in_memory``: rows x columns, not bytes) is
 within ``AUTO_MEMORY_LIMIT``, and hands bigger CSV and Parquet files and folders of Parquet files
-to DuckDB; a ``postgresql://`` address
-always aggregates inside the database. The engine's ``engine.aggregate`` layer does the work;
-this module only chooses, opens and prints.
+to DuckDB; a ``postgresql://`` address always aggregates inside the database. The engine's
+``engine.aggregate`` layer does the work; this module only chooses, opens and prints.
 """
 
 from __future__ import annotations
@@ -114,7 +113,9 @@ def chosen_backend(args: argparse.Namespace) -> str:
             return "duckdb" if has_parquet else "memory"
         if not path.is_file() or path.suffix.lower() not in PARQUET_SUFFIXES | TEXT_SUFFIXES:
             return "memory"  # the in-memory reader reads (or refuses) every other format
-        sep = getattr(args, "sep", None)
+        from app.cli import import_options_from_args  # the one reading of --sep
+
+        sep = import_options_from_args(args).sep
         return "memory" if memory.analysis_stays_in_memory(path, sep=sep) else "duckdb"
     if backend == "memory" and path.is_dir():
         raise BackendUsageError(
