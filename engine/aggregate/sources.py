@@ -508,6 +508,7 @@ def _connection_failure(name: str, exc: Exception) -> str:
 
 SPARK_VIEW = "hazel_source"
 SPARK_LOCAL_HOST = "127.0.0.1"  # the driver's address for a local master (nothing else sees it)
+SPARK_LOCAL_DRIVER_MEMORY = "2g"  # a local session's heap: issue 21's 10 M-row run needed 2 GB
 SPARK_BYTES_PER_PARTITION = 128 * 1024**2  # common practice: about 128 MB of input a partition
 # Spark's signs that a step was lost for lack of memory or of an executor, not for the query
 SPARK_RESOURCE_FAILURES = re.compile(
@@ -619,6 +620,8 @@ def open_spark(
         hazel["spark.driver.host"] = driver_host or SPARK_LOCAL_HOST
     if local and not driver_host:
         hazel["spark.driver.bindAddress"] = SPARK_LOCAL_HOST
+    if local:  # the driver is the executor too: Spark's 1 GB lost a 10 M-row Cox model's results
+        hazel["spark.driver.memory"] = SPARK_LOCAL_DRIVER_MEMORY
     try:
         from pyspark import SparkConf
 

@@ -158,3 +158,23 @@ def test_a_section_lost_to_a_failed_query_is_said_on_stderr(tmp_path, capsys, mo
     assert "not_computed" in json.loads(out.out)["cox"]
     (line,) = out.err.strip().splitlines()
     assert line.startswith("warning: a section was not computed: The duckdb query on t.parquet")
+
+
+def test_a_local_session_gets_hazels_settings_and_partitions(spark_master, trial):
+    from engine.aggregate.sources import open_spark
+
+    source = open_spark(trial, master=spark_master)
+    try:
+        conf = source.connection.sparkContext.getConf()
+        assert conf.get("spark.ui.showConsoleProgress") == "false"
+        assert conf.get("spark.driver.host") == "127.0.0.1"
+        cores = source.connection.sparkContext.defaultParallelism
+        wanted = spark_shuffle_partitions(cores, trial.stat().st_size)
+        assert source.connection.conf.get("spark.sql.shuffle.partitions") == str(wanted) != "200"
+    finally:
+        source.close()
+    given = open_spark(trial, master=spark_master, settings={"spark.sql.shuffle.partitions": "7"})
+    try:
+        assert given.connection.conf.get("spark.sql.shuffle.partitions") == "7"
+    finally:
+        given.close()
