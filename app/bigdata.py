@@ -3,8 +3,9 @@ PostgreSQL tables, kept where they are and aggregated there (``engine.aggregate`
 
 The data folder comes from ``HAZEL_DATA_FOLDER`` or the ``[hazel] data_folder`` entry of the
 app's ``.streamlit/config.toml`` (read here with tomllib: Streamlit ignores that section). Only
-paths whose real location (symlinks resolved) is inside the folder are opened. A small file is
-read into memory like an upload; a bigger one, or a folder of Parquet files, becomes an
+paths whose real location (symlinks resolved) is inside the folder are opened. A file whose
+analysis fits in ``AUTO_MEMORY_LIMIT`` (estimated from its rows x columns, the rule of ``--backend
+auto``) is read into memory like an upload; a bigger one, or a folder of Parquet files, becomes an
 aggregated source in the session. A database password is used to connect and then forgotten:
 the source's ``name`` carries no credentials and nothing else keeps the password.
 """
@@ -22,9 +23,10 @@ from urllib.parse import quote, urlsplit, urlunsplit
 
 import streamlit as st
 
-from app import cli_scale, data, state
+from app import data, state
 from engine.aggregate.sources import STATEMENT_TIMEOUT
 from engine.errors import HazelError
+from engine.io import memory
 from engine.prepare.roles import Roles, suggest_roles
 
 DATA_FOLDER_ENV = "HAZEL_DATA_FOLDER"
@@ -52,14 +54,15 @@ class FolderEntry:
     name: str
     size: int
     is_folder: bool
+    needs: int = 0  # estimated memory of an analysis in memory (``analysis_memory_needed``)
 
     @property
     def big(self) -> bool:
-        return self.is_folder or self.size > cli_scale.AUTO_MEMORY_BYTES
+        return self.is_folder or self.needs > memory.AUTO_MEMORY_LIMIT
 
 
 def memory_limit_text() -> str:
-    return f"{cli_scale.AUTO_MEMORY_BYTES / 2**20:,.0f} MB"
+    return memory.megabytes(memory.AUTO_MEMORY_LIMIT)
 
 
 def data_folder(config_file: Path = CONFIG_FILE) -> Path | None:
@@ -104,7 +107,8 @@ def folder_entries(folder: Path) -> list[FolderEntry]:
             size = sum(p.stat().st_size for p in real.rglob("*") if p.is_file())
             entries.append(FolderEntry(path.name, size, True))
         elif real.is_file() and real.suffix.lower() in READABLE_SUFFIXES:
-            entries.append(FolderEntry(path.name, real.stat().st_size, False))
+            needs = memory.analysis_memory_needed(real)
+            entries.append(FolderEntry(path.name, real.stat().st_size, False, needs))
     return entries
 
 
@@ -151,11 +155,12 @@ def open_from_folder(session: MutableMapping, folder: Path, name: str) -> str:
     from engine.io.tables import read_table
 
     path = inside_folder(folder, name)
-    if path.is_dir() or path.stat().st_size > cli_scale.AUTO_MEMORY_BYTES:
+    if path.is_dir() or not memory.analysis_stays_in_memory(path):  # the rule of --backend auto
         if path.is_file() and path.suffix.lower() not in AGGREGATABLE_SUFFIXES:
             raise DataFolderError(
-                f"{name!r} is larger than {memory_limit_text()}; files that big are read where "
-                "they are, which works for CSV and Parquet files. Save it as one of those."
+                f"{name!r} would need more than {memory_limit_text()} of memory; files that "
+                "big are read where they are, which works for CSV and Parquet files. Save it "
+                "as one of those."
             )
         install_source(session, open_duckdb(path), f"{name} (big data, read by DuckDB)")
         return "aggregated"

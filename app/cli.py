@@ -15,6 +15,7 @@ from pathlib import Path
 
 from app.cli_scale import (
     add_backend_options,
+    backend_failures,
     check_sample_options,
     chosen_backend,
     computed_with,
@@ -730,6 +731,8 @@ def run_aggregated(args: argparse.Namespace, backend: str, *, check_only: bool =
         source.close()
     for warning in warnings:
         show(f"warning: {' '.join(warning.split())}", sys.stderr)
+    for line in backend_failures(source):
+        show(line, sys.stderr)
     head = source_summary(source, data.report, roles, data.filtered)
     if not check_only and sections["computed_with"]["sample"]:
         head += "\n" + sample_summary(sections["computed_with"]["sample"])

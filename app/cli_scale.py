@@ -1,9 +1,10 @@
 """Command-line pieces for data too big for memory: ``--backend``, databases, ``computed_with``.
 
-``auto`` keeps files up to ``AUTO_MEMORY_BYTES`` in memory (the row-level engine, fastest for
-them) and hands bigger files and folders of Parquet files to DuckDB; a ``postgresql://`` address
-always aggregates inside the database. The engine's ``engine.aggregate`` layer does the work;
-this module only chooses, opens and prints.
+``auto`` keeps a file in memory (the row-level engine, fastest for it) while the analysis's
+estimated memory (``engine.io.memory.analysis_stays_in_memory``: rows x columns, not bytes) is
+within ``AUTO_MEMORY_LIMIT``, and hands bigger CSV and Parquet files and folders of Parquet files
+to DuckDB; a ``postgresql://`` address always aggregates inside the database. The engine's
+``engine.aggregate`` layer does the work; this module only chooses, opens and prints.
 """
 
 from __future__ import annotations
@@ -12,9 +13,9 @@ import argparse
 from pathlib import Path
 
 from engine.errors import HazelError
+from engine.io import memory
 
 BACKENDS = ("auto", "memory", "duckdb", "spark")
-AUTO_MEMORY_BYTES = 256 * 1024 * 1024  # files above this go to DuckDB under --backend auto
 
 
 class BackendUsageError(HazelError):
@@ -27,8 +28,9 @@ def add_backend_options(parser: argparse.ArgumentParser) -> None:
         "--backend",
         choices=BACKENDS,
         default="auto",
-        help=f"memory, DuckDB (out of core) or Spark; auto: memory up to "
-        f"{AUTO_MEMORY_BYTES // 2**20} MB, DuckDB beyond and for folders (default auto)",
+        help=f"memory, DuckDB (out of core) or Spark; auto: memory while the analysis is "
+        f"estimated (rows x columns) to need up to {memory.megabytes(memory.AUTO_MEMORY_LIMIT)}, "
+        "DuckDB beyond and for folders (default auto)",
     )
     group.add_argument("--table", metavar="NAME", help="database table (DATA is a database URL)")
     group.add_argument(
@@ -43,6 +45,20 @@ def add_backend_options(parser: argparse.ArgumentParser) -> None:
     )
     group.add_argument(
         "--spark-master", metavar="URL", default="local[*]", help="Spark master (default local[*])"
+    )
+    group.add_argument(
+        "--spark-conf",
+        metavar="KEY=VALUE",
+        action="append",
+        default=[],
+        help="a Spark setting, repeatable (for example spark.driver.memory=4g); it wins over "
+        "Hazel's own",
+    )
+    group.add_argument(
+        "--spark-driver-host",
+        metavar="ADDRESS",
+        help="the address a cluster's executors reach this computer at (default 127.0.0.1 for "
+        "a local master, Spark's choice for a cluster)",
     )
     group.add_argument(
         "--sample-rows",
@@ -84,14 +100,23 @@ def chosen_backend(args: argparse.Namespace) -> str:
             "--table and --query need DATA to be a database address such as "
             "postgresql://USER@HOST:5432/DB."
         )
+    spark_options = getattr(args, "spark_conf", None) or getattr(args, "spark_driver_host", None)
+    if spark_options and backend != "spark":
+        raise BackendUsageError(
+            "--spark-conf and --spark-driver-host apply to --backend spark (add it, or leave "
+            "them out)."
+        )
     path = Path(data)
     if backend == "auto":
         if path.is_dir():  # a partitioned dataset; any other folder is refused as not a file
             has_parquet = any(p.suffix.lower() in PARQUET_SUFFIXES for p in path.rglob("*"))
             return "duckdb" if has_parquet else "memory"
-        suffix = path.suffix.lower()
-        big = path.is_file() and path.stat().st_size > AUTO_MEMORY_BYTES
-        return "duckdb" if big and suffix in PARQUET_SUFFIXES | TEXT_SUFFIXES else "memory"
+        if not path.is_file() or path.suffix.lower() not in PARQUET_SUFFIXES | TEXT_SUFFIXES:
+            return "memory"  # the in-memory reader reads (or refuses) every other format
+        from app.cli import import_options_from_args  # the one reading of --sep
+
+        sep = import_options_from_args(args).sep
+        return "memory" if memory.analysis_stays_in_memory(path, sep=sep) else "duckdb"
     if backend == "memory" and path.is_dir():
         raise BackendUsageError(
             f"{data!r} is a folder: a partitioned Parquet dataset needs --backend duckdb (or auto)."
@@ -113,11 +138,22 @@ def open_source(args: argparse.Namespace, backend: str):
             statement_timeout=sources.check_statement_timeout(timeout, "--statement-timeout"),
         )
     if backend == "spark":
-        return sources.open_spark(args.data, master=args.spark_master)
+        return sources.open_spark(
+            args.data,
+            master=args.spark_master,
+            settings=sources.spark_settings(args.spark_conf),
+            driver_host=args.spark_driver_host,
+        )
     from app.cli import import_options_from_args  # the one reading of --sep and --decimal
 
     options = import_options_from_args(args)
     return sources.open_duckdb(args.data, sep=options.sep, decimal=options.decimal)
+
+
+def backend_failures(source) -> list[str]:
+    """One ``warning:`` line per query the backend failed: a section it cost says "not
+    computed" in the JSON, and the exit code stays 0 for the sections that were computed."""
+    return [f"warning: a section was not computed: {sentence}" for sentence in source.failures]
 
 
 def memory_computed_with() -> dict:

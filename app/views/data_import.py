@@ -115,10 +115,10 @@ with folder_side:
             st.error(ui.escape(error), icon=":material/error:")
             entries = []
         st.caption(
-            f"Files and Parquet folders in {ui.escape(folder)}. Up to "
-            f"{bigdata.memory_limit_text()} a file is read into memory like an upload; bigger "
-            "files and Parquet folders are read where they are (big data: curves, comparison "
-            "and Cox model only)."
+            f"Files and Parquet folders in {ui.escape(folder)}. A file whose analysis needs up "
+            f"to {bigdata.memory_limit_text()} of memory (estimated from its rows and columns) "
+            "is read into memory like an upload; bigger files and Parquet folders are read "
+            "where they are (big data: curves, comparison and Cox model only)."
         )
         if entries:
             names = {

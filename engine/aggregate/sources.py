@@ -23,6 +23,7 @@ import pandas as pd
 
 from engine.aggregate.sql import DUCKDB, POSTGRES, SPARK, Dialect, literal, quoted
 from engine.errors import HazelError, preview_values
+from engine.io.memory import PARQUET_SUFFIXES, TEXT_SUFFIXES
 
 SAMPLE_ROWS = 2000
 BOOLEAN_OID = 16  # PostgreSQL's type code of boolean columns
@@ -31,8 +32,6 @@ WAIT_SECONDS = 0.1  # how often ``SqlSource.wait`` is asked whether to go on
 CANCEL_SECONDS = 15.0  # how long a cancelled statement is given to stop
 T = TypeVar("T")
 DUCKDB_MEMORY_LIMIT = "3GB"  # DuckDB spills to a temporary folder beyond this
-TEXT_SUFFIXES = {".csv", ".tsv", ".txt", ".tab"}
-PARQUET_SUFFIXES = {".parquet", ".pq"}
 
 
 class SourceError(HazelError):
@@ -59,6 +58,9 @@ class SqlSource:
     # worker thread; an exception it raises cancels the statement and is raised in its place
     # (the app's stop). None: statements run in the calling thread.
     wait: Callable[[], None] | None = field(default=None, repr=False)
+    # The sentence of each query the backend failed (a section then says "not computed" in the
+    # JSON); the command line prints them on stderr, so no failure hides behind exit 0.
+    failures: list[str] = field(default_factory=list, repr=False)
 
     def rows(self) -> str:
         """The SQL aggregate counting rows."""
@@ -153,10 +155,15 @@ class SqlSource:
         except Exception as exc:  # the database's own message says what failed
             if self.backend == "postgresql":
                 self.connection.rollback()
-            raise SourceError(self._failure(exc)) from exc
+            sentence = self._failure(exc)
+            if sentence not in self.failures:
+                self.failures.append(sentence)
+            raise SourceError(sentence) from exc
 
     def _failure(self, exc: Exception) -> str:
         """What went wrong, in one sentence without the database's echo of the SQL."""
+        if self.backend == "spark":
+            return spark_failure(exc, self.name)
         state = getattr(exc, "sqlstate", None)
         reason = _reason(exc)
         if state == "57014":  # query_canceled: the statement timeout or a cancel
@@ -523,14 +530,88 @@ def _connection_failure(name: str, exc: Exception) -> str:
 
 
 SPARK_VIEW = "hazel_source"
+SPARK_LOCAL_HOST = "127.0.0.1"  # the driver's address for a local master (nothing else sees it)
+SPARK_LOCAL_DRIVER_MEMORY = "2g"  # a local session's heap: issue 21's 10 M-row run needed 2 GB
+SPARK_BYTES_PER_PARTITION = 128 * 1024**2  # common practice: about 128 MB of input a partition
+# Spark's signs that a step was lost for lack of memory or of an executor, not for the query
+SPARK_RESOURCE_FAILURES = re.compile(
+    r"TaskResultLost|OutOfMemory|Java heap space|maxResultSize|ExecutorLostFailure|"
+    r"Lost executor|GC overhead|Container killed|FetchFailed",
+    re.IGNORECASE,
+)
+SPARK_REMOTE_PREFIXES = ("hdfs:", "s3a:", "abfss:", "gs:", "file:")
 
 
-def open_spark(path: str | Path, *, master: str = "local[*]") -> SqlSource:
+class SparkSettingError(SourceError):
+    """A ``--spark-conf`` entry that is not KEY=VALUE."""
+
+
+def spark_settings(entries) -> dict[str, str]:
+    """``KEY=VALUE`` texts (``--spark-conf``, repeatable) as a dict, the last of a key winning."""
+    settings: dict[str, str] = {}
+    for entry in entries or ():
+        key, sep, value = str(entry).partition("=")
+        key = key.strip()
+        if not sep or not key or not key.startswith("spark.") or not value.strip():
+            raise SparkSettingError(
+                f"--spark-conf {str(entry)!r} must be KEY=VALUE with a Spark setting's name, for "
+                "example --spark-conf spark.driver.memory=4g."
+            )
+        settings[key] = value.strip()
+    return settings
+
+
+def spark_shuffle_partitions(cores: int, input_bytes: int | None) -> int:
+    """Partitions of Spark's shuffles for Hazel's aggregates, from the cluster and the data:
+    one per ``SPARK_BYTES_PER_PARTITION`` of input, at least one per core (so every core works)
+    and at most two per core (Hazel's aggregates are small: Spark's default of 200 made a
+    10 M-row run on a small cluster spend most of its time scheduling empty tasks)."""
+    cores = max(1, int(cores))
+    wanted = cores if input_bytes is None else -(-int(input_bytes) // SPARK_BYTES_PER_PARTITION)
+    return max(cores, min(2 * cores, wanted))
+
+
+def spark_failure(exc: Exception, name: str, *, reading: bool = False) -> str:
+    """A Spark failure in one sentence: the first line of Spark's own message (never the Java
+    stack trace), and for a lost step what to give more of. ``reading``: opening the data."""
+    text = str(getattr(exc, "desc", None) or exc)
+    text = re.sub(r"^An error occurred while calling [\w.$]+\.\s*:?\s*", "", text.strip())
+    lines = [line.strip() for line in text.splitlines() if line.strip()]
+    first = next((line for line in lines if not line.startswith("at ")), type(exc).__name__)
+    first = re.split(r"\s+at (?:org|java|scala|sun)\.", first)[0]
+    first = re.sub(r"^(?:[a-z]+\.)+[A-Za-z]*(?:Exception|Error):\s*", "", first).rstrip(". ")
+    first = first if len(first) <= 240 else first[:237].rstrip() + "..."
+    if SPARK_RESOURCE_FAILURES.search(text):
+        return (
+            f"Spark lost a step of the work on {name} ({first}): the driver or an executor ran "
+            "short of memory or was lost. Give them more, for example --spark-conf "
+            "spark.driver.memory=4g (and spark.executor.memory=4g on a cluster), or use "
+            "--backend duckdb."
+        )
+    if reading:
+        return f"Spark could not read {name}: {first}. Check the path and the Spark settings."
+    return f"The spark query on {name} failed: {first}. Check the data and the column roles."
+
+
+def open_spark(
+    path: str | Path,
+    *,
+    master: str = "local[*]",
+    settings: dict[str, str] | None = None,
+    driver_host: str | None = None,
+) -> SqlSource:
     """A Parquet file or folder read by Spark (a local session by default, or the cluster at
-    ``master``); one session per process, reused by later calls."""
+    ``master``); one session per process, reused by later calls.
+
+    ``settings`` are Spark settings (``--spark-conf``), applied last so they win over Hazel's.
+    ``driver_host`` is the address executors reach the driver at: by default 127.0.0.1 for a
+    local master only (elsewhere Spark's own choice, this machine's name). Spark's console
+    progress bars are off, its log shows errors only and goes to ``spark_log_path``, so
+    stderr carries Hazel's lines."""
     import shutil
 
-    remote = str(path).startswith(("hdfs:", "s3a:", "abfss:", "gs:", "file:"))
+    settings = dict(settings or {})
+    remote = str(path).startswith(SPARK_REMOTE_PREFIXES)
     path = Path(path)
     if not remote and not path.exists():
         raise SourceError(f"The data path {str(path)!r} does not exist; check the name.")
@@ -548,25 +629,64 @@ def open_spark(path: str | Path, *, master: str = "local[*]") -> SqlSource:
         from pyspark.sql import SparkSession
     except ImportError as exc:  # pragma: no cover - installed with the requirements
         raise SourceError("The Spark backend needs the pyspark package.") from exc
+    local = master.startswith("local")
+    hazel = {
+        "spark.ui.enabled": "false",
+        "spark.ui.showConsoleProgress": "false",  # no [Stage 12:==>  (2 + 2) / 4] on stderr
+        "spark.sql.ansi.enabled": "true",
+        "spark.sql.ansi.doubleQuotedIdentifiers": "true",
+        "spark.sql.session.timeZone": "UTC",
+        # results come back to the driver as Arrow columns, not pickled rows
+        "spark.sql.execution.arrow.pyspark.enabled": "true",
+    }
+    if driver_host or local:
+        hazel["spark.driver.host"] = driver_host or SPARK_LOCAL_HOST
+    if local and not driver_host:
+        hazel["spark.driver.bindAddress"] = SPARK_LOCAL_HOST
+    if local:  # the driver is the executor too: Spark's 1 GB lost a 10 M-row Cox model's results
+        hazel["spark.driver.memory"] = SPARK_LOCAL_DRIVER_MEMORY
     try:
-        builder = SparkSession.builder.master(master)
-        if master.startswith("local"):  # small aggregates: a few shuffle partitions, not 200
-            builder = builder.config("spark.sql.shuffle.partitions", "4")
-        session = (
-            builder.appName("hazel")
-            .config("spark.ui.enabled", "false")
-            .config("spark.driver.bindAddress", "127.0.0.1")
-            .config("spark.driver.host", "127.0.0.1")
-            .config("spark.sql.ansi.enabled", "true")
-            .config("spark.sql.ansi.doubleQuotedIdentifiers", "true")
-            .config("spark.sql.session.timeZone", "UTC")
-            .getOrCreate()
-        )
+        from pyspark import SparkConf
+
+        conf = SparkConf().setMaster(master).setAppName("hazel")
+        conf.setAll(list({**hazel, **settings}.items()))
+        _start_spark_quietly(conf)
+        session = SparkSession.builder.config(conf=conf).getOrCreate()
         session.sparkContext.setLogLevel("ERROR")
         reader = session.read.option("mergeSchema", "true")
         frame = reader.parquet(str(path))
+        if "spark.sql.shuffle.partitions" not in settings:
+            size = None if remote else _bytes_on_disk(path)
+            partitions = spark_shuffle_partitions(session.sparkContext.defaultParallelism, size)
+            session.conf.set("spark.sql.shuffle.partitions", str(partitions))
         frame.createOrReplaceTempView(SPARK_VIEW)
     except Exception as exc:
-        message = " ".join(str(exc).split())[:300]
-        raise SourceError(f"Spark could not read {path.name!r}: {message}") from exc
+        raise SourceError(spark_failure(exc, path.name, reading=True)) from exc
     return SqlSource("spark", session.version, SPARK, SPARK_VIEW, path.name, session, path=path)
+
+
+def spark_log_path() -> Path:
+    """Where the Java side of Spark writes its own messages (its startup notes, its log):
+    a file in the temporary folder, one per process, so stderr carries Hazel's lines only."""
+    import tempfile
+
+    return Path(tempfile.gettempdir()) / f"hazel-spark-{os.getpid()}.log"
+
+
+def _start_spark_quietly(conf) -> None:
+    """Start Spark's Java process with its output going to ``spark_log_path``, unless this
+    process already has one (a session is reused)."""
+    from pyspark import SparkContext
+    from pyspark.java_gateway import launch_gateway
+
+    if SparkContext._gateway is not None:
+        return
+    with spark_log_path().open("w") as log:
+        gateway = launch_gateway(conf, popen_kwargs={"stdout": log, "stderr": log})
+    SparkContext(conf=conf, gateway=gateway)
+
+
+def _bytes_on_disk(path: Path) -> int:
+    if path.is_file():
+        return path.stat().st_size
+    return sum(p.stat().st_size for p in path.rglob("*") if p.is_file())

@@ -11,8 +11,9 @@ import pandas as pd
 import pytest
 from streamlit.testing.v1 import AppTest
 
-from app import bigdata, cli_scale, state
+from app import bigdata, state
 from engine.analysis.run import run_analysis
+from engine.io import memory
 from engine.prepare.checks import prepare
 from engine.prepare.roles import Roles
 from tests.aggregate.conftest import load_table, postgres_url  # noqa: F401  (session fixture)
@@ -87,7 +88,7 @@ def test_a_small_file_is_read_into_memory_and_a_big_one_aggregated(folder, monke
     session: dict = {}
     assert bigdata.open_from_folder(session, folder, "small.csv") == "memory"
     assert len(session[state.TABLE].frame) == 200 and state.SOURCE not in session
-    monkeypatch.setattr(cli_scale, "AUTO_MEMORY_BYTES", 1000)
+    monkeypatch.setattr(memory, "AUTO_MEMORY_LIMIT", 1000)
     assert bigdata.open_from_folder(session, folder, "small.csv") == "aggregated"
     assert state.TABLE not in session and session[state.SOURCE].backend == "duckdb"
     with pytest.raises(bigdata.DataFolderError, match=r"leak\.csv"):
@@ -139,7 +140,7 @@ def test_a_password_field_goes_into_the_url_quoted():
 
 
 def _open_big(monkeypatch) -> AppTest:
-    monkeypatch.setattr(cli_scale, "AUTO_MEMORY_BYTES", 1000)
+    monkeypatch.setattr(memory, "AUTO_MEMORY_LIMIT", 1000)
     at = AppTest.from_file(ENTRY, default_timeout=180).run()
     at.selectbox(key="import_folder_entry").set_value("trial").run()
     at.button(key="import_folder_open_button").click().run()

@@ -91,7 +91,8 @@ def test_command_line_under_a_memory_cap_exits_2_with_one_line(tmp_path):
     """A real cap (RLIMIT_AS) 300 MB above what the started command line uses, and a 78 MB file
     of 18 million cells that needs more: refused by the estimate before reading, never a
     traceback. (Past the estimate, a cap this tight can make the parser's native threads abort
-    in ways no Python program can catch, so the refusal comes first.)"""
+    in ways no Python program can catch, so the refusal comes first.) ``--backend memory``: under
+    ``auto`` its 18 M cells would go to DuckDB."""
     path = tmp_path / "big.csv"
     path.write_bytes(b"time,event,site\n" + b"12.5,1,north\n" * 6_000_000)
     cap = _address_space_in_use() + 300 * 1024**2
@@ -100,7 +101,19 @@ def test_command_line_under_a_memory_cap_exits_2_with_one_line(tmp_path):
         resource.setrlimit(resource.RLIMIT_AS, (cap, cap))
 
     done = subprocess.run(
-        [sys.executable, "-m", "app", "check", str(path), "--time", "time", "--event", "event"],
+        [
+            sys.executable,
+            "-m",
+            "app",
+            "check",
+            str(path),
+            "--time",
+            "time",
+            "--event",
+            "event",
+            "--backend",
+            "memory",
+        ],
         cwd=ROOT,
         capture_output=True,
         text=True,
